@@ -1,0 +1,33 @@
+"""The exception tree: every error a user can cause carries an exit code and a readable message."""
+
+from __future__ import annotations
+
+
+class FoldwiseError(Exception):
+    """Base of all foldwise errors; `exit_code` is what the CLI exits with."""
+
+    exit_code = 1
+
+
+class SpecError(FoldwiseError, ValueError):
+    """The spec file cannot be read or does not validate."""
+
+    exit_code = 2
+
+
+class DataError(FoldwiseError, ValueError):
+    """The data file or its columns cannot serve the spec."""
+
+    exit_code = 2
+
+
+class StoreError(FoldwiseError, RuntimeError):
+    """The store cannot be opened, read or written as asked."""
+
+    exit_code = 2
+
+
+class QueryError(FoldwiseError, ValueError):
+    """A query against the store was refused or failed."""
+
+    exit_code = 2

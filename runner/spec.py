@@ -1,0 +1,375 @@
+"""The spec: one YAML file read with a safe loader and validated by pydantic.
+
+Errors name the file, the line, the field path and, for misspelt names, the nearest valid
+one. Paths inside the spec resolve relative to the spec file."""
+
+from __future__ import annotations
+
+import hashlib
+from pathlib import Path
+from typing import Any, Literal
+
+import yaml
+from pydantic import (BaseModel, ConfigDict, Field, ValidationError, field_validator,
+                      model_validator)
+
+from .errors import SpecError
+from .families import FAMILIES, check_param_value, nearest
+
+__all__ = ["Spec", "ModelSpec", "load_spec", "parse_spec", "spec_json_schema", "METRICS",
+           "LogRange", "LinearRange", "PathRange"]
+
+METRICS = {"rmse": "lower", "mae": "lower", "r2": "higher"}
+"""Every metric foldwise scores, with the direction that is better."""
+
+
+class _Strict(BaseModel):
+    model_config = ConfigDict(extra="forbid")
+
+
+class DataSpec(_Strict):
+    """Where the rows are and which column is the target."""
+
+    path: str = Field(description="CSV or Parquet file, relative to the spec file")
+    target: str = Field(description="the column to predict (numeric)")
+    drop: list[str] = Field(default_factory=list, description="columns never used as features")
+    categorical: list[str] = Field(
+        default_factory=list,
+        description="columns treated as categories; text and boolean columns always are")
+
+
+class TestSplit(_Strict):
+    """The held-out test rows: a random fraction, a separate file, or a boolean column."""
+
+    fraction: float | None = Field(None, gt=0.0, lt=1.0, description="share of rows held out")
+    seed: int = Field(0, ge=0, description="random_state of the test split")
+    file: str | None = Field(None, description="a separate test file with the same columns")
+    column: str | None = Field(None, description="a boolean column: true marks test rows")
+
+    @model_validator(mode="after")
+    def _exactly_one_form(self):
+        given = [n for n in ("fraction", "file", "column") if getattr(self, n) is not None]
+        if len(given) != 1:
+            raise ValueError("give exactly one of fraction, file or column "
+                             f"(got {', '.join(given) or 'none'})")
+        return self
+
+
+class FoldPlan(_Strict):
+    """Repeated k-fold cross-validation on the training rows."""
+
+    k: int = Field(5, ge=2, description="folds per repeat")
+    repeats: int = Field(1, ge=1, description="how many times the k folds are redrawn")
+    seed: int = Field(0, ge=0, description="random_state of the folds; estimator seeds derive from it")
+
+
+class LogRange(_Strict):
+    """`n` values spaced evenly on a log scale from lo to hi."""
+
+    log: tuple[float, float]
+    n: int = Field(ge=1)
+
+    @field_validator("log")
+    @classmethod
+    def _positive(cls, v):
+        if v[0] <= 0 or v[1] <= 0:
+            raise ValueError(f"log range bounds must both be > 0, got {list(v)}")
+        return v
+
+
+class LinearRange(_Strict):
+    """`n` values spaced evenly from lo to hi."""
+
+    linear: tuple[float, float]
+    n: int = Field(ge=1)
+
+
+class PathRange(_Strict):
+    """`n` values spread along the cost-complexity pruning path (pruned_tree only)."""
+
+    path: int = Field(ge=1)
+
+
+_RANGE_FORMS = {"log": LogRange, "linear": LinearRange, "path": PathRange}
+
+
+def _grid_form(name: str, value: Any):
+    """Resolve one grid entry to a list of values or a range object (the canonical forms)."""
+    if isinstance(value, dict):
+        kind = next((k for k in _RANGE_FORMS if k in value), None)
+        if kind is None:
+            raise ValueError(f"grid.{name}: a mapping must be {{log: [lo, hi], n: N}}, "
+                             f"{{linear: [lo, hi], n: N}} or {{path: N}}; got keys "
+                             f"{', '.join(map(str, value))}")
+        try:
+            return _RANGE_FORMS[kind].model_validate(value)
+        except ValidationError as exc:
+            detail = "; ".join(e["msg"].removeprefix("Value error, ") + f" ({'.'.join(map(str, e['loc']))})"
+                               for e in exc.errors())
+            raise ValueError(f"grid.{name}: bad {kind} range: {detail}") from None
+    if isinstance(value, list):
+        for v in value:
+            if isinstance(v, (list, dict)):
+                raise ValueError(f"grid.{name}: list items must be single values, got {v!r}")
+        return value
+    return [value]
+
+
+class ModelSpec(_Strict):
+    """A labelled model: a family and a grid of its hyperparameters."""
+
+    family: str = Field(description="linear, pruned_tree or forest")
+    grid: dict[str, Any] = Field(default_factory=dict,
+                                 description="hyperparameter -> list of values, "
+                                 "{log: [lo, hi], n: N}, {linear: [lo, hi], n: N} or {path: N}")
+    simpler: dict[str, Literal["higher", "lower"]] = Field(
+        default_factory=dict,
+        description="override which direction of a parameter gives the simpler model")
+
+    @field_validator("family")
+    @classmethod
+    def _known_family(cls, v):
+        if v not in FAMILIES:
+            raise ValueError(f"unknown family '{v}'; valid families: "
+                             f"{', '.join(FAMILIES)}.{nearest(v, FAMILIES)}")
+        return v
+
+    @model_validator(mode="after")
+    def _known_params(self):
+        family = FAMILIES[self.family]
+        for name in list(self.grid) + list(self.simpler):
+            if name not in family.params:
+                raise ValueError(
+                    f"unknown hyperparameter '{name}' for family '{self.family}'; valid names: "
+                    f"{', '.join(family.params)}.{nearest(name, family.params)}")
+        canonical = {}
+        for name, value in self.grid.items():
+            param = family.params[name]
+            value = _grid_form(name, value)
+            if isinstance(value, PathRange):
+                if self.family != "pruned_tree" or name != "ccp_alpha":
+                    raise ValueError(f"grid.{name}: {{path: N}} is only for ccp_alpha of "
+                                     "the pruned_tree family")
+                canonical[name] = value
+            elif isinstance(value, (LogRange, LinearRange)):
+                if param.kind not in ("float", "int"):
+                    raise ValueError(f"grid.{name}: a range needs a numeric parameter; "
+                                     f"give a list of values instead")
+                lo, hi = value.log if isinstance(value, LogRange) else value.linear
+                for bound in (lo, hi):
+                    check_param_value(param, int(round(bound)) if param.kind == "int" else bound)
+                canonical[name] = value
+            else:
+                values = value
+                if not values:
+                    raise ValueError(f"grid.{name} is an empty list; give at least one value")
+                try:
+                    canonical[name] = [check_param_value(param, v) for v in values]
+                except ValueError as exc:
+                    raise ValueError(f"grid.{exc}") from None
+        if "ccp_alpha" in self.grid and "ccp_fraction" in self.grid:
+            raise ValueError("give ccp_alpha or ccp_fraction in the grid, not both")
+        self.grid = canonical
+        return self
+
+
+class Spec(_Strict):
+    """A whole sweep: data, test split, folds, metrics, store and models."""
+
+    name: str = Field(description="a short name for the sweep")
+    description: str | None = None
+    data: DataSpec
+    test: TestSplit
+    folds: FoldPlan = Field(default_factory=FoldPlan)
+    metrics: list[str] = Field(default_factory=lambda: ["rmse", "mae", "r2"],
+                               description="the first one decides picks")
+    pick: Literal["best", "one_se"] = Field("one_se", description="the default pick rule")
+    store: str | None = Field(None, description="DuckDB file, relative to the spec file")
+    jobs: int | None = Field(None, description="parallel workers; default all cores")
+    models: dict[str, ModelSpec] = Field(min_length=1)
+
+    @field_validator("metrics")
+    @classmethod
+    def _known_metrics(cls, v):
+        if not v:
+            raise ValueError("list at least one metric")
+        for m in v:
+            if m not in METRICS:
+                raise ValueError(f"unknown metric '{m}'; valid metrics: "
+                                 f"{', '.join(METRICS)}.{nearest(m, METRICS)}")
+        if len(set(v)) != len(v):
+            raise ValueError("a metric is listed twice")
+        return v
+
+    @field_validator("models")
+    @classmethod
+    def _labels(cls, v):
+        for label in v:
+            if not isinstance(label, str) or not label.strip():
+                raise ValueError("model labels must be non-empty text")
+        return v
+
+    # Set after loading; not part of the YAML.
+    _source: Path | None = None
+    _text: str = ""
+
+    @property
+    def source(self) -> Path | None:
+        return self._source
+
+    @property
+    def text(self) -> str:
+        return self._text
+
+    @property
+    def sha256(self) -> str:
+        return hashlib.sha256(self._text.encode()).hexdigest()
+
+    @property
+    def base_dir(self) -> Path:
+        return self._source.parent if self._source else Path.cwd()
+
+    def resolve(self, relative: str) -> Path:
+        """A path from the spec, resolved against the spec file's folder."""
+        p = Path(relative).expanduser()
+        return p if p.is_absolute() else (self.base_dir / p)
+
+    @property
+    def primary_metric(self) -> str:
+        return self.metrics[0]
+
+
+class _UniqueKeyLoader(yaml.SafeLoader):
+    """The safe loader, refusing duplicate mapping keys instead of keeping the last."""
+
+
+def _construct_mapping(loader, node, deep=False):
+    seen = {}
+    for key_node, _ in node.value:
+        key = loader.construct_object(key_node, deep=deep)
+        if key in seen:
+            raise SpecError(f"duplicate key '{key}' at line {key_node.start_mark.line + 1} "
+                            f"(first at line {seen[key]}); each key may appear once — rename "
+                            "or remove one of them.")
+        seen[key] = key_node.start_mark.line + 1
+    return yaml.SafeLoader.construct_mapping(loader, node, deep=deep)
+
+
+_UniqueKeyLoader.add_constructor(yaml.resolver.BaseResolver.DEFAULT_MAPPING_TAG,
+                                 _construct_mapping)
+
+
+def _line_map(node, path=(), out=None) -> dict[tuple, int]:
+    """Map each field path in a composed YAML tree to its 1-based line."""
+    out = {} if out is None else out
+    out.setdefault(path, node.start_mark.line + 1)
+    if isinstance(node, yaml.MappingNode):
+        for k, v in node.value:
+            key = k.value
+            out[path + (key,)] = k.start_mark.line + 1
+            _line_map(v, path + (key,), out)
+    elif isinstance(node, yaml.SequenceNode):
+        for i, v in enumerate(node.value):
+            _line_map(v, path + (i,), out)
+    return out
+
+
+def _describe(exc: ValidationError, lines: dict[tuple, int], where: str) -> str:
+    parts = []
+    for err in exc.errors():
+        loc = tuple(x for x in err["loc"] if not (isinstance(x, str) and (
+            x.startswith(("list[", "LogRange", "LinearRange", "PathRange", "function-"))
+            or x in ("bool", "int", "float", "str", "none"))))
+        field = ".".join(str(x) for x in loc) or "(top level)"
+        line = None
+        for n in range(len(loc), -1, -1):
+            if loc[:n] in lines:
+                line = lines[loc[:n]]
+                break
+        msg = err["msg"].removeprefix("Value error, ")
+        if err["type"] == "extra_forbidden":
+            parent = loc[:-1]
+            valid = _valid_keys(parent)
+            msg = f"unknown field '{loc[-1]}'"
+            if valid:
+                msg += f"; valid fields here: {', '.join(valid)}.{nearest(str(loc[-1]), valid)}"
+        elif err["type"] == "missing":
+            msg = "this required field is missing"
+        at = f"line {line}, " if line else ""
+        parts.append(f"{at}{field}: {msg}")
+    unique = [p.rstrip(".") for p in dict.fromkeys(parts)]
+    return (f"{where} does not validate: " + "; ".join(unique) +
+            ". Fix the field(s) named and run `foldwise check` again "
+            "(`foldwise schema` prints every field).")
+
+
+def _valid_keys(parent: tuple) -> list[str]:
+    model: Any = Spec
+    for part in parent:
+        if model is Spec and part == "models":
+            model = dict
+            continue
+        if model is dict:
+            model = ModelSpec
+            continue
+        field = getattr(model, "model_fields", {}).get(part)
+        if field is None:
+            return []
+        ann = field.annotation
+        model = ann if isinstance(ann, type) and issubclass(ann, BaseModel) else None
+        if model is None:
+            return []
+    if model is dict or model is None:
+        return []
+    return list(model.model_fields)
+
+
+def parse_spec(text: str, *, source: Path | None = None) -> Spec:
+    """Validate spec text; `source` (the file) is used for messages and relative paths."""
+    where = f"spec {source}" if source else "the spec"
+    try:
+        node = yaml.compose(text, Loader=yaml.SafeLoader)
+        raw = yaml.load(text, Loader=_UniqueKeyLoader)
+    except SpecError as exc:
+        raise SpecError(f"{where}: {exc}") from None
+    except yaml.YAMLError as exc:
+        mark = getattr(exc, "problem_mark", None)
+        line = f" at line {mark.line + 1}, column {mark.column + 1}" if mark else ""
+        problem = getattr(exc, "problem", None) or str(exc).splitlines()[0]
+        raise SpecError(f"{where} is not valid YAML{line}: {problem}. Check the indentation "
+                        "and quoting near that line.") from None
+    if not isinstance(raw, dict):
+        raise SpecError(f"{where} must be a YAML mapping with keys such as name, data, test, "
+                        f"folds, metrics and models; got {type(raw).__name__}.")
+    lines = _line_map(node) if node is not None else {}
+    try:
+        spec = Spec.model_validate(raw)
+    except ValidationError as exc:
+        raise SpecError(_describe(exc, lines, where)) from None
+    spec._source = source
+    spec._text = text
+    return spec
+
+
+def load_spec(path: str | Path) -> Spec:
+    """Read and validate a spec file."""
+    path = Path(path)
+    if not path.is_file():
+        raise SpecError(f"spec file {path} does not exist. Give the path of a YAML spec, "
+                        "e.g. specs/greenhouse.yaml.")
+    try:
+        text = path.read_text(encoding="utf-8")
+    except (OSError, UnicodeDecodeError) as exc:
+        raise SpecError(f"spec file {path} cannot be read as UTF-8 text ({exc}). "
+                        "Save it as UTF-8 YAML.") from None
+    return parse_spec(text, source=path.resolve())
+
+
+def spec_json_schema() -> dict:
+    """The JSON Schema of a spec, for editors that complete and check YAML."""
+    schema = Spec.model_json_schema()
+    schema["title"] = "foldwise spec"
+    families = {name: sorted(f.params) for name, f in FAMILIES.items()}
+    schema["description"] = ("A foldwise sweep. Valid grid names per family: " +
+                             "; ".join(f"{k}: {', '.join(v)}" for k, v in families.items()))
+    return schema
