@@ -1,0 +1,118 @@
+"""The plan: the held-out test rows and the repeated k-fold split of the training rows.
+
+Built from scikit-learn's own splitters so that anyone can rebuild the folds:
+test rows = train_test_split(np.arange(n_rows), test_size=f, random_state=seed)[1];
+training rows = the rest, in file order; folds = RepeatedKFold(n_splits=k, n_repeats=r,
+random_state=seed).split(training_rows), the i-th split being repeat i // k, fold i % k."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+
+from .errors import DataError
+
+__all__ = ["Plan", "Fold", "make_plan", "fold_seed", "refit_seed", "REFIT"]
+
+REFIT = -1
+"""The `repeat` and `fold` number given to the refit on all training rows."""
+
+
+def fold_seed(plan_seed: int, repeat: int, fold: int) -> int:
+    """The estimator random_state for one fold, shared by every cell of that fold.
+
+    Rule: numpy.random.SeedSequence([plan_seed, repeat, fold]).generate_state(1)[0];
+    the refit on all training rows uses repeat = fold = -1 mapped to 2**31 - 1."""
+    entropy = [plan_seed, repeat if repeat >= 0 else 2**31 - 1, fold if fold >= 0 else 2**31 - 1]
+    return int(np.random.SeedSequence(entropy).generate_state(1)[0])
+
+
+def refit_seed(plan_seed: int) -> int:
+    """The estimator random_state of the refit on all training rows."""
+    return fold_seed(plan_seed, REFIT, REFIT)
+
+
+@dataclass(frozen=True)
+class Fold:
+    """One validation fold: positions into the training rows, and its estimator seed."""
+
+    repeat: int
+    fold: int
+    fit: np.ndarray
+    valid: np.ndarray
+    seed: int
+
+
+@dataclass(frozen=True)
+class Plan:
+    """Test rows, training rows (file order) and the folds, plus what identifies them."""
+
+    train_rows: np.ndarray
+    test_rows: np.ndarray
+    folds: tuple[Fold, ...]
+    k: int
+    repeats: int
+    seed: int
+    test_form: dict
+
+    @property
+    def n_train(self) -> int:
+        return len(self.train_rows)
+
+    @property
+    def n_test(self) -> int:
+        return len(self.test_rows)
+
+    @property
+    def identity(self) -> dict:
+        """What makes two plans the same: enters every cell id."""
+        return {"test": self.test_form, "k": self.k, "repeats": self.repeats, "seed": self.seed}
+
+
+def _test_rows(spec, frame) -> tuple[np.ndarray, dict]:
+    from sklearn.model_selection import train_test_split
+
+    n = len(frame.y)
+    t = spec.test
+    if t.fraction is not None:
+        rows = train_test_split(np.arange(n), test_size=t.fraction, random_state=t.seed)[1]
+        return np.sort(rows), {"fraction": t.fraction, "seed": t.seed}
+    form = {"file": t.file} if t.file is not None else {"column": t.column}
+    return np.flatnonzero(frame.test_mask), form
+
+
+def make_plan(spec, frame) -> Plan:
+    """Resolve the spec's test split and fold plan against the data's rows."""
+    from sklearn.model_selection import RepeatedKFold
+
+    test_rows, form = _test_rows(spec, frame)
+    is_test = np.zeros(len(frame.y), dtype=bool)
+    is_test[test_rows] = True
+    train_rows = np.flatnonzero(~is_test)
+    k, r, seed = spec.folds.k, spec.folds.repeats, spec.folds.seed
+    if len(test_rows) == 0:
+        raise DataError("the test split is empty; set `test.fraction` larger, or mark some "
+                        "rows in the test file or column.")
+    if len(train_rows) < 2 * k:
+        raise DataError(f"only {len(train_rows)} training rows for {k} folds; each fold needs at "
+                        f"least 2 rows to fit and 1 to score. Lower `folds.k` or supply more rows.")
+    _check_test_levels(frame, train_rows, test_rows)
+    splitter = RepeatedKFold(n_splits=k, n_repeats=r, random_state=seed)
+    folds = []
+    for i, (fit, valid) in enumerate(splitter.split(train_rows)):
+        rep, f = divmod(i, k)
+        folds.append(Fold(rep, f, fit, valid, fold_seed(seed, rep, f)))
+    return Plan(train_rows, test_rows, tuple(folds), k, r, seed, form)
+
+
+def _check_test_levels(frame, train_rows, test_rows) -> None:
+    for col in frame.categorical:
+        train_levels = set(pd.unique(frame.X[col].iloc[train_rows].dropna()))
+        test_only = set(pd.unique(frame.X[col].iloc[test_rows].dropna())) - train_levels
+        if test_only:
+            shown = ", ".join(sorted(map(repr, test_only))[:5])
+            raise DataError(f"categorical column '{col}' has levels only in the test rows "
+                            f"({shown}); no model can learn them. Merge rare levels, move those "
+                            "rows into training, or change the test split.")
