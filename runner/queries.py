@@ -1,0 +1,86 @@
+"""Queries over the store, answered as pandas DataFrames: the sweeps it holds and the
+summary grouped by model. All of it is SQL run through `Store.query`."""
+
+from __future__ import annotations
+
+import pandas as pd
+
+from .store import Store
+
+__all__ = ["sweeps", "summary", "cell_table"]
+
+
+def sweeps(store: Store) -> pd.DataFrame:
+    """One row per sweep, newest first, with its size and how it ended."""
+    return store.query("""
+        select s.sweep_id, s.name, s.status, s.started_at,
+               round(epoch(s.finished_at - s.started_at), 1) as seconds,
+               s.n_train, s.n_test, s.k, s.repeats,
+               (select count(*) from cells c where c.sweep_id = s.sweep_id) as cells,
+               (select count(*) from fold_scores f where f.sweep_id = s.sweep_id) as fold_rows,
+               s.data_sha256[1:12] as data
+        from sweeps s order by s.started_at desc, s.sweep_id desc""")
+
+
+def _sweep_metrics(store: Store, sweep_id: str) -> list[str]:
+    row = store.query("select metrics from sweeps where sweep_id = ?", [sweep_id])
+    return str(row.iloc[0, 0]).split(",")
+
+
+def cell_table(store: Store, sweep_id: str) -> pd.DataFrame:
+    """Every cell of a sweep with CV mean, sd, se and n per metric, and its test scores (long)."""
+    return store.query("""
+        select s.model, s.family, s.cell_id, s.params, s.complexity_rank, s.metric,
+               s.mean, s.sd, s.se, s.n, s.mean_leaves, t.value as test
+        from cell_summary s
+        left join test_scores t
+          on t.sweep_id = s.sweep_id and t.cell_id = s.cell_id and t.metric = s.metric
+        where s.sweep_id = ?
+        order by s.model, s.complexity_rank, s.metric""", [sweep_id])
+
+
+def summary(store: Store, sweep_id: str | None = None) -> pd.DataFrame:
+    """Per model: its best cell on the sweep's first metric, mean ± SE per metric, test scores.
+
+    One row per model in spec order; columns `cv_<metric>`, `se_<metric>`, `test_<metric>`."""
+    sweep_id = store.resolve_sweep(sweep_id)
+    metrics = _sweep_metrics(store, sweep_id)
+    primary = metrics[0]
+    long = store.query("""
+        with ranked as (
+            select s.*, row_number() over (
+                       partition by s.model
+                       order by case when m.better = 'lower' then s.mean else -s.mean end,
+                                s.complexity_rank) as place
+            from cell_summary s join metrics m using (metric)
+            where s.sweep_id = ? and s.metric = ?),
+        best as (select sweep_id, model, cell_id, params from ranked where place = 1),
+        sizes as (select model, family, count(*) as cells, min(rowid) as first_row
+                  from cells where sweep_id = ? group by model, family)
+        select b.model, z.family, z.cells, b.cell_id, b.params, s.metric, s.mean, s.se, s.n,
+               t.value as test, z.first_row
+        from best b
+        join sizes z using (model)
+        join cell_summary s on s.sweep_id = b.sweep_id and s.cell_id = b.cell_id
+        left join test_scores t
+          on t.sweep_id = b.sweep_id and t.cell_id = b.cell_id and t.metric = s.metric
+        order by z.first_row, s.metric""", [sweep_id, primary, sweep_id])
+    if long.empty:
+        return pd.DataFrame(columns=["model", "family", "cells", "cell_id", "params"])
+    wide = long.pivot_table(index=["first_row", "model", "family", "cells", "cell_id", "params"],
+                            columns="metric", values=["mean", "se", "test"], aggfunc="first")
+    out = wide.reset_index().sort_values("first_row")
+    flat = {}
+    for col in out.columns:
+        name, metric = col if isinstance(col, tuple) else (col, "")
+        if not metric:
+            flat[col] = name
+        else:
+            flat[col] = {"mean": "cv_", "se": "se_", "test": "test_"}[name] + metric
+    out.columns = [flat[c] for c in out.columns]
+    ordered = ["model", "family", "cells", "cell_id", "params"]
+    for m in metrics:
+        ordered += [f"cv_{m}", f"se_{m}", f"test_{m}"]
+    out = out[[c for c in ordered if c in out.columns]].reset_index(drop=True)
+    out.attrs.update(sweep_id=sweep_id, primary_metric=primary, metrics=metrics)
+    return out

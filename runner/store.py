@@ -1,0 +1,244 @@
+"""The store: the only module that speaks SQL to DuckDB. It takes plain rows and DataFrames
+and knows nothing of scikit-learn.
+
+Every operation opens a short-lived connection and closes it, so a sweep never holds the
+file's lock for long: two sweeps can write to one store in turn and another terminal can
+query while a sweep runs. Each batch is one transaction: it lands whole or not at all."""
+
+from __future__ import annotations
+
+import json
+import os
+import time
+from contextlib import contextmanager
+from pathlib import Path
+from typing import Callable, Iterator
+
+import duckdb
+import pandas as pd
+
+from .errors import QueryError, StoreError
+
+__all__ = ["Store", "SCHEMA_VERSION", "DEFAULT_STORE"]
+
+SCHEMA_VERSION = 1
+DEFAULT_STORE = Path("results") / "foldwise.duckdb"
+
+_TABLES = """
+create table if not exists foldwise_meta (key varchar primary key, value varchar);
+create table if not exists sweeps (
+    sweep_id varchar primary key, name varchar, spec_path varchar, spec_text varchar,
+    spec_sha256 varchar, data_path varchar, data_sha256 varchar, target varchar,
+    n_train integer, n_test integer, k integer, repeats integer, plan_seed bigint,
+    metrics varchar, pick_rule varchar, started_at timestamp, finished_at timestamp,
+    status varchar, versions json, host varchar, user_name varchar);
+create table if not exists metrics (metric varchar primary key, better varchar);
+create table if not exists cells (
+    sweep_id varchar, cell_id varchar, model varchar, family varchar, params json,
+    complexity_rank integer, primary key (sweep_id, cell_id));
+create table if not exists fold_scores (
+    sweep_id varchar, cell_id varchar, "repeat" integer, fold integer, metric varchar,
+    value double, fit_seconds double, n_train integer, n_valid integer, seed bigint,
+    n_leaves double, primary key (sweep_id, cell_id, "repeat", fold, metric));
+create table if not exists test_scores (
+    sweep_id varchar, cell_id varchar, metric varchar, value double, fit_seconds double,
+    n_train integer, n_test integer, seed bigint, n_leaves double,
+    primary key (sweep_id, cell_id, metric));
+create table if not exists failures (
+    sweep_id varchar, cell_id varchar, "repeat" integer, fold integer, kind varchar,
+    message varchar);
+create table if not exists importances (
+    sweep_id varchar, cell_id varchar, feature varchar, method varchar, value double,
+    spread double);
+"""
+
+_VIEWS = """
+create or replace view cell_summary as
+select f.sweep_id, f.cell_id, c.model, c.family, c.params, c.complexity_rank, f.metric,
+       avg(f.value) as mean, stddev_samp(f.value) as sd,
+       stddev_samp(f.value) / sqrt(count(*)) as se, count(*) as n,
+       avg(f.n_leaves) as mean_leaves, sum(f.fit_seconds) as fit_seconds
+from fold_scores f join cells c using (sweep_id, cell_id)
+group by all;
+"""
+
+_LOCK_WORDS = ("lock", "Conflicting lock", "being used by another process")
+
+
+def _is_lock_error(exc: Exception) -> bool:
+    return isinstance(exc, duckdb.IOException) and any(w in str(exc) for w in _LOCK_WORDS)
+
+
+class Store:
+    """A DuckDB file of sweeps, cells and scores."""
+
+    def __init__(self, path: str | Path = DEFAULT_STORE, *, wait_seconds: float = 120.0,
+                 on_wait: Callable[[str], None] | None = None):
+        self.path = Path(path)
+        self.wait_seconds = wait_seconds
+        self.on_wait = on_wait
+
+    # -- connections -------------------------------------------------------------------
+    @contextmanager
+    def _connect(self, *, read_only: bool, config: dict | None = None
+                 ) -> Iterator[duckdb.DuckDBPyConnection]:
+        deadline = time.monotonic() + self.wait_seconds
+        delay, told = 0.05, False
+        while True:
+            try:
+                con = duckdb.connect(str(self.path), read_only=read_only, config=config or {})
+                break
+            except duckdb.Error as exc:
+                if _is_lock_error(exc) and time.monotonic() < deadline:
+                    if not told and self.on_wait:
+                        self.on_wait(f"store {self.path} is busy (another foldwise process is "
+                                     "writing); waiting for it...")
+                        told = True
+                    time.sleep(delay)
+                    delay = min(delay * 1.5, 0.5)
+                    continue
+                raise StoreError(f"cannot open store {self.path}: {exc}".rstrip(".") +
+                                 ". If another program holds the file open, close it; if the "
+                                 "file is not a foldwise store, choose another path.") from None
+        try:
+            yield con
+        finally:
+            con.close()
+
+    def _check_writable_place(self) -> None:
+        folder = self.path.parent if str(self.path.parent) else Path(".")
+        if not folder.exists():
+            raise StoreError(f"store folder {folder} does not exist. Create it, or set `store` "
+                             "in the spec (or --store) to a path in an existing folder.")
+        if self.path.exists() and not os.access(self.path, os.W_OK):
+            raise StoreError(f"store {self.path} is read-only. Make it writable or choose "
+                             "another store path.")
+        if not self.path.exists() and not os.access(folder, os.W_OK):
+            raise StoreError(f"store folder {folder} is not writable. Choose another path.")
+
+    def ensure_schema(self) -> None:
+        """Create tables and views if missing; refuse a store from a newer foldwise."""
+        self._check_writable_place()
+        with self._connect(read_only=False) as con:
+            found = self._schema_version(con)
+            if found is not None and found > SCHEMA_VERSION:
+                raise StoreError(f"store {self.path} was written by a newer foldwise (schema "
+                                 f"version {found}; this foldwise knows {SCHEMA_VERSION}). "
+                                 "Upgrade foldwise or use another store.")
+            con.execute("begin")
+            con.execute(_TABLES)
+            con.execute(_VIEWS)
+            con.execute("insert or replace into foldwise_meta values ('schema_version', ?)",
+                        [str(SCHEMA_VERSION)])
+            con.execute("commit")
+
+    @staticmethod
+    def _schema_version(con) -> int | None:
+        has = con.execute("select count(*) from information_schema.tables "
+                          "where table_name = 'foldwise_meta'").fetchone()[0]
+        if not has:
+            return None
+        row = con.execute("select value from foldwise_meta where key = 'schema_version'"
+                          ).fetchone()
+        return int(row[0]) if row else None
+
+    # -- writing ---------------------------------------------------------------------------
+    def write_batch(self, tables: dict[str, pd.DataFrame]) -> None:
+        """Insert several tables' rows in one transaction (all land or none)."""
+        tables = {t: df for t, df in tables.items() if df is not None and len(df)}
+        if not tables:
+            return
+        with self._connect(read_only=False) as con:
+            con.execute("begin")
+            try:
+                for i, (table, df) in enumerate(tables.items()):
+                    name = f"_batch_{i}"
+                    con.register(name, df)
+                    con.execute(f"insert into {table} by name select * from {name}")
+                    con.unregister(name)
+                con.execute("commit")
+            except duckdb.Error as exc:
+                con.execute("rollback")
+                raise StoreError(f"writing to store {self.path} failed: {exc}") from None
+
+    def begin_sweep(self, sweep: dict, cells: pd.DataFrame, metrics: dict[str, str]) -> None:
+        """Record a new sweep (status 'running'), its cells and the metric directions."""
+        row = dict(sweep)
+        row["versions"] = json.dumps(row.get("versions", {}), sort_keys=True)
+        metric_df = pd.DataFrame({"metric": list(metrics), "better": list(metrics.values())})
+        with self._connect(read_only=False) as con:
+            con.execute("begin")
+            con.register("_sweep", pd.DataFrame([row]))
+            con.execute("insert into sweeps by name select * from _sweep")
+            con.register("_metrics", metric_df)
+            con.execute("insert or replace into metrics select metric, better from _metrics")
+            con.register("_cells", cells)
+            con.execute("insert into cells by name select * from _cells")
+            con.execute("commit")
+
+    def finish_sweep(self, sweep_id: str, status: str) -> None:
+        """Mark a sweep finished, failed or interrupted, with the time."""
+        with self._connect(read_only=False) as con:
+            con.execute("update sweeps set status = ?, finished_at = current_timestamp::timestamp "
+                        "where sweep_id = ?", [status, sweep_id])
+
+    # -- reading ---------------------------------------------------------------------------
+    def _require(self) -> None:
+        if not self.path.exists():
+            raise StoreError(f"no store at {self.path}. Run a sweep first (`foldwise run "
+                             "SPEC`), or point --store at an existing store.")
+
+    def query(self, sql: str, params: list | None = None) -> pd.DataFrame:
+        """Run a read-only query of foldwise's own and return a DataFrame."""
+        self._require()
+        with self._connect(read_only=True) as con:
+            found = self._schema_version(con)
+            if found is None:
+                raise StoreError(f"{self.path} is not a foldwise store (no foldwise_meta table).")
+            if found > SCHEMA_VERSION:
+                raise StoreError(f"store {self.path} was written by a newer foldwise (schema "
+                                 f"version {found}); upgrade foldwise to read it.")
+            return con.execute(sql, params or []).df()
+
+    def user_query(self, sql: str, *, allow_files: bool = False) -> pd.DataFrame:
+        """Run one user-supplied SELECT on a read-only connection; anything else is refused."""
+        self._require()
+        config = {} if allow_files else {"enable_external_access": False}
+        with self._connect(read_only=True, config=config) as con:
+            try:
+                statements = con.extract_statements(sql)
+            except duckdb.Error as exc:
+                raise QueryError(f"the query does not parse: {exc}") from None
+            if len(statements) != 1:
+                raise QueryError(f"give exactly one query, got {len(statements)} statements.")
+            kind = statements[0].type.name
+            if kind not in ("SELECT", "EXPLAIN"):
+                raise QueryError(f"only read queries (SELECT, WITH, DESCRIBE, SUMMARIZE, "
+                                 f"EXPLAIN) are allowed; refused a {kind} statement. The store "
+                                 "is changed only by foldwise's own commands.")
+            try:
+                return con.execute(sql).df()
+            except duckdb.Error as exc:
+                first = str(exc).splitlines()[0]
+                raise QueryError(f"the query failed: {first}") from None
+
+    def latest_sweep_id(self) -> str:
+        """The most recently started sweep."""
+        df = self.query("select sweep_id from sweeps order by started_at desc, sweep_id desc "
+                        "limit 1")
+        if df.empty:
+            raise StoreError(f"store {self.path} holds no sweeps yet. Run `foldwise run SPEC`.")
+        return str(df.iloc[0, 0])
+
+    def resolve_sweep(self, sweep_id: str | None) -> str:
+        """The given sweep id (a unique prefix is enough), or the latest one."""
+        if sweep_id is None:
+            return self.latest_sweep_id()
+        df = self.query("select sweep_id from sweeps where sweep_id like ? || '%'", [sweep_id])
+        if len(df) == 1:
+            return str(df.iloc[0, 0])
+        if df.empty:
+            raise StoreError(f"no sweep '{sweep_id}' in store {self.path}; "
+                             "`foldwise sweeps` lists them.")
+        raise StoreError(f"sweep id prefix '{sweep_id}' matches {len(df)} sweeps; give more "
+                         "characters.")
