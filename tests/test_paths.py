@@ -1,0 +1,197 @@
+"""Tests for runner.families.paths: whole-grid evaluators against separate refits."""
+
+import numpy as np
+import pytest
+from sklearn.datasets import make_friedman1
+from sklearn.ensemble import RandomForestRegressor
+from sklearn.linear_model import ElasticNet, Lasso, Ridge
+from sklearn.tree import DecisionTreeRegressor
+
+from runner.families.paths import (
+    _steps_for,
+    elastic_net_path_coefs,
+    elastic_net_path_predictions,
+    forest_prefix_predictions,
+    pruned_tree_predictions,
+    pruning_alphas,
+    ridge_path_coefs,
+    ridge_path_predictions,
+)
+
+
+def _friedman(n=700, p=8, seed=0):
+    X, y = make_friedman1(n_samples=n, n_features=p, noise=1.0, random_state=seed)
+    return X, y
+
+
+def _with_missing(X, frac=0.1, seed=1):
+    X = X.copy()
+    X[np.random.default_rng(seed).random(X.shape) < frac] = np.nan
+    return X
+
+
+def _alpha_grid(path, n_pick=30):
+    """Path alphas, midpoints between neighbours, 0.0 and values past the last one."""
+    idx = np.unique(np.linspace(0, path.size - 1, min(n_pick, path.size)).astype(int))
+    idx = np.unique(np.concatenate([idx, np.arange(max(path.size - 5, 0), path.size)]))
+    mids = (path[idx[idx + 1 < path.size]] + path[idx[idx + 1 < path.size] + 1]) / 2
+    beyond = [path[-1] * 1.0000001, path[-1] * 2, path[-1] * 1e6 + 1.0]
+    grid = np.concatenate([path[idx], mids, [0.0], beyond])
+    return np.random.default_rng(0).permutation(grid)  # any order is allowed
+
+
+# (name, estimator params, X transform, y transform)
+TREE_CASES = [
+    ("default", {"random_state": 0}, None, None),
+    ("min_samples_leaf=5", {"random_state": 0, "min_samples_leaf": 5}, None, None),
+    ("max_depth=6", {"random_state": 0, "max_depth": 6}, None, None),
+    ("max_features=0.5", {"random_state": 7, "max_features": 0.5}, None, None),
+    ("max_leaf_nodes=40", {"random_state": 0, "max_leaf_nodes": 40}, None, None),
+    ("10% missing", {"random_state": 0}, _with_missing, None),
+    ("integer targets", {"random_state": 0}, None, np.round),
+    ("absolute_error", {"random_state": 0, "criterion": "absolute_error",
+                        "min_samples_leaf": 3}, None, None),
+]
+
+
+@pytest.mark.parametrize("name,params,xf,yf", TREE_CASES, ids=[c[0] for c in TREE_CASES])
+def test_pruned_tree_matches_refits(name, params, xf, yf):
+    n = 300 if params.get("criterion") == "absolute_error" else 700
+    X, y = _friedman(n=n + 300)
+    if xf is not None:
+        X = xf(X)
+    if yf is not None:
+        y = yf(y)
+    X_tr, y_tr, X_ev = X[:n], y[:n], X[n:]
+    tree = DecisionTreeRegressor(**params).fit(X_tr, y_tr)
+    path = tree.cost_complexity_pruning_path(X_tr, y_tr).ccp_alphas
+
+    # reference: scikit-learn's own DecisionTreeRegressor.cost_complexity_pruning_path
+    assert np.array_equal(pruning_alphas(tree), path)
+
+    grid = _alpha_grid(path)
+    X_all = np.vstack([X_tr, X_ev])
+    preds, n_leaves = pruned_tree_predictions(tree, X_all, grid)
+    assert preds.shape == (grid.size, X_all.shape[0])
+    for a, p, k in zip(grid, preds, n_leaves):
+        # reference: scikit-learn's own DecisionTreeRegressor refitted with ccp_alpha
+        ref = DecisionTreeRegressor(**params, ccp_alpha=a).fit(X_tr, y_tr)
+        assert np.array_equal(p, ref.predict(X_all)), (name, a)
+        assert k == ref.get_n_leaves(), (name, a)
+
+
+def test_pruned_tree_zero_alpha_is_unpruned_and_constant_target():
+    X, y = _friedman(n=200)
+    tree = DecisionTreeRegressor(random_state=0).fit(X, y)
+    preds, n_leaves = pruned_tree_predictions(tree, X, [0.0])
+    # reference: scikit-learn's own DecisionTreeRegressor (ccp_alpha=0 is no pruning)
+    assert np.array_equal(preds[0], tree.predict(X))
+    assert n_leaves[0] == tree.get_n_leaves()
+
+    flat = DecisionTreeRegressor(random_state=0).fit(X, np.full(200, 3.5))
+    preds, n_leaves = pruned_tree_predictions(flat, X, [0.0, 1.0])
+    # reference: scikit-learn's own DecisionTreeRegressor on a single-leaf tree
+    assert np.array_equal(preds, np.full((2, 200), 3.5)) and list(n_leaves) == [1, 1]
+    assert np.array_equal(pruning_alphas(flat), flat.cost_complexity_pruning_path(
+        X, np.full(200, 3.5)).ccp_alphas)
+
+
+def test_steps_follow_first_exceedance_rule():
+    # reference: the stop rule in sklearn/tree/_tree.pyx (_AlphaPruner.stop_pruning:
+    # stop at the first step whose effective alpha exceeds ccp_alpha; ccp_alpha == 0
+    # skips pruning in DecisionTreeRegressor._prune_tree)
+    seq = np.array([0.0, 0.1, 0.3, 0.2, 0.5])
+    got = _steps_for(seq, np.array([0.0, 1e-300, 0.1, 0.25, 0.3, 0.4, 0.5, 9.0]))
+    assert list(got) == [0, 1, 2, 2, 4, 4, 5, 5]
+
+
+def test_pruned_tree_rejects_bad_input():
+    X, y = _friedman(n=100)
+    pruned = DecisionTreeRegressor(random_state=0, ccp_alpha=0.01).fit(X, y)
+    with pytest.raises(ValueError):
+        pruned_tree_predictions(pruned, X, [0.1])
+    tree = DecisionTreeRegressor(random_state=0).fit(X, y)
+    with pytest.raises(ValueError):
+        pruned_tree_predictions(tree, X, [-1.0])
+
+
+FOREST_CASES = [
+    {"bootstrap": True},
+    {"bootstrap": False, "max_features": 0.5},
+    {"bootstrap": True, "max_samples": 0.5},
+]
+
+
+@pytest.mark.parametrize("params", FOREST_CASES)
+def test_forest_prefix_matches_smaller_forests(params):
+    X, y = _friedman(n=500)
+    X_tr, y_tr, X_ev = X[:350], y[:350], X[350:]
+    forest = RandomForestRegressor(
+        n_estimators=20, random_state=3, n_jobs=1, min_samples_leaf=2, **params
+    ).fit(X_tr, y_tr)
+    sizes = [10, 5, 20, 5]
+    preds = forest_prefix_predictions(forest, X_ev, sizes)
+    assert preds.shape == (4, X_ev.shape[0])
+    for k, p in zip(sizes, preds):
+        # reference: scikit-learn's own RandomForestRegressor with n_estimators=k
+        ref = RandomForestRegressor(
+            n_estimators=k, random_state=3, n_jobs=1, min_samples_leaf=2, **params
+        ).fit(X_tr, y_tr)
+        assert np.array_equal(p, ref.predict(X_ev)), k
+
+
+def test_forest_prefix_rejects_out_of_range_sizes():
+    X, y = _friedman(n=100)
+    forest = RandomForestRegressor(n_estimators=3, random_state=0).fit(X, y)
+    with pytest.raises(ValueError):
+        forest_prefix_predictions(forest, X, [4])
+
+
+def _linear_data(seed=0):
+    X, y = _friedman(n=600, p=10, seed=seed)
+    X = (X - X.mean(axis=0)) / X.std(axis=0)
+    return X[:400], y[:400], X[400:]
+
+
+def test_ridge_matches_svd_solver():
+    X_tr, y_tr, X_ev = _linear_data()
+    alphas = np.logspace(-3, 3, 10)
+    preds = ridge_path_predictions(X_tr, y_tr, X_ev, alphas)
+    coefs, intercepts = ridge_path_coefs(X_tr, y_tr, alphas)
+    for a, p, c, b in zip(alphas, preds, coefs, intercepts):
+        # reference: scikit-learn's own Ridge(solver="svd")
+        ref = Ridge(alpha=a, solver="svd").fit(X_tr, y_tr)
+        ref_p = ref.predict(X_ev)
+        np.testing.assert_allclose(p, ref_p, rtol=1e-12, atol=1e-12 * np.abs(ref_p).max())
+        np.testing.assert_allclose(c, ref.coef_, rtol=1e-12, atol=1e-12 * np.abs(ref.coef_).max())
+        assert abs(b - ref.intercept_) <= 1e-12 * abs(ref.intercept_)
+
+
+@pytest.mark.parametrize("l1_ratio", [1.0, 0.5])
+@pytest.mark.parametrize("tol,bound", [(1e-4, 1e-3), (1e-6, 1e-5)])
+def test_elastic_net_matches_per_alpha_fits(l1_ratio, tol, bound):
+    # Stated bound: max |path prediction - per-alpha prediction| <= 10 * tol * std(y)
+    # (measured about 0.1 * tol * std(y) on this data).
+    X_tr, y_tr, X_ev = _linear_data(seed=2)
+    alphas = np.random.default_rng(5).permutation(np.logspace(-4, 1, 10))
+    alphas = np.append(alphas, alphas[2])  # a duplicate, out of order
+    preds = elastic_net_path_predictions(
+        X_tr, y_tr, X_ev, alphas, l1_ratio=l1_ratio, tol=tol, max_iter=10_000
+    )
+    coefs, _ = elastic_net_path_coefs(
+        X_tr, y_tr, alphas, l1_ratio=l1_ratio, tol=tol, max_iter=10_000
+    )
+    assert preds.shape == (alphas.size, X_ev.shape[0])
+    assert np.array_equal(preds[2], preds[-1])
+    scale = y_tr.std()
+    for a, p, c in zip(alphas, preds, coefs):
+        if l1_ratio == 1.0:
+            # reference: scikit-learn's own Lasso
+            ref = Lasso(alpha=a, tol=tol, max_iter=10_000).fit(X_tr, y_tr)
+        else:
+            # reference: scikit-learn's own ElasticNet
+            ref = ElasticNet(alpha=a, l1_ratio=l1_ratio, tol=tol, max_iter=10_000).fit(
+                X_tr, y_tr
+            )
+        assert np.max(np.abs(p - ref.predict(X_ev))) <= bound * scale, a
+        assert np.max(np.abs(c - ref.coef_)) <= bound * scale, a
