@@ -1,0 +1,163 @@
+"""Stored fold and test scores equal scikit-learn's own cross_validate and metrics on the
+documented folds and seeds (reference: scikit-learn 1.9 `cross_validate`, `sklearn.metrics`)."""
+
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pandas as pd
+import pytest
+from sklearn import metrics as skm
+from sklearn.compose import ColumnTransformer
+from sklearn.ensemble import RandomForestRegressor
+from sklearn.impute import SimpleImputer
+from sklearn.linear_model import Lasso, LinearRegression, Ridge
+from sklearn.model_selection import cross_validate
+from sklearn.pipeline import Pipeline, make_pipeline
+from sklearn.preprocessing import OneHotEncoder, OrdinalEncoder, StandardScaler
+from sklearn.tree import DecisionTreeRegressor
+
+from runner.engine import run_sweep
+from runner.resampling import fold_seed, refit_seed
+from runner.store import Store
+
+from .helpers import diabetes_frame, documented_plan, spec_from
+
+SCORING = {"rmse": "neg_root_mean_squared_error", "mae": "neg_mean_absolute_error", "r2": "r2"}
+SIGN = {"rmse": -1.0, "mae": -1.0, "r2": 1.0}
+
+
+def _stored(store: Store):
+    folds = store.query("select c.params, c.model, f.repeat, f.fold, f.metric, f.value, f.seed "
+                        "from fold_scores f join cells c using (sweep_id, cell_id)")
+    tests = store.query("select c.params, c.model, t.metric, t.value "
+                        "from test_scores t join cells c using (sweep_id, cell_id)")
+    return folds, tests
+
+
+def _reference(make, X, y, *, fraction=0.25, tseed=3, k=3, r=2, seed=17):
+    """Fold scores by cross_validate per fold (seeds differ per fold) and the test scores."""
+    train_rows, test_rows, folds = documented_plan(len(y), test_fraction=fraction,
+                                                   test_seed=tseed, k=k, repeats=r, seed=seed)
+    Xtr, ytr = X.iloc[train_rows], y[train_rows]
+    rows = []
+    for rep, f, fit, valid in folds:
+        s = fold_seed(seed, rep, f)
+        res = cross_validate(make(s, ytr[fit]), Xtr, ytr, cv=[(fit, valid)], scoring=SCORING)
+        for m in SCORING:
+            rows.append((rep, f, m, SIGN[m] * res[f"test_{m}"][0], s))
+    est = make(refit_seed(seed), ytr).fit(Xtr, ytr)
+    pred = est.predict(X.iloc[test_rows])
+    yt = y[test_rows]
+    test = {"rmse": skm.root_mean_squared_error(yt, pred),
+            "mae": skm.mean_absolute_error(yt, pred), "r2": skm.r2_score(yt, pred)}
+    return pd.DataFrame(rows, columns=["repeat", "fold", "metric", "ref", "seed"]), test
+
+
+def _assert_cell(folds, tests, model, params_match, ref_folds, ref_test, tol=1e-9):
+    mine = folds[(folds.model == model) & folds.params.map(lambda p: params_match(json.loads(p)))]
+    assert len(mine) == len(ref_folds) == 3 * 2 * 3
+    merged = mine.merge(ref_folds, on=["repeat", "fold", "metric"])
+    assert len(merged) == len(ref_folds)
+    assert (merged.seed_x == merged.seed_y).all()
+    np.testing.assert_allclose(merged.value, merged.ref, rtol=0, atol=tol)
+    mt = tests[(tests.model == model) & tests.params.map(lambda p: params_match(json.loads(p)))]
+    for m, v in ref_test.items():
+        assert mt[mt.metric == m].value.iloc[0] == pytest.approx(v, abs=tol)
+
+
+@pytest.fixture(scope="module")
+def numeric_sweep(tmp_path_factory):
+    folder = tmp_path_factory.mktemp("parity")
+    df = diabetes_frame()
+    df.to_csv(folder / "diabetes.csv", index=False)
+    spec = spec_from(folder, """
+        ols: {family: linear, grid: {penalty: none}}
+        ridge: {family: linear, grid: {penalty: l2, alpha: [0.1, 10.0]}}
+        lasso: {family: linear, grid: {penalty: l1, alpha: [0.5]}}
+        tree: {family: pruned_tree, grid: {ccp_alpha: [0.0, 150.0], min_samples_leaf: [5]}}
+        frac: {family: pruned_tree, grid: {ccp_fraction: [0.01]}}
+        forest: {family: forest, grid: {n_estimators: [20], max_features: [0.5]}}
+    """)
+    store = Store(folder / "store.duckdb")
+    run_sweep(spec, store=store, jobs=2)
+    X = df.drop(columns="progression")
+    y = df["progression"].to_numpy(float)
+    return _stored(store), X, y
+
+
+def test_ols_parity(numeric_sweep):
+    (folds, tests), X, y = numeric_sweep
+    ref, test = _reference(lambda s, yf: make_pipeline(StandardScaler(), LinearRegression()), X, y)
+    _assert_cell(folds, tests, "ols", lambda p: True, ref, test)
+
+
+@pytest.mark.parametrize("alpha", [0.1, 10.0])
+def test_ridge_parity(numeric_sweep, alpha):
+    (folds, tests), X, y = numeric_sweep
+    ref, test = _reference(lambda s, yf: make_pipeline(StandardScaler(), Ridge(alpha=alpha)), X, y)
+    _assert_cell(folds, tests, "ridge", lambda p: p.get("alpha") == alpha, ref, test)
+
+
+def test_lasso_parity(numeric_sweep):
+    # Coordinate descent stops at tol=1e-4 of the duality gap; a path may stop at another
+    # point inside that tolerance, so this check is 1e-6 relative to the target's scale.
+    (folds, tests), X, y = numeric_sweep
+    ref, test = _reference(lambda s, yf: make_pipeline(StandardScaler(), Lasso(alpha=0.5)), X, y)
+    _assert_cell(folds, tests, "lasso", lambda p: True, ref, test, tol=1e-6 * np.std(y))
+
+
+@pytest.mark.parametrize("alpha", [0.0, 150.0])
+def test_tree_parity(numeric_sweep, alpha):
+    (folds, tests), X, y = numeric_sweep
+    ref, test = _reference(lambda s, yf: DecisionTreeRegressor(
+        ccp_alpha=alpha, min_samples_leaf=5, random_state=s), X, y)
+    _assert_cell(folds, tests, "tree", lambda p: p.get("ccp_alpha") == alpha, ref, test)
+
+
+def test_ccp_fraction_parity(numeric_sweep):
+    # ccp_alpha = fraction x population variance of the fitting rows' target.
+    (folds, tests), X, y = numeric_sweep
+    ref, test = _reference(lambda s, yf: DecisionTreeRegressor(
+        ccp_alpha=0.01 * np.var(yf), random_state=s), X, y)
+    _assert_cell(folds, tests, "frac", lambda p: True, ref, test)
+
+
+def test_forest_parity(numeric_sweep):
+    (folds, tests), X, y = numeric_sweep
+    ref, test = _reference(lambda s, yf: RandomForestRegressor(
+        n_estimators=20, max_features=0.5, random_state=s, n_jobs=1), X, y)
+    _assert_cell(folds, tests, "forest", lambda p: True, ref, test)
+
+
+def test_mixed_columns_parity(tmp_path, diabetes_mixed_csv):
+    """Text categories and missing values: the same preprocessing written with scikit-learn."""
+    spec = spec_from(tmp_path, """
+        ridge: {family: linear, grid: {penalty: l2, alpha: [1.0]}}
+        tree: {family: pruned_tree, grid: {ccp_alpha: [20.0]}}
+    """, data=diabetes_mixed_csv.name)
+    store = Store(tmp_path / "store.duckdb")
+    run_sweep(spec, store=store, jobs=1)
+    folds, tests = _stored(store)
+    df = pd.read_csv(diabetes_mixed_csv)
+    X, y = df.drop(columns="progression"), df["progression"].to_numpy(float)
+    X["sex"] = X["sex"].astype(object)
+    num = [c for c in X.columns if c != "sex"]
+    lin = lambda s, yf: Pipeline([  # noqa: E731
+        ("prep", ColumnTransformer([
+            ("num", make_pipeline(SimpleImputer(strategy="median"), StandardScaler()), num),
+            ("cat", make_pipeline(SimpleImputer(strategy="most_frequent"),
+                                  OneHotEncoder(handle_unknown="ignore", sparse_output=False)),
+             ["sex"])])),
+        ("model", Ridge(alpha=1.0))])
+    ref, test = _reference(lin, X, y)
+    _assert_cell(folds, tests, "ridge", lambda p: True, ref, test)
+    tree = lambda s, yf: Pipeline([  # noqa: E731
+        ("prep", ColumnTransformer([
+            ("num", "passthrough", num),
+            ("cat", OrdinalEncoder(handle_unknown="use_encoded_value", unknown_value=np.nan),
+             ["sex"])])),
+        ("model", DecisionTreeRegressor(ccp_alpha=20.0, random_state=s))])
+    ref, test = _reference(tree, X, y)
+    _assert_cell(folds, tests, "tree", lambda p: True, ref, test)

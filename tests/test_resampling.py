@@ -1,0 +1,73 @@
+"""The plan equals the README's recipe built with scikit-learn's own splitters."""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pytest
+from hypothesis import given, settings, strategies as st
+
+from runner.data import load_frame
+from runner.errors import DataError
+from runner.resampling import fold_seed, make_plan
+
+from .helpers import documented_plan, spec_from
+
+
+def test_plan_matches_documented_recipe(tmp_path, diabetes_csv):
+    spec = spec_from(tmp_path, "m: {family: linear}")
+    frame = load_frame(spec)
+    plan = make_plan(spec, frame)
+    train, test, folds = documented_plan(442, test_fraction=0.25, test_seed=3, k=3, repeats=2,
+                                         seed=17)
+    assert np.array_equal(plan.train_rows, train) and np.array_equal(plan.test_rows, test)
+    assert len(plan.folds) == 6
+    for f, (rep, k, fit, valid) in zip(plan.folds, folds):
+        assert (f.repeat, f.fold) == (rep, k)
+        assert np.array_equal(f.fit, fit) and np.array_equal(f.valid, valid)
+        assert f.seed == int(np.random.SeedSequence([17, rep, k]).generate_state(1)[0])
+
+
+def test_plan_is_identical_on_reload(tmp_path, diabetes_csv):
+    spec = spec_from(tmp_path, "m: {family: linear}")
+    a = make_plan(spec, load_frame(spec))
+    b = make_plan(spec, load_frame(spec))
+    assert a.identity == b.identity
+    assert all(np.array_equal(x.valid, y.valid) and x.seed == y.seed for x, y in zip(a.folds, b.folds))
+
+
+@settings(max_examples=50, deadline=None)
+@given(st.integers(0, 2**31), st.integers(0, 50), st.integers(0, 50))
+def test_fold_seeds_distinct_and_deterministic(seed, repeat, fold):
+    s = fold_seed(seed, repeat, fold)
+    assert s == fold_seed(seed, repeat, fold)
+    assert 0 <= s < 2**32
+    assert s != fold_seed(seed, repeat, fold + 1)
+
+
+def test_boolean_column_and_separate_file(tmp_path, diabetes_csv):
+    df = pd.read_csv(diabetes_csv)
+    df["holdout"] = np.arange(len(df)) % 4 == 0
+    df.to_csv(tmp_path / "marked.csv", index=False)
+    spec = spec_from(tmp_path, "m: {family: linear}", data="marked.csv")
+    spec.test.fraction, spec.test.column = None, "holdout"
+    frame = load_frame(spec)
+    assert "holdout" not in frame.features
+    plan = make_plan(spec, frame)
+    assert np.array_equal(plan.test_rows, np.arange(0, 442, 4))
+
+    df.iloc[:300].drop(columns="holdout").to_csv(tmp_path / "a.csv", index=False)
+    df.iloc[300:].drop(columns="holdout").to_csv(tmp_path / "b.csv", index=False)
+    spec = spec_from(tmp_path, "m: {family: linear}", data="a.csv")
+    spec.test.fraction, spec.test.file = None, "b.csv"
+    plan = make_plan(spec, load_frame(spec))
+    assert np.array_equal(plan.train_rows, np.arange(300))
+    assert np.array_equal(plan.test_rows, np.arange(300, 442))
+
+
+def test_too_few_rows_for_folds(tmp_path, diabetes_csv):
+    pd.read_csv(diabetes_csv).iloc[:12].to_csv(tmp_path / "tiny.csv", index=False)
+    spec = spec_from(tmp_path, "m: {family: linear}", data="tiny.csv")
+    spec.folds.k = 5
+    with pytest.raises(DataError, match="training rows for 5 folds"):
+        make_plan(spec, load_frame(spec))

@@ -1,0 +1,118 @@
+"""The spec: what validates, what is refused and what the refusal says."""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+import pytest
+
+from runner.errors import SpecError
+from runner.spec import LogRange, PathRange, load_spec, parse_spec, spec_json_schema
+
+ROOT = Path(__file__).resolve().parents[1]
+
+BASE = """name: t
+data: {path: d.csv, target: y}
+test: {fraction: 0.2}
+"""
+
+
+def _spec(extra: str):
+    return parse_spec(BASE + extra)
+
+
+def test_minimal_spec_defaults():
+    spec = _spec("models:\n  m: {family: linear}\n")
+    assert spec.metrics == ["rmse", "mae", "r2"]
+    assert spec.primary_metric == "rmse"
+    assert (spec.folds.k, spec.folds.repeats, spec.folds.seed) == (5, 1, 0)
+    assert spec.pick == "one_se"
+    assert spec.models["m"].grid == {}
+
+
+def test_grid_forms_become_canonical():
+    spec = _spec("""models:
+  r: {family: linear, grid: {penalty: l2, alpha: {log: [0.01, 100], n: 5}}}
+  t: {family: pruned_tree, grid: {ccp_alpha: {path: 8}, min_samples_leaf: [1, 5.0]}}
+""")
+    assert spec.models["r"].grid["penalty"] == ["l2"]
+    assert isinstance(spec.models["r"].grid["alpha"], LogRange)
+    assert isinstance(spec.models["t"].grid["ccp_alpha"], PathRange)
+    assert spec.models["t"].grid["min_samples_leaf"] == [1, 5]
+    assert all(type(v) is int for v in spec.models["t"].grid["min_samples_leaf"])
+
+
+REFUSED = [
+    # (models/extra YAML, words that must appear in the message)
+    ("models:\n  m: {family: forrest}\n", ["models.m.family", "unknown family 'forrest'",
+                                           "Did you mean 'forest'"]),
+    ("models:\n  m: {family: pruned_tree, grid: {ccp_alpah: [0.1]}}\n",
+     ["unknown hyperparameter 'ccp_alpah'", "Did you mean 'ccp_alpha'", "line 5"]),
+    ("models:\n  m: {family: linear, grid: {alpha: []}}\n", ["grid.alpha is an empty list"]),
+    ("models:\n  m: {family: linear, grid: {alpha: {log: [0, 1], n: 3}}}\n",
+     ["log range bounds must both be > 0"]),
+    ("models:\n  m: {family: linear, grid: {alpha: [abc]}}\n", ["alpha must be a number"]),
+    ("models:\n  m: {family: linear, grid: {penalty: [l3]}}\n",
+     ["penalty must be one of none, l2, l1, elasticnet"]),
+    ("models:\n  m: {family: forest, grid: {max_features: [1.5]}}\n", ["(0, 1]"]),
+    ("models:\n  m: {family: linear, grid: {alpha: {path: 5}}}\n", ["only for ccp_alpha"]),
+    ("models:\n  m: {family: pruned_tree, grid: {ccp_alpha: [0.1], ccp_fraction: [0.1]}}\n",
+     ["not both"]),
+    ("metrics: [rmse, rsme]\nmodels:\n  m: {family: linear}\n",
+     ["unknown metric 'rsme'", "valid metrics: rmse, mae, r2"]),
+    ("folds: {k: 1}\nmodels:\n  m: {family: linear}\n", ["folds.k", "greater than or equal to 2"]),
+    ("folds: {k: 5, repeats: 0}\nmodels:\n  m: {family: linear}\n", ["folds.repeats"]),
+    ("folds: {k: five}\nmodels:\n  m: {family: linear}\n", ["folds.k", "integer"]),
+    ("models: {}\n", ["models"]),
+    ("modles:\n  m: {family: linear}\n", ["unknown field 'modles'", "Did you mean 'models'"]),
+    ("models:\n  m: {family: linear}\n  m: {family: forest}\n", ["duplicate key 'm'"]),
+]
+
+
+@pytest.mark.parametrize("extra,words", REFUSED)
+def test_refused_specs_name_the_field(extra, words):
+    with pytest.raises(SpecError) as info:
+        _spec(extra)
+    for w in words:
+        assert w in str(info.value)
+    assert "\n" not in str(info.value)
+
+
+@pytest.mark.parametrize("text,words", [
+    ("name: [unclosed\n", ["not valid YAML", "line"]),
+    ("- just\n- a list\n", ["must be a YAML mapping"]),
+    ("name: t\ntest: {fraction: 1.5}\n", ["test.fraction", "less than 1", "data"]),
+    ("name: t\ndata: {path: d.csv, target: y}\ntest: {fraction: 0.2, column: c}\n"
+     "models: {m: {family: linear}}\n", ["exactly one of fraction, file or column"]),
+])
+def test_refused_documents(text, words):
+    with pytest.raises(SpecError) as info:
+        parse_spec(text)
+    for w in words:
+        assert w in str(info.value)
+
+
+def test_yaml_tags_are_not_code():
+    with pytest.raises(SpecError, match="not valid YAML"):
+        parse_spec("name: !!python/object/apply:os.system ['echo hi']\n")
+
+
+def test_missing_spec_file(tmp_path):
+    with pytest.raises(SpecError, match="does not exist"):
+        load_spec(tmp_path / "nope.yaml")
+
+
+def test_every_shipped_spec_validates():
+    specs = sorted((ROOT / "specs").glob("*.yaml"))
+    assert specs
+    for path in specs:
+        spec = load_spec(path)
+        assert spec.resolve(spec.data.path).exists(), path
+
+
+def test_json_schema_lists_fields_and_families():
+    schema = spec_json_schema()
+    assert set(schema["required"]) >= {"name", "data", "test", "models"}
+    assert "ccp_fraction" in schema["description"]
+    json.dumps(schema)
