@@ -39,11 +39,14 @@ create table if not exists cells (
 create table if not exists fold_scores (
     sweep_id varchar, cell_id varchar, "repeat" integer, fold integer, metric varchar,
     value double, fit_seconds double, n_train integer, n_valid integer, seed bigint,
-    n_leaves double, primary key (sweep_id, cell_id, "repeat", fold, metric));
+    n_leaves double, how varchar, primary key (sweep_id, cell_id, "repeat", fold, metric));
 create table if not exists test_scores (
     sweep_id varchar, cell_id varchar, metric varchar, value double, fit_seconds double,
-    n_train integer, n_test integer, seed bigint, n_leaves double,
+    n_train integer, n_test integer, seed bigint, n_leaves double, how varchar,
     primary key (sweep_id, cell_id, metric));
+-- `how`: the route that scored the row ('plain' or a path evaluator); added after v1 stores
+alter table fold_scores add column if not exists how varchar;
+alter table test_scores add column if not exists how varchar;
 create table if not exists failures (
     sweep_id varchar, cell_id varchar, "repeat" integer, fold integer, kind varchar,
     message varchar);
@@ -105,12 +108,14 @@ class Store:
         finally:
             con.close()
 
-    def _check_writable_place(self) -> None:
+    def check_writable(self) -> None:
+        """Raise a StoreError unless this store can be created or written here."""
         folder = self.path.parent if str(self.path.parent) else Path(".")
         if not folder.exists():
             raise StoreError(f"store folder {folder} does not exist. Create it, or set `store` "
                              "in the spec (or --store) to a path in an existing folder.")
-        if self.path.exists() and not os.access(self.path, os.W_OK):
+        if self.path.exists() and (not os.access(self.path, os.W_OK)
+                                   or not self.path.stat().st_mode & 0o222):
             raise StoreError(f"store {self.path} is read-only. Make it writable or choose "
                              "another store path.")
         if not self.path.exists() and not os.access(folder, os.W_OK):
@@ -118,7 +123,7 @@ class Store:
 
     def ensure_schema(self) -> None:
         """Create tables and views if missing; refuse a store from a newer foldwise."""
-        self._check_writable_place()
+        self.check_writable()
         with self._connect(read_only=False) as con:
             found = self._schema_version(con)
             if found is not None and found > SCHEMA_VERSION:
