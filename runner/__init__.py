@@ -10,7 +10,7 @@ from .store import Store  # noqa: E402
 
 __all__ = ["__version__", "FoldwiseError", "SpecError", "DataError", "StoreError", "QueryError",
            "Spec", "load_spec", "parse_spec", "spec_json_schema", "Store", "run_sweep",
-           "check_spec", "summary"]
+           "check_spec", "summary", "picks", "compare", "complexity_table"]
 
 
 def run_sweep(*args, **kwargs):
@@ -32,3 +32,24 @@ def summary(*args, **kwargs):
     from .queries import summary as _summary
 
     return _summary(*args, **kwargs)
+
+
+def picks(*args, **kwargs):
+    """Picked cell per model and rule (see `runner.picks.picks`)."""
+    from .picks import picks as _picks
+
+    return _picks(*args, **kwargs)
+
+
+def compare(*args, **kwargs):
+    """Paired comparison of the models' picked cells (see `runner.compare.compare`)."""
+    from .compare import compare as _compare
+
+    return _compare(*args, **kwargs)
+
+
+def complexity_table(*args, **kwargs):
+    """One model's cells in complexity order (see `runner.picks.complexity_table`)."""
+    from .picks import complexity_table as _table
+
+    return _table(*args, **kwargs)

@@ -27,6 +27,11 @@ def _sweep_metrics(store: Store, sweep_id: str) -> list[str]:
     return str(row.iloc[0, 0]).split(",")
 
 
+def _sweep_rule(store: Store, sweep_id: str) -> str:
+    row = store.query("select pick_rule from sweeps where sweep_id = ?", [sweep_id])
+    return str(row.iloc[0, 0] or "best")
+
+
 def cell_table(store: Store, sweep_id: str) -> pd.DataFrame:
     """Every cell of a sweep with CV mean, sd, se and n per metric, and its test scores (long)."""
     return store.query("""
@@ -39,34 +44,35 @@ def cell_table(store: Store, sweep_id: str) -> pd.DataFrame:
         order by s.model, s.complexity_rank, s.metric""", [sweep_id])
 
 
-def summary(store: Store, sweep_id: str | None = None) -> pd.DataFrame:
-    """Per model: its best cell on the sweep's first metric, mean ± SE per metric, test scores.
+def summary(store: Store, sweep_id: str | None = None, *,
+            rule: str | None = None) -> pd.DataFrame:
+    """Per model: its picked cell (the sweep's pick rule unless `rule` is given), mean ± SE
+    per metric, test scores.
 
-    One row per model in spec order; columns `cv_<metric>`, `se_<metric>`, `test_<metric>`."""
+    One row per model in spec order; columns `cv_<metric>`, `se_<metric>`, `test_<metric>`,
+    plus `rule`. Cells with failed fits or missing folds are never picked (see picks)."""
+    from .picks import picks
+
     sweep_id = store.resolve_sweep(sweep_id)
     metrics = _sweep_metrics(store, sweep_id)
     primary = metrics[0]
+    chosen = picks(store, sweep_id, rule=rule or _sweep_rule(store, sweep_id))
+    rule = chosen.attrs["rules"][0]
     long = store.query("""
-        with ranked as (
-            select s.*, row_number() over (
-                       partition by s.model
-                       order by case when m.better = 'lower' then s.mean else -s.mean end,
-                                s.complexity_rank) as place
-            from cell_summary s join metrics m using (metric)
-            where s.sweep_id = ? and s.metric = ?),
-        best as (select sweep_id, model, cell_id, params from ranked where place = 1),
+        with picked as (select unnest(?::varchar[]) as cell_id),
         sizes as (select model, family, count(*) as cells, min(rowid) as first_row
                   from cells where sweep_id = ? group by model, family)
-        select b.model, z.family, z.cells, b.cell_id, b.params, s.metric, s.mean, s.se, s.n,
+        select c.model, z.family, z.cells, c.cell_id, c.params, s.metric, s.mean, s.se, s.n,
                t.value as test, z.first_row
-        from best b
+        from picked p
+        join cells c on c.sweep_id = ? and c.cell_id = p.cell_id
         join sizes z using (model)
-        join cell_summary s on s.sweep_id = b.sweep_id and s.cell_id = b.cell_id
+        join cell_summary s on s.sweep_id = c.sweep_id and s.cell_id = c.cell_id
         left join test_scores t
-          on t.sweep_id = b.sweep_id and t.cell_id = b.cell_id and t.metric = s.metric
-        order by z.first_row, s.metric""", [sweep_id, primary, sweep_id])
+          on t.sweep_id = c.sweep_id and t.cell_id = c.cell_id and t.metric = s.metric
+        order by z.first_row, s.metric""", [chosen["cell_id"].tolist(), sweep_id, sweep_id])
     if long.empty:
-        return pd.DataFrame(columns=["model", "family", "cells", "cell_id", "params"])
+        return pd.DataFrame(columns=["model", "family", "cells", "cell_id", "params", "rule"])
     wide = long.pivot_table(index=["first_row", "model", "family", "cells", "cell_id", "params"],
                             columns="metric", values=["mean", "se", "test"], aggfunc="first")
     out = wide.reset_index().sort_values("first_row")
@@ -82,5 +88,7 @@ def summary(store: Store, sweep_id: str | None = None) -> pd.DataFrame:
     for m in metrics:
         ordered += [f"cv_{m}", f"se_{m}", f"test_{m}"]
     out = out[[c for c in ordered if c in out.columns]].reset_index(drop=True)
-    out.attrs.update(sweep_id=sweep_id, primary_metric=primary, metrics=metrics)
+    out.insert(5, "rule", rule)
+    out.attrs.update(sweep_id=sweep_id, primary_metric=primary, metrics=metrics, rule=rule,
+                     unpicked=chosen.attrs.get("unpicked", []))
     return out

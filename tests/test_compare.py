@@ -1,0 +1,162 @@
+"""Paired comparison: the corrected resampled t-test against a scipy reference, the pairing
+of stored fold scores, the plain-words line, and the `compare` command."""
+
+from __future__ import annotations
+
+import json
+import math
+
+import numpy as np
+import pytest
+from click.testing import CliRunner
+from scipy import stats
+
+from runner.cli import main
+from runner.compare import (APPROXIMATE_NOTE, compare, corrected_t_test, in_words,
+                            t_from_moments)
+from runner.errors import QueryError
+
+from .store_builder import write_sweep
+
+D = [0.8, 1.1, -0.2, 0.5, 0.9, 1.3, 0.1, 0.7, -0.4, 0.6]
+
+
+def test_corrected_t_test_reference():
+    # Nadeau & Bengio (2003), Machine Learning 52:239–281; Bouckaert & Frank (2004):
+    # variance (1/(k·r) + n_valid/n_train)·var(d, ddof=1), t on k·r − 1 df. k=5, r=2,
+    # n_train=80, n_valid=20: t = 0.54 / sqrt(0.35 · 0.304888…) = 81/49.
+    test = corrected_t_test(D, n_train=80, n_valid=20)
+    assert test.mean == pytest.approx(0.54, rel=1e-12)
+    assert test.t == pytest.approx(81 / 49, rel=1e-12)
+    assert test.t == pytest.approx(1.6530612245, abs=1e-10)
+    assert test.df == 9
+    assert test.se == pytest.approx(math.sqrt((1 / 10 + 20 / 80) * np.var(D, ddof=1)), rel=1e-12)
+    # p from scipy.stats.t, two-sided.
+    assert test.p == pytest.approx(2 * stats.t.sf(81 / 49, 9), rel=1e-12)
+    assert test.p == pytest.approx(0.1327086019, abs=1e-10)
+
+
+def test_correction_widens_the_naive_paired_t_test():
+    # Without the n_valid/n_train term the test is the ordinary paired t-test (scipy).
+    naive = stats.ttest_1samp(D, 0.0)
+    uncorrected = t_from_moments(float(np.mean(D)), float(np.var(D, ddof=1)), 10, 0.0)
+    assert uncorrected.t == pytest.approx(naive.statistic, rel=1e-12)
+    assert uncorrected.p == pytest.approx(naive.pvalue, rel=1e-10)
+    assert corrected_t_test(D, n_train=80, n_valid=20).p > naive.pvalue
+
+
+def test_per_fold_sizes_are_averaged_as_a_ratio():
+    n_train = [80, 81, 80, 81, 80, 80, 81, 80, 81, 80]
+    n_valid = [21, 20, 21, 20, 21, 21, 20, 21, 20, 21]
+    ratio = float(np.mean(np.array(n_valid) / np.array(n_train)))
+    test = corrected_t_test(D, n_train=n_train, n_valid=n_valid)
+    assert test.t == pytest.approx(np.mean(D) / math.sqrt((0.1 + ratio) * np.var(D, ddof=1)))
+
+
+@pytest.mark.parametrize("diffs, t, p", [
+    ([0.0, 0.0, 0.0], 0.0, 1.0),            # identical scores: no difference at all
+    ([0.5, 0.5, 0.5], math.inf, 0.0),       # a constant gap: certain
+    ([-0.5, -0.5], -math.inf, 0.0),
+])
+def test_zero_variance(diffs, t, p):
+    test = corrected_t_test(diffs, n_train=8, n_valid=2)
+    assert (test.t, test.p) == (t, p)
+
+
+def test_needs_two_folds():
+    with pytest.raises(ValueError, match="at least 2 paired folds, got 1"):
+        corrected_t_test([1.0], n_train=8, n_valid=2)
+
+
+def test_in_words():
+    assert in_words("linear", "forest", metric="rmse", better="lower", mean_diff=1.8, se=0.6,
+                    p=0.0123, wins_a=3, wins_b=27, n=30) == (
+        "forest beats linear on 27 of 30 folds; mean RMSE difference −1.80 ± 0.60 (p ≈ 0.012)")
+    assert in_words("a", "b", metric="r2", better="higher", mean_diff=0.031, se=0.0042,
+                    p=0.0002, wins_a=10, wins_b=0, n=10) == (
+        "a beats b on 10 of 10 folds; mean R2 difference 0.0310 ± 0.0042 (p < 0.001)")
+    assert in_words("a", "b", metric="rmse", better="lower", mean_diff=0.0, se=0.0, p=1.0,
+                    wins_a=0, wins_b=0, n=4) == "a and b tie on average; a wins 0 and b wins 0 of 4 folds"
+
+
+# -- pairing stored fold scores -------------------------------------------------------------
+
+A = [5.0, 5.4, 4.8, 5.1, 5.3, 4.9]
+B = [4.6, 5.0, 4.9, 4.7, 4.8, 4.5]
+C = [6.0, 6.2, 5.8, 6.1, 6.3, 5.9]
+
+
+@pytest.fixture
+def three_models(tmp_path):
+    return write_sweep(tmp_path / "s.duckdb", {"a": [A], "b": [B], "c": [C]}, k=3, repeats=2,
+                       n_train=[8, 8, 9, 8, 8, 9], n_valid=[4, 4, 3, 4, 4, 3],
+                       tests={"a": [5.2], "b": [4.4], "c": [6.5]}, pick_rule="best")
+
+
+def test_compare_pairs_identical_folds(three_models):
+    df = compare(three_models)
+    assert list(zip(df["model_a"], df["model_b"])) == [("a", "b"), ("a", "c"), ("b", "c")]
+    ratio = float(np.mean([4 / 8, 4 / 8, 3 / 9, 4 / 8, 4 / 8, 3 / 9]))
+    for row, (x, y) in zip(df.itertuples(), [(A, B), (A, C), (B, C)]):
+        d = np.subtract(x, y)
+        ref = t_from_moments(float(d.mean()), float(d.var(ddof=1)), 6, ratio)
+        assert row.folds == 6 and row.df == 5
+        assert row.mean_diff == pytest.approx(d.mean(), rel=1e-12)
+        assert row.se == pytest.approx(ref.se, rel=1e-12)
+        assert row.t == pytest.approx(ref.t, rel=1e-12)
+        assert row.p_value == pytest.approx(2 * stats.t.sf(abs(ref.t), 5), rel=1e-9)
+        assert (row.wins_a, row.wins_b, row.ties) == (int((d < 0).sum()), int((d > 0).sum()),
+                                                      int((d == 0).sum()))
+    first = df.iloc[0]
+    assert first["test_diff"] == pytest.approx(5.2 - 4.4)
+    assert first["in_words"].startswith("b beats a on 5 of 6 folds; mean RMSE difference −")
+    assert df.attrs["note"] == APPROXIMATE_NOTE and df.attrs["rule"] == "best"
+
+
+def test_compare_uses_the_picked_cells(tmp_path):
+    # model m: the one-SE cell (rank 0) differs from the best (rank 1).
+    m = [[5.0, 5.1, 4.9, 5.0], [4.9, 5.2, 4.7, 4.9]]
+    n = [[6.0, 6.0, 6.1, 5.9]]
+    store = write_sweep(tmp_path / "s.duckdb", {"m": m, "n": n}, k=2, repeats=2)
+    one_se = compare(store)  # the sweep's rule: one_se
+    best = compare(store, rule="best")
+    assert (one_se["cell_a"].iloc[0], best["cell_a"].iloc[0]) == ("m-0", "m-1")
+    assert one_se["mean_diff"].iloc[0] == pytest.approx(np.mean(np.subtract(m[0], n[0])))
+    assert best["mean_diff"].iloc[0] == pytest.approx(np.mean(np.subtract(m[1], n[0])))
+
+
+def test_compare_higher_is_better(tmp_path):
+    store = write_sweep(tmp_path / "s.duckdb", {"x": [[0.6, 0.62, 0.58, 0.61]],
+                                                "y": [[0.5, 0.63, 0.52, 0.55]]},
+                        k=2, repeats=2, metric="r2", better="higher")
+    row = compare(store).iloc[0]
+    assert (row.wins_a, row.wins_b) == (3, 1)
+    assert row.in_words.startswith("x beats y on 3 of 4 folds; mean R2 difference 0.")
+
+
+def test_compare_errors_and_single_model(tmp_path):
+    store = write_sweep(tmp_path / "s.duckdb", {"only": [[1.0, 1.1, 0.9, 1.0]]}, k=2, repeats=2)
+    assert compare(store).empty
+    with pytest.raises(QueryError, match=r"metric must be one of this sweep's metrics \(rmse\)"):
+        compare(store, metric="mae")
+    with pytest.raises(QueryError, match="rule must be one of best, one_se"):
+        compare(store, rule="median")
+
+
+def test_compare_command(three_models):
+    runner = CliRunner()
+    path = str(three_models.path)
+    got = runner.invoke(main, ["compare", "--store", path, "--format", "json"])
+    assert got.exit_code == 0, got.output
+    api = compare(three_models)
+    rows = json.loads(got.stdout)
+    assert [(r["model_a"], r["model_b"]) for r in rows] == list(zip(api["model_a"], api["model_b"]))
+    assert [r["p_value"] for r in rows] == pytest.approx(api["p_value"].tolist(), rel=1e-12)
+    assert "approximate" in got.stderr
+    table = runner.invoke(main, ["compare", "--store", path])
+    assert table.exit_code == 0, table.output
+    for line in api["in_words"]:
+        assert line in table.stdout
+    assert "note: p-values from resampled folds are approximate" in table.stdout
+    bad = runner.invoke(main, ["compare", "--store", path, "--metric", "mae"])
+    assert bad.exit_code == 2 and "metric must be one of" in bad.stderr

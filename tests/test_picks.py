@@ -1,0 +1,421 @@
+"""Pick rules: the one-standard-error rule as a pure function and as SQL over a store, the
+complexity order of each family, the ccp_fraction conversion, an end-to-end check against
+scikit-learn's own cross_validate on the diabetes data, and the `pick` / `path` commands."""
+
+from __future__ import annotations
+
+import json
+import math
+
+import numpy as np
+import pandas as pd
+import pytest
+from click.testing import CliRunner
+from hypothesis import given, settings
+from hypothesis import strategies as st
+
+from runner.cli import main
+from runner.picks import complexity_table
+from runner.errors import QueryError
+from runner.grid import expand_model
+from runner.picks import (best_index, one_se_index, one_se_threshold, picks, standard_error)
+from runner.queries import summary
+from runner.spec import ModelSpec
+
+from .store_builder import write_sweep
+
+# -- the rule on plain numbers ------------------------------------------------------------
+
+
+def test_one_se_rule_hand_worked_table():
+    # Hastie, Tibshirani & Friedman, The Elements of Statistical Learning, 2nd ed., §7.10:
+    # "choose the most parsimonious model whose error is no more than one standard error
+    # above the error of the best model". Means in complexity order, SE of the best cell.
+    means = [27.0, 26.0, 25.2, 25.9]
+    assert best_index(means, "lower") == 2
+    assert one_se_threshold(25.2, 1.157584, "lower") == pytest.approx(26.357584, abs=1e-12)
+    assert one_se_index(means, 1.157584, "lower") == 1
+
+
+@pytest.mark.parametrize("means, se, better, best, one_se", [
+    ([3.0, 2.0, 2.0], 0.0, "lower", 1, 1),            # tied best: the simpler one
+    ([5.0, 5.0, 5.0], 0.1, "lower", 0, 0),            # all equal: the simplest
+    ([4.2], 0.3, "lower", 0, 0),                      # a single cell
+    ([2.5, 2.0], 0.5, "lower", 1, 0),                 # exactly on the threshold counts
+    ([2.5 + 1e-9, 2.0], 0.5, "lower", 1, 1),          # just above it does not
+    ([2.4, 2.0, 2.3], 0.0, "lower", 1, 1),            # zero SE: the best itself
+    ([0.50, 0.595, 0.61, 0.60], 0.02, "higher", 2, 1),  # r2: threshold 0.59
+    ([0.50, 0.58, 0.61, 0.60], 0.02, "higher", 2, 2),   # 0.58 < 0.59: not within
+    ([0.7, 0.7, 0.6], 0.05, "higher", 0, 0),          # higher-is-better tie
+])
+def test_one_se_rule_edge_cases(means, se, better, best, one_se):
+    assert best_index(means, better) == best
+    assert one_se_index(means, se, better) == one_se
+
+
+@pytest.mark.parametrize("call, message", [
+    (lambda: best_index([], "lower"), "means is empty"),
+    (lambda: best_index([1.0], "smaller"), "better must be 'lower' or 'higher'"),
+    (lambda: one_se_index([1.0], 0.1, "up"), "better must be 'lower' or 'higher'"),
+    (lambda: standard_error([1.0]), "at least 2 fold scores"),
+    (lambda: standard_error([1.0, 2.0], kind="corrected"), "needs valid_ratio"),
+])
+def test_rule_refuses_bad_input(call, message):
+    with pytest.raises(ValueError, match=message):
+        call()
+
+
+@settings(max_examples=150, deadline=None)
+@given(st.lists(st.floats(-1e3, 1e3), min_size=1, max_size=12), st.floats(0, 50),
+       st.sampled_from(["lower", "higher"]))
+def test_one_se_pick_is_the_first_cell_within_the_threshold(means, se, better):
+    b = best_index(means, better)
+    i = one_se_index(means, se, better)
+    sign = 1 if better == "lower" else -1
+    assert i <= b
+    assert sign * (means[i] - means[b]) <= se + 1e-9 * max(1, abs(means[b]))
+    for j in range(i):
+        assert sign * (means[j] - means[b]) > se - 1e-9
+
+
+def test_standard_error_forms():
+    x = [4.0, 5.5, 3.2, 6.1, 5.0, 4.4]
+    sd = float(np.std(x, ddof=1))
+    assert standard_error(x) == pytest.approx(sd / math.sqrt(6), rel=1e-12)
+    # Nadeau & Bengio (2003): corrected variance (1/n + n_valid/n_train)·s².
+    assert standard_error(x, kind="corrected", valid_ratio=0.25) == pytest.approx(
+        math.sqrt((1 / 6 + 0.25) * sd**2), rel=1e-12)
+
+
+# -- complexity order per family (runner/grid.py) ----------------------------------------
+
+
+def _ranked(family: str, grid: dict, simpler: dict | None = None, keys=()) -> list[tuple]:
+    model = ModelSpec.model_validate({"family": family, "grid": grid, "simpler": simpler or {}})
+    cells = expand_model("m", model, data_sha256="x", plan_identity={}, n_features=10)
+    assert [c.complexity_rank for c in cells] == list(range(len(cells)))
+    return [tuple(c.params.get(k) for k in keys) for c in cells]
+
+
+def test_pruned_tree_order():
+    # larger ccp_alpha simpler, then larger min_samples_leaf, then smaller max_depth.
+    got = _ranked("pruned_tree", {"ccp_alpha": [0.0, 0.5], "min_samples_leaf": [1, 5],
+                                  "max_depth": [None, 3]},
+                  keys=("ccp_alpha", "min_samples_leaf", "max_depth"))
+    assert got == [(0.5, 5, 3), (0.5, 5, None), (0.5, 1, 3), (0.5, 1, None),
+                   (0.0, 5, 3), (0.0, 5, None), (0.0, 1, 3), (0.0, 1, None)]
+    frac = _ranked("pruned_tree", {"ccp_fraction": [0.001, 0.05, 0.01]}, keys=("ccp_fraction",))
+    assert frac == [(0.05,), (0.01,), (0.001,)]
+
+
+def test_linear_order():
+    # any penalty is simpler than none; larger alpha is simpler.
+    got = _ranked("linear", {"penalty": ["none", "l2"], "alpha": [0.1, 10.0]},
+                  keys=("penalty", "alpha"))
+    assert got == [("l2", 10.0), ("l2", 0.1), ("none", None)]
+
+
+def test_forest_order():
+    # larger min_samples_leaf, smaller max_features, smaller max_depth; fewer trees last.
+    got = _ranked("forest", {"min_samples_leaf": [1, 5], "max_features": [0.5, 1.0],
+                             "max_depth": [None, 4], "n_estimators": [50, 100]},
+                  keys=("min_samples_leaf", "max_features", "max_depth", "n_estimators"))
+    expected = sorted(got, key=lambda p: (-p[0], p[1], math.inf if p[2] is None else p[2], p[3]))
+    assert got == expected
+    assert got[0] == (5, 0.5, 4, 50) and got[-1] == (1, 1.0, None, 100)
+
+
+def test_spec_can_reverse_a_direction():
+    got = _ranked("pruned_tree", {"ccp_alpha": [0.0, 0.5, 1.0]}, {"ccp_alpha": "lower"},
+                  keys=("ccp_alpha",))
+    assert got == [(0.0,), (0.5,), (1.0,)]
+
+
+def test_ccp_fraction_is_a_share_of_the_target_variance():
+    # ccp_alpha = ccp_fraction × var(y) (population variance, the root node's MSE); on the
+    # diabetes data (Efron et al. 2004), all 442 rows, defaults otherwise, scikit-learn 1.9:
+    # 0.01 → 14 leaves, 0.02 → 6, 0.05 → 4.
+    from sklearn.datasets import load_diabetes
+
+    from runner.families.pruned_tree import make_estimator, resolve_alpha
+
+    X, y = load_diabetes(return_X_y=True, as_frame=True)
+    assert resolve_alpha({"ccp_fraction": 0.01}, y) == pytest.approx(0.01 * np.var(y), rel=1e-12)
+    leaves = []
+    for fraction in (0.01, 0.02, 0.05):
+        est = make_estimator({"ccp_fraction": fraction}, seed=0, y_fit=y,
+                             numeric=list(X.columns), categorical=[])
+        leaves.append(int(est.fit(X, y).named_steps["model"].get_n_leaves()))
+    assert leaves == [14, 6, 4]
+
+
+# -- the rule as SQL over a store ---------------------------------------------------------
+
+
+def _random_models(seed: int, k: int, r: int, better: str) -> dict[str, list[list[float]]]:
+    rng = np.random.default_rng(seed)
+    models = {}
+    for label in ("a", "b", "c"):
+        n_cells = int(rng.integers(1, 7))
+        bend = int(rng.integers(0, n_cells))
+        cells = []
+        for rank in range(n_cells):
+            base = 5.0 - 0.2 * min(rank, bend) + 0.05 * max(0, rank - bend)
+            if better == "higher":
+                base = 1.0 - base / 10
+            cells.append(list(base + rng.normal(0, 0.25 if better == "lower" else 0.02, k * r)))
+        models[label] = cells
+    return models
+
+
+def _expected(models, rule, se_kind, better, ratio):
+    out = {}
+    for label, cells in models.items():
+        means = [float(np.mean(c)) for c in cells]
+        b = best_index(means, better)
+        if rule == "best":
+            out[label] = b
+            continue
+        se = standard_error(cells[b], kind=se_kind, valid_ratio=ratio)
+        out[label] = one_se_index(means, se, better)
+    return out
+
+
+@pytest.mark.parametrize("seed", range(3))
+@pytest.mark.parametrize("better", ["lower", "higher"])
+def test_stored_pick_equals_the_pure_rule(tmp_path, seed, better):
+    k, r = 5, 2
+    models = _random_models(seed, k, r, better)
+    metric = "rmse" if better == "lower" else "r2"
+    store = write_sweep(tmp_path / "s.duckdb", models, k=k, repeats=r, metric=metric,
+                        better=better, n_train=80, n_valid=20)
+    for se_kind in ("plain", "corrected"):
+        df = picks(store, se=se_kind)
+        for rule in ("best", "one_se"):
+            got = df[df["rule"] == rule].set_index("model")["complexity_rank"].to_dict()
+            assert got == _expected(models, rule, se_kind, better, 20 / 80), (rule, se_kind)
+
+
+def test_stored_pick_se_and_threshold(tmp_path):
+    scores = [[5.0, 5.2, 4.9, 5.1, 5.3, 5.0], [4.8, 4.9, 4.7, 5.0, 4.8, 4.9]]
+    store = write_sweep(tmp_path / "s.duckdb", {"m": scores}, k=3, repeats=2,
+                        n_train=[8, 8, 9, 8, 8, 9], n_valid=[4, 4, 3, 4, 4, 3])
+    best = picks(store, rule="best").iloc[0]
+    assert best["mean"] == pytest.approx(np.mean(scores[1]), rel=1e-12)
+    assert best["se"] == pytest.approx(np.std(scores[1], ddof=1) / math.sqrt(6), rel=1e-12)
+    ratio = np.mean([4 / 8, 4 / 8, 3 / 9, 4 / 8, 4 / 8, 3 / 9])  # mean of n_valid/n_train
+    corrected = picks(store, rule="best", se="corrected").iloc[0]
+    assert corrected["se"] == pytest.approx(
+        math.sqrt((1 / 6 + ratio) * np.var(scores[1], ddof=1)), rel=1e-12)
+    assert corrected["threshold"] == pytest.approx(corrected["mean"] + corrected["se"])
+
+
+def test_failed_and_incomplete_cells_are_never_picked(tmp_path):
+    cells = [[3.0] * 4, [2.0, 2.1, 1.9, 2.0], [1.0, 1.1, 0.9, 1.0], [1.5, 1.4, 1.6, 1.5]]
+    store = write_sweep(tmp_path / "s.duckdb", {"m": cells, "solo": [[1.0, 1.0, 1.0, 1.0]]},
+                        k=2, repeats=2, failures=["m-2", "solo-0"], drop=[("m-3", 1)])
+    df = picks(store)
+    assert df["model"].unique().tolist() == ["m"]
+    assert df.set_index("rule")["cell_id"].to_dict() == {"best": "m-1", "one_se": "m-1"}
+    assert df.attrs["unpicked"] == ["solo"]
+    assert df["eligible"].iloc[0] == 2 and df["cells"].iloc[0] == 4
+    table = complexity_table(store, "m")
+    assert table["excluded"].tolist() == ["", "", "failed fits", "incomplete"]
+
+
+def test_pick_options_and_errors(tmp_path):
+    store = write_sweep(tmp_path / "s.duckdb", {"lin": [[2.0, 2.2, 1.8, 2.0]] * 1,
+                                                "tree": [[3.0, 3.1, 2.9, 3.0]]}, k=2, repeats=2)
+    only = picks(store, rule="one_se", model="tree")
+    assert only[["model", "rule"]].values.tolist() == [["tree", "one_se"]]
+    with pytest.raises(QueryError, match=r"no model 'tre' .* Did you mean 'tree'\?"):
+        picks(store, model="tre")
+    with pytest.raises(QueryError, match=r"rule must be one of best, one_se, got rule='worst'"):
+        picks(store, rule="worst")
+    with pytest.raises(QueryError, match=r"se must be one of plain, corrected"):
+        picks(store, se="naive")
+
+
+def test_summary_shows_the_sweeps_rule(tmp_path):
+    cells = [[5.0, 5.2, 4.8, 5.0], [4.9, 5.1, 4.9, 4.9], [4.8, 5.3, 4.5, 4.8]]
+    store = write_sweep(tmp_path / "s.duckdb", {"m": cells}, k=2, repeats=2, pick_rule="one_se")
+    df = summary(store)
+    assert df.attrs["rule"] == "one_se" and df["rule"].tolist() == ["one_se"]
+    assert {"model", "family", "cells", "cell_id", "params", "cv_rmse", "se_rmse",
+            "test_rmse"} <= set(df.columns)
+    assert df["cell_id"].tolist() == ["m-0"]
+    assert summary(store, rule="best")["cell_id"].tolist() == ["m-2"]
+
+
+def test_complexity_table_marks_and_order(tmp_path):
+    cells = [[5.0, 5.2, 4.8, 5.0], [4.9, 5.1, 4.9, 4.9], [4.8, 5.3, 4.5, 4.8], [6, 6, 6, 6]]
+    store = write_sweep(tmp_path / "s.duckdb", {"t": cells}, k=2, repeats=2,
+                        family="pruned_tree")
+    df = complexity_table(store, "t")
+    assert df["complexity_rank"].tolist() == [0, 1, 2, 3]
+    assert df["pick"].tolist() == ["one_se", "", "best", ""]
+    assert df["within_one_se"].tolist() == [True, True, True, False]
+    assert df["mean_leaves"].tolist() == [2.0, 3.0, 4.0, 5.0]
+    assert df.attrs["threshold"] == pytest.approx(4.85 + np.std(cells[2], ddof=1) / 2)
+
+
+# -- end to end on the diabetes data --------------------------------------------------------
+
+DIABETES_SPEC = """
+name: diabetes-picks
+data:
+  path: diabetes.csv
+  target: target
+test:
+  fraction: 0.2
+  seed: 5
+folds:
+  k: 5
+  repeats: 2
+  seed: 7
+metrics: [rmse, r2]
+pick: one_se
+models:
+  tree:
+    family: pruned_tree
+    grid:
+      ccp_alpha: [30.0, 100.0, 200.0, 300.0, 500.0, 900.0]
+  ridge:
+    family: linear
+    grid:
+      penalty: l2
+      alpha: [3.0, 10.0, 30.0, 100.0, 300.0]
+"""
+
+
+@pytest.fixture(scope="module")
+def diabetes_sweep(tmp_path_factory):
+    """A small sweep on scikit-learn's diabetes data (Efron et al. 2004), run once."""
+    from sklearn.datasets import load_diabetes
+
+    from runner.engine import run_sweep
+    from runner.spec import parse_spec
+    from runner.store import Store
+
+    folder = tmp_path_factory.mktemp("diabetes")
+    load_diabetes(as_frame=True).frame.to_csv(folder / "diabetes.csv", index=False)
+    spec = parse_spec(DIABETES_SPEC, source=folder / "spec.yaml")
+    store = Store(folder / "s.duckdb")
+    run_sweep(spec, store=store, jobs=1)
+    return folder, store
+
+
+def _sklearn_fold_scores(folder) -> tuple[dict, float]:
+    """RMSE per cell and fold from scikit-learn's cross_validate on the documented folds:
+    test rows = train_test_split(arange(n), test_size=0.2, random_state=5)[1]; training rows
+    = the rest in file order; RepeatedKFold(5, 2, random_state=7) over them; estimator seed
+    per fold = fold_seed(7, repeat, fold)."""
+    from sklearn.linear_model import Ridge
+    from sklearn.model_selection import RepeatedKFold, cross_validate, train_test_split
+    from sklearn.pipeline import make_pipeline
+    from sklearn.preprocessing import StandardScaler
+    from sklearn.tree import DecisionTreeRegressor
+
+    from runner.resampling import fold_seed
+
+    df = pd.read_csv(folder / "diabetes.csv")
+    y = df.pop("target").to_numpy()
+    n = len(y)
+    test_rows = train_test_split(np.arange(n), test_size=0.2, random_state=5)[1]
+    train = np.setdiff1d(np.arange(n), test_rows)
+    X_tr, y_tr = df.iloc[train], y[train]
+    splits = list(RepeatedKFold(n_splits=5, n_repeats=2, random_state=7).split(train))
+    makers = {("tree", a): (lambda s, a=a: DecisionTreeRegressor(ccp_alpha=a, random_state=s))
+              for a in (30.0, 100.0, 200.0, 300.0, 500.0, 900.0)}
+    makers.update({("ridge", a): (lambda s, a=a: make_pipeline(StandardScaler(), Ridge(alpha=a)))
+                   for a in (3.0, 10.0, 30.0, 100.0, 300.0)})
+    scores = {key: [] for key in makers}
+    for i, (fit, valid) in enumerate(splits):
+        seed = fold_seed(7, i // 5, i % 5)
+        for key, make in makers.items():
+            cv = cross_validate(make(seed), X_tr, y_tr, cv=[(fit, valid)],
+                                scoring="neg_root_mean_squared_error")
+            scores[key].append(-float(cv["test_score"][0]))
+    ratio = float(np.mean([len(v) / len(f) for f, v in splits]))
+    return scores, ratio
+
+
+@pytest.mark.parametrize("se_kind", ["plain", "corrected"])
+def test_diabetes_pick_matches_sklearn_cross_validate(diabetes_sweep, se_kind):
+    folder, store = diabetes_sweep
+    scores, ratio = _sklearn_fold_scores(folder)
+    stored = picks(store, se=se_kind)
+    for model in ("tree", "ridge"):
+        # complexity order: larger alpha is simpler for both families.
+        keys = sorted((k for k in scores if k[0] == model), key=lambda k: -k[1])
+        means = [float(np.mean(scores[k])) for k in keys]
+        b = best_index(means, "lower")
+        se = standard_error(scores[keys[b]], kind=se_kind, valid_ratio=ratio)
+        expected = {"best": keys[b][1], "one_se": keys[one_se_index(means, se, "lower")][1]}
+        rows = stored[stored["model"] == model].set_index("rule")
+        for rule, alpha in expected.items():
+            params = json.loads(rows.loc[rule, "params"])
+            key = "alpha" if model == "ridge" else "ccp_alpha"
+            assert params[key] == alpha, (model, rule)
+            assert rows.loc[rule, "mean"] == pytest.approx(np.mean(scores[(model, alpha)]),
+                                                           rel=1e-9)
+        assert rows.loc["best", "se"] == pytest.approx(se, rel=1e-9)
+        if model == "ridge":  # here the rule matters: a stronger penalty is within one SE
+            assert expected["one_se"] > expected["best"]
+
+
+# -- the commands -------------------------------------------------------------------------
+
+
+def _json(result):
+    assert result.exit_code == 0, result.output
+    return json.loads(result.stdout)
+
+
+def test_pick_command_json_matches_the_api(diabetes_sweep):
+    _, store = diabetes_sweep
+    runner = CliRunner()
+    got = _json(runner.invoke(main, ["pick", "--store", str(store.path), "--format", "json"]))
+    api = picks(store)
+    assert [(r["model"], r["rule"], r["cell_id"]) for r in got] == list(
+        zip(api["model"], api["rule"], api["cell_id"]))
+    assert [r["mean"] for r in got] == pytest.approx(api["mean"].tolist(), rel=1e-12)
+    one = _json(runner.invoke(main, ["pick", "--store", str(store.path), "--format", "json",
+                                     "--rule", "one_se", "--model", "tree", "--se",
+                                     "corrected"]))
+    api = picks(store, rule="one_se", model="tree", se="corrected")
+    assert [r["cell_id"] for r in one] == api["cell_id"].tolist()
+    assert one[0]["se"] == pytest.approx(api["se"].iloc[0], rel=1e-12)
+
+
+def test_pick_command_table_and_errors(diabetes_sweep):
+    _, store = diabetes_sweep
+    runner = CliRunner()
+    result = runner.invoke(main, ["pick", "--store", str(store.path)])
+    assert result.exit_code == 0, result.output
+    assert "best cell" in result.stdout and "one-SE cell" in result.stdout
+    assert "the sweep's rule is one_se" in result.stdout
+    bad = runner.invoke(main, ["pick", "--store", str(store.path), "--model", "tre"])
+    assert bad.exit_code == 2
+    assert "no model 'tre'" in bad.stderr and "Did you mean 'tree'?" in bad.stderr
+
+
+def test_path_command_json_matches_the_api(diabetes_sweep):
+    _, store = diabetes_sweep
+    runner = CliRunner()
+    got = _json(runner.invoke(main, ["path", "--model", "tree", "--store", str(store.path),
+                                     "--format", "json"]))
+    api = complexity_table(store, "tree")
+    assert [r["ccp_alpha"] for r in got] == [900.0, 500.0, 300.0, 200.0, 100.0, 30.0]
+    assert [r["pick"] for r in got] == api["pick"].tolist()
+    assert [r["mean_leaves"] for r in got] == pytest.approx(api["mean_leaves"].tolist())
+    table = runner.invoke(main, ["path", "--model", "tree", "--store", str(store.path)])
+    assert table.exit_code == 0, table.output
+    words = " ".join(table.stdout.split())
+    assert "one-SE threshold: CV rmse ≤" in words and "leaves" in words
+
+
+@pytest.mark.parametrize("command", ["pick", "compare", "path"])
+def test_commands_have_help(command):
+    result = CliRunner().invoke(main, [command, "--help"])
+    assert result.exit_code == 0 and "Usage:" in result.output
