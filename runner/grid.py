@@ -94,7 +94,8 @@ def _sort_key(family: str, params: dict, simpler: dict, n_features: int | None):
     """A key under which smaller means simpler."""
     fam = FAMILIES[family]
     key = []
-    for name in fam.complexity_order:
+    names = list(fam.complexity_order) + [n for n in simpler if n not in fam.complexity_order]
+    for name in names:
         if name not in params:
             continue
         value = params[name]

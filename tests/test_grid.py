@@ -58,6 +58,17 @@ def test_simpler_override_reverses_order():
     assert [c.params["alpha"] for c in cells] == [1, 2]
 
 
+def test_simpler_on_a_param_outside_the_default_order():
+    spec = parse_spec("name: t\ndata: {path: d.csv, target: y}\ntest: {fraction: 0.2}\n"
+                      "models:\n  m: {family: forest, grid: {max_samples: [0.5, 0.9]},"
+                      " simpler: {max_samples: lower}}\n")
+    cells = expand_model("m", spec.models["m"], data_sha256="x", plan_identity=PLAN)
+    assert [c.params["max_samples"] for c in cells] == [0.5, 0.9]
+    spec.models["m"].simpler["max_samples"] = "higher"
+    cells = expand_model("m", spec.models["m"], data_sha256="x", plan_identity=PLAN)
+    assert [c.params["max_samples"] for c in cells] == [0.9, 0.5]
+
+
 def test_path_values_spread_along_path():
     path = np.array([0.0, 0.0, 1.0, 2.0, 3.0, 4.0, 8.0])
     # distinct alphas [0, 1, 2, 3, 4, 8]; positions linspace(0, 5, 3) = 0, 2.5, 5 rounded
