@@ -10,7 +10,8 @@ from .store import Store  # noqa: E402
 
 __all__ = ["__version__", "FoldwiseError", "SpecError", "DataError", "StoreError", "QueryError",
            "Spec", "load_spec", "parse_spec", "spec_json_schema", "Store", "run_sweep",
-           "check_spec", "summary", "picks", "compare", "complexity_table"]
+           "check_spec", "summary", "picks", "compare", "complexity_table", "importances",
+           "stability", "figure", "write_report"]
 
 
 def run_sweep(*args, **kwargs):
@@ -53,3 +54,31 @@ def complexity_table(*args, **kwargs):
     from .picks import complexity_table as _table
 
     return _table(*args, **kwargs)
+
+
+def importances(*args, **kwargs):
+    """Stored importances of a sweep's explained cells (see `runner.explain.importance_table`)."""
+    from .explain import importance_table as _table
+
+    return _table(*args, **kwargs)
+
+
+def stability(*args, **kwargs):
+    """Stability of the explained cells across folds (see `runner.stability.stability_summary`)."""
+    from .stability import stability_summary as _summary
+
+    return _summary(*args, **kwargs)
+
+
+def figure(*args, **kwargs):
+    """One figure of a sweep as a matplotlib Figure (see `runner.plots.make_figure`)."""
+    from .plots import make_figure as _make
+
+    return _make(*args, **kwargs)
+
+
+def write_report(*args, **kwargs):
+    """Write the self-contained HTML report (see `runner.report.write_report`)."""
+    from .report import write_report as _write
+
+    return _write(*args, **kwargs)

@@ -173,6 +173,21 @@ class ModelSpec(_Strict):
         return self
 
 
+class PermutationPlan(_Strict):
+    """How permutation importance shuffles each column on the test split."""
+
+    repeats: int = Field(5, ge=1, description="shuffles per column")
+    seed: int = Field(0, ge=0, description="random_state of the shuffles")
+
+
+class ExplainPlan(_Strict):
+    """Which cells get importances, tree stability and stored test predictions after a sweep."""
+
+    cells: Literal["picked", "all", "none"] = Field(
+        "picked", description="picked = each model's best and one-SE cells; all; or none")
+    permutation: PermutationPlan = Field(default_factory=PermutationPlan)
+
+
 class Spec(_Strict):
     """A whole sweep: data, test split, folds, metrics, store and models."""
 
@@ -186,6 +201,8 @@ class Spec(_Strict):
     pick: Literal["best", "one_se"] = Field("one_se", description="the default pick rule")
     store: str | None = Field(None, description="DuckDB file, relative to the spec file")
     jobs: int | None = Field(None, description="parallel workers; default all cores")
+    explain: ExplainPlan = Field(default_factory=ExplainPlan,
+                                 description="importances and tree stability after the sweep")
     models: dict[str, ModelSpec] = Field(min_length=1)
 
     @field_validator("metrics")

@@ -1,0 +1,481 @@
+"""The explain step: refit a sweep's chosen cells on the documented folds and on all training
+rows, and store what the fits show, so plots and reports are built from the store alone.
+
+For every chosen cell (by default each model's best and one-SE picks; the spec's
+`explain.cells` can ask for all cells or none) it writes:
+
+- `importances`: one row per original column and method, from the refit on all training
+  rows. `permutation` (every family): scikit-learn's `permutation_importance` on the test
+  split, shuffling one original column at a time through the whole pipeline, scored with the
+  sweep's first metric; value = mean loss of score over the shuffles (for rmse: how much the
+  test RMSE rises), spread = sd over the shuffles. `impurity` (trees, forests): the fitted
+  model's impurity-based importances (shares of the total squared-error reduction, summing
+  to 1). `coefficient` (linear): the standard deviation over the fitting rows of the
+  column's contribution to the prediction, in target units; for a numeric column that is
+  the absolute standardised coefficient |w_j| (change per one SD of the column), for a
+  categorical column it is the SD of its one-hot coefficients' sum, which does not depend on
+  how the levels' coefficients are shifted. Spread of impurity and coefficient rows = sd of
+  the same number over the per-fold refits.
+- `fold_importances`: impurity or coefficient importances of each fold's refit.
+- `tree_folds`: each pruned tree fold refit's leaves, depth, root split and used columns.
+- `tree_nodes`: the refit tree's nodes (for drawing it); `test_predictions`: the refit's
+  predictions on the test rows (for predicted-against-observed plots).
+
+Fold refits use the plan's folds and seeds and the refit uses `refit_seed`, exactly as the
+sweep did, so a refit predicts what the sweep scored."""
+
+from __future__ import annotations
+
+import json
+import warnings
+from dataclasses import dataclass, field
+from typing import Callable
+
+import numpy as np
+import pandas as pd
+
+from .families import load_family
+from .resampling import refit_seed
+from .store import Store
+
+__all__ = ["explain_sweep", "ExplainResult", "chosen_cells", "SCORING", "METHODS",
+           "output_sources", "coefficient_importance", "impurity_importance",
+           "permutation_rows", "tree_shape", "tree_node_rows", "importance_table",
+           "prediction_table", "tree_node_table", "tree_fold_table", "has_explain_tables"]
+
+SCORING = {"rmse": "neg_root_mean_squared_error", "mae": "neg_mean_absolute_error",
+           "r2": "r2"}
+"""scikit-learn scorer used by permutation importance for each metric (higher is better)."""
+
+METHODS = {
+    "permutation": "rise in the test {metric} when one column is shuffled (mean over shuffles; "
+                   "spread = sd over shuffles)",
+    "impurity": "share of the tree's squared-error reduction made by splits on the column "
+                "(sums to 1; spread = sd over fold refits)",
+    "coefficient": "SD of the column's contribution to the prediction, target units: "
+                   "|standardised coefficient| for numbers, SD of the one-hot part for "
+                   "categories (spread = sd over fold refits)",
+}
+"""What each importance method's value means, for tables and reports."""
+
+FOLD_METHOD = {"linear": "coefficient", "pruned_tree": "impurity", "forest": "impurity"}
+_COST = {"forest": 3, "pruned_tree": 1, "linear": 1}
+EXPLAIN_TABLES = ("importances", "fold_importances", "tree_folds", "tree_nodes",
+                  "test_predictions")
+EXPLAIN_VERSION = "1"
+"""Bumped whenever a change here would change stored explain rows; stops their reuse."""
+
+
+@dataclass
+class ExplainResult:
+    """What the explain step wrote, and the fits it could not make."""
+
+    cells: int = 0
+    reused: int = 0
+    rows: dict = field(default_factory=dict)
+    problems: list = field(default_factory=list)
+
+
+# -- what the fitted pipelines show --------------------------------------------------------
+def output_sources(prep) -> list[str]:
+    """The original column behind each output column of a fitted preprocessing step."""
+    sources: list[str] = []
+    for name, transformer, columns in prep.transformers_:
+        if name == "remainder" or transformer == "drop":
+            continue
+        if transformer == "passthrough":
+            sources.extend(columns)
+        elif hasattr(transformer, "named_steps") and "onehot" in transformer.named_steps:
+            kept = transformer.named_steps["impute"].get_feature_names_out(columns)
+            for col, levels in zip(kept, transformer.named_steps["onehot"].categories_):
+                sources.extend([str(col)] * len(levels))
+        else:
+            sources.extend(str(c) for c in transformer.get_feature_names_out(columns))
+    return sources
+
+
+def _by_source(values, sources: list[str], features: list[str]) -> dict[str, float]:
+    out = {f: 0.0 for f in features}
+    for v, s in zip(np.asarray(values, dtype=float), sources):
+        out[s] += float(v)
+    return out
+
+
+def coefficient_importance(pipeline, X_fit, features: list[str]) -> dict[str, float]:
+    """Per original column, the SD over the fitting rows of its part of the linear prediction."""
+    prep, model = pipeline.named_steps["prep"], pipeline.named_steps["model"]
+    coefs = np.asarray(model.coef_, dtype=float).ravel()
+    sources = output_sources(prep)
+    Xt = np.asarray(prep.transform(X_fit), dtype=float)
+    numeric = set()
+    for name, _, columns in prep.transformers_:
+        if name == "num":
+            numeric.update(columns)
+    out = {f: 0.0 for f in features}
+    for col in features:
+        idx = [i for i, s in enumerate(sources) if s == col]
+        if not idx:
+            continue
+        if col in numeric:  # one standardised column: SD of w*z is |w|
+            out[col] = float(abs(coefs[idx[0]]))
+        else:
+            out[col] = float(np.std(Xt[:, idx] @ coefs[idx]))
+    return out
+
+
+def impurity_importance(pipeline, features: list[str]) -> dict[str, float]:
+    """The fitted tree's or forest's impurity-based importances, per original column."""
+    model = pipeline.named_steps["model"]
+    return _by_source(model.feature_importances_, output_sources(pipeline.named_steps["prep"]),
+                      features)
+
+
+def permutation_rows(pipeline, X_test, y_test, *, metric: str, repeats: int,
+                     seed: int) -> dict[str, tuple[float, float]]:
+    """Per original column, (mean, sd) of the score lost when the column is shuffled."""
+    from sklearn.inspection import permutation_importance
+
+    result = permutation_importance(pipeline, X_test, y_test, scoring=SCORING[metric],
+                                    n_repeats=repeats, random_state=seed, n_jobs=1)
+    return {str(col): (float(m), float(s)) for col, m, s in
+            zip(X_test.columns, result.importances_mean, result.importances_std)}
+
+
+def _categories(prep) -> dict[str, list]:
+    """The ordinal codes' levels of each categorical column of a tree preprocessor."""
+    out = {}
+    for name, transformer, columns in prep.transformers_:
+        if name == "cat":
+            for col, levels in zip(columns, transformer.categories_):
+                out[str(col)] = list(levels)
+    return out
+
+
+def _rule(feature: str, threshold: float, levels: list | None) -> str:
+    """The condition that sends a row to the left child, in the data's own terms."""
+    if levels is not None:
+        left = [str(v) for i, v in enumerate(levels) if i <= threshold]
+        return f"{feature} in {{{', '.join(left)}}}"
+    return f"{feature} ≤ {threshold:.4g}"
+
+
+def tree_shape(pipeline) -> dict:
+    """Leaves, depth, root split (column, threshold, rule) and the set of columns used."""
+    prep, tree = pipeline.named_steps["prep"], pipeline.named_steps["model"]
+    sources, levels = output_sources(prep), _categories(prep)
+    t = tree.tree_
+    used = sorted({sources[f] for f in t.feature if f >= 0})
+    out = {"n_leaves": int(tree.get_n_leaves()), "depth": int(tree.get_depth()),
+           "root_feature": None, "root_threshold": None, "root_rule": None,
+           "features_used": used}
+    if t.node_count > 1:
+        name = sources[t.feature[0]]
+        out.update(root_feature=name, root_threshold=float(t.threshold[0]),
+                   root_rule=_rule(name, float(t.threshold[0]), levels.get(name)))
+    return out
+
+
+def tree_node_rows(pipeline) -> list[dict]:
+    """One row per node of the fitted tree: links, depth, split rule, mean and size."""
+    prep, tree = pipeline.named_steps["prep"], pipeline.named_steps["model"]
+    sources, levels = output_sources(prep), _categories(prep)
+    t = tree.tree_
+    parent = np.full(t.node_count, -1)
+    depth = np.zeros(t.node_count, dtype=int)
+    for node in range(t.node_count):  # children always follow their parent
+        for child in (t.children_left[node], t.children_right[node]):
+            if child >= 0:
+                parent[child], depth[child] = node, depth[node] + 1
+    rows = []
+    for node in range(t.node_count):
+        leaf = t.children_left[node] < 0
+        name = None if leaf else sources[t.feature[node]]
+        thr = None if leaf else float(t.threshold[node])
+        rows.append({"node": node, "parent": int(parent[node]),
+                     "left_child": int(t.children_left[node]),
+                     "right_child": int(t.children_right[node]), "depth": int(depth[node]),
+                     "feature": name, "threshold": thr,
+                     "rule": None if leaf else _rule(name, thr, levels.get(name)),
+                     "missing_left": None if leaf else bool(t.missing_go_to_left[node]),
+                     "value": float(t.value[node].ravel()[0]),
+                     "n_samples": int(t.n_node_samples[node]),
+                     "impurity": float(t.impurity[node])})
+    return rows
+
+
+# -- the tasks -----------------------------------------------------------------------------
+def _fit(family: str, params: dict, X, y, *, seed: int, numeric, categorical):
+    est = load_family(family).make_estimator(params, seed=seed, y_fit=y, numeric=numeric,
+                                             categorical=categorical)
+    with warnings.catch_warnings():  # the sweep has counted this fit's warnings already
+        warnings.simplefilter("ignore")
+        return est.fit(X, y)
+
+
+def _fold_task(family, cell_id, params, X_fit, y_fit, *, seed, repeat, fold, numeric,
+               categorical):
+    """One chosen cell refitted on one fold's fitting rows: importances and tree shape."""
+    features = list(X_fit.columns)
+    try:
+        est = _fit(family, params, X_fit, y_fit, seed=seed, numeric=numeric,
+                   categorical=categorical)
+        method = FOLD_METHOD[family]
+        values = (coefficient_importance(est, X_fit, features) if method == "coefficient"
+                  else impurity_importance(est, features))
+    except Exception as exc:  # recorded and reported; the sweep's scores stand
+        return cell_id, {}, f"{cell_id} fold ({repeat}, {fold}): {type(exc).__name__}: {exc}"
+    key = {"cell_id": cell_id, "repeat": repeat, "fold": fold}
+    rows = {"fold_importances": [{**key, "feature": f, "method": method, "value": v}
+                                 for f, v in values.items()]}
+    if family == "pruned_tree":
+        rows["tree_folds"] = [{**key, **tree_shape(est)}]
+    return cell_id, rows, None
+
+
+def _refit_task(family, cell_id, params, X_train, y_train, X_test, y_test, test_rows, *,
+                seed, metric, repeats, perm_seed, numeric, categorical):
+    """One chosen cell refitted on all training rows: importances, nodes, test predictions."""
+    features = list(X_train.columns)
+    try:
+        est = _fit(family, params, X_train, y_train, seed=seed, numeric=numeric,
+                   categorical=categorical)
+        perm = permutation_rows(est, X_test, y_test, metric=metric, repeats=repeats,
+                                seed=perm_seed)
+        own = (coefficient_importance(est, X_train, features) if family == "linear"
+               else impurity_importance(est, features))
+        predicted = est.predict(X_test)
+        nodes = tree_node_rows(est) if family == "pruned_tree" else []
+    except Exception as exc:
+        return cell_id, {}, f"{cell_id} refit: {type(exc).__name__}: {exc}"
+    imp = [{"cell_id": cell_id, "feature": f, "method": "permutation", "value": m, "spread": s}
+           for f, (m, s) in perm.items()]
+    imp += [{"cell_id": cell_id, "feature": f, "method": FOLD_METHOD[family], "value": v}
+            for f, v in own.items()]
+    rows = {"importances": imp,
+            "test_predictions": [{"cell_id": cell_id, "row": int(r), "observed": float(o),
+                                  "predicted": float(p)}
+                                 for r, o, p in zip(test_rows, y_test, predicted)],
+            "tree_nodes": [{"cell_id": cell_id, **n} for n in nodes]}
+    return cell_id, rows, None
+
+
+# -- the step ------------------------------------------------------------------------------
+def chosen_cells(store: Store, sweep_id: str, which: str = "picked") -> pd.DataFrame:
+    """The cells to explain: each model's picks under both rules, every cell, or none."""
+    if which == "none":
+        return pd.DataFrame(columns=["cell_id", "model", "family", "params"])
+    cells = store.query("select cell_id, model, family, params from cells where sweep_id = ? "
+                        "order by rowid", [sweep_id])
+    if which == "all":
+        return cells
+    from .picks import picks
+
+    picked = set(picks(store, sweep_id)["cell_id"])
+    return cells[cells["cell_id"].isin(picked)].reset_index(drop=True)
+
+
+def _spreads(imp: pd.DataFrame, folds: pd.DataFrame) -> pd.DataFrame:
+    """Fill the spread of impurity and coefficient rows with the sd over the fold refits."""
+    if imp.empty or folds.empty:
+        return imp
+    sd = folds.groupby(["cell_id", "method", "feature"])["value"].std(ddof=1).rename("_sd")
+    imp = imp.join(sd, on=["cell_id", "method", "feature"])
+    own = imp["method"] != "permutation"
+    imp.loc[own, "spread"] = imp.loc[own, "_sd"]
+    return imp.drop(columns="_sd")
+
+
+def _settings(spec) -> str:
+    """What besides the cell decides its explain rows; equal settings allow reuse."""
+    perm = spec.explain.permutation
+    return json.dumps({"metric": spec.metrics[0], "repeats": perm.repeats, "seed": perm.seed,
+                       "version": EXPLAIN_VERSION}, sort_keys=True)
+
+
+def _reuse(store: Store, sweep_id: str, cell_ids: list[str], settings: str) -> list[str]:
+    """Copy the explain rows of cells already explained with these settings by an earlier
+    sweep into this one (one transaction); return the cells copied."""
+    found = store.query("""
+        select cell_id, min(sweep_id) as source from explained
+        where settings = ? and sweep_id <> ? and list_contains(?::varchar[], cell_id)
+        group by cell_id""", [settings, sweep_id, cell_ids])
+    if found.empty:
+        return []
+    pairs = [f"{a}|{b}" for a, b in zip(found["source"], found["cell_id"])]
+    batch = {}
+    for table in EXPLAIN_TABLES:
+        rows = store.query(f"select * exclude (sweep_id) from {table} "
+                           "where list_contains(?::varchar[], sweep_id || '|' || cell_id)",
+                           [pairs])
+        batch[table] = rows.assign(sweep_id=sweep_id)
+    batch["explained"] = pd.DataFrame({"sweep_id": sweep_id, "cell_id": found["cell_id"],
+                                       "settings": settings, "reused_from": found["source"]})
+    store.write_batch(batch)
+    return found["cell_id"].tolist()
+
+
+def explain_sweep(spec, store: Store, sweep_id: str, *, prepared=None, jobs: int | None = None,
+                  cells: str | None = None, reuse: bool = True,
+                  progress: Callable[[int, int], None] | None = None) -> ExplainResult:
+    """Refit the sweep's chosen cells per fold and on all training rows; store what they show.
+
+    `cells` overrides the spec's `explain.cells`; `prepared` reuses `engine.prepare(spec)`.
+    A cell explained before with the same settings (first metric, permutation repeats and
+    seed) has its rows copied instead, unless `reuse` is False. Each cell's rows are written
+    in one transaction."""
+    from joblib import Parallel, delayed
+
+    which = cells or spec.explain.cells
+    chosen = chosen_cells(store, sweep_id, which)
+    result = ExplainResult()
+    if chosen.empty:
+        return result
+    store.ensure_schema()  # a store from an older foldwise gains the explain tables
+    done = store.query("select cell_id from explained where sweep_id = ?", [sweep_id])
+    chosen = chosen[~chosen["cell_id"].isin(done["cell_id"])]  # explaining twice adds nothing
+    if chosen.empty:
+        return result
+    settings = _settings(spec)
+    if reuse:
+        copied = _reuse(store, sweep_id, chosen["cell_id"].tolist(), settings)
+        result.reused = len(copied)
+        chosen = chosen[~chosen["cell_id"].isin(copied)]
+        if chosen.empty:
+            return result
+    if prepared is None:
+        from .engine import prepare
+
+        prepared = prepare(spec)
+    frame, plan = prepared.frame, prepared.plan
+    X_train, y_train = frame.X.iloc[plan.train_rows], frame.y[plan.train_rows]
+    X_test, y_test = frame.X.iloc[plan.test_rows], frame.y[plan.test_rows]
+    common = dict(numeric=frame.numeric, categorical=frame.categorical)
+    perm = spec.explain.permutation
+    tasks = []
+    for c in chosen.itertuples(index=False):
+        params = json.loads(c.params) if isinstance(c.params, str) else dict(c.params)
+        cost = _COST.get(c.family, 0)  # the slowest tasks first, so workers finish together
+        tasks.append((-2 * cost, delayed(_refit_task)(
+            c.family, c.cell_id, params, X_train, y_train, X_test, y_test, plan.test_rows,
+            seed=refit_seed(plan.seed), metric=spec.metrics[0], repeats=perm.repeats,
+            perm_seed=perm.seed, **common)))
+        for f in plan.folds:
+            tasks.append((-cost, delayed(_fold_task)(
+                c.family, c.cell_id, params, X_train.iloc[f.fit], y_train[f.fit], seed=f.seed,
+                repeat=f.repeat, fold=f.fold, **common)))
+    tasks = [t for _, t in sorted(tasks, key=lambda pair: pair[0])]
+    per_cell: dict[str, dict[str, list]] = {}
+    failed: set[str] = set()
+    done = 0
+    if progress:
+        progress(0, len(tasks))
+    n_jobs = jobs or spec.jobs or -1
+    for cell_id, rows, problem in Parallel(n_jobs=n_jobs, return_as="generator_unordered")(tasks):
+        done += 1
+        if progress:
+            progress(done, len(tasks))
+        if problem:
+            result.problems.append(problem)
+            failed.add(cell_id)
+            continue
+        bucket = per_cell.setdefault(cell_id, {})
+        for table, table_rows in rows.items():
+            bucket.setdefault(table, []).extend(table_rows)
+    for cell_id, tables in per_cell.items():
+        if cell_id in failed:  # a cell is stored whole or not at all
+            continue
+        dfs = {t: pd.DataFrame(rows).assign(sweep_id=sweep_id) for t, rows in tables.items()
+               if rows}
+        dfs["explained"] = pd.DataFrame([{"sweep_id": sweep_id, "cell_id": cell_id,
+                                          "settings": settings, "reused_from": None}])
+        if "importances" in dfs:
+            dfs["importances"] = _spreads(dfs["importances"], dfs.get("fold_importances",
+                                                                      pd.DataFrame()))
+        store.write_batch(dfs)
+        result.cells += 1
+        for t, df in dfs.items():
+            result.rows[t] = result.rows.get(t, 0) + len(df)
+    return result
+
+
+# -- reading it back -----------------------------------------------------------------------
+
+
+def has_explain_tables(store: Store) -> bool:
+    """Whether the store has every explain table (a store from an older foldwise may not)."""
+    found = store.query("select count(distinct table_name) from information_schema.tables "
+                        "where list_contains(?::varchar[], table_name)", [list(EXPLAIN_TABLES)])
+    return int(found.iloc[0, 0]) == len(EXPLAIN_TABLES)
+
+
+def _pick_marks(store: Store, sweep_id: str) -> pd.DataFrame:
+    from .picks import picks
+
+    p = picks(store, sweep_id)
+    if p.empty:
+        return pd.DataFrame(columns=["cell_id", "picked"])
+    return (p.groupby("cell_id", sort=False)["rule"].agg(lambda r: " ".join(sorted(r)))
+            .rename("picked").reset_index())
+
+
+def importance_table(store: Store, sweep_id: str | None = None, *,
+                     method: str | None = None) -> pd.DataFrame:
+    """Every stored importance of a sweep, with model, picks and rank (1 = most important)."""
+    sweep_id = store.resolve_sweep(sweep_id)
+    if not has_explain_tables(store):
+        return pd.DataFrame(columns=["model", "family", "cell_id", "params", "complexity_rank",
+                                     "method", "feature", "value", "spread", "picked", "rank"])
+    df = store.query("""
+        select c.model, c.family, i.cell_id, c.params, c.complexity_rank, i.method, i.feature,
+               i.value, i.spread, min(c.rowid) over (partition by c.model) as model_row
+        from importances i join cells c on c.sweep_id = i.sweep_id and c.cell_id = i.cell_id
+        where i.sweep_id = ? and (?::varchar is null or i.method = ?)""",
+                     [sweep_id, method, method])
+    df = df.merge(_pick_marks(store, sweep_id), on="cell_id", how="left")
+    df["picked"] = df["picked"].fillna("")
+    df["rank"] = (df.groupby(["cell_id", "method"])["value"]
+                  .rank(ascending=False, method="min").astype(int))
+    df = df.sort_values(["model_row", "complexity_rank", "method", "rank", "feature"])
+    df = df.drop(columns="model_row").reset_index(drop=True)
+    df.attrs.update(sweep_id=sweep_id, methods=dict(METHODS))
+    return df
+
+
+def prediction_table(store: Store, sweep_id: str | None = None) -> pd.DataFrame:
+    """The stored test-split predictions of a sweep's explained cells, with model and picks."""
+    sweep_id = store.resolve_sweep(sweep_id)
+    if not has_explain_tables(store):
+        return pd.DataFrame(columns=["model", "family", "cell_id", "row", "observed",
+                                     "predicted", "picked"])
+    df = store.query("""
+        select c.model, c.family, p.cell_id, p."row", p.observed, p.predicted,
+               min(c.rowid) over (partition by c.model) as model_row
+        from test_predictions p
+        join cells c on c.sweep_id = p.sweep_id and c.cell_id = p.cell_id
+        where p.sweep_id = ? order by model_row, p.cell_id, p."row" """, [sweep_id])
+    df = df.merge(_pick_marks(store, sweep_id), on="cell_id", how="left")
+    df["picked"] = df["picked"].fillna("")
+    return df.drop(columns="model_row")
+
+
+def tree_node_table(store: Store, sweep_id: str, cell_id: str) -> pd.DataFrame:
+    """The stored nodes of one cell's refit tree, in node order."""
+    if not has_explain_tables(store):
+        return pd.DataFrame(columns=["cell_id", "node"])
+    return store.query("select * exclude (sweep_id) from tree_nodes where sweep_id = ? and "
+                       "cell_id = ? order by node", [sweep_id, cell_id])
+
+
+def tree_fold_table(store: Store, sweep_id: str | None = None) -> pd.DataFrame:
+    """Each explained pruned tree's shape per fold: leaves, depth, root split, used columns."""
+    sweep_id = store.resolve_sweep(sweep_id)
+    if not has_explain_tables(store):
+        return pd.DataFrame(columns=["model", "cell_id", "repeat", "fold", "n_leaves", "depth",
+                                     "root_feature", "root_threshold", "root_rule",
+                                     "features_used"])
+    return store.query("""
+        select c.model, t.cell_id, t."repeat", t.fold, t.n_leaves, t.depth, t.root_feature,
+               t.root_threshold, t.root_rule, t.features_used
+        from tree_folds t join cells c on c.sweep_id = t.sweep_id and c.cell_id = t.cell_id
+        where t.sweep_id = ? order by c.rowid, t."repeat", t.fold""", [sweep_id])
+

@@ -1,0 +1,195 @@
+"""The explain step: stored importances equal scikit-learn's own numbers on the same refit
+cells (source: scikit-learn's permutation_importance, coef_ and feature_importances_), and
+the fold refits reproduce what the sweep scored."""
+
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pandas as pd
+import pytest
+from sklearn.inspection import permutation_importance
+
+from runner.engine import prepare
+from runner.errors import SpecError
+from runner.explain import explain_sweep, output_sources
+from runner.families import load_family
+from runner.resampling import refit_seed
+from runner.spec import parse_spec
+
+from .helpers import spec_from
+
+
+def _refit(spec, cell):
+    """A cell's pipeline fitted on all training rows with the documented refit seed."""
+    prep = prepare(spec)
+    f, plan = prep.frame, prep.plan
+    X, y = f.X.iloc[plan.train_rows], f.y[plan.train_rows]
+    est = load_family(cell["family"]).make_estimator(
+        json.loads(cell["params"]), seed=refit_seed(plan.seed), y_fit=y, numeric=f.numeric,
+        categorical=f.categorical)
+    return est.fit(X, y), prep
+
+
+def _cells(store, sweep_id, family=None):
+    df = store.query("select c.cell_id, c.model, c.family, c.params from cells c where "
+                     "c.sweep_id = ? and c.cell_id in (select cell_id from importances where "
+                     "sweep_id = ?) order by c.rowid", [sweep_id, sweep_id])
+    return [r for r in df.to_dict("records") if family is None or r["family"] == family]
+
+
+def _stored(store, sweep_id, cell_id, method):
+    return store.query("select feature, value, spread from importances where sweep_id = ? and "
+                       "cell_id = ? and method = ?", [sweep_id, cell_id, method]
+                       ).set_index("feature")
+
+
+def test_picked_cells_of_every_model_are_explained(explained):
+    spec, store, sid = explained
+    from runner.picks import picks
+
+    assert {c["cell_id"] for c in _cells(store, sid)} == set(picks(store, sid)["cell_id"])
+    assert {c["family"] for c in _cells(store, sid)} == {"linear", "pruned_tree", "forest"}
+
+
+def test_permutation_rows_equal_scikit_learn(explained):
+    # Source: sklearn.inspection.permutation_importance on the same refit pipeline, test
+    # rows, scorer, repeats (3) and seed (7) as the spec asks.
+    spec, store, sid = explained
+    for cell in _cells(store, sid):
+        est, prep = _refit(spec, cell)
+        f, plan = prep.frame, prep.plan
+        ref = permutation_importance(est, f.X.iloc[plan.test_rows], f.y[plan.test_rows],
+                                     scoring="neg_root_mean_squared_error", n_repeats=3,
+                                     random_state=7)
+        got = _stored(store, sid, cell["cell_id"], "permutation").loc[list(f.X.columns)]
+        np.testing.assert_allclose(got["value"], ref.importances_mean, rtol=1e-12, atol=1e-12)
+        np.testing.assert_allclose(got["spread"], ref.importances_std, rtol=1e-12, atol=1e-12)
+
+
+def test_coefficient_importance_equals_pipeline_coefficients(explained):
+    # Source: the fitted pipeline's own coef_ (standardised scale): |w_j| for numbers; for
+    # the one-hot `sex`, the population SD of X_onehot @ w over the training rows.
+    spec, store, sid = explained
+    (cell, *_) = _cells(store, sid, "linear")
+    est, prep = _refit(spec, cell)
+    f, plan = prep.frame, prep.plan
+    coefs = est.named_steps["model"].coef_
+    names = list(est.named_steps["prep"].get_feature_names_out())
+    got = _stored(store, sid, cell["cell_id"], "coefficient")
+    for col in f.numeric:
+        assert got.loc[col, "value"] == pytest.approx(abs(coefs[names.index(f"num__{col}")]),
+                                                      rel=1e-12)
+    onehot = [i for i, n in enumerate(names) if n.startswith("cat__sex_")]
+    Xt = est.named_steps["prep"].transform(f.X.iloc[plan.train_rows])
+    assert len(onehot) == 2
+    assert got.loc["sex", "value"] == pytest.approx(np.std(Xt[:, onehot] @ coefs[onehot]),
+                                                    rel=1e-12)
+    # spread = sd over the fold refits of the same number
+    folds = store.query("select feature, value from fold_importances where sweep_id = ? and "
+                        "cell_id = ?", [sid, cell["cell_id"]])
+    assert folds.groupby("feature").size().eq(6).all()
+    sd = folds.groupby("feature")["value"].std(ddof=1)
+    np.testing.assert_allclose(got.loc[sd.index, "spread"], sd, rtol=1e-12)
+
+
+def test_impurity_importance_equals_feature_importances(explained):
+    # Source: the fitted tree's and forest's feature_importances_, one column per feature
+    # (ordinal-coded categories), summed back to the original columns.
+    spec, store, sid = explained
+    for cell in _cells(store, sid, "pruned_tree") + _cells(store, sid, "forest"):
+        est, prep = _refit(spec, cell)
+        sources = output_sources(est.named_steps["prep"])
+        ref = pd.Series(est.named_steps["model"].feature_importances_, index=sources)
+        got = _stored(store, sid, cell["cell_id"], "impurity")
+        np.testing.assert_allclose(got.loc[ref.index, "value"], ref, rtol=1e-12)
+        assert got["value"].sum() == pytest.approx(1.0)
+
+
+def test_fold_refits_reproduce_the_sweeps_trees(explained):
+    spec, store, sid = explained
+    both = store.query("""
+        select t.cell_id, t."repeat", t.fold, t.n_leaves, f.n_leaves as swept
+        from tree_folds t join fold_scores f on f.sweep_id = t.sweep_id and
+             f.cell_id = t.cell_id and f."repeat" = t."repeat" and f.fold = t.fold
+        where t.sweep_id = ? and f.metric = 'rmse'""", [sid])
+    assert len(both) == 6 * len(_cells(store, sid, "pruned_tree")) > 0
+    assert (both["n_leaves"] == both["swept"]).all()
+
+
+def test_stored_predictions_reproduce_test_scores(explained):
+    spec, store, sid = explained
+    df = store.query("""
+        select p.cell_id, sqrt(avg((p.predicted - p.observed) ^ 2)) as rmse, t.value,
+               count(*) as n, any_value(t.n_test) as n_test
+        from test_predictions p join test_scores t on t.sweep_id = p.sweep_id and
+             t.cell_id = p.cell_id and t.metric = 'rmse'
+        where p.sweep_id = ? group by p.cell_id, t.value""", [sid])
+    assert len(df) == len(_cells(store, sid))
+    np.testing.assert_allclose(df["rmse"], df["value"], rtol=1e-9)
+    assert (df["n"] == df["n_test"]).all()
+
+
+def test_tree_nodes_describe_the_refit_tree(explained):
+    spec, store, sid = explained
+    for cell in _cells(store, sid, "pruned_tree"):
+        est, prep = _refit(spec, cell)
+        nodes = store.query("select * from tree_nodes where sweep_id = ? and cell_id = ? "
+                            "order by node", [sid, cell["cell_id"]])
+        tree = est.named_steps["model"]
+        assert len(nodes) == tree.tree_.node_count
+        assert (nodes["left_child"] < 0).sum() == tree.get_n_leaves()
+        assert nodes.loc[0, "n_samples"] == prep.plan.n_train and nodes.loc[0, "parent"] == -1
+        inner = nodes[nodes["left_child"] >= 0]
+        assert inner["rule"].notna().all() and nodes["depth"].max() == tree.get_depth()
+
+
+def test_explain_none_then_all(tmp_path, diabetes_csv):
+    spec = spec_from(tmp_path, "ridge: {family: linear, grid: {penalty: l2, alpha: [1.0, 100.0]}}",
+                     extra="explain: {cells: none}\n")
+    from runner.engine import run_sweep
+    from runner.store import Store
+
+    result = run_sweep(spec, jobs=1)
+    store = Store(result.store_path)
+    assert store.query("select count(*) from importances").iloc[0, 0] == 0
+    done = explain_sweep(spec, store, result.sweep_id, cells="all", jobs=1)
+    assert done.cells == 2 and not done.problems
+    per_cell = store.query("select cell_id, count(*) as n from importances group by cell_id")
+    assert len(per_cell) == 2 and (per_cell["n"] == 2 * 10).all()  # 10 columns x 2 methods
+
+
+@pytest.mark.parametrize("explain, message", [
+    ("{cells: some}", "explain.cells"),
+    ("{permutation: {repeats: 0}}", "explain.permutation.repeats"),
+    ("{cell: all}", "unknown field 'cell'"),
+])
+def test_explain_field_is_validated(explain, message):
+    text = ("name: x\ndata: {path: d.csv, target: y}\ntest: {fraction: 0.2}\n"
+            f"explain: {explain}\nmodels: {{m: {{family: linear}}}}\n")
+    with pytest.raises(SpecError, match=message.replace(".", r"\.")):
+        parse_spec(text)
+
+
+def test_rerun_copies_explain_rows_instead_of_refitting(tmp_path, diabetes_csv):
+    from runner.engine import run_sweep
+    from runner.store import Store
+
+    spec = spec_from(tmp_path, "ridge: {family: linear, grid: {penalty: l2, alpha: [1.0, 100.0]}}")
+    store = Store(tmp_path / "store.duckdb")
+    first = run_sweep(spec, store=store, jobs=1)
+    again = run_sweep(spec, store=store, jobs=1)
+    marks = store.query("select sweep_id, coalesce(reused_from, '') as source from explained "
+                        "order by sweep_id")
+    assert len(marks) == 4  # best and one-SE picks of both sweeps (ridge: 2 cells)
+    assert marks["source"].tolist() == ["", "", first.sweep_id, first.sweep_id]
+    rows = store.query("select sweep_id, cell_id, feature, method, value, spread "
+                       "from importances order by all")
+    a, b = (rows[rows.sweep_id == s].drop(columns="sweep_id").reset_index(drop=True)
+            for s in (first.sweep_id, again.sweep_id))
+    pd.testing.assert_frame_equal(a, b)
+    assert explain_sweep(spec, store, again.sweep_id, jobs=1).cells == 0  # already done
+    fresh = run_sweep(spec, store=store, jobs=1, fresh=True)
+    marks = store.query("select reused_from from explained where sweep_id = ?", [fresh.sweep_id])
+    assert len(marks) == 2 and marks["reused_from"].isna().all()

@@ -1,0 +1,78 @@
+"""Figures: every kind renders to a PNG of the size asked for, and what a figure draws is what
+the store holds (the one-SE threshold line is the pick's threshold)."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from click.testing import CliRunner
+from PIL import Image
+
+from runner.cli import main
+from runner.errors import QueryError
+from runner.picks import complexity_table, picks
+from runner.plots import KINDS, complexity_figure, make_figure, models_figure, save_figure
+
+OPTIONS = {"complexity": {"model": "tree"}, "models": {}, "importance": {},
+           "predictions": {}, "tree": {"depth": 2}}
+
+
+@pytest.mark.parametrize("kind", sorted(KINDS))
+def test_every_kind_renders_a_png_of_its_size(explained, tmp_path, kind):
+    _, store, sid = explained
+    fig = make_figure(kind, store, sid, **OPTIONS[kind])
+    (png, svg) = save_figure(fig, tmp_path / kind, ("png", "svg"), dpi=80)
+    width, height = fig.get_size_inches() * 80
+    with Image.open(png) as im:
+        assert im.size == (round(width), round(height))
+        pixels = np.asarray(im.convert("L"), dtype=float)
+    assert pixels.std() > 5  # not a blank page
+    assert svg.read_text().lstrip().startswith("<?xml") and svg.stat().st_size > 2000
+
+
+@pytest.mark.parametrize("model", ["ridge", "tree"])
+def test_one_se_threshold_line_is_the_picks_threshold(explained, model):
+    _, store, sid = explained
+    fig = complexity_figure(store, model, sid)
+    (ax,) = fig.axes
+    (line,) = [ln for ln in ax.get_lines() if ln.get_gid() == "one_se_threshold"]
+    threshold = picks(store, sid, rule="one_se", model=model)["threshold"].iloc[0]
+    assert set(line.get_ydata()) == {threshold}
+    table = complexity_table(store, model, sid)
+    for rule in ("best", "one_se"):
+        (mark,) = [ln for ln in ax.get_lines() if ln.get_gid() == f"pick_{rule}"]
+        picked = table[table["pick"].str.split().map(lambda r, rule=rule: rule in r)]
+        assert mark.get_ydata()[0] == picked["mean"].iloc[0]
+
+
+def test_models_figure_draws_every_fold_score(explained):
+    _, store, sid = explained
+    fig = models_figure(store, sid, rule="best")
+    points = np.concatenate([c.get_offsets()[:, 1] for c in fig.axes[0].collections
+                             if c.get_offsets().shape[0] == 6])
+    chosen = picks(store, sid, rule="best")
+    stored = store.query("select value from fold_scores where sweep_id = ? and metric = 'rmse' "
+                         "and list_contains(?::varchar[], cell_id)",
+                         [sid, chosen["cell_id"].tolist()])["value"]
+    assert sorted(points) == pytest.approx(sorted(stored))
+
+
+def test_unknown_kind_and_missing_rows_are_refused(explained, tmp_path):
+    _, store, sid = explained
+    with pytest.raises(QueryError, match="unknown plot kind 'pie'"):
+        make_figure("pie", store, sid)
+    with pytest.raises(QueryError, match="method must be one of"):
+        make_figure("importance", store, sid, method="gain")
+
+
+def test_plot_command_writes_files_and_prints_paths(explained, tmp_path):
+    _, store, sid = explained
+    out = CliRunner().invoke(main, ["plot", "complexity", "--store", str(store.path),
+                                    "--out-dir", str(tmp_path), "--image", "png"])
+    assert out.exit_code == 0, out.output
+    paths = out.output.split()
+    assert [p.rsplit("-", 1)[-1] for p in paths] == ["ridge.png", "tree.png", "forest.png"]
+    assert all((tmp_path / p.rsplit("/", 1)[-1]).stat().st_size > 0 for p in paths)
+    out = CliRunner().invoke(main, ["plot", "models", "--model", "tree", "--store",
+                                    str(store.path)])
+    assert out.exit_code == 2 and "--model is only for the complexity and tree kinds" in out.output
