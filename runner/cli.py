@@ -85,12 +85,23 @@ def check(spec_file):
 @click.option("--jobs", "-j", type=click.IntRange(min=-1), default=None,
               help="Parallel worker processes [default: the spec's `jobs`, else all cores].")
 @click.option("--quiet", "-q", is_flag=True, help="No progress bar and no summary.")
-def run(spec_file, store_path, jobs, quiet):
+@click.option("--paths/--no-paths", default=True, show_default=True,
+              help="Score path grids (pruning alphas, forest sizes, linear alphas) from one "
+                   "fit per fold; --no-paths fits every cell on its own, for checking.")
+@click.option("--fresh", is_flag=True,
+              help="Refit every cell even if the store already holds its results.")
+def run(spec_file, store_path, jobs, quiet, paths, fresh):
     """Run a sweep: score every cell on every fold and on the test split.
 
     \b
       foldwise run specs/greenhouse.yaml
       foldwise run specs/greenhouse.yaml --jobs 2 --store results/team.duckdb
+      foldwise run specs/greenhouse.yaml --no-paths
+      foldwise run specs/greenhouse.yaml --fresh
+
+    Cells whose results the store already holds (same family, params, data and plan) are
+    copied into the new sweep instead of refitted, so a rerun after a crash or a grid change
+    fits only what is missing.
     """
     from .engine import run_sweep, store_path as spec_store
     from .spec import load_spec
@@ -98,24 +109,15 @@ def run(spec_file, store_path, jobs, quiet):
 
     spec = load_spec(spec_file)
     store = Store(spec_store(spec, store_path), on_wait=lambda m: click.echo(m, err=True))
-    if quiet:
-        result = run_sweep(spec, store=store, jobs=jobs)
-    else:
-        from rich.progress import (BarColumn, MofNCompleteColumn, Progress, TextColumn,
-                                   TimeElapsedColumn, TimeRemainingColumn)
-
-        columns = (TextColumn(f"[bold]{spec.name}"), BarColumn(), MofNCompleteColumn(),
-                   TextColumn("tasks"), TimeElapsedColumn(), TimeRemainingColumn())
-        with Progress(*columns, transient=True,
-                      console=_stderr_console()) as bar:
-            task = bar.add_task("sweep", total=None)
-
-            def progress(done, total):
-                bar.update(task, completed=done, total=total)
-
-            result = run_sweep(spec, store=store, jobs=jobs, progress=progress)
+    bar = None if quiet else _ProgressBar(spec.name)
+    try:
+        result = run_sweep(spec, store=store, jobs=jobs, progress=bar, paths=paths, fresh=fresh)
+    finally:
+        if bar is not None:
+            bar.close()
+    reused = f" ({result.n_reused} reused from earlier sweeps)" if result.n_reused else ""
     click.echo(f"sweep {result.sweep_id} {result.status} in {result.seconds:.1f} s: "
-               f"{result.n_cells} cells, {result.n_fold_rows} fold-score rows, "
+               f"{result.n_cells} cells{reused}, {result.n_fold_rows} fold-score rows, "
                f"{result.n_test_rows} test-score rows -> {result.store_path}")
     if result.n_failed_fits:
         click.echo(f"warning: {result.n_failed_fits} fits failed; see "
@@ -124,10 +126,30 @@ def run(spec_file, store_path, jobs, quiet):
         _print_summary(store, result.sweep_id, "table")
 
 
-def _stderr_console():
-    from rich.console import Console
+class _ProgressBar:
+    """A rich progress bar on stderr, shown from the first task on (not while validating)."""
 
-    return Console(file=sys.stderr)
+    def __init__(self, title: str):
+        self.title = title
+        self._bar = None
+
+    def __call__(self, done: int, total: int) -> None:
+        if self._bar is None:
+            from rich.console import Console
+            from rich.progress import (BarColumn, MofNCompleteColumn, Progress, TextColumn,
+                                       TimeElapsedColumn, TimeRemainingColumn)
+
+            self._bar = Progress(TextColumn(f"[bold]{self.title}"), BarColumn(),
+                                 MofNCompleteColumn(), TextColumn("tasks"), TimeElapsedColumn(),
+                                 TimeRemainingColumn(), transient=True,
+                                 console=Console(file=sys.stderr))
+            self._bar.start()
+            self._task = self._bar.add_task("sweep", total=total)
+        self._bar.update(self._task, completed=done, total=total)
+
+    def close(self) -> None:
+        if self._bar is not None:
+            self._bar.stop()
 
 
 def _defaults(family: str) -> dict:
@@ -143,13 +165,20 @@ def _print_summary(store, sweep_id, fmt):
     df = summary_df(store, sweep_id)
     metrics = df.attrs.get("metrics", [])
     display = df[["model", "family", "cells"]].copy()
-    display["best cell"] = [params_text(p, hide=_defaults(f)) for p, f in zip(df["params"], df["family"])]
+    display["picked cell"] = [params_text(p, hide=_defaults(f)) for p, f in zip(df["params"], df["family"])]
     for m in metrics:
         display[f"CV {m} (mean ± SE)"] = [mean_se(a, b) for a, b in zip(df[f"cv_{m}"], df[f"se_{m}"])]
         display[f"test {m}"] = df[f"test_{m}"]
-    title = (f"sweep {df.attrs.get('sweep_id')}: best cell per model by CV "
-             f"{df.attrs.get('primary_metric')}")
+    if "failed_cells" in df and df["failed_cells"].any():
+        display.insert(3, "failed cells", df["failed_cells"])
+    title = (f"sweep {df.attrs.get('sweep_id')}: picked cell per model (rule "
+             f"{df.attrs.get('rule')}) by CV {df.attrs.get('primary_metric')}")
     emit(df, fmt, title=title, display=display)
+    if fmt == "table":
+        for model in df.attrs.get("unpicked", []):
+            click.echo(f"note: model '{model}' has no cell to pick: every cell has a failed "
+                       "fit or missing folds (see `foldwise sql \"select * from failures\"`).",
+                       err=True)
 
 
 @main.command()
@@ -157,7 +186,7 @@ def _print_summary(store, sweep_id, fmt):
 @click.option("--sweep", "sweep_id", default=None, help="Sweep id or unique prefix [default: latest].")
 @_format_option
 def summary(store_path, sweep_id, fmt):
-    """Summarise a sweep by model: each model's best cell, CV mean ± SE and test scores.
+    """Summarise a sweep by model: each model's picked cell, CV mean ± SE and test scores.
 
     \b
       foldwise summary
@@ -189,13 +218,274 @@ def sweeps(store_path, fmt):
 def sql(query, store_path, fmt, allow_files):
     """Run one read-only SQL query against the store.
 
-    Tables: sweeps, cells, fold_scores, test_scores, failures, importances, metrics;
-    view: cell_summary.
+    Tables: sweeps, cells, fold_scores, test_scores, failures, importances, metrics,
+    fold_importances, tree_folds, tree_nodes, test_predictions; view: cell_summary.
 
     \b
       foldwise sql "select model, metric, avg(value) from fold_scores join cells using (sweep_id, cell_id) group by all"
     """
     emit(_open_store(store_path).user_query(query, allow_files=allow_files), fmt)
+
+
+# -- picks, comparisons and the complexity table -------------------------------------------
+_RULES = ("best", "one_se")
+_SE_KINDS = ("plain", "corrected")
+
+
+def _sweep_option(f):
+    return click.option("--sweep", "sweep_id", default=None,
+                        help="Sweep id or unique prefix [default: latest].")(f)
+
+
+def _se_option(f):
+    return click.option("--se", type=click.Choice(_SE_KINDS), default="plain", show_default=True,
+                        help="SE for the one-SE rule: plain = sd/sqrt(k·r); corrected = "
+                             "sqrt((1/(k·r) + n_valid/n_train)·sd²).")(f)
+
+
+def _warn_unpicked(df) -> None:
+    for model in df.attrs.get("unpicked", []):
+        click.echo(f"warning: model '{model}' has no cell with all folds scored and no failed "
+                   "fits, so nothing was picked; see `foldwise path --model "
+                   f"{model}`.", err=True)
+
+
+def _cell_text(params, keep, leaves) -> str:
+    """A picked cell as the params that vary in its model's grid, plus mean leaves."""
+    values = json.loads(params) if isinstance(params, str) else dict(params)
+    kept = {k: v for k, v in values.items() if k in keep}
+    text = params_text(kept) if kept else "(single cell)"
+    if leaves is not None and leaves == leaves:
+        text += f" ({leaves:.3g} leaves)"
+    return text
+
+
+def _value_text(value) -> str:
+    if value is None or (isinstance(value, float) and value != value):
+        return "none"
+    if isinstance(value, float):
+        return f"{value:.6g}"
+    return str(value)
+
+
+@main.command()
+@_store_option
+@_sweep_option
+@click.option("--rule", type=click.Choice(_RULES), default=None,
+              help="Show one rule only [default: best and one_se side by side].")
+@click.option("--model", default=None, help="Only this model.")
+@_se_option
+@_format_option
+def pick(store_path, sweep_id, rule, model, se, fmt):
+    """Show each model's picked cell: the best one and the simplest within one SE of it.
+
+    \b
+      foldwise pick
+      foldwise pick --rule one_se --model tree
+      foldwise pick --se corrected --format json
+    """
+    import pandas as pd
+
+    from .picks import picks, varying_params
+
+    store = _open_store(store_path)
+    df = picks(store, sweep_id, rule=rule, se=se, model=model)
+    a = df.attrs
+    varying = varying_params(store, a["sweep_id"])
+    m = a["metric"]
+    title = (f"sweep {a['sweep_id']}: picks by CV {m} ({a['better']} is better, {se} SE; "
+             f"rank 0 = simplest; the sweep's rule is {a['default_rule']})")
+    shown = []
+    for _, group in df.groupby("model", sort=False):
+        row = {"model": group["model"].iloc[0], "family": group["family"].iloc[0]}
+        for r in group.itertuples(index=False):
+            label = "one-SE" if r.rule == "one_se" else "best"
+            prefix = f"{label} " if rule is None else ""
+            if rule is not None:
+                row["rule"] = r.rule
+            row[f"{prefix}cell"] = _cell_text(r.params, varying.get(r.model, []), r.mean_leaves)
+            row[f"{prefix}rank"] = int(r.complexity_rank)
+            row[f"{prefix}CV {m} (mean ± SE)"] = mean_se(r.mean, r.se)
+            row[f"{prefix}test {m}"] = r.test
+        if rule == "one_se":
+            row["within 1 SE"] = f"{group['n_within'].iloc[0]} of {group['eligible'].iloc[0]}"
+        shown.append(row)
+    emit(df, fmt, title=title, display=pd.DataFrame(shown))
+    _warn_unpicked(df)
+
+
+@main.command()
+@_store_option
+@_sweep_option
+@click.option("--rule", type=click.Choice(_RULES), default=None,
+              help="Which cell of each model to compare [default: the sweep's rule].")
+@click.option("--metric", default=None,
+              help="Compare on this metric [default: the sweep's first metric].")
+@_se_option
+@_format_option
+def compare(store_path, sweep_id, rule, metric, se, fmt):
+    """Compare every pair of models on identical folds, with the corrected resampled t-test.
+
+    \b
+      foldwise compare
+      foldwise compare --rule best --metric mae --format csv
+    """
+    import pandas as pd
+
+    from .compare import compare as compare_df
+
+    df = compare_df(_open_store(store_path), sweep_id, rule=rule, se=se, metric=metric)
+    a = df.attrs
+    m = a["metric"]
+
+    display = pd.DataFrame({
+        "pair (a vs b)": [f"{x} vs {y}" for x, y in zip(df["model_a"], df["model_b"])],
+        "folds": df["folds"],
+        f"CV {m} a − b (mean ± SE)": [mean_se(d, e) for d, e in zip(df["mean_diff"], df["se"])],
+        "t": df["t"], "p": df["p_value"],
+        "folds won a : b": [f"{x} : {y}" for x, y in zip(df["wins_a"], df["wins_b"])],
+        f"test {m} a − b": df["test_diff"]})
+    title = (f"sweep {a['sweep_id']}: {a['rule']} cells paired on {a['n_folds']} folds, CV {m} "
+             f"({a['better']} is better); corrected resampled t-test, df = {a['n_folds'] - 1}")
+    emit(df, fmt, title=title, display=display)
+    note = f"note: {a['note']}"
+    if fmt == "table":
+        for line in df["in_words"]:
+            click.echo(f"  {line}")
+        click.echo(note)
+    else:
+        click.echo(note, err=True)
+    _warn_unpicked(df)
+
+
+@main.command()
+@click.option("--model", required=True, help="The model whose cells to list.")
+@_store_option
+@_sweep_option
+@click.option("--metric", default=None,
+              help="Show this metric's scores [default: the sweep's first; marks always "
+                   "follow the first].")
+@_se_option
+@_format_option
+def path(model, store_path, sweep_id, metric, se, fmt):
+    """List one model's cells in complexity order, simplest first, marking the picks.
+
+    \b
+      foldwise path --model tree
+      foldwise path --model forest --metric r2 --format csv
+    """
+    import pandas as pd
+
+    from .picks import complexity_table
+
+    df = complexity_table(_open_store(store_path), model, sweep_id, se=se, metric=metric)
+    a = df.attrs
+    m = a["metric"]
+
+    display = pd.DataFrame({"rank": df["complexity_rank"]})
+    for name in a["shown_params"]:
+        display[name] = [_value_text(v) for v in df[name]]
+    display[f"CV {m} (mean ± SE)"] = [mean_se(x, e) for x, e in zip(df["mean"], df["se"])]
+    if df["mean_leaves"].notna().any():
+        display["leaves"] = [_value_text(round(v, 1)) if v == v else "" for v in df["mean_leaves"]]
+    display[f"test {m}"] = df["test"]
+    display["within 1 SE"] = ["yes" if w else "" for w in df["within_one_se"]]
+    display["pick"] = df["pick"]
+    if (df["excluded"] != "").any():
+        display["excluded"] = df["excluded"]
+    bar = a.get("threshold")
+    op = "≤" if a["pick_better"] == "lower" else "≥"
+    bar_text = f"; one-SE threshold: CV {a['pick_metric']} {op} {bar:.4g}" if bar is not None else ""
+    title = (f"{model} ({a['family']}), simplest first: sweep {a['sweep_id']}, CV {m}, "
+             f"{se} SE{bar_text}")
+    emit(df, fmt, title=title, display=display)
+    if fmt == "table" and a.get("fixed_params"):
+        click.echo("other params at their defaults: " +
+                   ", ".join(f"{k}={_value_text(v)}" for k, v in a["fixed_params"].items()))
+
+
+# -- figures and the report ----------------------------------------------------------------
+_PLOT_KINDS = ("complexity", "models", "importance", "predictions", "tree")
+_IMPORTANCE_METHODS = ("permutation", "impurity", "coefficient")
+
+
+@main.command()
+@click.argument("kind", type=click.Choice(_PLOT_KINDS))
+@_store_option
+@_sweep_option
+@click.option("--model", default=None,
+              help="complexity: only this model [default: one figure per model]; tree: this "
+                   "pruned_tree model [default: the first].")
+@click.option("--rule", type=click.Choice(_RULES), default=None,
+              help="Which picked cell stands for each model [default: the sweep's rule].")
+@click.option("--method", type=click.Choice(_IMPORTANCE_METHODS), default="permutation",
+              show_default=True, help="importance: which importance to draw.")
+@click.option("--depth", type=click.IntRange(1, 12), default=3, show_default=True,
+              help="tree: levels drawn before deeper branches are summarised.")
+@_se_option
+@click.option("--out-dir", type=click.Path(file_okay=False), default="results/plots",
+              show_default=True, help="Folder for the image files (created if missing).")
+@click.option("--image", "images", type=click.Choice(("png", "svg")), multiple=True,
+              help="Image format; repeat for both [default: png and svg].")
+def plot(kind, store_path, sweep_id, model, rule, method, depth, se, out_dir, images):
+    """Draw one kind of figure of a sweep to PNG and SVG files and print their paths.
+
+    Kinds: complexity (CV error against complexity, picks and one-SE threshold), models
+    (fold scores of each model's picked cell), importance, predictions (test split) and
+    tree (the picked pruned tree).
+
+    \b
+      foldwise plot models
+      foldwise plot complexity --model tree --image png
+      foldwise plot importance --method impurity --out-dir figures
+    """
+    from pathlib import Path
+
+    from .plots import make_figure, save_figure
+
+    if model is not None and kind not in ("complexity", "tree"):
+        raise click.UsageError("--model is only for the complexity and tree kinds.")
+    store = _open_store(store_path)
+    sid = store.resolve_sweep(sweep_id)
+    if kind == "complexity":
+        models = [model] if model else store.query(
+            "select model from cells where sweep_id = ? group by model order by min(rowid)",
+            [sid])["model"].tolist()
+        jobs = [(dict(model=m, se=se), f"{kind}-{m}") for m in models]
+    elif kind == "tree":
+        jobs = [(dict(rule=rule, model=model, depth=depth), kind)]
+    elif kind == "importance":
+        jobs = [(dict(rule=rule, method=method), f"{kind}-{method}")]
+    else:
+        jobs = [(dict(rule=rule), kind)]
+    for options, name in jobs:
+        fig = make_figure(kind, store, sid, **options)
+        for path in save_figure(fig, Path(out_dir) / f"{sid}-{name}", images or ("png", "svg")):
+            click.echo(str(path))
+
+
+@main.command()
+@_store_option
+@_sweep_option
+@click.option("--out", "out_path", type=click.Path(dir_okay=False), default=None,
+              help="The HTML file to write [default: results/report-<sweep id>.html].")
+@_se_option
+def report(store_path, sweep_id, out_path, se):
+    """Write a self-contained HTML report of a sweep: decision, picks, comparisons,
+    complexity curves, importance, stability, test predictions and cautions.
+
+    One file with inline figures and styles, no scripts and no network access.
+
+    \b
+      foldwise report
+      foldwise report --sweep 20261202 --out report.html
+    """
+    from .report import write_report
+
+    store = _open_store(store_path)
+    sid = store.resolve_sweep(sweep_id)
+    path = write_report(store, out_path or f"results/report-{sid}.html", sid, se=se)
+    click.echo(f"{path} ({path.stat().st_size / 1024:.0f} KiB)")
 
 
 @main.command()

@@ -3,11 +3,23 @@
 It loads the data, builds the plan, expands the grid, then runs one task per (model,
 repeat, fold) plus one refit task per model on a joblib backend. Each task fits the model's
 cells on the fold's fitting rows, scores the validation rows with every metric and hands
-back plain rows, which are written to the store in batches as tasks finish."""
+back plain rows, which are written to the store in batches as tasks finish. When a few
+large tasks would leave workers idle, a (model, fold) is cut into several tasks along
+its work units (a path group is never cut), and the largest tasks are dispatched first.
+
+Within a task the family decides how each cell is fitted: where the model's grid varies a
+path parameter (a tree's pruning strength, a forest's size, a linear model's alpha), the
+cells that share every other parameter are scored from one fit (`families/paths.py`), with
+the same results as one fit per cell; otherwise, or with `paths=False`, each cell is fitted
+on its own. Every score row records the route in `how` ("plain", "tree_path",
+"forest_prefix", "ridge_svd", "enet_path"). A grouped cell's `fit_seconds` is an equal
+share of its group's time (see `families._base.fit_grouped`)."""
 
 from __future__ import annotations
 
 import getpass
+import math
+import os
 import platform
 import secrets
 import socket
@@ -24,7 +36,7 @@ from .data import Frame, load_frame
 from .errors import FoldwiseError
 from .families import FAMILIES, load_family
 from .grid import Cell, count_cells, expand_spec, spread_along_path
-from .resampling import REFIT, Plan, make_plan, refit_seed
+from .resampling import REFIT, Fold, Plan, make_plan, refit_seed
 from .spec import METRICS, Spec
 from .store import DEFAULT_STORE, Store
 
@@ -75,6 +87,8 @@ class SweepResult:
     n_test_rows: int
     n_failed_fits: int
     seconds: float
+    n_reused: int = 0  # cells whose every row was copied from earlier sweeps
+    n_fitted: int = 0  # cells with at least one fold or refit computed by this sweep
 
 
 def _path_resolver(spec: Spec, frame: Frame, plan: Plan):
@@ -105,6 +119,7 @@ def check_spec(spec: Spec) -> tuple[pd.DataFrame, dict]:
     """The plan of a sweep without fitting anything: cells and fits per model, plus facts."""
     frame = load_frame(spec)
     plan = make_plan(spec, frame)
+    Store(store_path(spec)).check_writable()
     n_folds = plan.k * plan.repeats
     rows = []
     for label, model in spec.models.items():
@@ -139,44 +154,112 @@ def _versions() -> dict:
 
 
 def _run_task(family: str, cells: list[tuple[str, dict]], X_fit, y_fit, X_eval, y_eval, *,
-              seed: int, repeat: int, fold: int, metrics: list[str], numeric, categorical):
-    """Fit a model's cells on one fold (or the refit) and return its score rows."""
+              seed: int, repeat: int, fold: int, metrics: list[str], numeric, categorical,
+              paths: bool = True):
+    """Fit some of a model's cells on one fold (or the refit) and return their score rows."""
+    from sklearn import config_context
+
     module = load_family(family)
     fits = module.fit_cells([p for _, p in cells], X_fit, y_fit, [X_eval], seed=seed,
-                            numeric=numeric, categorical=categorical)
+                            numeric=numeric, categorical=categorical, paths=paths)
     scores, failures = [], []
-    for (cid, _), fit in zip(cells, fits):
-        if fit.error is not None:
-            failures.append({"cell_id": cid, "repeat": repeat, "fold": fold,
-                             "kind": fit.error_kind, "message": fit.error})
-            continue
-        pred = fit.predictions[0]
-        for metric in metrics:
-            scores.append({"cell_id": cid, "repeat": repeat, "fold": fold, "metric": metric,
-                           "value": score(metric, y_eval, pred), "fit_seconds": fit.fit_seconds,
-                           "n_train": len(y_fit), "n_valid": len(y_eval), "seed": seed,
-                           "n_leaves": fit.n_leaves})
+    # The metric arguments are ours and valid: skip the per-call parameter checks (values
+    # are computed exactly as before; only the argument validation is skipped).
+    with config_context(skip_parameter_validation=True):
+        for (cid, _), fit in zip(cells, fits):
+            if fit.error is not None:
+                failures.append({"cell_id": cid, "repeat": repeat, "fold": fold,
+                                 "kind": fit.error_kind, "message": fit.error})
+                continue
+            pred = fit.predictions[0]
+            for metric in metrics:
+                scores.append({"cell_id": cid, "repeat": repeat, "fold": fold,
+                               "metric": metric, "value": score(metric, y_eval, pred),
+                               "fit_seconds": fit.fit_seconds, "n_train": len(y_fit),
+                               "n_valid": len(y_eval), "seed": seed,
+                               "n_leaves": fit.n_leaves, "how": fit.how,
+                               "n_warnings": fit.n_warnings})
     return scores, failures
 
 
-def _tasks(prep: Prepared):
-    """(model, repeat, fold) tasks for every fold, then one refit task per model."""
-    frame, plan, spec = prep.frame, prep.plan, prep.spec
-    X_train = frame.X.iloc[plan.train_rows]
-    y_train = frame.y[plan.train_rows]
+@dataclass(frozen=True)
+class _Task:
+    """Some cells of one model on one fold (or the refit: fold None), with a rough cost."""
+
+    family: str
+    cells: list[tuple[str, dict]]
+    fold: Fold | None
+    cost: float
+
+
+_TASKS_PER_WORKER = 8
+"""Cut tasks so that the sweep has at least about this many per worker (when it can)."""
+
+
+def _pack(units: list[tuple[list[int], float]], pieces: int) -> list[tuple[float, list[int]]]:
+    """(cost, cell positions) of `pieces` bins of similar cost (largest unit first into the
+    lightest bin); a unit - one cell or one path group - is never split."""
+    bins: list[list] = [[0.0, []] for _ in range(pieces)]
+    for members, cost in sorted(units, key=lambda u: -u[1]):
+        lightest = min(bins, key=lambda b: b[0])
+        lightest[0] += cost
+        lightest[1].extend(members)
+    return [(cost, sorted(members)) for cost, members in bins if members]
+
+
+def _plan_tasks(prep: Prepared, *, paths: bool = True, n_workers: int = 1,
+                done: frozenset = frozenset()) -> list[_Task]:
+    """One task per (model, repeat, fold) plus one refit per model, largest first.
+
+    A (model, fold) whose share of the work is large next to what each worker should get
+    is cut into several tasks along its work units (path groups stay whole), so that a
+    sweep with few models still keeps every worker busy to the end; with cost estimates
+    from the families, the largest tasks are dispatched first."""
+    plan = prep.plan
     by_model: dict[str, list[Cell]] = {}
     for cell in prep.cells:
         by_model.setdefault(cell.model, []).append(cell)
-    common = dict(metrics=spec.metrics, numeric=frame.numeric, categorical=frame.categorical)
-    for label, cells in by_model.items():
-        family = cells[0].family
-        pairs = [(c.cell_id, c.params) for c in cells]
-        for f in plan.folds:
-            yield (family, pairs, X_train.iloc[f.fit], y_train[f.fit], X_train.iloc[f.valid],
-                   y_train[f.valid], dict(seed=f.seed, repeat=f.repeat, fold=f.fold, **common))
-        yield (family, pairs, X_train, y_train, frame.X.iloc[plan.test_rows],
-               frame.y[plan.test_rows],
-               dict(seed=refit_seed(plan.seed), repeat=REFIT, fold=REFIT, **common))
+    base = []
+    for all_cells in by_model.values():
+        family = all_cells[0].family
+        for fold in (*plan.folds, None):
+            key = (fold.repeat, fold.fold) if fold is not None else (REFIT, REFIT)
+            cells = [c for c in all_cells if (c.cell_id, *key) not in done]
+            if not cells:
+                continue
+            units = load_family(family).fit_units([c.params for c in cells], paths=paths)
+            per_row = sum(cost for _, cost in units)
+            rows = len(fold.fit) if fold is not None else plan.n_train
+            base.append((family, cells, units, fold, per_row * rows, rows))
+    total = sum(b[4] for b in base)
+    target = total / (_TASKS_PER_WORKER * n_workers) if n_workers > 1 else 0.0
+    tasks = []
+    for family, cells, units, fold, cost, rows in base:
+        pieces = min(len(units), max(1, math.ceil(cost / target - 1e-9))) if target > 0 else 1
+        for unit_cost, chunk in _pack(units, pieces):
+            tasks.append(_Task(family, [(cells[i].cell_id, cells[i].params) for i in chunk],
+                               fold, unit_cost * rows))
+    tasks.sort(key=lambda t: -t.cost)  # stable: equal costs keep spec and fold order
+    return tasks
+
+
+def _calls(prep: Prepared, tasks: list[_Task], *, paths: bool):
+    """`_run_task` arguments per task, each task's rows sliced only as joblib asks for it."""
+    frame, plan = prep.frame, prep.plan
+    X_train = frame.X.iloc[plan.train_rows]
+    y_train = frame.y[plan.train_rows]
+    common = dict(metrics=prep.spec.metrics, numeric=frame.numeric,
+                  categorical=frame.categorical, paths=paths)
+    for task in tasks:
+        f = task.fold
+        if f is not None:
+            yield ((task.family, task.cells, X_train.iloc[f.fit], y_train[f.fit],
+                    X_train.iloc[f.valid], y_train[f.valid]),
+                   dict(seed=f.seed, repeat=f.repeat, fold=f.fold, **common))
+        else:
+            yield ((task.family, task.cells, X_train, y_train, frame.X.iloc[plan.test_rows],
+                    frame.y[plan.test_rows]),
+                   dict(seed=refit_seed(plan.seed), repeat=REFIT, fold=REFIT, **common))
 
 
 def _new_sweep_id() -> str:
@@ -185,14 +268,23 @@ def _new_sweep_id() -> str:
 
 def run_sweep(spec: Spec, *, store: Store | None = None, jobs: int | None = None,
               progress: Progress | None = None,
-              on_message: Callable[[str], None] | None = None) -> SweepResult:
-    """Score every cell of the spec on every fold and on the test split, into the store."""
-    from joblib import Parallel, delayed
+              on_message: Callable[[str], None] | None = None,
+              paths: bool = True, fresh: bool = False,
+              batch_seconds: float = 1.0) -> SweepResult:
+    """Score every cell of the spec on every fold and on the test split, into the store.
+
+    Results an earlier sweep already holds for the same cell id (same family, params, data
+    and plan) and fold are copied, not refitted, unless `fresh`. `paths=False` fits every
+    cell on its own instead of scoring path grids from one fit (same results; for
+    checking, so it also copies nothing). Finished tasks are written at least every `batch_seconds`."""
+    from joblib import Parallel, delayed, effective_n_jobs
 
     start = time.perf_counter()
     prep = prepare(spec)
     store = store or Store(store_path(spec), on_wait=on_message)
     store.ensure_schema()
+    host = socket.gethostname()
+    store.mark_interrupted(host, _process_alive)
     sweep_id = _new_sweep_id()
     plan = prep.plan
     cells_df = pd.DataFrame([{"sweep_id": sweep_id, "cell_id": c.cell_id, "model": c.model,
@@ -206,12 +298,16 @@ def run_sweep(spec: Spec, *, store: Store | None = None, jobs: int | None = None
         "n_train": plan.n_train, "n_test": plan.n_test, "k": plan.k, "repeats": plan.repeats,
         "plan_seed": plan.seed, "metrics": ",".join(spec.metrics), "pick_rule": spec.pick,
         "started_at": datetime.now(), "finished_at": None, "status": "running",
-        "versions": _versions(), "host": socket.gethostname(), "user_name": _user()},
+        "versions": _versions(), "host": host, "user_name": _user(), "pid": os.getpid()},
         cells_df, {m: METRICS[m] for m in spec.metrics})
+    # A --no-paths sweep is a check of the path evaluators: it refits every cell, never
+    # copying rows that an earlier sweep may have scored through a path.
+    done, reused, copied = _reuse(store, sweep_id, prep, fresh=fresh or not paths)
 
-    tasks = list(_tasks(prep))
+    n_jobs = jobs or spec.jobs or -1
+    tasks = _plan_tasks(prep, paths=paths, n_workers=effective_n_jobs(n_jobs), done=done)
     total = len(tasks)
-    counts = {"fold": 0, "test": 0, "failed": 0}
+    counts = {"fold": copied[0], "test": copied[1], "failed": 0}
     buffer: list = []
     last_flush = time.monotonic()
 
@@ -238,21 +334,23 @@ def run_sweep(spec: Spec, *, store: Store | None = None, jobs: int | None = None
         buffer = []
         last_flush = time.monotonic()
 
-    n_jobs = jobs or spec.jobs or -1
     status = "finished"
     try:
         runner = Parallel(n_jobs=n_jobs, return_as="generator_unordered")
         done = 0
         if progress:
             progress(0, total)
-        for result in runner(delayed(_run_task)(*t[:6], **t[6]) for t in tasks):
+        calls = _calls(prep, tasks, paths=paths)
+        for result in runner(delayed(_run_task)(*args, **kw) for args, kw in calls):
             buffer.append(result)
             done += 1
             if progress:
                 progress(done, total)
-            if time.monotonic() - last_flush > 1.0 or len(buffer) >= 50:
+            if time.monotonic() - last_flush >= batch_seconds or len(buffer) >= 50:
                 flush()
         flush()
+        from .explain import explain_sweep  # importances, tree stability, test predictions
+        explain_sweep(spec, store, sweep_id, prepared=prep, jobs=n_jobs, reuse=not fresh)
     except KeyboardInterrupt:
         status = "interrupted"
         flush()
@@ -264,7 +362,41 @@ def run_sweep(spec: Spec, *, store: Store | None = None, jobs: int | None = None
         raise
     store.finish_sweep(sweep_id, status)
     return SweepResult(sweep_id, str(store.path), status, len(prep.cells), counts["fold"],
-                       counts["test"], counts["failed"], time.perf_counter() - start)
+                       counts["test"], counts["failed"], time.perf_counter() - start,
+                       n_reused=len(reused), n_fitted=len(prep.cells) - len(reused))
+
+
+def _reuse(store: Store, sweep_id: str, prep: Prepared, *, fresh: bool
+           ) -> tuple[frozenset, list[str], tuple[int, int]]:
+    """Copy what earlier sweeps finished for these cells into this sweep.
+
+    Returns the (cell_id, repeat, fold) keys now present (refit = (-1, -1)), the ids of
+    cells that need no fit at all, and the fold-score and test-score rows copied."""
+    if fresh:
+        return frozenset(), [], (0, 0)
+    metrics = prep.spec.metrics
+    ids = [c.cell_id for c in prep.cells]
+    folds, tests = store.finished_rows(ids, metrics)
+    copied = store.copy_finished(sweep_id, folds, tests, metrics)
+    done = {(c, int(r), int(f)) for c, r, f in zip(folds.cell_id, folds["repeat"], folds.fold)}
+    done |= {(c, REFIT, REFIT) for c in tests.cell_id}
+    keys = [(f.repeat, f.fold) for f in prep.plan.folds] + [(REFIT, REFIT)]
+    whole = [c for c in ids if all((c, *k) in done for k in keys)]
+    if whole:
+        source = folds[folds.cell_id.isin(whole)].groupby("cell_id").sweep_id.min()
+        store.set_reused(sweep_id, source.rename("reused_from").reset_index())
+    return frozenset(done), whole, copied
+
+
+def _process_alive(pid: int) -> bool:
+    """True if a process with this id exists on this host."""
+    try:
+        os.kill(pid, 0)
+    except ProcessLookupError:
+        return False
+    except PermissionError:
+        return True
+    return True
 
 
 def _user() -> str:

@@ -50,7 +50,7 @@ def summary(store: Store, sweep_id: str | None = None, *,
     per metric, test scores.
 
     One row per model in spec order; columns `cv_<metric>`, `se_<metric>`, `test_<metric>`,
-    plus `rule`. Cells with failed fits or missing folds are never picked (see picks)."""
+    plus `rule` and `failed_cells` (cells with a failed fit: never picked, see picks)."""
     from .picks import picks
 
     sweep_id = store.resolve_sweep(sweep_id)
@@ -60,9 +60,14 @@ def summary(store: Store, sweep_id: str | None = None, *,
     rule = chosen.attrs["rules"][0]
     long = store.query("""
         with picked as (select unnest(?::varchar[]) as cell_id),
-        sizes as (select model, family, count(*) as cells, min(rowid) as first_row
-                  from cells where sweep_id = ? group by model, family)
-        select c.model, z.family, z.cells, c.cell_id, c.params, s.metric, s.mean, s.se, s.n,
+        sizes as (select c.model, c.family, count(*) as cells, min(c.rowid) as first_row,
+                         count(*) filter (where exists (
+                             select 1 from failures f
+                             where f.sweep_id = c.sweep_id and f.cell_id = c.cell_id))
+                             as failed_cells
+                  from cells c where c.sweep_id = ? group by c.model, c.family)
+        select c.model, z.family, z.cells, z.failed_cells, c.cell_id, c.params, s.metric,
+               s.mean, s.se, s.n,
                t.value as test, z.first_row
         from picked p
         join cells c on c.sweep_id = ? and c.cell_id = p.cell_id
@@ -73,7 +78,8 @@ def summary(store: Store, sweep_id: str | None = None, *,
         order by z.first_row, s.metric""", [chosen["cell_id"].tolist(), sweep_id, sweep_id])
     if long.empty:
         return pd.DataFrame(columns=["model", "family", "cells", "cell_id", "params", "rule"])
-    wide = long.pivot_table(index=["first_row", "model", "family", "cells", "cell_id", "params"],
+    wide = long.pivot_table(index=["first_row", "model", "family", "cells", "failed_cells",
+                                   "cell_id", "params"],
                             columns="metric", values=["mean", "se", "test"], aggfunc="first")
     out = wide.reset_index().sort_values("first_row")
     flat = {}
@@ -84,11 +90,11 @@ def summary(store: Store, sweep_id: str | None = None, *,
         else:
             flat[col] = {"mean": "cv_", "se": "se_", "test": "test_"}[name] + metric
     out.columns = [flat[c] for c in out.columns]
-    ordered = ["model", "family", "cells", "cell_id", "params"]
+    ordered = ["model", "family", "cells", "failed_cells", "cell_id", "params"]
     for m in metrics:
         ordered += [f"cv_{m}", f"se_{m}", f"test_{m}"]
     out = out[[c for c in ordered if c in out.columns]].reset_index(drop=True)
-    out.insert(5, "rule", rule)
+    out.insert(6, "rule", rule)
     out.attrs.update(sweep_id=sweep_id, primary_metric=primary, metrics=metrics, rule=rule,
                      unpicked=chosen.attrs.get("unpicked", []))
     return out

@@ -31,28 +31,45 @@ create table if not exists sweeps (
     spec_sha256 varchar, data_path varchar, data_sha256 varchar, target varchar,
     n_train integer, n_test integer, k integer, repeats integer, plan_seed bigint,
     metrics varchar, pick_rule varchar, started_at timestamp, finished_at timestamp,
-    status varchar, versions json, host varchar, user_name varchar);
+    status varchar, versions json, host varchar, user_name varchar, pid integer,
+    n_reused integer);
 create table if not exists metrics (metric varchar primary key, better varchar);
 create table if not exists cells (
     sweep_id varchar, cell_id varchar, model varchar, family varchar, params json,
-    complexity_rank integer, primary key (sweep_id, cell_id));
+    complexity_rank integer, reused_from varchar, primary key (sweep_id, cell_id));
 create table if not exists fold_scores (
     sweep_id varchar, cell_id varchar, "repeat" integer, fold integer, metric varchar,
     value double, fit_seconds double, n_train integer, n_valid integer, seed bigint,
-    n_leaves double, how varchar, primary key (sweep_id, cell_id, "repeat", fold, metric));
+    n_leaves double, how varchar, n_warnings integer, reused_from varchar,
+    primary key (sweep_id, cell_id, "repeat", fold, metric));
 create table if not exists test_scores (
     sweep_id varchar, cell_id varchar, metric varchar, value double, fit_seconds double,
     n_train integer, n_test integer, seed bigint, n_leaves double, how varchar,
-    primary key (sweep_id, cell_id, metric));
--- `how`: the route that scored the row ('plain' or a path evaluator); added after v1 stores
-alter table fold_scores add column if not exists how varchar;
-alter table test_scores add column if not exists how varchar;
+    n_warnings integer, reused_from varchar, primary key (sweep_id, cell_id, metric));
 create table if not exists failures (
     sweep_id varchar, cell_id varchar, "repeat" integer, fold integer, kind varchar,
     message varchar);
 create table if not exists importances (
     sweep_id varchar, cell_id varchar, feature varchar, method varchar, value double,
     spread double);
+-- explain step (runner/explain.py): per-fold importances, tree shapes, the refit tree's
+-- nodes and the refit's test predictions, for the explained cells of a sweep
+create table if not exists fold_importances (
+    sweep_id varchar, cell_id varchar, "repeat" integer, fold integer, feature varchar,
+    method varchar, value double);
+create table if not exists tree_folds (
+    sweep_id varchar, cell_id varchar, "repeat" integer, fold integer, n_leaves integer,
+    depth integer, root_feature varchar, root_threshold double, root_rule varchar,
+    features_used varchar[]);
+create table if not exists tree_nodes (
+    sweep_id varchar, cell_id varchar, node integer, parent integer, left_child integer,
+    right_child integer, depth integer, feature varchar, threshold double, rule varchar,
+    missing_left boolean, value double, n_samples integer, impurity double);
+create table if not exists test_predictions (
+    sweep_id varchar, cell_id varchar, "row" integer, observed double, predicted double);
+create table if not exists explained (
+    sweep_id varchar, cell_id varchar, settings json, reused_from varchar,
+    primary key (sweep_id, cell_id));
 """
 
 _VIEWS = """
@@ -186,6 +203,88 @@ class Store:
         with self._connect(read_only=False) as con:
             con.execute("update sweeps set status = ?, finished_at = current_timestamp::timestamp "
                         "where sweep_id = ?", [status, sweep_id])
+
+    def mark_interrupted(self, host: str, alive: Callable[[int], bool]) -> list[str]:
+        """Mark this host's 'running' sweeps whose process is gone as 'interrupted'.
+
+        A sweep killed without a clean exit cannot say so itself; the next writer does."""
+        with self._connect(read_only=False) as con:
+            rows = con.execute("select sweep_id, pid from sweeps where status = 'running' "
+                               "and host = ?", [host]).fetchall()
+            dead = [sid for sid, pid in rows if pid is None or not alive(int(pid))]
+            for sid in dead:
+                con.execute("update sweeps set status = 'interrupted' where sweep_id = ?", [sid])
+            return dead
+
+    def finished_rows(self, cell_ids: list[str], metrics: list[str]
+                      ) -> tuple[pd.DataFrame, pd.DataFrame]:
+        """Where earlier sweeps hold complete results for these cells.
+
+        Returns (folds, tests): one row per (cell_id, repeat, fold) and per cell_id with the
+        sweep_id of one earlier sweep that stored every asked metric for it."""
+        if not cell_ids or not self.path.exists():
+            empty = pd.DataFrame(columns=["cell_id", "repeat", "fold", "sweep_id"])
+            return empty, pd.DataFrame(columns=["cell_id", "sweep_id"])
+        ids = pd.DataFrame({"cell_id": list(dict.fromkeys(cell_ids))})
+        with self._connect(read_only=True) as con:
+            con.register("_ids", ids)
+            folds = con.execute("""
+                select cell_id, "repeat", fold, min(sweep_id) as sweep_id from (
+                    select f.cell_id, f."repeat", f.fold, f.sweep_id
+                    from fold_scores f join _ids using (cell_id)
+                    where f.metric in (select unnest($1::varchar[]))
+                    group by all having count(distinct f.metric) = len($1::varchar[]))
+                group by all""", [metrics]).df()
+            tests = con.execute("""
+                select cell_id, min(sweep_id) as sweep_id from (
+                    select t.cell_id, t.sweep_id from test_scores t join _ids using (cell_id)
+                    where t.metric in (select unnest($1::varchar[]))
+                    group by all having count(distinct t.metric) = len($1::varchar[]))
+                group by all""", [metrics]).df()
+        return folds, tests
+
+    def copy_finished(self, sweep_id: str, folds: pd.DataFrame, tests: pd.DataFrame,
+                      metrics: list[str]) -> tuple[int, int]:
+        """Copy earlier sweeps' rows for these (cell, fold)s and cells into `sweep_id`, in one
+        transaction; each copied row names its source in `reused_from`.
+
+        Returns the fold-score and test-score rows copied."""
+        if folds.empty and tests.empty:
+            return 0, 0
+        with self._connect(read_only=False) as con:
+            con.execute("begin")
+            con.register("_folds", folds)
+            con.register("_tests", tests)
+            n_folds = con.execute("""
+                insert into fold_scores by name
+                select f.* exclude (sweep_id, reused_from), $1 as sweep_id,
+                       coalesce(f.reused_from, f.sweep_id) as reused_from
+                from fold_scores f join _folds s
+                  on f.cell_id = s.cell_id and f."repeat" = s."repeat" and f.fold = s.fold
+                 and f.sweep_id = s.sweep_id
+                where f.metric in (select unnest($2::varchar[]))""",
+                            [sweep_id, metrics]).fetchone()[0]
+            n_tests = con.execute("""
+                insert into test_scores by name
+                select t.* exclude (sweep_id, reused_from), $1 as sweep_id,
+                       coalesce(t.reused_from, t.sweep_id) as reused_from
+                from test_scores t join _tests s
+                  on t.cell_id = s.cell_id and t.sweep_id = s.sweep_id
+                where t.metric in (select unnest($2::varchar[]))""",
+                             [sweep_id, metrics]).fetchone()[0]
+            con.execute("commit")
+        return int(n_folds), int(n_tests)
+
+    def set_reused(self, sweep_id: str, reused: pd.DataFrame) -> None:
+        """Record which cells of a sweep were wholly reused, and from where."""
+        with self._connect(read_only=False) as con:
+            con.register("_reused", reused)
+            con.execute("begin")
+            con.execute("""update cells set reused_from = r.reused_from from _reused r
+                           where cells.sweep_id = ? and cells.cell_id = r.cell_id""", [sweep_id])
+            con.execute("update sweeps set n_reused = ? where sweep_id = ?",
+                        [len(reused), sweep_id])
+            con.execute("commit")
 
     # -- reading ---------------------------------------------------------------------------
     def _require(self) -> None:

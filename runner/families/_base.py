@@ -1,12 +1,18 @@
-"""What every family shares: the column preprocessors and the plain one-fit-per-cell loop
-that a family's path evaluator may replace."""
+"""What every family shares: the column preprocessors, the plain one-fit-per-cell loop, and
+the grouping that lets a family score a whole grid from one fit.
+
+`fit_grouped` is the base behaviour; a family fills one hook, `evaluate(group, ...)`, which
+fits once on already-transformed rows and returns every cell's predictions. Cells that share
+all parameters but the family's path parameters form a group; a group of two or more cells
+is scored by the hook, anything else by `fit_each`, so results never depend on the route
+(the path evaluators in `paths.py` reproduce separate scikit-learn fits)."""
 
 from __future__ import annotations
 
 import time
 import warnings
 from dataclasses import dataclass, field
-from typing import Callable
+from typing import Callable, Sequence
 
 import numpy as np
 from sklearn.compose import ColumnTransformer
@@ -14,7 +20,11 @@ from sklearn.impute import SimpleImputer
 from sklearn.pipeline import Pipeline
 from sklearn.preprocessing import OneHotEncoder, OrdinalEncoder, StandardScaler
 
-__all__ = ["CellFit", "tree_preprocessor", "linear_preprocessor", "fit_each"]
+__all__ = ["CellFit", "tree_preprocessor", "linear_preprocessor", "fit_each", "fit_grouped",
+           "path_groups", "work_units", "PLAIN"]
+
+PLAIN = "plain"
+"""`CellFit.how` of a cell fitted on its own."""
 
 
 @dataclass
@@ -27,7 +37,7 @@ class CellFit:
     n_warnings: int = 0
     error_kind: str | None = None
     error: str | None = None
-    how: str = "plain"
+    how: str = PLAIN  # "plain", or the path evaluator that scored it ("tree_path", ...)
 
 
 def tree_preprocessor(numeric: list[str], categorical: list[str]) -> ColumnTransformer:
@@ -54,6 +64,16 @@ def linear_preprocessor(numeric: list[str], categorical: list[str]) -> ColumnTra
     return ColumnTransformer(parts, remainder="drop", sparse_threshold=0.0)
 
 
+def _count_warnings(caught) -> int:
+    return sum(1 for w in caught if not issubclass(w.category, (DeprecationWarning, FutureWarning)))
+
+
+def _record_error(result: CellFit, exc: Exception) -> None:
+    result.error_kind = type(exc).__name__
+    result.error = str(exc).splitlines()[0][:500] if str(exc) else type(exc).__name__
+    result.predictions = []
+
+
 def fit_each(make_estimator: Callable, cells: list[dict], X_fit, y_fit, X_evals, *, seed: int,
              numeric: list[str], categorical: list[str],
              leaves: Callable | None = None) -> list[CellFit]:
@@ -70,14 +90,122 @@ def fit_each(make_estimator: Callable, cells: list[dict], X_fit, y_fit, X_evals,
                 est.fit(X_fit, y_fit)
                 result.fit_seconds = time.perf_counter() - start
                 result.predictions = [est.predict(X) for X in X_evals]
-            result.n_warnings = sum(1 for w in caught if not issubclass(
-                w.category, (DeprecationWarning, FutureWarning)))
+            result.n_warnings = _count_warnings(caught)
             if leaves is not None:
                 result.n_leaves = leaves(est)
         except Exception as exc:  # a failed fit is data: recorded, the sweep goes on
             result.fit_seconds = time.perf_counter() - start
-            result.error_kind = type(exc).__name__
-            result.error = str(exc).splitlines()[0][:500] if str(exc) else type(exc).__name__
-            result.predictions = []
+            _record_error(result, exc)
         out.append(result)
     return out
+
+
+def path_groups(cells: Sequence[dict], path_params: Sequence[str],
+                eligible: Callable[[dict], bool] | None = None
+                ) -> tuple[list[list[int]], list[int]]:
+    """Positions of cells that one fit can score together, and of those fitted on their own.
+
+    Cells group when every parameter except `path_params` is equal (and `eligible` accepts
+    them); a group needs two or more cells, i.e. a grid that varies a path parameter."""
+    groups: dict[str, list[int]] = {}
+    alone: list[int] = []
+    for i, params in enumerate(cells):
+        if eligible is not None and not eligible(params):
+            alone.append(i)
+            continue
+        rest = {k: v for k, v in params.items() if k not in path_params}
+        groups.setdefault(repr(sorted(rest.items())), []).append(i)
+    together = []
+    for members in groups.values():
+        if len(members) >= 2:
+            together.append(members)
+        else:
+            alone.extend(members)
+    return together, sorted(alone)
+
+
+def work_units(cells: Sequence[dict], path_params: Sequence[str], *, paths: bool,
+               cost_alone: Callable[[dict], float], cost_group: Callable[[list[dict]], float],
+               eligible: Callable[[dict], bool] | None = None
+               ) -> list[tuple[list[int], float]]:
+    """The indivisible pieces of work `fit_cells` would do on these cells, with a rough
+    relative cost each (about one unpruned tree fit on the same rows = 1): a path group is
+    one piece, every other cell its own. The engine uses them to cut and order tasks."""
+    if not paths:
+        return [([i], cost_alone(p)) for i, p in enumerate(cells)]
+    together, alone = path_groups(cells, path_params, eligible)
+    units = [([i], cost_alone(cells[i])) for i in alone]
+    units += [(members, cost_group([cells[i] for i in members])) for members in together]
+    return units
+
+
+Evaluate = Callable[..., list[CellFit]]
+"""(group params, Xt_fit, y_fit, Xt_evals, seed=...) -> one CellFit per cell, predictions set."""
+
+
+def fit_grouped(make_estimator: Callable, preprocessor: Callable, evaluate: Evaluate,
+                how: Callable[[dict], str], path_params: Sequence[str], cells: list[dict],
+                X_fit, y_fit, X_evals, *, seed: int, numeric: list[str],
+                categorical: list[str], paths: bool = True, leaves: Callable | None = None,
+                eligible: Callable[[dict], bool] | None = None) -> list[CellFit]:
+    """Score every cell: each group of path-sharing cells from one fit, the rest one by one.
+
+    `how(params)` names the path evaluator a group runs, recorded in `CellFit.how` (also
+    when the group's fit fails). The preprocessor is fitted once per call (it depends on no
+    cell's parameters) exactly as a Pipeline fits it, and the evaluation sets are
+    transformed with it once.
+
+    `fit_seconds` of a grouped cell is an equal share of its group's time: the group's share
+    of the preprocessing, its one fit and the derivation of all its cells' predictions. So
+    summing `fit_seconds` over cells gives the compute time spent, whichever way they ran.
+    `n_warnings` of a grouped cell counts the warnings its group's one fit raised."""
+    if not paths:
+        return fit_each(make_estimator, cells, X_fit, y_fit, X_evals, seed=seed,
+                        numeric=numeric, categorical=categorical, leaves=leaves)
+    together, alone = path_groups(cells, path_params, eligible)
+    out: list[CellFit | None] = [None] * len(cells)
+    if alone:
+        plain = fit_each(make_estimator, [cells[i] for i in alone], X_fit, y_fit, X_evals,
+                         seed=seed, numeric=numeric, categorical=categorical, leaves=leaves)
+        for i, fit in zip(alone, plain):
+            out[i] = fit
+    if together:
+        start = time.perf_counter()
+        prep_error, Xt_fit, Xt_evals = None, None, None
+        try:
+            prep = preprocessor(numeric, categorical)
+            Xt_fit = prep.fit_transform(X_fit, y_fit)
+            Xt_evals = [prep.transform(X) for X in X_evals]
+        except Exception as exc:  # the same failure a Pipeline of any of these cells meets
+            prep_error = exc
+        prep_share = (time.perf_counter() - start) / len(together)
+        for members in together:
+            group = [cells[i] for i in members]
+            fits = _evaluate_group(evaluate, group, prep_error, prep_share, Xt_fit, y_fit,
+                                   Xt_evals, seed)
+            for i, fit in zip(members, fits):
+                fit.how = how(group[0])
+                out[i] = fit
+    return out  # type: ignore[return-value]
+
+
+def _evaluate_group(evaluate: Evaluate, group: list[dict], prep_error, prep_seconds: float,
+                    Xt_fit, y_fit, Xt_evals, seed: int) -> list[CellFit]:
+    start = time.perf_counter()
+    n_warnings = 0
+    try:
+        if prep_error is not None:
+            raise prep_error
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always")
+            fits = evaluate(group, Xt_fit, y_fit, Xt_evals, seed=seed)
+        n_warnings = _count_warnings(caught)
+    except Exception as exc:  # the group's one fit failed: every cell of it is recorded failed
+        fits = [CellFit() for _ in group]
+        for fit in fits:
+            _record_error(fit, exc)
+    share = (prep_seconds + time.perf_counter() - start) / len(group)
+    for fit in fits:
+        fit.fit_seconds = share
+        fit.n_warnings = n_warnings
+    return fits

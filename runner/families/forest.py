@@ -1,28 +1,66 @@
-"""The `forest` family: a RandomForestRegressor on numbers and ordinal-coded categories."""
+"""The `forest` family: a RandomForestRegressor on numbers and ordinal-coded categories.
+
+A grid over `n_estimators` is scored from one forest per combination of the other
+parameters: the largest forest is fitted once and its first k trees are the k-tree forest
+with the same random_state (the trees' seeds are drawn in order), so their running mean
+gives every smaller forest's predictions bit for bit (`paths.py`)."""
 
 from __future__ import annotations
 
 from sklearn.ensemble import RandomForestRegressor
 from sklearn.pipeline import Pipeline
 
-from ._base import fit_each, tree_preprocessor
+from ._base import CellFit, fit_grouped, tree_preprocessor, work_units
+from .paths import forest_prefix_predictions
 
-__all__ = ["make_estimator", "fit_cells"]
+__all__ = ["make_estimator", "fit_cells", "fit_units", "PATH_PARAMS"]
+
+PATH_PARAMS = ("n_estimators",)
+
+
+def _forest(params: dict, *, seed: int, n_estimators: int) -> RandomForestRegressor:
+    bootstrap = params.get("bootstrap", True)
+    return RandomForestRegressor(n_estimators=n_estimators,
+                                 max_features=params.get("max_features", 1.0),
+                                 min_samples_leaf=params.get("min_samples_leaf", 1),
+                                 max_depth=params.get("max_depth"),
+                                 max_samples=params.get("max_samples") if bootstrap else None,
+                                 bootstrap=bootstrap, random_state=seed, n_jobs=1)
 
 
 def make_estimator(params: dict, *, seed: int, y_fit=None, numeric, categorical) -> Pipeline:
     """The pipeline for one cell; the forest runs single-threaded (folds run in parallel)."""
-    bootstrap = params.get("bootstrap", True)
-    forest = RandomForestRegressor(n_estimators=params.get("n_estimators", 100),
-                                   max_features=params.get("max_features", 1.0),
-                                   min_samples_leaf=params.get("min_samples_leaf", 1),
-                                   max_depth=params.get("max_depth"),
-                                   max_samples=params.get("max_samples") if bootstrap else None,
-                                   bootstrap=bootstrap, random_state=seed, n_jobs=1)
+    forest = _forest(params, seed=seed, n_estimators=params.get("n_estimators", 100))
     return Pipeline([("prep", tree_preprocessor(numeric, categorical)), ("model", forest)])
 
 
-def fit_cells(cells, X_fit, y_fit, X_evals, *, seed, numeric, categorical):
-    """Fit each cell on the fitting rows and predict every evaluation set."""
-    return fit_each(make_estimator, cells, X_fit, y_fit, X_evals, seed=seed, numeric=numeric,
-                    categorical=categorical)
+def _how(params: dict) -> str:
+    return "forest_prefix"
+
+
+def _prefix_path(group: list[dict], Xt_fit, y_fit, Xt_evals, *, seed: int) -> list[CellFit]:
+    """Every forest size of the group from one fit of the largest."""
+    sizes = [int(params.get("n_estimators", 100)) for params in group]
+    forest = _forest(group[0], seed=seed, n_estimators=max(sizes)).fit(Xt_fit, y_fit)
+    fits = [CellFit() for _ in group]
+    for X in Xt_evals:
+        for fit, p in zip(fits, forest_prefix_predictions(forest, X, sizes)):
+            fit.predictions.append(p)
+    return fits
+
+
+def fit_cells(cells, X_fit, y_fit, X_evals, *, seed, numeric, categorical, paths=True):
+    """Score every cell on the fitting rows: size grids from one forest, or (with
+    `paths=False`, or a lone size) one fit per cell."""
+    return fit_grouped(make_estimator, tree_preprocessor, _prefix_path, _how, PATH_PARAMS,
+                       cells, X_fit, y_fit, X_evals, seed=seed, numeric=numeric,
+                       categorical=categorical, paths=paths)
+
+
+def fit_units(cells, *, paths=True):
+    """Pieces of work and rough costs: trees grown (a forest tree ~ 0.3 unpruned trees)."""
+    def size(params):
+        return 0.3 * params.get("n_estimators", 100)
+
+    return work_units(cells, PATH_PARAMS, paths=paths, cost_alone=size,
+                      cost_group=lambda group: max(size(p) for p in group))

@@ -2,7 +2,11 @@
 
 `ccp_alpha` is scikit-learn's absolute pruning strength. `ccp_fraction` states it as a
 fraction of the root node's mean squared error on the fitting rows (the population
-variance of y), so one grid suits any target scale: ccp_alpha = ccp_fraction * var(y_fit)."""
+variance of y), so one grid suits any target scale: ccp_alpha = ccp_fraction * var(y_fit).
+
+A grid over the pruning strength is scored from one unpruned fit per combination of the
+other parameters: the weakest-link sequence replayed on that tree gives every alpha's
+pruned tree, bit for bit the tree a refit with that ccp_alpha grows (`paths.py`)."""
 
 from __future__ import annotations
 
@@ -10,9 +14,13 @@ import numpy as np
 from sklearn.pipeline import Pipeline
 from sklearn.tree import DecisionTreeRegressor
 
-from ._base import fit_each, tree_preprocessor
+from ._base import CellFit, fit_grouped, tree_preprocessor, work_units
+from .paths import pruned_tree_predictions
 
-__all__ = ["make_estimator", "fit_cells", "resolve_alpha", "pruning_path_alphas"]
+__all__ = ["make_estimator", "fit_cells", "fit_units", "resolve_alpha", "pruning_path_alphas",
+           "PATH_PARAMS"]
+
+PATH_PARAMS = ("ccp_alpha", "ccp_fraction")
 
 
 def resolve_alpha(params: dict, y_fit) -> float:
@@ -41,10 +49,43 @@ def _leaves(pipeline: Pipeline) -> float:
     return float(pipeline.named_steps["model"].get_n_leaves())
 
 
-def fit_cells(cells, X_fit, y_fit, X_evals, *, seed, numeric, categorical):
-    """Fit each cell on the fitting rows and predict every evaluation set."""
-    return fit_each(make_estimator, cells, X_fit, y_fit, X_evals, seed=seed, numeric=numeric,
-                    categorical=categorical, leaves=_leaves)
+def _how(params: dict) -> str:
+    return "tree_path"
+
+
+def _pruning_path(group: list[dict], Xt_fit, y_fit, Xt_evals, *, seed: int) -> list[CellFit]:
+    """Every cell of the group from one unpruned tree (same other params, same seed)."""
+    tree = _tree(group[0], seed=seed, ccp_alpha=0.0).fit(Xt_fit, y_fit)
+    alphas = [resolve_alpha(params, y_fit) for params in group]
+    fits = [CellFit() for _ in group]
+    leaves = None
+    for X in Xt_evals:
+        preds, leaves = pruned_tree_predictions(tree, X, alphas)
+        for fit, p in zip(fits, preds):
+            fit.predictions.append(p)
+    if leaves is None:  # no evaluation set: leaf counts alone
+        _, leaves = pruned_tree_predictions(tree, Xt_fit[:1], alphas)
+    for fit, k in zip(fits, leaves):
+        fit.n_leaves = float(k)
+    return fits
+
+
+def fit_cells(cells, X_fit, y_fit, X_evals, *, seed, numeric, categorical, paths=True):
+    """Score every cell on the fitting rows: alpha grids from one unpruned fit, or (with
+    `paths=False`, or a lone alpha) one fit per cell."""
+    return fit_grouped(make_estimator, tree_preprocessor, _pruning_path, _how, PATH_PARAMS,
+                       cells, X_fit, y_fit, X_evals, seed=seed, numeric=numeric,
+                       categorical=categorical, paths=paths, leaves=_leaves)
+
+
+def fit_units(cells, *, paths=True):
+    """Pieces of work and rough costs: a refit with ccp_alpha > 0 prunes (about 4 unpruned
+    fits on large trees); a path group is one unpruned fit plus a replay."""
+    def alone(params):
+        return 1.0 if not (params.get("ccp_fraction") or params.get("ccp_alpha")) else 4.0
+
+    return work_units(cells, PATH_PARAMS, paths=paths, cost_alone=alone,
+                      cost_group=lambda group: 1.5 + 0.01 * len(group))
 
 
 def pruning_path_alphas(params: dict, X, y, *, seed: int, numeric, categorical) -> np.ndarray:

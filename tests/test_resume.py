@@ -1,0 +1,145 @@
+"""Never lose a finished cell: reuse on rerun, resume after SIGKILL, interrupted status,
+two sweeps writing one store at once while a third process queries."""
+
+from __future__ import annotations
+
+import json
+import os
+import signal
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import duckdb
+import pandas as pd
+import pytest
+
+from runner.engine import run_sweep
+from runner.store import Store
+
+from .helpers import diabetes_frame, spec_from, write_spec
+
+MODELS = """
+ridge: {family: linear, grid: {penalty: l2, alpha: [0.1, 1.0, 10.0]}}
+tree: {family: pruned_tree, grid: {ccp_alpha: [0.0, 50.0, 200.0], min_samples_leaf: [3]}}
+forest: {family: forest, grid: {n_estimators: [15], max_features: [0.3, 0.6]}}
+"""
+N_CELLS, K, R, N_METRICS = 8, 3, 2, 3
+
+
+def _scores(store: Store, sweep_id: str) -> pd.DataFrame:
+    return store.query("""select c.model, c.params, f."repeat", f.fold, f.metric, f.value
+                          from fold_scores f join cells c using (sweep_id, cell_id)
+                          where f.sweep_id = ? order by all""", [sweep_id])
+
+
+@pytest.fixture
+def folder(tmp_path):
+    diabetes_frame().to_csv(tmp_path / "diabetes.csv", index=False)
+    return tmp_path
+
+
+def test_unchanged_rerun_fits_nothing_and_reuses_every_cell(folder):
+    spec = spec_from(folder, MODELS)
+    store = Store(folder / "store.duckdb")
+    first = run_sweep(spec, store=store, jobs=1)
+    totals: list = []
+    again = run_sweep(spec, store=store, jobs=1, progress=lambda done, total: totals.append(total))
+    assert set(totals) <= {0}  # no task was scheduled
+    assert again.n_reused == N_CELLS and again.n_fitted == 0
+    pd.testing.assert_frame_equal(_scores(store, first.sweep_id), _scores(store, again.sweep_id))
+    cells = store.query("select reused_from from cells where sweep_id = ?", [again.sweep_id])
+    assert (cells.reused_from == first.sweep_id).all()
+    rows = store.query("select count(*) n from fold_scores where sweep_id = ?", [again.sweep_id])
+    assert rows.n[0] == N_CELLS * K * R * N_METRICS
+
+
+def test_changing_one_grid_value_fits_only_new_cells(folder):
+    store = Store(folder / "store.duckdb")
+    run_sweep(spec_from(folder, MODELS), store=store, jobs=1)
+    changed = spec_from(folder, MODELS.replace("[0.1, 1.0, 10.0]", "[0.1, 1.0, 30.0]"))
+    result = run_sweep(changed, store=store, jobs=1)
+    assert (result.n_reused, result.n_fitted) == (N_CELLS - 1, 1)
+    fresh = run_sweep(changed, store=store, jobs=1, fresh=True)
+    assert (fresh.n_reused, fresh.n_fitted) == (0, N_CELLS)
+    pd.testing.assert_frame_equal(_scores(store, result.sweep_id), _scores(store, fresh.sweep_id))
+
+
+SWEEP_SCRIPT = """
+import sys
+from runner.engine import run_sweep
+from runner.spec import load_spec
+from runner.store import Store
+run_sweep(load_spec(sys.argv[1]), store=Store(sys.argv[2]), jobs=1, batch_seconds=0.0)
+"""
+
+
+def _fold_rows(path: Path) -> int:
+    for _ in range(200):
+        try:
+            with duckdb.connect(str(path), read_only=True) as con:
+                return con.execute("select count(*) from fold_scores").fetchone()[0]
+        except duckdb.Error:
+            time.sleep(0.02)
+    return -1
+
+
+@pytest.mark.parametrize("kill_after_rows", [1, 50, 110])
+def test_sigkill_then_rerun_completes_exactly(folder, kill_after_rows):
+    spec_path = write_spec(folder, MODELS)
+    store_path = folder / "killed.duckdb"
+    proc = subprocess.Popen([sys.executable, "-c", SWEEP_SCRIPT, str(spec_path), str(store_path)])
+    deadline = time.monotonic() + 60
+    while time.monotonic() < deadline and proc.poll() is None:
+        if store_path.exists() and _fold_rows(store_path) >= kill_after_rows:
+            break
+        time.sleep(0.01)
+    proc.send_signal(signal.SIGKILL)
+    proc.wait()
+    landed = _fold_rows(store_path) if store_path.exists() else 0
+    store = Store(store_path)
+    result = run_sweep(spec_from(folder, MODELS), store=store, jobs=1)
+    status = store.query("select sweep_id, status from sweeps order by started_at")
+    assert status.status.tolist() == ["interrupted", "finished"], landed
+    got = store.query("""select cell_id, "repeat", fold, metric, count(*) n from fold_scores
+                         where sweep_id = ? group by all""", [result.sweep_id])
+    assert len(got) == N_CELLS * K * R * N_METRICS and (got.n == 1).all()
+    clean = Store(folder / "clean.duckdb")
+    reference = run_sweep(spec_from(folder, MODELS), store=clean, jobs=1)
+    pd.testing.assert_frame_equal(_scores(store, result.sweep_id),
+                                  _scores(clean, reference.sweep_id))
+    assert result.n_fitted + result.n_reused == N_CELLS
+    assert 0 <= landed < N_CELLS * K * R * N_METRICS
+
+
+def test_two_sweeps_and_a_reader_share_one_store(folder):
+    first = write_spec(folder, MODELS, name="a.yaml")
+    second = write_spec(folder, MODELS.replace("[0.1, 1.0, 10.0]", "[0.2, 2.0]"), name="b.yaml")
+    store_path = folder / "shared.duckdb"
+    env = dict(os.environ)
+    procs = [subprocess.Popen([sys.executable, "-m", "runner", "run", str(s), "--store",
+                               str(store_path), "--jobs", "1", "--quiet", "--fresh"],
+                              stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, env=env)
+             for s in (first, second)]
+    answers, slowest = 0, 0.0
+    while any(p.poll() is None for p in procs):
+        if store_path.exists():
+            start = time.monotonic()
+            out = subprocess.run([sys.executable, "-m", "runner", "sweeps", "--store",
+                                  str(store_path), "--format", "json"], capture_output=True,
+                                 text=True)
+            slowest = max(slowest, time.monotonic() - start)
+            assert out.returncode == 0, out.stderr
+            answers += 1
+        time.sleep(0.05)
+    for p in procs:
+        out, err = p.communicate()
+        assert p.returncode == 0, err
+    sweeps = json.loads(subprocess.run([sys.executable, "-m", "runner", "sweeps", "--store",
+                                        str(store_path), "--format", "json"],
+                                       capture_output=True, text=True).stdout)
+    assert sorted(s["fold_rows"] for s in sweeps) == [7 * K * R * N_METRICS,
+                                                      N_CELLS * K * R * N_METRICS]
+    assert all(s["status"] == "finished" for s in sweeps)
+    assert answers >= 1 and slowest < 10
