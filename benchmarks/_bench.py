@@ -3,6 +3,8 @@ its fold scores back, and time two contenders interleaved (median of several run
 
 from __future__ import annotations
 
+import atexit
+import shutil
 import statistics
 import tempfile
 import textwrap
@@ -43,7 +45,10 @@ class Case:
     def __init__(self, name: str, X: np.ndarray, y: np.ndarray, model_yaml: str,
                  folder: Path | None = None):
         self.name = name
-        self.folder = Path(folder or tempfile.mkdtemp(prefix=f"foldwise-bench-{name}-"))
+        if folder is None:  # a scratch folder, removed when the benchmark ends
+            folder = tempfile.mkdtemp(prefix=f"foldwise-bench-{name}-")
+            atexit.register(shutil.rmtree, folder, ignore_errors=True)
+        self.folder = Path(folder)
         cols = [f"x{i:02d}" for i in range(X.shape[1])]
         df = pd.DataFrame(X, columns=cols)
         df["y"] = y
@@ -148,6 +153,7 @@ def print_table(title: str, header: list[str], rows: list[list], notes: list[str
     print("  ".join(h.ljust(w) for h, w in zip(header, widths)))
     print(line)
     for row in cells[1:]:
-        print("  ".join(c.rjust(w) if i else c.ljust(w) for i, (c, w) in enumerate(zip(row, widths))))
+        print("  ".join(c.rjust(w) if i else c.ljust(w)
+                        for i, (c, w) in enumerate(zip(row, widths))))
     for note in notes:
         print(f"  {note}")

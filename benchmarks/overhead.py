@@ -74,13 +74,13 @@ def main(argv=None):
     rows = [["GridSearchCV (plain)", f"{base:.2f}", "1.00x", "-", "-"]]
     for name, paths, target in (("no_paths", False, "<= 1.3x"), ("paths", True, "-")):
         m = median(times[name])
+        diff = max_difference(last[paths], last["plain"], "alpha")
         rows.append([f"foldwise run{'' if paths else ' --no-paths'}", f"{m:.2f}",
-                     f"{m / base:.2f}x", f"{max_difference(last[paths], last['plain'], 'alpha'):.2g}",
-                     target])
+                     f"{m / base:.2f}x", f"{diff:.2g}", target])
     print_table(f"engine overhead: {len(alphas)} ridge cells, {len(case.y_train)} training rows, "
                 f"{K}x{REPEATS} folds, n_jobs={JOBS}, medians of {args.runs} interleaved runs",
                 ["contender", "median s", "time / plain", "max |d score|", "target"], rows,
-                [f"runs (s): " + "; ".join(f"{k} {[round(t, 2) for t in v]}"
+                ["runs (s): " + "; ".join(f"{k} {[round(t, 2) for t in v]}"
                                            for k, v in times.items()),
                  f"foldwise also refits all {len(alphas)} cells on the training rows and "
                  "scores the test split (GridSearchCV refits the best cell only), and writes "

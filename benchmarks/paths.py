@@ -238,7 +238,7 @@ def main(argv=None):
         label, n_cells, times, diff, target, note, case = fn(args.runs, args.quick)
         p, f = median(times["plain"]), median(times["foldwise"])
         rows.append([label, f"{n_cells} x {K * REPEATS}", f"{p:.2f}", f"{f:.2f}",
-                     f"{p / f:.1f}x", f"{diff:.2g}", target])
+                     f"{p / f:.2f}x", f"{diff:.2g}", target])
         notes.append(note)
         print(f"  {name}: plain {[round(t, 2) for t in times['plain']]} s, "
               f"foldwise {[round(t, 2) for t in times['foldwise']]} s", flush=True)
