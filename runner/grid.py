@@ -79,10 +79,14 @@ def canonical_params(family: str, params: dict) -> dict:
     return dict(sorted(full.items()))
 
 
-def cell_id(family: str, params: dict, data_sha256: str, plan_identity: dict) -> str:
-    """A stable hash of (family, params, data, plan, evaluation version)."""
-    payload = json.dumps({"family": family, "params": params, "data": data_sha256,
-                          "plan": plan_identity, "eval": EVAL_VERSION}, sort_keys=True)
+def cell_id(family: str, params: dict, data_sha256: str, plan_identity: dict, *,
+            model: str = "") -> str:
+    """A stable hash of (model label, family, params, data, plan, evaluation version).
+
+    The label is part of it so two models that share a grid point stay two cells."""
+    payload = json.dumps({"model": model, "family": family, "params": params,
+                          "data": data_sha256, "plan": plan_identity, "eval": EVAL_VERSION},
+                         sort_keys=True)
     return hashlib.sha256(payload.encode()).hexdigest()[:16]
 
 
@@ -151,7 +155,8 @@ def expand_model(label: str, model: ModelSpec, *, data_sha256: str, plan_identit
     ordered = sorted(unique.values(),
                      key=lambda p: (_sort_key(model.family, p, model.simpler, n_features),
                                     json.dumps(p, sort_keys=True)))
-    return [Cell(label, model.family, p, cell_id(model.family, p, data_sha256, plan_identity), i)
+    return [Cell(label, model.family, p,
+                 cell_id(model.family, p, data_sha256, plan_identity, model=label), i)
             for i, p in enumerate(ordered)]
 
 

@@ -89,6 +89,12 @@ def test_ids_stable_and_sensitive():
     assert {c.cell_id for c in a}.isdisjoint(c.cell_id for c in _cells("{penalty: l2, alpha: [0.5, 2.0]}", plan=other_plan))
 
 
+def test_two_models_sharing_a_grid_point_are_two_cells():
+    a = cell_id("linear", {"penalty": "none"}, "d", PLAN, model="ols")
+    b = cell_id("linear", {"penalty": "none"}, "d", PLAN, model="baseline")
+    assert a != b
+
+
 @settings(max_examples=60, deadline=None)
 @given(st.floats(min_value=1e-6, max_value=1e6), st.floats(min_value=1e-6, max_value=1e6))
 def test_id_changes_with_any_param_change(a, b):
