@@ -36,7 +36,7 @@ from .data import Frame, load_frame
 from .errors import FoldwiseError
 from .families import FAMILIES, load_family
 from .grid import Cell, count_cells, expand_spec, spread_along_path
-from .resampling import REFIT, Fold, Plan, make_plan, refit_seed
+from .resampling import REFIT, Fold, Plan, make_plan, plan_counts, plan_identity, refit_seed
 from .spec import METRICS, Spec
 from .store import DEFAULT_STORE, Store
 
@@ -88,14 +88,26 @@ def score_columns(metric: str, y_true, predictions) -> list[float]:
     return [float(v) for v in np.atleast_1d(values)]
 
 
-@dataclass
 class Prepared:
-    """Everything a sweep needs before the first fit: data, plan and cells."""
+    """Everything a sweep needs before the first fit: data, plan and cells.
 
-    spec: Spec
-    frame: Frame
-    plan: Plan
-    cells: list[Cell]
+    The plan (which needs scikit-learn's splitters, slow to import) is built on first use,
+    so a rerun whose every result is already stored never builds it."""
+
+    def __init__(self, spec: Spec, frame: Frame, cells: list[Cell] | None = None):
+        self.spec, self.frame, self.cells = spec, frame, cells or []
+        self._plan: Plan | None = None
+
+    @property
+    def plan(self) -> Plan:
+        if self._plan is None:
+            self._plan = make_plan(self.spec, self.frame)
+        return self._plan
+
+    def fold_keys(self) -> list[tuple[int, int]]:
+        """(repeat, fold) of every validation fold, then the refit's."""
+        k, r = self.spec.folds.k, self.spec.folds.repeats
+        return [(i, j) for i in range(r) for j in range(k)] + [(REFIT, REFIT)]
 
 
 @dataclass
@@ -114,12 +126,12 @@ class SweepResult:
     n_fitted: int = 0  # cells with at least one fold or refit computed by this sweep
 
 
-def _path_resolver(spec: Spec, frame: Frame, plan: Plan):
-    family = load_family("pruned_tree")
-    X = frame.X.iloc[plan.train_rows]
-    y = frame.y[plan.train_rows]
-
+def _path_resolver(prep: Prepared):
     def resolve(label: str, combo: dict, n: int) -> list[float]:
+        family = load_family("pruned_tree")
+        frame, plan = prep.frame, prep.plan
+        X = frame.X.iloc[plan.train_rows]
+        y = frame.y[plan.train_rows]
         alphas = family.pruning_path_alphas(combo, X, y, seed=refit_seed(plan.seed),
                                             numeric=frame.numeric,
                                             categorical=frame.categorical)
@@ -129,13 +141,13 @@ def _path_resolver(spec: Spec, frame: Frame, plan: Plan):
 
 
 def prepare(spec: Spec) -> Prepared:
-    """Load and check the data, build the plan and expand every model's grid."""
-    frame = load_frame(spec)
-    plan = make_plan(spec, frame)
-    cells = expand_spec(spec, data_sha256=frame.sha256, plan_identity=plan.identity,
-                        resolve_path=_path_resolver(spec, frame, plan),
-                        n_features=len(frame.features))
-    return Prepared(spec, frame, plan, cells)
+    """Load and check the data and expand every model's grid; the plan follows on demand."""
+    prep = Prepared(spec, load_frame(spec))
+    prep.cells = expand_spec(spec, data_sha256=prep.frame.sha256,
+                             plan_identity=plan_identity(spec),
+                             resolve_path=_path_resolver(prep),
+                             n_features=len(prep.frame.features))
+    return prep
 
 
 def check_spec(spec: Spec) -> tuple[pd.DataFrame, dict]:
@@ -168,10 +180,11 @@ def store_path(spec: Spec, override=None):
 
 
 def _versions() -> dict:
-    import duckdb
-    import sklearn
+    from importlib.metadata import version
 
-    return {"python": platform.python_version(), "scikit-learn": sklearn.__version__,
+    import duckdb
+
+    return {"python": platform.python_version(), "scikit-learn": version("scikit-learn"),
             "duckdb": duckdb.__version__, "pandas": pd.__version__, "numpy": np.__version__,
             "foldwise": __version__}
 
@@ -275,6 +288,8 @@ def _plan_tasks(prep: Prepared, *, paths: bool = True, n_workers: int = 1,
 
 def _calls(prep: Prepared, tasks: list[_Task], *, paths: bool):
     """`_run_task` arguments per task, each task's rows sliced only as joblib asks for it."""
+    if not tasks:
+        return
     frame, plan = prep.frame, prep.plan
     X_train = frame.X.iloc[plan.train_rows]
     y_train = frame.y[plan.train_rows]
@@ -313,11 +328,17 @@ def run_sweep(spec: Spec, *, store: Store | None = None, jobs: int | None = None
     start = time.perf_counter()
     prep = prepare(spec)
     store = store or Store(store_path(spec), on_wait=on_message)
+    # A --no-paths sweep is a check of the path evaluators: it refits every cell, never
+    # copying rows that an earlier sweep may have scored through a path.
+    fresh = fresh or not paths
+    found = _finished(store, prep, fresh=fresh)
+    if not _all_found(prep, found):
+        prep.plan  # builds and checks the plan before anything is written
     store.ensure_schema()
     host = socket.gethostname()
     store.mark_interrupted(host, _process_alive)
     sweep_id = _new_sweep_id()
-    plan = prep.plan
+    n_train, n_test = plan_counts(spec, prep.frame)
     cells_df = pd.DataFrame([{"sweep_id": sweep_id, "cell_id": c.cell_id, "model": c.model,
                               "family": c.family, "params": c.params_json,
                               "complexity_rank": c.complexity_rank} for c in prep.cells])
@@ -326,17 +347,16 @@ def run_sweep(spec: Spec, *, store: Store | None = None, jobs: int | None = None
         "spec_path": str(spec.source) if spec.source else None, "spec_text": spec.text,
         "spec_sha256": spec.sha256, "data_path": str(prep.frame.source),
         "data_sha256": prep.frame.sha256, "target": prep.frame.target,
-        "n_train": plan.n_train, "n_test": plan.n_test, "k": plan.k, "repeats": plan.repeats,
-        "plan_seed": plan.seed, "metrics": ",".join(spec.metrics), "pick_rule": spec.pick,
+        "n_train": n_train, "n_test": n_test, "k": spec.folds.k,
+        "repeats": spec.folds.repeats, "plan_seed": spec.folds.seed, "metrics": ",".join(spec.metrics), "pick_rule": spec.pick,
         "started_at": datetime.now(), "finished_at": None, "status": "running",
         "versions": _versions(), "host": host, "user_name": _user(), "pid": os.getpid()},
         cells_df, {m: METRICS[m] for m in spec.metrics})
-    # A --no-paths sweep is a check of the path evaluators: it refits every cell, never
-    # copying rows that an earlier sweep may have scored through a path.
-    done, reused, copied = _reuse(store, sweep_id, prep, fresh=fresh or not paths)
+    done, reused, copied = _reuse(store, sweep_id, prep, found)
 
     n_jobs = jobs or spec.jobs or -1
-    tasks = _plan_tasks(prep, paths=paths, n_workers=effective_n_jobs(n_jobs), done=done)
+    tasks = [] if len(reused) == len(prep.cells) else _plan_tasks(
+        prep, paths=paths, n_workers=effective_n_jobs(n_jobs), done=done)
     total = len(tasks)
     counts = {"fold": copied[0], "test": copied[1], "failed": 0}
     buffer: list = []
@@ -397,21 +417,38 @@ def run_sweep(spec: Spec, *, store: Store | None = None, jobs: int | None = None
                        n_reused=len(reused), n_fitted=len(prep.cells) - len(reused))
 
 
-def _reuse(store: Store, sweep_id: str, prep: Prepared, *, fresh: bool
+def _finished(store: Store, prep: Prepared, *, fresh: bool):
+    """Where earlier sweeps in the store hold finished rows for these cells (none if fresh)."""
+    if fresh:
+        return None
+    return store.finished_rows([c.cell_id for c in prep.cells], prep.spec.metrics)
+
+
+def _all_found(prep: Prepared, found) -> bool:
+    """True if every cell's every fold and refit is already stored."""
+    if found is None:
+        return False
+    folds, tests = found
+    have = set(zip(folds.cell_id, folds["repeat"].astype(int), folds.fold.astype(int)))
+    have |= {(c, REFIT, REFIT) for c in tests.cell_id}
+    return all((c.cell_id, *key) in have for c in prep.cells for key in prep.fold_keys())
+
+
+def _reuse(store: Store, sweep_id: str, prep: Prepared, found
            ) -> tuple[frozenset, list[str], tuple[int, int]]:
     """Copy what earlier sweeps finished for these cells into this sweep.
 
     Returns the (cell_id, repeat, fold) keys now present (refit = (-1, -1)), the ids of
     cells that need no fit at all, and the fold-score and test-score rows copied."""
-    if fresh:
+    if found is None:
         return frozenset(), [], (0, 0)
     metrics = prep.spec.metrics
     ids = [c.cell_id for c in prep.cells]
-    folds, tests = store.finished_rows(ids, metrics)
+    folds, tests = found
     copied = store.copy_finished(sweep_id, folds, tests, metrics)
     done = {(c, int(r), int(f)) for c, r, f in zip(folds.cell_id, folds["repeat"], folds.fold)}
     done |= {(c, REFIT, REFIT) for c in tests.cell_id}
-    keys = [(f.repeat, f.fold) for f in prep.plan.folds] + [(REFIT, REFIT)]
+    keys = prep.fold_keys()
     whole = [c for c in ids if all((c, *k) in done for k in keys)]
     if whole:
         source = folds[folds.cell_id.isin(whole)].groupby("cell_id").sweep_id.min()

@@ -14,7 +14,8 @@ import pandas as pd
 
 from .errors import DataError
 
-__all__ = ["Plan", "Fold", "make_plan", "fold_seed", "refit_seed", "REFIT"]
+__all__ = ["Plan", "Fold", "make_plan", "fold_seed", "refit_seed", "REFIT", "plan_identity",
+           "plan_counts"]
 
 REFIT = -1
 """The `repeat` and `fold` number given to the refit on all training rows."""
@@ -69,6 +70,30 @@ class Plan:
     def identity(self) -> dict:
         """What makes two plans the same: enters every cell id."""
         return {"test": self.test_form, "k": self.k, "repeats": self.repeats, "seed": self.seed}
+
+
+def _test_form(spec) -> dict:
+    t = spec.test
+    if t.fraction is not None:
+        return {"fraction": t.fraction, "seed": t.seed}
+    return {"file": t.file} if t.file is not None else {"column": t.column}
+
+
+def plan_identity(spec) -> dict:
+    """The plan's identity from the spec alone (equal to `make_plan(...).identity`)."""
+    return {"test": _test_form(spec), "k": spec.folds.k, "repeats": spec.folds.repeats,
+            "seed": spec.folds.seed}
+
+
+def plan_counts(spec, frame) -> tuple[int, int]:
+    """(training rows, test rows) without building the plan: train_test_split holds out
+    ceil(fraction x rows) rows, a test file or column marks its rows."""
+    n = len(frame.y)
+    if spec.test.fraction is not None:
+        n_test = int(np.ceil(spec.test.fraction * n))
+    else:
+        n_test = int(np.count_nonzero(frame.test_mask))
+    return n - n_test, n_test
 
 
 def _test_rows(spec, frame) -> tuple[np.ndarray, dict]:

@@ -9,7 +9,7 @@ from hypothesis import given, settings, strategies as st
 
 from runner.data import load_frame
 from runner.errors import DataError
-from runner.resampling import fold_seed, make_plan
+from runner.resampling import fold_seed, make_plan, plan_counts, plan_identity
 
 from .helpers import documented_plan, spec_from
 
@@ -26,6 +26,18 @@ def test_plan_matches_documented_recipe(tmp_path, diabetes_csv):
         assert (f.repeat, f.fold) == (rep, k)
         assert np.array_equal(f.fit, fit) and np.array_equal(f.valid, valid)
         assert f.seed == int(np.random.SeedSequence([17, rep, k]).generate_state(1)[0])
+
+
+def test_identity_and_counts_without_the_plan(tmp_path, diabetes_csv):
+    # The reuse fast path identifies cells and counts rows without scikit-learn's splitters;
+    # it must agree with the plan they build (train_test_split holds out ceil(f x n) rows).
+    for fraction in (0.25, 0.1, 0.333):
+        spec = spec_from(tmp_path, "m: {family: linear}")
+        spec.test.fraction = fraction
+        frame = load_frame(spec)
+        plan = make_plan(spec, frame)
+        assert plan_identity(spec) == plan.identity
+        assert plan_counts(spec, frame) == (plan.n_train, plan.n_test)
 
 
 def test_plan_is_identical_on_reload(tmp_path, diabetes_csv):
