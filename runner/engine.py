@@ -17,6 +17,7 @@ share of its group's time (see `families._base.fit_grouped`)."""
 
 from __future__ import annotations
 
+import contextlib
 import getpass
 import math
 import os
@@ -332,89 +333,94 @@ def run_sweep(spec: Spec, *, store: Store | None = None, jobs: int | None = None
     # copying rows that an earlier sweep may have scored through a path.
     fresh = fresh or not paths
     found = _finished(store, prep, fresh=fresh)
-    if not _all_found(prep, found):
+    quick = _all_found(prep, found)
+    if not quick:
         prep.plan  # builds and checks the plan before anything is written
-    store.ensure_schema()
-    host = socket.gethostname()
-    store.mark_interrupted(host, _process_alive)
-    sweep_id = _new_sweep_id()
-    n_train, n_test = plan_counts(spec, prep.frame)
-    cells_df = pd.DataFrame([{"sweep_id": sweep_id, "cell_id": c.cell_id, "model": c.model,
-                              "family": c.family, "params": c.params_json,
-                              "complexity_rank": c.complexity_rank} for c in prep.cells])
-    store.begin_sweep({
-        "sweep_id": sweep_id, "name": spec.name,
-        "spec_path": str(spec.source) if spec.source else None, "spec_text": spec.text,
-        "spec_sha256": spec.sha256, "data_path": str(prep.frame.source),
-        "data_sha256": prep.frame.sha256, "target": prep.frame.target,
-        "n_train": n_train, "n_test": n_test, "k": spec.folds.k,
-        "repeats": spec.folds.repeats, "plan_seed": spec.folds.seed, "metrics": ",".join(spec.metrics), "pick_rule": spec.pick,
-        "started_at": datetime.now(), "finished_at": None, "status": "running",
-        "versions": _versions(), "host": host, "user_name": _user(), "pid": os.getpid()},
-        cells_df, {m: METRICS[m] for m in spec.metrics})
-    done, reused, copied = _reuse(store, sweep_id, prep, found)
+    hold = contextlib.ExitStack()
+    if quick:  # only copying to do: one connection for it all, instead of dozens
+        hold.enter_context(store.session())
+    with hold:
+        store.ensure_schema()
+        host = socket.gethostname()
+        store.mark_interrupted(host, _process_alive)
+        sweep_id = _new_sweep_id()
+        n_train, n_test = plan_counts(spec, prep.frame)
+        cells_df = pd.DataFrame([{"sweep_id": sweep_id, "cell_id": c.cell_id, "model": c.model,
+                                  "family": c.family, "params": c.params_json,
+                                  "complexity_rank": c.complexity_rank} for c in prep.cells])
+        store.begin_sweep({
+            "sweep_id": sweep_id, "name": spec.name,
+            "spec_path": str(spec.source) if spec.source else None, "spec_text": spec.text,
+            "spec_sha256": spec.sha256, "data_path": str(prep.frame.source),
+            "data_sha256": prep.frame.sha256, "target": prep.frame.target,
+            "n_train": n_train, "n_test": n_test, "k": spec.folds.k,
+            "repeats": spec.folds.repeats, "plan_seed": spec.folds.seed, "metrics": ",".join(spec.metrics), "pick_rule": spec.pick,
+            "started_at": datetime.now(), "finished_at": None, "status": "running",
+            "versions": _versions(), "host": host, "user_name": _user(), "pid": os.getpid()},
+            cells_df, {m: METRICS[m] for m in spec.metrics})
+        done, reused, copied = _reuse(store, sweep_id, prep, found)
 
-    n_jobs = jobs or spec.jobs or -1
-    tasks = [] if len(reused) == len(prep.cells) else _plan_tasks(
-        prep, paths=paths, n_workers=effective_n_jobs(n_jobs), done=done)
-    total = len(tasks)
-    counts = {"fold": copied[0], "test": copied[1], "failed": 0}
-    buffer: list = []
-    last_flush = time.monotonic()
-
-    def flush():
-        nonlocal buffer, last_flush
-        if not buffer:
-            return
-        fold_rows, test_rows, fail_rows = [], [], []
-        for scores, failures in buffer:
-            for row in scores:
-                row["sweep_id"] = sweep_id
-                (test_rows if row["repeat"] == REFIT else fold_rows).append(row)
-            for row in failures:
-                row["sweep_id"] = sweep_id
-                fail_rows.append(row)
-        test_df = pd.DataFrame(test_rows)
-        if len(test_df):
-            test_df = test_df.rename(columns={"n_valid": "n_test"}).drop(columns=["repeat", "fold"])
-        store.write_batch({"fold_scores": pd.DataFrame(fold_rows), "test_scores": test_df,
-                           "failures": pd.DataFrame(fail_rows)})
-        counts["fold"] += len(fold_rows)
-        counts["test"] += len(test_rows)
-        counts["failed"] += len(fail_rows)
-        buffer = []
+        n_jobs = jobs or spec.jobs or -1
+        tasks = [] if len(reused) == len(prep.cells) else _plan_tasks(
+            prep, paths=paths, n_workers=effective_n_jobs(n_jobs), done=done)
+        total = len(tasks)
+        counts = {"fold": copied[0], "test": copied[1], "failed": 0}
+        buffer: list = []
         last_flush = time.monotonic()
 
-    status = "finished"
-    try:
-        runner = Parallel(n_jobs=n_jobs, return_as="generator_unordered")
-        done = 0
-        if progress:
-            progress(0, total)
-        calls = _calls(prep, tasks, paths=paths)
-        for result in runner(delayed(_run_task)(*args, **kw) for args, kw in calls):
-            buffer.append(result)
-            done += 1
+        def flush():
+            nonlocal buffer, last_flush
+            if not buffer:
+                return
+            fold_rows, test_rows, fail_rows = [], [], []
+            for scores, failures in buffer:
+                for row in scores:
+                    row["sweep_id"] = sweep_id
+                    (test_rows if row["repeat"] == REFIT else fold_rows).append(row)
+                for row in failures:
+                    row["sweep_id"] = sweep_id
+                    fail_rows.append(row)
+            test_df = pd.DataFrame(test_rows)
+            if len(test_df):
+                test_df = test_df.rename(columns={"n_valid": "n_test"}).drop(columns=["repeat", "fold"])
+            store.write_batch({"fold_scores": pd.DataFrame(fold_rows), "test_scores": test_df,
+                               "failures": pd.DataFrame(fail_rows)})
+            counts["fold"] += len(fold_rows)
+            counts["test"] += len(test_rows)
+            counts["failed"] += len(fail_rows)
+            buffer = []
+            last_flush = time.monotonic()
+
+        status = "finished"
+        try:
+            runner = Parallel(n_jobs=n_jobs, return_as="generator_unordered")
+            done = 0
             if progress:
-                progress(done, total)
-            if time.monotonic() - last_flush >= batch_seconds or len(buffer) >= 50:
-                flush()
-        flush()
-        from .explain import explain_sweep  # importances, tree stability, test predictions
-        explain_sweep(spec, store, sweep_id, prepared=prep, jobs=n_jobs, reuse=not fresh)
-    except KeyboardInterrupt:
-        status = "interrupted"
-        flush()
+                progress(0, total)
+            calls = _calls(prep, tasks, paths=paths)
+            for result in runner(delayed(_run_task)(*args, **kw) for args, kw in calls):
+                buffer.append(result)
+                done += 1
+                if progress:
+                    progress(done, total)
+                if time.monotonic() - last_flush >= batch_seconds or len(buffer) >= 50:
+                    flush()
+            flush()
+            from .explain import explain_sweep  # importances, tree stability, test predictions
+            explain_sweep(spec, store, sweep_id, prepared=prep, jobs=n_jobs, reuse=not fresh)
+        except KeyboardInterrupt:
+            status = "interrupted"
+            flush()
+            store.finish_sweep(sweep_id, status)
+            raise SweepInterrupted(f"sweep {sweep_id} interrupted; {done} of {total} tasks kept "
+                                   f"in {store.path}.") from None
+        except BaseException:
+            store.finish_sweep(sweep_id, "failed")
+            raise
         store.finish_sweep(sweep_id, status)
-        raise SweepInterrupted(f"sweep {sweep_id} interrupted; {done} of {total} tasks kept "
-                               f"in {store.path}.") from None
-    except BaseException:
-        store.finish_sweep(sweep_id, "failed")
-        raise
-    store.finish_sweep(sweep_id, status)
-    return SweepResult(sweep_id, str(store.path), status, len(prep.cells), counts["fold"],
-                       counts["test"], counts["failed"], time.perf_counter() - start,
-                       n_reused=len(reused), n_fitted=len(prep.cells) - len(reused))
+        return SweepResult(sweep_id, str(store.path), status, len(prep.cells), counts["fold"],
+                           counts["test"], counts["failed"], time.perf_counter() - start,
+                           n_reused=len(reused), n_fitted=len(prep.cells) - len(reused))
 
 
 def _finished(store: Store, prep: Prepared, *, fresh: bool):

@@ -102,6 +102,10 @@ class Store:
     @contextmanager
     def _connect(self, *, read_only: bool, config: dict | None = None
                  ) -> Iterator[duckdb.DuckDBPyConnection]:
+        held = getattr(self, "_held", None)
+        if held is not None and not config:
+            yield held
+            return
         deadline = time.monotonic() + self.wait_seconds
         delay, told = 0.05, False
         while True:
@@ -124,6 +128,19 @@ class Store:
             yield con
         finally:
             con.close()
+
+    @contextmanager
+    def session(self) -> Iterator["Store"]:
+        """Hold one read-write connection for a burst of small operations, then let go.
+
+        Other processes wait meanwhile, so keep it to quick work such as a rerun that only
+        copies stored rows; each operation still commits on its own."""
+        with self._connect(read_only=False) as con:
+            self._held = con
+            try:
+                yield self
+            finally:
+                self._held = None
 
     def check_writable(self) -> None:
         """Raise a StoreError unless this store can be created or written here."""
