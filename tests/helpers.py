@@ -42,9 +42,13 @@ models:
 
 
 def write_spec(folder: Path, models: str, *, data: str = "diabetes.csv", extra: str = "",
-               name: str = "spec.yaml") -> Path:
-    """Write a spec file with the given models block (YAML, indented two spaces)."""
+               name: str = "spec.yaml", explain: str = "none") -> Path:
+    """Write a spec file with the given models block (YAML, indented two spaces).
+
+    The explain step is off unless asked for (`explain="picked"`): most tests check scores."""
     text = SMALL_SPEC.format(data=data, models=textwrap.indent(textwrap.dedent(models), "  "))
+    if explain and "explain:" not in extra:
+        text = text.replace("models:\n", f"explain: {{cells: {explain}}}\nmodels:\n", 1)
     path = folder / name
     path.write_text(text + textwrap.dedent(extra))
     return path

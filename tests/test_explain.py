@@ -176,7 +176,8 @@ def test_rerun_copies_explain_rows_instead_of_refitting(tmp_path, diabetes_csv):
     from runner.engine import run_sweep
     from runner.store import Store
 
-    spec = spec_from(tmp_path, "ridge: {family: linear, grid: {penalty: l2, alpha: [1.0, 100.0]}}")
+    spec = spec_from(tmp_path, "ridge: {family: linear, grid: {penalty: l2, alpha: [1.0, 100.0]}}",
+                     explain="picked")
     store = Store(tmp_path / "store.duckdb")
     first = run_sweep(spec, store=store, jobs=1)
     again = run_sweep(spec, store=store, jobs=1)

@@ -4,7 +4,6 @@ score row records which way it was computed."""
 
 from __future__ import annotations
 
-import textwrap
 
 import numpy as np
 import pandas as pd
@@ -13,8 +12,9 @@ import pytest
 from runner.engine import run_sweep
 from runner.families import load_family
 from runner.families._base import path_groups
-from runner.spec import parse_spec
 from runner.store import Store
+
+from .helpers import spec_from
 
 # Every family with a grid that varies a path parameter, plus cells that must stay plain.
 MODELS = """
@@ -66,23 +66,6 @@ ols:
     penalty: none
 """
 
-SPEC = """
-name: paths-vs-plain
-data:
-  path: {data}
-  target: progression
-test:
-  fraction: 0.25
-  seed: 3
-folds:
-  k: 3
-  repeats: 2
-  seed: 17
-metrics: [rmse, mae, r2]
-explain: {{cells: none}}
-models:
-{models}
-"""
 
 EXPECTED_HOW = {"tree_fraction": "tree_path", "tree_path": "tree_path", "tree_lone": "plain",
                 "forest": "forest_prefix", "forest_whole": "forest_prefix",
@@ -91,9 +74,7 @@ EXPECTED_HOW = {"tree_fraction": "tree_path", "tree_path": "tree_path", "tree_lo
 
 
 def _sweep(tmp_path, data, *, paths: bool) -> pd.DataFrame:
-    text = SPEC.format(data=data.name, models=textwrap.indent(MODELS, "  "))
-    (tmp_path / "spec.yaml").write_text(text)
-    spec = parse_spec(text, source=tmp_path / "spec.yaml")
+    spec = spec_from(tmp_path, MODELS, data=data.name)
     store = Store(tmp_path / f"paths_{paths}.duckdb")
     result = run_sweep(spec, store=store, jobs=1, paths=paths)
     assert result.status == "finished" and result.n_failed_fits == 0
@@ -264,8 +245,7 @@ def test_tasks_cover_every_cell_once_per_fold_and_keep_groups_whole(tmp_path, pa
     from .helpers import diabetes_frame
 
     diabetes_frame().to_csv(tmp_path / "diabetes.csv", index=False)
-    text = SPEC.format(data="diabetes.csv", models=textwrap.indent(MODELS, "  "))
-    prep = prepare(parse_spec(text, source=tmp_path / "spec.yaml"))
+    prep = prepare(spec_from(tmp_path, MODELS))
     tasks = _plan_tasks(prep, paths=paths, n_workers=n_workers)
     seen: dict = {}
     for task in tasks:
