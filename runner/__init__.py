@@ -10,75 +10,29 @@ from .store import Store  # noqa: E402
 
 __all__ = ["__version__", "FoldwiseError", "SpecError", "DataError", "StoreError", "QueryError",
            "Spec", "load_spec", "parse_spec", "spec_json_schema", "Store", "run_sweep",
-           "check_spec", "summary", "picks", "compare", "complexity_table", "importances",
-           "stability", "figure", "write_report"]
+           "check_spec", "summary", "pick_table", "compare_table", "complexity_table",
+           "importance_table", "stability_table", "figure", "write_report"]
 
 
-def run_sweep(*args, **kwargs):
-    """Run a sweep (see `runner.engine.run_sweep`)."""
-    from .engine import run_sweep as _run
-
-    return _run(*args, **kwargs)
-
-
-def check_spec(*args, **kwargs):
-    """Plan a sweep without fitting (see `runner.engine.check_spec`)."""
-    from .engine import check_spec as _check
-
-    return _check(*args, **kwargs)
+# name -> (module, attribute), imported on first use so `import runner` stays light. Names
+# differ from the submodules' (runner.picks is a module) so an import never shadows them.
+_LAZY = {
+    "run_sweep": ("engine", "run_sweep"), "check_spec": ("engine", "check_spec"),
+    "summary": ("queries", "summary"), "pick_table": ("picks", "picks"),
+    "compare_table": ("compare", "compare"), "complexity_table": ("picks", "complexity_table"),
+    "importance_table": ("explain", "importance_table"),
+    "stability_table": ("stability", "stability_summary"),
+    "figure": ("plots", "make_figure"), "write_report": ("report", "write_report"),
+}
 
 
-def summary(*args, **kwargs):
-    """Summary by model (see `runner.queries.summary`)."""
-    from .queries import summary as _summary
+def __getattr__(name: str):
+    """Import a public function from its module the first time it is asked for."""
+    if name not in _LAZY:
+        raise AttributeError(f"module 'runner' has no attribute {name!r}")
+    import importlib
 
-    return _summary(*args, **kwargs)
-
-
-def picks(*args, **kwargs):
-    """Picked cell per model and rule (see `runner.picks.picks`)."""
-    from .picks import picks as _picks
-
-    return _picks(*args, **kwargs)
-
-
-def compare(*args, **kwargs):
-    """Paired comparison of the models' picked cells (see `runner.compare.compare`)."""
-    from .compare import compare as _compare
-
-    return _compare(*args, **kwargs)
-
-
-def complexity_table(*args, **kwargs):
-    """One model's cells in complexity order (see `runner.picks.complexity_table`)."""
-    from .picks import complexity_table as _table
-
-    return _table(*args, **kwargs)
-
-
-def importances(*args, **kwargs):
-    """Stored importances of a sweep's explained cells (see `runner.explain.importance_table`)."""
-    from .explain import importance_table as _table
-
-    return _table(*args, **kwargs)
-
-
-def stability(*args, **kwargs):
-    """Stability of the explained cells across folds (see `runner.stability.stability_summary`)."""
-    from .stability import stability_summary as _summary
-
-    return _summary(*args, **kwargs)
-
-
-def figure(*args, **kwargs):
-    """One figure of a sweep as a matplotlib Figure (see `runner.plots.make_figure`)."""
-    from .plots import make_figure as _make
-
-    return _make(*args, **kwargs)
-
-
-def write_report(*args, **kwargs):
-    """Write the self-contained HTML report (see `runner.report.write_report`)."""
-    from .report import write_report as _write
-
-    return _write(*args, **kwargs)
+    module, attr = _LAZY[name]
+    value = getattr(importlib.import_module(f".{module}", __name__), attr)
+    globals()[name] = value
+    return value
