@@ -24,6 +24,11 @@ class _Group(click.Group):
         except FoldwiseError as exc:
             click.echo(f"Error: {exc}", err=True)
             ctx.exit(exc.exit_code)
+        except KeyboardInterrupt:
+            click.echo("Error: interrupted. Rows already written are kept; the next "
+                       "`foldwise run` of the spec marks the sweep interrupted and completes "
+                       "only what is missing.", err=True)
+            ctx.exit(130)
 
 
 def _store_option(f):

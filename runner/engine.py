@@ -38,6 +38,7 @@ from .errors import FoldwiseError
 from .families import FAMILIES, load_family
 from .grid import Cell, count_cells, expand_spec, spread_along_path
 from .resampling import REFIT, Fold, Plan, make_plan, plan_counts, plan_identity, refit_seed
+from .queries import process_alive
 from .spec import METRICS, Spec
 from .store import DEFAULT_STORE, Store
 
@@ -342,7 +343,7 @@ def run_sweep(spec: Spec, *, store: Store | None = None, jobs: int | None = None
     with hold:
         store.ensure_schema()
         host = socket.gethostname()
-        store.mark_interrupted(host, _process_alive)
+        store.mark_interrupted(host, process_alive)
         sweep_id = _new_sweep_id()
         n_train, n_test = plan_counts(spec, prep.frame)
         cells_df = pd.DataFrame([{"sweep_id": sweep_id, "cell_id": c.cell_id, "model": c.model,
@@ -460,16 +461,6 @@ def _reuse(store: Store, sweep_id: str, prep: Prepared, found
         source = folds[folds.cell_id.isin(whole)].groupby("cell_id").sweep_id.min()
         store.set_reused(sweep_id, source.rename("reused_from").reset_index())
     return frozenset(done), whole, copied
-
-
-def _process_alive(pid: int) -> bool:
-    """True if a process with this id exists on this host."""
-    try:
-        os.kill(pid, 0)
-    except ProcessLookupError:
-        return False
-    except PermissionError:
-        return True
     return True
 
 

@@ -3,6 +3,9 @@ summary grouped by model. All of it is SQL run through `Store.query`."""
 
 from __future__ import annotations
 
+import os
+import socket
+
 import pandas as pd
 
 from .store import Store
@@ -11,15 +14,34 @@ __all__ = ["sweeps", "summary", "cell_table"]
 
 
 def sweeps(store: Store) -> pd.DataFrame:
-    """One row per sweep, newest first, with its size and how it ended."""
-    return store.query("""
+    """One row per sweep, newest first, with its size and how it ended.
+
+    A sweep still marked 'running' whose process on this host is gone shows as
+    'interrupted' (the next `foldwise run` also records it so)."""
+    df = store.query("""
         select s.sweep_id, s.name, s.status, s.started_at,
                round(epoch(s.finished_at - s.started_at), 1) as seconds,
                s.n_train, s.n_test, s.k, s.repeats,
                (select count(*) from cells c where c.sweep_id = s.sweep_id) as cells,
                (select count(*) from fold_scores f where f.sweep_id = s.sweep_id) as fold_rows,
-               s.data_sha256[1:12] as data
+               s.data_sha256[1:12] as data, s.host, s.pid
         from sweeps s order by s.started_at desc, s.sweep_id desc""")
+    here = socket.gethostname()
+    dead = (df["status"] == "running") & (df["host"] == here) & ~df["pid"].map(
+        lambda pid: pid is not None and pid == pid and process_alive(int(pid)))
+    df.loc[dead, "status"] = "interrupted"
+    return df.drop(columns=["host", "pid"])
+
+
+def process_alive(pid: int) -> bool:
+    """True if a process with this id exists on this host."""
+    try:
+        os.kill(pid, 0)
+    except ProcessLookupError:
+        return False
+    except PermissionError:
+        return True
+    return True
 
 
 def _sweep_metrics(store: Store, sweep_id: str) -> list[str]:
