@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import numpy as np
+import pytest
 from hypothesis import given, settings, strategies as st
 
 from runner.grid import cell_id, expand_model, range_values, spread_along_path
@@ -50,23 +51,18 @@ def test_complexity_rank_linear_and_tree():
     assert order == [(5.0, 10), (5.0, 1), (1.0, 10), (1.0, 1), (0.0, 10), (0.0, 1)]
 
 
-def test_simpler_override_reverses_order():
+@pytest.mark.parametrize("family,param,values,direction,order", [
+    ("linear", "alpha", [1, 2], "lower", [1, 2]),          # reverses the default
+    ("forest", "max_samples", [0.5, 0.9], "lower", [0.5, 0.9]),   # outside the default order
+    ("forest", "max_samples", [0.5, 0.9], "higher", [0.9, 0.5]),
+])
+def test_simpler_override(family, param, values, direction, order):
+    grid = f"{{{param}: {values}}}" if family != "linear" else f"{{penalty: l2, {param}: {values}}}"
     spec = parse_spec("name: t\ndata: {path: d.csv, target: y}\ntest: {fraction: 0.2}\n"
-                      "models:\n  m: {family: linear, grid: {penalty: l2, alpha: [1, 2]},"
-                      " simpler: {alpha: lower}}\n")
+                      f"models:\n  m: {{family: {family}, grid: {grid},"
+                      f" simpler: {{{param}: {direction}}}}}\n")
     cells = expand_model("m", spec.models["m"], data_sha256="x", plan_identity=PLAN)
-    assert [c.params["alpha"] for c in cells] == [1, 2]
-
-
-def test_simpler_on_a_param_outside_the_default_order():
-    spec = parse_spec("name: t\ndata: {path: d.csv, target: y}\ntest: {fraction: 0.2}\n"
-                      "models:\n  m: {family: forest, grid: {max_samples: [0.5, 0.9]},"
-                      " simpler: {max_samples: lower}}\n")
-    cells = expand_model("m", spec.models["m"], data_sha256="x", plan_identity=PLAN)
-    assert [c.params["max_samples"] for c in cells] == [0.5, 0.9]
-    spec.models["m"].simpler["max_samples"] = "higher"
-    cells = expand_model("m", spec.models["m"], data_sha256="x", plan_identity=PLAN)
-    assert [c.params["max_samples"] for c in cells] == [0.9, 0.5]
+    assert [c.params[param] for c in cells] == order
 
 
 def test_path_values_spread_along_path():
