@@ -1,12 +1,10 @@
 """foldwise: tune and compare regression models by repeated cross-validation, keeping every
 fold score in DuckDB. The public API is re-exported here; nothing imported at this level
-pulls in scikit-learn."""
+pulls in scikit-learn, DuckDB or pandas, so `foldwise --help` starts fast."""
 
 __version__ = "0.1.0"
 
 from .errors import DataError, FoldwiseError, QueryError, SpecError, StoreError  # noqa: E402
-from .spec import Spec, load_spec, parse_spec, spec_json_schema  # noqa: E402
-from .store import Store  # noqa: E402
 
 __all__ = ["__version__", "FoldwiseError", "SpecError", "DataError", "StoreError", "QueryError",
            "Spec", "load_spec", "parse_spec", "spec_json_schema", "Store", "run_sweep",
@@ -17,6 +15,9 @@ __all__ = ["__version__", "FoldwiseError", "SpecError", "DataError", "StoreError
 # name -> (module, attribute), imported on first use so `import runner` stays light. Names
 # differ from the submodules' (runner.picks is a module) so an import never shadows them.
 _LAZY = {
+    "Spec": ("spec", "Spec"), "load_spec": ("spec", "load_spec"),
+    "parse_spec": ("spec", "parse_spec"), "spec_json_schema": ("spec", "spec_json_schema"),
+    "Store": ("store", "Store"),
     "run_sweep": ("engine", "run_sweep"), "check_spec": ("engine", "check_spec"),
     "summary": ("queries", "summary"), "pick_table": ("picks", "picks"),
     "compare_table": ("compare", "compare"), "complexity_table": ("picks", "complexity_table"),

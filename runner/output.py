@@ -3,11 +3,15 @@ command; plus the compact text forms of params and `mean ± se`."""
 
 from __future__ import annotations
 
+
 import json
 import math
 import sys
+from typing import TYPE_CHECKING
 
-import pandas as pd
+if TYPE_CHECKING:
+    import pandas as pd
+
 
 __all__ = ["emit", "FORMATS", "params_text", "mean_se", "number"]
 
@@ -66,6 +70,7 @@ def emit(df: pd.DataFrame, fmt: str, *, title: str | None = None, display: pd.Da
     if fmt == "json":
         out.write(json.dumps(_jsonable(df), indent=2) + "\n")
         return
+    import pandas as pd
     from rich.console import Console
     from rich.table import Table
 
