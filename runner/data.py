@@ -118,8 +118,7 @@ def type_features(df: pd.DataFrame, categorical: list[str], path: Path) -> tuple
             raise DataError(f"feature column '{name}' of {path} is entirely missing. Add it to "
                             "`data.drop` in the spec or fill it.")
         if name in categorical or _is_categorical(s):
-            text = s.astype(object).map(lambda v: v if v is None or v != v else str(v))
-            out[name] = text.where(s.notna(), np.nan).astype(object)
+            out[name] = s.astype(object).map(str).where(s.notna(), np.nan).astype(object)
             cats.append(name)
         else:
             out[name] = s.astype("float64")
