@@ -313,12 +313,15 @@ class Store:
         """Run a read-only query of foldwise's own and return a DataFrame."""
         self._require()
         with self._connect(read_only=True) as con:
-            found = self._schema_version(con)
-            if found is None:
-                raise StoreError(f"{self.path} is not a foldwise store (no foldwise_meta table).")
-            if found > SCHEMA_VERSION:
-                raise StoreError(f"store {self.path} was written by a newer foldwise (schema "
-                                 f"version {found}); upgrade foldwise to read it.")
+            if not getattr(self, "_schema_checked", False):  # once per Store, not per query
+                found = self._schema_version(con)
+                if found is None:
+                    raise StoreError(f"{self.path} is not a foldwise store (no foldwise_meta "
+                                     "table).")
+                if found > SCHEMA_VERSION:
+                    raise StoreError(f"store {self.path} was written by a newer foldwise "
+                                     f"(schema version {found}); upgrade foldwise to read it.")
+                self._schema_checked = True
             return con.execute(sql, params or []).df()
 
     def user_query(self, sql: str, *, allow_files: bool = False) -> pd.DataFrame:
