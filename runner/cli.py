@@ -32,10 +32,9 @@ class _Group(click.Group):
 
 
 def _store_option(f):
-    return click.option("--store", "store_path", type=click.Path(dir_okay=False),
-                        envvar=STORE_ENV, default=None,
-                        help="DuckDB store file [default: results/foldwise.duckdb, or "
-                             f"${STORE_ENV}].")(f)
+    return click.option("--store", "store_path", type=str, envvar=STORE_ENV, default=None,
+                        help="DuckDB store file, or a team store's postgresql://USER@HOST/DB "
+                             f"[default: results/foldwise.duckdb, or ${STORE_ENV}].")(f)
 
 
 def _format_option(f):
@@ -95,7 +94,10 @@ def check(spec_file):
                    "fit per fold; --no-paths fits every cell on its own, for checking.")
 @click.option("--fresh", is_flag=True,
               help="Refit every cell even if the store already holds its results.")
-def run(spec_file, store_path, jobs, quiet, paths, fresh):
+@click.option("--cluster", metavar="ADDRESS", envvar="FOLDWISE_CLUSTER", default=None,
+              help="Run the tasks on a Dask cluster: a scheduler's tcp://HOST:PORT, or "
+                   "local:N to start N worker processes here [default: local processes].")
+def run(spec_file, store_path, jobs, quiet, paths, fresh, cluster):
     """Run a sweep: score every cell on every fold and on the test split.
 
     \b
@@ -103,6 +105,8 @@ def run(spec_file, store_path, jobs, quiet, paths, fresh):
       foldwise run specs/greenhouse.yaml --jobs 2 --store results/team.duckdb
       foldwise run specs/greenhouse.yaml --no-paths
       foldwise run specs/greenhouse.yaml --fresh
+      foldwise run specs/greenhouse.yaml --cluster tcp://scheduler:8786
+      foldwise run specs/greenhouse.yaml --store postgresql://ana@db.internal/results
 
     Cells whose results the store already holds (same family, params, data and plan) are
     copied into the new sweep instead of refitted, so a rerun after a crash or a grid change
@@ -116,7 +120,8 @@ def run(spec_file, store_path, jobs, quiet, paths, fresh):
     store = Store(spec_store(spec, store_path), on_wait=lambda m: click.echo(m, err=True))
     bar = None if quiet else _ProgressBar(spec.name)
     try:
-        result = run_sweep(spec, store=store, jobs=jobs, progress=bar, paths=paths, fresh=fresh)
+        result = run_sweep(spec, store=store, jobs=jobs, progress=bar, paths=paths, fresh=fresh,
+                           cluster=cluster)
     finally:
         if bar is not None:
             bar.close()

@@ -35,6 +35,7 @@ import pandas as pd
 from . import __version__
 from .data import Frame, load_frame
 from .errors import FoldwiseError
+from .executors import DaskExecutor, LocalExecutor, make_executor
 from .families import FAMILIES, load_family
 from .grid import Cell, count_cells, expand_spec, spread_along_path
 from .resampling import REFIT, Fold, Plan, make_plan, plan_counts, plan_identity, refit_seed
@@ -177,7 +178,9 @@ def store_path(spec: Spec, override=None):
     if override is not None:
         return override
     if spec.store is not None:
-        return spec.resolve(spec.store)
+        from .locations import is_server_url
+
+        return spec.store if is_server_url(spec.store) else spec.resolve(spec.store)
     return DEFAULT_STORE
 
 
@@ -288,25 +291,25 @@ def _plan_tasks(prep: Prepared, *, paths: bool = True, n_workers: int = 1,
     return tasks
 
 
-def _calls(prep: Prepared, tasks: list[_Task], *, paths: bool):
-    """`_run_task` arguments per task, each task's rows sliced only as joblib asks for it."""
-    if not tasks:
-        return
+def _shared_data(prep: Prepared, *, paths: bool) -> dict:
+    """What every task reads: the training and test rows and the settings of every fit."""
     frame, plan = prep.frame, prep.plan
-    X_train = frame.X.iloc[plan.train_rows]
-    y_train = frame.y[plan.train_rows]
-    common = dict(metrics=prep.spec.metrics, numeric=frame.numeric,
-                  categorical=frame.categorical, paths=paths)
-    for task in tasks:
-        f = task.fold
-        if f is not None:
-            yield ((task.family, task.cells, X_train.iloc[f.fit], y_train[f.fit],
-                    X_train.iloc[f.valid], y_train[f.valid]),
-                   dict(seed=f.seed, repeat=f.repeat, fold=f.fold, **common))
-        else:
-            yield ((task.family, task.cells, X_train, y_train, frame.X.iloc[plan.test_rows],
-                    frame.y[plan.test_rows]),
-                   dict(seed=refit_seed(plan.seed), repeat=REFIT, fold=REFIT, **common))
+    return dict(X_train=frame.X.iloc[plan.train_rows], y_train=frame.y[plan.train_rows],
+                X_test=frame.X.iloc[plan.test_rows], y_test=frame.y[plan.test_rows],
+                refit_seed=refit_seed(plan.seed),
+                common=dict(metrics=prep.spec.metrics, numeric=frame.numeric,
+                            categorical=frame.categorical, paths=paths))
+
+
+def _task_call(data: dict, task: _Task) -> tuple[tuple, dict]:
+    """`_run_task` arguments for one task: its fold's rows cut from the shared data."""
+    X_train, y_train, f = data["X_train"], data["y_train"], task.fold
+    if f is not None:
+        return ((task.family, task.cells, X_train.iloc[f.fit], y_train[f.fit],
+                 X_train.iloc[f.valid], y_train[f.valid]),
+                dict(seed=f.seed, repeat=f.repeat, fold=f.fold, **data["common"]))
+    return ((task.family, task.cells, X_train, y_train, data["X_test"], data["y_test"]),
+            dict(seed=data["refit_seed"], repeat=REFIT, fold=REFIT, **data["common"]))
 
 
 def _new_sweep_id() -> str:
@@ -317,16 +320,17 @@ def run_sweep(spec: Spec, *, store: Store | None = None, jobs: int | None = None
               progress: Progress | None = None,
               on_message: Callable[[str], None] | None = None,
               paths: bool = True, fresh: bool = False,
-              batch_seconds: float = 1.0) -> SweepResult:
+              batch_seconds: float = 1.0, cluster: str | None = None,
+              executor: LocalExecutor | DaskExecutor | None = None) -> SweepResult:
     """Score every cell of the spec on every fold and on the test split, into the store.
 
     Results an earlier sweep already holds for the same cell id (same family, params, data
     and plan) and fold are copied, not refitted, unless `fresh`. `paths=False` fits every
     cell on its own instead of scoring path grids from one fit (same results; for
     checking, so it also copies nothing). Finished tasks are written at least every
-    `batch_seconds`."""
-    from joblib import Parallel, delayed, effective_n_jobs
-
+    `batch_seconds`. The tasks run in local worker processes (`jobs`), or on a Dask
+    cluster: `cluster` is a scheduler address (tcp://HOST:PORT) or local:N, or pass an
+    open `executor`; either way this process writes every row."""
     start = time.perf_counter()
     prep = prepare(spec)
     store = store or Store(store_path(spec), on_wait=on_message)
@@ -338,9 +342,13 @@ def run_sweep(spec: Spec, *, store: Store | None = None, jobs: int | None = None
     if not quick:
         prep.plan  # builds and checks the plan before anything is written
     hold = contextlib.ExitStack()
+    n_jobs = jobs or spec.jobs or -1
     if quick:  # only copying to do: one connection for it all, instead of dozens
         hold.enter_context(store.session())
     with hold:
+        if executor is None:  # reach the cluster before anything is written; none if quick
+            executor = LocalExecutor(n_jobs) if quick else hold.enter_context(
+                make_executor(cluster, n_jobs))
         store.ensure_schema()
         host = socket.gethostname()
         store.mark_interrupted(host, process_alive)
@@ -361,9 +369,8 @@ def run_sweep(spec: Spec, *, store: Store | None = None, jobs: int | None = None
             cells_df, {m: METRICS[m] for m in spec.metrics})
         done, reused, copied = _reuse(store, sweep_id, prep, found)
 
-        n_jobs = jobs or spec.jobs or -1
         tasks = [] if len(reused) == len(prep.cells) else _plan_tasks(
-            prep, paths=paths, n_workers=effective_n_jobs(n_jobs), done=done)
+            prep, paths=paths, n_workers=executor.n_workers, done=done)
         total = len(tasks)
         counts = {"fold": copied[0], "test": copied[1], "failed": 0}
         buffer: list = []
@@ -394,12 +401,11 @@ def run_sweep(spec: Spec, *, store: Store | None = None, jobs: int | None = None
 
         status = "finished"
         try:
-            runner = Parallel(n_jobs=n_jobs, return_as="generator_unordered")
             done = 0
             if progress:
                 progress(0, total)
-            calls = _calls(prep, tasks, paths=paths)
-            for result in runner(delayed(_run_task)(*args, **kw) for args, kw in calls):
+            data = _shared_data(prep, paths=paths) if tasks else {}
+            for result in executor.results(_run_task, data, tasks, _task_call):
                 buffer.append(result)
                 done += 1
                 if progress:
@@ -461,7 +467,6 @@ def _reuse(store: Store, sweep_id: str, prep: Prepared, found
         source = folds[folds.cell_id.isin(whole)].groupby("cell_id").sweep_id.min()
         store.set_reused(sweep_id, source.rename("reused_from").reset_index())
     return frozenset(done), whole, copied
-    return True
 
 
 def _user() -> str:

@@ -199,11 +199,21 @@ class Spec(_Strict):
     metrics: list[str] = Field(default_factory=lambda: ["rmse", "mae", "r2"],
                                description="the first one decides picks")
     pick: Literal["best", "one_se"] = Field("one_se", description="the default pick rule")
-    store: str | None = Field(None, description="DuckDB file, relative to the spec file")
+    store: str | None = Field(None, description="DuckDB file, relative to the spec file, or "
+                              "a team store's postgresql://USER@HOST[:PORT]/DATABASE")
     jobs: int | None = Field(None, description="parallel workers; default all cores")
     explain: ExplainPlan = Field(default_factory=ExplainPlan,
                                  description="importances and tree stability after the sweep")
     models: dict[str, ModelSpec] = Field(min_length=1)
+
+    @field_validator("store")
+    @classmethod
+    def _store_without_password(cls, v):
+        from .locations import is_server_url, url_problem
+
+        if v is not None and is_server_url(v) and url_problem(v):
+            raise ValueError(url_problem(v))
+        return v
 
     @field_validator("metrics")
     @classmethod

@@ -1,9 +1,11 @@
 """The store: the only module that speaks SQL to DuckDB. It takes plain rows and DataFrames
 and knows nothing of scikit-learn.
 
-Every operation opens a short-lived connection and closes it, so a sweep never holds the
-file's lock for long: two sweeps can write to one store in turn and another terminal can
-query while a sweep runs. Each batch is one transaction: it lands whole or not at all."""
+One class, two locations (`locations.py`): a DuckDB file, or a PostgreSQL database a team
+shares, attached through DuckDB so that the same SQL serves both. Every operation opens a
+short-lived connection and closes it, so a sweep never holds a file's lock for long: two
+sweeps can write to one store in turn and another terminal can query while a sweep runs.
+Each batch is one transaction: it lands whole or not at all."""
 
 from __future__ import annotations
 
@@ -18,6 +20,7 @@ import duckdb
 import pandas as pd
 
 from .errors import QueryError, StoreError
+from .locations import FileLocation, ServerLocation, locate
 
 __all__ = ["Store", "SCHEMA_VERSION", "DEFAULT_STORE"]
 
@@ -82,19 +85,19 @@ from fold_scores f join cells c using (sweep_id, cell_id)
 group by all;
 """
 
-_LOCK_WORDS = ("lock", "Conflicting lock", "being used by another process")
-
-
-def _is_lock_error(exc: Exception) -> bool:
-    return isinstance(exc, duckdb.IOException) and any(w in str(exc) for w in _LOCK_WORDS)
+TABLES = ("sweeps", "metrics", "cells", "fold_scores", "test_scores", "failures",
+          "importances", "fold_importances", "tree_folds", "tree_nodes", "test_predictions",
+          "explained")
+"""Every table of results, in the order a copy must fill them."""
 
 
 class Store:
-    """A DuckDB file of sweeps, cells and scores."""
+    """Sweeps, cells and scores in a DuckDB file or a team's PostgreSQL database."""
 
-    def __init__(self, path: str | Path = DEFAULT_STORE, *, wait_seconds: float = 120.0,
-                 on_wait: Callable[[str], None] | None = None):
-        self.path = Path(path)
+    def __init__(self, path: str | Path | FileLocation | ServerLocation = DEFAULT_STORE, *,
+                 wait_seconds: float = 120.0, on_wait: Callable[[str], None] | None = None):
+        self.location = locate(path)
+        self.path = self.location.path
         self.wait_seconds = wait_seconds
         self.on_wait = on_wait
 
@@ -110,10 +113,10 @@ class Store:
         delay, told = 0.05, False
         while True:
             try:
-                con = duckdb.connect(str(self.path), read_only=read_only, config=config or {})
+                con = self.location.connect(read_only=read_only, config=config)
                 break
             except duckdb.Error as exc:
-                if _is_lock_error(exc) and time.monotonic() < deadline:
+                if self.location.is_busy(exc) and time.monotonic() < deadline:
                     if not told and self.on_wait:
                         self.on_wait(f"store {self.path} is busy (another foldwise process is "
                                      "writing); waiting for it...")
@@ -121,9 +124,9 @@ class Store:
                     time.sleep(delay)
                     delay = min(delay * 1.5, 0.5)
                     continue
-                raise StoreError(f"cannot open store {self.path}: {exc}".rstrip(".") +
-                                 ". If another program holds the file open, close it; if the "
-                                 "file is not a foldwise store, choose another path.") from None
+                raise self.location.open_error(exc) from None
+        if self.location.shared:
+            _summary_view(con)
         try:
             yield con
         finally:
@@ -144,16 +147,7 @@ class Store:
 
     def check_writable(self) -> None:
         """Raise a StoreError unless this store can be created or written here."""
-        folder = self.path.parent if str(self.path.parent) else Path(".")
-        if not folder.exists():
-            raise StoreError(f"store folder {folder} does not exist. Create it, or set `store` "
-                             "in the spec (or --store) to a path in an existing folder.")
-        if self.path.exists() and (not os.access(self.path, os.W_OK)
-                                   or not self.path.stat().st_mode & 0o222):
-            raise StoreError(f"store {self.path} is read-only. Make it writable or choose "
-                             "another store path.")
-        if not self.path.exists() and not os.access(folder, os.W_OK):
-            raise StoreError(f"store folder {folder} is not writable. Choose another path.")
+        self.location.check_writable()
 
     def ensure_schema(self) -> None:
         """Create tables and views if missing; refuse a store from a newer foldwise."""
@@ -164,17 +158,29 @@ class Store:
                 raise StoreError(f"store {self.path} was written by a newer foldwise (schema "
                                  f"version {found}; this foldwise knows {SCHEMA_VERSION}). "
                                  "Upgrade foldwise or use another store.")
-            con.execute("begin")
-            con.execute(_TABLES)
-            con.execute(_VIEWS)
-            con.execute("insert or replace into foldwise_meta values ('schema_version', ?)",
-                        [str(SCHEMA_VERSION)])
-            con.execute("commit")
+            if found == SCHEMA_VERSION:
+                return
+            try:
+                con.execute("begin")
+                con.execute(_TABLES)
+                if not self.location.shared:  # a server's view lives in each connection
+                    con.execute(_VIEWS)
+                con.execute("insert or replace into foldwise_meta values ('schema_version', ?)",
+                            [str(SCHEMA_VERSION)])
+                con.execute("commit")
+            except duckdb.Error as exc:
+                con.execute("rollback")
+                if self.location.shared and self._schema_version(con) == SCHEMA_VERSION:
+                    return  # another writer created the tables at the same moment
+                raise StoreError(f"cannot create the tables of store {self.path}: {exc}"
+                                 ) from None
 
     @staticmethod
     def _schema_version(con) -> int | None:
         has = con.execute("select count(*) from information_schema.tables "
-                          "where table_name = 'foldwise_meta'").fetchone()[0]
+                          "where table_name = 'foldwise_meta' and table_catalog = "
+                          "current_database() and table_schema = current_schema()"
+                          ).fetchone()[0]
         if not has:
             return None
         row = con.execute("select value from foldwise_meta where key = 'schema_version'"
@@ -239,7 +245,7 @@ class Store:
 
         Returns (folds, tests): one row per (cell_id, repeat, fold) and per cell_id with the
         sweep_id of one earlier sweep that stored every asked metric for it."""
-        if not cell_ids or not self.path.exists():
+        if not cell_ids or not self._has_schema():
             empty = pd.DataFrame(columns=["cell_id", "repeat", "fold", "sweep_id"])
             return empty, pd.DataFrame(columns=["cell_id", "sweep_id"])
         ids = pd.DataFrame({"cell_id": list(dict.fromkeys(cell_ids))})
@@ -304,8 +310,14 @@ class Store:
             con.execute("commit")
 
     # -- reading ---------------------------------------------------------------------------
+    def _has_schema(self) -> bool:
+        if not self.location.exists():
+            return False
+        with self._connect(read_only=True) as con:
+            return self._schema_version(con) is not None
+
     def _require(self) -> None:
-        if not self.path.exists():
+        if not self.location.exists():
             raise StoreError(f"no store at {self.path}. Run a sweep first (`foldwise run "
                              "SPEC`), or point --store at an existing store.")
 
@@ -317,7 +329,8 @@ class Store:
                 found = self._schema_version(con)
                 if found is None:
                     raise StoreError(f"{self.path} is not a foldwise store (no foldwise_meta "
-                                     "table).")
+                                     "table). Run a sweep into it first (`foldwise run SPEC "
+                                     "--store ...`), or point --store at a foldwise store.")
                 if found > SCHEMA_VERSION:
                     raise StoreError(f"store {self.path} was written by a newer foldwise "
                                      f"(schema version {found}); upgrade foldwise to read it.")
@@ -366,3 +379,11 @@ class Store:
                              "`foldwise sweeps` lists them.")
         raise StoreError(f"sweep id prefix '{sweep_id}' matches {len(df)} sweeps; give more "
                          "characters.")
+
+
+def _summary_view(con) -> None:
+    """The summary view, made for this connection only (a server keeps no DuckDB views)."""
+    try:
+        con.execute(_VIEWS.replace("create or replace view", "create or replace temp view"))
+    except duckdb.CatalogException:
+        pass  # no tables yet

@@ -1,0 +1,157 @@
+"""Where a sweep's tasks run: worker processes on this machine (joblib), or the workers of
+a Dask cluster. The engine only submits tasks and receives their rows, in the order they
+finish; it never learns which.
+
+A task is `work(*args, **kwargs)` with the arguments that `unpack(data, item)` builds from
+the sweep's shared data and one light task description. Locally each task's rows are cut
+from the data in this process as the task is sent; on a cluster the data travel to every
+worker once (scattered) and each worker cuts its own task's rows."""
+
+from __future__ import annotations
+
+import logging
+from typing import Any, Callable, Iterable, Iterator
+
+from .errors import FoldwiseError
+
+__all__ = ["LocalExecutor", "DaskExecutor", "make_executor", "ClusterError"]
+
+Unpack = Callable[[dict, Any], tuple[tuple, dict]]
+
+
+class ClusterError(FoldwiseError, RuntimeError):
+    """The Dask cluster cannot be reached or started as asked."""
+
+    exit_code = 2
+
+
+class LocalExecutor:
+    """joblib worker processes on this machine (`jobs`: -1 = every core)."""
+
+    name = "local"
+
+    def __init__(self, jobs: int = -1):
+        self.jobs = jobs
+
+    @property
+    def n_workers(self) -> int:
+        from joblib import effective_n_jobs
+
+        return effective_n_jobs(self.jobs)
+
+    def __enter__(self):
+        return self
+
+    def __exit__(self, *exc) -> None:
+        return None
+
+    def results(self, work: Callable, data: dict, items: Iterable, unpack: Unpack) -> Iterator:
+        """Each item's result, in the order the tasks finish."""
+        from joblib import Parallel, delayed
+
+        calls = (unpack(data, item) for item in items)
+        runner = Parallel(n_jobs=self.jobs, return_as="generator_unordered")
+        yield from runner(delayed(work)(*args, **kw) for args, kw in calls)
+
+
+def _on_worker(work: Callable, unpack: Unpack, data: dict, item):
+    args, kwargs = unpack(data, item)
+    return work(*args, **kwargs)
+
+
+class DaskExecutor:
+    """The workers of a Dask cluster: an existing scheduler (`tcp://HOST:PORT`) or a
+    LocalCluster of N worker processes started here (`local:N`).
+
+    A worker lost mid-sweep costs only its unfinished tasks, which the scheduler reruns
+    elsewhere (and `retries` reruns a task that raised); each task's result is received
+    once, so no row is written twice."""
+
+    name = "dask"
+
+    def __init__(self, address: str, *, retries: int = 1, connect_seconds: float = 20.0):
+        self.address = address
+        self.retries = retries
+        self.connect_seconds = connect_seconds
+        self.client = None
+        self._cluster = None
+        self.n_scatters = 0
+
+    @property
+    def n_workers(self) -> int:
+        info = self.client.scheduler_info() if self.client is not None else {}
+        return max(1, len(info.get("workers", {})))
+
+    def __enter__(self):
+        try:
+            from distributed import Client, LocalCluster
+        except ImportError:
+            raise ClusterError("running on a Dask cluster needs the packages dask and "
+                               "distributed: pip install 'foldwise[cluster]'.") from None
+        quiet = logging.ERROR
+        if self.address.startswith("local:"):
+            n = _local_workers(self.address)
+            self._cluster = LocalCluster(n_workers=n, threads_per_worker=1, processes=True,
+                                         dashboard_address=None, silence_logs=quiet)
+            self.client = Client(self._cluster)
+        else:
+            try:
+                self.client = Client(self.address, timeout=self.connect_seconds)
+            except (OSError, TimeoutError, ValueError) as exc:
+                raise ClusterError(f"cannot reach the Dask scheduler at {self.address}: "
+                                   f"{exc}. Start one with `dask scheduler` and workers with "
+                                   "`dask worker ADDRESS`, or use --cluster local:N to start "
+                                   "workers on this machine.") from None
+            if not self.client.scheduler_info().get("workers"):
+                self.client.wait_for_workers(1, timeout=self.connect_seconds)
+        return self
+
+    def __exit__(self, *exc) -> None:
+        if self.client is not None:
+            self.client.close()
+        if self._cluster is not None:
+            self._cluster.close()
+        self.client = self._cluster = None
+
+    def results(self, work: Callable, data: dict, items: Iterable, unpack: Unpack) -> Iterator:
+        """Each item's result as its task finishes; unfinished tasks are cancelled if the
+        caller stops early (Ctrl-C)."""
+        from distributed import as_completed
+
+        items = list(items)
+        if not items:
+            return
+        [shared] = self.client.scatter([data], broadcast=True, hash=False)
+        self.n_scatters += 1
+        futures = [self.client.submit(_on_worker, work, unpack, shared, item, pure=False,
+                                      retries=self.retries) for item in items]
+        try:
+            for future in as_completed(futures):
+                result = future.result()
+                future.release()
+                yield result
+        finally:
+            self.client.cancel(futures)
+            del shared
+
+
+def _local_workers(address: str) -> int:
+    try:
+        n = int(address.split(":", 1)[1])
+    except ValueError:
+        n = 0
+    if n < 1:
+        raise ClusterError(f"--cluster {address}: write local:N with N worker processes, "
+                           "for example local:2.")
+    return n
+
+
+def make_executor(cluster: str | None, jobs: int) -> LocalExecutor | DaskExecutor:
+    """A Dask executor if a cluster is named, else local worker processes."""
+    if cluster:
+        if not (cluster.startswith(("local:", "tcp://", "tls://", "ws://", "wss://",
+                                    "inproc://", "ucx://"))):
+            raise ClusterError(f"--cluster {cluster}: give a scheduler address such as "
+                               "tcp://HOST:8786, or local:N to start N workers here.")
+        return DaskExecutor(cluster)
+    return LocalExecutor(jobs)

@@ -1,0 +1,235 @@
+"""Where a store lives: a DuckDB file on this machine, or a PostgreSQL database that a team
+shares, reached through DuckDB's PostgreSQL extension so that every query keeps one SQL
+dialect. Each location only opens DuckDB connections; the SQL of the store is in
+`store.py`.
+
+The extension comes from the `duckdb-extension-postgres` package that matches the pinned
+DuckDB version (`pip install 'foldwise[team]'`) and is loaded from that package's file;
+foldwise never lets DuckDB download an extension. Credentials never pass through
+foldwise: libpq reads them from PGPASSWORD or a password file (~/.pgpass, PGPASSFILE),
+and a store URL that carries a password is refused."""
+
+from __future__ import annotations
+
+import os
+import tempfile
+from pathlib import Path
+from urllib.parse import parse_qsl, urlsplit, urlunsplit
+
+from .errors import StoreError
+
+__all__ = ["FileLocation", "ServerLocation", "locate", "is_server_url", "url_problem",
+           "SERVER_SCHEMES"]
+
+SERVER_SCHEMES = ("postgresql", "postgres")
+_NO_DOWNLOADS = {"autoinstall_known_extensions": False, "autoload_known_extensions": False}
+_LOCK_WORDS = ("lock", "Conflicting lock", "being used by another process")
+
+
+def is_server_url(location) -> bool:
+    """True if `location` names a database server rather than a file."""
+    return isinstance(location, str) and location.split("://", 1)[0] in SERVER_SCHEMES \
+        and "://" in location
+
+
+def locate(location) -> "FileLocation | ServerLocation":
+    """The location a `--store` value or spec `store` field names."""
+    if isinstance(location, (FileLocation, ServerLocation)):
+        return location
+    return ServerLocation(location) if is_server_url(location) else FileLocation(location)
+
+
+class FileLocation:
+    """A DuckDB file: one writer at a time, so a busy file is worth waiting for."""
+
+    kind = "file"
+    shared = False
+
+    def __init__(self, path):
+        self.path = Path(path)
+
+    def __str__(self) -> str:
+        return str(self.path)
+
+    def exists(self) -> bool:
+        return self.path.exists()
+
+    def check_writable(self) -> None:
+        folder = self.path.parent if str(self.path.parent) else Path(".")
+        if not folder.exists():
+            raise StoreError(f"store folder {folder} does not exist. Create it, or set `store` "
+                             "in the spec (or --store) to a path in an existing folder.")
+        if self.path.exists() and (not os.access(self.path, os.W_OK)
+                                   or not self.path.stat().st_mode & 0o222):
+            raise StoreError(f"store {self.path} is read-only. Make it writable or choose "
+                             "another store path.")
+        if not self.path.exists() and not os.access(folder, os.W_OK):
+            raise StoreError(f"store folder {folder} is not writable. Choose another path.")
+
+    def connect(self, *, read_only: bool, config: dict | None = None):
+        import duckdb
+
+        return duckdb.connect(str(self.path), read_only=read_only, config=config or {})
+
+    def attach_sql(self, alias: str) -> str:
+        """The ATTACH statement that opens this store read-only inside another connection."""
+        return f"attach '{_quote(self.path)}' as {alias} (read_only)"
+
+    @staticmethod
+    def is_busy(exc: Exception) -> bool:
+        import duckdb
+
+        return isinstance(exc, duckdb.IOException) and any(w in str(exc) for w in _LOCK_WORDS)
+
+    def open_error(self, exc: Exception) -> StoreError:
+        return StoreError(f"cannot open store {self.path}: {exc}".rstrip(".") + ". If another "
+                          "program holds the file open, close it; if the file is not a "
+                          "foldwise store, choose another path.")
+
+
+class ServerLocation:
+    """A PostgreSQL database, attached to an in-memory DuckDB connection as `team`.
+
+    PostgreSQL takes many writers at once and enforces the primary keys, so concurrent
+    sweeps from many machines neither wait for each other nor duplicate a row."""
+
+    kind = "server"
+    shared = True
+    alias = "team"
+
+    def __init__(self, url: str):
+        problem = url_problem(url)
+        if problem:
+            raise StoreError(problem)
+        self.url = url
+
+    def __str__(self) -> str:
+        return self.url
+
+    @property
+    def path(self) -> str:
+        return self.url
+
+    def exists(self) -> bool:
+        return True
+
+    def check_writable(self) -> None:
+        """Reaching the server is the only check worth making; `connect` makes it."""
+        con = self.connect(read_only=False)
+        con.close()
+
+    def connect(self, *, read_only: bool, config: dict | None = None):
+        """A DuckDB connection whose default catalog is the attached PostgreSQL database.
+
+        `config` settings (such as enable_external_access=false) are applied after the
+        attach, since they would forbid loading the extension itself."""
+        import duckdb
+
+        con = duckdb.connect(config=_NO_DOWNLOADS)
+        try:
+            con.execute(f"load '{_quote(postgres_extension())}'")
+            con.execute(self.attach_sql(self.alias, read_only=read_only))
+            con.execute(f"use {self.alias}")
+            for key, value in (config or {}).items():
+                con.execute(f"set {key} = {_literal(value)}")
+        except BaseException:
+            con.close()
+            raise
+        return con
+
+    def attach_sql(self, alias: str, *, read_only: bool = True) -> str:
+        mode = ", read_only" if read_only else ""
+        return f"attach '{_quote(self.url)}' as {alias} (type postgres{mode})"
+
+    @staticmethod
+    def is_busy(exc: Exception) -> bool:
+        return False
+
+    def open_error(self, exc: Exception) -> StoreError:
+        reason = str(exc).split(": ", 1)[-1].strip().rstrip(".")
+        hint = ""
+        if "password" in reason or "authentication" in reason:
+            hint = (" Give the password to PostgreSQL's client through PGPASSWORD or a line "
+                    "in ~/.pgpass (HOST:PORT:DATABASE:USER:PASSWORD, mode 600).")
+        elif "does not exist" in reason:
+            hint = " Ask the server's owner to create it (createdb), or fix the URL."
+        else:
+            hint = " Check the host, port and that the server accepts connections from here."
+        return StoreError(f"cannot open team store {self.url}: {reason}.{hint}")
+
+
+def url_problem(url: str) -> str | None:
+    """Why a server URL cannot be used as it is (a password in it, no database), or None."""
+    parts = urlsplit(url)
+    if parts.password is not None or any(k.lower() == "password"
+                                         for k, _ in parse_qsl(parts.query)):
+        shown = urlunsplit(parts._replace(netloc=_netloc(parts),
+                                          query=_no_password(parts.query)))
+        return (f"the store URL {shown} carries a password; foldwise never keeps a password "
+                "in a spec, a command line or the store. Remove it from the URL and give it "
+                "to PostgreSQL's client the usual way: the PGPASSWORD environment variable "
+                "or a line in ~/.pgpass (or the file PGPASSFILE names).")
+    if not parts.path.strip("/"):
+        return (f"the store URL {url} names no database; write it as "
+                "postgresql://USER@HOST[:PORT]/DATABASE.")
+    return None
+
+
+def postgres_extension() -> Path:
+    """The PostgreSQL extension file shipped by the pinned `duckdb-extension-postgres`.
+
+    Its entry point is named `postgres_scanner`, which DuckDB derives from the file name,
+    so it is loaded through a link of that name in a private cache folder."""
+    import importlib.util
+
+    import duckdb
+
+    spec = importlib.util.find_spec("duckdb_extension_postgres")
+    if spec is None or not spec.submodule_search_locations:
+        raise StoreError("a team store on PostgreSQL needs DuckDB's PostgreSQL extension, "
+                         "which is not installed. Install it with pip install "
+                         "'foldwise[team]' (it matches DuckDB " + duckdb.__version__ + ").")
+    folder = Path(spec.submodule_search_locations[0])
+    wanted = f"v{duckdb.__version__}"
+    found = [p for p in folder.rglob("*.duckdb_extension") if wanted in p.parts]
+    if not found:
+        raise StoreError(f"the installed duckdb-extension-postgres does not match DuckDB "
+                         f"{duckdb.__version__}. Reinstall with pip install 'foldwise[team]', "
+                         "which pins the two together.")
+    cache = Path(os.environ.get("XDG_CACHE_HOME") or Path.home() / ".cache") / "foldwise" / wanted
+    link = cache / "postgres_scanner.duckdb_extension"
+    try:
+        cache.mkdir(parents=True, exist_ok=True)
+        if not link.exists() or link.resolve() != found[0].resolve():
+            tmp = cache / f".link-{os.getpid()}"
+            tmp.unlink(missing_ok=True)
+            tmp.symlink_to(found[0])
+            os.replace(tmp, link)
+    except OSError:
+        link = Path(tempfile.mkdtemp(prefix="foldwise-ext-")) / link.name
+        link.symlink_to(found[0])
+    return link
+
+
+def _quote(text) -> str:
+    return str(text).replace("'", "''")
+
+
+def _literal(value) -> str:
+    if isinstance(value, bool):
+        return "true" if value else "false"
+    if isinstance(value, (int, float)):
+        return str(value)
+    return f"'{_quote(value)}'"
+
+
+def _netloc(parts) -> str:
+    host = parts.hostname or ""
+    if parts.port:
+        host = f"{host}:{parts.port}"
+    return f"{parts.username}:***@{host}" if parts.username else f"***@{host}"
+
+
+def _no_password(query: str) -> str:
+    return "&".join(f"{k}={'***' if k.lower() == 'password' else v}"
+                    for k, v in parse_qsl(query))
