@@ -9,7 +9,8 @@ from .errors import DataError, FoldwiseError, QueryError, SpecError, StoreError 
 __all__ = ["__version__", "FoldwiseError", "SpecError", "DataError", "StoreError", "QueryError",
            "Spec", "load_spec", "parse_spec", "spec_json_schema", "Store", "run_sweep",
            "check_spec", "summary", "pick_table", "compare_table", "complexity_table",
-           "importance_table", "stability_table", "figure", "write_report"]
+           "importance_table", "stability_table", "figure", "write_report", "merge_store",
+           "export_store"]
 
 
 # name -> (module, attribute), imported on first use so `import runner` stays light. Names
@@ -24,6 +25,7 @@ _LAZY = {
     "importance_table": ("explain", "importance_table"),
     "stability_table": ("stability", "stability_summary"),
     "figure": ("plots", "make_figure"), "write_report": ("report", "write_report"),
+    "merge_store": ("store", "merge_store"), "export_store": ("store", "export_store"),
 }
 
 

@@ -237,6 +237,56 @@ def sql(query, store_path, fmt, allow_files):
     emit(_open_store(store_path).user_query(query, allow_files=allow_files), fmt)
 
 
+# -- moving results between stores ---------------------------------------------------------
+@main.command()
+@click.argument("other")
+@_store_option
+def merge(other, store_path):
+    """Copy every sweep of another store into this one, skipping sweeps it already holds.
+
+    OTHER is a store file, a team store's postgresql:// URL, or a folder written by
+    `foldwise export`. Each sweep comes whole (cells, fold and test scores, explain rows),
+    all in one transaction; sweeps still running there are left for a later merge.
+
+    \b
+      foldwise merge ~/laptop-results.duckdb --store postgresql://ana@db.internal/results
+      foldwise merge shared/exports/2026-12
+    """
+    from .store import merge_store
+
+    store = _open_store(store_path)
+    result = merge_store(store, other)
+    copied = {t: n for t, n in result.rows.items() if n}
+    click.echo(f"merged {len(result.new_sweeps)} sweep(s) from {other} into {store.path}"
+               + (": " + ", ".join(f"{n} {t}" for t, n in copied.items()) if copied else "")
+               + ".")
+    if result.present:
+        click.echo(f"skipped {len(result.present)} sweep(s) already in this store.")
+    if result.running:
+        click.echo(f"left out {len(result.running)} sweep(s) still marked running there "
+                   f"({', '.join(result.running)}); merge again once they finish.", err=True)
+
+
+@main.command()
+@click.argument("folder", type=click.Path(file_okay=False))
+@click.option("--format", "fmt", type=click.Choice(["parquet", "csv"]), default="parquet",
+              show_default=True, help="One file per table in this format.")
+@_store_option
+def export(folder, fmt, store_path):
+    """Write every table of the store into FOLDER, one file per table, with a manifest;
+    `foldwise merge FOLDER` reads it back into any store.
+
+    \b
+      foldwise export shared/exports/2026-12
+      foldwise export out/ --format csv
+    """
+    from .store import export_store
+
+    counts = export_store(_open_store(store_path), folder, fmt)
+    click.echo(f"exported {sum(counts.values())} rows in {len(counts)} tables to {folder} "
+               f"({fmt}).")
+
+
 # -- picks, comparisons and the complexity table -------------------------------------------
 _RULES = ("best", "one_se")
 _SE_KINDS = ("plain", "corrected")

@@ -146,7 +146,7 @@ class ServerLocation:
         return False
 
     def open_error(self, exc: Exception) -> StoreError:
-        reason = str(exc).split(": ", 1)[-1].strip().rstrip(".")
+        reason = " ".join(str(exc).split(": ", 1)[-1].split()).rstrip(".?")
         hint = ""
         if "password" in reason or "authentication" in reason:
             hint = (" Give the password to PostgreSQL's client through PGPASSWORD or a line "
