@@ -509,7 +509,7 @@ def plot(kind, store_path, sweep_id, model, rule, method, depth, se, out_dir, im
     sid = store.resolve_sweep(sweep_id)
     if kind == "complexity":
         models = [model] if model else store.query(
-            "select model from cells where sweep_id = ? group by model order by min(rowid)",
+            "select model from cells where sweep_id = ? group by model order by min(position)",
             [sid])["model"].tolist()
         jobs = [(dict(model=m, se=se), f"{kind}-{m}") for m in models]
     elif kind == "tree":

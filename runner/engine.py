@@ -356,7 +356,8 @@ def run_sweep(spec: Spec, *, store: Store | None = None, jobs: int | None = None
         n_train, n_test = plan_counts(spec, prep.frame)
         cells_df = pd.DataFrame([{"sweep_id": sweep_id, "cell_id": c.cell_id, "model": c.model,
                                   "family": c.family, "params": c.params_json,
-                                  "complexity_rank": c.complexity_rank} for c in prep.cells])
+                                  "complexity_rank": c.complexity_rank, "position": i}
+                                 for i, c in enumerate(prep.cells)])
         store.begin_sweep({
             "sweep_id": sweep_id, "name": spec.name,
             "spec_path": str(spec.source) if spec.source else None, "spec_text": spec.text,

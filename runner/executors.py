@@ -69,7 +69,7 @@ class DaskExecutor:
 
     name = "dask"
 
-    def __init__(self, address: str, *, retries: int = 1, connect_seconds: float = 20.0):
+    def __init__(self, address: str, *, retries: int = 1, connect_seconds: float = 10.0):
         self.address = address
         self.retries = retries
         self.connect_seconds = connect_seconds

@@ -265,7 +265,7 @@ def chosen_cells(store: Store, sweep_id: str, which: str = "picked") -> pd.DataF
     if which == "none":
         return pd.DataFrame(columns=["cell_id", "model", "family", "params"])
     cells = store.query("select cell_id, model, family, params from cells where sweep_id = ? "
-                        "order by rowid", [sweep_id])
+                        "order by position", [sweep_id])
     if which == "all":
         return cells
     from .picks import picks
@@ -427,7 +427,7 @@ def importance_table(store: Store, sweep_id: str | None = None, *,
                                      "method", "feature", "value", "spread", "picked", "rank"])
     df = store.query("""
         select c.model, c.family, i.cell_id, c.params, c.complexity_rank, i.method, i.feature,
-               i.value, i.spread, min(c.rowid) over (partition by c.model) as model_row
+               i.value, i.spread, min(c.position) over (partition by c.model) as model_row
         from importances i join cells c on c.sweep_id = i.sweep_id and c.cell_id = i.cell_id
         where i.sweep_id = ? and (?::varchar is null or i.method = ?)""",
                      [sweep_id, method, method])
@@ -449,7 +449,7 @@ def prediction_table(store: Store, sweep_id: str | None = None) -> pd.DataFrame:
                                      "predicted", "picked"])
     df = store.query("""
         select c.model, c.family, p.cell_id, p."row", p.observed, p.predicted,
-               min(c.rowid) over (partition by c.model) as model_row
+               min(c.position) over (partition by c.model) as model_row
         from test_predictions p
         join cells c on c.sweep_id = p.sweep_id and c.cell_id = p.cell_id
         where p.sweep_id = ? order by model_row, p.cell_id, p."row" """, [sweep_id])
@@ -477,5 +477,5 @@ def tree_fold_table(store: Store, sweep_id: str | None = None) -> pd.DataFrame:
         select c.model, t.cell_id, t."repeat", t.fold, t.n_leaves, t.depth, t.root_feature,
                t.root_threshold, t.root_rule, t.features_used
         from tree_folds t join cells c on c.sweep_id = t.sweep_id and c.cell_id = t.cell_id
-        where t.sweep_id = ? order by c.rowid, t."repeat", t.fold""", [sweep_id])
+        where t.sweep_id = ? order by c.position, t."repeat", t.fold""", [sweep_id])
 

@@ -115,14 +115,42 @@ class ServerLocation:
 
     def check_writable(self) -> None:
         """Reaching the server is the only check worth making; `connect` makes it."""
-        con = self.connect(read_only=False)
-        con.close()
+        self.connect(read_only=False).close()
 
     def connect(self, *, read_only: bool, config: dict | None = None):
         """A DuckDB connection whose default catalog is the attached PostgreSQL database.
 
-        `config` settings (such as enable_external_access=false) are applied after the
-        attach, since they would forbid loading the extension itself."""
+        Loading the extension and attaching cost about half a second, so foldwise's own
+        operations share one attached DuckDB instance per process and each gets a cursor
+        of it. A user's query (`config` given) gets a fresh instance attached read-only,
+        whose settings (such as enable_external_access=false) cannot leak into others."""
+        if config is None:
+            shared = self._shared_instance()
+            cursor = shared.cursor()
+            try:
+                cursor.execute(f"use {self.alias}")
+            except BaseException:
+                cursor.close()
+                raise
+            return cursor
+        return self._open(read_only=read_only, config=config)
+
+    _instances: dict = {}
+
+    def _shared_instance(self):
+        key = (self.url, os.getpid())
+        if key not in ServerLocation._instances:
+            ServerLocation._instances[key] = self._open(read_only=False, config=None)
+        return ServerLocation._instances[key]
+
+    def forget_catalog(self) -> None:
+        """Make the shared instance read the server's table list afresh (another process may
+        just have created the tables)."""
+        key = (self.url, os.getpid())
+        if key in ServerLocation._instances:
+            ServerLocation._instances[key].execute("call pg_clear_cache()")
+
+    def _open(self, *, read_only: bool, config: dict | None):
         import duckdb
 
         con = duckdb.connect(config=_NO_DOWNLOADS)

@@ -133,7 +133,7 @@ _CELLS_SQL = """
     plan as (select k * repeats as n_folds from sweeps where sweep_id = $1),
     stats as (
         select c.model, c.family, c.cell_id, c.params, c.complexity_rank,
-               min(c.rowid) as cell_row, count(f.value) as n, avg(f.value) as mean,
+               min(c.position) as cell_row, count(f.value) as n, avg(f.value) as mean,
                stddev_samp(f.value) as sd, avg(f.n_valid::double / f.n_train) as valid_ratio,
                avg(f.n_leaves) as mean_leaves
         from cells c
@@ -284,7 +284,7 @@ def shown_params(family: str, params_list: list[dict]) -> list[str]:
 
 def varying_params(store: Store, sweep_id: str) -> dict[str, list[str]]:
     """Per model of a sweep, the names of the params that take more than one value."""
-    cells = store.query("select model, params from cells where sweep_id = ? order by rowid",
+    cells = store.query("select model, params from cells where sweep_id = ? order by position",
                         [sweep_id])
     seen: dict[str, dict[str, set]] = {}
     for model, params in zip(cells["model"], cells["params"]):

@@ -72,7 +72,7 @@ def metric_label(metric: str, target: str, *, prefix: str = "CV") -> str:
 def model_colours(store: Store, sweep_id: str) -> dict[str, str]:
     """One palette colour per model, in spec order (the same in every figure)."""
     models = store.query("select model from cells where sweep_id = ? group by model "
-                         "order by min(rowid)", [sweep_id])["model"].tolist()
+                         "order by min(position)", [sweep_id])["model"].tolist()
     return {m: PALETTE[i % len(PALETTE)] for i, m in enumerate(models)}
 
 

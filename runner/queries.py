@@ -82,7 +82,7 @@ def summary(store: Store, sweep_id: str | None = None, *,
     rule = chosen.attrs["rules"][0]
     long = store.query("""
         with picked as (select unnest(?::varchar[]) as cell_id),
-        sizes as (select c.model, c.family, count(*) as cells, min(c.rowid) as first_row,
+        sizes as (select c.model, c.family, count(*) as cells, min(c.position) as first_row,
                          count(*) filter (where exists (
                              select 1 from failures f
                              where f.sweep_id = c.sweep_id and f.cell_id = c.cell_id))

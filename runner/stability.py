@@ -111,7 +111,7 @@ def stability_summary(store: Store, sweep_id: str | None = None) -> pd.DataFrame
         return pd.DataFrame(columns=_COLUMNS)
     imp = store.query("""
         select c.model, c.family, f.cell_id, f."repeat", f.fold, f.method, f.feature, f.value,
-               c.rowid as cell_row
+               c.position as cell_row
         from fold_importances f
         join cells c on c.sweep_id = f.sweep_id and c.cell_id = f.cell_id
         where f.sweep_id = ?""", [sweep_id])

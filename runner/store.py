@@ -9,6 +9,7 @@ Each batch is one transaction: it lands whole or not at all."""
 
 from __future__ import annotations
 
+import contextlib
 import json
 import os
 import shutil
@@ -28,7 +29,8 @@ from .locations import FileLocation, ServerLocation, locate
 __all__ = ["Store", "SCHEMA_VERSION", "DEFAULT_STORE", "TABLES", "export_store", "merge_store",
            "MergeResult", "EXPORT_FORMATS"]
 
-SCHEMA_VERSION = 1
+SCHEMA_VERSION = 2
+"""2: cells.position keeps spec order explicit (a server table has no insertion order)."""
 DEFAULT_STORE = Path("results") / "foldwise.duckdb"
 
 _TABLES = """
@@ -43,7 +45,8 @@ create table if not exists sweeps (
 create table if not exists metrics (metric varchar primary key, better varchar);
 create table if not exists cells (
     sweep_id varchar, cell_id varchar, model varchar, family varchar, params json,
-    complexity_rank integer, reused_from varchar, primary key (sweep_id, cell_id));
+    complexity_rank integer, reused_from varchar, position integer,
+    primary key (sweep_id, cell_id));
 create table if not exists fold_scores (
     sweep_id varchar, cell_id varchar, "repeat" integer, fold integer, metric varchar,
     value double, fit_seconds double, n_train integer, n_valid integer, seed bigint,
@@ -79,6 +82,14 @@ create table if not exists explained (
     primary key (sweep_id, cell_id));
 """
 
+_CONFLICT_WORDS = ("could not serialize", "deadlock detected", "concurrent update")
+
+
+def _is_conflict(exc: Exception) -> bool:
+    """A server aborted the transaction for a concurrent one; running it again is safe."""
+    return any(w in str(exc) for w in _CONFLICT_WORDS)
+
+
 _VIEWS = """
 create or replace view cell_summary as
 select f.sweep_id, f.cell_id, c.model, c.family, c.params, c.complexity_rank, f.metric,
@@ -95,6 +106,10 @@ TABLES = ("sweeps", "metrics", "cells", "fold_scores", "test_scores", "failures"
 """Every table of results, in the order a copy must fill them."""
 
 
+class _Reopen(Exception):
+    """The store was upgraded under a connection that must now be opened afresh."""
+
+
 class Store:
     """Sweeps, cells and scores in a DuckDB file or a team's PostgreSQL database."""
 
@@ -104,6 +119,7 @@ class Store:
         self.path = self.location.path
         self.wait_seconds = wait_seconds
         self.on_wait = on_wait
+        self._held = None
 
     # -- connections -------------------------------------------------------------------
     @contextmanager
@@ -154,30 +170,45 @@ class Store:
         self.location.check_writable()
 
     def ensure_schema(self) -> None:
-        """Create tables and views if missing; refuse a store from a newer foldwise."""
+        """Create tables and views if missing; refuse a store from a newer foldwise.
+
+        On a server several first sweeps may race to create the tables; PostgreSQL lets
+        one win and the others look again on a fresh connection, which then sees them."""
         self.check_writable()
-        with self._connect(read_only=False) as con:
-            found = self._schema_version(con)
-            if found is not None and found > SCHEMA_VERSION:
-                raise StoreError(f"store {self.path} was written by a newer foldwise (schema "
-                                 f"version {found}; this foldwise knows {SCHEMA_VERSION}). "
-                                 "Upgrade foldwise or use another store.")
-            if found == SCHEMA_VERSION:
-                return
-            try:
-                con.execute("begin")
-                con.execute(_TABLES)
-                if not self.location.shared:  # a server's view lives in each connection
-                    con.execute(_VIEWS)
-                con.execute("insert or replace into foldwise_meta values ('schema_version', ?)",
-                            [str(SCHEMA_VERSION)])
-                con.execute("commit")
-            except duckdb.Error as exc:
-                con.execute("rollback")
-                if self.location.shared and self._schema_version(con) == SCHEMA_VERSION:
-                    return  # another writer created the tables at the same moment
-                raise StoreError(f"cannot create the tables of store {self.path}: {exc}"
-                                 ) from None
+        attempts = 20 if self.location.shared else 1
+        for attempt in range(attempts):
+            if self.location.shared:
+                self.location.forget_catalog()
+            with self._connect(read_only=False) as con:
+                found = self._schema_version(con)
+                if found is not None and found > SCHEMA_VERSION:
+                    raise StoreError(f"store {self.path} was written by a newer foldwise "
+                                     f"(schema version {found}; this foldwise knows "
+                                     f"{SCHEMA_VERSION}). Upgrade foldwise or use another "
+                                     "store.")
+                if found == SCHEMA_VERSION:
+                    return
+                try:
+                    self._create_schema(con, found)
+                    return
+                except duckdb.Error as exc:
+                    con.execute("rollback")
+                    if attempt + 1 == attempts:
+                        raise StoreError(f"cannot create the tables of store {self.path}: "
+                                         f"{exc}") from None
+            time.sleep(0.1 + 0.1 * attempt)
+
+    def _create_schema(self, con, found: int | None) -> None:
+        con.execute("begin")
+        if found == 1:  # spec order was the file's insertion order; make it explicit
+            con.execute("alter table cells add column position integer")
+            con.execute("update cells set position = rowid")
+        con.execute(_TABLES)
+        if not self.location.shared:  # a server's view lives in each connection
+            con.execute(_VIEWS)
+        con.execute("insert or replace into foldwise_meta values ('schema_version', ?)",
+                    [str(SCHEMA_VERSION)])
+        con.execute("commit")
 
     @staticmethod
     def _schema_version(con) -> int | None:
@@ -192,56 +223,78 @@ class Store:
         return int(row[0]) if row else None
 
     # -- writing ---------------------------------------------------------------------------
+    def _transaction(self, work: Callable, *, what: str):
+        """Run `work(con)` in one transaction and return its result.
+
+        On a server, a transaction that PostgreSQL aborts because a concurrent one touched
+        the same rows (a serialization failure or deadlock) is run again, a few times."""
+        attempts = 8 if self.location.shared else 1
+        for attempt in range(attempts):
+            with self._connect(read_only=False) as con:
+                con.execute("begin")
+                try:
+                    result = work(con)
+                    con.execute("commit")
+                    return result
+                except duckdb.Error as exc:
+                    with contextlib.suppress(duckdb.Error):
+                        con.execute("rollback")
+                    if attempt + 1 < attempts and _is_conflict(exc):
+                        time.sleep(0.05 * 2 ** attempt)
+                        continue
+                    raise StoreError(f"{what} in store {self.path} failed: "
+                                     f"{str(exc).splitlines()[0]}") from None
+
     def write_batch(self, tables: dict[str, pd.DataFrame]) -> None:
         """Insert several tables' rows in one transaction (all land or none)."""
         tables = {t: df for t, df in tables.items() if df is not None and len(df)}
         if not tables:
             return
-        with self._connect(read_only=False) as con:
-            con.execute("begin")
-            try:
-                for i, (table, df) in enumerate(tables.items()):
-                    name = f"_batch_{i}"
-                    con.register(name, df)
-                    con.execute(f"insert into {table} by name select * from {name}")
-                    con.unregister(name)
-                con.execute("commit")
-            except duckdb.Error as exc:
-                con.execute("rollback")
-                raise StoreError(f"writing to store {self.path} failed: {exc}") from None
+
+        def work(con):
+            for i, (table, df) in enumerate(tables.items()):
+                name = f"_batch_{i}"
+                con.register(name, df)
+                con.execute(f"insert into {table} by name select * from {name}")
+                con.unregister(name)
+
+        self._transaction(work, what="writing")
 
     def begin_sweep(self, sweep: dict, cells: pd.DataFrame, metrics: dict[str, str]) -> None:
         """Record a new sweep (status 'running'), its cells and the metric directions."""
         row = dict(sweep)
         row["versions"] = json.dumps(row.get("versions", {}), sort_keys=True)
         metric_df = pd.DataFrame({"metric": list(metrics), "better": list(metrics.values())})
-        with self._connect(read_only=False) as con:
-            con.execute("begin")
+
+        def work(con):
             con.register("_sweep", pd.DataFrame([row]))
             con.execute("insert into sweeps by name select * from _sweep")
             con.register("_metrics", metric_df)
-            con.execute("insert or replace into metrics select metric, better from _metrics")
+            con.execute("insert or ignore into metrics select metric, better from _metrics")
             con.register("_cells", cells)
             con.execute("insert into cells by name select * from _cells")
-            con.execute("commit")
+
+        self._transaction(work, what="recording the sweep")
 
     def finish_sweep(self, sweep_id: str, status: str) -> None:
         """Mark a sweep finished, failed or interrupted, with the time."""
-        with self._connect(read_only=False) as con:
-            con.execute("update sweeps set status = ?, finished_at = current_timestamp::timestamp "
-                        "where sweep_id = ?", [status, sweep_id])
+        self._transaction(lambda con: con.execute(
+            "update sweeps set status = ?, finished_at = current_timestamp::timestamp "
+            "where sweep_id = ?", [status, sweep_id]), what="finishing the sweep")
 
     def mark_interrupted(self, host: str, alive: Callable[[int], bool]) -> list[str]:
         """Mark this host's 'running' sweeps whose process is gone as 'interrupted'.
 
         A sweep killed without a clean exit cannot say so itself; the next writer does."""
-        with self._connect(read_only=False) as con:
+        def work(con):
             rows = con.execute("select sweep_id, pid from sweeps where status = 'running' "
                                "and host = ?", [host]).fetchall()
             dead = [sid for sid, pid in rows if pid is None or not alive(int(pid))]
             for sid in dead:
                 con.execute("update sweeps set status = 'interrupted' where sweep_id = ?", [sid])
             return dead
+
+        return self._transaction(work, what="marking interrupted sweeps")
 
     def finished_rows(self, cell_ids: list[str], metrics: list[str]
                       ) -> tuple[pd.DataFrame, pd.DataFrame]:
@@ -278,8 +331,8 @@ class Store:
         Returns the fold-score and test-score rows copied."""
         if folds.empty and tests.empty:
             return 0, 0
-        with self._connect(read_only=False) as con:
-            con.execute("begin")
+
+        def work(con):
             con.register("_folds", folds)
             con.register("_tests", tests)
             n_folds = con.execute("""
@@ -290,7 +343,7 @@ class Store:
                   on f.cell_id = s.cell_id and f."repeat" = s."repeat" and f.fold = s.fold
                  and f.sweep_id = s.sweep_id
                 where f.metric in (select unnest($2::varchar[]))""",
-                            [sweep_id, metrics]).fetchone()[0]
+                                  [sweep_id, metrics]).fetchone()[0]
             n_tests = con.execute("""
                 insert into test_scores by name
                 select t.* exclude (sweep_id, reused_from), $1 as sweep_id,
@@ -298,20 +351,21 @@ class Store:
                 from test_scores t join _tests s
                   on t.cell_id = s.cell_id and t.sweep_id = s.sweep_id
                 where t.metric in (select unnest($2::varchar[]))""",
-                             [sweep_id, metrics]).fetchone()[0]
-            con.execute("commit")
-        return int(n_folds), int(n_tests)
+                                  [sweep_id, metrics]).fetchone()[0]
+            return int(n_folds), int(n_tests)
+
+        return self._transaction(work, what="copying earlier results")
 
     def set_reused(self, sweep_id: str, reused: pd.DataFrame) -> None:
         """Record which cells of a sweep were wholly reused, and from where."""
-        with self._connect(read_only=False) as con:
+        def work(con):
             con.register("_reused", reused)
-            con.execute("begin")
             con.execute("""update cells set reused_from = r.reused_from from _reused r
                            where cells.sweep_id = ? and cells.cell_id = r.cell_id""", [sweep_id])
             con.execute("update sweeps set n_reused = ? where sweep_id = ?",
                         [len(reused), sweep_id])
-            con.execute("commit")
+
+        self._transaction(work, what="recording reused cells")
 
     # -- reading ---------------------------------------------------------------------------
     def _has_schema(self) -> bool:
@@ -328,15 +382,27 @@ class Store:
     def query(self, sql: str, params: list | None = None) -> pd.DataFrame:
         """Run a read-only query of foldwise's own and return a DataFrame."""
         self._require()
-        with self._connect(read_only=True) as con:
-            self._check_version(con)
-            return con.execute(sql, params or []).df()
+        try:
+            with self._connect(read_only=True) as con:
+                self._check_version(con)
+                return con.execute(sql, params or []).df()
+        except _Reopen:
+            return self.query(sql, params)
 
     def _check_version(self, con) -> None:
-        """Refuse a database that is not a foldwise store, or one from a newer foldwise."""
+        """Refuse a database that is not a foldwise store, or one from a newer foldwise;
+        upgrade one from an older foldwise first."""
         if getattr(self, "_schema_checked", False):  # once per Store, not per query
             return
         found = self._schema_version(con)
+        if found is not None and found < SCHEMA_VERSION and self._held is None:
+            con.close()
+            try:
+                self.ensure_schema()
+            except StoreError as exc:
+                raise StoreError(f"store {self.path} was written by an older foldwise (schema "
+                                 f"version {found}) and could not be upgraded: {exc}") from None
+            raise _Reopen()
         if found is None:
             raise StoreError(f"{self.path} is not a foldwise store (no foldwise_meta table). "
                              "Run a sweep into it first (`foldwise run SPEC --store ...`), or "
@@ -433,9 +499,9 @@ def export_store(store: Store, folder: str | Path, fmt: str = "parquet") -> dict
     staging = Path(tempfile.mkdtemp(prefix=".export-", dir=folder))
     options = "format parquet" if fmt == "parquet" else "format csv, header true"
     counts = {}
+    store.query("select 1")  # refuses a non-store, upgrades an older one
     try:
         with store._connect(read_only=True) as con:
-            store._check_version(con)
             for table in TABLES:
                 target = staging / f"{table}.{fmt}"
                 con.execute(f"copy (select * from {table} order by all) to "
@@ -497,26 +563,7 @@ def merge_store(store: Store, other: str | Path) -> MergeResult:
                              "postgresql:// URL or a folder written by `foldwise export`.")
         attach = where
         sources = {t: f"_other.{t}" for t in TABLES}
-    with store._connect(read_only=False) as con:
-        if attach is not None:
-            try:
-                if attach.kind == "server":
-                    from .locations import postgres_extension
-
-                    con.execute(f"load '{_sql_text(postgres_extension())}'")
-                con.execute(attach.attach_sql("_other"))
-            except duckdb.Error as exc:
-                raise attach.open_error(exc) from None
-            found = con.execute("select count(*) from information_schema.tables where "
-                                "table_catalog = '_other' and table_name = 'foldwise_meta'"
-                                ).fetchone()[0]
-            if not found:
-                raise StoreError(f"{other} is not a foldwise store (no foldwise_meta table).")
-            version = int(con.execute("select value from _other.foldwise_meta where key = "
-                                      "'schema_version'").fetchone()[0])
-            if version > SCHEMA_VERSION:
-                raise StoreError(f"store {other} was written by a newer foldwise (schema "
-                                 f"version {version}); upgrade foldwise to merge it.")
+    with store._connect(read_only=False) as con, _attached(con, attach, other):
         theirs = con.execute(f"select sweep_id, status from {sources['sweeps']}").df()
         mine = set(con.execute("select sweep_id from sweeps").df()["sweep_id"])
         present = sorted(s for s in theirs["sweep_id"] if s in mine)
@@ -544,6 +591,37 @@ def merge_store(store: Store, other: str | Path) -> MergeResult:
                 raise StoreError(f"merging {other} into {store.path} failed, nothing was "
                                  f"copied: {str(exc).splitlines()[0]}") from None
     return MergeResult({t: int(n) for t, n in rows.items()}, new, present, running)
+
+
+@contextmanager
+def _attached(con, where, other) -> Iterator[None]:
+    """`where` (a store file or server) attached read-only as `_other` for the duration,
+    after checking it is a foldwise store this foldwise can read; nothing for a folder."""
+    if where is None:
+        yield
+        return
+    try:
+        if where.kind == "server":
+            from .locations import postgres_extension
+
+            con.execute(f"load '{_sql_text(postgres_extension())}'")
+        con.execute(where.attach_sql("_other"))
+    except duckdb.Error as exc:
+        raise where.open_error(exc) from None
+    try:
+        found = con.execute("select count(*) from information_schema.tables where "
+                            "table_catalog = '_other' and table_name = 'foldwise_meta'"
+                            ).fetchone()[0]
+        if not found:
+            raise StoreError(f"{other} is not a foldwise store (no foldwise_meta table).")
+        version = int(con.execute("select value from _other.foldwise_meta where key = "
+                                  "'schema_version'").fetchone()[0])
+        if version > SCHEMA_VERSION:
+            raise StoreError(f"store {other} was written by a newer foldwise (schema version "
+                             f"{version}); upgrade foldwise to merge it.")
+        yield
+    finally:
+        con.execute("detach _other")
 
 
 def _sql_text(text) -> str:

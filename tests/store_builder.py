@@ -32,7 +32,7 @@ def write_sweep(path: Path, models: dict[str, list[list[float]]], *, k: int, rep
             cid = f"{label}-{rank}"
             cells.append({"sweep_id": sweep_id, "cell_id": cid, "model": label,
                           "family": family, "params": json.dumps({"rank": rank}),
-                          "complexity_rank": rank})
+                          "complexity_rank": rank, "position": len(cells)})
             for i, value in enumerate(scores):
                 if (cid, i) in set(drop):
                     continue
