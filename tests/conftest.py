@@ -62,3 +62,29 @@ def explained(tmp_path_factory):
     spec = load_spec(folder / "spec.yaml")
     result = run_sweep(spec, jobs=1)
     return spec, Store(result.store_path), result.sweep_id
+
+
+@pytest.fixture(scope="session")
+def pg():
+    """A throwaway PostgreSQL server on loopback for the whole session (tests/pg_server.py).
+
+    Fails, never skips, when no server is installed: .ci/run installs Debian's postgresql.
+    Its password reaches foldwise only through PGPASSFILE, as a user's would."""
+    import os
+
+    from .pg_server import start_server
+
+    try:
+        server = start_server()
+    except RuntimeError as exc:
+        pytest.fail(str(exc))
+    before = os.environ.get("PGPASSFILE")
+    os.environ["PGPASSFILE"] = str(server.passfile)
+    try:
+        yield server
+    finally:
+        if before is None:
+            os.environ.pop("PGPASSFILE", None)
+        else:
+            os.environ["PGPASSFILE"] = before
+        server.stop()

@@ -1,0 +1,116 @@
+"""Sweeps on a real Dask LocalCluster of two worker processes: the same scores, bit for
+bit, as the local run of the same spec (the local run itself is checked against
+scikit-learn's own cross-validation in test_parity.py); a worker killed mid-sweep costs
+nothing but time; the data travel to the workers once."""
+
+from __future__ import annotations
+
+import os
+import pickle
+import signal
+import subprocess
+import sys
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from runner.engine import _plan_tasks, _shared_data, prepare, run_sweep
+from runner.executors import DaskExecutor
+from runner.store import Store
+
+from .helpers import diabetes_frame, spec_from, write_spec
+
+MODELS = """
+ridge: {family: linear, grid: {penalty: l2, alpha: [0.1, 1.0, 10.0]}}
+lasso: {family: linear, grid: {penalty: l1, alpha: [0.05, 0.5]}}
+tree: {family: pruned_tree, grid: {ccp_alpha: [0.0, 50.0, 200.0], min_samples_leaf: [3]}}
+forest: {family: forest, grid: {n_estimators: [40], max_features: [0.3, 0.6, 1.0]}}
+"""
+N_CELLS, K, R, N_METRICS = 11, 3, 2, 3
+FOLD_ROWS = N_CELLS * K * R * N_METRICS
+
+
+def _scores(store: Store, table: str) -> pd.DataFrame:
+    keys = '"repeat", fold, ' if table == "fold_scores" else ""
+    return store.query(f"""select c.model, c.params, {keys} t.metric, t.value, t.how
+                           from {table} t join cells c using (sweep_id, cell_id)
+                           order by all""")
+
+
+@pytest.fixture(scope="module")
+def folder(tmp_path_factory):
+    path = tmp_path_factory.mktemp("cluster")
+    diabetes_frame().to_csv(path / "diabetes.csv", index=False)
+    return path
+
+
+@pytest.fixture(scope="module")
+def local_run(folder):
+    """The reference: the same spec run by local worker processes."""
+    store = Store(folder / "local.duckdb")
+    run_sweep(spec_from(folder, MODELS), store=store, jobs=2, fresh=True)
+    return store
+
+
+def test_local_cluster_gives_bit_identical_scores(folder, local_run):
+    store = Store(folder / "dask.duckdb")
+    result = run_sweep(spec_from(folder, MODELS), store=store, cluster="local:2", fresh=True)
+    assert result.status == "finished" and result.n_fold_rows == FOLD_ROWS
+    for table in ("fold_scores", "test_scores"):
+        mine, reference = _scores(store, table), _scores(local_run, table)
+        assert len(mine) == len(reference) > 0
+        assert np.array_equal(mine["value"].to_numpy(), reference["value"].to_numpy())
+        pd.testing.assert_frame_equal(mine, reference, check_exact=True)
+
+
+def test_worker_killed_mid_sweep_completes_without_duplicates(folder, local_run):
+    spec = spec_from(folder, MODELS)
+    store = Store(folder / "killed.duckdb")
+    killed: list[int] = []
+    with DaskExecutor("local:2") as executor:
+        pids = sorted(executor.client.run(os.getpid).values())
+        assert len(pids) == 2
+
+        def kill_one_worker(done: int, total: int) -> None:
+            if done == 1 and not killed:
+                os.kill(pids[0], signal.SIGKILL)
+                killed.append(pids[0])
+
+        result = run_sweep(spec, store=store, executor=executor, progress=kill_one_worker,
+                           fresh=True)
+        executor.client.wait_for_workers(1, timeout=30)
+        after = set(executor.client.run(os.getpid).values())
+        assert executor.n_scatters == 1  # the data were sent once, not per task
+    assert killed and killed[0] not in after  # that worker really died
+    assert result.status == "finished" and result.n_fold_rows == FOLD_ROWS
+    keys = store.query("""select count(*) n, count(distinct (cell_id, "repeat", fold, metric)) k
+                          from fold_scores""")
+    assert keys.n[0] == keys.k[0] == FOLD_ROWS  # every row once
+    pd.testing.assert_frame_equal(_scores(store, "fold_scores"),
+                                  _scores(local_run, "fold_scores"), check_exact=True)
+
+
+def test_tasks_carry_fold_positions_not_rows(folder):
+    """What is sent per task is a small fraction of the data scattered once."""
+    prep = prepare(spec_from(folder, MODELS))
+    tasks = _plan_tasks(prep, n_workers=2)
+    data_bytes = len(pickle.dumps(_shared_data(prep, paths=True)))
+    largest_task = max(len(pickle.dumps(t)) for t in tasks)
+    assert largest_task * 5 < data_bytes, (largest_task, data_bytes)
+
+
+@pytest.mark.parametrize("address, words", [
+    ("local:0", "local:N"),
+    ("somewhere:8786", "scheduler address"),
+    ("tcp://127.0.0.1:9", "cannot reach the Dask scheduler"),
+])
+def test_bad_cluster_address_is_one_paragraph_and_writes_nothing(folder, address, words):
+    spec = write_spec(folder, MODELS, name="bad_cluster.yaml")
+    store = folder / "never.duckdb"
+    out = subprocess.run([sys.executable, "-m", "runner", "run", str(spec), "--store",
+                          str(store), "--cluster", address, "--quiet"],
+                         capture_output=True, text=True, timeout=120)
+    assert out.returncode == 2 and "Traceback" not in out.stderr
+    assert words in out.stderr
+    assert not store.exists()

@@ -1,0 +1,96 @@
+"""Moving results between stores: export every table as files, merge them (or another
+store) back, and get every table equal; what is already there is skipped by sweep id."""
+
+from __future__ import annotations
+
+import subprocess
+import sys
+
+import duckdb
+import pandas as pd
+import pytest
+
+from runner.errors import StoreError
+from runner.store import TABLES, Store, export_store, merge_store
+
+
+def _table(store: Store, table: str) -> pd.DataFrame:
+    return store.query(f"select * from {table} order by all")
+
+
+@pytest.mark.parametrize("fmt", ["parquet", "csv"])
+def test_export_then_merge_into_an_empty_store_gives_every_table_equal(explained, tmp_path,
+                                                                        fmt):
+    _, store, _ = explained
+    counts = export_store(store, tmp_path / "out", fmt)
+    assert counts["fold_scores"] > 0 and counts["tree_folds"] > 0 and counts["importances"] > 0
+    target = Store(tmp_path / "back.duckdb")
+    result = merge_store(target, tmp_path / "out")
+    assert result.rows == counts
+    for table in TABLES:
+        pd.testing.assert_frame_equal(_table(target, table), _table(store, table),
+                                      check_exact=True, obj=table)
+    again = merge_store(target, tmp_path / "out")
+    assert again.new_sweeps == [] and sum(again.rows.values()) == 0
+    assert again.present == result.new_sweeps
+
+
+def test_cli_export_and_merge_round_trip(explained, tmp_path):
+    _, store, _ = explained
+    run = lambda *a: subprocess.run([sys.executable, "-m", "runner", *a], capture_output=True,
+                                    text=True)
+    out = run("export", str(tmp_path / "csv"), "--format", "csv", "--store", str(store.path))
+    assert out.returncode == 0, out.stderr
+    assert sorted(p.name for p in (tmp_path / "csv").iterdir()) == sorted(
+        [f"{t}.csv" for t in TABLES] + ["foldwise-export.json"])
+    out = run("merge", str(tmp_path / "csv"), "--store", str(tmp_path / "m.duckdb"))
+    assert out.returncode == 0 and "merged 1 sweep(s)" in out.stdout, out.stderr
+    again = run("export", str(tmp_path / "csv"), "--format", "csv", "--store", str(store.path))
+    assert again.returncode == 2 and "already holds an export" in again.stderr
+
+
+def test_merge_leaves_out_running_sweeps_and_refuses_itself(explained, tmp_path):
+    _, store, sweep_id = explained
+    other = Store(tmp_path / "other.duckdb")
+    merge_store(other, store.path)
+    with duckdb.connect(str(other.path)) as con:
+        con.execute("update sweeps set status = 'running'")
+    target = Store(tmp_path / "target.duckdb")
+    result = merge_store(target, other.path)
+    assert result.running == [sweep_id] and result.new_sweeps == []
+    assert _table(target, "fold_scores").empty
+    with pytest.raises(StoreError, match="this store itself"):
+        merge_store(target, target.path)
+
+
+def test_merge_of_a_file_that_is_no_store_changes_nothing(explained, tmp_path):
+    _, store, _ = explained
+    target = Store(tmp_path / "target.duckdb")
+    merge_store(target, store.path)
+    before = target.path.read_bytes()
+    junk = tmp_path / "junk.duckdb"
+    with duckdb.connect(str(junk)) as con:
+        con.execute("create table t as select 1 as x")
+    out = subprocess.run([sys.executable, "-m", "runner", "merge", str(junk), "--store",
+                          str(target.path)], capture_output=True, text=True)
+    assert out.returncode == 2 and "not a foldwise store" in out.stderr
+    assert "Traceback" not in out.stderr
+    assert len(_table(target, "fold_scores")) == len(_table(store, "fold_scores"))
+
+
+def test_a_store_of_schema_version_1_is_upgraded_keeping_spec_order(explained, tmp_path):
+    _, store, sweep_id = explained
+    old = Store(tmp_path / "old.duckdb")
+    merge_store(old, store.path)
+    order = old.query("select cell_id from cells order by position")["cell_id"].tolist()
+    with duckdb.connect(str(old.path)) as con:  # what a version-1 store looked like
+        con.execute("create table cells_v1 as select * exclude (position) from cells "
+                    "order by position")
+        con.execute("drop view cell_summary")
+        con.execute("drop table cells")
+        con.execute("alter table cells_v1 rename to cells")
+        con.execute("update foldwise_meta set value = '1' where key = 'schema_version'")
+    upgraded = Store(old.path)
+    assert upgraded.query("select cell_id from cells order by position")["cell_id"].tolist() \
+        == order
+    assert upgraded.query("select value from foldwise_meta")["value"].tolist() == ["2"]
