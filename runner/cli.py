@@ -24,6 +24,14 @@ class _Group(click.Group):
         except FoldwiseError as exc:
             click.echo(f"Error: {exc}", err=True)
             ctx.exit(exc.exit_code)
+        except Exception as exc:
+            if not type(exc).__module__.startswith(("duckdb", "_duckdb")):
+                raise
+            first = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
+            click.echo(f"Error: the store answered with an error foldwise did not expect: "
+                       f"{first}. Rows already written are kept. Please report this with "
+                       "the command you ran.", err=True)
+            ctx.exit(1)
         except KeyboardInterrupt:
             click.echo("Error: interrupted. Rows already written are kept; the next "
                        "`foldwise run` of the spec marks the sweep interrupted and completes "

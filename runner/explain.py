@@ -295,12 +295,15 @@ def _settings(spec) -> str:
 def _reuse(store: Store, sweep_id: str, cell_ids: list[str], settings: str) -> list[str]:
     """Copy the explain rows of cells already explained with these settings by an earlier
     sweep into this one (one transaction); return the cells copied."""
+    # settings are compared here, not in SQL: a server cannot compare its JSON column to text
     found = store.query("""
-        select cell_id, min(sweep_id) as source from explained
-        where settings = ? and sweep_id <> ? and list_contains(?::varchar[], cell_id)
-        group by cell_id""", [settings, sweep_id, cell_ids])
+        select cell_id, sweep_id, settings::varchar as settings from explained
+        where sweep_id <> ? and list_contains(?::varchar[], cell_id)""", [sweep_id, cell_ids])
+    found = found[found["settings"] == settings]
     if found.empty:
         return []
+    found = found.groupby("cell_id", as_index=False)["sweep_id"].min().rename(
+        columns={"sweep_id": "source"})
     pairs = [f"{a}|{b}" for a, b in zip(found["source"], found["cell_id"])]
     batch = {}
     for table in EXPLAIN_TABLES:

@@ -157,3 +157,26 @@ def test_merge_from_file_into_server_skips_what_is_there(team, file_copy):
     assert len(first.new_sweeps) == 3 and again.new_sweeps == [] and len(again.present) == 3
     q = "select * from fold_scores order by all"
     pd.testing.assert_frame_equal(target.query(q), file_store.query(q))
+
+
+def test_explain_step_plots_and_report_work_on_a_server(pg, explained, tmp_path):
+    """The explain step (including its reuse of earlier rows) on a server stores what it
+    stores in a DuckDB file (the session's `explained` sweep of the same spec)."""
+    from runner import importance_table, stability_table, write_report
+    from runner.engine import run_sweep
+
+    spec, file_store, file_sweep = explained
+    server = Store(pg.create_database("team_explain"))
+    first = run_sweep(spec, store=server, jobs=1)
+    again = run_sweep(spec, store=server, jobs=1)  # copies the explain rows of `first`
+    assert again.n_reused == first.n_cells
+    for sweep in (first.sweep_id, again.sweep_id):
+        mine = importance_table(server, sweep).drop(columns=["cell_id"])
+        reference = importance_table(file_store, file_sweep).drop(columns=["cell_id"])
+        assert len(mine) > 0
+        pd.testing.assert_frame_equal(mine, reference, check_exact=False, rtol=1e-12)
+        pd.testing.assert_frame_equal(stability_table(server, sweep),
+                                      stability_table(file_store, file_sweep),
+                                      check_exact=False, rtol=1e-12)
+    report = write_report(server, tmp_path / "report.html", again.sweep_id)
+    assert "forest" in report.read_text() and report.stat().st_size > 50_000
