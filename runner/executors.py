@@ -10,6 +10,7 @@ worker once (scattered) and each worker cuts its own task's rows."""
 from __future__ import annotations
 
 import logging
+import warnings
 from typing import Any, Callable, Iterable, Iterator
 
 from .errors import FoldwiseError
@@ -91,8 +92,11 @@ class DaskExecutor:
         quiet = logging.ERROR
         if self.address.startswith("local:"):
             n = _local_workers(self.address)
-            self._cluster = LocalCluster(n_workers=n, threads_per_worker=1, processes=True,
-                                         dashboard_address=None, silence_logs=quiet)
+            with warnings.catch_warnings():  # its status page moves if port 8787 is taken
+                warnings.filterwarnings("ignore", message="Port .* is already in use")
+                self._cluster = LocalCluster(n_workers=n, threads_per_worker=1,
+                                             processes=True, dashboard_address=None,
+                                             silence_logs=quiet)
             self.client = Client(self._cluster)
         else:
             try:
