@@ -6,8 +6,8 @@ rows in Parquet files in a local folder standing in for shared storage (no prima
 On a throwaway server (tests/pg_server.py) it measures, for each:
 
 1. concurrent writes: P separate processes, each one sweep writing B batches of 200 fold
-   rows, one transaction per batch, with a fresh connection + ATTACH per batch (as the
-   store does) and with one connection held per process; wall time, rows per second, rows
+   rows, one transaction per batch, with a fresh connection + ATTACH per batch and with
+   one connection held per process (what foldwise's store does on a server); wall time, rows per second, rows
    found against rows expected, and every conflict, retry or error;
 2. the time to load 1,000,000 fold rows (one commit per sweep) and matching cell rows;
 3. the summary query over one sweep and over all sweeps at 1 M rows, median of several
