@@ -163,7 +163,8 @@ def test_ctrl_c_keeps_finished_rows_and_exits_130(folder):
     while time.monotonic() < deadline and proc.poll() is None:
         if store_path.exists() and _fold_rows(store_path) >= 1:
             break
-        time.sleep(0.01)
+        time.sleep(0.2)  # poll gently: each look takes the file's lock from the sweep
+    assert proc.poll() is None, "the sweep ended before any rows were seen"
     proc.send_signal(signal.SIGINT)
     out, err = proc.communicate(timeout=60)
     assert proc.returncode == 130, (out, err)
