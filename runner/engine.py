@@ -415,7 +415,8 @@ def run_sweep(spec: Spec, *, store: Store | None = None, jobs: int | None = None
                     flush()
             flush()
             from .explain import explain_sweep  # importances, tree stability, test predictions
-            explain_sweep(spec, store, sweep_id, prepared=prep, jobs=n_jobs, reuse=not fresh)
+            explain_sweep(spec, store, sweep_id, prepared=prep, jobs=n_jobs, reuse=not fresh,
+                          executor=executor)
         except KeyboardInterrupt:
             status = "interrupted"
             flush()

@@ -212,6 +212,22 @@ def _fit(family: str, params: dict, X, y, *, seed: int, numeric, categorical):
         return est.fit(X, y)
 
 
+def _explain_call(data: dict, task) -> tuple[tuple, dict]:
+    """`_explain_task` arguments for one refit (fold None) or fold task, cut from the data."""
+    family, cell_id, params, f = task
+    if f is None:
+        return (("refit", family, cell_id, params, data["X_train"], data["y_train"],
+                 data["X_test"], data["y_test"], data["test_rows"]),
+                dict(**data["refit"], **data["common"]))
+    return (("fold", family, cell_id, params, data["X_train"].iloc[f.fit],
+             data["y_train"][f.fit]),
+            dict(seed=f.seed, repeat=f.repeat, fold=f.fold, **data["common"]))
+
+
+def _explain_task(kind: str, *args, **kwargs):
+    return (_refit_task if kind == "refit" else _fold_task)(*args, **kwargs)
+
+
 def _fold_task(family, cell_id, params, X_fit, y_fit, *, seed, repeat, fold, numeric,
                categorical):
     """One chosen cell refitted on one fold's fitting rows: importances and tree shape."""
@@ -278,6 +294,8 @@ def _spreads(imp: pd.DataFrame, folds: pd.DataFrame) -> pd.DataFrame:
     """Fill the spread of impurity and coefficient rows with the sd over the fold refits."""
     if imp.empty or folds.empty:
         return imp
+    # in fold order, so the sum behind the sd does not depend on which task finished first
+    folds = folds.sort_values(["cell_id", "method", "feature", "repeat", "fold"])
     sd = folds.groupby(["cell_id", "method", "feature"])["value"].std(ddof=1).rename("_sd")
     imp = imp.join(sd, on=["cell_id", "method", "feature"])
     own = imp["method"] != "permutation"
@@ -319,15 +337,15 @@ def _reuse(store: Store, sweep_id: str, cell_ids: list[str], settings: str) -> l
 
 def explain_sweep(spec, store: Store, sweep_id: str, *, prepared=None, jobs: int | None = None,
                   cells: str | None = None, reuse: bool = True,
-                  progress: Callable[[int, int], None] | None = None) -> ExplainResult:
+                  progress: Callable[[int, int], None] | None = None,
+                  executor=None) -> ExplainResult:
     """Refit the sweep's chosen cells per fold and on all training rows; store what they show.
 
     `cells` overrides the spec's `explain.cells`; `prepared` reuses `engine.prepare(spec)`.
     A cell explained before with the same settings (first metric, permutation repeats and
     seed) has its rows copied instead, unless `reuse` is False. Each cell's rows are written
-    in one transaction."""
-    from joblib import Parallel, delayed
-
+    in one transaction. The refits run on `executor` (the sweep's: local processes or a
+    Dask cluster), else on local processes."""
     which = cells or spec.explain.cells
     chosen = chosen_cells(store, sweep_id, which)
     result = ExplainResult()
@@ -350,30 +368,31 @@ def explain_sweep(spec, store: Store, sweep_id: str, *, prepared=None, jobs: int
 
         prepared = prepare(spec)
     frame, plan = prepared.frame, prepared.plan
-    X_train, y_train = frame.X.iloc[plan.train_rows], frame.y[plan.train_rows]
-    X_test, y_test = frame.X.iloc[plan.test_rows], frame.y[plan.test_rows]
-    common = dict(numeric=frame.numeric, categorical=frame.categorical)
     perm = spec.explain.permutation
+    data = dict(X_train=frame.X.iloc[plan.train_rows], y_train=frame.y[plan.train_rows],
+                X_test=frame.X.iloc[plan.test_rows], y_test=frame.y[plan.test_rows],
+                test_rows=plan.test_rows,
+                refit=dict(seed=refit_seed(plan.seed), metric=spec.metrics[0],
+                           repeats=perm.repeats, perm_seed=perm.seed),
+                common=dict(numeric=frame.numeric, categorical=frame.categorical))
     tasks = []
     for c in chosen.itertuples(index=False):
         params = json.loads(c.params) if isinstance(c.params, str) else dict(c.params)
         cost = _COST.get(c.family, 0)  # the slowest tasks first, so workers finish together
-        tasks.append((-2 * cost, delayed(_refit_task)(
-            c.family, c.cell_id, params, X_train, y_train, X_test, y_test, plan.test_rows,
-            seed=refit_seed(plan.seed), metric=spec.metrics[0], repeats=perm.repeats,
-            perm_seed=perm.seed, **common)))
+        tasks.append((-2 * cost, (c.family, c.cell_id, params, None)))
         for f in plan.folds:
-            tasks.append((-cost, delayed(_fold_task)(
-                c.family, c.cell_id, params, X_train.iloc[f.fit], y_train[f.fit], seed=f.seed,
-                repeat=f.repeat, fold=f.fold, **common)))
+            tasks.append((-cost, (c.family, c.cell_id, params, f)))
     tasks = [t for _, t in sorted(tasks, key=lambda pair: pair[0])]
     per_cell: dict[str, dict[str, list]] = {}
     failed: set[str] = set()
     done = 0
     if progress:
         progress(0, len(tasks))
-    n_jobs = jobs or spec.jobs or -1
-    for cell_id, rows, problem in Parallel(n_jobs=n_jobs, return_as="generator_unordered")(tasks):
+    if executor is None:
+        from .executors import LocalExecutor
+
+        executor = LocalExecutor(jobs or spec.jobs or -1)
+    for cell_id, rows, problem in executor.results(_explain_task, data, tasks, _explain_call):
         done += 1
         if progress:
             progress(done, len(tasks))

@@ -49,19 +49,26 @@ def folder(tmp_path_factory):
 def local_run(folder):
     """The reference: the same spec run by local worker processes."""
     store = Store(folder / "local.duckdb")
-    run_sweep(spec_from(folder, MODELS), store=store, jobs=2, fresh=True)
+    run_sweep(spec_from(folder, MODELS, explain="picked"), store=store, jobs=2, fresh=True)
     return store
 
 
 def test_local_cluster_gives_bit_identical_scores(folder, local_run):
     store = Store(folder / "dask.duckdb")
-    result = run_sweep(spec_from(folder, MODELS), store=store, cluster="local:2", fresh=True)
+    result = run_sweep(spec_from(folder, MODELS, explain="picked"), store=store,
+                       cluster="local:2", fresh=True)
     assert result.status == "finished" and result.n_fold_rows == FOLD_ROWS
     for table in ("fold_scores", "test_scores"):
         mine, reference = _scores(store, table), _scores(local_run, table)
         assert len(mine) == len(reference) > 0
         assert np.array_equal(mine["value"].to_numpy(), reference["value"].to_numpy())
         pd.testing.assert_frame_equal(mine, reference, check_exact=True)
+    # the explain step's refits ran on the cluster too, with the same results
+    for table in ("fold_importances", "importances", "tree_folds", "test_predictions"):
+        query = f"select * exclude (sweep_id) from {table} order by all"
+        mine, reference = store.query(query), local_run.query(query)
+        assert len(mine) == len(reference) > 0, table
+        pd.testing.assert_frame_equal(mine, reference, check_exact=True, obj=table)
 
 
 def test_worker_killed_mid_sweep_completes_without_duplicates(folder, local_run):
