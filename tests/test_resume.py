@@ -156,9 +156,12 @@ forest: {family: forest, grid: {n_estimators: [300], max_features: [0.3, 0.6, 1.
 def test_ctrl_c_keeps_finished_rows_and_exits_130(folder):
     spec_path = write_spec(folder, SLOW_MODELS)
     store_path = folder / "stopped.duckdb"
+    # A test run started in the background of a script inherits SIGINT ignored, and so
+    # would this child; give it the terminal's usual disposition.
     proc = subprocess.Popen([sys.executable, "-m", "runner", "run", str(spec_path), "--store",
                              str(store_path), "--jobs", "1", "--quiet"],
-                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
+                            preexec_fn=lambda: signal.signal(signal.SIGINT, signal.SIG_DFL))
     deadline = time.monotonic() + 60
     while time.monotonic() < deadline and proc.poll() is None:
         if store_path.exists() and _fold_rows(store_path) >= 1:
