@@ -69,6 +69,17 @@ def _seeded_searches(case: Case, make, grid: dict, splits: list[int], *, refit: 
 
 # -- the four cases -------------------------------------------------------------------------
 
+def _foldwise_contender(case: Case, param: str, reference, diffs: list):
+    """The timed foldwise run of a case; each run's fold scores are compared with
+    `reference()` (the plain way's scores) and the largest difference kept in `diffs`."""
+    def foldwise():
+        seconds, sweep_id, store = case.run_foldwise()
+        diffs.append(max_difference(case.fold_scores(store, sweep_id), reference(), param))
+        return seconds
+
+    return foldwise
+
+
 def tree_case(runs: int, quick: bool):
     n = 6000 if quick else 25000
     X, y = make_friedman1(n_samples=n, n_features=20, noise=1.0, random_state=0)
@@ -93,12 +104,7 @@ def tree_case(runs: int, quick: bool):
         plain.scores = scores
         return cv_s * scale + refit_s
 
-    def foldwise():
-        seconds, sweep_id, store = case.run_foldwise()
-        diffs.append(max_difference(case.fold_scores(store, sweep_id), plain.scores,
-                                    "ccp_alpha"))
-        return seconds
-
+    foldwise = _foldwise_contender(case, "ccp_alpha", lambda: plain.scores, diffs)
     times = interleaved({"plain": plain, "foldwise": foldwise}, runs)
     note = (f"tree: plain timed on {len(CHECK_SPLITS)} of {K * REPEATS} folds x {len(subset)} "
             f"of {len(alphas)} alphas (one GridSearchCV per fold, seeded as foldwise's fold) "
@@ -158,11 +164,7 @@ def forest_case(runs: int, quick: bool):
             case.X_train, case.y_train)
         return time.perf_counter() - start
 
-    def foldwise():
-        seconds, sweep_id, store = case.run_foldwise()
-        diffs.append(max_difference(case.fold_scores(store, sweep_id), check, "n_estimators"))
-        return seconds
-
+    foldwise = _foldwise_contender(case, "n_estimators", lambda: check, diffs)
     times = interleaved({"plain": plain, "foldwise": foldwise}, runs)
     note = (f"forest: plain = one GridSearchCV over all {K * REPEATS} folds (random_state "
             f"fixed); scores checked against a GridSearchCV per fold seeded as foldwise's "
@@ -189,13 +191,8 @@ def _linear_case(name: str, estimator, model_yaml: str, param: str, runs: int, q
         plain.scores = grid_scores(search, key)
         return time.perf_counter() - start
 
-    def foldwise():
-        seconds, sweep_id, store = case.run_foldwise()
-        foldwise.last = (store, sweep_id)
-        return seconds
-
+    foldwise = _foldwise_contender(case, param, lambda: plain.scores, diffs)
     times = interleaved({"plain": plain, "foldwise": foldwise}, runs)
-    diffs.append(max_difference(case.fold_scores(*foldwise.last), plain.scores, param))
     note = (f"{name}: {len(X)} rows x {X.shape[1]}; plain = Pipeline(median imputer, "
             f"standard scaler, {type(estimator).__name__}() defaults) in one GridSearchCV")
     return (label, len(values), times, max(diffs), target, note, case)
