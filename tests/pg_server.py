@@ -77,6 +77,7 @@ class PgServer:
         _run(self, [str(self.bin / "pg_ctl"), "-D", str(self.folder / "data"), "-m", "fast",
                     "-w", "stop"], check=False)
         shutil.rmtree(self.folder, ignore_errors=True)
+        shutil.rmtree(self.passfile.parent, ignore_errors=True)
 
 
 def _run(server_or_user, argv, check=True):
