@@ -15,7 +15,8 @@ from typing import Any, Callable, Iterable, Iterator
 
 from .errors import FoldwiseError
 
-__all__ = ["LocalExecutor", "DaskExecutor", "make_executor", "ClusterError"]
+__all__ = ["LocalExecutor", "DaskExecutor", "make_executor", "ClusterError",
+           "package_versions"]
 
 Unpack = Callable[[dict, Any], tuple[tuple, dict]]
 
@@ -70,10 +71,12 @@ class DaskExecutor:
 
     name = "dask"
 
-    def __init__(self, address: str, *, retries: int = 1, connect_seconds: float = 10.0):
+    def __init__(self, address: str, *, retries: int = 1, connect_seconds: float = 10.0,
+                 versions: dict | None = None):
         self.address = address
         self.retries = retries
         self.connect_seconds = connect_seconds
+        self.versions = versions  # what every worker must have; default: this machine's
         self.client = None
         self._cluster = None
         self.n_scatters = 0
@@ -108,7 +111,31 @@ class DaskExecutor:
                                    "workers on this machine.") from None
             if not self.client.scheduler_info().get("workers"):
                 self.client.wait_for_workers(1, timeout=self.connect_seconds)
+        try:
+            self._check_workers()
+        except BaseException:
+            self.__exit__(None, None, None)
+            raise
         return self
+
+    def _check_workers(self) -> None:
+        """Refuse workers whose foldwise or numerical packages differ from this machine's:
+        their scores would not be the same as a local run's."""
+        ours = self.versions or package_versions()
+        try:
+            theirs = self.client.run(package_versions)
+        except Exception as exc:
+            raise ClusterError(f"the workers at {self.address} cannot run foldwise "
+                               f"({type(exc).__name__}: {exc}). Install the same foldwise "
+                               "on every worker: pip install 'foldwise[cluster]'.") from None
+        for worker, versions in sorted(theirs.items()):
+            for package, version in ours.items():
+                if versions.get(package) != version:
+                    raise ClusterError(
+                        f"worker {worker} has {package} {versions.get(package)}, this machine "
+                        f"{version}; its scores would differ from a local run's. Install the "
+                        "same versions of foldwise, scikit-learn, numpy, scipy and pandas on "
+                        "every worker.")
 
     def __exit__(self, *exc) -> None:
         if self.client is not None:
@@ -137,6 +164,19 @@ class DaskExecutor:
         finally:
             self.client.cancel(futures)
             del shared
+
+
+def package_versions() -> dict[str, str]:
+    """The versions that decide a score, as installed where this runs."""
+    from importlib.metadata import PackageNotFoundError, version
+
+    found = {}
+    for name in ("foldwise", "scikit-learn", "numpy", "scipy", "pandas"):
+        try:
+            found[name] = version(name)
+        except PackageNotFoundError:
+            found[name] = "missing"
+    return found
 
 
 def _local_workers(address: str) -> int:

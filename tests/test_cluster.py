@@ -121,3 +121,14 @@ def test_bad_cluster_address_is_one_paragraph_and_writes_nothing(folder, address
     assert out.returncode == 2 and "Traceback" not in out.stderr
     assert words in out.stderr
     assert not store.exists()
+
+
+def test_workers_with_other_package_versions_are_refused():
+    """Scores are only bit-identical with the same packages; a worker that differs (here:
+    this machine claims another scikit-learn) is refused before anything runs."""
+    from runner.executors import ClusterError, package_versions
+
+    claimed = {**package_versions(), "scikit-learn": "0.0-elsewhere"}
+    with pytest.raises(ClusterError, match=r"scikit-learn .* this machine 0\.0-elsewhere"):
+        with DaskExecutor("local:1", versions=claimed):
+            pass
