@@ -109,10 +109,15 @@ class DaskExecutor:
                                    f"{exc}. Start one with `dask scheduler` and workers with "
                                    "`dask worker ADDRESS`, or use --cluster local:N to start "
                                    "workers on this machine.") from None
+        try:
             if not self.client.scheduler_info().get("workers"):
                 self.client.wait_for_workers(1, timeout=self.connect_seconds)
-        try:
             self._check_workers()
+        except TimeoutError:
+            self.__exit__(None, None, None)
+            raise ClusterError(f"the Dask scheduler at {self.address} has no workers after "
+                               f"{self.connect_seconds:g} s; start some with `dask worker "
+                               f"{self.address}`.") from None
         except BaseException:
             self.__exit__(None, None, None)
             raise
