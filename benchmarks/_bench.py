@@ -15,6 +15,7 @@ import numpy as np
 import pandas as pd
 from sklearn.model_selection import RepeatedKFold
 
+from _table import print_table  # noqa: F401  (re-exported for the benchmarks)
 from runner.engine import prepare, run_sweep
 from runner.spec import parse_spec
 from runner.store import Store
@@ -142,18 +143,3 @@ def warm_workers() -> None:
     from joblib import Parallel, delayed
 
     Parallel(n_jobs=JOBS)(delayed(_import_everything)(i) for i in range(2 * JOBS))
-
-
-def print_table(title: str, header: list[str], rows: list[list], notes: list[str]) -> None:
-    """A compact fixed-width table, then numbered notes."""
-    cells = [header] + [[str(c) for c in row] for row in rows]
-    widths = [max(len(r[i]) for r in cells) for i in range(len(header))]
-    line = "  ".join("-" * w for w in widths)
-    print(f"\n{title}")
-    print("  ".join(h.ljust(w) for h, w in zip(header, widths)))
-    print(line)
-    for row in cells[1:]:
-        print("  ".join(c.rjust(w) if i else c.ljust(w)
-                        for i, (c, w) in enumerate(zip(row, widths))))
-    for note in notes:
-        print(f"  {note}")

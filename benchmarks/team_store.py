@@ -40,6 +40,10 @@ import numpy as np
 import pandas as pd
 
 REPO = Path(__file__).resolve().parent.parent
+sys.path.insert(0, str(REPO))
+sys.path.insert(0, str(Path(__file__).resolve().parent))
+from _table import print_table  # noqa: E402
+from runner.locations import postgres_extension  # noqa: E402
 CONFIG = {"autoinstall_known_extensions": False, "autoload_known_extensions": False}
 
 CELLS_PER_SWEEP, REPEATS, FOLDS = 250, 5, 10  # 25,000 fold rows per sweep
@@ -69,17 +73,14 @@ from fold_scores f join cells c using (sweep_id, cell_id) {where} group by all""
 def _shipped_extension(package: str) -> Path:
     spec = importlib.util.find_spec(package)
     if spec is None:
-        raise SystemExit(f"{package} is not installed (pip install {package})")
+        raise SystemExit(f"{package} is not installed (pip install -e '.[bench]')")
     return next(Path(spec.submodule_search_locations[0]).rglob("*.duckdb_extension"))
 
 
 def extension_files() -> list[str]:
-    """Paths to LOAD, postgres first (DuckLake on a postgres catalogue needs it). The postgres
-    file's entry point is postgres_scanner, so it is loaded through a symlink of that name."""
-    folder = Path(tempfile.mkdtemp(prefix="foldwise-ext-"))
-    link = folder / "postgres_scanner.duckdb_extension"
-    link.symlink_to(_shipped_extension("duckdb_extension_postgres"))
-    return [str(link), str(_shipped_extension("duckdb_extension_ducklake"))]
+    """Paths to LOAD, postgres first (DuckLake on a postgres catalogue needs it); the
+    postgres file as foldwise's own store loads it."""
+    return [str(postgres_extension()), str(_shipped_extension("duckdb_extension_ducklake"))]
 
 
 class Target:
@@ -331,19 +332,6 @@ def time_queries(targets: list[Target], runs: int, sweep: str) -> dict:
 
 # -- printing ------------------------------------------------------------------------------
 
-def print_table(title: str, header: list[str], rows: list[list], notes: list[str] = ()) -> None:
-    cells = [header] + [[str(c) for c in row] for row in rows]
-    widths = [max(len(r[i]) for r in cells) for i in range(len(header))]
-    print(f"\n{title}")
-    print("  ".join(h.ljust(w) for h, w in zip(header, widths)))
-    print("  ".join("-" * w for w in widths))
-    for row in cells[1:]:
-        print("  ".join(c.rjust(w) if i else c.ljust(w)
-                        for i, (c, w) in enumerate(zip(row, widths))))
-    for note in notes:
-        print(f"  {note}")
-
-
 def ms_and_ratio(seconds: float, baseline: float) -> str:
     return f"{seconds * 1000:.0f} ({seconds / baseline:.1f}x)"
 
@@ -389,7 +377,6 @@ def main() -> None:
     if args.quick:
         args.runs, args.batches, args.writers, args.sweeps, args.small_commits = 3, 3, [3], 4, 40
 
-    sys.path.insert(0, str(REPO))
     from tests.pg_server import start_server
 
     began = time.perf_counter()
@@ -399,7 +386,6 @@ def main() -> None:
         server = start_server()
     except BaseException:
         shutil.rmtree(scratch, ignore_errors=True)
-        shutil.rmtree(Path(extensions[0]).parent, ignore_errors=True)
         raise
     os.environ["PGPASSFILE"] = str(server.passfile)  # libpq in this and child processes
     try:
@@ -497,10 +483,8 @@ def main() -> None:
              f"all stores return the same answers: {agree}"])
         print(f"\nTotal run time {time.perf_counter() - began:.0f} s.")
     finally:
-        server.stop()
-        shutil.rmtree(Path(server.passfile).parent, ignore_errors=True)
+        server.stop()  # removes its data and password folders
         shutil.rmtree(scratch, ignore_errors=True)
-        shutil.rmtree(Path(extensions[0]).parent, ignore_errors=True)
 
 
 if __name__ == "__main__":

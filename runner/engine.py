@@ -100,12 +100,25 @@ class Prepared:
     def __init__(self, spec: Spec, frame: Frame, cells: list[Cell] | None = None):
         self.spec, self.frame, self.cells = spec, frame, cells or []
         self._plan: Plan | None = None
+        self._split: dict | None = None
 
     @property
     def plan(self) -> Plan:
         if self._plan is None:
             self._plan = make_plan(self.spec, self.frame)
         return self._plan
+
+    @property
+    def split(self) -> dict:
+        """The training and test rows (X_train, y_train, X_test, y_test), cut once and
+        shared by the sweep's tasks and the explain step's (a cluster receives them once)."""
+        if self._split is None:
+            frame, plan = self.frame, self.plan
+            self._split = dict(X_train=frame.X.iloc[plan.train_rows],
+                               y_train=frame.y[plan.train_rows],
+                               X_test=frame.X.iloc[plan.test_rows],
+                               y_test=frame.y[plan.test_rows])
+        return self._split
 
     def fold_keys(self) -> list[tuple[int, int]]:
         """(repeat, fold) of every validation fold, then the refit's."""
@@ -293,10 +306,8 @@ def _plan_tasks(prep: Prepared, *, paths: bool = True, n_workers: int = 1,
 
 def _shared_data(prep: Prepared, *, paths: bool) -> dict:
     """What every task reads: the training and test rows and the settings of every fit."""
-    frame, plan = prep.frame, prep.plan
-    return dict(X_train=frame.X.iloc[plan.train_rows], y_train=frame.y[plan.train_rows],
-                X_test=frame.X.iloc[plan.test_rows], y_test=frame.y[plan.test_rows],
-                refit_seed=refit_seed(plan.seed),
+    frame = prep.frame
+    return dict(**prep.split, refit_seed=refit_seed(prep.plan.seed),
                 common=dict(metrics=prep.spec.metrics, numeric=frame.numeric,
                             categorical=frame.categorical, paths=paths))
 

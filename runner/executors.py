@@ -79,6 +79,7 @@ class DaskExecutor:
         self.versions = versions  # what every worker must have; default: this machine's
         self.client = None
         self._cluster = None
+        self._sent: dict[int, tuple] = {}  # id(table) -> (table, its future on the workers)
         self.n_scatters = 0
 
     @property
@@ -143,6 +144,7 @@ class DaskExecutor:
                         "every worker.")
 
     def __exit__(self, *exc) -> None:
+        self._sent.clear()
         if self.client is not None:
             self.client.close()
         if self._cluster is not None:
@@ -157,8 +159,7 @@ class DaskExecutor:
         items = list(items)
         if not items:
             return
-        [shared] = self.client.scatter([data], broadcast=True, hash=False)
-        self.n_scatters += 1
+        shared = self._scattered(data)
         futures = [self.client.submit(_on_worker, work, unpack, shared, item, pure=False,
                                       retries=self.retries) for item in items]
         try:
@@ -168,7 +169,19 @@ class DaskExecutor:
                 yield result
         finally:
             self.client.cancel(futures)
-            del shared
+
+    def _scattered(self, data: dict) -> dict:
+        """`data` with its row tables replaced by futures of copies on every worker. A table
+        already sent (the same object, e.g. the sweep's training rows reused by the explain
+        step) is not sent again."""
+        tables = {k: v for k, v in data.items() if hasattr(v, "shape")}
+        new = {k: v for k, v in tables.items() if id(v) not in self._sent}
+        if new:
+            futures = self.client.scatter(list(new.values()), broadcast=True, hash=False)
+            self.n_scatters += 1
+            for value, future in zip(new.values(), futures):
+                self._sent[id(value)] = (value, future)  # the value keeps its id unique
+        return {k: self._sent[id(v)][1] if k in tables else v for k, v in data.items()}
 
 
 def package_versions() -> dict[str, str]:

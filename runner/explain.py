@@ -369,9 +369,7 @@ def explain_sweep(spec, store: Store, sweep_id: str, *, prepared=None, jobs: int
         prepared = prepare(spec)
     frame, plan = prepared.frame, prepared.plan
     perm = spec.explain.permutation
-    data = dict(X_train=frame.X.iloc[plan.train_rows], y_train=frame.y[plan.train_rows],
-                X_test=frame.X.iloc[plan.test_rows], y_test=frame.y[plan.test_rows],
-                test_rows=plan.test_rows,
+    data = dict(**prepared.split, test_rows=plan.test_rows,
                 refit=dict(seed=refit_seed(plan.seed), metric=spec.metrics[0],
                            repeats=perm.repeats, perm_seed=perm.seed),
                 common=dict(numeric=frame.numeric, categorical=frame.categorical))

@@ -71,9 +71,10 @@ class FileLocation:
 
         return duckdb.connect(str(self.path), read_only=read_only, config=config or {})
 
-    def attach_sql(self, alias: str) -> str:
-        """The ATTACH statement that opens this store read-only inside another connection."""
-        return f"attach '{_quote(self.path)}' as {alias} (read_only)"
+    def attach_into(self, con, alias: str, *, read_only: bool = True) -> None:
+        """Open this store inside another DuckDB connection, as catalog `alias`."""
+        mode = " (read_only)" if read_only else ""
+        con.execute(f"attach '{_quote(self.path)}' as {alias}{mode}")
 
     @staticmethod
     def is_busy(exc: Exception) -> bool:
@@ -155,8 +156,7 @@ class ServerLocation:
 
         con = duckdb.connect(config=_NO_DOWNLOADS)
         try:
-            con.execute(f"load '{_quote(postgres_extension())}'")
-            con.execute(self.attach_sql(self.alias, read_only=read_only))
+            self.attach_into(con, self.alias, read_only=read_only)
             con.execute(f"use {self.alias}")
             for key, value in (config or {}).items():
                 con.execute(f"set {key} = {_literal(value)}")
@@ -165,9 +165,12 @@ class ServerLocation:
             raise
         return con
 
-    def attach_sql(self, alias: str, *, read_only: bool = True) -> str:
+    def attach_into(self, con, alias: str, *, read_only: bool = True) -> None:
+        """Open this database inside a DuckDB connection, as catalog `alias`; loads the
+        PostgreSQL extension from its package first (loading twice is harmless)."""
         mode = ", read_only" if read_only else ""
-        return f"attach '{_quote(self.url)}' as {alias} (type postgres{mode})"
+        con.execute(f"load '{_quote(postgres_extension())}'")
+        con.execute(f"attach '{_quote(self.url)}' as {alias} (type postgres{mode})")
 
     @staticmethod
     def is_busy(exc: Exception) -> bool:

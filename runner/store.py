@@ -106,10 +106,6 @@ TABLES = ("sweeps", "metrics", "cells", "fold_scores", "test_scores", "failures"
 """Every table of results, in the order a copy must fill them."""
 
 
-class _Reopen(Exception):
-    """The store was upgraded under a connection that must now be opened afresh."""
-
-
 class Store:
     """Sweeps, cells and scores in a DuckDB file or a team's PostgreSQL database."""
 
@@ -119,15 +115,15 @@ class Store:
         self.path = self.location.path
         self.wait_seconds = wait_seconds
         self.on_wait = on_wait
-        self._held = None
+        self._held = None  # the connection `session()` holds, if any
+        self._schema_checked = False
 
     # -- connections -------------------------------------------------------------------
     @contextmanager
     def _connect(self, *, read_only: bool, config: dict | None = None
                  ) -> Iterator[duckdb.DuckDBPyConnection]:
-        held = getattr(self, "_held", None)
-        if held is not None and not config:
-            yield held
+        if self._held is not None and not config:
+            yield self._held
             return
         deadline = time.monotonic() + self.wait_seconds
         delay, told = 0.05, False
@@ -382,27 +378,17 @@ class Store:
     def query(self, sql: str, params: list | None = None) -> pd.DataFrame:
         """Run a read-only query of foldwise's own and return a DataFrame."""
         self._require()
-        try:
-            with self._connect(read_only=True) as con:
-                self._check_version(con)
-                return con.execute(sql, params or []).df()
-        except _Reopen:
-            return self.query(sql, params)
+        self._check_version()
+        with self._connect(read_only=True) as con:
+            return con.execute(sql, params or []).df()
 
-    def _check_version(self, con) -> None:
+    def _check_version(self) -> None:
         """Refuse a database that is not a foldwise store, or one from a newer foldwise;
-        upgrade one from an older foldwise first."""
-        if getattr(self, "_schema_checked", False):  # once per Store, not per query
+        upgrade one from an older foldwise first. Once per Store, not per query."""
+        if self._schema_checked:
             return
-        found = self._schema_version(con)
-        if found is not None and found < SCHEMA_VERSION and self._held is None:
-            con.close()
-            try:
-                self.ensure_schema()
-            except StoreError as exc:
-                raise StoreError(f"store {self.path} was written by an older foldwise (schema "
-                                 f"version {found}) and could not be upgraded: {exc}") from None
-            raise _Reopen()
+        with self._connect(read_only=True) as con:
+            found = self._schema_version(con)
         if found is None:
             raise StoreError(f"{self.path} is not a foldwise store (no foldwise_meta table). "
                              "Run a sweep into it first (`foldwise run SPEC --store ...`), or "
@@ -410,6 +396,12 @@ class Store:
         if found > SCHEMA_VERSION:
             raise StoreError(f"store {self.path} was written by a newer foldwise (schema "
                              f"version {found}); upgrade foldwise to read it.")
+        if found < SCHEMA_VERSION:
+            try:
+                self.ensure_schema()
+            except StoreError as exc:
+                raise StoreError(f"store {self.path} was written by an older foldwise (schema "
+                                 f"version {found}) and could not be upgraded: {exc}") from None
         self._schema_checked = True
 
     def user_query(self, sql: str, *, allow_files: bool = False) -> pd.DataFrame:
@@ -499,14 +491,14 @@ def export_store(store: Store, folder: str | Path, fmt: str = "parquet") -> dict
     staging = Path(tempfile.mkdtemp(prefix=".export-", dir=folder))
     options = "format parquet" if fmt == "parquet" else "format csv, header true"
     counts = {}
-    store.query("select 1")  # refuses a non-store, upgrades an older one
+    store._check_version()  # refuses a non-store, upgrades an older one
     try:
         with store._connect(read_only=True) as con:
             for table in TABLES:
                 target = staging / f"{table}.{fmt}"
-                con.execute(f"copy (select * from {table} order by all) to "
-                            f"'{_sql_text(target)}' ({options})")
-                counts[table] = con.execute(f"select count(*) from {table}").fetchone()[0]
+                counts[table] = con.execute(f"copy (select * from {table} order by all) to "
+                                            f"'{_sql_text(target)}' ({options})"
+                                            ).fetchone()[0]
         manifest = {"schema_version": SCHEMA_VERSION, "format": fmt, "tables": counts,
                     "exported_from": store.location.kind}
         (staging / EXPORT_MANIFEST).write_text(json.dumps(manifest, indent=2) + "\n")
@@ -601,11 +593,7 @@ def _attached(con, where, other) -> Iterator[None]:
         yield
         return
     try:
-        if where.kind == "server":
-            from .locations import postgres_extension
-
-            con.execute(f"load '{_sql_text(postgres_extension())}'")
-        con.execute(where.attach_sql("_other"))
+        where.attach_into(con, "_other")
     except duckdb.Error as exc:
         raise where.open_error(exc) from None
     try:

@@ -74,15 +74,14 @@ class PgServer:
         return self.url_for(name)
 
     def stop(self) -> None:
-        _run(self, [str(self.bin / "pg_ctl"), "-D", str(self.folder / "data"), "-m", "fast",
+        _run(self.run_as, [str(self.bin / "pg_ctl"), "-D", str(self.folder / "data"), "-m", "fast",
                     "-w", "stop"], check=False)
         shutil.rmtree(self.folder, ignore_errors=True)
         shutil.rmtree(self.passfile.parent, ignore_errors=True)
 
 
-def _run(server_or_user, argv, check=True):
-    run_as = server_or_user if isinstance(server_or_user, (str, type(None))) \
-        else server_or_user.run_as
+def _run(run_as: str | None, argv, check=True):
+    """Run a server command, as the `run_as` user when given."""
     if run_as:
         argv = ["runuser", "-u", run_as, "--", *argv]
     return subprocess.run(argv, capture_output=True, text=True, check=check)
