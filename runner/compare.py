@@ -17,6 +17,7 @@ from typing import Sequence
 import pandas as pd
 
 from .errors import QueryError
+from .metrics import metric_label
 from .picks import check_rule, check_se, corrected_variance, picks, sweep_facts
 from .store import Store
 
@@ -108,7 +109,7 @@ def in_words(model_a: str, model_b: str, *, metric: str, better: str, mean_diff:
     wins = wins_a if a_better else wins_b
     diff = mean_diff if a_better else -mean_diff
     p_text = "p < 0.001" if p < 0.001 else f"p ≈ {p:.2g}"
-    return (f"{winner} beats {loser} on {wins} of {n} folds; mean {metric.upper()} "
+    return (f"{winner} beats {loser} on {wins} of {n} folds; mean {metric_label(metric)} "
             f"difference {_signed(diff, dec)} ± {se:.{dec}f} ({p_text})")
 
 

@@ -34,17 +34,17 @@ import pandas as pd
 
 from . import __version__
 from .data import Frame, load_frame
-from .errors import FoldwiseError
+from .errors import DataError, FoldwiseError
 from .executors import DaskExecutor, LocalExecutor, make_executor
 from .families import FAMILIES, load_family
 from .grid import Cell, count_cells, expand_spec, spread_along_path
 from .resampling import REFIT, Fold, Plan, make_plan, plan_counts, plan_identity, refit_seed
 from .queries import process_alive
-from .spec import METRICS, Spec
+from .metrics import METRICS
+from .spec import Spec
 from .store import DEFAULT_STORE, Store
 
-__all__ = ["run_sweep", "check_spec", "prepare", "SweepResult", "Prepared", "score",
-           "score_columns", "SweepInterrupted"]
+__all__ = ["run_sweep", "check_spec", "prepare", "SweepResult", "Prepared", "SweepInterrupted"]
 
 Progress = Callable[[int, int], None]
 
@@ -53,42 +53,6 @@ class SweepInterrupted(FoldwiseError):
     """The user stopped the sweep; finished tasks are kept."""
 
     exit_code = 130
-
-
-def score(metric: str, y_true, y_pred) -> float:
-    """One metric with scikit-learn's own function."""
-    from sklearn import metrics as m
-
-    if metric == "rmse":
-        return float(m.root_mean_squared_error(y_true, y_pred))
-    if metric == "mae":
-        return float(m.mean_absolute_error(y_true, y_pred))
-    if metric == "r2":
-        return float(m.r2_score(y_true, y_pred))
-    raise ValueError(f"unknown metric {metric!r}")
-
-
-def score_columns(metric: str, y_true, predictions) -> list[float]:
-    """One metric for many cells' predictions (the columns of `predictions`) in one call of
-    scikit-learn's own function with multioutput="raw_values".
-
-    Each column is reduced on its own, contiguous in memory (Fortran order), which gives
-    bit for bit the value of a separate `score` call per cell (tests/test_path_engine.py
-    checks this) at a fraction of the per-call cost."""
-    from sklearn import metrics as m
-
-    P = np.asfortranarray(predictions, dtype=np.float64)
-    Y = np.asfortranarray(np.repeat(np.asarray(y_true, dtype=np.float64)[:, None],
-                                    P.shape[1], axis=1))
-    if metric == "rmse":
-        values = m.root_mean_squared_error(Y, P, multioutput="raw_values")
-    elif metric == "mae":
-        values = m.mean_absolute_error(Y, P, multioutput="raw_values")
-    elif metric == "r2":
-        values = m.r2_score(Y, P, multioutput="raw_values")
-    else:
-        raise ValueError(f"unknown metric {metric!r}")
-    return [float(v) for v in np.atleast_1d(values)]
 
 
 class Prepared:
@@ -156,9 +120,21 @@ def _path_resolver(prep: Prepared):
     return resolve
 
 
+def _load_checked(spec: Spec) -> Frame:
+    """The spec's data, refused if one of its metrics cannot score the target."""
+    frame = load_frame(spec)
+    for name in spec.metrics:
+        problem = METRICS[name].target_problem(frame.y)
+        if problem:
+            raise DataError(f"metric '{name}' cannot score target column '{frame.target}' of "
+                            f"{frame.source}: the column {problem}. Remove '{name}' from "
+                            "`metrics` in the spec, or choose another target.")
+    return frame
+
+
 def prepare(spec: Spec) -> Prepared:
     """Load and check the data and expand every model's grid; the plan follows on demand."""
-    prep = Prepared(spec, load_frame(spec))
+    prep = Prepared(spec, _load_checked(spec))
     prep.cells = expand_spec(spec, data_sha256=prep.frame.sha256,
                              plan_identity=plan_identity(spec),
                              resolve_path=_path_resolver(prep),
@@ -168,7 +144,7 @@ def prepare(spec: Spec) -> Prepared:
 
 def check_spec(spec: Spec) -> tuple[pd.DataFrame, dict]:
     """The plan of a sweep without fitting anything: cells and fits per model, plus facts."""
-    frame = load_frame(spec)
+    frame = _load_checked(spec)
     plan = make_plan(spec, frame)
     Store(store_path(spec)).check_writable()
     n_folds = plan.k * plan.repeats
@@ -231,7 +207,7 @@ def _run_task(family: str, cells: list[tuple[str, dict]], X_fit, y_fit, X_eval, 
         # The metric arguments are ours and valid: skip scikit-learn's parameter checks
         # (only the argument validation is skipped; values are computed as always).
         with config_context(skip_parameter_validation=True):
-            values = {metric: score_columns(metric, y_eval, P) for metric in metrics}
+            values = {m: METRICS[m].score_columns(y_eval, P) for m in metrics}
         for j, (cid, fit) in enumerate(good):
             for metric in metrics:
                 scores.append({"cell_id": cid, "repeat": repeat, "fold": fold,
@@ -378,7 +354,7 @@ def run_sweep(spec: Spec, *, store: Store | None = None, jobs: int | None = None
             "repeats": spec.folds.repeats, "plan_seed": spec.folds.seed, "metrics": ",".join(spec.metrics), "pick_rule": spec.pick,
             "started_at": datetime.now(), "finished_at": None, "status": "running",
             "versions": _versions(), "host": host, "user_name": _user(), "pid": os.getpid()},
-            cells_df, {m: METRICS[m] for m in spec.metrics})
+            cells_df, {m: METRICS[m].better for m in spec.metrics})
         done, reused, copied = _reuse(store, sweep_id, prep, found)
 
         tasks = [] if len(reused) == len(prep.cells) else _plan_tasks(

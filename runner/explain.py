@@ -35,17 +35,14 @@ import numpy as np
 import pandas as pd
 
 from .families import load_family
+from .metrics import METRICS
 from .resampling import refit_seed
 from .store import Store
 
-__all__ = ["explain_sweep", "ExplainResult", "chosen_cells", "SCORING", "METHODS",
+__all__ = ["explain_sweep", "ExplainResult", "chosen_cells", "METHODS",
            "output_sources", "coefficient_importance", "impurity_importance",
            "permutation_rows", "tree_shape", "tree_node_rows", "importance_table",
            "prediction_table", "tree_node_table", "tree_fold_table", "has_explain_tables"]
-
-SCORING = {"rmse": "neg_root_mean_squared_error", "mae": "neg_mean_absolute_error",
-           "r2": "r2"}
-"""scikit-learn scorer used by permutation importance for each metric (higher is better)."""
 
 METHODS = {
     "permutation": "rise in the test {metric} when one column is shuffled (mean over shuffles; "
@@ -135,7 +132,7 @@ def permutation_rows(pipeline, X_test, y_test, *, metric: str, repeats: int,
     """Per original column, (mean, sd) of the score lost when the column is shuffled."""
     from sklearn.inspection import permutation_importance
 
-    result = permutation_importance(pipeline, X_test, y_test, scoring=SCORING[metric],
+    result = permutation_importance(pipeline, X_test, y_test, scoring=METRICS[metric].scorer,
                                     n_repeats=repeats, random_state=seed, n_jobs=1)
     return {str(col): (float(m), float(s)) for col, m, s in
             zip(X_test.columns, result.importances_mean, result.importances_std)}

@@ -23,13 +23,14 @@ import pandas as pd
 from .errors import QueryError
 from .explain import importance_table, prediction_table, tree_node_table
 from .families import FAMILIES
+from .metrics import get_metric, metric_label
 from .output import number, params_text
 from .picks import check_rule, complexity_table, picks, sweep_facts
 from .store import Store
 
 __all__ = ["KINDS", "PALETTE", "make_figure", "complexity_figure", "models_figure",
            "importance_figure", "predictions_figure", "tree_figure", "save_figure",
-           "figure_svg", "model_colours", "metric_label"]
+           "figure_svg", "model_colours"]
 
 PALETTE = ["#0072B2", "#E69F00", "#009E73", "#CC79A7", "#56B4E9", "#D55E00", "#F0E442",
            "#000000"]
@@ -45,8 +46,6 @@ _STYLE = {"font.size": 9, "axes.titlesize": 10, "axes.labelsize": 9, "axes.edgec
           "text.color": INK, "legend.frameon": False, "legend.fontsize": 8,
           "figure.facecolor": "white", "axes.facecolor": "white", "svg.fonttype": "none"}
 
-_METRIC_NAMES = {"rmse": "RMSE", "mae": "MAE", "r2": "R²"}
-
 
 @contextmanager
 def _style():
@@ -60,13 +59,6 @@ def _figure(width: float, height: float):
     from matplotlib.figure import Figure
 
     return Figure(figsize=(width, height), layout="constrained")
-
-
-def metric_label(metric: str, target: str, *, prefix: str = "CV") -> str:
-    """An axis label naming the metric and its units (the target's for rmse and mae)."""
-    name = _METRIC_NAMES.get(metric, metric.upper())
-    unit = "unitless" if metric == "r2" else f"units of {target}"
-    return f"{prefix} {name} ({unit})".strip()
 
 
 def model_colours(store: Store, sweep_id: str) -> dict[str, str]:
@@ -168,8 +160,8 @@ def complexity_figure(store: Store, model: str, sweep_id: str | None = None, *,
             ax.set_xticks(x, ticks, fontsize=8)
             ax.set_xlim(x.min() - 0.5, x.max() + 0.5)
         ax.set_xlabel(f"{xlabel}\n← simpler        more complex →", color=INK)
-        ax.set_ylabel(metric_label(metric, target))
-        _headline(fig, f"{model}: where does CV {_METRIC_NAMES.get(metric, metric)} stop "
+        ax.set_ylabel(get_metric(metric).axis_label(target))
+        _headline(fig, f"{model}: where does CV {metric_label(metric)} stop "
                   "improving as the model grows?",
                   f"family {family}; every grid cell on the same {a['n_folds']} folds; "
                   f"{a['se']} SE")
@@ -224,10 +216,10 @@ def models_figure(store: Store, sweep_id: str | None = None, *, rule: str | None
                         zorder=4, label="test split score" if i == 0 else None)
         ax.set_xticks(range(len(models)), [f"{m}\n{f}" for m, f in zip(models, chosen["family"])])
         ax.set_xlim(-0.6, len(models) - 0.4)
-        ax.set_ylabel(metric_label(metric, _target(store, sid), prefix=""))
+        ax.set_ylabel(get_metric(metric).axis_label(_target(store, sid), prefix=""))
         better = "lower" if a["better"] == "lower" else "higher"
         _headline(fig, "Which model predicts best?",
-                  f"{_METRIC_NAMES.get(metric, metric)} of each model's {a['rule']} cell on the "
+                  f"{metric_label(metric)} of each model's {a['rule']} cell on the "
                   f"same {n} folds ({better} is better); grey lines join one fold's scores")
         fig.legend(loc="outside lower center", ncols=3)
     return fig
@@ -258,7 +250,8 @@ def importance_figure(store: Store, sweep_id: str | None = None, *,
         order = order[-top:]
     colours = model_colours(store, sid)
     target = _target(store, sid)
-    unit = "unitless" if metric == "r2" else f"units of {target}"
+    unit = (get_metric(metric).unit_text(target) if method == "permutation"
+            else f"units of {target}")
     with _style():
         fig = _figure(max(6.0, 2.3 * len(models) + 1.6), 1.3 + 0.24 * len(order))
         axes = fig.subplots(1, len(models), sharey=True, sharex=method == "permutation",
@@ -274,7 +267,7 @@ def importance_figure(store: Store, sweep_id: str | None = None, *,
             ax.grid(axis="x", color="#eaeef2")
             ax.grid(axis="y", visible=False)
             ax.set_title(model, loc="left", fontweight="bold")
-        fig.supxlabel(_METHOD_AXIS[method].format(metric=_METRIC_NAMES.get(metric, metric),
+        fig.supxlabel(_METHOD_AXIS[method].format(metric=metric_label(metric),
                                                    unit=unit), fontsize=9)
         _headline(fig, "Which columns does each model rely on?",
                   f"{method} importance of each model's {chosen.attrs['rule']} cell, refit on "

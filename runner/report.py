@@ -18,7 +18,8 @@ from .errors import FoldwiseError
 from .explain import METHODS, importance_table, tree_fold_table
 from .output import mean_se, number, params_text
 from .picks import complexity_table, picks, sweep_facts, varying_params
-from .plots import (complexity_figure, figure_svg, importance_figure, metric_label,
+from .metrics import get_metric, metric_label
+from .plots import (complexity_figure, figure_svg, importance_figure,
                     model_colours, models_figure, predictions_figure, tree_figure)
 from .queries import summary
 from .stability import stability_summary
@@ -100,7 +101,7 @@ def decision(store: Store, sweep_id: str, *, rule: str | None = None) -> dict:
     rule = rule or facts["rule"]
     chosen = picks(store, facts["sweep_id"], rule=rule)
     metric, better = facts["metric"], facts["better"]
-    name = metric.upper() if metric != "r2" else "R²"
+    name = metric_label(metric)
     if chosen.empty:
         return {"rows": [], "sentences": ["No model has a cell with every fold scored; "
                                           "nothing can be recommended."], "leader": None}
@@ -288,7 +289,7 @@ def report_context(store: Store, sweep_id: str | None = None, *, se: str = "plai
         "sweep": sweep, "sid": sid, "facts": facts, "counts": counts,
         "versions": ", ".join(f"{k} {v}" for k, v in sorted(versions.items())),
         "seconds": _fmt(seconds, 3) if seconds is not None else "",
-        "metric_label": metric_label(metric, sweep["target"]),
+        "metric_label": get_metric(metric).axis_label(sweep["target"]),
         "models": [{"name": m, "colour": colours[m]} for m in models],
         "decision": decision(store, sid),
         "stability_sentences": _stability_sentences(stab),
@@ -305,7 +306,7 @@ def report_context(store: Store, sweep_id: str | None = None, *, se: str = "plai
         "compare_rule": pairs.attrs.get("rule"),
         "complexity": complexity,
         "importance": _importance_matrix(imp, rule_picks),
-        "methods": {k: v.format(metric=metric.upper()) for k, v in METHODS.items()},
+        "methods": {k: v.format(metric=metric_label(metric)) for k, v in METHODS.items()},
         "stability": _table(stab, stab_cols) if len(stab) else None,
         "tree_folds": _table(trees, {"model": "model", "repeat": "repeat", "fold": "fold",
                                      "n_leaves": "leaves", "depth": "depth",

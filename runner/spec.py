@@ -15,12 +15,10 @@ from pydantic import (BaseModel, ConfigDict, Field, ValidationError, field_valid
 
 from .errors import SpecError
 from .families import FAMILIES, check_param_value, nearest
+from .metrics import METRICS
 
-__all__ = ["Spec", "ModelSpec", "load_spec", "parse_spec", "spec_json_schema", "METRICS",
-           "LogRange", "LinearRange", "PathRange"]
-
-METRICS = {"rmse": "lower", "mae": "lower", "r2": "higher"}
-"""Every metric foldwise scores, with the direction that is better."""
+__all__ = ["Spec", "ModelSpec", "load_spec", "parse_spec", "spec_json_schema", "LogRange",
+           "LinearRange", "PathRange"]
 
 
 class _Strict(BaseModel):

@@ -74,7 +74,7 @@ def test_in_words():
         "forest beats linear on 27 of 30 folds; mean RMSE difference −1.80 ± 0.60 (p ≈ 0.012)")
     assert in_words("a", "b", metric="r2", better="higher", mean_diff=0.031, se=0.0042,
                     p=0.0002, wins_a=10, wins_b=0, n=10) == (
-        "a beats b on 10 of 10 folds; mean R2 difference 0.0310 ± 0.0042 (p < 0.001)")
+        "a beats b on 10 of 10 folds; mean R² difference 0.0310 ± 0.0042 (p < 0.001)")
     assert in_words("a", "b", metric="rmse", better="lower", mean_diff=0.0, se=0.0, p=1.0,
                     wins_a=0, wins_b=0, n=4) == "a and b tie on average; a wins 0 and b wins 0 of 4 folds"
 
@@ -131,7 +131,7 @@ def test_compare_higher_is_better(tmp_path):
                         k=2, repeats=2, metric="r2", better="higher")
     row = compare(store).iloc[0]
     assert (row.wins_a, row.wins_b) == (3, 1)
-    assert row.in_words.startswith("x beats y on 3 of 4 folds; mean R2 difference 0.")
+    assert row.in_words.startswith("x beats y on 3 of 4 folds; mean R² difference 0.")
 
 
 def test_compare_errors_and_single_model(tmp_path):

@@ -182,18 +182,29 @@ SCORE_SHAPES = [(2, 1), (3, 5), (127, 2), (128, 40), (129, 7), (1000, 3), (4097,
 
 
 @pytest.mark.parametrize("n,c", SCORE_SHAPES)
-@pytest.mark.parametrize("metric", ["rmse", "mae", "r2"])
+@pytest.mark.parametrize("metric", ["rmse", "mae", "r2", "mape"])
 def test_scoring_columns_equals_one_call_per_cell(n, c, metric):
-    from runner.engine import score, score_columns
+    from sklearn import metrics
+
+    from runner.metrics import METRICS
+
+    own = {"rmse": metrics.root_mean_squared_error, "mae": metrics.mean_absolute_error,
+           "r2": metrics.r2_score, "mape": metrics.mean_absolute_percentage_error}[metric]
+
+    def score_columns(y, P):
+        return METRICS[metric].score_columns(y, P)
+
+    def score(y, p):
+        return float(own(y, p))
 
     rng = np.random.default_rng(n * 100 + c)
     y = rng.normal(size=n) * 30 + 100
     P = y[:, None] + rng.normal(size=(n, c)) * rng.uniform(0.01, 20, size=c)
     P[:, 0] = y  # a perfect cell
     # reference: scikit-learn's own metric functions called once per cell
-    assert score_columns(metric, y, P) == [score(metric, y, P[:, j]) for j in range(c)]
+    assert score_columns(y, P) == [score(y, P[:, j]) for j in range(c)]
     flat = np.full(n, 3.0)  # constant target: r2's zero denominator
-    assert score_columns(metric, flat, P) == [score(metric, flat, P[:, j]) for j in range(c)]
+    assert score_columns(flat, P) == [score(flat, P[:, j]) for j in range(c)]
 
 
 # -- grouping ----------------------------------------------------------------------------

@@ -1,0 +1,86 @@
+"""The metric records: every record names a real scikit-learn function and scorer, and a
+metric added by one record (mape) is scored exactly as scikit-learn's own function scores it
+on the documented folds (reference: scikit-learn's `cross_validate` and
+`mean_absolute_percentage_error`)."""
+
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pytest
+from sklearn import metrics as skm
+from sklearn.model_selection import cross_validate
+from sklearn.pipeline import Pipeline
+from sklearn.tree import DecisionTreeRegressor
+
+from runner.cli import main
+from runner.engine import run_sweep
+from runner.metrics import METRICS
+from runner.resampling import fold_seed
+from runner.spec import load_spec
+from runner.store import Store
+
+from .helpers import diabetes_frame, documented_plan, write_spec
+
+
+@pytest.mark.parametrize("name", sorted(METRICS))
+def test_every_record_names_scikit_learns_function_and_scorer(name):
+    metric = METRICS[name]
+    function = getattr(skm, metric.function)
+    scorer = skm.get_scorer(metric.scorer)
+    y, p = np.array([1.0, 2.0, 4.0, 3.0]), np.array([1.5, 2.0, 3.0, 3.5])
+    # the scorer is the function, negated when lower is better (scikit-learn's convention)
+    assert scorer._score_func(y, p) == function(y, p) == metric.score(y, p)
+    assert scorer._sign == (-1 if metric.better == "lower" else 1)
+    assert metric.better in ("lower", "higher") and metric.label
+
+
+def test_labels_are_unique():
+    labels = [m.label for m in METRICS.values()]
+    assert len(set(labels)) == len(labels)
+
+
+def test_mape_fold_scores_equal_scikit_learn(tmp_path):
+    df = diabetes_frame()
+    df.to_csv(tmp_path / "diabetes.csv", index=False)
+    path = write_spec(tmp_path, """
+        tree: {family: pruned_tree, grid: {ccp_alpha: [0.0, 150.0], min_samples_leaf: [5]}}
+        """)
+    path.write_text(path.read_text().replace("metrics: [rmse, mae, r2]", "metrics: [mape, rmse]"))
+    result = run_sweep(load_spec(path), jobs=1)
+    stored = Store(result.store_path).query(
+        "select c.params, f.\"repeat\", f.fold, f.value from fold_scores f "
+        "join cells c using (sweep_id, cell_id) where f.metric = 'mape'")
+    X, y = df.drop(columns="progression"), df["progression"].to_numpy(float)
+    train_rows, _, folds = documented_plan(len(y), test_fraction=0.25, test_seed=3, k=3,
+                                           repeats=2, seed=17)
+    checked = 0
+    for params in stored.params.unique():
+        alpha = json.loads(params)["ccp_alpha"]
+        for rep, f, fit, valid in folds:
+            est = Pipeline([("model", DecisionTreeRegressor(
+                ccp_alpha=alpha, min_samples_leaf=5, random_state=fold_seed(17, rep, f)))])
+            ref = -cross_validate(est, X.iloc[train_rows], y[train_rows], cv=[(fit, valid)],
+                                  scoring="neg_mean_absolute_percentage_error"
+                                  )["test_score"][0]
+            mine = stored[(stored.params == params) & (stored["repeat"] == rep)
+                          & (stored.fold == f)].value.iloc[0]
+            assert mine == pytest.approx(ref, rel=0, abs=1e-12)
+            checked += 1
+    assert checked == 2 * 6
+
+
+def test_mape_refuses_a_target_with_zeros(tmp_path):
+    from click.testing import CliRunner
+
+    df = diabetes_frame()
+    df.loc[[5, 9], "progression"] = 0.0
+    df.to_csv(tmp_path / "diabetes.csv", index=False)
+    path = write_spec(tmp_path, "ols: {family: linear}")
+    path.write_text(path.read_text().replace("metrics: [rmse, mae, r2]", "metrics: [mape]"))
+    out = CliRunner().invoke(main, ["check", str(path)])
+    assert out.exit_code == 2
+    assert "metric 'mape' cannot score target column 'progression'" in out.output
+    assert "has 2 rows equal to 0" in out.output
+    assert not (tmp_path / "store.duckdb").exists()
