@@ -107,8 +107,10 @@ class SweepResult:
 
 
 def _path_resolver(prep: Prepared):
+    """{path: N} values of a model's cell: read off its family's data path on the
+    training rows (a pruned tree's cost-complexity pruning path)."""
     def resolve(label: str, combo: dict, n: int) -> list[float]:
-        family = load_family("pruned_tree")
+        family = FAMILIES[prep.spec.models[label].family].estimators
         frame, plan = prep.frame, prep.plan
         X = frame.X.iloc[plan.train_rows]
         y = frame.y[plan.train_rows]

@@ -34,14 +34,13 @@ from typing import Callable
 import numpy as np
 import pandas as pd
 
-from .families import load_family
+from .families import FAMILIES, get_family, load_family
 from .metrics import METRICS
 from .resampling import refit_seed
 from .store import Store
 
-__all__ = ["explain_sweep", "ExplainResult", "chosen_cells", "METHODS",
-           "output_sources", "coefficient_importance", "impurity_importance",
-           "permutation_rows", "tree_shape", "tree_node_rows", "importance_table",
+__all__ = ["explain_sweep", "ExplainResult", "chosen_cells", "METHODS", "permutation_rows",
+           "importance_table",
            "prediction_table", "tree_node_table", "tree_fold_table", "has_explain_tables"]
 
 METHODS = {
@@ -55,8 +54,6 @@ METHODS = {
 }
 """What each importance method's value means, for tables and reports."""
 
-FOLD_METHOD = {"linear": "coefficient", "pruned_tree": "impurity", "forest": "impurity"}
-_COST = {"forest": 3, "pruned_tree": 1, "linear": 1}
 EXPLAIN_TABLES = ("importances", "fold_importances", "tree_folds", "tree_nodes",
                   "test_predictions")
 EXPLAIN_VERSION = "1"
@@ -73,60 +70,6 @@ class ExplainResult:
     problems: list = field(default_factory=list)
 
 
-# -- what the fitted pipelines show --------------------------------------------------------
-def output_sources(prep) -> list[str]:
-    """The original column behind each output column of a fitted preprocessing step."""
-    sources: list[str] = []
-    for name, transformer, columns in prep.transformers_:
-        if name == "remainder" or transformer == "drop":
-            continue
-        if transformer == "passthrough":
-            sources.extend(columns)
-        elif hasattr(transformer, "named_steps") and "onehot" in transformer.named_steps:
-            kept = transformer.named_steps["impute"].get_feature_names_out(columns)
-            for col, levels in zip(kept, transformer.named_steps["onehot"].categories_):
-                sources.extend([str(col)] * len(levels))
-        else:
-            sources.extend(str(c) for c in transformer.get_feature_names_out(columns))
-    return sources
-
-
-def _by_source(values, sources: list[str], features: list[str]) -> dict[str, float]:
-    out = {f: 0.0 for f in features}
-    for v, s in zip(np.asarray(values, dtype=float), sources):
-        out[s] += float(v)
-    return out
-
-
-def coefficient_importance(pipeline, X_fit, features: list[str]) -> dict[str, float]:
-    """Per original column, the SD over the fitting rows of its part of the linear prediction."""
-    prep, model = pipeline.named_steps["prep"], pipeline.named_steps["model"]
-    coefs = np.asarray(model.coef_, dtype=float).ravel()
-    sources = output_sources(prep)
-    Xt = np.asarray(prep.transform(X_fit), dtype=float)
-    numeric = set()
-    for name, _, columns in prep.transformers_:
-        if name == "num":
-            numeric.update(columns)
-    out = {f: 0.0 for f in features}
-    for col in features:
-        idx = [i for i, s in enumerate(sources) if s == col]
-        if not idx:
-            continue
-        if col in numeric:  # one standardised column: SD of w*z is |w|
-            out[col] = float(abs(coefs[idx[0]]))
-        else:
-            out[col] = float(np.std(Xt[:, idx] @ coefs[idx]))
-    return out
-
-
-def impurity_importance(pipeline, features: list[str]) -> dict[str, float]:
-    """The fitted tree's or forest's impurity-based importances, per original column."""
-    model = pipeline.named_steps["model"]
-    return _by_source(model.feature_importances_, output_sources(pipeline.named_steps["prep"]),
-                      features)
-
-
 def permutation_rows(pipeline, X_test, y_test, *, metric: str, repeats: int,
                      seed: int) -> dict[str, tuple[float, float]]:
     """Per original column, (mean, sd) of the score lost when the column is shuffled."""
@@ -136,68 +79,6 @@ def permutation_rows(pipeline, X_test, y_test, *, metric: str, repeats: int,
                                     n_repeats=repeats, random_state=seed, n_jobs=1)
     return {str(col): (float(m), float(s)) for col, m, s in
             zip(X_test.columns, result.importances_mean, result.importances_std)}
-
-
-def _categories(prep) -> dict[str, list]:
-    """The ordinal codes' levels of each categorical column of a tree preprocessor."""
-    out = {}
-    for name, transformer, columns in prep.transformers_:
-        if name == "cat":
-            for col, levels in zip(columns, transformer.categories_):
-                out[str(col)] = list(levels)
-    return out
-
-
-def _rule(feature: str, threshold: float, levels: list | None) -> str:
-    """The condition that sends a row to the left child, in the data's own terms."""
-    if levels is not None:
-        left = [str(v) for i, v in enumerate(levels) if i <= threshold]
-        return f"{feature} in {{{', '.join(left)}}}"
-    return f"{feature} ≤ {threshold:.4g}"
-
-
-def tree_shape(pipeline) -> dict:
-    """Leaves, depth, root split (column, threshold, rule) and the set of columns used."""
-    prep, tree = pipeline.named_steps["prep"], pipeline.named_steps["model"]
-    sources, levels = output_sources(prep), _categories(prep)
-    t = tree.tree_
-    used = sorted({sources[f] for f in t.feature if f >= 0})
-    out = {"n_leaves": int(tree.get_n_leaves()), "depth": int(tree.get_depth()),
-           "root_feature": None, "root_threshold": None, "root_rule": None,
-           "features_used": used}
-    if t.node_count > 1:
-        name = sources[t.feature[0]]
-        out.update(root_feature=name, root_threshold=float(t.threshold[0]),
-                   root_rule=_rule(name, float(t.threshold[0]), levels.get(name)))
-    return out
-
-
-def tree_node_rows(pipeline) -> list[dict]:
-    """One row per node of the fitted tree: links, depth, split rule, mean and size."""
-    prep, tree = pipeline.named_steps["prep"], pipeline.named_steps["model"]
-    sources, levels = output_sources(prep), _categories(prep)
-    t = tree.tree_
-    parent = np.full(t.node_count, -1)
-    depth = np.zeros(t.node_count, dtype=int)
-    for node in range(t.node_count):  # children always follow their parent
-        for child in (t.children_left[node], t.children_right[node]):
-            if child >= 0:
-                parent[child], depth[child] = node, depth[node] + 1
-    rows = []
-    for node in range(t.node_count):
-        leaf = t.children_left[node] < 0
-        name = None if leaf else sources[t.feature[node]]
-        thr = None if leaf else float(t.threshold[node])
-        rows.append({"node": node, "parent": int(parent[node]),
-                     "left_child": int(t.children_left[node]),
-                     "right_child": int(t.children_right[node]), "depth": int(depth[node]),
-                     "feature": name, "threshold": thr,
-                     "rule": None if leaf else _rule(name, thr, levels.get(name)),
-                     "missing_left": None if leaf else bool(t.missing_go_to_left[node]),
-                     "value": float(t.value[node].ravel()[0]),
-                     "n_samples": int(t.n_node_samples[node]),
-                     "impurity": float(t.impurity[node])})
-    return rows
 
 
 # -- the tasks -----------------------------------------------------------------------------
@@ -228,20 +109,19 @@ def _explain_task(kind: str, *args, **kwargs):
 def _fold_task(family, cell_id, params, X_fit, y_fit, *, seed, repeat, fold, numeric,
                categorical):
     """One chosen cell refitted on one fold's fitting rows: importances and tree shape."""
+    fam = FAMILIES[family]
     features = list(X_fit.columns)
     try:
         est = _fit(family, params, X_fit, y_fit, seed=seed, numeric=numeric,
                    categorical=categorical)
-        method = FOLD_METHOD[family]
-        values = (coefficient_importance(est, X_fit, features) if method == "coefficient"
-                  else impurity_importance(est, features))
+        values = fam.estimators.own_importance(est, X_fit, features)
     except Exception as exc:  # recorded and reported; the sweep's scores stand
         return cell_id, {}, f"{cell_id} fold ({repeat}, {fold}): {type(exc).__name__}: {exc}"
     key = {"cell_id": cell_id, "repeat": repeat, "fold": fold}
-    rows = {"fold_importances": [{**key, "feature": f, "method": method, "value": v}
+    rows = {"fold_importances": [{**key, "feature": f, "method": fam.importance, "value": v}
                                  for f, v in values.items()]}
-    if family == "pruned_tree":
-        rows["tree_folds"] = [{**key, **tree_shape(est)}]
+    if fam.one_tree:
+        rows["tree_folds"] = [{**key, **fam.estimators.tree_shape(est)}]
     return cell_id, rows, None
 
 
@@ -254,15 +134,15 @@ def _refit_task(family, cell_id, params, X_train, y_train, X_test, y_test, test_
                    categorical=categorical)
         perm = permutation_rows(est, X_test, y_test, metric=metric, repeats=repeats,
                                 seed=perm_seed)
-        own = (coefficient_importance(est, X_train, features) if family == "linear"
-               else impurity_importance(est, features))
+        fam = FAMILIES[family]
+        own = fam.estimators.own_importance(est, X_train, features)
         predicted = est.predict(X_test)
-        nodes = tree_node_rows(est) if family == "pruned_tree" else []
+        nodes = fam.estimators.tree_node_rows(est) if fam.one_tree else []
     except Exception as exc:
         return cell_id, {}, f"{cell_id} refit: {type(exc).__name__}: {exc}"
     imp = [{"cell_id": cell_id, "feature": f, "method": "permutation", "value": m, "spread": s}
            for f, (m, s) in perm.items()]
-    imp += [{"cell_id": cell_id, "feature": f, "method": FOLD_METHOD[family], "value": v}
+    imp += [{"cell_id": cell_id, "feature": f, "method": fam.importance, "value": v}
             for f, v in own.items()]
     rows = {"importances": imp,
             "test_predictions": [{"cell_id": cell_id, "row": int(r), "observed": float(o),
@@ -373,7 +253,7 @@ def explain_sweep(spec, store: Store, sweep_id: str, *, prepared=None, jobs: int
     tasks = []
     for c in chosen.itertuples(index=False):
         params = json.loads(c.params) if isinstance(c.params, str) else dict(c.params)
-        cost = _COST.get(c.family, 0)  # the slowest tasks first, so workers finish together
+        cost = get_family(c.family).explain_cost  # slowest first, so workers finish together
         tasks.append((-2 * cost, (c.family, c.cell_id, params, None)))
         for f in plan.folds:
             tasks.append((-cost, (c.family, c.cell_id, params, f)))

@@ -6,7 +6,6 @@ from __future__ import annotations
 import hashlib
 import itertools
 import json
-import math
 from dataclasses import dataclass
 from typing import Callable
 
@@ -16,7 +15,7 @@ from .families import FAMILIES
 from .spec import LinearRange, LogRange, ModelSpec, PathRange
 
 __all__ = ["Cell", "expand_model", "expand_spec", "cell_id", "EVAL_VERSION", "range_values",
-           "spread_along_path", "canonical_params", "count_cells"]
+           "spread_along_path", "count_cells"]
 
 EVAL_VERSION = "1"
 """Bumped whenever a change to foldwise would change any stored score; enters every cell id."""
@@ -59,26 +58,6 @@ def spread_along_path(path_alphas: np.ndarray, n: int) -> list[float]:
     return [float(distinct[i]) for i in picks]
 
 
-def canonical_params(family: str, params: dict) -> dict:
-    """Fill defaults and drop parameters that cannot matter, so equal models get equal ids."""
-    fam = FAMILIES[family]
-    full = {name: p.default for name, p in fam.params.items()}
-    full.update(params)
-    if family == "linear":
-        if full["penalty"] == "none":
-            full.pop("alpha"), full.pop("l1_ratio")
-        elif full["penalty"] != "elasticnet":
-            full.pop("l1_ratio")
-    elif family == "pruned_tree":
-        if full.get("ccp_fraction") is not None:
-            full.pop("ccp_alpha")
-        else:
-            full.pop("ccp_fraction")
-    elif family == "forest" and not full["bootstrap"]:
-        full["max_samples"] = None
-    return dict(sorted(full.items()))
-
-
 def cell_id(family: str, params: dict, data_sha256: str, plan_identity: dict, *,
             model: str = "") -> str:
     """A stable hash of (model label, family, params, data, plan, evaluation version).
@@ -92,35 +71,6 @@ def cell_id(family: str, params: dict, data_sha256: str, plan_identity: dict, *,
 
 PathResolver = Callable[[str, dict, int], list]
 """(model label, the cell's other params, N) -> concrete ccp_alpha values."""
-
-
-def _sort_key(family: str, params: dict, simpler: dict, n_features: int | None):
-    """A key under which smaller means simpler."""
-    fam = FAMILIES[family]
-    key = []
-    names = list(fam.complexity_order) + [n for n in simpler if n not in fam.complexity_order]
-    for name in names:
-        if name not in params:
-            continue
-        value = params[name]
-        direction = simpler.get(name, fam.params[name].simpler)
-        if name == "penalty":
-            key.append(1 if value == "none" else 0)
-            continue
-        num = _as_number(name, value, n_features)
-        key.append(-num if direction == "higher" else num)
-    return tuple(key)
-
-
-def _as_number(name: str, value, n_features: int | None) -> float:
-    if value is None:
-        return math.inf if name in ("max_depth",) else 1.0 if name == "max_features" else 0.0
-    if isinstance(value, str):  # max_features 'sqrt' / 'log2'
-        n = n_features or 100
-        return (math.log2(n) if value == "log2" else math.sqrt(n)) / n
-    if name == "max_features" and isinstance(value, int):
-        return value / (n_features or 100)
-    return float(value)
 
 
 def expand_model(label: str, model: ModelSpec, *, data_sha256: str, plan_identity: dict,
@@ -150,10 +100,10 @@ def expand_model(label: str, model: ModelSpec, *, data_sha256: str, plan_identit
             params_list.append(combo)
     unique = {}
     for params in params_list:
-        canon = canonical_params(model.family, params)
+        canon = fam.canonical(params)
         unique.setdefault(json.dumps(canon, sort_keys=True), canon)
     ordered = sorted(unique.values(),
-                     key=lambda p: (_sort_key(model.family, p, model.simpler, n_features),
+                     key=lambda p: (fam.complexity_key(p, model.simpler, n_features),
                                     json.dumps(p, sort_keys=True)))
     return [Cell(label, model.family, p,
                  cell_id(model.family, p, data_sha256, plan_identity, model=label), i)

@@ -22,7 +22,7 @@ import pandas as pd
 
 from .errors import QueryError
 from .explain import importance_table, prediction_table, tree_node_table
-from .families import FAMILIES
+from .families import get_family
 from .metrics import get_metric, metric_label
 from .output import number, params_text
 from .picks import check_rule, complexity_table, picks, sweep_facts
@@ -90,7 +90,7 @@ def _x_axis(table: pd.DataFrame, family: str):
     """x values, axis label, log scale?, reversed? and tick labels for a complexity curve."""
     varying = [n for n in table.attrs["shown_params"]
                if table[n].map(lambda v: json.dumps(v)).nunique() > 1]
-    if family == "pruned_tree" and table["mean_leaves"].notna().all():
+    if table["mean_leaves"].notna().all():  # a family that grows one tree: its size
         x = table["mean_leaves"].to_numpy(float)
         return x, "leaves of the fitted tree (mean over folds, log scale)", True, False, None
     if len(varying) == 1:
@@ -99,7 +99,7 @@ def _x_axis(table: pd.DataFrame, family: str):
         if all(isinstance(v, (int, float)) and not isinstance(v, bool) for v in values):
             x = values.to_numpy(float)
             log = x.min() > 0 and x.max() / x.min() > 20
-            param = FAMILIES[family].params.get(name) if family in FAMILIES else None
+            param = get_family(family).params.get(name)
             simpler = param.simpler if param is not None else None
             label = f"{name}{' (log scale)' if log else ''}"
             return x, label, log, simpler == "higher", None
@@ -360,11 +360,11 @@ def tree_figure(store: Store, sweep_id: str | None = None, *, rule: str | None =
 
     chosen = _picked(store, sweep_id, rule)
     sid = chosen.attrs["sweep_id"]
-    trees = chosen[chosen["family"] == "pruned_tree"]
+    trees = chosen[chosen["family"].map(lambda f: get_family(f).one_tree)]
     if model is not None:
         trees = trees[trees["model"] == model]
     if trees.empty:
-        raise QueryError(f"sweep {sid} has no picked pruned_tree cell"
+        raise QueryError(f"sweep {sid} has no picked single-tree cell"
                          f"{' for model ' + repr(model) if model else ''} to draw.")
     pick = trees.iloc[0]
     nodes = tree_node_table(store, sid, pick["cell_id"])

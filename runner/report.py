@@ -18,6 +18,7 @@ from .errors import FoldwiseError
 from .explain import METHODS, importance_table, tree_fold_table
 from .output import mean_se, number, params_text
 from .picks import complexity_table, picks, sweep_facts, varying_params
+from .families import get_family
 from .metrics import get_metric, metric_label
 from .plots import (complexity_figure, figure_svg, importance_figure,
                     model_colours, models_figure, predictions_figure, tree_figure)
@@ -46,8 +47,6 @@ CAUTIONS = [
     "model-risk, fairness and data-protection rules. The spec text and data fingerprint below "
     "support that audit; they do not replace it.",
 ]
-
-_READABLE = ("linear", "pruned_tree")
 
 
 def _fmt(value, digits: int = 4) -> str:
@@ -145,8 +144,8 @@ def decision(store: Store, sweep_id: str, *, rule: str | None = None) -> dict:
                          f"The lead is within the noise of these folds: {lm} and {ru} are "
                          "not clearly separated, so prefer whichever is simpler to run and "
                          "explain."))
-    if leader["family"] not in _READABLE:
-        readable = ranked[ranked["family"].isin(_READABLE)]
+    if not get_family(leader["family"]).readable:
+        readable = ranked[ranked["family"].map(lambda f: get_family(f).readable)]
         if len(readable) and readable.iloc[0]["model"] in gaps:
             rm = readable.iloc[0]
             gap, se, *_ = gaps[rm["model"]]
@@ -170,16 +169,16 @@ def decision(store: Store, sweep_id: str, *, rule: str | None = None) -> dict:
 def _stability_sentences(stab: pd.DataFrame) -> list[str]:
     out = []
     for r in stab.itertuples(index=False):
-        if r.family == "pruned_tree" and r.root_feature is not None:
+        if r.root_feature is not None and r.root_feature == r.root_feature:
             out.append(f"{r.model} ({_rule_label(r.picked)} cell): {r.root_share:.0%} of "
                        f"{r.folds} fold trees split first on {r.root_feature}; two fold trees "
                        f"share on average {r.jaccard:.2f} of their columns (Jaccard); leaves "
                        f"range {int(r.leaves_min)}–{int(r.leaves_max)}; importance ranks "
                        f"agree at mean Spearman ρ = {_fmt(r.rank_agreement, 2)}.")
-        elif r.family == "forest":
+        else:
             out.append(f"{r.model} ({_rule_label(r.picked)} cell): importance ranks across "
-                       f"{r.folds} fold forests agree at mean Spearman ρ = "
-                       f"{_fmt(r.rank_agreement, 2)}.")
+                       f"{r.folds} fold {get_family(r.family).plural} agree at mean Spearman "
+                       f"ρ = {_fmt(r.rank_agreement, 2)}.")
     return out
 
 

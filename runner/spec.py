@@ -91,6 +91,12 @@ class PathRange(_Strict):
 _RANGE_FORMS = {"log": LogRange, "linear": LinearRange, "path": PathRange}
 
 
+def _data_path_params() -> str:
+    """'ccp_alpha of the pruned_tree family': where {path: N} may be used."""
+    return " and ".join(f"{p.name} of the {f.name} family" for f in FAMILIES.values()
+                        for p in f.params.values() if p.data_path)
+
+
 def _grid_form(name: str, value: Any):
     """Resolve one grid entry to a list of values or a range object (the canonical forms)."""
     if isinstance(value, dict):
@@ -145,9 +151,9 @@ class ModelSpec(_Strict):
             param = family.params[name]
             value = _grid_form(name, value)
             if isinstance(value, PathRange):
-                if self.family != "pruned_tree" or name != "ccp_alpha":
-                    raise ValueError(f"grid.{name}: {{path: N}} is only for ccp_alpha of "
-                                     "the pruned_tree family")
+                if not param.data_path:
+                    raise ValueError(f"grid.{name}: {{path: N}} is only for "
+                                     f"{_data_path_params()}")
                 canonical[name] = value
             elif isinstance(value, (LogRange, LinearRange)):
                 if param.kind not in ("float", "int"):

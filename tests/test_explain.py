@@ -13,7 +13,8 @@ from sklearn.inspection import permutation_importance
 
 from runner.engine import prepare
 from runner.errors import SpecError
-from runner.explain import explain_sweep, output_sources
+from runner.explain import explain_sweep
+from runner.families._readers import output_sources
 from runner.families import load_family
 from runner.resampling import refit_seed
 from runner.spec import parse_spec

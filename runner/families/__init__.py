@@ -1,15 +1,19 @@
-"""The family catalogue: which hyperparameters each model family takes, their defaults and
-their complexity direction. Pure data, no scikit-learn, so the spec can validate against it
-cheaply; `load_family` imports a family's estimator module only when a sweep needs it."""
+"""The family objects: everything foldwise knows about each model family in one record —
+its hyperparameters and defaults, their complexity order, which of them one fit can sweep,
+what the explain step reads from a fitted model, and how the family is described. Records
+are pure data (no scikit-learn), so the spec validates against them cheaply; each family's
+estimator module (`Family.estimators`) is imported only when something is fitted."""
 
 from __future__ import annotations
 
 import difflib
 import importlib
+import math
 from dataclasses import dataclass, field
-from typing import Any
+from typing import Any, Callable
 
-__all__ = ["FAMILIES", "Family", "Param", "load_family", "nearest", "check_param_value"]
+__all__ = ["FAMILIES", "Family", "Param", "get_family", "load_family", "nearest",
+           "check_param_value"]
 
 
 @dataclass(frozen=True)
@@ -26,11 +30,29 @@ class Param:
     allow_none: bool = False
     simpler: str | None = None  # "higher" or "lower": which values give the simpler model
     help: str = ""
+    none_rank: float = 0.0  # where null sits among the values when ranking complexity
+    choice_rank: tuple = ()  # (choice, rank) pairs for a "choice" parameter
+    data_path: bool = False  # takes {path: N}: values read off the data's pruning path
+
+    def rank(self, value, n_features: int | None) -> float:
+        """A number that orders this parameter's values (the direction is `simpler`)."""
+        if value is None:
+            return self.none_rank
+        if self.kind == "choice":
+            return float(dict(self.choice_rank).get(value, 0.0))
+        if isinstance(value, str):  # max_features 'sqrt' / 'log2' as a share of the columns
+            n = n_features or 100
+            return (math.log2(n) if value == "log2" else math.sqrt(n)) / n
+        if self.kind == "max_features" and isinstance(value, int):
+            return value / (n_features or 100)
+        return float(value)
 
 
 @dataclass(frozen=True)
 class Family:
-    """A model family: its parameters and the order in which they decide complexity."""
+    """A model family: its parameters, how they order complexity, which of them one fit can
+    sweep (`path_params`), what the explain step reads from a fitted model, and how it is
+    described. The estimators themselves live in `module`, imported only when needed."""
 
     name: str
     module: str
@@ -38,10 +60,64 @@ class Family:
     complexity_order: tuple[str, ...]
     description: str = ""
     path_params: tuple[str, ...] = field(default=())
+    importance: str = "impurity"  # the fitted model's own importance: impurity/coefficient
+    one_tree: bool = False  # the fitted model is one tree: leaves, shape and nodes are kept
+    readable: bool = False  # a person can read the fitted model as it is
+    plural: str = "models"  # what its fitted models are called, e.g. "forests"
+    explain_cost: float = 1.0  # a refit's rough cost, to start the slowest first
+    tidy: Callable[[dict], None] | None = None  # drops what cannot matter, in place
+
+    @property
+    def defaults(self) -> dict[str, Any]:
+        return {name: p.default for name, p in self.params.items()}
+
+    @property
+    def estimators(self):
+        """The module that builds and fits this family's estimators (imports scikit-learn)."""
+        return load_family(self.name)
+
+    def canonical(self, params: dict) -> dict:
+        """Defaults filled, parameters that cannot matter dropped, keys sorted: equal models
+        get equal parameters (and so equal cell ids)."""
+        full = {**self.defaults, **params}
+        if self.tidy is not None:
+            self.tidy(full)
+        return dict(sorted(full.items()))
+
+    def complexity_key(self, params: dict, simpler: dict | None = None,
+                       n_features: int | None = None) -> tuple:
+        """A sort key under which smaller means simpler; `simpler` overrides directions."""
+        simpler = simpler or {}
+        names = list(self.complexity_order) + [n for n in simpler
+                                               if n not in self.complexity_order]
+        key = []
+        for name in names:
+            if name not in params:
+                continue
+            param = self.params[name]
+            rank = param.rank(params[name], n_features)
+            key.append(-rank if simpler.get(name, param.simpler) == "higher" else rank)
+        return tuple(key)
 
 
 def _params(*items: Param) -> dict[str, Param]:
     return {p.name: p for p in items}
+
+
+def _tidy_linear(p: dict) -> None:
+    if p["penalty"] == "none":
+        p.pop("alpha"), p.pop("l1_ratio")
+    elif p["penalty"] != "elasticnet":
+        p.pop("l1_ratio")
+
+
+def _tidy_tree(p: dict) -> None:
+    p.pop("ccp_alpha" if p.get("ccp_fraction") is not None else "ccp_fraction")
+
+
+def _tidy_forest(p: dict) -> None:
+    if not p["bootstrap"]:
+        p["max_samples"] = None
 
 
 FAMILIES: dict[str, Family] = {
@@ -52,6 +128,8 @@ FAMILIES: dict[str, Family] = {
         "one-hot encoding and standardisation.",
         params=_params(
             Param("penalty", "choice", "none", choices=("none", "l2", "l1", "elasticnet"),
+                  simpler="lower",
+                  choice_rank=(("none", 1), ("l2", 0), ("l1", 0), ("elasticnet", 0)),
                   help="none = ordinary least squares; l2 = ridge; l1 = lasso; elasticnet = both"),
             Param("alpha", "float", 1.0, minimum=0.0, min_inclusive=False, simpler="higher",
                   help="penalty strength (ignored when penalty is none)"),
@@ -60,23 +138,27 @@ FAMILIES: dict[str, Family] = {
         ),
         complexity_order=("penalty", "alpha"),
         path_params=("alpha",),
+        importance="coefficient", readable=True, plural="linear models", tidy=_tidy_linear,
     ),
     "pruned_tree": Family(
         name="pruned_tree",
         module="runner.families.pruned_tree",
         description="A regression tree pruned by cost complexity.",
         params=_params(
-            Param("ccp_alpha", "float", 0.0, minimum=0.0, simpler="higher",
+            Param("ccp_alpha", "float", 0.0, minimum=0.0, simpler="higher", data_path=True,
                   help="cost-complexity pruning strength, as in scikit-learn"),
             Param("ccp_fraction", "float", None, minimum=0.0, allow_none=True, simpler="higher",
                   help="ccp_alpha as a fraction of the root node's mean squared error"),
             Param("min_samples_leaf", "int", 1, minimum=1, simpler="higher"),
-            Param("max_depth", "int", None, minimum=1, allow_none=True, simpler="lower"),
-            Param("max_features", "max_features", None, allow_none=True, simpler="lower"),
+            Param("max_depth", "int", None, minimum=1, allow_none=True, simpler="lower",
+                  none_rank=math.inf),
+            Param("max_features", "max_features", None, allow_none=True, simpler="lower",
+                  none_rank=1.0),
         ),
         complexity_order=("ccp_alpha", "ccp_fraction", "min_samples_leaf", "max_depth",
                           "max_features"),
         path_params=("ccp_alpha", "ccp_fraction"),
+        one_tree=True, readable=True, plural="trees", tidy=_tidy_tree,
     ),
     "forest": Family(
         name="forest",
@@ -85,17 +167,28 @@ FAMILIES: dict[str, Family] = {
         params=_params(
             Param("n_estimators", "int", 100, minimum=1, simpler="lower",
                   help="number of trees (does not change complexity; fewer is cheaper)"),
-            Param("max_features", "max_features", 1.0, allow_none=True, simpler="lower"),
+            Param("max_features", "max_features", 1.0, allow_none=True, simpler="lower",
+                  none_rank=1.0),
             Param("min_samples_leaf", "int", 1, minimum=1, simpler="higher"),
-            Param("max_depth", "int", None, minimum=1, allow_none=True, simpler="lower"),
+            Param("max_depth", "int", None, minimum=1, allow_none=True, simpler="lower",
+                  none_rank=math.inf),
             Param("max_samples", "float", None, minimum=0.0, maximum=1.0, min_inclusive=False,
                   allow_none=True),
             Param("bootstrap", "bool", True),
         ),
         complexity_order=("min_samples_leaf", "max_features", "max_depth", "n_estimators"),
         path_params=("n_estimators",),
+        plural="forests", explain_cost=3.0, tidy=_tidy_forest,
     ),
 }
+
+
+def get_family(name: str) -> Family:
+    """The family of this name; a name this foldwise does not know (from a store a newer
+    foldwise wrote) gets a bare record, so reading a store never fails on it."""
+    if name in FAMILIES:
+        return FAMILIES[name]
+    return Family(name=name, module="", params={}, complexity_order=())
 
 
 def nearest(name: str, candidates) -> str:

@@ -13,10 +13,11 @@ import numpy as np
 from sklearn.linear_model import ElasticNet, Lasso, LinearRegression, Ridge
 from sklearn.pipeline import Pipeline
 
+from ._readers import coefficient_importance as own_importance
 from ._base import CellFit, fit_grouped, linear_preprocessor, work_units
 from .paths import elastic_net_path_coefs, ridge_path_coefs
 
-__all__ = ["make_estimator", "fit_cells", "fit_units", "original_scale_coefficients",
+__all__ = ["make_estimator", "fit_cells", "fit_units", "own_importance", "original_scale_coefficients",
            "PATH_PARAMS"]
 
 PATH_PARAMS = ("alpha",)

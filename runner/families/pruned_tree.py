@@ -14,10 +14,13 @@ import numpy as np
 from sklearn.pipeline import Pipeline
 from sklearn.tree import DecisionTreeRegressor
 
+from ._readers import impurity_importance as own_importance
+from ._readers import tree_node_rows, tree_shape
 from ._base import CellFit, fit_grouped, tree_preprocessor, work_units
 from .paths import pruned_tree_predictions
 
-__all__ = ["make_estimator", "fit_cells", "fit_units", "resolve_alpha", "pruning_path_alphas",
+__all__ = ["make_estimator", "fit_cells", "fit_units", "own_importance", "tree_shape",
+           "tree_node_rows", "resolve_alpha", "pruning_path_alphas",
            "PATH_PARAMS"]
 
 PATH_PARAMS = ("ccp_alpha", "ccp_fraction")
