@@ -10,7 +10,7 @@ import sys
 import click
 
 from .errors import FoldwiseError
-from .output import FORMATS, emit, mean_se, params_text
+from .output import FORMATS, emit
 
 STORE_ENV = "FOLDWISE_STORE"
 
@@ -170,33 +170,20 @@ class _ProgressBar:
             self._bar.stop()
 
 
-def _defaults(family: str) -> dict:
-    from .families import FAMILIES
-
-    fam = FAMILIES.get(family)
-    return {n: p.default for n, p in fam.params.items()} if fam else {}
+def _show(result, view, fmt) -> None:
+    """Print a result: its view as a table, or its exact table as CSV or JSON; remarks go
+    to stderr, so that CSV and JSON stay clean."""
+    emit(result.table, fmt, view=view)
+    for note in view.notes:
+        click.echo(note, err=True)
 
 
 def _print_summary(store, sweep_id, fmt):
-    from .queries import summary as summary_df
+    from .queries import summary as read_summary
+    from .views import summary_view
 
-    df = summary_df(store, sweep_id)
-    metrics = df.attrs.get("metrics", [])
-    display = df[["model", "family", "cells"]].copy()
-    display["picked cell"] = [params_text(p, hide=_defaults(f)) for p, f in zip(df["params"], df["family"])]
-    for m in metrics:
-        display[f"CV {m} (mean ± SE)"] = [mean_se(a, b) for a, b in zip(df[f"cv_{m}"], df[f"se_{m}"])]
-        display[f"test {m}"] = df[f"test_{m}"]
-    if "failed_cells" in df and df["failed_cells"].any():
-        display.insert(3, "failed cells", df["failed_cells"])
-    title = (f"sweep {df.attrs.get('sweep_id')}: picked cell per model (rule "
-             f"{df.attrs.get('rule')}) by CV {df.attrs.get('primary_metric')}")
-    emit(df, fmt, title=title, display=display)
-    if fmt == "table":
-        for model in df.attrs.get("unpicked", []):
-            click.echo(f"note: model '{model}' has no cell to pick: every cell has a failed "
-                       "fit or missing folds (see `foldwise sql \"select * from failures\"`).",
-                       err=True)
+    result = read_summary(store, sweep_id)
+    _show(result, summary_view(result), fmt)
 
 
 @main.command()
@@ -311,31 +298,6 @@ def _se_option(f):
                              "sqrt((1/(k·r) + n_valid/n_train)·sd²).")(f)
 
 
-def _warn_unpicked(df) -> None:
-    for model in df.attrs.get("unpicked", []):
-        click.echo(f"warning: model '{model}' has no cell with all folds scored and no failed "
-                   "fits, so nothing was picked; see `foldwise path --model "
-                   f"{model}`.", err=True)
-
-
-def _cell_text(params, keep, leaves) -> str:
-    """A picked cell as the params that vary in its model's grid, plus mean leaves."""
-    values = json.loads(params) if isinstance(params, str) else dict(params)
-    kept = {k: v for k, v in values.items() if k in keep}
-    text = params_text(kept) if kept else "(single cell)"
-    if leaves is not None and leaves == leaves:
-        text += f" ({leaves:.3g} leaves)"
-    return text
-
-
-def _value_text(value) -> str:
-    if value is None or (isinstance(value, float) and value != value):
-        return "none"
-    if isinstance(value, float):
-        return f"{value:.6g}"
-    return str(value)
-
-
 @main.command()
 @_store_option
 @_sweep_option
@@ -352,34 +314,11 @@ def pick(store_path, sweep_id, rule, model, se, fmt):
       foldwise pick --rule one_se --model tree
       foldwise pick --se corrected --format json
     """
-    import pandas as pd
+    from .queries import picks
+    from .views import picks_view
 
-    from .picks import picks, varying_params
-
-    store = _open_store(store_path)
-    df = picks(store, sweep_id, rule=rule, se=se, model=model)
-    a = df.attrs
-    varying = varying_params(store, a["sweep_id"])
-    m = a["metric"]
-    title = (f"sweep {a['sweep_id']}: picks by CV {m} ({a['better']} is better, {se} SE; "
-             f"rank 0 = simplest; the sweep's rule is {a['default_rule']})")
-    shown = []
-    for _, group in df.groupby("model", sort=False):
-        row = {"model": group["model"].iloc[0], "family": group["family"].iloc[0]}
-        for r in group.itertuples(index=False):
-            label = "one-SE" if r.rule == "one_se" else "best"
-            prefix = f"{label} " if rule is None else ""
-            if rule is not None:
-                row["rule"] = r.rule
-            row[f"{prefix}cell"] = _cell_text(r.params, varying.get(r.model, []), r.mean_leaves)
-            row[f"{prefix}rank"] = int(r.complexity_rank)
-            row[f"{prefix}CV {m} (mean ± SE)"] = mean_se(r.mean, r.se)
-            row[f"{prefix}test {m}"] = r.test
-        if rule == "one_se":
-            row["within 1 SE"] = f"{group['n_within'].iloc[0]} of {group['eligible'].iloc[0]}"
-        shown.append(row)
-    emit(df, fmt, title=title, display=pd.DataFrame(shown))
-    _warn_unpicked(df)
+    result = picks(_open_store(store_path), sweep_id, rule=rule, se=se, model=model)
+    _show(result, picks_view(result), fmt)
 
 
 @main.command()
@@ -398,32 +337,11 @@ def compare(store_path, sweep_id, rule, metric, se, fmt):
       foldwise compare
       foldwise compare --rule best --metric mae --format csv
     """
-    import pandas as pd
+    from .queries import compare as read_compare
+    from .views import compare_view
 
-    from .compare import compare as compare_df
-
-    df = compare_df(_open_store(store_path), sweep_id, rule=rule, se=se, metric=metric)
-    a = df.attrs
-    m = a["metric"]
-
-    display = pd.DataFrame({
-        "pair (a vs b)": [f"{x} vs {y}" for x, y in zip(df["model_a"], df["model_b"])],
-        "folds": df["folds"],
-        f"CV {m} a − b (mean ± SE)": [mean_se(d, e) for d, e in zip(df["mean_diff"], df["se"])],
-        "t": df["t"], "p": df["p_value"],
-        "folds won a : b": [f"{x} : {y}" for x, y in zip(df["wins_a"], df["wins_b"])],
-        f"test {m} a − b": df["test_diff"]})
-    title = (f"sweep {a['sweep_id']}: {a['rule']} cells paired on {a['n_folds']} folds, CV {m} "
-             f"({a['better']} is better); corrected resampled t-test, df = {a['n_folds'] - 1}")
-    emit(df, fmt, title=title, display=display)
-    note = f"note: {a['note']}"
-    if fmt == "table":
-        for line in df["in_words"]:
-            click.echo(f"  {line}")
-        click.echo(note)
-    else:
-        click.echo(note, err=True)
-    _warn_unpicked(df)
+    result = read_compare(_open_store(store_path), sweep_id, rule=rule, se=se, metric=metric)
+    _show(result, compare_view(result), fmt)
 
 
 @main.command()
@@ -442,34 +360,11 @@ def path(model, store_path, sweep_id, metric, se, fmt):
       foldwise path --model tree
       foldwise path --model forest --metric r2 --format csv
     """
-    import pandas as pd
+    from .queries import complexity_table
+    from .views import complexity_view
 
-    from .picks import complexity_table
-
-    df = complexity_table(_open_store(store_path), model, sweep_id, se=se, metric=metric)
-    a = df.attrs
-    m = a["metric"]
-
-    display = pd.DataFrame({"rank": df["complexity_rank"]})
-    for name in a["shown_params"]:
-        display[name] = [_value_text(v) for v in df[name]]
-    display[f"CV {m} (mean ± SE)"] = [mean_se(x, e) for x, e in zip(df["mean"], df["se"])]
-    if df["mean_leaves"].notna().any():
-        display["leaves"] = [_value_text(round(v, 1)) if v == v else "" for v in df["mean_leaves"]]
-    display[f"test {m}"] = df["test"]
-    display["within 1 SE"] = ["yes" if w else "" for w in df["within_one_se"]]
-    display["pick"] = df["pick"]
-    if (df["excluded"] != "").any():
-        display["excluded"] = df["excluded"]
-    bar = a.get("threshold")
-    op = "≤" if a["pick_better"] == "lower" else "≥"
-    bar_text = f"; one-SE threshold: CV {a['pick_metric']} {op} {bar:.4g}" if bar is not None else ""
-    title = (f"{model} ({a['family']}), simplest first: sweep {a['sweep_id']}, CV {m}, "
-             f"{se} SE{bar_text}")
-    emit(df, fmt, title=title, display=display)
-    if fmt == "table" and a.get("fixed_params"):
-        click.echo("other params at their defaults: " +
-                   ", ".join(f"{k}={_value_text(v)}" for k, v in a["fixed_params"].items()))
+    result = complexity_table(_open_store(store_path), model, sweep_id, se=se, metric=metric)
+    _show(result, complexity_view(result), fmt)
 
 
 # -- figures and the report ----------------------------------------------------------------
@@ -507,29 +402,16 @@ def plot(kind, store_path, sweep_id, model, rule, method, depth, se, out_dir, im
       foldwise plot complexity --model tree --image png
       foldwise plot importance --method impurity --out-dir figures
     """
-    from pathlib import Path
-
-    from .plots import make_figure, save_figure
+    from .plots import write_figures
 
     if model is not None and kind not in ("complexity", "tree"):
         raise click.UsageError("--model is only for the complexity and tree kinds.")
-    store = _open_store(store_path)
-    sid = store.resolve_sweep(sweep_id)
-    if kind == "complexity":
-        models = [model] if model else store.query(
-            "select model from cells where sweep_id = ? group by model order by min(position)",
-            [sid])["model"].tolist()
-        jobs = [(dict(model=m, se=se), f"{kind}-{m}") for m in models]
-    elif kind == "tree":
-        jobs = [(dict(rule=rule, model=model, depth=depth), kind)]
-    elif kind == "importance":
-        jobs = [(dict(rule=rule, method=method), f"{kind}-{method}")]
-    else:
-        jobs = [(dict(rule=rule), kind)]
-    for options, name in jobs:
-        fig = make_figure(kind, store, sid, **options)
-        for path in save_figure(fig, Path(out_dir) / f"{sid}-{name}", images or ("png", "svg")):
-            click.echo(str(path))
+    options = {"complexity": dict(model=model, se=se), "tree": dict(rule=rule, model=model,
+                                                                     depth=depth),
+               "importance": dict(rule=rule, method=method)}.get(kind, dict(rule=rule))
+    for path in write_figures(kind, _open_store(store_path), out_dir, sweep_id,
+                              formats=images or ("png", "svg"), **options):
+        click.echo(str(path))
 
 
 @main.command()

@@ -33,14 +33,15 @@ import numpy as np
 import pandas as pd
 
 from . import __version__
-from .data import Frame, load_frame
-from .errors import DataError, FoldwiseError
+from .errors import FoldwiseError
+from .explain import explain_sweep
 from .executors import DaskExecutor, LocalExecutor, make_executor
-from .families import FAMILIES, load_family
-from .grid import Cell, count_cells, expand_spec, spread_along_path
-from .resampling import REFIT, Fold, Plan, make_plan, plan_counts, plan_identity, refit_seed
-from .queries import process_alive
+from .families import load_family
+from .grid import Cell, count_cells
 from .metrics import METRICS
+from .prepare import Prepared, load_checked, prepare
+from .queries import process_alive
+from .resampling import REFIT, Fold, make_plan, plan_counts, refit_seed
 from .spec import Spec
 from .store import DEFAULT_STORE, Store
 
@@ -53,41 +54,6 @@ class SweepInterrupted(FoldwiseError):
     """The user stopped the sweep; finished tasks are kept."""
 
     exit_code = 130
-
-
-class Prepared:
-    """Everything a sweep needs before the first fit: data, plan and cells.
-
-    The plan (which needs scikit-learn's splitters, slow to import) is built on first use,
-    so a rerun whose every result is already stored never builds it."""
-
-    def __init__(self, spec: Spec, frame: Frame, cells: list[Cell] | None = None):
-        self.spec, self.frame, self.cells = spec, frame, cells or []
-        self._plan: Plan | None = None
-        self._split: dict | None = None
-
-    @property
-    def plan(self) -> Plan:
-        if self._plan is None:
-            self._plan = make_plan(self.spec, self.frame)
-        return self._plan
-
-    @property
-    def split(self) -> dict:
-        """The training and test rows (X_train, y_train, X_test, y_test), cut once and
-        shared by the sweep's tasks and the explain step's (a cluster receives them once)."""
-        if self._split is None:
-            frame, plan = self.frame, self.plan
-            self._split = dict(X_train=frame.X.iloc[plan.train_rows],
-                               y_train=frame.y[plan.train_rows],
-                               X_test=frame.X.iloc[plan.test_rows],
-                               y_test=frame.y[plan.test_rows])
-        return self._split
-
-    def fold_keys(self) -> list[tuple[int, int]]:
-        """(repeat, fold) of every validation fold, then the refit's."""
-        k, r = self.spec.folds.k, self.spec.folds.repeats
-        return [(i, j) for i in range(r) for j in range(k)] + [(REFIT, REFIT)]
 
 
 @dataclass
@@ -106,47 +72,9 @@ class SweepResult:
     n_fitted: int = 0  # cells with at least one fold or refit computed by this sweep
 
 
-def _path_resolver(prep: Prepared):
-    """{path: N} values of a model's cell: read off its family's data path on the
-    training rows (a pruned tree's cost-complexity pruning path)."""
-    def resolve(label: str, combo: dict, n: int) -> list[float]:
-        family = FAMILIES[prep.spec.models[label].family].estimators
-        frame, plan = prep.frame, prep.plan
-        X = frame.X.iloc[plan.train_rows]
-        y = frame.y[plan.train_rows]
-        alphas = family.pruning_path_alphas(combo, X, y, seed=refit_seed(plan.seed),
-                                            numeric=frame.numeric,
-                                            categorical=frame.categorical)
-        return spread_along_path(alphas, n)
-
-    return resolve
-
-
-def _load_checked(spec: Spec) -> Frame:
-    """The spec's data, refused if one of its metrics cannot score the target."""
-    frame = load_frame(spec)
-    for name in spec.metrics:
-        problem = METRICS[name].target_problem(frame.y)
-        if problem:
-            raise DataError(f"metric '{name}' cannot score target column '{frame.target}' of "
-                            f"{frame.source}: the column {problem}. Remove '{name}' from "
-                            "`metrics` in the spec, or choose another target.")
-    return frame
-
-
-def prepare(spec: Spec) -> Prepared:
-    """Load and check the data and expand every model's grid; the plan follows on demand."""
-    prep = Prepared(spec, _load_checked(spec))
-    prep.cells = expand_spec(spec, data_sha256=prep.frame.sha256,
-                             plan_identity=plan_identity(spec),
-                             resolve_path=_path_resolver(prep),
-                             n_features=len(prep.frame.features))
-    return prep
-
-
 def check_spec(spec: Spec) -> tuple[pd.DataFrame, dict]:
     """The plan of a sweep without fitting anything: cells and fits per model, plus facts."""
-    frame = _load_checked(spec)
+    frame = load_checked(spec)
     plan = make_plan(spec, frame)
     Store(store_path(spec)).check_writable()
     n_folds = plan.k * plan.repeats
@@ -403,7 +331,6 @@ def run_sweep(spec: Spec, *, store: Store | None = None, jobs: int | None = None
                 if time.monotonic() - last_flush >= batch_seconds or len(buffer) >= 50:
                     flush()
             flush()
-            from .explain import explain_sweep  # importances, tree stability, test predictions
             explain_sweep(spec, store, sweep_id, prepared=prep, jobs=n_jobs, reuse=not fresh,
                           executor=executor)
         except KeyboardInterrupt:

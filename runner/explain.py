@@ -36,23 +36,12 @@ import pandas as pd
 
 from .families import FAMILIES, get_family, load_family
 from .metrics import METRICS
+from .prepare import prepare
 from .resampling import refit_seed
 from .store import Store
 
-__all__ = ["explain_sweep", "ExplainResult", "chosen_cells", "METHODS", "permutation_rows",
-           "importance_table",
-           "prediction_table", "tree_node_table", "tree_fold_table", "has_explain_tables"]
+__all__ = ["explain_sweep", "ExplainResult", "chosen_cells", "permutation_rows"]
 
-METHODS = {
-    "permutation": "rise in the test {metric} when one column is shuffled (mean over shuffles; "
-                   "spread = sd over shuffles)",
-    "impurity": "share of the tree's squared-error reduction made by splits on the column "
-                "(sums to 1; spread = sd over fold refits)",
-    "coefficient": "SD of the column's contribution to the prediction, target units: "
-                   "|standardised coefficient| for numbers, SD of the one-hot part for "
-                   "categories (spread = sd over fold refits)",
-}
-"""What each importance method's value means, for tables and reports."""
 
 EXPLAIN_TABLES = ("importances", "fold_importances", "tree_folds", "tree_nodes",
                   "test_predictions")
@@ -161,9 +150,9 @@ def chosen_cells(store: Store, sweep_id: str, which: str = "picked") -> pd.DataF
                         "order by position", [sweep_id])
     if which == "all":
         return cells
-    from .picks import picks
+    from .queries import picks
 
-    picked = set(picks(store, sweep_id)["cell_id"])
+    picked = set(picks(store, sweep_id).table["cell_id"])
     return cells[cells["cell_id"].isin(picked)].reset_index(drop=True)
 
 
@@ -241,8 +230,6 @@ def explain_sweep(spec, store: Store, sweep_id: str, *, prepared=None, jobs: int
         if chosen.empty:
             return result
     if prepared is None:
-        from .engine import prepare
-
         prepared = prepare(spec)
     frame, plan = prepared.frame, prepared.plan
     perm = spec.explain.permutation
@@ -293,86 +280,3 @@ def explain_sweep(spec, store: Store, sweep_id: str, *, prepared=None, jobs: int
         for t, df in dfs.items():
             result.rows[t] = result.rows.get(t, 0) + len(df)
     return result
-
-
-# -- reading it back -----------------------------------------------------------------------
-
-
-def has_explain_tables(store: Store) -> bool:
-    """Whether the store has every explain table (a store from an older foldwise may not)."""
-    found = store.query("select count(distinct table_name) from information_schema.tables "
-                        "where list_contains(?::varchar[], table_name)", [list(EXPLAIN_TABLES)])
-    return int(found.iloc[0, 0]) == len(EXPLAIN_TABLES)
-
-
-def _pick_marks(store: Store, sweep_id: str) -> pd.DataFrame:
-    from .picks import picks
-
-    p = picks(store, sweep_id)
-    if p.empty:
-        return pd.DataFrame(columns=["cell_id", "picked"])
-    return (p.groupby("cell_id", sort=False)["rule"].agg(lambda r: " ".join(sorted(r)))
-            .rename("picked").reset_index())
-
-
-def importance_table(store: Store, sweep_id: str | None = None, *,
-                     method: str | None = None) -> pd.DataFrame:
-    """Every stored importance of a sweep, with model, picks and rank (1 = most important)."""
-    sweep_id = store.resolve_sweep(sweep_id)
-    if not has_explain_tables(store):
-        return pd.DataFrame(columns=["model", "family", "cell_id", "params", "complexity_rank",
-                                     "method", "feature", "value", "spread", "picked", "rank"])
-    df = store.query("""
-        select c.model, c.family, i.cell_id, c.params, c.complexity_rank, i.method, i.feature,
-               i.value, i.spread, min(c.position) over (partition by c.model) as model_row
-        from importances i join cells c on c.sweep_id = i.sweep_id and c.cell_id = i.cell_id
-        where i.sweep_id = ? and (?::varchar is null or i.method = ?)""",
-                     [sweep_id, method, method])
-    df = df.merge(_pick_marks(store, sweep_id), on="cell_id", how="left")
-    df["picked"] = df["picked"].fillna("")
-    df["rank"] = (df.groupby(["cell_id", "method"])["value"]
-                  .rank(ascending=False, method="min").astype(int))
-    df = df.sort_values(["model_row", "complexity_rank", "method", "rank", "feature"])
-    df = df.drop(columns="model_row").reset_index(drop=True)
-    df.attrs.update(sweep_id=sweep_id, methods=dict(METHODS))
-    return df
-
-
-def prediction_table(store: Store, sweep_id: str | None = None) -> pd.DataFrame:
-    """The stored test-split predictions of a sweep's explained cells, with model and picks."""
-    sweep_id = store.resolve_sweep(sweep_id)
-    if not has_explain_tables(store):
-        return pd.DataFrame(columns=["model", "family", "cell_id", "row", "observed",
-                                     "predicted", "picked"])
-    df = store.query("""
-        select c.model, c.family, p.cell_id, p."row", p.observed, p.predicted,
-               min(c.position) over (partition by c.model) as model_row
-        from test_predictions p
-        join cells c on c.sweep_id = p.sweep_id and c.cell_id = p.cell_id
-        where p.sweep_id = ? order by model_row, p.cell_id, p."row" """, [sweep_id])
-    df = df.merge(_pick_marks(store, sweep_id), on="cell_id", how="left")
-    df["picked"] = df["picked"].fillna("")
-    return df.drop(columns="model_row")
-
-
-def tree_node_table(store: Store, sweep_id: str, cell_id: str) -> pd.DataFrame:
-    """The stored nodes of one cell's refit tree, in node order."""
-    if not has_explain_tables(store):
-        return pd.DataFrame(columns=["cell_id", "node"])
-    return store.query("select * exclude (sweep_id) from tree_nodes where sweep_id = ? and "
-                       "cell_id = ? order by node", [sweep_id, cell_id])
-
-
-def tree_fold_table(store: Store, sweep_id: str | None = None) -> pd.DataFrame:
-    """Each explained pruned tree's shape per fold: leaves, depth, root split, used columns."""
-    sweep_id = store.resolve_sweep(sweep_id)
-    if not has_explain_tables(store):
-        return pd.DataFrame(columns=["model", "cell_id", "repeat", "fold", "n_leaves", "depth",
-                                     "root_feature", "root_threshold", "root_rule",
-                                     "features_used"])
-    return store.query("""
-        select c.model, t.cell_id, t."repeat", t.fold, t.n_leaves, t.depth, t.root_feature,
-               t.root_threshold, t.root_rule, t.features_used
-        from tree_folds t join cells c on c.sweep_id = t.sweep_id and c.cell_id = t.cell_id
-        where t.sweep_id = ? order by c.position, t."repeat", t.fold""", [sweep_id])
-

@@ -11,7 +11,6 @@ palette, which stays distinct under the common colour-vision deficiencies."""
 from __future__ import annotations
 
 import io
-import json
 import math
 import textwrap
 from contextlib import contextmanager
@@ -21,16 +20,18 @@ import numpy as np
 import pandas as pd
 
 from .errors import QueryError
-from .explain import importance_table, prediction_table, tree_node_table
 from .families import get_family
 from .metrics import get_metric, metric_label
-from .output import number, params_text
-from .picks import check_rule, complexity_table, picks, sweep_facts
+from .picks import check_rule
+from .queries import (complexity_table, importance_table, model_order, picked_fold_scores,
+                      picks, prediction_table, sweep_facts, tree_node_table)
+from .results import ComplexityTable, Picks
 from .store import Store
+from .views import number, params_text, rule_label
 
 __all__ = ["KINDS", "PALETTE", "make_figure", "complexity_figure", "models_figure",
            "importance_figure", "predictions_figure", "tree_figure", "save_figure",
-           "figure_svg", "model_colours"]
+           "figure_svg", "model_colours", "write_figures"]
 
 PALETTE = ["#0072B2", "#E69F00", "#009E73", "#CC79A7", "#56B4E9", "#D55E00", "#F0E442",
            "#000000"]
@@ -63,14 +64,7 @@ def _figure(width: float, height: float):
 
 def model_colours(store: Store, sweep_id: str) -> dict[str, str]:
     """One palette colour per model, in spec order (the same in every figure)."""
-    models = store.query("select model from cells where sweep_id = ? group by model "
-                         "order by min(position)", [sweep_id])["model"].tolist()
-    return {m: PALETTE[i % len(PALETTE)] for i, m in enumerate(models)}
-
-
-def _target(store: Store, sweep_id: str) -> str:
-    return str(store.query("select target from sweeps where sweep_id = ?",
-                           [sweep_id]).iloc[0, 0])
+    return {m: PALETTE[i % len(PALETTE)] for i, m in enumerate(model_order(store, sweep_id))}
 
 
 def _nothing_stored(what: str, sweep_id: str) -> QueryError:
@@ -86,10 +80,9 @@ def _headline(fig, question: str, detail: str) -> None:
 
 
 # -- (a) CV error against complexity -------------------------------------------------------
-def _x_axis(table: pd.DataFrame, family: str):
+def _x_axis(result: ComplexityTable):
     """x values, axis label, log scale?, reversed? and tick labels for a complexity curve."""
-    varying = [n for n in table.attrs["shown_params"]
-               if table[n].map(lambda v: json.dumps(v)).nunique() > 1]
+    table, varying = result.table, result.varying_params
     if table["mean_leaves"].notna().all():  # a family that grows one tree: its size
         x = table["mean_leaves"].to_numpy(float)
         return x, "leaves of the fitted tree (mean over folds, log scale)", True, False, None
@@ -99,7 +92,7 @@ def _x_axis(table: pd.DataFrame, family: str):
         if all(isinstance(v, (int, float)) and not isinstance(v, bool) for v in values):
             x = values.to_numpy(float)
             log = x.min() > 0 and x.max() / x.min() > 20
-            param = get_family(family).params.get(name)
+            param = get_family(result.family).params.get(name)
             simpler = param.simpler if param is not None else None
             label = f"{name}{' (log scale)' if log else ''}"
             return x, label, log, simpler == "higher", None
@@ -114,12 +107,11 @@ def complexity_figure(store: Store, model: str, sweep_id: str | None = None, *,
                       se: str = "plain"):
     """One model's CV error against complexity: mean ± SE per cell, the best and one-SE
     cells marked and the one-SE threshold drawn (line gid 'one_se_threshold')."""
-    table = complexity_table(store, model, sweep_id, se=se)
-    a = table.attrs
-    sid, metric, family = a["sweep_id"], a["metric"], a["family"]
-    target = _target(store, sid)
+    result = complexity_table(store, model, sweep_id, se=se)
+    table, facts = result.table, result.facts
+    sid, metric, family = facts.sweep_id, result.metric, result.family
     colour = model_colours(store, sid).get(model, PALETTE[0])
-    x, xlabel, log, reverse, ticks = _x_axis(table, family)
+    x, xlabel, log, reverse, ticks = _x_axis(result)
     order = np.argsort(x)
     with _style():
         fig = _figure(7.2, 4.2)
@@ -127,18 +119,18 @@ def complexity_figure(store: Store, model: str, sweep_id: str | None = None, *,
         joined = "-" if ticks is None else "none"  # no line through an unordered grid
         ax.errorbar(x[order], table["mean"].to_numpy()[order], yerr=table["se"].to_numpy()[order],
                     color=colour, marker="o", markersize=4, linewidth=1.4, capsize=2.5,
-                    linestyle=joined, label=f"CV mean ± 1 SE ({a['n_folds']} folds)", zorder=3)
+                    linestyle=joined, label=f"CV mean ± 1 SE ({facts.n_folds} folds)", zorder=3)
         if table["test"].notna().any():
             ax.plot(x[order], table["test"].to_numpy()[order], color=MUTED,
                     linestyle=":" if ticks is None else "none", linewidth=1, marker=".",
                     markersize=4, label="test split (shown, never used to pick)", zorder=2)
-        threshold = a.get("threshold")
+        threshold = result.threshold
         best = table[table["pick"].str.contains("best")]
         if threshold is not None and len(best):
             best_mean = float(best["mean"].iloc[0])
             ax.axhspan(min(best_mean, threshold), max(best_mean, threshold), color=colour,
                        alpha=0.10, linewidth=0, zorder=1)
-            op = "+" if a["pick_better"] == "lower" else "−"
+            op = "+" if facts.better_of() == "lower" else "−"
             line = ax.axhline(threshold, color=INK, linestyle="--", linewidth=1,
                               label=f"one-SE threshold: best {op} 1 SE = {threshold:.4g}",
                               zorder=2)
@@ -160,36 +152,30 @@ def complexity_figure(store: Store, model: str, sweep_id: str | None = None, *,
             ax.set_xticks(x, ticks, fontsize=8)
             ax.set_xlim(x.min() - 0.5, x.max() + 0.5)
         ax.set_xlabel(f"{xlabel}\n← simpler        more complex →", color=INK)
-        ax.set_ylabel(get_metric(metric).axis_label(target))
+        ax.set_ylabel(get_metric(metric).axis_label(facts.target))
         _headline(fig, f"{model}: where does CV {metric_label(metric)} stop "
                   "improving as the model grows?",
-                  f"family {family}; every grid cell on the same {a['n_folds']} folds; "
-                  f"{a['se']} SE")
+                  f"family {family}; every grid cell on the same {facts.n_folds} folds; "
+                  f"{result.se} SE")
         fig.legend(loc="outside lower center", ncols=3)
     return fig
 
 
 # -- (b) models side by side ---------------------------------------------------------------
-def _picked(store: Store, sweep_id: str | None, rule: str | None) -> pd.DataFrame:
+def _picked(store: Store, sweep_id: str | None, rule: str | None) -> Picks:
+    """Each model's cell under `rule` (default: the sweep's rule)."""
     check_rule(rule)
     facts = sweep_facts(store, sweep_id)
-    rule = rule or facts["rule"]
-    df = picks(store, facts["sweep_id"], rule=rule)
-    df.attrs.update(rule=rule)
-    return df
+    return picks(store, facts.sweep_id, rule=rule or facts.rule)
 
 
 def models_figure(store: Store, sweep_id: str | None = None, *, rule: str | None = None):
     """Each model's picked cell: fold scores as points (grey lines join the same fold),
     mean ± SE, and the test score."""
-    chosen = _picked(store, sweep_id, rule)
-    a = chosen.attrs
-    sid, metric = a["sweep_id"], a["metric"]
-    folds = store.query("""
-        select c.model, f."repeat", f.fold, f.value from fold_scores f
-        join cells c on c.sweep_id = f.sweep_id and c.cell_id = f.cell_id
-        where f.sweep_id = ? and f.metric = ? and list_contains(?::varchar[], f.cell_id)""",
-                        [sid, metric, chosen["cell_id"].tolist()])
+    result = _picked(store, sweep_id, rule)
+    chosen, facts = result.table, result.facts
+    sid, metric = facts.sweep_id, facts.metric
+    folds = picked_fold_scores(store, sid, metric, chosen["cell_id"].tolist())
     colours = model_colours(store, sid)
     models = chosen["model"].tolist()
     with _style():
@@ -216,10 +202,10 @@ def models_figure(store: Store, sweep_id: str | None = None, *, rule: str | None
                         zorder=4, label="test split score" if i == 0 else None)
         ax.set_xticks(range(len(models)), [f"{m}\n{f}" for m, f in zip(models, chosen["family"])])
         ax.set_xlim(-0.6, len(models) - 0.4)
-        ax.set_ylabel(get_metric(metric).axis_label(_target(store, sid), prefix=""))
-        better = "lower" if a["better"] == "lower" else "higher"
+        ax.set_ylabel(get_metric(metric).axis_label(facts.target, prefix=""))
+        better = facts.better_of()
         _headline(fig, "Which model predicts best?",
-                  f"{metric_label(metric)} of each model's {a['rule']} cell on the "
+                  f"{metric_label(metric)} of each model's {rule_label(result.rules[0])} cell on the "
                   f"same {n} folds ({better} is better); grey lines join one fold's scores")
         fig.legend(loc="outside lower center", ncols=3)
     return fig
@@ -237,19 +223,18 @@ def importance_figure(store: Store, sweep_id: str | None = None, *,
     """Bars of each picked cell's importances (one panel per model), whiskers = spread."""
     if method not in _METHOD_AXIS:
         raise QueryError(f"method must be one of {', '.join(_METHOD_AXIS)}, got {method!r}.")
-    chosen = _picked(store, sweep_id, rule)
-    sid, metric = chosen.attrs["sweep_id"], chosen.attrs["metric"]
-    imp = importance_table(store, sid, method=method)
+    result = _picked(store, sweep_id, rule)
+    chosen, facts, rule = result.table, result.facts, rule_label(result.rules[0])
+    sid, metric, target = facts.sweep_id, facts.metric, facts.target
+    imp = importance_table(store, sid, method=method).table
     imp = imp[imp["cell_id"].isin(chosen["cell_id"])]
     if imp.empty:
-        raise _nothing_stored(f"{method} importances for the {chosen.attrs['rule']} cells",
-                              sid)
+        raise _nothing_stored(f"{method} importances for the {rule} cells", sid)
     models = [m for m in chosen["model"] if m in set(imp["model"])]
     order = (imp.groupby("feature")["rank"].mean().sort_values(ascending=False).index.tolist())
     if top:
         order = order[-top:]
     colours = model_colours(store, sid)
-    target = _target(store, sid)
     unit = (get_metric(metric).unit_text(target) if method == "permutation"
             else f"units of {target}")
     with _style():
@@ -270,7 +255,7 @@ def importance_figure(store: Store, sweep_id: str | None = None, *,
         fig.supxlabel(_METHOD_AXIS[method].format(metric=metric_label(metric),
                                                    unit=unit), fontsize=9)
         _headline(fig, "Which columns does each model rely on?",
-                  f"{method} importance of each model's {chosen.attrs['rule']} cell, refit on "
+                  f"{method} importance of each model's {rule} cell, refit on "
                   "all training rows; whiskers: spread")
     return fig
 
@@ -278,13 +263,13 @@ def importance_figure(store: Store, sweep_id: str | None = None, *,
 # -- (d) predicted against observed --------------------------------------------------------
 def predictions_figure(store: Store, sweep_id: str | None = None, *, rule: str | None = None):
     """Predicted against observed on the test split, one panel per model's picked cell."""
-    chosen = _picked(store, sweep_id, rule)
-    sid, metric = chosen.attrs["sweep_id"], chosen.attrs["metric"]
+    result = _picked(store, sweep_id, rule)
+    chosen, facts, rule = result.table, result.facts, rule_label(result.rules[0])
+    sid, target = facts.sweep_id, facts.target
     preds = prediction_table(store, sid)
     preds = preds[preds["cell_id"].isin(chosen["cell_id"])]
     if preds.empty:
-        raise _nothing_stored(f"test predictions for the {chosen.attrs['rule']} cells", sid)
-    target = _target(store, sid)
+        raise _nothing_stored(f"test predictions for the {rule} cells", sid)
     colours = model_colours(store, sid)
     models = [m for m in chosen["model"] if m in set(preds["model"])]
     lo = float(min(preds["observed"].min(), preds["predicted"].min()))
@@ -312,7 +297,7 @@ def predictions_figure(store: Store, sweep_id: str | None = None, *, rule: str |
         fig.supxlabel(f"observed {target}", fontsize=9)
         fig.supylabel(f"predicted {target}", fontsize=9)
         _headline(fig, "How close are the test-split predictions?",
-                  f"{chosen.attrs['rule']} cell of each model, refit on all training rows; "
+                  f"{rule} cell of each model, refit on all training rows; "
                   "dashed line: prediction = observation")
     return fig
 
@@ -358,8 +343,8 @@ def tree_figure(store: Store, sweep_id: str | None = None, *, rule: str | None =
     from matplotlib import colormaps
     from matplotlib.colors import Normalize
 
-    chosen = _picked(store, sweep_id, rule)
-    sid = chosen.attrs["sweep_id"]
+    result = _picked(store, sweep_id, rule)
+    chosen, sid, target = result.table, result.facts.sweep_id, result.facts.target
     trees = chosen[chosen["family"].map(lambda f: get_family(f).one_tree)]
     if model is not None:
         trees = trees[trees["model"] == model]
@@ -370,7 +355,6 @@ def tree_figure(store: Store, sweep_id: str | None = None, *, rule: str | None =
     nodes = tree_node_table(store, sid, pick["cell_id"])
     if nodes.empty:
         raise _nothing_stored(f"tree for cell {pick['cell_id']}", sid)
-    target = _target(store, sid)
     pos = _layout(nodes, depth)
     n_drawn = int(max(x for x, _, _ in pos.values())) + 1  # drawn leaves, one x step each
     by_id = nodes.set_index("node")
@@ -409,7 +393,7 @@ def tree_figure(store: Store, sweep_id: str | None = None, *, rule: str | None =
         shown = "the whole tree" if all(not c for *_, c in pos.values()) else (
             f"first {depth} levels; '…' boxes summarise deeper branches")
         _headline(fig, f"How does {pick['model']} split the rows?",
-                  f"{pick['rule']} cell refit on all training rows, {total_leaves} leaves "
+                  f"{rule_label(pick['rule'])} cell refit on all training rows, {total_leaves} leaves "
                   f"({shown}); 'yes' follows the condition; shade and 'mean': mean {target}")
     return fig
 
@@ -426,6 +410,27 @@ def make_figure(kind: str, store: Store, sweep_id: str | None = None, **options)
     if kind not in KINDS:
         raise QueryError(f"unknown plot kind {kind!r}; kinds: {', '.join(KINDS)}.")
     return KINDS[kind](store, sweep_id=sweep_id, **options)
+
+
+def write_figures(kind: str, store: Store, folder, sweep_id: str | None = None, *,
+                  formats=("png", "svg"), **options) -> list[Path]:
+    """Draw one kind of figure of a sweep into `folder` and return the files written:
+    one figure per model for `complexity` without a model, else one figure."""
+    facts = sweep_facts(store, sweep_id)
+    sid = facts.sweep_id
+    if kind == "complexity":
+        model = options.pop("model", None)
+        models = [model] if model else model_order(store, sid)
+        jobs = [(dict(model=m, **options), f"{kind}-{m}") for m in models]
+    elif kind == "importance":
+        jobs = [(options, f"{kind}-{options.get('method', 'permutation')}")]
+    else:
+        jobs = [(options, kind)]
+    paths = []
+    for opts, name in jobs:
+        paths += save_figure(make_figure(kind, store, sid, **opts), Path(folder) / f"{sid}-{name}",
+                             formats)
+    return paths
 
 
 def save_figure(fig, stem: Path, formats=("png", "svg"), *, dpi: int = 150) -> list[Path]:

@@ -1,18 +1,35 @@
-"""Queries over the store, answered as pandas DataFrames: the sweeps it holds and the
-summary grouped by model. All of it is SQL run through `Store.query`."""
+"""Reading a sweep: every query the read side asks of the store, answered as the frozen
+results of `results.py`. The SQL of reading lives here; the rules it applies on plain
+numbers live in `picks.py` (best, one-SE) and `compare.py` (the corrected t-test).
+
+Picks are SQL over the fold scores: `best` takes the best mean CV score, `one_se` the
+simplest cell (lowest complexity rank) whose mean is within one standard error of the best
+(Breiman et al. 1984; Hastie, Tibshirani & Friedman, ESL §7.10). A cell with a failed fit or
+fewer fold scores than k·r is never picked."""
 
 from __future__ import annotations
 
+import json
 import os
 import socket
 
 import pandas as pd
 
+from .compare import APPROXIMATE_NOTE, t_from_moments
+from .errors import QueryError
+from .families import get_family, nearest
+from .picks import RULES, TOLERANCE, check_rule, check_se
+from .results import (CellStats, Comparison, ComplexityTable, Importances, Picks, Stability,
+                      Summary, SweepFacts)
 from .store import Store
 
-__all__ = ["sweeps", "summary", "cell_table"]
+__all__ = ["sweeps", "sweep_facts", "summary", "cell_stats", "picks", "complexity_table",
+           "compare", "importance_table", "prediction_table", "tree_node_table",
+           "tree_fold_table", "stability_table", "model_order", "picked_fold_scores",
+           "varying_params", "sweep_record", "process_alive"]
 
 
+# -- sweeps ------------------------------------------------------------------------------
 def sweeps(store: Store) -> pd.DataFrame:
     """One row per sweep, newest first, with its size and how it ended.
 
@@ -26,11 +43,17 @@ def sweeps(store: Store) -> pd.DataFrame:
                (select count(*) from fold_scores f where f.sweep_id = s.sweep_id) as fold_rows,
                s.data_sha256[1:12] as data, s.host, s.pid
         from sweeps s order by s.started_at desc, s.sweep_id desc""")
-    here = socket.gethostname()
-    dead = (df["status"] == "running") & (df["host"] == here) & ~df["pid"].map(
-        lambda pid: pid is not None and pid == pid and process_alive(int(pid)))
+    dead = df["status"].eq("running") & ~df.apply(_alive_here, axis=1)
     df.loc[dead, "status"] = "interrupted"
     return df.drop(columns=["host", "pid"])
+
+
+def _alive_here(row) -> bool:
+    """Whether a running sweep's process may still be alive (always, on another host)."""
+    pid = row["pid"]
+    if row["host"] != socket.gethostname():
+        return True
+    return pid is not None and pid == pid and process_alive(int(pid))
 
 
 def process_alive(pid: int) -> bool:
@@ -44,42 +67,212 @@ def process_alive(pid: int) -> bool:
     return True
 
 
-def _sweep_metrics(store: Store, sweep_id: str) -> list[str]:
-    row = store.query("select metrics from sweeps where sweep_id = ?", [sweep_id])
-    return str(row.iloc[0, 0]).split(",")
+def sweep_facts(store: Store, sweep_id: str | None = None) -> SweepFacts:
+    """The resolved sweep with its metrics and their directions, folds, rule and target."""
+    sweep_id = store.resolve_sweep(sweep_id)
+    row = store.query("""select name, target, metrics, k, repeats, pick_rule from sweeps
+                         where sweep_id = ?""", [sweep_id]).iloc[0]
+    metrics = tuple(str(row["metrics"]).split(","))
+    better = store.query("select metric, better from metrics where list_contains(?, metric)",
+                         [list(metrics)])
+    return SweepFacts(sweep_id=sweep_id, name=str(row["name"]), target=str(row["target"]),
+                      metrics=metrics, better=dict(zip(better["metric"], better["better"])),
+                      k=int(row["k"]), repeats=int(row["repeats"]),
+                      rule=str(row["pick_rule"] or "best"))
 
 
-def _sweep_rule(store: Store, sweep_id: str) -> str:
-    row = store.query("select pick_rule from sweeps where sweep_id = ?", [sweep_id])
-    return str(row.iloc[0, 0] or "best")
+def sweep_record(store: Store, sweep_id: str) -> dict:
+    """The sweep's stored row, with counts of what it holds."""
+    sweep = store.query("select * from sweeps where sweep_id = ?", [sweep_id]).iloc[0].to_dict()
+    counts = store.query("""
+        select (select count(*) from cells where sweep_id = $1) as cells,
+               (select count(*) from fold_scores where sweep_id = $1) as fold_rows,
+               (select count(*) from test_scores where sweep_id = $1) as test_rows,
+               (select count(*) from failures where sweep_id = $1) as failures,
+               (select count(*) from explained where sweep_id = $1) as explained
+        """, [sweep_id]).iloc[0].to_dict()
+    return {**sweep, "counts": {k: int(v) for k, v in counts.items()}}
 
 
-def cell_table(store: Store, sweep_id: str) -> pd.DataFrame:
-    """Every cell of a sweep with CV mean, sd, se and n per metric, and its test scores (long)."""
-    return store.query("""
-        select s.model, s.family, s.cell_id, s.params, s.complexity_rank, s.metric,
-               s.mean, s.sd, s.se, s.n, s.mean_leaves, t.value as test
-        from cell_summary s
-        left join test_scores t
-          on t.sweep_id = s.sweep_id and t.cell_id = s.cell_id and t.metric = s.metric
-        where s.sweep_id = ?
-        order by s.model, s.complexity_rank, s.metric""", [sweep_id])
+def model_order(store: Store, sweep_id: str) -> list[str]:
+    """The sweep's models in spec order."""
+    return store.query("select model from cells where sweep_id = ? group by model "
+                       "order by min(position)", [sweep_id])["model"].tolist()
+
+
+def varying_params(store: Store, sweep_id: str) -> dict[str, list[str]]:
+    """Per model of a sweep, the names of the params that take more than one value."""
+    cells = store.query("select model, params from cells where sweep_id = ? order by position",
+                        [sweep_id])
+    seen: dict[str, dict[str, set]] = {}
+    for model, params in zip(cells["model"], cells["params"]):
+        for name, value in json.loads(params).items():
+            seen.setdefault(model, {}).setdefault(name, set()).add(json.dumps(value))
+    return {m: sorted(n for n, vals in names.items() if len(vals) > 1)
+            for m, names in seen.items()}
+
+
+def _check_model(store: Store, sweep_id: str, model: str | None) -> None:
+    if model is None:
+        return
+    known = sorted(model_order(store, sweep_id))
+    if model not in known:
+        raise QueryError(f"no model '{model}' in sweep {sweep_id}; its models: "
+                         f"{', '.join(known)}.{nearest(model, known)}")
+
+
+def _check_metric(facts: SweepFacts, metric: str | None) -> str:
+    metric = metric or facts.metric
+    if metric not in facts.metrics:
+        raise QueryError(f"metric must be one of this sweep's metrics "
+                         f"({', '.join(facts.metrics)}), got metric={metric!r}.")
+    return metric
+
+
+def _unfinished(store: Store, sweep_id: str) -> bool:
+    status = store.query("select status from sweeps where sweep_id = ?", [sweep_id])
+    return str(status.iloc[0, 0]) != "finished"
+
+
+# -- picks ---------------------------------------------------------------------------------
+# Common table expressions shared by every pick query. Parameters: $1 sweep id, $2 metric,
+# $3 se kind ('plain' or 'corrected'), $4 model or null (all), $5 relative tolerance.
+# judged = every cell with mean/SE and why it is excluded; bars = the best cell and the
+# one-SE threshold per model; within = eligible cells inside it; chosen = the simplest of those.
+_CELLS_SQL = """
+    plan as (select k * repeats as n_folds from sweeps where sweep_id = $1),
+    stats as (
+        select c.model, c.family, c.cell_id, c.params, c.complexity_rank,
+               min(c.position) as cell_row, count(f.value) as n, avg(f.value) as mean,
+               stddev_samp(f.value) as sd, avg(f.n_valid::double / f.n_train) as valid_ratio,
+               avg(f.n_leaves) as mean_leaves
+        from cells c
+        left join fold_scores f
+          on f.sweep_id = c.sweep_id and f.cell_id = c.cell_id and f.metric = $2
+        where c.sweep_id = $1 and ($4::varchar is null or c.model = $4)
+        group by c.model, c.family, c.cell_id, c.params, c.complexity_rank),
+    judged as (
+        select s.*, p.n_folds,
+               case when s.n = 0 then null
+                    when $3 = 'corrected'
+                    then sqrt((1.0 / s.n + s.valid_ratio) * s.sd * s.sd)
+                    else s.sd / sqrt(s.n) end as se,
+               case when exists (select 1 from failures x
+                                 where x.sweep_id = $1 and x.cell_id = s.cell_id)
+                    then 'failed fits'
+                    when s.n < p.n_folds then 'incomplete'
+                    when not isfinite(s.mean) then 'non-finite score'
+               end as excluded,
+               min(s.cell_row) over (partition by s.model) as model_row
+        from stats s, plan p),
+    ranked as (
+        select j.*, m.better, row_number() over (
+                   partition by j.model
+                   order by case when m.better = 'lower' then j.mean else -j.mean end,
+                            j.complexity_rank) as place
+        from judged j join metrics m on m.metric = $2
+        where j.excluded is null),
+    bars as (
+        select model, better, cell_id as best_cell, mean as best_mean, se as best_se,
+               case when better = 'lower' then mean + se else mean - se end as threshold,
+               $5 * greatest(1.0, abs(mean)) as slack
+        from ranked where place = 1),
+    within as (
+        select r.model, r.cell_id, r.complexity_rank
+        from ranked r join bars b using (model)
+        where case when b.better = 'lower' then r.mean <= b.threshold + b.slack
+                   else r.mean >= b.threshold - b.slack end),
+    chosen as (
+        select model, arg_min(cell_id, complexity_rank) as one_se_cell, count(*) as n_within
+        from within group by model),
+    eligible as (
+        select model, count(*) filter (where excluded is null) as eligible, count(*) as cells
+        from judged group by model)
+"""
+
+
+def cell_stats(store: Store, sweep_id: str | None = None, *, se: str = "plain",
+               model: str | None = None, metric: str | None = None) -> CellStats:
+    """Every cell with mean, SE, n, leaves, test score, why it is excluded, and marks
+    (within_one_se, best, one_se, all on the sweep's first metric); simplest first."""
+    check_se(se)
+    facts = sweep_facts(store, sweep_id)
+    _check_model(store, facts.sweep_id, model)
+    metric = _check_metric(facts, metric)
+    args = [facts.sweep_id, facts.metric, se, model, TOLERANCE]
+    df = store.query(f"""with {_CELLS_SQL}
+        select j.model, j.family, j.complexity_rank, j.cell_id, j.params, j.n, j.mean, j.sd,
+               j.se, j.valid_ratio, j.mean_leaves, t.value as test, j.excluded,
+               w.cell_id is not null as within_one_se,
+               coalesce(j.cell_id = b.best_cell, false) as best,
+               coalesce(j.cell_id = c.one_se_cell, false) as one_se, b.threshold
+        from judged j
+        left join within w using (model, cell_id)
+        left join bars b using (model)
+        left join chosen c using (model)
+        left join test_scores t on t.sweep_id = $1 and t.cell_id = j.cell_id and t.metric = $2
+        order by j.model_row, j.complexity_rank""", args)
+    thresholds = df.dropna(subset=["threshold"]).groupby("model", sort=False)["threshold"].first()
+    df = df.drop(columns=["threshold"])
+    if metric != facts.metric:
+        # Marks stay on the sweep's first metric; the shown scores come from `metric`.
+        shown = store.query(f"""with {_CELLS_SQL}
+            select j.cell_id, j.n, j.mean, j.sd, j.se, j.valid_ratio, j.mean_leaves,
+                   t.value as test
+            from judged j
+            left join test_scores t on t.sweep_id = $1 and t.cell_id = j.cell_id
+                                   and t.metric = $2""", [args[0], metric, *args[2:]])
+        cols = ["n", "mean", "sd", "se", "valid_ratio", "mean_leaves", "test"]
+        df[cols] = shown.set_index("cell_id").loc[df["cell_id"], cols].to_numpy()
+    return CellStats(facts, metric, se, df, thresholds.to_dict())
+
+
+def picks(store: Store, sweep_id: str | None = None, *, rule: str | None = None,
+          se: str = "plain", model: str | None = None) -> Picks:
+    """The picked cell of each model: one row per model and rule (both rules when rule is None).
+
+    Cells with a failed fit or fewer fold scores than k·r are never picked."""
+    check_rule(rule)
+    check_se(se)
+    facts = sweep_facts(store, sweep_id)
+    _check_model(store, facts.sweep_id, model)
+    rules = list(RULES) if rule is None else [rule]
+    args = [facts.sweep_id, facts.metric, se, model, TOLERANCE]
+    df = store.query(f"""with {_CELLS_SQL},
+        picked as (
+            select model, 'best' as rule, best_cell as cell_id from bars
+            union all
+            select model, 'one_se' as rule, one_se_cell as cell_id from chosen)
+        select p.model, j.family, p.rule, p.cell_id, j.params, j.complexity_rank,
+               b.better, $2 as metric, j.mean, j.se, j.sd, j.n, b.best_mean, b.best_se,
+               b.threshold, c.n_within, t.value as test, j.mean_leaves, e.cells, e.eligible,
+               j.model_row
+        from picked p
+        join judged j using (model, cell_id)
+        join bars b using (model)
+        join chosen c using (model)
+        join eligible e using (model)
+        left join test_scores t on t.sweep_id = $1 and t.cell_id = p.cell_id and t.metric = $2
+        where list_contains($6::varchar[], p.rule)
+        order by j.model_row, p.rule""", [*args, rules])
+    unpicked = store.query(f"""with {_CELLS_SQL}
+        select model from eligible where eligible = 0 order by model""", args)["model"]
+    df = df.drop(columns=["model_row"]).reset_index(drop=True)
+    return Picks(facts, tuple(rules), se, df, tuple(unpicked),
+                 _unfinished(store, facts.sweep_id), varying_params(store, facts.sweep_id))
 
 
 def summary(store: Store, sweep_id: str | None = None, *,
-            rule: str | None = None) -> pd.DataFrame:
+            rule: str | None = None) -> Summary:
     """Per model: its picked cell (the sweep's pick rule unless `rule` is given), mean ± SE
     per metric, test scores.
 
     One row per model in spec order; columns `cv_<metric>`, `se_<metric>`, `test_<metric>`,
     plus `rule` and `failed_cells` (cells with a failed fit: never picked, see picks)."""
-    from .picks import picks
-
-    sweep_id = store.resolve_sweep(sweep_id)
-    metrics = _sweep_metrics(store, sweep_id)
-    primary = metrics[0]
-    chosen = picks(store, sweep_id, rule=rule or _sweep_rule(store, sweep_id))
-    rule = chosen.attrs["rules"][0]
+    check_rule(rule)
+    facts = sweep_facts(store, sweep_id)
+    chosen = picks(store, facts.sweep_id, rule=rule or facts.rule)
+    rule = chosen.rules[0]
     long = store.query("""
         with picked as (select unnest(?::varchar[]) as cell_id),
         sizes as (select c.model, c.family, count(*) as cells, min(c.position) as first_row,
@@ -97,26 +290,223 @@ def summary(store: Store, sweep_id: str | None = None, *,
         join cell_summary s on s.sweep_id = c.sweep_id and s.cell_id = c.cell_id
         left join test_scores t
           on t.sweep_id = c.sweep_id and t.cell_id = c.cell_id and t.metric = s.metric
-        order by z.first_row, s.metric""", [chosen["cell_id"].tolist(), sweep_id, sweep_id])
+        order by z.first_row, s.metric""",
+                       [chosen.table["cell_id"].tolist(), facts.sweep_id, facts.sweep_id])
     if long.empty:
-        return pd.DataFrame(columns=["model", "family", "cells", "cell_id", "params", "rule"])
+        table = pd.DataFrame(columns=["model", "family", "cells", "failed_cells", "cell_id",
+                                      "params", "rule"])
+        return Summary(facts, rule, table, chosen.unpicked, chosen.unfinished, chosen.varying)
     wide = long.pivot_table(index=["first_row", "model", "family", "cells", "failed_cells",
                                    "cell_id", "params"],
                             columns="metric", values=["mean", "se", "test"], aggfunc="first")
     out = wide.reset_index().sort_values("first_row")
-    flat = {}
-    for col in out.columns:
-        name, metric = col if isinstance(col, tuple) else (col, "")
-        if not metric:
-            flat[col] = name
-        else:
-            flat[col] = {"mean": "cv_", "se": "se_", "test": "test_"}[name] + metric
-    out.columns = [flat[c] for c in out.columns]
+    prefix = {"mean": "cv_", "se": "se_", "test": "test_"}
+    out.columns = [name if not metric else prefix[name] + metric
+                   for name, metric in (c if isinstance(c, tuple) else (c, "")
+                                        for c in out.columns)]
     ordered = ["model", "family", "cells", "failed_cells", "cell_id", "params"]
-    for m in metrics:
+    for m in facts.metrics:
         ordered += [f"cv_{m}", f"se_{m}", f"test_{m}"]
     out = out[[c for c in ordered if c in out.columns]].reset_index(drop=True)
     out.insert(6, "rule", rule)
-    out.attrs.update(sweep_id=sweep_id, primary_metric=primary, metrics=metrics, rule=rule,
-                     unpicked=chosen.attrs.get("unpicked", []))
-    return out
+    return Summary(facts, rule, out, chosen.unpicked, chosen.unfinished, chosen.varying)
+
+
+# -- the complexity table ------------------------------------------------------------------
+def _shown_params(family: str, params_list: list[dict]) -> list[str]:
+    """Names of the params worth a column: those that vary across cells or differ from the
+    family default somewhere; in the family's complexity order, then by name."""
+    fam = get_family(family)
+    defaults = fam.defaults
+    names = sorted({k for p in params_list for k in p})
+    shown = []
+    for name in names:
+        seen = {json.dumps(p.get(name), sort_keys=True) for p in params_list}
+        default = json.dumps(defaults.get(name), sort_keys=True)
+        if len(seen) > 1 or seen != {default}:
+            shown.append(name)
+    order = list(fam.complexity_order)
+    return sorted(shown, key=lambda n: (order.index(n) if n in order else len(order), n))
+
+
+def complexity_table(store: Store, model: str, sweep_id: str | None = None, *,
+                     se: str = "plain", metric: str | None = None) -> ComplexityTable:
+    """Every cell of `model` in complexity order (rank 0 = simplest).
+
+    Columns: complexity_rank, one column per shown param, cell_id, params, metric, mean, se,
+    n, mean_leaves, test, within_one_se, pick ('best', 'one_se', 'best one_se' or ''),
+    excluded (why a cell cannot be picked). Marks follow the sweep's first metric;
+    `metric` chooses which metric's scores are shown."""
+    stats = cell_stats(store, sweep_id, se=se, model=model, metric=metric)
+    table = stats.table
+    params = [json.loads(p) for p in table["params"]]
+    family = str(table["family"].iloc[0]) if len(table) else ""
+    names = _shown_params(family, params)
+    out = pd.DataFrame({"complexity_rank": table["complexity_rank"].astype(int)})
+    for name in names:
+        out[name] = pd.Series([p.get(name) for p in params], dtype=object)
+    out["cell_id"] = table["cell_id"]
+    out["params"] = table["params"]
+    out["metric"] = stats.metric
+    for col in ("mean", "se", "n", "mean_leaves", "test"):
+        out[col] = table[col]
+    out["within_one_se"] = table["within_one_se"]
+    out["pick"] = [" ".join(r for r, flag in (("best", b), ("one_se", o)) if flag)
+                   for b, o in zip(table["best"], table["one_se"])]
+    out["excluded"] = table["excluded"].fillna("")
+    fixed = {name: params[0].get(name) for name in sorted({k for p in params for k in p})
+             if name not in names} if params else {}
+    return ComplexityTable(stats.facts, model, family, stats.metric, se,
+                           out.reset_index(drop=True), stats.thresholds.get(model),
+                           tuple(names), fixed)
+
+
+# -- paired comparisons --------------------------------------------------------------------
+_PAIRS_SQL = """
+    with picked as (
+        select unnest($1::varchar[]) as model, unnest($2::varchar[]) as cell_id,
+               unnest($3::integer[]) as place),
+    fold_rows as (
+        select p.model, p.place, p.cell_id, f."repeat", f.fold, f.value,
+               f.n_valid::double / f.n_train as ratio
+        from fold_scores f join picked p using (cell_id)
+        where f.sweep_id = $4 and f.metric = $5),
+    pairs as (
+        select a.model as model_a, b.model as model_b, a.place as place_a, b.place as place_b,
+               a.cell_id as cell_a, b.cell_id as cell_b, a.value - b.value as d, a.ratio
+        from fold_rows a
+        join fold_rows b on a."repeat" = b."repeat" and a.fold = b.fold and a.place < b.place)
+    select p.model_a, p.model_b, p.cell_a, p.cell_b, count(*) as folds,
+           avg(p.d) as mean_diff, var_samp(p.d) as var_diff, avg(p.ratio) as valid_ratio,
+           count(*) filter (where case when $6 = 'lower' then p.d < 0 else p.d > 0 end)
+               as wins_a,
+           count(*) filter (where case when $6 = 'lower' then p.d > 0 else p.d < 0 end)
+               as wins_b,
+           count(*) filter (where p.d = 0) as ties,
+           any_value(ta.value) as test_a, any_value(tb.value) as test_b
+    from pairs p
+    left join test_scores ta on ta.sweep_id = $4 and ta.cell_id = p.cell_a and ta.metric = $5
+    left join test_scores tb on tb.sweep_id = $4 and tb.cell_id = p.cell_b and tb.metric = $5
+    group by p.model_a, p.model_b, p.cell_a, p.cell_b, p.place_a, p.place_b
+    order by p.place_a, p.place_b
+"""
+
+_PAIR_COLUMNS = ["model_a", "model_b", "cell_a", "cell_b", "metric", "folds", "mean_diff",
+                 "se", "t", "df", "p_value", "wins_a", "wins_b", "ties", "test_a", "test_b",
+                 "test_diff"]
+
+
+def compare(store: Store, sweep_id: str | None = None, *, rule: str | None = None,
+            se: str = "plain", metric: str | None = None) -> Comparison:
+    """Every pair of models (spec order, a before b), their picked cells compared fold by fold.
+
+    `rule` picks each model's cell (default: the sweep's rule) and `se` is the SE that rule
+    uses; the comparison itself always uses the corrected variance. Differences are a − b on
+    `metric` (default: the sweep's first metric)."""
+    check_rule(rule)
+    check_se(se)
+    facts = sweep_facts(store, sweep_id)
+    rule = rule or facts.rule
+    metric = _check_metric(facts, metric)
+    chosen = picks(store, facts.sweep_id, rule=rule, se=se)
+    rows = []
+    if len(chosen.table) >= 2:
+        raw = store.query(_PAIRS_SQL, [chosen.table["model"].tolist(),
+                                       chosen.table["cell_id"].tolist(),
+                                       list(range(len(chosen.table))), facts.sweep_id, metric,
+                                       facts.better_of(metric)])
+        for r in raw.itertuples(index=False):
+            n = int(r.folds)
+            test = t_from_moments(float(r.mean_diff), float(r.var_diff), n, float(r.valid_ratio))
+            rows.append({
+                "model_a": r.model_a, "model_b": r.model_b, "cell_a": r.cell_a,
+                "cell_b": r.cell_b, "metric": metric, "folds": n, "mean_diff": test.mean,
+                "se": test.se, "t": test.t, "df": test.df, "p_value": test.p,
+                "wins_a": int(r.wins_a), "wins_b": int(r.wins_b), "ties": int(r.ties),
+                "test_a": r.test_a, "test_b": r.test_b, "test_diff": r.test_a - r.test_b})
+    return Comparison(facts, rule, se, metric, pd.DataFrame(rows, columns=_PAIR_COLUMNS),
+                      chosen.unpicked)
+
+
+def picked_fold_scores(store: Store, sweep_id: str, metric: str,
+                       cell_ids: list[str]) -> pd.DataFrame:
+    """Every fold score of these cells on one metric, with the model."""
+    return store.query("""
+        select c.model, f."repeat", f.fold, f.value from fold_scores f
+        join cells c on c.sweep_id = f.sweep_id and c.cell_id = f.cell_id
+        where f.sweep_id = ? and f.metric = ? and list_contains(?::varchar[], f.cell_id)""",
+                       [sweep_id, metric, cell_ids])
+
+
+# -- what the explain step stored ------------------------------------------------------------
+def _pick_marks(store: Store, sweep_id: str) -> pd.DataFrame:
+    p = picks(store, sweep_id).table
+    if p.empty:
+        return pd.DataFrame(columns=["cell_id", "picked"])
+    return (p.groupby("cell_id", sort=False)["rule"].agg(lambda r: " ".join(sorted(r)))
+            .rename("picked").reset_index())
+
+
+def importance_table(store: Store, sweep_id: str | None = None, *,
+                     method: str | None = None) -> Importances:
+    """Every stored importance of a sweep, with model, picks and rank (1 = most important)."""
+    facts = sweep_facts(store, sweep_id)
+    df = store.query("""
+        select c.model, c.family, i.cell_id, c.params, c.complexity_rank, i.method, i.feature,
+               i.value, i.spread, min(c.position) over (partition by c.model) as model_row
+        from importances i join cells c on c.sweep_id = i.sweep_id and c.cell_id = i.cell_id
+        where i.sweep_id = ? and (?::varchar is null or i.method = ?)""",
+                     [facts.sweep_id, method, method])
+    df = df.merge(_pick_marks(store, facts.sweep_id), on="cell_id", how="left")
+    df["picked"] = df["picked"].fillna("")
+    df["rank"] = (df.groupby(["cell_id", "method"])["value"]
+                  .rank(ascending=False, method="min").astype(int))
+    df = df.sort_values(["model_row", "complexity_rank", "method", "rank", "feature"])
+    return Importances(facts, df.drop(columns="model_row").reset_index(drop=True))
+
+
+def prediction_table(store: Store, sweep_id: str | None = None) -> pd.DataFrame:
+    """The stored test-split predictions of a sweep's explained cells, with model and picks."""
+    sweep_id = store.resolve_sweep(sweep_id)
+    df = store.query("""
+        select c.model, c.family, p.cell_id, p."row", p.observed, p.predicted,
+               min(c.position) over (partition by c.model) as model_row
+        from test_predictions p
+        join cells c on c.sweep_id = p.sweep_id and c.cell_id = p.cell_id
+        where p.sweep_id = ? order by model_row, p.cell_id, p."row" """, [sweep_id])
+    df = df.merge(_pick_marks(store, sweep_id), on="cell_id", how="left")
+    df["picked"] = df["picked"].fillna("")
+    return df.drop(columns="model_row")
+
+
+def tree_node_table(store: Store, sweep_id: str, cell_id: str) -> pd.DataFrame:
+    """The stored nodes of one cell's refit tree, in node order."""
+    return store.query("select * exclude (sweep_id) from tree_nodes where sweep_id = ? and "
+                       "cell_id = ? order by node", [sweep_id, cell_id])
+
+
+def tree_fold_table(store: Store, sweep_id: str | None = None) -> pd.DataFrame:
+    """Each explained tree's shape per fold: leaves, depth, root split, used columns."""
+    sweep_id = store.resolve_sweep(sweep_id)
+    return store.query("""
+        select c.model, t.cell_id, t."repeat", t.fold, t.n_leaves, t.depth, t.root_feature,
+               t.root_threshold, t.root_rule, t.features_used
+        from tree_folds t join cells c on c.sweep_id = t.sweep_id and c.cell_id = t.cell_id
+        where t.sweep_id = ? order by c.position, t."repeat", t.fold""", [sweep_id])
+
+
+def stability_table(store: Store, sweep_id: str | None = None) -> Stability:
+    """One row per explained cell: rank agreement of per-fold importances for every family,
+    and for single trees the root share, Jaccard similarity of used columns and leaf spread
+    (the numbers are defined in `stability.py`)."""
+    from .stability import summarise
+
+    facts = sweep_facts(store, sweep_id)
+    imp = store.query("""
+        select c.model, c.family, f.cell_id, f."repeat", f.fold, f.method, f.feature, f.value,
+               c.position as cell_row
+        from fold_importances f
+        join cells c on c.sweep_id = f.sweep_id and c.cell_id = f.cell_id
+        where f.sweep_id = ?""", [facts.sweep_id])
+    marks = _pick_marks(store, facts.sweep_id).set_index("cell_id")["picked"].to_dict()
+    return Stability(facts, summarise(imp, tree_fold_table(store, facts.sweep_id), marks))

@@ -1,6 +1,7 @@
 """Stability of the chosen cells across folds: how much a fitted model changes when its
-training rows are redrawn. Pure functions state each number on plain inputs; the summary
-applies them to a sweep's stored per-fold tree shapes and importances.
+training rows are redrawn. Pure functions state each number on plain inputs; `summarise`
+applies them to a sweep's per-fold tree shapes and importances (read by
+`queries.stability_table`).
 
 Per cell, over its k·r fold refits:
 - root share: the share of folds whose tree splits first on the most common root column;
@@ -22,10 +23,9 @@ from typing import Iterable, Sequence
 import numpy as np
 import pandas as pd
 
-from .store import Store
 
 __all__ = ["NO_SPLIT", "root_agreement", "jaccard", "mean_pairwise_jaccard", "spearman",
-           "mean_pairwise_spearman", "leaves_spread", "stability_summary"]
+           "mean_pairwise_spearman", "leaves_spread", "summarise", "COLUMNS"]
 
 NO_SPLIT = "(no split)"
 """The root 'column' of a tree pruned back to a single leaf."""
@@ -96,27 +96,16 @@ def leaves_spread(leaves: Sequence[float]) -> dict[str, float]:
             "min": float(x.min()), "max": float(x.max())}
 
 
-_COLUMNS = ["model", "family", "cell_id", "picked", "folds", "rank_method", "rank_agreement",
+COLUMNS = ["model", "family", "cell_id", "picked", "folds", "rank_method", "rank_agreement",
             "rank_pairs", "root_feature", "root_share", "jaccard", "leaves_mean", "leaves_sd",
             "leaves_min", "leaves_max", "depth_mean"]
 
 
-def stability_summary(store: Store, sweep_id: str | None = None) -> pd.DataFrame:
-    """One row per explained cell: rank agreement of per-fold importances for every family,
-    and for pruned trees the root share, Jaccard similarity of used columns and leaf spread."""
-    from .explain import _pick_marks, has_explain_tables, tree_fold_table
-
-    sweep_id = store.resolve_sweep(sweep_id)
-    if not has_explain_tables(store):
-        return pd.DataFrame(columns=_COLUMNS)
-    imp = store.query("""
-        select c.model, c.family, f.cell_id, f."repeat", f.fold, f.method, f.feature, f.value,
-               c.position as cell_row
-        from fold_importances f
-        join cells c on c.sweep_id = f.sweep_id and c.cell_id = f.cell_id
-        where f.sweep_id = ?""", [sweep_id])
-    trees = tree_fold_table(store, sweep_id)
-    marks = _pick_marks(store, sweep_id).set_index("cell_id")["picked"].to_dict()
+def summarise(imp: pd.DataFrame, trees: pd.DataFrame, marks: dict) -> pd.DataFrame:
+    """One row per explained cell from its per-fold importances (`imp`: model, family,
+    cell_id, repeat, fold, method, feature, value, cell_row) and, for single trees, its
+    per-fold shapes (`trees`): rank agreement for every family; root share, Jaccard
+    similarity of used columns and leaf spread where a cell has tree shapes."""
     rows = []
     for cell_id, g in imp.sort_values(["cell_row", "repeat", "fold"]).groupby("cell_id",
                                                                                sort=False):
@@ -136,6 +125,4 @@ def stability_summary(store: Store, sweep_id: str | None = None) -> pd.DataFrame
                        leaves_min=spread["min"], leaves_max=spread["max"],
                        depth_mean=float(t["depth"].mean()))
         rows.append(row)
-    out = pd.DataFrame(rows, columns=_COLUMNS)
-    out.attrs.update(sweep_id=sweep_id)
-    return out
+    return pd.DataFrame(rows, columns=COLUMNS)

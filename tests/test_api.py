@@ -36,8 +36,8 @@ def test_tables_from_a_sweep(tmp_path, diabetes_csv):
     importlib.import_module("runner.picks")
     importlib.import_module("runner.stability")
 
-    for table in (runner.summary(store), runner.pick_table(store), runner.compare_table(store),
-                  runner.complexity_table(store, "tree")):
-        assert isinstance(table, pd.DataFrame) and len(table) >= 1
-    assert set(runner.summary(store).model) == {"ridge", "tree"}
-    assert len(runner.complexity_table(store, "tree")) == 2
+    for result in (runner.summary(store), runner.pick_table(store), runner.compare_table(store),
+                   runner.complexity_table(store, "tree")):
+        assert isinstance(result.table, pd.DataFrame) and len(result.table) >= 1
+    assert set(runner.summary(store).table.model) == {"ridge", "tree"}
+    assert len(runner.complexity_table(store, "tree").table) == 2

@@ -12,9 +12,10 @@ from click.testing import CliRunner
 from scipy import stats
 
 from runner.cli import main
-from runner.compare import (APPROXIMATE_NOTE, compare, corrected_t_test, in_words,
-                            t_from_moments)
+from runner.compare import APPROXIMATE_NOTE, corrected_t_test, t_from_moments
 from runner.errors import QueryError
+from runner.queries import compare as read_compare
+from runner.views import compare_view, pair_sentence as in_words, pair_sentences
 
 from .store_builder import write_sweep
 
@@ -93,8 +94,14 @@ def three_models(tmp_path):
                        tests={"a": [5.2], "b": [4.4], "c": [6.5]}, pick_rule="best")
 
 
+def compare(store, **kw):
+    """The comparison's table."""
+    return read_compare(store, **kw).table
+
+
 def test_compare_pairs_identical_folds(three_models):
-    df = compare(three_models)
+    result = read_compare(three_models)
+    df = result.table
     assert list(zip(df["model_a"], df["model_b"])) == [("a", "b"), ("a", "c"), ("b", "c")]
     ratio = float(np.mean([4 / 8, 4 / 8, 3 / 9, 4 / 8, 4 / 8, 3 / 9]))
     for row, (x, y) in zip(df.itertuples(), [(A, B), (A, C), (B, C)]):
@@ -109,8 +116,9 @@ def test_compare_pairs_identical_folds(three_models):
                                                       int((d == 0).sum()))
     first = df.iloc[0]
     assert first["test_diff"] == pytest.approx(5.2 - 4.4)
-    assert first["in_words"].startswith("b beats a on 5 of 6 folds; mean RMSE difference −")
-    assert df.attrs["note"] == APPROXIMATE_NOTE and df.attrs["rule"] == "best"
+    assert pair_sentences(result)[0].startswith(
+        "b beats a on 5 of 6 folds; mean RMSE difference −")
+    assert compare_view(result).notes[0] == f"note: {APPROXIMATE_NOTE}" and result.rule == "best"
 
 
 def test_compare_uses_the_picked_cells(tmp_path):
@@ -129,9 +137,10 @@ def test_compare_higher_is_better(tmp_path):
     store = write_sweep(tmp_path / "s.duckdb", {"x": [[0.6, 0.62, 0.58, 0.61]],
                                                 "y": [[0.5, 0.63, 0.52, 0.55]]},
                         k=2, repeats=2, metric="r2", better="higher")
-    row = compare(store).iloc[0]
+    result = read_compare(store)
+    row = result.table.iloc[0]
     assert (row.wins_a, row.wins_b) == (3, 1)
-    assert row.in_words.startswith("x beats y on 3 of 4 folds; mean R² difference 0.")
+    assert pair_sentences(result)[0].startswith("x beats y on 3 of 4 folds; mean R² difference 0.")
 
 
 def test_compare_errors_and_single_model(tmp_path):
@@ -148,15 +157,16 @@ def test_compare_command(three_models):
     path = str(three_models.path)
     got = runner.invoke(main, ["compare", "--store", path, "--format", "json"])
     assert got.exit_code == 0, got.output
-    api = compare(three_models)
+    result = read_compare(three_models)
+    api = result.table
     rows = json.loads(got.stdout)
     assert [(r["model_a"], r["model_b"]) for r in rows] == list(zip(api["model_a"], api["model_b"]))
     assert [r["p_value"] for r in rows] == pytest.approx(api["p_value"].tolist(), rel=1e-12)
     assert "approximate" in got.stderr
     table = runner.invoke(main, ["compare", "--store", path])
     assert table.exit_code == 0, table.output
-    for line in api["in_words"]:
+    for line in pair_sentences(result):
         assert line in table.stdout
-    assert "note: p-values from resampled folds are approximate" in table.stdout
+    assert "note: p-values from resampled folds are approximate" in table.stderr
     bad = runner.invoke(main, ["compare", "--store", path, "--metric", "mae"])
     assert bad.exit_code == 2 and "metric must be one of" in bad.stderr

@@ -48,9 +48,9 @@ def _stored(store, sweep_id, cell_id, method):
 
 def test_picked_cells_of_every_model_are_explained(explained):
     spec, store, sid = explained
-    from runner.picks import picks
+    from runner.queries import picks
 
-    assert {c["cell_id"] for c in _cells(store, sid)} == set(picks(store, sid)["cell_id"])
+    assert {c["cell_id"] for c in _cells(store, sid)} == set(picks(store, sid).table["cell_id"])
     assert {c["family"] for c in _cells(store, sid)} == {"linear", "pruned_tree", "forest"}
 
 

@@ -45,8 +45,9 @@ def test_failed_cells_are_recorded_and_never_picked(tmp_path, diabetes_csv, fail
                            "join cells c using (sweep_id, cell_id)")
     assert set(failures.model) == {"shaky"} and set(failures.kind) == {"FloatingPointError"}
     assert failures.message.str.contains("singular").all()
-    table = summary(store)
-    assert "shaky" not in set(table.model) and table.attrs["unpicked"] == ["shaky"]
+    result = summary(store)
+    table = result.table
+    assert "shaky" not in set(table.model) and result.unpicked == ("shaky",)
     assert table[table.model == "ridge"].failed_cells.iloc[0] == 0
     out = CliRunner().invoke(main, ["summary", "--store", str(tmp_path / "store.duckdb")])
     assert out.exit_code == 0 and "model 'shaky' has no cell to pick" in out.output

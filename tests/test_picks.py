@@ -15,14 +15,29 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from runner.cli import main
-from runner.picks import complexity_table
 from runner.errors import QueryError
 from runner.grid import expand_model
-from runner.picks import (best_index, one_se_index, one_se_threshold, picks, standard_error)
-from runner.queries import summary
+from runner.picks import best_index, one_se_index, one_se_threshold, standard_error
+from runner.queries import complexity_table as read_complexity
+from runner.queries import picks as read_picks
+from runner.queries import summary as read_summary
 from runner.spec import ModelSpec
 
 from .store_builder import write_sweep
+
+
+
+def picks(store, **kw):
+    return read_picks(store, **kw).table
+
+
+def complexity_table(store, model, **kw):
+    return read_complexity(store, model, **kw).table
+
+
+def summary(store, **kw):
+    return read_summary(store, **kw).table
+
 
 # -- the rule on plain numbers ------------------------------------------------------------
 
@@ -217,7 +232,7 @@ def test_failed_and_incomplete_cells_are_never_picked(tmp_path):
     df = picks(store)
     assert df["model"].unique().tolist() == ["m"]
     assert df.set_index("rule")["cell_id"].to_dict() == {"best": "m-1", "one_se": "m-1"}
-    assert df.attrs["unpicked"] == ["solo"]
+    assert read_picks(store).unpicked == ("solo",)
     assert df["eligible"].iloc[0] == 2 and df["cells"].iloc[0] == 4
     table = complexity_table(store, "m")
     assert table["excluded"].tolist() == ["", "", "failed fits", "incomplete"]
@@ -240,7 +255,7 @@ def test_summary_shows_the_sweeps_rule(tmp_path):
     cells = [[5.0, 5.2, 4.8, 5.0], [4.9, 5.1, 4.9, 4.9], [4.8, 5.3, 4.5, 4.8]]
     store = write_sweep(tmp_path / "s.duckdb", {"m": cells}, k=2, repeats=2, pick_rule="one_se")
     df = summary(store)
-    assert df.attrs["rule"] == "one_se" and df["rule"].tolist() == ["one_se"]
+    assert read_summary(store).rule == "one_se" and df["rule"].tolist() == ["one_se"]
     assert {"model", "family", "cells", "cell_id", "params", "cv_rmse", "se_rmse",
             "test_rmse"} <= set(df.columns)
     assert df["cell_id"].tolist() == ["m-0"]
@@ -256,7 +271,8 @@ def test_complexity_table_marks_and_order(tmp_path):
     assert df["pick"].tolist() == ["one_se", "", "best", ""]
     assert df["within_one_se"].tolist() == [True, True, True, False]
     assert df["mean_leaves"].tolist() == [2.0, 3.0, 4.0, 5.0]
-    assert df.attrs["threshold"] == pytest.approx(4.85 + np.std(cells[2], ddof=1) / 2)
+    assert read_complexity(store, "t").threshold == pytest.approx(
+        4.85 + np.std(cells[2], ddof=1) / 2)
 
 
 # -- end to end on the diabetes data --------------------------------------------------------
@@ -394,7 +410,7 @@ def test_pick_command_table_and_errors(diabetes_sweep):
     result = runner.invoke(main, ["pick", "--store", str(store.path)])
     assert result.exit_code == 0, result.output
     assert "best cell" in result.stdout and "one-SE cell" in result.stdout
-    assert "the sweep's rule is one_se" in result.stdout
+    assert "the sweep's rule is one-SE" in result.stdout
     bad = runner.invoke(main, ["pick", "--store", str(store.path), "--model", "tre"])
     assert bad.exit_code == 2
     assert "no model 'tre'" in bad.stderr and "Did you mean 'tree'?" in bad.stderr
@@ -412,7 +428,7 @@ def test_path_command_json_matches_the_api(diabetes_sweep):
     table = runner.invoke(main, ["path", "--model", "tree", "--store", str(store.path)])
     assert table.exit_code == 0, table.output
     words = " ".join(table.stdout.split())
-    assert "one-SE threshold: CV rmse ≤" in words and "leaves" in words
+    assert "one-SE threshold: CV RMSE ≤" in words and "leaves" in words
 
 
 @pytest.mark.parametrize("command", ["pick", "compare", "path"])

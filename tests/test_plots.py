@@ -10,7 +10,7 @@ from PIL import Image
 
 from runner.cli import main
 from runner.errors import QueryError
-from runner.picks import complexity_table, picks
+from runner.queries import complexity_table, picks
 from runner.plots import KINDS, complexity_figure, make_figure, models_figure, save_figure
 
 OPTIONS = {"complexity": {"model": "tree"}, "models": {}, "importance": {},
@@ -36,9 +36,9 @@ def test_one_se_threshold_line_is_the_picks_threshold(explained, model):
     fig = complexity_figure(store, model, sid)
     (ax,) = fig.axes
     (line,) = [ln for ln in ax.get_lines() if ln.get_gid() == "one_se_threshold"]
-    threshold = picks(store, sid, rule="one_se", model=model)["threshold"].iloc[0]
+    threshold = picks(store, sid, rule="one_se", model=model).table["threshold"].iloc[0]
     assert set(line.get_ydata()) == {threshold}
-    table = complexity_table(store, model, sid)
+    table = complexity_table(store, model, sid).table
     for rule in ("best", "one_se"):
         (mark,) = [ln for ln in ax.get_lines() if ln.get_gid() == f"pick_{rule}"]
         picked = table[table["pick"].str.split().map(lambda r, rule=rule: rule in r)]
@@ -50,7 +50,7 @@ def test_models_figure_draws_every_fold_score(explained):
     fig = models_figure(store, sid, rule="best")
     points = np.concatenate([c.get_offsets()[:, 1] for c in fig.axes[0].collections
                              if c.get_offsets().shape[0] == 6])
-    chosen = picks(store, sid, rule="best")
+    chosen = picks(store, sid, rule="best").table
     stored = store.query("select value from fold_scores where sweep_id = ? and metric = 'rmse' "
                          "and list_contains(?::varchar[], cell_id)",
                          [sid, chosen["cell_id"].tolist()])["value"]

@@ -14,8 +14,8 @@ from click.testing import CliRunner
 from PIL import Image
 
 from runner.cli import main
-from runner.output import mean_se
-from runner.picks import picks
+from runner.queries import picks
+from runner.views import mean_se
 from runner.report import render_report, write_report
 
 CHROMIUM_FLAGS = ["--headless", "--no-sandbox", "--disable-gpu",
@@ -75,7 +75,7 @@ def test_report_in_a_real_browser(explained, report_file, tmp_path):
     dom = subprocess.run([*common, "--dump-dom", url], check=True, capture_output=True,
                          text=True, timeout=120).stdout
     text = re.sub(r"<[^>]+>", " ", dom)
-    chosen = picks(store, sid)
+    chosen = picks(store, sid).table
     for model in chosen["model"].unique():
         assert re.search(rf"\b{model}\b", text), model
     for r in chosen.itertuples(index=False):
@@ -84,19 +84,13 @@ def test_report_in_a_real_browser(explained, report_file, tmp_path):
 
 
 def test_report_of_a_sweep_without_explain_rows(tmp_path):
-    # A store written row by row (no explain step), then with the explain tables dropped,
-    # as a store from an older foldwise would be: the report still builds and says why
-    # figures are missing.
-    import duckdb
-
+    # A store written row by row, with no explain rows (as after `explain: {cells: none}`):
+    # the report still builds and says why figures are missing.
     from .store_builder import write_sweep
 
     store = write_sweep(tmp_path / "s.duckdb", {"a": [[1.0, 1.2, 0.9, 1.1], [1.3, 1.2, 1.4, 1.1]],
                                                 "b": [[2.0, 2.1, 1.9, 2.2]]}, k=2, repeats=2)
-    with duckdb.connect(str(store.path)) as con:
-        for table in ("importances", "fold_importances", "tree_folds", "tree_nodes",
-                      "test_predictions"):
-            con.execute(f"drop table {table}")
+    assert store.query("select count(*) from importances").iloc[0, 0] == 0
     html = render_report(store)
     assert "Figure not available" in html and "No importances are stored" in html
     assert "a (a linear model) has the best cross-validated RMSE" in html

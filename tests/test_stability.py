@@ -11,9 +11,10 @@ import pandas as pd
 import pytest
 from scipy.stats import spearmanr
 
+from runner.queries import stability_table
 from runner.stability import (NO_SPLIT, jaccard, leaves_spread, mean_pairwise_jaccard,
                               mean_pairwise_spearman, root_agreement, spearman,
-                              stability_summary)
+)
 
 from .store_builder import write_sweep
 
@@ -105,7 +106,7 @@ def test_stability_summary_on_a_built_store(tmp_path):
            for (r, f), values in zip(folds, per_fold)
            for feat, v in zip(("x1", "x2", "x3"), values)]
     store.write_batch({"tree_folds": trees, "fold_importances": pd.DataFrame(imp)})
-    out = stability_summary(store, sid).set_index("cell_id")
+    out = stability_table(store, sid).table.set_index("cell_id")
     tree = out.loc["tree-0"]
     assert tree["root_feature"] == "x1" and tree["root_share"] == pytest.approx(0.75)
     # Jaccard pairs: 12-1 1/2, 12-12 1, 12-13 1/3, 1-12 1/2, 1-13 1/2, 12-13 1/3 -> 19/6 / 6

@@ -171,12 +171,12 @@ def test_explain_step_plots_and_report_work_on_a_server(pg, explained, tmp_path)
     again = run_sweep(spec, store=server, jobs=1)  # copies the explain rows of `first`
     assert again.n_reused == first.n_cells
     for sweep in (first.sweep_id, again.sweep_id):
-        mine = importance_table(server, sweep).drop(columns=["cell_id"])
-        reference = importance_table(file_store, file_sweep).drop(columns=["cell_id"])
+        mine = importance_table(server, sweep).table.drop(columns=["cell_id"])
+        reference = importance_table(file_store, file_sweep).table.drop(columns=["cell_id"])
         assert len(mine) > 0
         pd.testing.assert_frame_equal(mine, reference, check_exact=False, rtol=1e-12)
-        pd.testing.assert_frame_equal(stability_table(server, sweep),
-                                      stability_table(file_store, file_sweep),
+        pd.testing.assert_frame_equal(stability_table(server, sweep).table,
+                                      stability_table(file_store, file_sweep).table,
                                       check_exact=False, rtol=1e-12)
     report = write_report(server, tmp_path / "report.html", again.sweep_id)
     assert "forest" in report.read_text() and report.stat().st_size > 50_000

@@ -1,0 +1,88 @@
+"""Everything a sweep needs before its first fit: the checked data, the grid's cells (with
+any {path: N} values read off the data) and, on first use, the plan. Both the engine and
+the explain step start from it."""
+
+from __future__ import annotations
+
+from .data import Frame, load_frame
+from .errors import DataError
+from .families import FAMILIES
+from .grid import Cell, expand_spec, spread_along_path
+from .metrics import METRICS
+from .resampling import REFIT, Plan, make_plan, plan_identity, refit_seed
+from .spec import Spec
+
+__all__ = ["Prepared", "prepare", "load_checked"]
+
+
+class Prepared:
+    """Everything a sweep needs before the first fit: data, plan and cells.
+
+    The plan (which needs scikit-learn's splitters, slow to import) is built on first use,
+    so a rerun whose every result is already stored never builds it."""
+
+    def __init__(self, spec: Spec, frame: Frame, cells: list[Cell] | None = None):
+        self.spec, self.frame, self.cells = spec, frame, cells or []
+        self._plan: Plan | None = None
+        self._split: dict | None = None
+
+    @property
+    def plan(self) -> Plan:
+        if self._plan is None:
+            self._plan = make_plan(self.spec, self.frame)
+        return self._plan
+
+    @property
+    def split(self) -> dict:
+        """The training and test rows (X_train, y_train, X_test, y_test), cut once and
+        shared by the sweep's tasks and the explain step's (a cluster receives them once)."""
+        if self._split is None:
+            frame, plan = self.frame, self.plan
+            self._split = dict(X_train=frame.X.iloc[plan.train_rows],
+                               y_train=frame.y[plan.train_rows],
+                               X_test=frame.X.iloc[plan.test_rows],
+                               y_test=frame.y[plan.test_rows])
+        return self._split
+
+    def fold_keys(self) -> list[tuple[int, int]]:
+        """(repeat, fold) of every validation fold, then the refit's."""
+        k, r = self.spec.folds.k, self.spec.folds.repeats
+        return [(i, j) for i in range(r) for j in range(k)] + [(REFIT, REFIT)]
+
+
+def _path_resolver(prep: Prepared):
+    """{path: N} values of a model's cell: read off its family's data path on the
+    training rows (a pruned tree's cost-complexity pruning path)."""
+    def resolve(label: str, combo: dict, n: int) -> list[float]:
+        family = FAMILIES[prep.spec.models[label].family].estimators
+        frame, plan = prep.frame, prep.plan
+        X = frame.X.iloc[plan.train_rows]
+        y = frame.y[plan.train_rows]
+        alphas = family.pruning_path_alphas(combo, X, y, seed=refit_seed(plan.seed),
+                                            numeric=frame.numeric,
+                                            categorical=frame.categorical)
+        return spread_along_path(alphas, n)
+
+    return resolve
+
+
+def load_checked(spec: Spec) -> Frame:
+    """The spec's data, refused if one of its metrics cannot score the target."""
+    frame = load_frame(spec)
+    for name in spec.metrics:
+        problem = METRICS[name].target_problem(frame.y)
+        if problem:
+            raise DataError(f"metric '{name}' cannot score target column '{frame.target}' of "
+                            f"{frame.source}: the column {problem}. Remove '{name}' from "
+                            "`metrics` in the spec, or choose another target.")
+    return frame
+
+
+def prepare(spec: Spec) -> Prepared:
+    """Load and check the data and expand every model's grid; the plan follows on demand."""
+    prep = Prepared(spec, load_checked(spec))
+    prep.cells = expand_spec(spec, data_sha256=prep.frame.sha256,
+                             plan_identity=plan_identity(spec),
+                             resolve_path=_path_resolver(prep),
+                             n_features=len(prep.frame.features))
+    return prep

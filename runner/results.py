@@ -1,0 +1,140 @@
+"""The results of reading a sweep: small frozen objects, each a table plus the facts that
+say what the table is (which sweep, metric, direction, rule, kind of standard error, models
+without a pick). Built only by `queries.py`; turned into display tables and sentences only
+by `views.py`, for the CLI and the report alike."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import pandas as pd
+
+__all__ = ["SweepFacts", "Summary", "CellStats", "Picks", "ComplexityTable", "Comparison",
+           "Importances", "Stability"]
+
+
+@dataclass(frozen=True)
+class SweepFacts:
+    """What every reading of one sweep needs to know about it."""
+
+    sweep_id: str
+    name: str
+    target: str
+    metrics: tuple[str, ...]
+    better: dict  # metric -> "lower" or "higher", as the store records it
+    k: int
+    repeats: int
+    rule: str  # the spec's pick rule
+
+    @property
+    def metric(self) -> str:
+        """The first metric: it decides the picks."""
+        return self.metrics[0]
+
+    @property
+    def n_folds(self) -> int:
+        return self.k * self.repeats
+
+    def better_of(self, metric: str | None = None) -> str:
+        return self.better.get(metric or self.metric, "lower")
+
+
+@dataclass(frozen=True)
+class Summary:
+    """One row per model: its picked cell under `rule`, CV mean ± SE and test score per
+    metric (columns cv_<m>, se_<m>, test_<m>)."""
+
+    facts: SweepFacts
+    rule: str
+    table: pd.DataFrame
+    unpicked: tuple[str, ...] = ()
+    unfinished: bool = False  # the sweep is still running, or stopped before it ended
+    varying: dict = field(default_factory=dict)  # model -> the params its grid varies
+
+
+@dataclass(frozen=True)
+class CellStats:
+    """Every cell with mean, SE, n, leaves, test score, why it is excluded and the marks
+    (within one SE, best, one-SE) of the picks on the sweep's first metric."""
+
+    facts: SweepFacts
+    metric: str  # whose scores are shown (the marks always follow the first metric)
+    se: str
+    table: pd.DataFrame
+    thresholds: dict = field(default_factory=dict)  # model -> one-SE threshold
+
+    @property
+    def better(self) -> str:
+        return self.facts.better_of(self.metric)
+
+
+@dataclass(frozen=True)
+class Picks:
+    """The picked cell of each model: one row per model and rule."""
+
+    facts: SweepFacts
+    rules: tuple[str, ...]
+    se: str
+    table: pd.DataFrame
+    unpicked: tuple[str, ...] = ()
+    unfinished: bool = False
+    varying: dict = field(default_factory=dict)  # model -> the params its grid varies
+
+
+@dataclass(frozen=True)
+class ComplexityTable:
+    """One model's cells in complexity order (rank 0 = simplest) with the picks marked."""
+
+    facts: SweepFacts
+    model: str
+    family: str
+    metric: str
+    se: str
+    table: pd.DataFrame
+    threshold: float | None = None
+    shown_params: tuple[str, ...] = ()
+    fixed_params: dict = field(default_factory=dict)
+
+    @property
+    def better(self) -> str:
+        return self.facts.better_of(self.metric)
+
+    @property
+    def varying_params(self) -> list[str]:
+        """The shown params that take more than one value among the cells."""
+        import json
+
+        return [n for n in self.shown_params
+                if self.table[n].map(lambda v: json.dumps(v)).nunique() > 1]
+
+
+@dataclass(frozen=True)
+class Comparison:
+    """Every pair of models' picked cells compared fold by fold (a before b, spec order)."""
+
+    facts: SweepFacts
+    rule: str
+    se: str
+    metric: str
+    table: pd.DataFrame
+    unpicked: tuple[str, ...] = ()
+
+    @property
+    def better(self) -> str:
+        return self.facts.better_of(self.metric)
+
+
+@dataclass(frozen=True)
+class Importances:
+    """Every stored importance of a sweep's explained cells, ranked within cell and method."""
+
+    facts: SweepFacts
+    table: pd.DataFrame
+
+
+@dataclass(frozen=True)
+class Stability:
+    """One row per explained cell: how much its fitted model changes across folds."""
+
+    facts: SweepFacts
+    table: pd.DataFrame

@@ -1,0 +1,416 @@
+"""The one view layer: reading results (`results.py`) become display tables, titles and
+sentences here, for the terminal and the HTML report alike, so that every label and every
+rounding rule exists once. Nothing here queries the store."""
+
+from __future__ import annotations
+
+import json
+import math
+from dataclasses import dataclass, field
+
+import pandas as pd
+
+from .compare import APPROXIMATE_NOTE
+from .families import get_family
+from .metrics import metric_label
+from .results import Comparison, ComplexityTable, Picks, Summary
+
+__all__ = ["View", "number", "mean_se", "params_text", "p_text", "value_text", "rule_label",
+           "cell_text", "pair_sentence", "pair_sentences", "summary_view", "picks_view",
+           "compare_view", "complexity_view", "unpicked_notes", "decision", "Decision",
+           "stability_sentences", "columns_view", "importance_matrix", "METHODS"]
+
+
+@dataclass(frozen=True)
+class View:
+    """A table ready to show: a title, columns of text, which columns hold numbers (they are
+    right-aligned) and the sentences that go with it."""
+
+    title: str
+    table: pd.DataFrame
+    numeric: tuple[str, ...] = ()
+    sentences: tuple[str, ...] = ()  # printed under the table
+    notes: tuple[str, ...] = ()  # remarks for stderr on a terminal
+    warnings: tuple[str, ...] = field(default=())
+
+
+# -- numbers and params as text --------------------------------------------------------------
+def number(value, digits: int = 4) -> str:
+    """A number with `digits` significant digits, or '' when missing."""
+    if value is None or (isinstance(value, float) and math.isnan(value)):
+        return ""
+    if isinstance(value, int) and not isinstance(value, bool):
+        return str(value)
+    try:
+        return f"{float(value):.{digits}g}"
+    except (TypeError, ValueError):
+        return str(value)
+
+
+def mean_se(mean, se, digits: int = 4) -> str:
+    """'mean ± se' for a table cell."""
+    if mean is None or (isinstance(mean, float) and math.isnan(mean)):
+        return ""
+    return f"{number(mean, digits)} ± {number(se, 2)}"
+
+
+def p_text(p) -> str:
+    """A p-value as it is shown everywhere: 'p < 0.001' or 'p ≈ 0.012'."""
+    if p is None or (isinstance(p, float) and math.isnan(p)):
+        return ""
+    return "p < 0.001" if p < 0.001 else f"p ≈ {p:.2g}"
+
+
+def params_text(params, *, hide: dict | None = None) -> str:
+    """A cell's params as 'name=value, ...', keys sorted, floats to 6 significant digits
+    (always with a point, so 1.0 as a fraction never reads as the count 1); entries equal
+    to `hide` (e.g. the family defaults) are left out."""
+    if isinstance(params, str):
+        params = json.loads(params)
+    parts = []
+    for k in sorted(params):
+        v = params[k]
+        if hide and k in hide and hide[k] == v and type(hide[k]) is type(v):
+            continue
+        if isinstance(v, float):
+            v = f"{v:.6g}"
+            if not any(ch in v for ch in ".en"):
+                v += ".0"
+        parts.append(f"{k}={v}")
+    return ", ".join(parts) or "(defaults)"
+
+
+def value_text(value) -> str:
+    """One parameter value in a table cell."""
+    if value is None or (isinstance(value, float) and value != value):
+        return "none"
+    if isinstance(value, float):
+        return f"{value:.6g}"
+    return str(value)
+
+
+def rule_label(rule: str) -> str:
+    """'one_se' -> 'one-SE'; several rules joined with 'and'."""
+    return " and ".join({"one_se": "one-SE"}.get(r, r) for r in rule.split()) or "explained"
+
+
+def cell_text(params, keep, leaves=None) -> str:
+    """A cell as the params that vary in its model's grid, plus its mean leaves if a tree."""
+    values = json.loads(params) if isinstance(params, str) else dict(params)
+    kept = {k: v for k, v in values.items() if k in keep}
+    text = params_text(kept) if kept else "(single cell)"
+    if leaves is not None and leaves == leaves:
+        text += f" ({leaves:.3g} leaves)"
+    return text
+
+
+def _signed(x: float, decimals: int) -> str:
+    text = f"{abs(x):.{decimals}f}"
+    return ("−" if x < 0 and float(text) != 0 else "") + text
+
+
+def _decimals(se: float) -> int:
+    """Decimals that show the SE to two significant digits."""
+    if not se or not math.isfinite(se):
+        return 3
+    return max(0, 1 - math.floor(math.log10(abs(se))))
+
+
+# -- sentences -----------------------------------------------------------------------------
+def pair_sentence(model_a: str, model_b: str, *, metric: str, better: str, mean_diff: float,
+                  se: float, p: float, wins_a: int, wins_b: int, n: int) -> str:
+    """One plain sentence about a pair, e.g. 'forest beats ols on 10 of 10 folds; ...'."""
+    dec = _decimals(se)
+    if mean_diff == 0 or math.isnan(mean_diff):
+        return (f"{model_a} and {model_b} tie on average; {model_a} wins {wins_a} and "
+                f"{model_b} wins {wins_b} of {n} folds")
+    a_better = (mean_diff < 0) == (better == "lower")
+    winner, loser = (model_a, model_b) if a_better else (model_b, model_a)
+    wins = wins_a if a_better else wins_b
+    diff = mean_diff if a_better else -mean_diff
+    return (f"{winner} beats {loser} on {wins} of {n} folds; mean {metric_label(metric)} "
+            f"difference {_signed(diff, dec)} ± {se:.{dec}f} ({p_text(p)})")
+
+
+def pair_sentences(comparison: Comparison) -> list[str]:
+    """One sentence per compared pair."""
+    return [pair_sentence(r.model_a, r.model_b, metric=comparison.metric,
+                          better=comparison.better, mean_diff=r.mean_diff, se=r.se,
+                          p=r.p_value, wins_a=r.wins_a, wins_b=r.wins_b, n=r.folds)
+            for r in comparison.table.itertuples(index=False)]
+
+
+def unpicked_notes(unpicked, *, unfinished: bool) -> tuple[str, ...]:
+    """Why a model has no pick: its cells have failed fits, or the sweep has not finished."""
+    if unfinished:
+        return tuple(f"model '{m}' has no cell with every fold scored yet: the sweep has not "
+                     "finished (it is running, or stopped early; `foldwise sweeps` tells)."
+                     for m in unpicked)
+    return tuple(f"model '{m}' has no cell to pick: every cell has a failed fit or missing "
+                 f"folds (see `foldwise path --model {m}` and `foldwise sql \"select * from "
+                 "failures\"`)." for m in unpicked)
+
+
+# -- tables --------------------------------------------------------------------------------
+def _cv_head(metric: str) -> str:
+    return f"CV {metric_label(metric)} (mean ± SE)"
+
+
+def _test_head(metric: str) -> str:
+    return f"test {metric_label(metric)}"
+
+
+def summary_view(result: Summary) -> View:
+    """Per model: the picked cell (the params its grid varies), CV mean ± SE and test score
+    of every metric."""
+    df, facts = result.table, result.facts
+    shown = pd.DataFrame({"model": df["model"], "family": df["family"],
+                          "cells": df["cells"].map(number) if len(df) else []})
+    numeric = ["cells"]
+    if "failed_cells" in df and df["failed_cells"].any():
+        shown["failed cells"] = df["failed_cells"].map(number)
+        numeric.append("failed cells")
+    shown["picked cell"] = [cell_text(p, result.varying.get(m, []))
+                            for p, m in zip(df["params"], df["model"])]
+    for m in facts.metrics:
+        if f"cv_{m}" not in df:
+            continue
+        shown[_cv_head(m)] = [mean_se(a, b) for a, b in zip(df[f"cv_{m}"], df[f"se_{m}"])]
+        shown[_test_head(m)] = df[f"test_{m}"].map(number)
+        numeric += [_cv_head(m), _test_head(m)]
+    title = (f"sweep {facts.sweep_id}: picked cell per model ({rule_label(result.rule)} "
+             f"rule) by CV {metric_label(facts.metric)}")
+    return View(title, shown.reset_index(drop=True), tuple(numeric),
+                notes=unpicked_notes(result.unpicked, unfinished=result.unfinished))
+
+
+def picks_view(result: Picks) -> View:
+    """Per model, each rule's cell side by side: cell, rank, CV mean ± SE, test score."""
+    facts, df = result.facts, result.table
+    m = facts.metric
+    both = len(result.rules) > 1
+    rows, numeric = [], []
+    for _, group in df.groupby("model", sort=False):
+        row = {"model": group["model"].iloc[0], "family": group["family"].iloc[0]}
+        for r in group.itertuples(index=False):
+            prefix = f"{rule_label(r.rule)} " if both else ""
+            if not both:
+                row["rule"] = rule_label(r.rule)
+            cols = {f"{prefix}cell": cell_text(r.params, result.varying.get(r.model, []),
+                                               r.mean_leaves),
+                    f"{prefix}rank": number(int(r.complexity_rank)),
+                    f"{prefix}{_cv_head(m)}": mean_se(r.mean, r.se),
+                    f"{prefix}{_test_head(m)}": number(r.test)}
+            row.update(cols)
+            numeric += list(cols)[1:]
+        if result.rules == ("one_se",):
+            row["within 1 SE"] = f"{group['n_within'].iloc[0]} of {group['eligible'].iloc[0]}"
+        rows.append(row)
+    title = (f"sweep {facts.sweep_id}: picks by CV {metric_label(m)} ({facts.better_of()} is "
+             f"better, {result.se} SE; rank 0 = simplest; the sweep's rule is "
+             f"{rule_label(facts.rule)})")
+    return View(title, pd.DataFrame(rows), tuple(dict.fromkeys(numeric)),
+                notes=unpicked_notes(result.unpicked, unfinished=result.unfinished))
+
+
+def compare_view(result: Comparison) -> View:
+    """Every pair of picked cells: mean difference ± corrected SE, t, p, folds won, test."""
+    df, m = result.table, result.metric
+    shown = pd.DataFrame({
+        "pair (a − b)": [f"{a} − {b}" for a, b in zip(df["model_a"], df["model_b"])],
+        "folds": df["folds"].map(number),
+        f"CV {metric_label(m)} a − b (mean ± SE)": [mean_se(d, e) for d, e in
+                                                    zip(df["mean_diff"], df["se"])],
+        "t": df["t"].map(number), "p": df["p_value"].map(p_text),
+        "folds won a : b": [f"{a} : {b}" for a, b in zip(df["wins_a"], df["wins_b"])],
+        f"test {metric_label(m)} a − b": df["test_diff"].map(number)})
+    n = result.facts.n_folds
+    title = (f"sweep {result.facts.sweep_id}: {rule_label(result.rule)} cells paired on {n} "
+             f"folds, CV {metric_label(m)} ({result.better} is better); corrected resampled "
+             f"t-test, df = {n - 1}")
+    numeric = [c for c in shown.columns if c != "pair (a − b)"]
+    return View(title, shown, tuple(numeric), sentences=tuple(pair_sentences(result)),
+                notes=(f"note: {APPROXIMATE_NOTE}",)
+                + unpicked_notes(result.unpicked, unfinished=False))
+
+
+def complexity_view(result: ComplexityTable) -> View:
+    """One model's cells simplest first: rank, the params shown, CV mean ± SE, leaves, test
+    score, whether within one SE of the best, and the picks."""
+    df, m = result.table, result.metric
+    shown = pd.DataFrame({"rank": df["complexity_rank"].map(number)})
+    for name in result.shown_params:
+        shown[name] = df[name].map(value_text)
+    shown[_cv_head(m)] = [mean_se(x, e) for x, e in zip(df["mean"], df["se"])]
+    numeric = ["rank", _cv_head(m)]
+    if df["mean_leaves"].notna().any():
+        shown["leaves"] = [value_text(round(v, 1)) if v == v else "" for v in df["mean_leaves"]]
+        numeric.append("leaves")
+    shown[_test_head(m)] = df["test"].map(number)
+    numeric.append(_test_head(m))
+    shown["within 1 SE"] = ["yes" if w else "" for w in df["within_one_se"]]
+    shown["pick"] = [rule_label(p) if p else "" for p in df["pick"]]
+    if (df["excluded"] != "").any():
+        shown["excluded"] = df["excluded"]
+    facts = result.facts
+    bar = result.threshold
+    op = "≤" if facts.better_of() == "lower" else "≥"
+    bar_text = (f"; one-SE threshold: CV {metric_label(facts.metric)} {op} {number(bar)}"
+                if bar is not None else "")
+    family = get_family(result.family).name
+    title = (f"{result.model} ({family}), simplest first: sweep {facts.sweep_id}, CV "
+             f"{metric_label(m)}, {result.se} SE{bar_text}")
+    notes = ()
+    if result.fixed_params:
+        notes = ("other params at their defaults: " + ", ".join(
+            f"{k}={value_text(v)}" for k, v in result.fixed_params.items()),)
+    return View(title, shown, tuple(numeric), sentences=notes)
+
+
+# -- the report's own tables -----------------------------------------------------------------
+METHODS = {
+    "permutation": "rise in the test {metric} when one column is shuffled (mean over shuffles; "
+                   "spread = sd over shuffles)",
+    "impurity": "share of the tree's squared-error reduction made by splits on the column "
+                "(sums to 1; spread = sd over fold refits)",
+    "coefficient": "SD of the column's contribution to the prediction, target units: "
+                   "|standardised coefficient| for numbers, SD of the one-hot part for "
+                   "categories (spread = sd over fold refits)",
+}
+"""What each importance method's value means, for tables and reports."""
+
+
+@dataclass(frozen=True)
+class Decision:
+    """The models ranked by their picked cells, and the plain sentences drawn from that."""
+
+    rule: str
+    metric: str
+    rows: list
+    sentences: list
+    leader: str | None
+
+
+def decision(chosen: Picks, pairs: Comparison, importances=None) -> Decision:
+    """Rank the models' picked cells (under one rule) and say what the paired folds show."""
+    facts, table = chosen.facts, chosen.table
+    rule, better, name = rule_label(chosen.rules[0]), facts.better_of(), metric_label(facts.metric)
+    if table.empty:
+        return Decision(rule, name, [], ["No model has a cell with every fold scored; nothing "
+                                         "can be recommended."], None)
+    sign = 1.0 if better == "lower" else -1.0
+    ranked = table.assign(_key=sign * table["mean"]).sort_values("_key").reset_index(drop=True)
+    leader = ranked.iloc[0]
+    lm = leader["model"]
+    p = pairs.table
+    rows, gaps = [], {}
+    for r in ranked.itertuples(index=False):
+        gap = se = pv = wins = None
+        if r.model != lm:
+            hit = p[((p.model_a == lm) & (p.model_b == r.model)) |
+                    ((p.model_b == lm) & (p.model_a == r.model))]
+            if len(hit):
+                h = hit.iloc[0]
+                d_other = -h.mean_diff if h.model_a == lm else h.mean_diff
+                gap, se, pv = sign * d_other, h.se, h.p_value
+                wins = int(h.wins_a if h.model_a == lm else h.wins_b)
+                gaps[r.model] = (gap, se, pv, wins, int(h.folds))
+        rows.append({"model": r.model, "family": r.family,
+                     "cell": cell_text(r.params, chosen.varying.get(r.model, [])),
+                     "cv": mean_se(r.mean, r.se), "test": number(r.test),
+                     "gap": "leader" if gap is None else mean_se(gap, se),
+                     "wins": "" if wins is None else f"{wins} of {gaps[r.model][4]}",
+                     "p": p_text(pv), "leader": r.model == lm})
+    said = [f"{lm} (a {leader['family']} model) has the best cross-validated {name} of the "
+            f"{rule} picks: {mean_se(leader['mean'], leader['se'])} over {facts.n_folds} folds "
+            f"({better} is better), and {number(leader['test'])} on the test split."]
+    if len(ranked) > 1:
+        ru = ranked.iloc[1]["model"]
+        if ru in gaps:
+            gap, se, pv, wins, folds = gaps[ru]
+            clear = pv < 0.05 and gap > 0
+            said.append(f"The runner-up, {ru}, is {number(gap, 3)} ± {number(se, 2)} worse in "
+                        f"CV {name}; {lm} wins {wins} of {folds} paired folds ({p_text(pv)}). " +
+                        ("The lead is clear on these folds." if clear else
+                         f"The lead is within the noise of these folds: {lm} and {ru} are "
+                         "not clearly separated, so prefer whichever is simpler to run and "
+                         "explain."))
+    if not get_family(leader["family"]).readable:
+        readable = ranked[ranked["family"].map(lambda f: get_family(f).readable)]
+        if len(readable) and readable.iloc[0]["model"] in gaps:
+            rm = readable.iloc[0]
+            gap, se, *_ = gaps[rm["model"]]
+            said.append(f"If a person must be able to read the model, the best readable one is "
+                        f"{rm['model']} ({rm['family']}), at a cost of {number(gap, 3)} ± "
+                        f"{number(se, 2)} in CV {name}.")
+    tests = table.dropna(subset=["test"])
+    if len(tests) > 1:
+        top = tests.loc[(sign * tests["test"]).idxmin(), "model"]
+        said.append(f"The test split agrees: {lm} also scores best there." if top == lm else
+                    f"The test split ranks {top} first, not {lm}; one split is a noisy check, "
+                    "so weigh the paired folds above more heavily.")
+    if importances is not None:
+        imp = importances.table
+        imp = imp[(imp["cell_id"] == leader["cell_id"]) & (imp["method"] == "permutation")]
+        if len(imp):
+            top3 = ", ".join(imp.sort_values("rank")["feature"].head(3))
+            said.append(f"{lm} relies most on {top3} (permutation importance on the test "
+                        "split).")
+    return Decision(rule, name, rows, said, lm)
+
+
+def stability_sentences(stab: pd.DataFrame) -> list[str]:
+    """One sentence per explained cell on how its fitted model changes across folds."""
+    out = []
+    for r in stab.itertuples(index=False):
+        if r.root_feature is not None and r.root_feature == r.root_feature:
+            out.append(f"{r.model} ({rule_label(r.picked)} cell): {r.root_share:.0%} of "
+                       f"{r.folds} fold trees split first on {r.root_feature}; two fold trees "
+                       f"share on average {r.jaccard:.2f} of their columns (Jaccard); leaves "
+                       f"range {int(r.leaves_min)}–{int(r.leaves_max)}; importance ranks "
+                       f"agree at mean Spearman ρ = {number(r.rank_agreement, 2)}.")
+        else:
+            out.append(f"{r.model} ({rule_label(r.picked)} cell): importance ranks across "
+                       f"{r.folds} fold {get_family(r.family).plural} agree at mean Spearman "
+                       f"ρ = {number(r.rank_agreement, 2)}.")
+    return out
+
+
+def columns_view(df: pd.DataFrame, columns: dict[str, str]) -> pd.DataFrame:
+    """Chosen columns of a table, renamed, every value as text (numbers to 4 digits)."""
+    out = pd.DataFrame({head: [number(v) if isinstance(v, float) else
+                               ("" if v is None else str(v)) for v in df[col]]
+                        for col, head in columns.items()})
+    return out
+
+
+STABILITY_COLUMNS = {"model": "model", "picked": "pick", "folds": "folds",
+                     "rank_method": "ranked by", "rank_agreement": "rank agreement (ρ)",
+                     "root_feature": "most common root", "root_share": "root share",
+                     "jaccard": "column Jaccard", "leaves_mean": "leaves mean",
+                     "leaves_sd": "leaves SD", "leaves_min": "min", "leaves_max": "max"}
+TREE_FOLD_COLUMNS = {"model": "model", "repeat": "repeat", "fold": "fold",
+                     "n_leaves": "leaves", "depth": "depth", "root_rule": "root split",
+                     "columns used": "columns used"}
+
+
+def importance_matrix(importances, cells: pd.DataFrame) -> dict[str, pd.DataFrame]:
+    """Per method: columns down, models across, value ± spread of each given cell."""
+    out = {}
+    imp = importances.table
+    imp = imp[imp["cell_id"].isin(cells["cell_id"])]
+    for method in [m for m in METHODS if m in set(imp["method"])]:
+        g = imp[imp["method"] == method]
+        models = [m for m in cells["model"] if m in set(g["model"])]
+        order = g.groupby("feature")["rank"].mean().sort_values().index
+        rows = []
+        for feature in order:
+            row = [feature]
+            for m in models:
+                hit = g[(g["model"] == m) & (g["feature"] == feature)]
+                row.append(mean_se(hit["value"].iloc[0], hit["spread"].iloc[0])
+                           if len(hit) and hit["spread"].notna().iloc[0]
+                           else number(hit["value"].iloc[0]) if len(hit) else "")
+            rows.append(row)
+        out[method] = pd.DataFrame(rows, columns=["column"] + models)
+    return out

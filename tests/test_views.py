@@ -1,0 +1,69 @@
+"""One view layer: the picks, compare, complexity and summary tables that the terminal prints
+are the very tables the HTML report shows — same titles, same column labels, same numbers."""
+
+from __future__ import annotations
+
+import html
+import re
+
+import pytest
+from click.testing import CliRunner
+
+from runner.cli import main
+from runner.queries import compare, complexity_table, picks, summary
+from runner.report import render_report
+from runner.views import compare_view, complexity_view, picks_view, summary_view
+
+
+def _text(page: str) -> str:
+    return " ".join(html.unescape(re.sub(r"<[^>]+>", " ", page)).split())
+
+
+def _flat(output: str) -> str:
+    return " ".join(re.sub(r"[│┃┏┓┗┛┡┩└┘━─┌┐╇╈┳┻┼├┤]", " ", output).split())
+
+
+@pytest.fixture(scope="module")
+def report_text(explained):
+    _, store, sid = explained
+    return _text(render_report(store, sid))
+
+
+CASES = {
+    "pick": (lambda store, sid: picks_view(picks(store, sid)), ["pick"]),
+    "compare": (lambda store, sid: compare_view(compare(store, sid)), ["compare"]),
+    "path-tree": (lambda store, sid: complexity_view(complexity_table(store, "tree", sid)),
+                  ["path", "--model", "tree"]),
+    "path-ridge": (lambda store, sid: complexity_view(complexity_table(store, "ridge", sid)),
+                   ["path", "--model", "ridge"]),
+    "summary": (lambda store, sid: summary_view(summary(store, sid)), ["summary"]),
+}
+
+
+@pytest.mark.parametrize("case", sorted(CASES))
+def test_terminal_and_report_show_the_same_table(explained, report_text, case):
+    _, store, sid = explained
+    make, command = CASES[case]
+    view = make(store, sid)
+    out = CliRunner().invoke(main, [*command, "--store", str(store.path), "--sweep", sid])
+    assert out.exit_code == 0, out.output
+    terminal = _flat(out.stdout)
+    assert len(view.table) >= 1 and len(view.table.columns) >= 4
+    for where, text in (("terminal", terminal), ("report", report_text)):
+        assert " ".join(view.title.split()) in text, (where, view.title)
+        for head in view.table.columns:
+            assert head in text, (where, head)
+        for row in view.table.itertuples(index=False):
+            for cell in row:
+                if cell:
+                    assert str(cell) in text, (where, cell)
+        for sentence in view.sentences:
+            assert sentence in text, (where, sentence)
+
+
+def test_labels_are_spelt_one_way(explained, report_text):
+    # The metric's label (R² for r2, RMSE for rmse) in every table header of both outputs.
+    _, store, sid = explained
+    view = compare_view(compare(store, sid, metric="r2"))
+    assert "CV R² a − b (mean ± SE)" in view.table.columns
+    assert "CV RMSE (mean ± SE)" in report_text and "CV rmse" not in report_text
