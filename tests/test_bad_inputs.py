@@ -5,6 +5,7 @@ what is expected: `# expect: exit 2; words | that | must | appear`."""
 
 from __future__ import annotations
 
+import os
 import shutil
 from pathlib import Path
 
@@ -39,6 +40,15 @@ def _materialise(case: Path, into: Path) -> Path:
             target.write_bytes(b"not a database at all" * 100)
             recipe.unlink()
             continue
+        if kind == "FIFO":  # a named pipe: opening it for reading would wait for a writer
+            os.mkfifo(target)
+            recipe.unlink()
+            continue
+        if kind.startswith("PAD "):  # grow a file past a size limit with comment lines
+            with open(target, "a") as fh:
+                fh.write(("#" * 99 + "\n") * (int(kind.split()[1]) // 100 + 1))
+            recipe.unlink()
+            continue
         Store(target).ensure_schema()
         if kind == "NEWER":
             with duckdb.connect(str(target)) as con:
@@ -50,8 +60,8 @@ def _materialise(case: Path, into: Path) -> Path:
 
 
 def _snapshot(folder: Path) -> dict[str, bytes]:
-    return {str(p.relative_to(folder)): p.read_bytes() for p in sorted(folder.rglob("*"))
-            if p.is_file()}
+    return {str(p.relative_to(folder)): p.read_bytes() if p.is_file() else b"(not a file)"
+            for p in sorted(folder.rglob("*")) if not p.is_dir()}
 
 
 def test_corpus_is_large():
