@@ -87,10 +87,11 @@ def check(spec_file, lift_limits):
     \b
       foldwise check specs/greenhouse.yaml
     """
-    from .engine import check_spec
     from .spec import load_spec
 
-    spec = load_spec(spec_file)
+    spec = load_spec(spec_file)  # before the engine's imports: a hostile spec costs little
+    from .engine import check_spec
+
     plan, facts = check_spec(spec, lift_limits=lift_limits)
     click.echo(f"spec {spec_file} is valid: sweep '{spec.name}'")
     for key, value in facts.items():
@@ -132,14 +133,15 @@ def run(spec_file, store_path, jobs, force_jobs, quiet, paths, fresh, cluster, l
     fits only what is missing. A plan larger than the spec's `limits` is refused before
     anything is read (`foldwise check` prints its size); --lift-limits runs it anyway.
     """
-    from .engine import run_sweep, store_path as spec_store
     from .spec import load_spec
-    from .store import Store
 
     def say(message: str) -> None:
         click.echo(message, err=True)
 
-    spec = load_spec(spec_file)
+    spec = load_spec(spec_file)  # before the engine's imports: a hostile spec costs little
+    from .engine import run_sweep, store_path as spec_store
+    from .store import Store
+
     store = Store(spec_store(spec, store_path), on_wait=say)
     bar = None if quiet else _ProgressBar(spec.name)
     try:

@@ -98,8 +98,14 @@ def summary(store: Store, sweep_id: str | None = None, *,
         left join test_scores t
           on t.sweep_id = c.sweep_id and t.cell_id = c.cell_id and t.metric = s.metric
         order by z.first_row, s.metric""", [chosen["cell_id"].tolist(), sweep_id, sweep_id])
-    if long.empty:
-        return pd.DataFrame(columns=["model", "family", "cells", "cell_id", "params", "rule"])
+    facts = dict(sweep_id=sweep_id, primary_metric=primary, metrics=metrics, rule=rule,
+                 unpicked=chosen.attrs.get("unpicked", []))
+    if long.empty:  # nothing picked (e.g. every fit failed): an empty table, facts intact
+        empty = pd.DataFrame(columns=["model", "family", "cells", "failed_cells", "cell_id",
+                                      "params", "rule"] + [f"{part}_{m}" for m in metrics
+                                                           for part in ("cv", "se", "test")])
+        empty.attrs.update(facts)
+        return empty
     wide = long.pivot_table(index=["first_row", "model", "family", "cells", "failed_cells",
                                    "cell_id", "params"],
                             columns="metric", values=["mean", "se", "test"], aggfunc="first")
@@ -117,6 +123,5 @@ def summary(store: Store, sweep_id: str | None = None, *,
         ordered += [f"cv_{m}", f"se_{m}", f"test_{m}"]
     out = out[[c for c in ordered if c in out.columns]].reset_index(drop=True)
     out.insert(6, "rule", rule)
-    out.attrs.update(sweep_id=sweep_id, primary_metric=primary, metrics=metrics, rule=rule,
-                     unpicked=chosen.attrs.get("unpicked", []))
+    out.attrs.update(facts)
     return out
