@@ -72,19 +72,27 @@ def main():
     """
 
 
+def _lift_option(f):
+    return click.option("--lift-limits", is_flag=True,
+                        help="Ignore the spec's `limits` (cells, folds, fits, data size); "
+                             "for plans you know the machine can take.")(f)
+
+
 @main.command()
 @click.argument("spec_file", type=click.Path(dir_okay=False))
-def check(spec_file):
-    """Validate a spec and print its plan; fits nothing, writes nothing.
+@_lift_option
+def check(spec_file, lift_limits):
+    """Validate a spec and print its plan and cost estimate; fits nothing, writes nothing.
 
     \b
       foldwise check specs/greenhouse.yaml
     """
-    from .engine import check_spec
     from .spec import load_spec
 
-    spec = load_spec(spec_file)
-    plan, facts = check_spec(spec)
+    spec = load_spec(spec_file)  # before the engine's imports: a hostile spec costs little
+    from .engine import check_spec
+
+    plan, facts = check_spec(spec, lift_limits=lift_limits)
     click.echo(f"spec {spec_file} is valid: sweep '{spec.name}'")
     for key, value in facts.items():
         click.echo(f"  {key:<12} {value}")
@@ -95,7 +103,10 @@ def check(spec_file):
 @click.argument("spec_file", type=click.Path(dir_okay=False))
 @_store_option
 @click.option("--jobs", "-j", type=click.IntRange(min=-1), default=None,
-              help="Parallel worker processes [default: the spec's `jobs`, else all cores].")
+              help="Parallel worker processes [default: the spec's `jobs`, else all cores; "
+                   "more than the cores available is capped to them].")
+@click.option("--force-jobs", is_flag=True,
+              help="Start as many workers as --jobs says even beyond the cores available.")
 @click.option("--quiet", "-q", is_flag=True, help="No progress bar and no summary.")
 @click.option("--paths/--no-paths", default=True, show_default=True,
               help="Score path grids (pruning alphas, forest sizes, linear alphas) from one "
@@ -105,7 +116,8 @@ def check(spec_file):
 @click.option("--cluster", metavar="ADDRESS", envvar="FOLDWISE_CLUSTER", default=None,
               help="Run the tasks on a Dask cluster: a scheduler's tcp://HOST:PORT, or "
                    "local:N to start N worker processes here [default: local processes].")
-def run(spec_file, store_path, jobs, quiet, paths, fresh, cluster):
+@_lift_option
+def run(spec_file, store_path, jobs, force_jobs, quiet, paths, fresh, cluster, lift_limits):
     """Run a sweep: score every cell on every fold and on the test split.
 
     \b
@@ -118,18 +130,24 @@ def run(spec_file, store_path, jobs, quiet, paths, fresh, cluster):
 
     Cells whose results the store already holds (same family, params, data and plan) are
     copied into the new sweep instead of refitted, so a rerun after a crash or a grid change
-    fits only what is missing.
+    fits only what is missing. A plan larger than the spec's `limits` is refused before
+    anything is read (`foldwise check` prints its size); --lift-limits runs it anyway.
     """
-    from .engine import run_sweep, store_path as spec_store
     from .spec import load_spec
+
+    def say(message: str) -> None:
+        click.echo(message, err=True)
+
+    spec = load_spec(spec_file)  # before the engine's imports: a hostile spec costs little
+    from .engine import run_sweep, store_path as spec_store
     from .store import Store
 
-    spec = load_spec(spec_file)
-    store = Store(spec_store(spec, store_path), on_wait=lambda m: click.echo(m, err=True))
+    store = Store(spec_store(spec, store_path), on_wait=say)
     bar = None if quiet else _ProgressBar(spec.name)
     try:
         result = run_sweep(spec, store=store, jobs=jobs, progress=bar, paths=paths, fresh=fresh,
-                           cluster=cluster)
+                           cluster=cluster, on_message=say, lift_limits=lift_limits,
+                           force_jobs=force_jobs)
     finally:
         if bar is not None:
             bar.close()

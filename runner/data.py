@@ -7,6 +7,10 @@ from __future__ import annotations
 
 import csv
 import hashlib
+import io
+import os
+import re
+import stat
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -16,57 +20,122 @@ import pandas as pd
 from .errors import DataError
 from .families import nearest
 
-__all__ = ["Frame", "read_table", "load_frame", "file_sha256"]
+__all__ = ["Frame", "read_table", "load_frame", "file_sha256", "MAX_MAGNITUDE"]
 
 _READERS = {".csv": "csv", ".parquet": "parquet", ".pq": "parquet"}
 
 
-def file_sha256(path: Path) -> str:
-    """SHA-256 of a file's bytes: the data fingerprint stored with every sweep."""
-    digest = hashlib.sha256()
-    with open(path, "rb") as fh:
-        for chunk in iter(lambda: fh.read(1 << 20), b""):
-            digest.update(chunk)
-    return digest.hexdigest()
+MAX_MAGNITUDE = 1e100
+"""Largest |value| a target or numeric feature may hold: squares of larger values, summed
+over rows (variances, squared errors, the store's standard deviations), overflow float64."""
+
+_SEPARATORS = {";": "semicolons", "\t": "tabs", "|": "vertical bars"}
+_GROUPED = re.compile(r"\s*[+-]?\d{1,3}(,\d{3})+(\.\d*)?\s*")
+_PLAIN = re.compile(r"\s*[+-]?(\d+(\.\d*)?|\.\d+)\s*")
 
 
-def _csv_header(path: Path) -> list[str]:
-    with open(path, newline="", encoding="utf-8") as fh:
-        return next(csv.reader(fh), [])
+def _open_regular(path: Path, role: str, max_bytes: int | None):
+    """Open a file for reading only if it is a regular file within the size limit.
 
-
-def read_table(path: Path, *, role: str = "data file") -> pd.DataFrame:
-    """Read a CSV or Parquet file into a DataFrame, or raise a DataError saying what is wrong."""
+    Opened without blocking and checked on the open descriptor, so a FIFO, a device such as
+    /dev/zero, or a file swapped after a check is refused before a byte is read."""
     if not path.exists():
         raise DataError(f"{role} {path} does not exist. Check `data.path` in the spec; it is "
                         "resolved relative to the spec file's folder.")
     if path.is_dir():
         raise DataError(f"{role} {path} is a folder; give a CSV or Parquet file.")
-    kind = _READERS.get(path.suffix.lower())
-    if kind is None:
-        raise DataError(f"{role} {path} has extension '{path.suffix}'; foldwise reads .csv and "
-                        ".parquet files. Convert it or rename it if it is one of those.")
     try:
-        if kind == "csv":
-            header = _csv_header(path)
-            dupes = sorted({c for c in header if header.count(c) > 1})
-            if dupes:
-                raise DataError(f"{role} {path} has duplicate column names: {', '.join(dupes)}. "
-                                "Give every column a unique name.")
-            df = pd.read_csv(path, encoding="utf-8")
-        else:
-            df = pd.read_parquet(path)
-    except DataError:
-        raise
-    except UnicodeDecodeError as exc:
-        raise DataError(f"{role} {path} is not UTF-8 text ({exc.reason} at byte {exc.start}). "
-                        "Re-save it as UTF-8 CSV.") from None
-    except pd.errors.EmptyDataError:
-        raise DataError(f"{role} {path} is empty; it needs a header row and data rows.") from None
-    except Exception as exc:  # parser errors differ by engine; all mean "unreadable"
-        first = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
-        raise DataError(f"{role} {path} cannot be read as {kind.upper()}: {first}. Check that "
-                        "the file is complete and of the type its extension says.") from None
+        fd = os.open(path, os.O_RDONLY | getattr(os, "O_NONBLOCK", 0))
+    except OSError as exc:
+        raise DataError(f"{role} {path} cannot be opened: {exc.strerror}.") from None
+    info = os.fstat(fd)
+    if not stat.S_ISREG(info.st_mode):
+        os.close(fd)
+        raise DataError(f"{role} {path} is not a regular file (it is a device, pipe or "
+                        "socket); foldwise reads CSV or Parquet files only. Save the data to a "
+                        "file and name that.")
+    if max_bytes is not None and info.st_size > max_bytes:
+        os.close(fd)
+        raise DataError(f"{role} {path} has {info.st_size:,} bytes, more than the limit of "
+                        f"{max_bytes:,} bytes (limits.data_mb = {max_bytes / 2**20:g} MiB). Raise "
+                        "`limits.data_mb` in the spec, or run with --lift-limits, if the machine "
+                        "has the memory.")
+    if hasattr(os, "O_NONBLOCK"):
+        os.set_blocking(fd, True)
+    return os.fdopen(fd, "rb")
+
+
+def file_sha256(path: Path, *, max_bytes: int | None = None) -> str:
+    """SHA-256 of a file's bytes: the data fingerprint stored with every sweep."""
+    with _open_regular(Path(path), "data file", max_bytes) as fh:
+        return _sha256(fh)
+
+
+def _sha256(fh) -> str:
+    digest = hashlib.sha256()
+    fh.seek(0)
+    for chunk in iter(lambda: fh.read(1 << 20), b""):
+        digest.update(chunk)
+    fh.seek(0)
+    return digest.hexdigest()
+
+
+def _csv_header(fh) -> list[str]:
+    text = io.TextIOWrapper(fh, encoding="utf-8", newline="")
+    try:
+        return next(csv.reader(text), [])
+    finally:
+        text.detach()
+        fh.seek(0)
+
+
+def _check_header(header: list[str], role: str, path: Path) -> None:
+    dupes = sorted({c for c in header if header.count(c) > 1})
+    if dupes:
+        raise DataError(f"{role} {path} has duplicate column names: {', '.join(dupes)}. "
+                        "Give every column a unique name.")
+    if len(header) == 1:
+        found = [name for sep, name in _SEPARATORS.items() if sep in header[0]]
+        if found:
+            raise DataError(f"{role} {path} reads as one column named {header[0][:60]!r}: its "
+                            f"fields look separated by {found[0]}, and foldwise reads "
+                            "comma-separated files. Save it as CSV with commas between fields "
+                            "(and '.' as the decimal mark).")
+
+
+def read_table(path: Path, *, role: str = "data file", max_bytes: int | None = None
+               ) -> pd.DataFrame:
+    """Read a CSV or Parquet file into a DataFrame, or raise a DataError saying what is wrong."""
+    return _read(Path(path), role, max_bytes)[0]
+
+
+def _read(path: Path, role: str, max_bytes: int | None) -> tuple[pd.DataFrame, str]:
+    """The table and the SHA-256 of the bytes it was read from (one open file for both)."""
+    with _open_regular(path, role, max_bytes) as fh:
+        kind = _READERS.get(path.suffix.lower())
+        if kind is None:
+            raise DataError(f"{role} {path} has extension '{path.suffix}'; foldwise reads .csv "
+                            "and .parquet files. Convert it or rename it if it is one of those.")
+        sha = _sha256(fh)
+        try:
+            if kind == "csv":
+                _check_header(_csv_header(fh), role, path)
+                df = pd.read_csv(fh, encoding="utf-8")
+            else:
+                df = pd.read_parquet(fh)
+        except DataError:
+            raise
+        except UnicodeDecodeError as exc:
+            raise DataError(f"{role} {path} is not UTF-8 text ({exc.reason} at byte "
+                            f"{exc.start}). Re-save it as UTF-8 CSV.") from None
+        except pd.errors.EmptyDataError:
+            raise DataError(f"{role} {path} is empty; it needs a header row and data "
+                            "rows.") from None
+        except Exception as exc:  # parser errors differ by engine; all mean "unreadable"
+            first = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
+            raise DataError(f"{role} {path} cannot be read as {kind.upper()}: {first}. Check "
+                            "that the file is complete and of the type its extension "
+                            "says.") from None
     if df.columns.duplicated().any():
         dupes = sorted(set(df.columns[df.columns.duplicated()]))
         raise DataError(f"{role} {path} has duplicate column names: {', '.join(map(str, dupes))}. "
@@ -74,7 +143,7 @@ def read_table(path: Path, *, role: str = "data file") -> pd.DataFrame:
     if len(df) == 0:
         raise DataError(f"{role} {path} has a header but no rows.")
     df.columns = [str(c) for c in df.columns]
-    return df
+    return df, sha
 
 
 @dataclass
@@ -104,12 +173,76 @@ def _need_columns(df: pd.DataFrame, names, what: str, path: Path) -> None:
                             f"{', '.join(df.columns)}.{nearest(name, df.columns)}")
 
 
+class _Rows:
+    """Names a row of the loaded table as the file and line (CSV) or row (Parquet) it came
+    from; rows past `n_main` come from the test file."""
+
+    def __init__(self, path: Path, n_main: int, test_path: Path | None = None):
+        self.path, self.n_main, self.test_path = path, n_main, test_path
+
+    def __call__(self, i: int) -> str:
+        path = self.path if i < self.n_main else self.test_path
+        kind = "line" if path.suffix.lower() == ".csv" else "row"
+        return f"{kind} {self.number(i)} of {path}"
+
+    def number(self, i: int) -> str:
+        """The line (CSV: after the header) or row number within its own file."""
+        path, i = (self.path, i) if i < self.n_main else (self.test_path, i - self.n_main)
+        return str(i + 2 if path.suffix.lower() == ".csv" else i + 1)
+
+
 def _is_categorical(s: pd.Series) -> bool:
     return not pd.api.types.is_numeric_dtype(s) or pd.api.types.is_bool_dtype(s)
 
 
-def type_features(df: pd.DataFrame, categorical: list[str], path: Path) -> tuple[pd.DataFrame, list, list]:
-    """Cast features to float64 (numeric) or object text (categorical), keeping NaN as missing."""
+def _grouped_numbers(s: pd.Series) -> str | None:
+    """An example value if a text column holds only numbers, some written with thousands
+    separators ('1,234'); None otherwise."""
+    values = s.dropna()
+    if values.empty or not all(isinstance(v, str) for v in values):
+        return None
+    grouped = values[values.str.fullmatch(_GROUPED)]
+    if grouped.empty or not values.str.fullmatch(_PLAIN).sum() + len(grouped) == len(values):
+        return None
+    return grouped.iloc[0].strip()
+
+
+def _separator_problem(what: str, s: pd.Series, path: Path) -> None:
+    example = _grouped_numbers(s)
+    if example is not None:
+        raise DataError(f"{what} of {path} holds numbers written with thousands separators "
+                        f"(such as '{example}'), which would be read as text. Write them without "
+                        f"separators ('{example.replace(',', '')}'); list the column in "
+                        "`data.categorical` only if it really is a category.")
+
+
+def _check_magnitude(what: str, values: np.ndarray, rows: _Rows, *, inf_ok: bool) -> None:
+    """Refuse infinite values (unless `inf_ok`) and values beyond ±MAX_MAGNITUDE."""
+    with np.errstate(invalid="ignore"):
+        infinite = np.isinf(values)
+        huge = np.isfinite(values) & (np.abs(values) > MAX_MAGNITUDE)
+    if infinite.any() and not inf_ok:
+        i = int(np.flatnonzero(infinite)[0])
+        raise DataError(f"{what} has {int(infinite.sum())} infinite value(s), the first "
+                        f"({values[i]:g}) at {rows(i)}. Fix or remove those rows, or set "
+                        "`data.infinite: missing` in the spec to treat infinite feature values "
+                        "as missing.")
+    if huge.any():
+        i = int(np.flatnonzero(huge)[0])
+        raise DataError(f"{what} has {int(huge.sum())} value(s) beyond ±{MAX_MAGNITUDE:g}, the "
+                        f"first ({values[i]:g}) at {rows(i)}; squared errors and variances of "
+                        "such values overflow. Rescale the column (e.g. other units or a "
+                        "logarithm) or fix those rows.")
+
+
+def type_features(df: pd.DataFrame, categorical: list[str], path: Path, *,
+                  rows: _Rows | None = None, infinite: str = "refuse"
+                  ) -> tuple[pd.DataFrame, list, list]:
+    """Cast features to float64 (numeric) or object text (categorical), keeping NaN as missing.
+
+    Numeric values must be finite (or, with infinite="missing", ±inf becomes missing) and
+    within ±MAX_MAGNITUDE; a text column of numbers with thousands separators is refused."""
+    rows = rows or _Rows(path, len(df))
     out = {}
     numeric, cats = [], []
     for name in df.columns:
@@ -118,16 +251,29 @@ def type_features(df: pd.DataFrame, categorical: list[str], path: Path) -> tuple
             raise DataError(f"feature column '{name}' of {path} is entirely missing. Add it to "
                             "`data.drop` in the spec or fill it.")
         if name in categorical or _is_categorical(s):
+            if name not in categorical:
+                _separator_problem(f"feature column '{name}'", s, path)
             out[name] = s.astype(object).map(str).where(s.notna(), np.nan).astype(object)
             cats.append(name)
         else:
-            out[name] = s.astype("float64")
+            values = s.to_numpy(dtype="float64", na_value=np.nan, copy=True)
+            _check_magnitude(f"feature column '{name}'", values, rows,
+                             inf_ok=infinite == "missing")
+            values[np.isinf(values)] = np.nan
+            if np.isnan(values).all():
+                raise DataError(f"feature column '{name}' of {path} has only missing or "
+                                "infinite values. Add it to `data.drop` in the spec or fill "
+                                "it.")
+            out[name] = pd.Series(values, index=df.index)
             numeric.append(name)
     return pd.DataFrame(out, index=df.index), numeric, cats
 
 
-def _check_target(y: pd.Series, target: str, path: Path) -> np.ndarray:
+def _check_target(y: pd.Series, target: str, path: Path, rows: _Rows | None = None
+                  ) -> np.ndarray:
+    rows = rows or _Rows(path, len(y))
     if not pd.api.types.is_numeric_dtype(y) or pd.api.types.is_bool_dtype(y):
+        _separator_problem(f"target column '{target}'", y, path)
         sample = ", ".join(repr(v) for v in y.dropna().astype(str).unique()[:3])
         raise DataError(f"target column '{target}' of {path} is not numeric (values such as "
                         f"{sample}). foldwise fits regression models; choose a numeric target "
@@ -137,29 +283,32 @@ def _check_target(y: pd.Series, target: str, path: Path) -> np.ndarray:
     if missing.all():
         raise DataError(f"target column '{target}' of {path} is entirely missing.")
     if missing.any():
-        rows = np.flatnonzero(missing)[:5] + 2
+        first = [rows.number(i) for i in np.flatnonzero(missing)[:5]]
         raise DataError(f"target column '{target}' of {path} has {int(missing.sum())} missing "
-                        f"values (first at file lines {', '.join(map(str, rows))}). Drop those "
+                        f"values (first at file lines {', '.join(first)}). Drop those "
                         "rows before the sweep: a row without a target can be neither fitted "
                         "nor scored.")
     if not np.isfinite(values).all():
-        raise DataError(f"target column '{target}' of {path} contains infinite values; "
-                        "remove or fix those rows.")
+        i = int(np.flatnonzero(~np.isfinite(values))[0])
+        raise DataError(f"target column '{target}' of {path} contains infinite values (the "
+                        f"first at {rows(i)}); remove or fix those rows.")
+    _check_magnitude(f"target column '{target}'", values, rows, inf_ok=False)
     if np.ptp(values) == 0:
         raise DataError(f"target column '{target}' of {path} is constant ({values[0]:g}); "
                         "there is nothing to predict.")
     return values
 
 
-def load_frame(spec) -> Frame:
+def load_frame(spec, *, max_bytes: int | None = None) -> Frame:
     """Read the spec's data file (and test file, if any) into one typed Frame.
 
     With a separate test file, its rows are appended after the data file's rows and
-    `test_mask` marks them, so the plan sees one table."""
+    `test_mask` marks them, so the plan sees one table. Each file must be a regular file
+    of at most `max_bytes` (None: any size)."""
     path = spec.resolve(spec.data.path)
-    df = read_table(path)
-    sha = file_sha256(path)
+    df, sha = _read(path, "data file", max_bytes)
     n_main = len(df)
+    rows = _Rows(path, n_main)
     test_mask = None
     target = spec.data.target
     if target not in df.columns:
@@ -171,14 +320,15 @@ def load_frame(spec) -> Frame:
         raise DataError(f"target '{target}' is also listed in `data.drop`; remove it there.")
     if spec.test.file is not None:
         test_path = spec.resolve(spec.test.file)
-        tdf = read_table(test_path, role="test file")
+        tdf, test_sha = _read(test_path, "test file", max_bytes)
         missing = [c for c in df.columns if c not in tdf.columns]
         if missing:
             raise DataError(f"test file {test_path} lacks columns of the data file: "
                             f"{', '.join(missing)}. Both files need the same columns.")
-        sha = hashlib.sha256((sha + file_sha256(test_path)).encode()).hexdigest()
+        sha = hashlib.sha256((sha + test_sha).encode()).hexdigest()
         df = pd.concat([df, tdf[list(df.columns)]], ignore_index=True)
         test_mask = np.arange(len(df)) >= n_main
+        rows = _Rows(path, n_main, test_path)
     dropped = list(spec.data.drop)
     if spec.test.column is not None:
         col = spec.test.column
@@ -192,11 +342,12 @@ def load_frame(spec) -> Frame:
             raise DataError(f"test column '{col}' of {path} must be boolean (true/false or "
                             "1/0, no missing values).")
         dropped.append(col)
-    y = _check_target(df[target], target, path)
+    y = _check_target(df[target], target, path, rows)
     features = df.drop(columns=[target] + dropped)
     if features.shape[1] == 0:
         raise DataError(f"{path} has no feature columns left after removing the target and "
                         "`data.drop`.")
-    X, numeric, cats = type_features(features, list(spec.data.categorical), path)
+    X, numeric, cats = type_features(features, list(spec.data.categorical), path, rows=rows,
+                                     infinite=spec.data.infinite)
     return Frame(X=X, y=y, numeric=numeric, categorical=cats, target=target, sha256=sha,
                  source=path, test_mask=test_mask, n_file_rows=n_main)

@@ -25,6 +25,7 @@ import platform
 import secrets
 import socket
 import time
+from collections import Counter
 from dataclasses import dataclass
 from datetime import datetime
 from typing import Callable
@@ -33,11 +34,13 @@ import numpy as np
 import pandas as pd
 
 from . import __version__
+from .budget import check_limits, check_plan_memory, data_limit_bytes
+from .data import load_frame
 from .errors import FoldwiseError
 from .explain import explain_sweep
 from .executors import DaskExecutor, LocalExecutor, make_executor
 from .families import load_family
-from .grid import Cell, count_cells
+from .grid import Cell
 from .metrics import METRICS
 from .prepare import Prepared, load_checked, prepare
 from .queries import process_alive
@@ -45,7 +48,8 @@ from .resampling import REFIT, Fold, make_plan, plan_counts, refit_seed
 from .spec import Spec
 from .store import DEFAULT_STORE, Store
 
-__all__ = ["run_sweep", "check_spec", "prepare", "SweepResult", "Prepared", "SweepInterrupted"]
+__all__ = ["run_sweep", "check_spec", "prepare", "SweepResult", "Prepared", "SweepInterrupted",
+           "SweepFailed", "resolve_jobs"]
 
 Progress = Callable[[int, int], None]
 
@@ -54,6 +58,29 @@ class SweepInterrupted(FoldwiseError):
     """The user stopped the sweep; finished tasks are kept."""
 
     exit_code = 130
+
+
+class SweepFailed(FoldwiseError):
+    """Every fit of the sweep failed: there is no score to summarise or pick."""
+
+    exit_code = 1
+
+
+def resolve_jobs(requested: int | None, *, force: bool = False) -> tuple[int, str | None]:
+    """Local worker processes for a sweep, and a note if the request was capped.
+
+    None or 0 means every core (-1); a request above the cores available here (joblib's
+    count, which follows CPU affinity and container quotas) is capped to them unless
+    `force`, since more workers than cores only add memory and switching."""
+    if not requested or requested == -1:
+        return -1, None
+    from joblib import cpu_count
+
+    cores = cpu_count()
+    if requested <= cores or force:
+        return requested, None
+    return cores, (f"note: {requested} workers asked for, but {cores} cores are available "
+                   f"here; starting {cores} (--force-jobs starts {requested} anyway).")
 
 
 @dataclass
@@ -72,23 +99,30 @@ class SweepResult:
     n_fitted: int = 0  # cells with at least one fold or refit computed by this sweep
 
 
-def check_spec(spec: Spec) -> tuple[pd.DataFrame, dict]:
-    """The plan of a sweep without fitting anything: cells and fits per model, plus facts."""
-    frame = load_checked(spec)
+def check_spec(spec: Spec, *, lift_limits: bool = False) -> tuple[pd.DataFrame, dict]:
+    """The plan of a sweep without fitting anything: cells and fits per model, plus facts
+    (among them the cost estimate). The size is checked against the limits first, by
+    arithmetic, so a plan too large is refused before the data are read."""
+    size = check_limits(spec, lifted=lift_limits)
+    frame = load_checked(spec, max_bytes=data_limit_bytes(spec, lifted=lift_limits))
+    check_plan_memory(spec, plan_counts(spec, frame)[0], lifted=lift_limits)
     plan = make_plan(spec, frame)
     Store(store_path(spec)).check_writable()
-    n_folds = plan.k * plan.repeats
     rows = []
-    for label, model in spec.models.items():
-        n, bound = count_cells(model)
-        rows.append({"model": label, "family": model.family,
-                     "cells": f"≤{n}" if bound else str(n), "folds": n_folds,
-                     "fits": f"≤{n * (n_folds + 1)}" if bound else str(n * (n_folds + 1))})
+    for label, family, n, bound in size.models:
+        up = "≤" if bound else ""
+        rows.append({"model": label, "family": family, "cells": f"{up}{n}",
+                     "folds": size.folds, "fits": f"{up}{n * (size.folds + 1)}"})
+    limits = spec.limits
     facts = {"data": str(frame.source), "rows": len(frame.y), "train rows": plan.n_train,
              "test rows": plan.n_test, "features": len(frame.features),
              "categorical": ", ".join(frame.categorical) or "none",
              "folds": f"{plan.k} folds x {plan.repeats} repeats (seed {plan.seed})",
-             "metrics": ", ".join(spec.metrics), "store": str(store_path(spec))}
+             "metrics": ", ".join(spec.metrics), "store": str(store_path(spec)),
+             "estimate": size.estimate(),
+             "limits": "lifted (--lift-limits)" if lift_limits else
+             (f"cells {limits.cells:,}, folds {limits.folds:,}, fits {limits.fits:,}, data "
+              f"{limits.data_mb:g} MiB (raise in the spec's `limits`)")}
     return pd.DataFrame(rows), facts
 
 
@@ -238,7 +272,8 @@ def run_sweep(spec: Spec, *, store: Store | None = None, jobs: int | None = None
               on_message: Callable[[str], None] | None = None,
               paths: bool = True, fresh: bool = False,
               batch_seconds: float = 1.0, cluster: str | None = None,
-              executor: LocalExecutor | DaskExecutor | None = None) -> SweepResult:
+              executor: LocalExecutor | DaskExecutor | None = None,
+              lift_limits: bool = False, force_jobs: bool = False) -> SweepResult:
     """Score every cell of the spec on every fold and on the test split, into the store.
 
     Results an earlier sweep already holds for the same cell id (same family, params, data
@@ -247,9 +282,14 @@ def run_sweep(spec: Spec, *, store: Store | None = None, jobs: int | None = None
     checking, so it also copies nothing). Finished tasks are written at least every
     `batch_seconds`. The tasks run in local worker processes (`jobs`), or on a Dask
     cluster: `cluster` is a scheduler address (tcp://HOST:PORT) or local:N, or pass an
-    open `executor`; either way this process writes every row."""
+    open `executor`; either way this process writes every row.
+
+    The plan's size is checked against the spec's `limits` before anything is read
+    (`lift_limits` skips that), and more local workers than cores are capped to the cores
+    unless `force_jobs` (a note says so through `on_message`). A sweep whose every fit
+    failed is stored as 'failed' and raises SweepFailed."""
     start = time.perf_counter()
-    prep = prepare(spec)
+    prep = prepare(spec, lift_limits=lift_limits)
     store = store or Store(store_path(spec), on_wait=on_message)
     # A --no-paths sweep is a check of the path evaluators: it refits every cell, never
     # copying rows that an earlier sweep may have scored through a path.
@@ -259,7 +299,9 @@ def run_sweep(spec: Spec, *, store: Store | None = None, jobs: int | None = None
     if not quick:
         prep.plan  # builds and checks the plan before anything is written
     hold = contextlib.ExitStack()
-    n_jobs = jobs or spec.jobs or -1
+    n_jobs, note = resolve_jobs(jobs or spec.jobs, force=force_jobs or bool(cluster))
+    if note and on_message and executor is None:
+        on_message(note)
     if quick:  # only copying to do: one connection for it all, instead of dozens
         hold.enter_context(store.session())
     with hold:
@@ -291,6 +333,7 @@ def run_sweep(spec: Spec, *, store: Store | None = None, jobs: int | None = None
             prep, paths=paths, n_workers=executor.n_workers, done=done)
         total = len(tasks)
         counts = {"fold": copied[0], "test": copied[1], "failed": 0}
+        why: Counter = Counter()  # (error kind, first line of its message) -> fits
         buffer: list = []
         last_flush = time.monotonic()
 
@@ -306,6 +349,7 @@ def run_sweep(spec: Spec, *, store: Store | None = None, jobs: int | None = None
                 for row in failures:
                     row["sweep_id"] = sweep_id
                     fail_rows.append(row)
+                    why[(row["kind"], str(row["message"]).strip().split("\n")[0][:200])] += 1
             test_df = pd.DataFrame(test_rows)
             if len(test_df):
                 test_df = test_df.rename(columns={"n_valid": "n_test"}).drop(columns=["repeat", "fold"])
@@ -331,6 +375,8 @@ def run_sweep(spec: Spec, *, store: Store | None = None, jobs: int | None = None
                 if time.monotonic() - last_flush >= batch_seconds or len(buffer) >= 50:
                     flush()
             flush()
+            if counts["fold"] == 0 and counts["failed"]:
+                raise SweepFailed(_all_failed(sweep_id, counts["failed"], why, store.path))
             explain_sweep(spec, store, sweep_id, prepared=prep, jobs=n_jobs, reuse=not fresh,
                           executor=executor)
         except KeyboardInterrupt:
@@ -346,6 +392,18 @@ def run_sweep(spec: Spec, *, store: Store | None = None, jobs: int | None = None
         return SweepResult(sweep_id, str(store.path), status, len(prep.cells), counts["fold"],
                            counts["test"], counts["failed"], time.perf_counter() - start,
                            n_reused=len(reused), n_fitted=len(prep.cells) - len(reused))
+
+
+def _all_failed(sweep_id: str, n: int, why: Counter, where) -> str:
+    """One paragraph for a sweep without a single fold score: why, and where to look."""
+    (kind, message), times = why.most_common(1)[0]
+    return (f"sweep {sweep_id} failed: all {n:,} fits raised an error, so there is no score "
+            f"to summarise or pick. The most common ({times:,} fits): {kind}: "
+            f"{message.rstrip('. ')}. "
+            f"The sweep is kept in {where} with status 'failed' and every error in the "
+            f"failures table: foldwise sql \"select kind, message, count(*) from failures "
+            f"where sweep_id = '{sweep_id}' group by all\". Fix the data or the grid it "
+            "points to and run again.")
 
 
 def _finished(store: Store, prep: Prepared, *, fresh: bool):

@@ -15,7 +15,7 @@ from .families import FAMILIES
 from .spec import LinearRange, LogRange, ModelSpec, PathRange
 
 __all__ = ["Cell", "expand_model", "expand_spec", "cell_id", "EVAL_VERSION", "range_values",
-           "spread_along_path", "count_cells"]
+           "spread_along_path", "count_cells", "range_size"]
 
 EVAL_VERSION = "1"
 """Bumped whenever a change to foldwise would change any stored score; enters every cell id."""
@@ -110,6 +110,18 @@ def expand_model(label: str, model: ModelSpec, *, data_sha256: str, plan_identit
             for i, p in enumerate(ordered)]
 
 
+def range_size(value, kind: str) -> int:
+    """How many values a log or linear range gives; floats by arithmetic (no array is built),
+    whole numbers counted after rounding (the spec bounds n, so this stays small)."""
+    if kind != "int":
+        return value.n
+    lo, hi = value.log if isinstance(value, LogRange) else value.linear
+    if value.n == 1:
+        return 1
+    vals = (np.geomspace if isinstance(value, LogRange) else np.linspace)(lo, hi, value.n)
+    return int(np.unique(np.round(vals)).size)
+
+
 def count_cells(model: ModelSpec) -> tuple[int, bool]:
     """Cells a model will have without looking at data; True if a path range makes it an upper bound."""
     fam = FAMILIES[model.family]
@@ -119,7 +131,7 @@ def count_cells(model: ModelSpec) -> tuple[int, bool]:
             total *= value.path
             bound = True
         elif isinstance(value, (LogRange, LinearRange)):
-            total *= len(range_values(value, fam.params[name].kind))
+            total *= range_size(value, fam.params[name].kind)
         else:
             total *= len(value)
     return total, bound

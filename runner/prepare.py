@@ -4,12 +4,13 @@ the explain step start from it."""
 
 from __future__ import annotations
 
+from .budget import check_limits, check_plan_memory, data_limit_bytes
 from .data import Frame, load_frame
 from .errors import DataError
 from .families import FAMILIES
 from .grid import Cell, expand_spec, spread_along_path
 from .metrics import METRICS
-from .resampling import REFIT, Plan, make_plan, plan_identity, refit_seed
+from .resampling import REFIT, Plan, make_plan, plan_counts, plan_identity, refit_seed
 from .spec import Spec
 
 __all__ = ["Prepared", "prepare", "load_checked"]
@@ -66,9 +67,10 @@ def _path_resolver(prep: Prepared):
     return resolve
 
 
-def load_checked(spec: Spec) -> Frame:
-    """The spec's data, refused if one of its metrics cannot score the target."""
-    frame = load_frame(spec)
+def load_checked(spec: Spec, *, max_bytes: int | None = None) -> Frame:
+    """The spec's data (a file larger than `max_bytes` is refused unread), refused if one
+    of its metrics cannot score the target."""
+    frame = load_frame(spec, max_bytes=max_bytes)
     for name in spec.metrics:
         problem = METRICS[name].target_problem(frame.y)
         if problem:
@@ -78,9 +80,13 @@ def load_checked(spec: Spec) -> Frame:
     return frame
 
 
-def prepare(spec: Spec) -> Prepared:
-    """Load and check the data and expand every model's grid; the plan follows on demand."""
-    prep = Prepared(spec, load_checked(spec))
+def prepare(spec: Spec, *, lift_limits: bool = False) -> Prepared:
+    """Check the plan's size, load and check the data and expand every model's grid; the
+    plan follows on demand. Limits (the spec's `limits`) hold unless `lift_limits`."""
+    check_limits(spec, lifted=lift_limits)
+    prep = Prepared(spec, load_checked(spec, max_bytes=data_limit_bytes(spec,
+                                                                         lifted=lift_limits)))
+    check_plan_memory(spec, plan_counts(spec, prep.frame)[0], lifted=lift_limits)
     prep.cells = expand_spec(spec, data_sha256=prep.frame.sha256,
                              plan_identity=plan_identity(spec),
                              resolve_path=_path_resolver(prep),

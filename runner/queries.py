@@ -130,8 +130,9 @@ def _check_metric(facts: SweepFacts, metric: str | None) -> str:
 
 
 def _unfinished(store: Store, sweep_id: str) -> bool:
+    """True while a sweep runs, or after it stopped before scoring everything."""
     status = store.query("select status from sweeps where sweep_id = ?", [sweep_id])
-    return str(status.iloc[0, 0]) != "finished"
+    return str(status.iloc[0, 0]) in ("running", "interrupted")
 
 
 # -- picks ---------------------------------------------------------------------------------
@@ -292,9 +293,10 @@ def summary(store: Store, sweep_id: str | None = None, *,
           on t.sweep_id = c.sweep_id and t.cell_id = c.cell_id and t.metric = s.metric
         order by z.first_row, s.metric""",
                        [chosen.table["cell_id"].tolist(), facts.sweep_id, facts.sweep_id])
-    if long.empty:
+    if long.empty:  # nothing picked (e.g. every fit failed): an empty table, facts intact
         table = pd.DataFrame(columns=["model", "family", "cells", "failed_cells", "cell_id",
-                                      "params", "rule"])
+                                      "params", "rule"] + [f"{part}_{m}" for m in facts.metrics
+                                                           for part in ("cv", "se", "test")])
         return Summary(facts, rule, table, chosen.unpicked, chosen.unfinished, chosen.varying)
     wide = long.pivot_table(index=["first_row", "model", "family", "cells", "failed_cells",
                                    "cell_id", "params"],

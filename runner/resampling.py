@@ -15,7 +15,10 @@ import pandas as pd
 from .errors import DataError
 
 __all__ = ["Plan", "Fold", "make_plan", "fold_seed", "refit_seed", "REFIT", "plan_identity",
-           "plan_counts"]
+           "plan_counts", "MIN_TEST_ROWS"]
+
+MIN_TEST_ROWS = 2
+"""The fewest test rows a plan may have: every metric, r2 included, needs two."""
 
 REFIT = -1
 """The `repeat` and `fold` number given to the refit on all training rows."""
@@ -117,9 +120,10 @@ def make_plan(spec, frame) -> Plan:
     is_test[test_rows] = True
     train_rows = np.flatnonzero(~is_test)
     k, r, seed = spec.folds.k, spec.folds.repeats, spec.folds.seed
-    if len(test_rows) == 0:
-        raise DataError("the test split is empty; set `test.fraction` larger, or mark some "
-                        "rows in the test file or column.")
+    if len(test_rows) < MIN_TEST_ROWS:
+        raise DataError(f"the test split has {len(test_rows)} row(s) of {len(frame.y)}; it needs "
+                        f"at least {MIN_TEST_ROWS} (r2 is undefined on one row). Set "
+                        "`test.fraction` larger, or mark more rows in the test file or column.")
     if len(train_rows) < 2 * k:
         raise DataError(f"only {len(train_rows)} training rows for {k} folds; each fold needs at "
                         f"least 2 rows to fit and 1 to score. Lower `folds.k` or supply more rows.")

@@ -6,6 +6,7 @@ one. Paths inside the spec resolve relative to the spec file."""
 from __future__ import annotations
 
 import hashlib
+import math
 from pathlib import Path
 from typing import Any, Literal
 
@@ -17,8 +18,20 @@ from .errors import SpecError
 from .families import FAMILIES, check_param_value, nearest
 from .metrics import METRICS
 
-__all__ = ["Spec", "ModelSpec", "load_spec", "parse_spec", "spec_json_schema", "LogRange",
-           "LinearRange", "PathRange"]
+__all__ = ["Spec", "ModelSpec", "Limits", "load_spec", "parse_spec", "spec_json_schema",
+           "LogRange", "LinearRange", "PathRange", "MAX_SPEC_BYTES", "MAX_DEPTH", "MAX_NODES",
+           "MAX_SEED", "MAX_RANGE_N"]
+
+MAX_SPEC_BYTES = 128 * 1024
+"""A spec file larger than this is refused unread (real specs are a few KiB)."""
+MAX_DEPTH = 32
+"""Deepest nesting of mappings and lists a spec may have (real specs use 4 or 5)."""
+MAX_NODES = 100_000
+"""Most values a spec may hold once every alias (*name) is expanded."""
+MAX_SEED = 2**32 - 1
+"""numpy's and scikit-learn's random_state take 0 ... 2**32 - 1."""
+MAX_RANGE_N = 1_000_000
+"""Most values one {log: ..., n: N} or {linear: ..., n: N} range, or {path: N}, may ask for."""
 
 
 class _Strict(BaseModel):
@@ -34,13 +47,30 @@ class DataSpec(_Strict):
     categorical: list[str] = Field(
         default_factory=list,
         description="columns treated as categories; text and boolean columns always are")
+    infinite: Literal["refuse", "missing"] = Field(
+        "refuse", description="infinite feature values: refuse the data (default) or treat "
+        "them as missing values")
+
+    @model_validator(mode="after")
+    def _roles_do_not_clash(self):
+        if self.target in self.categorical:
+            raise ValueError(f"the target '{self.target}' is listed in categorical; foldwise "
+                             "fits regression models, so the target must be a numeric column. "
+                             "Remove it from data.categorical")
+        both = [c for c in self.categorical if c in self.drop]
+        if both:
+            raise ValueError(f"column(s) {', '.join(map(repr, both))} are listed in both drop and "
+                             "categorical; a dropped column is never a feature, so remove it "
+                             "from one of the two lists")
+        return self
 
 
 class TestSplit(_Strict):
     """The held-out test rows: a random fraction, a separate file, or a boolean column."""
 
     fraction: float | None = Field(None, gt=0.0, lt=1.0, description="share of rows held out")
-    seed: int = Field(0, ge=0, description="random_state of the test split")
+    seed: int = Field(0, ge=0, le=MAX_SEED, description="random_state of the test split "
+                      "(0 ... 2**32 - 1)")
     file: str | None = Field(None, description="a separate test file with the same columns")
     column: str | None = Field(None, description="a boolean column: true marks test rows")
 
@@ -58,18 +88,26 @@ class FoldPlan(_Strict):
 
     k: int = Field(5, ge=2, description="folds per repeat")
     repeats: int = Field(1, ge=1, description="how many times the k folds are redrawn")
-    seed: int = Field(0, ge=0, description="random_state of the folds; estimator seeds derive from it")
+    seed: int = Field(0, ge=0, le=MAX_SEED, description="random_state of the folds "
+                      "(0 ... 2**32 - 1); estimator seeds derive from it")
+
+
+def _finite_bounds(v):
+    if not all(math.isfinite(b) for b in v):
+        raise ValueError(f"range bounds must be finite numbers, got {list(v)}")
+    return v
 
 
 class LogRange(_Strict):
     """`n` values spaced evenly on a log scale from lo to hi."""
 
     log: tuple[float, float]
-    n: int = Field(ge=1)
+    n: int = Field(ge=1, le=MAX_RANGE_N)
 
     @field_validator("log")
     @classmethod
     def _positive(cls, v):
+        _finite_bounds(v)
         if v[0] <= 0 or v[1] <= 0:
             raise ValueError(f"log range bounds must both be > 0, got {list(v)}")
         return v
@@ -79,13 +117,18 @@ class LinearRange(_Strict):
     """`n` values spaced evenly from lo to hi."""
 
     linear: tuple[float, float]
-    n: int = Field(ge=1)
+    n: int = Field(ge=1, le=MAX_RANGE_N)
+
+    @field_validator("linear")
+    @classmethod
+    def _finite(cls, v):
+        return _finite_bounds(v)
 
 
 class PathRange(_Strict):
     """`n` values spread along the cost-complexity pruning path (pruned_tree only)."""
 
-    path: int = Field(ge=1)
+    path: int = Field(ge=1, le=MAX_RANGE_N)
 
 
 _RANGE_FORMS = {"log": LogRange, "linear": LinearRange, "path": PathRange}
@@ -181,7 +224,8 @@ class PermutationPlan(_Strict):
     """How permutation importance shuffles each column on the test split."""
 
     repeats: int = Field(5, ge=1, description="shuffles per column")
-    seed: int = Field(0, ge=0, description="random_state of the shuffles")
+    seed: int = Field(0, ge=0, le=MAX_SEED, description="random_state of the shuffles "
+                      "(0 ... 2**32 - 1)")
 
 
 class ExplainPlan(_Strict):
@@ -190,6 +234,19 @@ class ExplainPlan(_Strict):
     cells: Literal["picked", "all", "none"] = Field(
         "picked", description="picked = each model's best and one-SE cells; all; or none")
     permutation: PermutationPlan = Field(default_factory=PermutationPlan)
+
+
+class Limits(_Strict):
+    """Ceilings on a sweep's size, checked by arithmetic before any data are read or any
+    array is built; raise one here, or lift them all with `--lift-limits`."""
+
+    cells: int = Field(10_000, ge=1, description="grid cells over all models")
+    folds: int = Field(500, ge=1, description="validation folds, k x repeats")
+    fits: int = Field(250_000, ge=1, description="fits: cells x (folds + 1 refit)")
+    data_mb: float = Field(1024.0, gt=0, description="size of the data file (and of the "
+                           "test file) in MiB")
+    plan_mb: float = Field(2048.0, gt=0, description="memory for the folds' row positions "
+                           "(8 bytes x training rows x folds), in MiB")
 
 
 class Spec(_Strict):
@@ -205,7 +262,10 @@ class Spec(_Strict):
     pick: Literal["best", "one_se"] = Field("one_se", description="the default pick rule")
     store: str | None = Field(None, description="DuckDB file, relative to the spec file, or "
                               "a team store's postgresql://USER@HOST[:PORT]/DATABASE")
-    jobs: int | None = Field(None, description="parallel workers; default all cores")
+    jobs: int | None = Field(None, ge=-1, description="parallel workers (-1 or none: every "
+                             "core; more than the cores available is capped)")
+    limits: Limits = Field(default_factory=Limits,
+                           description="ceilings on the sweep's size (see `foldwise check`)")
     explain: ExplainPlan = Field(default_factory=ExplainPlan,
                                  description="importances and tree stability after the sweep")
     models: dict[str, ModelSpec] = Field(min_length=1)
@@ -355,9 +415,70 @@ def _valid_keys(parent: tuple) -> list[str]:
     return list(model.model_fields)
 
 
+_FAST_LOADER = getattr(yaml, "CSafeLoader", yaml.SafeLoader)
+
+
+def _shape_problem(text: str) -> str | None:
+    """Why the YAML's shape is too costly to build (too deep, or aliases expanding too far),
+    found from the parser's events alone, before any node is composed; None if it is fine.
+
+    Each collection's size counts its expanded aliases, so `&a [...]` used many times inside
+    other anchors (an alias bomb) is caught while its total is still small. libyaml's parser
+    is used where installed (fast, not recursive); a document it rejects is scanned again by
+    the pure-Python one, whose syntax error the loader then reports with its line."""
+    try:
+        return _scan_events(yaml.parse(text, Loader=_FAST_LOADER))
+    except yaml.YAMLError:
+        pass
+    try:
+        return _scan_events(yaml.parse(text, Loader=yaml.SafeLoader))
+    except yaml.YAMLError:
+        return None
+
+
+def _scan_events(events) -> str | None:
+    sizes: dict[str, int] = {}  # anchor -> its expanded number of values
+    stack: list[list] = [[None, 0]]  # [anchor, expanded values so far] per open collection
+    for event in events:
+        if isinstance(event, (yaml.MappingStartEvent, yaml.SequenceStartEvent)):
+            stack.append([event.anchor, 1])
+            if len(stack) > MAX_DEPTH + 1:
+                return (f"at line {event.start_mark.line + 1} lists and mappings are nested "
+                        f"more than {MAX_DEPTH} deep; a spec needs 5 or 6 levels. Check the "
+                        "brackets and indentation")
+            continue
+        if isinstance(event, (yaml.MappingEndEvent, yaml.SequenceEndEvent)):
+            anchor, n = stack.pop()
+        elif isinstance(event, yaml.ScalarEvent):
+            anchor, n = event.anchor, 1
+        elif isinstance(event, yaml.AliasEvent):
+            if any(event.anchor == a for a, _ in stack):
+                return (f"at line {event.start_mark.line + 1} the alias *{event.anchor} refers "
+                        f"to a list or mapping that contains it, which never ends. Refer only "
+                        "to anchors defined outside")
+            anchor, n = None, sizes.get(event.anchor, 1)
+        else:
+            continue
+        if anchor is not None:
+            sizes[anchor] = n
+        stack[-1][1] += n
+        if stack[-1][1] > MAX_NODES:
+            return (f"at line {event.start_mark.line + 1} the document grows beyond "
+                    f"{MAX_NODES:,} values once its aliases (*name) are expanded; a spec needs "
+                    "far fewer. Write the values out, or reuse an anchor fewer times")
+    return None
+
+
 def parse_spec(text: str, *, source: Path | None = None) -> Spec:
     """Validate spec text; `source` (the file) is used for messages and relative paths."""
     where = f"spec {source}" if source else "the spec"
+    if len(text) > MAX_SPEC_BYTES:
+        raise SpecError(f"{where} is {len(text):,} characters long; foldwise reads specs of at "
+                        f"most {MAX_SPEC_BYTES // 1024} KiB. A spec lists models and grids, not "
+                        "data: put data in the file that `data.path` names.")
+    problem = _shape_problem(text)
+    if problem:
+        raise SpecError(f"{where} is refused before it is built: {problem}.")
     try:
         node = yaml.compose(text, Loader=yaml.SafeLoader)
         raw = yaml.load(text, Loader=_UniqueKeyLoader)
@@ -369,6 +490,10 @@ def parse_spec(text: str, *, source: Path | None = None) -> Spec:
         problem = getattr(exc, "problem", None) or str(exc).splitlines()[0]
         raise SpecError(f"{where} is not valid YAML{line}: {problem}. Check the indentation "
                         "and quoting near that line.") from None
+    except (ValueError, OverflowError) as exc:  # e.g. an integer with thousands of digits
+        first = (str(exc).splitlines() or [type(exc).__name__])[0].split(";")[0]
+        raise SpecError(f"{where} holds a value foldwise cannot read ({first}). Write numbers "
+                        "with at most a few dozen digits.") from None
     if not isinstance(raw, dict):
         raise SpecError(f"{where} must be a YAML mapping with keys such as name, data, test, "
                         f"folds, metrics and models; got {type(raw).__name__}.")
@@ -383,13 +508,20 @@ def parse_spec(text: str, *, source: Path | None = None) -> Spec:
 
 
 def load_spec(path: str | Path) -> Spec:
-    """Read and validate a spec file."""
+    """Read and validate a spec file (a regular file of at most MAX_SPEC_BYTES)."""
     path = Path(path)
     if not path.is_file():
-        raise SpecError(f"spec file {path} does not exist. Give the path of a YAML spec, "
+        what = "is not a regular file" if path.exists() else "does not exist"
+        raise SpecError(f"spec file {path} {what}. Give the path of a YAML spec, "
                         "e.g. specs/greenhouse.yaml.")
     try:
-        text = path.read_text(encoding="utf-8")
+        with open(path, "rb") as fh:
+            data = fh.read(MAX_SPEC_BYTES + 1)
+        if len(data) > MAX_SPEC_BYTES:
+            raise SpecError(f"spec file {path} is larger than {MAX_SPEC_BYTES // 1024} KiB, "
+                            "the most foldwise reads. A spec lists models and grids, not data: "
+                            "put data in the file that `data.path` names.")
+        text = data.decode("utf-8")
     except (OSError, UnicodeDecodeError) as exc:
         raise SpecError(f"spec file {path} cannot be read as UTF-8 text ({exc}). "
                         "Save it as UTF-8 YAML.") from None

@@ -47,3 +47,24 @@ def test_random_models_blocks(tmp_path, models):
     doc = {"name": "f", "data": {"path": "d.csv", "target": "y"}, "test": {"fraction": 0.2},
            "models": models}
     _check(tmp_path, yaml.safe_dump(doc))
+
+
+@settings(max_examples=150, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
+@given(st.text(alphabet="[]{}&*ab:, \n-|>'\"!9", max_size=300))
+def test_random_brackets_anchors_and_aliases(tmp_path, text):
+    """Nesting, anchors, aliases and tags in any order: refused or validated, never a crash."""
+    _check(tmp_path, text)
+
+
+@settings(max_examples=60, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
+@given(st.integers(1, 400), st.sampled_from(["flow list", "flow mapping", "block list"]))
+def test_deep_nesting_never_recurses(tmp_path, depth, form):
+    """Nesting of any depth, in any of YAML's forms, is refused or validated in one paragraph."""
+    if form == "flow list":
+        body = "name: " + "[" * depth + "x" + "]" * depth + "\n"
+    elif form == "flow mapping":
+        body = "name: " + "{a: " * depth + "x" + "}" * depth + "\n"
+    else:
+        body = "name:\n" + "".join("  " * (i + 1) + "-\n" for i in range(depth))
+        body += "  " * (depth + 1) + "x\n"
+    _check(tmp_path, body)

@@ -116,3 +116,77 @@ def test_json_schema_lists_fields_and_families():
     assert set(schema["required"]) >= {"name", "data", "test", "models"}
     assert "ccp_fraction" in schema["description"]
     json.dumps(schema)
+
+
+def test_anchors_and_aliases_within_bounds_still_work():
+    spec = parse_spec(BASE + "models:\n  a: {family: linear, grid: &g "
+                      "{penalty: l2, alpha: [0.1, 1.0]}}\n  b: {family: linear, grid: *g}\n")
+    assert spec.models["a"].grid == spec.models["b"].grid == {"penalty": ["l2"],
+                                                              "alpha": [0.1, 1.0]}
+
+
+def _nested(depth: int) -> str:
+    return BASE + "description: " + "[" * depth + "]" * depth + "\nmodels: {m: {family: linear}}\n"
+
+
+def test_nesting_depth_bound_is_exact():
+    from runner.spec import MAX_DEPTH
+
+    with pytest.raises(SpecError) as info:  # deep enough to be built, then wrong in type
+        parse_spec(_nested(MAX_DEPTH - 1))
+    assert "nested" not in str(info.value) and "description" in str(info.value)
+    with pytest.raises(SpecError, match=f"nested more than {MAX_DEPTH} deep"):
+        parse_spec(_nested(MAX_DEPTH))
+
+
+def test_alias_expansion_is_counted_before_building():
+    from runner.spec import MAX_NODES
+
+    # An anchored list of 1 000 values referred to k times expands to about 1 000·k values.
+    def doc(k):
+        return (BASE + "description: null\nx-values: &v [" + ", ".join(["1"] * 999) + "]\n"
+                "x-uses: [" + ", ".join(["*v"] * k) + "]\nmodels: {m: {family: linear}}\n")
+
+    with pytest.raises(SpecError) as info:
+        parse_spec(doc(50))  # about 51 000 values: built, then refused for the unknown field
+    assert "unknown field 'x-values'" in str(info.value)
+    with pytest.raises(SpecError, match=f"beyond {MAX_NODES:,} values once its aliases"):
+        parse_spec(doc(MAX_NODES // 1000 + 1))
+
+
+@pytest.mark.parametrize("field,value,ok", [
+    ("folds: {seed: %d}\n", 2**32 - 1, True), ("folds: {seed: %d}\n", 2**32, False),
+    ("test_seed", 2**32 - 1, True), ("test_seed", 2**40, False),
+])
+def test_seed_range(field, value, ok):
+    if field == "test_seed":
+        text = BASE.replace("{fraction: 0.2}", "{fraction: 0.2, seed: %d}" % value)
+    else:
+        text = BASE + field % value
+    text += "models: {m: {family: linear}}\n"
+    if ok:
+        parse_spec(text)
+    else:
+        with pytest.raises(SpecError, match="less than or equal to 4294967295"):
+            parse_spec(text)
+
+
+def test_limits_have_documented_defaults():
+    spec = _spec("models:\n  m: {family: linear}\n")
+    limits = spec.limits
+    assert (limits.cells, limits.folds, limits.fits, limits.data_mb, limits.plan_mb) == (
+        10_000, 500, 250_000, 1024.0, 2048.0)
+    assert "limits" in spec_json_schema()["properties"]
+
+
+def test_spec_file_must_be_a_small_regular_file(tmp_path):
+    import os
+
+    fifo = tmp_path / "spec.yaml"
+    os.mkfifo(fifo)
+    with pytest.raises(SpecError, match="is not a regular file"):
+        load_spec(fifo)
+    big = tmp_path / "big.yaml"
+    big.write_text(BASE + "models: {m: {family: linear}}\n" + "#" * (200 * 1024))
+    with pytest.raises(SpecError, match="larger than 128 KiB"):
+        load_spec(big)

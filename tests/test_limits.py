@@ -1,0 +1,182 @@
+"""The plan's size by arithmetic, its limits and how to lift them, the cap on worker
+processes, and the data checks that keep a sweep from succeeding wrongly."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+from click.testing import CliRunner
+
+from runner.budget import BYTES_PER_ROW, check_limits, plan_size
+from runner.cli import main
+from runner.data import MAX_MAGNITUDE, load_frame
+from runner.engine import prepare, resolve_jobs
+from runner.errors import DataError, SpecError
+from runner.spec import load_spec
+
+from .helpers import spec_from, write_spec
+
+ROOT = Path(__file__).resolve().parents[1]
+CORPUS = Path(__file__).parent / "bad_inputs"
+
+
+def invoke(*args):
+    return CliRunner().invoke(main, [str(a) for a in args])
+
+
+def test_arithmetic_size_matches_the_expanded_grid():
+    spec = load_spec(ROOT / "specs" / "greenhouse.yaml")
+    size = plan_size(spec)
+    assert size.cells == len(prepare(spec).cells) == 42
+    # 42 cells x (5 folds x 2 repeats + 1 refit); rows: x 10 folds x 3 metrics, x 3 metrics
+    assert (size.folds, size.fits, size.fold_rows, size.test_rows) == (10, 462, 1260, 126)
+    assert size.store_bytes == (1260 + 126) * BYTES_PER_ROW
+    assert size.estimate() == ("462 fits, 1,260 fold-score rows, 126 test-score rows, store "
+                               "about 166.3 KB (explain step not counted)")
+
+
+def test_int_range_counts_distinct_rounded_values(tmp_path):
+    spec = spec_from(tmp_path, "t: {family: pruned_tree, grid: {min_samples_leaf: "
+                               "{linear: [1, 10], n: 1000000}, max_depth: [2, 3]}}")
+    assert plan_size(spec).cells == 10 * 2  # 1..10 after rounding, no million-value array
+
+
+def test_check_prints_the_estimate_and_limits(tmp_path, diabetes_csv):
+    spec = write_spec(tmp_path, "ridge: {family: linear, grid: {penalty: l2, alpha: "
+                                "{log: [0.1, 100], n: 7}}}")
+    out = invoke("check", spec)
+    assert out.exit_code == 0, out.output
+    # 7 cells x (3 folds x 2 repeats + 1) = 49 fits; 7 x 6 x 3 = 126 fold rows; 21 test rows
+    assert "estimate     49 fits, 126 fold-score rows, 21 test-score rows, store about" in out.output
+    assert "limits       cells 10,000, folds 500, fits 250,000, data 1024 MiB" in out.output
+
+
+def test_spec_limits_raise_a_ceiling(tmp_path):
+    grid = "ridge: {family: linear, grid: {penalty: l2, alpha: {log: [0.1, 100], n: 20000}}}"
+    with pytest.raises(SpecError, match=r"20,000 cells .*\(limits\.cells\)"):
+        check_limits(spec_from(tmp_path, grid))
+    raised = spec_from(tmp_path, grid, extra="limits: {cells: 20000, fits: 200000}\n")
+    assert check_limits(raised).cells == 20000
+    assert check_limits(spec_from(tmp_path, grid), lifted=True).fits == 20000 * 7
+
+
+def test_lift_limits_flag_lets_a_large_plan_through(tmp_path):
+    case = CORPUS / "80_fits_over_limit"
+    (tmp_path / "_data").mkdir()
+    for f in (CORPUS / "_data").iterdir():
+        (tmp_path / "_data" / f.name).write_bytes(f.read_bytes())
+    (tmp_path / "case").mkdir()
+    spec = tmp_path / "case" / "spec.yaml"
+    spec.write_text((case / "spec.yaml").read_text())
+    assert invoke("check", spec).exit_code == 2
+    out = invoke("check", spec, "--lift-limits")
+    assert out.exit_code == 0, out.output
+    assert "2,505,000 fits" in out.output and "lifted (--lift-limits)" in out.output
+
+
+def test_plan_memory_limit(tmp_path, diabetes_csv):
+    spec = spec_from(tmp_path, "m: {family: linear}", extra="limits: {plan_mb: 0.001}\n")
+    with pytest.raises(DataError, match=r"limits\.plan_mb"):
+        prepare(spec)
+    assert len(prepare(spec, lift_limits=True).cells) == 1
+
+
+def test_data_size_limit_and_lifting_it(tmp_path, diabetes_csv):
+    spec = spec_from(tmp_path, "m: {family: linear}", extra="limits: {data_mb: 0.01}\n")
+    size = diabetes_csv.stat().st_size
+    with pytest.raises(DataError, match=f"has {size:,} bytes, more than the limit of 10,485 "):
+        prepare(spec)
+    assert len(prepare(spec, lift_limits=True).frame.y) == 442
+
+
+def test_jobs_are_capped_at_the_cores(monkeypatch):
+    import joblib
+
+    monkeypatch.setattr(joblib, "cpu_count", lambda *a, **k: 2)
+    assert resolve_jobs(None) == (-1, None) and resolve_jobs(-1) == (-1, None)
+    assert resolve_jobs(2) == (2, None)
+    n, note = resolve_jobs(6)
+    assert n == 2 and note == ("note: 6 workers asked for, but 2 cores are available here; "
+                               "starting 2 (--force-jobs starts 6 anyway).")
+    assert resolve_jobs(6, force=True) == (6, None)
+
+
+def test_run_says_once_that_jobs_were_capped(tmp_path, diabetes_csv):
+    import joblib
+
+    spec = write_spec(tmp_path, "ridge: {family: linear, grid: {penalty: l2, alpha: [1.0]}}")
+    cores = joblib.cpu_count()
+    out = invoke("run", spec, "--jobs", cores + 4, "--quiet")
+    assert out.exit_code == 0, out.output
+    note = (f"note: {cores + 4} workers asked for, but {cores} cores are available here; "
+            f"starting {cores}")
+    assert out.output.count(note) == 1
+
+
+def _frame(tmp_path, df: pd.DataFrame, data_fields: str = "", suffix: str = ".csv"):
+    path = tmp_path / f"d{suffix}"
+    df.to_csv(path, index=False) if suffix == ".csv" else df.to_parquet(path)
+    spec = tmp_path / "spec.yaml"
+    spec.write_text(f"name: t\ndata: {{path: {path.name}, target: progression{data_fields}}}\n"
+                    "test: {fraction: 0.25}\nmodels: {m: {family: linear}}\n")
+    return load_frame(load_spec(spec))
+
+
+def _data(n=20):
+    rng = np.random.default_rng(0)  # invented rows, for these checks only
+    return pd.DataFrame({"a": rng.normal(size=n), "b": rng.normal(size=n),
+                         "progression": rng.normal(size=n)})
+
+
+def test_infinite_features_can_be_read_as_missing(tmp_path):
+    df = _data()
+    df.loc[4, "a"] = np.inf
+    df.loc[7, "a"] = -np.inf
+    with pytest.raises(DataError, match=r"'a' has 2 infinite value\(s\), the first \(inf\) at "
+                                         r"line 6 of"):
+        _frame(tmp_path, df)
+    frame = _frame(tmp_path, df, ", infinite: missing")
+    assert np.flatnonzero(frame.X["a"].isna()).tolist() == [4, 7]
+    assert np.isfinite(frame.X["b"]).all()
+
+
+def test_parquet_rows_are_named_by_row_number(tmp_path):
+    df = _data()
+    df.loc[2, "b"] = -1e200
+    with pytest.raises(DataError, match=r"'b' has 1 value\(s\) beyond ±1e\+100, the first "
+                                         r"\(-1e\+200\) at row 3 of .*d\.parquet"):
+        _frame(tmp_path, df, suffix=".parquet")
+
+
+def test_large_but_safe_values_are_kept(tmp_path):
+    df = _data()
+    df["a"] *= MAX_MAGNITUDE / 10
+    df["progression"] *= 1e90
+    frame = _frame(tmp_path, df)
+    assert frame.X["a"].abs().max() <= MAX_MAGNITUDE and frame.y.std() > 1e89
+
+
+def test_text_with_commas_is_not_mistaken_for_grouped_numbers(tmp_path):
+    df = _data()
+    df["place"] = ["Lyon, FR", "Porto, PT"] * 10      # text with commas: a category
+    df["code"] = ["1,234", "abc"] * 10                 # not all numbers: a category
+    frame = _frame(tmp_path, df)
+    assert {"place", "code"} <= set(frame.categorical)
+    df = _data()
+    df["count"] = ["1,234", "56"] * 10
+    with pytest.raises(DataError, match="'count' .* thousands separators"):
+        _frame(tmp_path, df)
+    frame = _frame(tmp_path, df, ", categorical: [count]")  # the user says so
+    assert "count" in frame.categorical
+
+
+def test_two_test_rows_are_enough(tmp_path, diabetes_csv):
+    from runner.resampling import make_plan
+
+    spec = spec_from(tmp_path, "m: {family: linear}")
+    spec = spec.model_copy(update={"test": spec.test.model_copy(update={"fraction": 2 / 442})})
+    spec._source = tmp_path / "spec.yaml"
+    assert make_plan(spec, load_frame(spec)).n_test == 2
