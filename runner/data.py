@@ -11,7 +11,7 @@ import io
 import os
 import re
 import stat
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
@@ -158,8 +158,6 @@ class Frame:
     sha256: str
     source: Path
     test_mask: np.ndarray | None = None  # from a boolean test column, if any
-    n_file_rows: int = 0
-    extra: dict = field(default_factory=dict)
 
     @property
     def features(self) -> list[str]:
@@ -350,4 +348,4 @@ def load_frame(spec, *, max_bytes: int | None = None) -> Frame:
     X, numeric, cats = type_features(features, list(spec.data.categorical), path, rows=rows,
                                      infinite=spec.data.infinite)
     return Frame(X=X, y=y, numeric=numeric, categorical=cats, target=target, sha256=sha,
-                 source=path, test_mask=test_mask, n_file_rows=n_main)
+                 source=path, test_mask=test_mask)

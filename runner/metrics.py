@@ -66,10 +66,6 @@ class Metric:
         """An axis label naming the metric and its units."""
         return f"{prefix} {self.label} ({self.unit_text(target)})".strip()
 
-    def is_better(self, a: float, b: float) -> bool:
-        """True if score a is strictly better than score b."""
-        return a < b if self.better == "lower" else a > b
-
     @property
     def sign(self) -> float:
         """+1 when lower is better, −1 when higher is: sign × score sorts best first."""

@@ -325,9 +325,6 @@ class Spec(_Strict):
         p = Path(relative).expanduser()
         return p if p.is_absolute() else (self.base_dir / p)
 
-    @property
-    def primary_metric(self) -> str:
-        return self.metrics[0]
 
 
 class _UniqueKeyLoader(yaml.SafeLoader):

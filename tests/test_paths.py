@@ -10,13 +10,24 @@ from sklearn.tree import DecisionTreeRegressor
 from runner.families.paths import (
     _steps_for,
     elastic_net_path_coefs,
-    elastic_net_path_predictions,
     forest_prefix_predictions,
     pruned_tree_predictions,
     pruning_alphas,
     ridge_path_coefs,
-    ridge_path_predictions,
 )
+
+
+def _linear_predictions(coefs, intercepts, X_eval):
+    return np.stack([np.asarray(X_eval, dtype=np.float64) @ c + b
+                     for c, b in zip(coefs, intercepts)])
+
+
+def ridge_path_predictions(X_train, y_train, X_eval, alphas):
+    return _linear_predictions(*ridge_path_coefs(X_train, y_train, alphas), X_eval)
+
+
+def elastic_net_path_predictions(X_train, y_train, X_eval, alphas, **kw):
+    return _linear_predictions(*elastic_net_path_coefs(X_train, y_train, alphas, **kw), X_eval)
 
 
 def _friedman(n=700, p=8, seed=0):

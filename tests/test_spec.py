@@ -25,7 +25,7 @@ def _spec(extra: str):
 def test_minimal_spec_defaults():
     spec = _spec("models:\n  m: {family: linear}\n")
     assert spec.metrics == ["rmse", "mae", "r2"]
-    assert spec.primary_metric == "rmse"
+    assert spec.metrics[0] == "rmse"
     assert (spec.folds.k, spec.folds.repeats, spec.folds.seed) == (5, 1, 0)
     assert spec.pick == "one_se"
     assert spec.models["m"].grid == {}

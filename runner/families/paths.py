@@ -233,12 +233,6 @@ def _penalties(alphas):
     return alphas
 
 
-def _predict(coefs, intercepts, X_eval):
-    """Linear predictions for each (coef, intercept) row."""
-    X_eval = np.asarray(X_eval, dtype=np.float64)
-    return np.stack([X_eval @ c + b for c, b in zip(coefs, intercepts)])
-
-
 def ridge_path_coefs(X_train, y_train, alphas):
     """Ridge coefficients and intercepts for every alpha from one SVD of the centred design."""
     alphas = _penalties(alphas)
@@ -255,11 +249,6 @@ def ridge_path_coefs(X_train, y_train, alphas):
         coefs[i] = (Vt.T @ (d * UTy))[:, 0]
     intercepts = np.array([y_offset - X_offset @ c for c in coefs])
     return coefs, intercepts
-
-
-def ridge_path_predictions(X_train, y_train, X_eval, alphas):
-    """Ridge predictions on X_eval for every alpha, sharing one SVD."""
-    return _predict(*ridge_path_coefs(X_train, y_train, alphas), X_eval)
 
 
 def elastic_net_path_coefs(
@@ -283,13 +272,3 @@ def elastic_net_path_coefs(
     coefs = path_coefs.T[::-1][inverse]
     intercepts = np.array([y_offset - X_offset @ c for c in coefs])
     return coefs, intercepts
-
-
-def elastic_net_path_predictions(
-    X_train, y_train, X_eval, alphas, *, l1_ratio=1.0, tol=1e-4, max_iter=1000
-):
-    """Lasso / elastic-net predictions on X_eval for every alpha, from one path."""
-    coefs, intercepts = elastic_net_path_coefs(
-        X_train, y_train, alphas, l1_ratio=l1_ratio, tol=tol, max_iter=max_iter
-    )
-    return _predict(coefs, intercepts, X_eval)

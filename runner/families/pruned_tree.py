@@ -17,7 +17,7 @@ from sklearn.tree import DecisionTreeRegressor
 from ._readers import impurity_importance as own_importance
 from ._readers import tree_node_rows, tree_shape
 from ._base import CellFit, fit_grouped, tree_preprocessor, work_units
-from .paths import pruned_tree_predictions
+from .paths import pruned_tree_predictions, pruning_alphas
 
 __all__ = ["make_estimator", "fit_cells", "fit_units", "own_importance", "tree_shape",
            "tree_node_rows", "resolve_alpha", "pruning_path_alphas",
@@ -95,5 +95,4 @@ def pruning_path_alphas(params: dict, X, y, *, seed: int, numeric, categorical) 
     """The cost-complexity pruning path (effective alphas) of the unpruned tree on these rows."""
     prep = tree_preprocessor(numeric, categorical)
     Xt = prep.fit_transform(X, y)
-    tree = _tree(params, seed=seed, ccp_alpha=0.0)
-    return tree.cost_complexity_pruning_path(Xt, y).ccp_alphas
+    return pruning_alphas(_tree(params, seed=seed, ccp_alpha=0.0).fit(Xt, y))
