@@ -15,7 +15,8 @@ from typing import Sequence
 
 from .picks import corrected_variance
 
-__all__ = ["TTest", "corrected_t_test", "t_from_moments", "two_sided_p", "APPROXIMATE_NOTE"]
+__all__ = ["TTest", "corrected_t_test", "t_from_moments", "two_sided_p", "holm",
+           "APPROXIMATE_NOTE"]
 
 APPROXIMATE_NOTE = ("p-values from resampled folds are approximate: the folds share training "
                     "rows, so their scores are not independent. The corrected t-test widens "
@@ -76,3 +77,16 @@ def corrected_t_test(diffs: Sequence[float], *, n_train, n_valid) -> TTest:
 
 def _as_list(x, n: int) -> list[float]:
     return [float(x)] * n if isinstance(x, numbers.Real) else [float(v) for v in x]
+
+
+def holm(p_values: Sequence[float]) -> list[float]:
+    """Holm's step-down adjustment of p-values for several tests made together (Holm 1979):
+    the i-th smallest p times (m − i + 1), kept non-decreasing and at most 1; NaN stays NaN."""
+    known = [(p, i) for i, p in enumerate(p_values) if not math.isnan(p)]
+    m = len(known)
+    out = [math.nan] * len(p_values)
+    running = 0.0
+    for rank, (p, i) in enumerate(sorted(known)):
+        running = max(running, min(1.0, (m - rank) * p))
+        out[i] = running
+    return out

@@ -15,7 +15,7 @@ import socket
 
 import pandas as pd
 
-from .compare import APPROXIMATE_NOTE, t_from_moments
+from .compare import holm, t_from_moments
 from .errors import QueryError
 from .families import get_family, nearest
 from .picks import RULES, TOLERANCE, check_rule, check_se
@@ -394,8 +394,8 @@ _PAIRS_SQL = """
 """
 
 _PAIR_COLUMNS = ["model_a", "model_b", "cell_a", "cell_b", "metric", "folds", "mean_diff",
-                 "se", "t", "df", "p_value", "wins_a", "wins_b", "ties", "test_a", "test_b",
-                 "test_diff"]
+                 "se", "t", "df", "p_value", "p_holm", "wins_a", "wins_b", "ties", "test_a",
+                 "test_b", "test_diff"]
 
 
 def compare(store: Store, sweep_id: str | None = None, *, rule: str | None = None,
@@ -404,7 +404,8 @@ def compare(store: Store, sweep_id: str | None = None, *, rule: str | None = Non
 
     `rule` picks each model's cell (default: the sweep's rule) and `se` is the SE that rule
     uses; the comparison itself always uses the corrected variance. Differences are a − b on
-    `metric` (default: the sweep's first metric)."""
+    `metric` (default: the sweep's first metric); `p_holm` adjusts every pair's p for the
+    number of pairs compared (Holm 1979)."""
     check_rule(rule)
     check_se(se)
     facts = sweep_facts(store, sweep_id)
@@ -426,6 +427,8 @@ def compare(store: Store, sweep_id: str | None = None, *, rule: str | None = Non
                 "se": test.se, "t": test.t, "df": test.df, "p_value": test.p,
                 "wins_a": int(r.wins_a), "wins_b": int(r.wins_b), "ties": int(r.ties),
                 "test_a": r.test_a, "test_b": r.test_b, "test_diff": r.test_a - r.test_b})
+    for row, adjusted in zip(rows, holm([r["p_value"] for r in rows])):
+        row["p_holm"] = adjusted
     return Comparison(facts, rule, se, metric, pd.DataFrame(rows, columns=_PAIR_COLUMNS),
                       chosen.unpicked)
 

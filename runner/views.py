@@ -35,23 +35,54 @@ class View:
 
 
 # -- numbers and params as text --------------------------------------------------------------
+MINUS = "\u2212"
+"""Shown numbers use the typographic minus sign, in tables and sentences alike."""
+
+
+def _missing(value) -> bool:
+    return value is None or (isinstance(value, float) and math.isnan(value))
+
+
+def _minus(text: str) -> str:
+    return MINUS + text[1:] if text.startswith("-") else text
+
+
 def number(value, digits: int = 4) -> str:
-    """A number with `digits` significant digits, or '' when missing."""
-    if value is None or (isinstance(value, float) and math.isnan(value)):
+    """A number shown alone: `digits` significant digits, or '' when missing."""
+    if _missing(value):
         return ""
-    if isinstance(value, int) and not isinstance(value, bool):
-        return str(value)
+    if isinstance(value, (int,)) and not isinstance(value, bool):
+        return _minus(str(value))
     try:
-        return f"{float(value):.{digits}g}"
+        x = float(value)
     except (TypeError, ValueError):
         return str(value)
+    text = f"{x:.{digits}g}"
+    return _minus(text) if float(text) != 0 else text.lstrip("-")
+
+
+def decimals_for(se) -> int | None:
+    """Decimal places that show an SE to two significant digits (None: no usable SE)."""
+    if _missing(se) or not math.isfinite(float(se)) or float(se) == 0:
+        return None
+    return max(0, 1 - math.floor(math.log10(abs(float(se)))))
+
+
+def fixed(value, places: int) -> str:
+    """A number to a fixed number of decimal places, with the one minus sign."""
+    text = f"{float(value):.{places}f}"
+    return _minus(text) if float(text) != 0 else text.lstrip("-")
 
 
 def mean_se(mean, se, digits: int = 4) -> str:
-    """'mean ± se' for a table cell."""
-    if mean is None or (isinstance(mean, float) and math.isnan(mean)):
+    """'mean ± se': the SE to two significant digits and the mean to the same decimal
+    place (common practice), or `digits` significant digits when there is no usable SE."""
+    if _missing(mean):
         return ""
-    return f"{number(mean, digits)} ± {number(se, 2)}"
+    places = decimals_for(se)
+    if places is None or not math.isfinite(float(mean)):
+        return f"{number(mean, digits)} ± {number(se, 2)}"
+    return f"{fixed(mean, places)} ± {fixed(se, places)}"
 
 
 def p_text(p) -> str:
@@ -104,23 +135,22 @@ def cell_text(params, keep, leaves=None) -> str:
     return text
 
 
-def _signed(x: float, decimals: int) -> str:
-    text = f"{abs(x):.{decimals}f}"
-    return ("−" if x < 0 and float(text) != 0 else "") + text
-
-
-def _decimals(se: float) -> int:
-    """Decimals that show the SE to two significant digits."""
-    if not se or not math.isfinite(se):
-        return 3
-    return max(0, 1 - math.floor(math.log10(abs(se))))
-
-
 # -- sentences -----------------------------------------------------------------------------
+CLEAR_P = 0.05
+"""A paired difference is worded as clear when its p-value (Holm-adjusted when several
+pairs are compared) is below this (common practice); above it, as no clear difference."""
+
+
 def pair_sentence(model_a: str, model_b: str, *, metric: str, better: str, mean_diff: float,
-                  se: float, p: float, wins_a: int, wins_b: int, n: int) -> str:
-    """One plain sentence about a pair, e.g. 'forest beats ols on 10 of 10 folds; ...'."""
-    dec = _decimals(se)
+                  se: float, p: float, wins_a: int, wins_b: int, n: int,
+                  p_holm: float | None = None) -> str:
+    """One plain sentence about a pair, worded by the evidence: 'forest beats ols on 10 of 10
+    folds; ...' when the difference is clear, 'no clear difference between ...' when not."""
+    label = metric_label(metric)
+    places = decimals_for(se)
+    places = 3 if places is None else places
+    judged = p if p_holm is None else p_holm
+    p_part = p_text(p) + ("" if p_holm is None else f"; Holm-adjusted {p_text(p_holm)}")
     if mean_diff == 0 or math.isnan(mean_diff):
         return (f"{model_a} and {model_b} tie on average; {model_a} wins {wins_a} and "
                 f"{model_b} wins {wins_b} of {n} folds")
@@ -128,15 +158,21 @@ def pair_sentence(model_a: str, model_b: str, *, metric: str, better: str, mean_
     winner, loser = (model_a, model_b) if a_better else (model_b, model_a)
     wins = wins_a if a_better else wins_b
     diff = mean_diff if a_better else -mean_diff
-    return (f"{winner} beats {loser} on {wins} of {n} folds; mean {metric_label(metric)} "
-            f"difference {_signed(diff, dec)} ± {se:.{dec}f} ({p_text(p)})")
+    if judged is not None and judged < CLEAR_P:
+        return (f"{winner} beats {loser} on {wins} of {n} folds; mean {label} difference "
+                f"{fixed(diff, places)} ± {fixed(se, places)} ({p_part})")
+    return (f"no clear difference between {winner} and {loser}: {winner} is better on {wins} "
+            f"of {n} folds, mean {label} difference {fixed(diff, places)} ± "
+            f"{fixed(se, places)} ({p_part})")
 
 
 def pair_sentences(comparison: Comparison) -> list[str]:
-    """One sentence per compared pair."""
+    """One sentence per compared pair (Holm-adjusted p when there are several pairs)."""
+    several = len(comparison.table) > 1
     return [pair_sentence(r.model_a, r.model_b, metric=comparison.metric,
                           better=comparison.better, mean_diff=r.mean_diff, se=r.se,
-                          p=r.p_value, wins_a=r.wins_a, wins_b=r.wins_b, n=r.folds)
+                          p=r.p_value, wins_a=r.wins_a, wins_b=r.wins_b, n=r.folds,
+                          p_holm=r.p_holm if several else None)
             for r in comparison.table.itertuples(index=False)]
 
 
@@ -222,6 +258,7 @@ def compare_view(result: Comparison) -> View:
         f"CV {metric_label(m)} a − b (mean ± SE)": [mean_se(d, e) for d, e in
                                                     zip(df["mean_diff"], df["se"])],
         "t": df["t"].map(number), "p": df["p_value"].map(p_text),
+        "Holm p": df["p_holm"].map(p_text),
         "folds won a : b": [f"{a} : {b}" for a, b in zip(df["wins_a"], df["wins_b"])],
         f"test {metric_label(m)} a − b": df["test_diff"].map(number)})
     n = result.facts.n_folds
@@ -229,8 +266,11 @@ def compare_view(result: Comparison) -> View:
              f"folds, CV {metric_label(m)} ({result.better} is better); corrected resampled "
              f"t-test, df = {n - 1}")
     numeric = [c for c in shown.columns if c != "pair (a − b)"]
+    tests = (f"note: {len(df)} pairwise tests were made; 'Holm p' adjusts each p for all of "
+             "them (Holm 1979), and a difference is called clear only when that is below "
+             f"{CLEAR_P:g}.",) if len(df) > 1 else ()
     return View(title, shown, tuple(numeric), sentences=tuple(pair_sentences(result)),
-                notes=(f"note: {APPROXIMATE_NOTE}",)
+                notes=(f"note: {APPROXIMATE_NOTE}",) + tests
                 + unpicked_notes(result.unpicked, unfinished=False))
 
 

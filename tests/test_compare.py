@@ -12,7 +12,7 @@ from click.testing import CliRunner
 from scipy import stats
 
 from runner.cli import main
-from runner.compare import APPROXIMATE_NOTE, corrected_t_test, t_from_moments
+from runner.compare import APPROXIMATE_NOTE, corrected_t_test, holm, t_from_moments
 from runner.errors import QueryError
 from runner.queries import compare as read_compare
 from runner.views import compare_view, pair_sentence as in_words, pair_sentences
@@ -64,6 +64,15 @@ def test_zero_variance(diffs, t, p):
     assert (test.t, test.p) == (t, p)
 
 
+def test_holm_worked_example():
+    # Holm's step-down rule worked by hand: sorted p 0.005, 0.01, 0.03, 0.04 times 4, 3, 2, 1
+    # = 0.02, 0.03, 0.06, 0.04, made non-decreasing: 0.02, 0.03, 0.06, 0.06.
+    assert holm([0.01, 0.04, 0.03, 0.005]) == pytest.approx([0.03, 0.06, 0.06, 0.02])
+    assert holm([0.5, 0.9]) == [1.0, 1.0]
+    got = holm([0.2, float("nan")])
+    assert got[0] == 0.2 and math.isnan(got[1])
+
+
 def test_needs_two_folds():
     with pytest.raises(ValueError, match="at least 2 paired folds, got 1"):
         corrected_t_test([1.0], n_train=8, n_valid=2)
@@ -76,6 +85,12 @@ def test_in_words():
     assert in_words("a", "b", metric="r2", better="higher", mean_diff=0.031, se=0.0042,
                     p=0.0002, wins_a=10, wins_b=0, n=10) == (
         "a beats b on 10 of 10 folds; mean R² difference 0.0310 ± 0.0042 (p < 0.001)")
+    assert in_words("ols", "ridge", metric="rmse", better="lower", mean_diff=-0.012, se=0.020,
+                    p=0.58, wins_a=6, wins_b=4, n=10) == (
+        "no clear difference between ols and ridge: ols is better on 6 of 10 folds, mean RMSE "
+        "difference −0.012 ± 0.020 (p ≈ 0.58)")
+    assert in_words("a", "b", metric="rmse", better="lower", mean_diff=-1.0, se=0.2, p=0.01,
+                    wins_a=9, wins_b=1, n=10, p_holm=0.06).startswith("no clear difference")
     assert in_words("a", "b", metric="rmse", better="lower", mean_diff=0.0, se=0.0, p=1.0,
                     wins_a=0, wins_b=0, n=4) == "a and b tie on average; a wins 0 and b wins 0 of 4 folds"
 
@@ -116,8 +131,19 @@ def test_compare_pairs_identical_folds(three_models):
                                                       int((d == 0).sum()))
     first = df.iloc[0]
     assert first["test_diff"] == pytest.approx(5.2 - 4.4)
+    # p ≈ 0.11 on 6 folds: worded as no clear difference, not as a win
     assert pair_sentences(result)[0].startswith(
-        "b beats a on 5 of 6 folds; mean RMSE difference −")
+        "no clear difference between b and a: b is better on 5 of 6 folds, mean RMSE "
+        "difference −")
+    # Holm (1979) over the three pairs, recomputed here by hand from the raw p-values
+    raw = df["p_value"].tolist()
+    order = np.argsort(raw)
+    expected = np.empty(3)
+    running = 0.0
+    for rank, i in enumerate(order):
+        running = max(running, min(1.0, (3 - rank) * raw[i]))
+        expected[i] = running
+    assert df["p_holm"].tolist() == pytest.approx(expected.tolist(), rel=1e-12)
     assert compare_view(result).notes[0] == f"note: {APPROXIMATE_NOTE}" and result.rule == "best"
 
 
@@ -140,7 +166,8 @@ def test_compare_higher_is_better(tmp_path):
     result = read_compare(store)
     row = result.table.iloc[0]
     assert (row.wins_a, row.wins_b) == (3, 1)
-    assert pair_sentences(result)[0].startswith("x beats y on 3 of 4 folds; mean R² difference 0.")
+    assert pair_sentences(result)[0].startswith(
+        "no clear difference between x and y: x is better on 3 of 4 folds, mean R² difference 0.")
 
 
 def test_compare_errors_and_single_model(tmp_path):
