@@ -507,29 +507,14 @@ def plot(kind, store_path, sweep_id, model, rule, method, depth, se, out_dir, im
       foldwise plot complexity --model tree --image png
       foldwise plot importance --method impurity --out-dir figures
     """
-    from pathlib import Path
-
-    from .plots import make_figure, save_figure
+    from .plots import write_plots
 
     if model is not None and kind not in ("complexity", "tree"):
         raise click.UsageError("--model is only for the complexity and tree kinds.")
-    store = _open_store(store_path)
-    sid = store.resolve_sweep(sweep_id)
-    if kind == "complexity":
-        models = [model] if model else store.query(
-            "select model from cells where sweep_id = ? group by model order by min(position)",
-            [sid])["model"].tolist()
-        jobs = [(dict(model=m, se=se), f"{kind}-{m}") for m in models]
-    elif kind == "tree":
-        jobs = [(dict(rule=rule, model=model, depth=depth), kind)]
-    elif kind == "importance":
-        jobs = [(dict(rule=rule, method=method), f"{kind}-{method}")]
-    else:
-        jobs = [(dict(rule=rule), kind)]
-    for options, name in jobs:
-        fig = make_figure(kind, store, sid, **options)
-        for path in save_figure(fig, Path(out_dir) / f"{sid}-{name}", images or ("png", "svg")):
-            click.echo(str(path))
+    for path in write_plots(kind, _open_store(store_path), out_dir, sweep_id, model=model,
+                            rule=rule, method=method, depth=depth, se=se,
+                            formats=images or ("png", "svg")):
+        click.echo(str(path))
 
 
 @main.command()
@@ -548,11 +533,11 @@ def report(store_path, sweep_id, out_path, se):
       foldwise report
       foldwise report --sweep 20261202 --out report.html
     """
-    from .report import write_report
+    from .report import report_path, write_report
 
     store = _open_store(store_path)
     sid = store.resolve_sweep(sweep_id)
-    path = write_report(store, out_path or f"results/report-{sid}.html", sid, se=se)
+    path = write_report(store, out_path or report_path(sid), sid, se=se)
     click.echo(f"{path} ({path.stat().st_size / 1024:.0f} KiB)")
 
 

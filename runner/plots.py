@@ -23,13 +23,14 @@ import pandas as pd
 from .errors import QueryError
 from .explain import importance_table, prediction_table, tree_node_table
 from .families import FAMILIES
+from .filenames import inside, safe_component, safe_names
 from .output import number, params_text
 from .picks import check_rule, complexity_table, picks, sweep_facts
 from .store import Store
 
 __all__ = ["KINDS", "PALETTE", "make_figure", "complexity_figure", "models_figure",
            "importance_figure", "predictions_figure", "tree_figure", "save_figure",
-           "figure_svg", "model_colours", "metric_label"]
+           "write_plots", "figure_svg", "model_colours", "metric_label"]
 
 PALETTE = ["#0072B2", "#E69F00", "#009E73", "#CC79A7", "#56B4E9", "#D55E00", "#F0E442",
            "#000000"]
@@ -436,15 +437,51 @@ def make_figure(kind: str, store: Store, sweep_id: str | None = None, **options)
 
 
 def save_figure(fig, stem: Path, formats=("png", "svg"), *, dpi: int = 150) -> list[Path]:
-    """Write the figure as `stem.<format>` for each format; return the paths."""
+    """Write the figure as `stem.<format>` for each format (the format is appended, so a
+    dot in the stem stays); return the paths. Each file must resolve inside stem's folder."""
     stem = Path(stem)
     stem.parent.mkdir(parents=True, exist_ok=True)
     paths = []
     with _style():
         for fmt in formats:
-            path = stem.with_suffix(f".{fmt}")
+            path = inside(stem.parent, f"{stem.name}.{fmt}")
             fig.savefig(path, format=fmt, dpi=dpi, metadata=_metadata(fmt))
             paths.append(path)
+    return paths
+
+
+def write_plots(kind: str, store: Store, out_dir: str | Path, sweep_id: str | None = None, *,
+                model: str | None = None, rule: str | None = None,
+                method: str = "permutation", depth: int = 3, se: str = "plain",
+                formats=("png", "svg")) -> list[Path]:
+    """Draw one kind of figure of a sweep into `out_dir` and return the files written:
+    `<sweep id>-<kind>[-<model or method>].<format>`, one figure per model for
+    `complexity` unless `model` is given.
+
+    The sweep id and model labels come from the store, which others may have written, so
+    each becomes a safe file-name component (runner/filenames.py) and every file must
+    resolve inside `out_dir`. Labels are named from all of the sweep's models at once,
+    so a model's file name is the same whether or not `model` is given."""
+    if kind not in KINDS:
+        raise QueryError(f"unknown plot kind {kind!r}; kinds: {', '.join(KINDS)}.")
+    sid = store.resolve_sweep(sweep_id)
+    if kind == "complexity":
+        every = store.query("select model from cells where sweep_id = ? group by model "
+                            "order by min(position)", [sid])["model"].tolist()
+        models = [model] if model is not None else every
+        names = safe_names([*every, *models])
+        jobs = [(dict(model=m, se=se), f"{kind}-{names[m]}") for m in models]
+    elif kind == "tree":
+        jobs = [(dict(rule=rule, model=model, depth=depth), kind)]
+    elif kind == "importance":
+        jobs = [(dict(rule=rule, method=method), f"{kind}-{safe_component(method)}")]
+    else:
+        jobs = [(dict(rule=rule), kind)]
+    folder = Path(out_dir)
+    paths: list[Path] = []
+    for options, name in jobs:
+        fig = make_figure(kind, store, sid, **options)
+        paths += save_figure(fig, folder / f"{safe_component(sid)}-{name}", formats)
     return paths
 
 

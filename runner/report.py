@@ -16,6 +16,7 @@ import pandas as pd
 from .compare import compare
 from .errors import FoldwiseError
 from .explain import METHODS, importance_table, tree_fold_table
+from .filenames import inside, safe_component
 from .output import mean_se, number, params_text
 from .picks import complexity_table, picks, sweep_facts, varying_params
 from .plots import (complexity_figure, figure_svg, importance_figure, metric_label,
@@ -24,7 +25,8 @@ from .queries import summary
 from .stability import stability_summary
 from .store import Store
 
-__all__ = ["report_context", "render_report", "write_report", "decision", "CAUTIONS"]
+__all__ = ["report_context", "render_report", "write_report", "report_path", "decision",
+           "CAUTIONS"]
 
 CAUTIONS = [
     "Cross-validated scores are estimates with their own noise, not guarantees. The standard "
@@ -323,6 +325,12 @@ def render_report(store: Store, sweep_id: str | None = None, *, se: str = "plain
                       autoescape=select_autoescape(["html", "j2"]), undefined=StrictUndefined,
                       trim_blocks=True, lstrip_blocks=True)
     return env.get_template("report.html.j2").render(**report_context(store, sweep_id, se=se))
+
+
+def report_path(sweep_id: str, folder: str | Path = "results") -> Path:
+    """The default report file of a sweep, `<folder>/report-<sweep id>.html`; the sweep id
+    comes from the store, so it is made a safe file-name component kept inside `folder`."""
+    return inside(folder, f"report-{safe_component(sweep_id)}.html")
 
 
 def write_report(store: Store, out: str | Path, sweep_id: str | None = None, *,
