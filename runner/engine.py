@@ -427,7 +427,7 @@ def run_sweep(spec: Spec, *, store: Store | None = None, jobs: int | None = None
             flush()
             from .explain import explain_sweep  # importances, tree stability, test predictions
             explain_sweep(spec, store, sweep_id, prepared=prep, jobs=n_jobs, reuse=not fresh,
-                          executor=executor)
+                          executor=executor, before_refits=hold.close if quick else None)
         except KeyboardInterrupt:
             status = "interrupted"
             flush()
