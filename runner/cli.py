@@ -193,10 +193,7 @@ def _print_summary(store, sweep_id, fmt):
              f"{df.attrs.get('rule')}) by CV {df.attrs.get('primary_metric')}")
     emit(df, fmt, title=title, display=display)
     if fmt == "table":
-        for model in df.attrs.get("unpicked", []):
-            click.echo(f"note: model '{model}' has no cell to pick: every cell has a failed "
-                       "fit or missing folds (see `foldwise sql \"select * from failures\"`).",
-                       err=True)
+        _notes(store, df)
 
 
 @main.command()
@@ -311,11 +308,12 @@ def _se_option(f):
                              "sqrt((1/(k·r) + n_valid/n_train)·sd²).")(f)
 
 
-def _warn_unpicked(df) -> None:
-    for model in df.attrs.get("unpicked", []):
-        click.echo(f"warning: model '{model}' has no cell with all folds scored and no failed "
-                   "fits, so nothing was picked; see `foldwise path --model "
-                   f"{model}`.", err=True)
+def _notes(store, df, model=None) -> None:
+    """What limits the picks (a sweep still running, models without a pick), on stderr."""
+    from .picks import pick_notes
+
+    for line in pick_notes(store, df.attrs.get("sweep_id"), model=model):
+        click.echo(f"note: {line}", err=True)
 
 
 def _cell_text(params, keep, leaves) -> str:
@@ -379,7 +377,7 @@ def pick(store_path, sweep_id, rule, model, se, fmt):
             row["within 1 SE"] = f"{group['n_within'].iloc[0]} of {group['eligible'].iloc[0]}"
         shown.append(row)
     emit(df, fmt, title=title, display=pd.DataFrame(shown))
-    _warn_unpicked(df)
+    _notes(store, df, model)
 
 
 @main.command()
@@ -402,7 +400,8 @@ def compare(store_path, sweep_id, rule, metric, se, fmt):
 
     from .compare import compare as compare_df
 
-    df = compare_df(_open_store(store_path), sweep_id, rule=rule, se=se, metric=metric)
+    store = _open_store(store_path)
+    df = compare_df(store, sweep_id, rule=rule, se=se, metric=metric)
     a = df.attrs
     m = a["metric"]
 
@@ -423,7 +422,7 @@ def compare(store_path, sweep_id, rule, metric, se, fmt):
         click.echo(note)
     else:
         click.echo(note, err=True)
-    _warn_unpicked(df)
+    _notes(store, df)
 
 
 @main.command()

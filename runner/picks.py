@@ -19,7 +19,8 @@ from .store import Store
 
 __all__ = ["RULES", "SE_KINDS", "TOLERANCE", "best_index", "one_se_index", "one_se_threshold",
            "corrected_variance", "standard_error", "picks", "cell_stats", "sweep_facts",
-           "check_rule", "check_se", "complexity_table", "shown_params", "varying_params"]
+           "check_rule", "check_se", "complexity_table", "shown_params", "varying_params",
+           "pick_notes"]
 
 RULES = ("best", "one_se")
 SE_KINDS = ("plain", "corrected")
@@ -263,6 +264,71 @@ def picks(store: Store, sweep_id: str | None = None, *, rule: str | None = None,
     df = df.drop(columns=["model_row", "unpicked"]).reset_index(drop=True)
     df.attrs.update(facts, default_rule=facts["rule"], rules=rules, se=se, unpicked=unpicked)
     return df
+
+
+# -- what the picks could not use, in words ----------------------------------------------
+def _count(n: int, one: str, many: str) -> str:
+    return f"{n} {one if n == 1 else many}"
+
+
+def pick_notes(store: Store, sweep_id: str | None = None, *,
+               model: str | None = None) -> list[str]:
+    """Plain sentences on what limits a sweep's picks: a sweep still running or stopped
+    early (its picks are among the cells finished so far), and for each model without a
+    pick whether its cells are unfinished, have failed fits or a non-finite score.
+
+    Unfinished is not failed: a cell that simply has not been scored yet is said to be so,
+    and the sweep's status says why (still running, interrupted, or failed). `model`
+    limits the notes to one model's cells."""
+    from .queries import sweep_status
+
+    facts = sweep_facts(store, sweep_id)
+    sid, n_folds = facts["sweep_id"], facts["n_folds"]
+    status = sweep_status(store, sid)
+    counts = store.query(f"""with {_CELLS_SQL}
+        select model, count(*) as cells,
+               count(*) filter (where excluded is null) as complete,
+               count(*) filter (where excluded = 'failed fits') as failed,
+               count(*) filter (where excluded = 'incomplete') as unfinished,
+               count(*) filter (where excluded = 'non-finite score') as non_finite
+        from judged group by model order by min(model_row)""",
+                         [sid, facts["metric"], "plain", model, TOLERANCE])
+    notes = []
+    if status != "finished":
+        done, total = int(counts["complete"].sum()), int(counts["cells"].sum())
+        now = {"running": "is still running", "interrupted": "was interrupted"}.get(
+            status, "stopped with an error")
+        then = (" so far." if status == "running" else
+                "; running the spec again completes only what is missing.")
+        if done:
+            notes.append(f"sweep {sid} {now}: {done} of {total} cells have all {n_folds} "
+                         f"folds scored, and the picks are made among those{then}")
+        else:
+            notes.append(f"sweep {sid} {now}: none of its {_count(total, 'cell', 'cells')} "
+                         f"has all {n_folds} folds scored{then.replace(' so far', ' yet')}")
+    unfinished = {
+        "running": ("is not finished yet", "are not finished yet"),
+        "interrupted": ("was not finished when the sweep was interrupted",
+                        "were not finished when the sweep was interrupted"),
+        "failed": ("was not finished when the sweep stopped with an error",
+                   "were not finished when the sweep stopped with an error"),
+    }.get(status, ("lacks fold scores", "lack fold scores"))
+    for r in counts[counts["complete"] == 0].itertuples(index=False):
+        parts = []
+        if r.failed:
+            parts.append(_count(r.failed, "has a failed fit", "have a failed fit"))
+        if r.unfinished:
+            parts.append(_count(r.unfinished, *unfinished))
+        if r.non_finite:
+            parts.append(_count(r.non_finite, "has a non-finite mean score",
+                                "have a non-finite mean score"))
+        text = (f"model '{r.model}' has no cell to pick{' yet' if status == 'running' else ''}"
+                f": of its {_count(r.cells, 'cell', 'cells')}, {' and '.join(parts)}.")
+        if r.failed:
+            text += (f" `foldwise sql \"select * from failures where sweep_id = '{sid}'\"` "
+                     "shows the errors.")
+        notes.append(text)
+    return notes
 
 
 # -- the complexity table ------------------------------------------------------------------

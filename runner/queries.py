@@ -10,7 +10,7 @@ import pandas as pd
 
 from .store import Store
 
-__all__ = ["sweeps", "summary", "cell_table"]
+__all__ = ["sweeps", "summary", "cell_table", "sweep_status", "process_alive"]
 
 
 def sweeps(store: Store) -> pd.DataFrame:
@@ -26,11 +26,25 @@ def sweeps(store: Store) -> pd.DataFrame:
                (select count(*) from fold_scores f where f.sweep_id = s.sweep_id) as fold_rows,
                s.data_sha256[1:12] as data, s.host, s.pid
         from sweeps s order by s.started_at desc, s.sweep_id desc""")
-    here = socket.gethostname()
-    dead = (df["status"] == "running") & (df["host"] == here) & ~df["pid"].map(
-        lambda pid: pid is not None and pid == pid and process_alive(int(pid)))
-    df.loc[dead, "status"] = "interrupted"
+    df["status"] = [_status(*row) for row in zip(df["status"], df["host"], df["pid"])]
     return df.drop(columns=["host", "pid"])
+
+
+def _status(status, host, pid) -> str:
+    """The stored status, except that a 'running' sweep whose process on this host is gone
+    is 'interrupted' (on another host there is no telling, so it stays 'running')."""
+    if status == "running" and host == socket.gethostname() and (
+            pd.isna(pid) or not process_alive(int(pid))):
+        return "interrupted"
+    return str(status)
+
+
+def sweep_status(store: Store, sweep_id: str) -> str:
+    """How a sweep stands: 'running', 'finished', 'failed' or 'interrupted' (a sweep still
+    marked running whose process on this host has gone counts as interrupted)."""
+    row = store.query("select status, host, pid from sweeps where sweep_id = ?",
+                      [sweep_id]).iloc[0]
+    return _status(row["status"], row["host"], row["pid"])
 
 
 def process_alive(pid: int) -> bool:
@@ -98,8 +112,15 @@ def summary(store: Store, sweep_id: str | None = None, *,
         left join test_scores t
           on t.sweep_id = c.sweep_id and t.cell_id = c.cell_id and t.metric = s.metric
         order by z.first_row, s.metric""", [chosen["cell_id"].tolist(), sweep_id, sweep_id])
-    if long.empty:
-        return pd.DataFrame(columns=["model", "family", "cells", "cell_id", "params", "rule"])
+    facts = dict(sweep_id=sweep_id, primary_metric=primary, metrics=metrics, rule=rule,
+                 unpicked=chosen.attrs.get("unpicked", []))
+    ordered = ["model", "family", "cells", "failed_cells", "cell_id", "params", "rule"]
+    for m in metrics:
+        ordered += [f"cv_{m}", f"se_{m}", f"test_{m}"]
+    if long.empty:  # no model has a cell to pick (yet): the facts still say which sweep
+        empty = pd.DataFrame(columns=ordered)
+        empty.attrs.update(facts)
+        return empty
     wide = long.pivot_table(index=["first_row", "model", "family", "cells", "failed_cells",
                                    "cell_id", "params"],
                             columns="metric", values=["mean", "se", "test"], aggfunc="first")
@@ -112,11 +133,7 @@ def summary(store: Store, sweep_id: str | None = None, *,
         else:
             flat[col] = {"mean": "cv_", "se": "se_", "test": "test_"}[name] + metric
     out.columns = [flat[c] for c in out.columns]
-    ordered = ["model", "family", "cells", "failed_cells", "cell_id", "params"]
-    for m in metrics:
-        ordered += [f"cv_{m}", f"se_{m}", f"test_{m}"]
     out = out[[c for c in ordered if c in out.columns]].reset_index(drop=True)
     out.insert(6, "rule", rule)
-    out.attrs.update(sweep_id=sweep_id, primary_metric=primary, metrics=metrics, rule=rule,
-                     unpicked=chosen.attrs.get("unpicked", []))
+    out.attrs.update(facts)
     return out
