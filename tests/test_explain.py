@@ -270,7 +270,8 @@ def test_sigkill_during_explain_keeps_finished_cells_whole_and_the_rerun_reuses_
     from .helpers import diabetes_frame, write_spec
 
     diabetes_frame().to_csv(tmp_path / "diabetes.csv", index=False)
-    spec_path = write_spec(tmp_path, KILL_MODELS, explain="all")
+    spec_path = write_spec(tmp_path, KILL_MODELS,
+                           extra="explain: {cells: all, permutation: {repeats: 2, seed: 5}}\n")
     store_path = tmp_path / "killed.duckdb"
     proc = subprocess.Popen([sys.executable, "-c", SWEEP_SCRIPT, str(spec_path),
                              str(store_path)])
