@@ -192,7 +192,7 @@ def _show(result, view, fmt) -> None:
     """Print a result: its view as a table, or its exact table as CSV or JSON; remarks go
     to stderr, so that CSV and JSON stay clean."""
     emit(result.table, fmt, view=view)
-    for note in view.notes:
+    for note in (view.notes if fmt == "table" else view.caveats + view.notes):
         click.echo(note, err=True)
 
 
@@ -420,15 +420,13 @@ def plot(kind, store_path, sweep_id, model, rule, method, depth, se, out_dir, im
       foldwise plot complexity --model tree --image png
       foldwise plot importance --method impurity --out-dir figures
     """
-    from .plots import write_figures
+    from .plots import write_plots
 
     if model is not None and kind not in ("complexity", "tree"):
         raise click.UsageError("--model is only for the complexity and tree kinds.")
-    options = {"complexity": dict(model=model, se=se), "tree": dict(rule=rule, model=model,
-                                                                     depth=depth),
-               "importance": dict(rule=rule, method=method)}.get(kind, dict(rule=rule))
-    for path in write_figures(kind, _open_store(store_path), out_dir, sweep_id,
-                              formats=images or ("png", "svg"), **options):
+    for path in write_plots(kind, _open_store(store_path), out_dir, sweep_id, model=model,
+                            rule=rule, method=method, depth=depth, se=se,
+                            formats=images or ("png", "svg")):
         click.echo(str(path))
 
 
@@ -448,11 +446,11 @@ def report(store_path, sweep_id, out_path, se):
       foldwise report
       foldwise report --sweep 20261202 --out report.html
     """
-    from .report import write_report
+    from .report import report_path, write_report
 
     store = _open_store(store_path)
     sid = store.resolve_sweep(sweep_id)
-    path = write_report(store, out_path or f"results/report-{sid}.html", sid, se=se)
+    path = write_report(store, out_path or report_path(sid), sid, se=se)
     click.echo(f"{path} ({path.stat().st_size / 1024:.0f} KiB)")
 
 

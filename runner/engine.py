@@ -378,7 +378,7 @@ def run_sweep(spec: Spec, *, store: Store | None = None, jobs: int | None = None
             if counts["fold"] == 0 and counts["failed"]:
                 raise SweepFailed(_all_failed(sweep_id, counts["failed"], why, store.path))
             explain_sweep(spec, store, sweep_id, prepared=prep, jobs=n_jobs, reuse=not fresh,
-                          executor=executor)
+                          executor=executor, before_refits=hold.close if quick else None)
         except KeyboardInterrupt:
             status = "interrupted"
             flush()

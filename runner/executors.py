@@ -5,18 +5,25 @@ finish; it never learns which.
 A task is `work(*args, **kwargs)` with the arguments that `unpack(data, item)` builds from
 the sweep's shared data and one light task description. Locally each task's rows are cut
 from the data in this process as the task is sent; on a cluster the data travel to every
-worker once (scattered) and each worker cuts its own task's rows."""
+worker once (scattered) and each worker cuts its own task's rows.
+
+Workers never outlive the process that started them: a local worker watches its parent
+and exits when it is gone (even after a `kill -9`, which no exit handler sees), and Dask's
+own local workers already do the same."""
 
 from __future__ import annotations
 
 import logging
+import os
+import threading
+import time
 import warnings
 from typing import Any, Callable, Iterable, Iterator
 
 from .errors import FoldwiseError
 
 __all__ = ["LocalExecutor", "DaskExecutor", "make_executor", "ClusterError",
-           "package_versions"]
+           "package_versions", "watch_parent"]
 
 Unpack = Callable[[dict, Any], tuple[tuple, dict]]
 
@@ -27,8 +34,28 @@ class ClusterError(FoldwiseError, RuntimeError):
     exit_code = 2
 
 
+PARENT_CHECK_SECONDS = 0.2
+"""How often a local worker looks whether the process that started it is still there."""
+
+
+def watch_parent(parent: int, interval: float = PARENT_CHECK_SECONDS) -> None:
+    """Worker initializer: end this process once `parent` is no longer its parent.
+
+    A process whose parent dies is handed to another (init or a subreaper), so its parent
+    id changes; a daemon thread notices within `interval` seconds, even while the worker
+    is in the middle of a fit, and exits at once (the parent is gone: no one is waiting for
+    the result). Parent ids behave so on Linux and macOS."""
+    def watch():
+        while os.getppid() == parent:
+            time.sleep(interval)
+        os._exit(1)
+
+    threading.Thread(target=watch, name="foldwise-watch-parent", daemon=True).start()
+
+
 class LocalExecutor:
-    """joblib worker processes on this machine (`jobs`: -1 = every core)."""
+    """joblib worker processes on this machine (`jobs`: -1 = every core), each of which
+    exits when this process is gone (`watch_parent`)."""
 
     name = "local"
 
@@ -49,11 +76,14 @@ class LocalExecutor:
 
     def results(self, work: Callable, data: dict, items: Iterable, unpack: Unpack) -> Iterator:
         """Each item's result, in the order the tasks finish."""
-        from joblib import Parallel, delayed
+        from joblib import Parallel, delayed, parallel_config
 
         calls = (unpack(data, item) for item in items)
-        runner = Parallel(n_jobs=self.jobs, return_as="generator_unordered")
-        yield from runner(delayed(work)(*args, **kw) for args, kw in calls)
+        with parallel_config(backend="loky", initializer=watch_parent,
+                             initargs=(os.getpid(),)):
+            results = Parallel(n_jobs=self.jobs, return_as="generator_unordered")(
+                delayed(work)(*args, **kw) for args, kw in calls)
+        yield from results
 
 
 def _on_worker(work: Callable, unpack: Unpack, data: dict, item):

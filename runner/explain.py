@@ -178,16 +178,17 @@ def _settings(spec) -> str:
 
 def _reuse(store: Store, sweep_id: str, cell_ids: list[str], settings: str) -> list[str]:
     """Copy the explain rows of cells already explained with these settings by an earlier
-    sweep into this one (one transaction); return the cells copied."""
+    sweep, finished or not, into this one (one transaction); return the cells copied.
+    `reused_from` names the sweep that computed them, as for scores."""
     # settings are compared here, not in SQL: a server cannot compare its JSON column to text
     found = store.query("""
-        select cell_id, sweep_id, settings::varchar as settings from explained
+        select cell_id, sweep_id as source, coalesce(reused_from, sweep_id) as origin,
+               settings::varchar as settings from explained
         where sweep_id <> ? and list_contains(?::varchar[], cell_id)""", [sweep_id, cell_ids])
     found = found[found["settings"] == settings]
     if found.empty:
         return []
-    found = found.groupby("cell_id", as_index=False)["sweep_id"].min().rename(
-        columns={"sweep_id": "source"})
+    found = found.sort_values(["cell_id", "source"]).drop_duplicates("cell_id")
     pairs = [f"{a}|{b}" for a, b in zip(found["source"], found["cell_id"])]
     batch = {}
     for table in EXPLAIN_TABLES:
@@ -196,7 +197,7 @@ def _reuse(store: Store, sweep_id: str, cell_ids: list[str], settings: str) -> l
                            [pairs])
         batch[table] = rows.assign(sweep_id=sweep_id)
     batch["explained"] = pd.DataFrame({"sweep_id": sweep_id, "cell_id": found["cell_id"],
-                                       "settings": settings, "reused_from": found["source"]})
+                                       "settings": settings, "reused_from": found["origin"]})
     store.write_batch(batch)
     return found["cell_id"].tolist()
 
@@ -204,14 +205,18 @@ def _reuse(store: Store, sweep_id: str, cell_ids: list[str], settings: str) -> l
 def explain_sweep(spec, store: Store, sweep_id: str, *, prepared=None, jobs: int | None = None,
                   cells: str | None = None, reuse: bool = True,
                   progress: Callable[[int, int], None] | None = None,
-                  executor=None) -> ExplainResult:
+                  executor=None,
+                  before_refits: Callable[[], None] | None = None) -> ExplainResult:
     """Refit the sweep's chosen cells per fold and on all training rows; store what they show.
 
-    `cells` overrides the spec's `explain.cells`; `prepared` reuses `engine.prepare(spec)`.
+    `cells` overrides the spec's `explain.cells`; `prepared` reuses `prepare(spec)`.
     A cell explained before with the same settings (first metric, permutation repeats and
-    seed) has its rows copied instead, unless `reuse` is False. Each cell's rows are written
-    in one transaction. The refits run on `executor` (the sweep's: local processes or a
-    Dask cluster), else on local processes."""
+    seed) has its rows copied instead, unless `reuse` is False; that includes the cells an
+    interrupted sweep finished. Each cell's rows are written in one transaction as soon as
+    its refit and fold refits are back, so a sweep stopped during this step keeps every
+    cell it finished. The refits run on `executor` (the sweep's: local processes or a Dask
+    cluster), else on local processes. `before_refits` is called once, before the first
+    refit is sent (the engine lets go of a store connection it held for copying)."""
     which = cells or spec.explain.cells
     chosen = chosen_cells(store, sweep_id, which)
     result = ExplainResult()
@@ -237,14 +242,16 @@ def explain_sweep(spec, store: Store, sweep_id: str, *, prepared=None, jobs: int
                 refit=dict(seed=refit_seed(plan.seed), metric=spec.metrics[0],
                            repeats=perm.repeats, perm_seed=perm.seed),
                 common=dict(numeric=frame.numeric, categorical=frame.categorical))
-    tasks = []
+    tasks, pending = [], {}
     for c in chosen.itertuples(index=False):
         params = json.loads(c.params) if isinstance(c.params, str) else dict(c.params)
-        cost = get_family(c.family).explain_cost  # slowest first, so workers finish together
-        tasks.append((-2 * cost, (c.family, c.cell_id, params, None)))
-        for f in plan.folds:
-            tasks.append((-cost, (c.family, c.cell_id, params, f)))
-    tasks = [t for _, t in sorted(tasks, key=lambda pair: pair[0])]
+        cell = [(c.family, c.cell_id, params, None), *((c.family, c.cell_id, params, f)
+                                                       for f in plan.folds)]
+        tasks.append((-get_family(c.family).explain_cost, cell))
+        pending[c.cell_id] = len(cell)
+    # the costliest cells first, so workers finish together; a cell's tasks side by side,
+    # so cells finish (and are stored) one after another rather than all at the end
+    tasks = [t for _, cell in sorted(tasks, key=lambda pair: pair[0]) for t in cell]
     per_cell: dict[str, dict[str, list]] = {}
     failed: set[str] = set()
     done = 0
@@ -254,29 +261,39 @@ def explain_sweep(spec, store: Store, sweep_id: str, *, prepared=None, jobs: int
         from .executors import LocalExecutor
 
         executor = LocalExecutor(jobs or spec.jobs or -1)
+    if before_refits is not None:
+        before_refits()
     for cell_id, rows, problem in executor.results(_explain_task, data, tasks, _explain_call):
         done += 1
         if progress:
             progress(done, len(tasks))
+        pending[cell_id] -= 1
         if problem:
             result.problems.append(problem)
             failed.add(cell_id)
-            continue
-        bucket = per_cell.setdefault(cell_id, {})
-        for table, table_rows in rows.items():
-            bucket.setdefault(table, []).extend(table_rows)
-    for cell_id, tables in per_cell.items():
-        if cell_id in failed:  # a cell is stored whole or not at all
-            continue
-        dfs = {t: pd.DataFrame(rows).assign(sweep_id=sweep_id) for t, rows in tables.items()
-               if rows}
-        dfs["explained"] = pd.DataFrame([{"sweep_id": sweep_id, "cell_id": cell_id,
-                                          "settings": settings, "reused_from": None}])
-        if "importances" in dfs:
-            dfs["importances"] = _spreads(dfs["importances"], dfs.get("fold_importances",
-                                                                      pd.DataFrame()))
-        store.write_batch(dfs)
-        result.cells += 1
-        for t, df in dfs.items():
-            result.rows[t] = result.rows.get(t, 0) + len(df)
+        else:
+            bucket = per_cell.setdefault(cell_id, {})
+            for table, table_rows in rows.items():
+                bucket.setdefault(table, []).extend(table_rows)
+        if not pending[cell_id]:  # the cell's refit and fold refits are all back
+            tables = per_cell.pop(cell_id, {})
+            if cell_id not in failed:  # a cell is stored whole or not at all
+                _store_cell(store, sweep_id, cell_id, tables, settings, result)
     return result
+
+
+def _store_cell(store: Store, sweep_id: str, cell_id: str, tables: dict[str, list],
+                settings: str, result: ExplainResult) -> None:
+    """Write one explained cell's rows and its `explained` mark in one transaction, so a
+    sweep stopped at any moment keeps every cell it finished, each of them whole."""
+    dfs = {t: pd.DataFrame(rows).assign(sweep_id=sweep_id) for t, rows in tables.items()
+           if rows}
+    dfs["explained"] = pd.DataFrame([{"sweep_id": sweep_id, "cell_id": cell_id,
+                                      "settings": settings, "reused_from": None}])
+    if "importances" in dfs:
+        dfs["importances"] = _spreads(dfs["importances"], dfs.get("fold_importances",
+                                                                  pd.DataFrame()))
+    store.write_batch(dfs)
+    result.cells += 1
+    for t, df in dfs.items():
+        result.rows[t] = result.rows.get(t, 0) + len(df)

@@ -64,3 +64,5 @@ def emit(df: pd.DataFrame, fmt: str, *, view: View | None = None, title: str | N
     if view is not None:
         for line in view.sentences:
             out.write(f"  {line}\n")
+        for line in view.caveats:
+            out.write(f"{line}\n")

@@ -21,6 +21,7 @@ import pandas as pd
 
 from .errors import QueryError
 from .families import get_family
+from .filenames import inside, safe_component, safe_names
 from .metrics import get_metric, metric_label
 from .picks import check_rule
 from .queries import (complexity_table, importance_table, model_order, picked_fold_scores,
@@ -31,7 +32,7 @@ from .views import number, params_text, rule_label
 
 __all__ = ["KINDS", "PALETTE", "make_figure", "complexity_figure", "models_figure",
            "importance_figure", "predictions_figure", "tree_figure", "save_figure",
-           "figure_svg", "model_colours", "write_figures"]
+           "figure_svg", "model_colours", "write_plots"]
 
 PALETTE = ["#0072B2", "#E69F00", "#009E73", "#CC79A7", "#56B4E9", "#D55E00", "#F0E442",
            "#000000"]
@@ -412,35 +413,49 @@ def make_figure(kind: str, store: Store, sweep_id: str | None = None, **options)
     return KINDS[kind](store, sweep_id=sweep_id, **options)
 
 
-def write_figures(kind: str, store: Store, folder, sweep_id: str | None = None, *,
-                  formats=("png", "svg"), **options) -> list[Path]:
-    """Draw one kind of figure of a sweep into `folder` and return the files written:
-    one figure per model for `complexity` without a model, else one figure."""
-    facts = sweep_facts(store, sweep_id)
-    sid = facts.sweep_id
+def write_plots(kind: str, store: Store, out_dir: str | Path, sweep_id: str | None = None, *,
+                model: str | None = None, rule: str | None = None,
+                method: str = "permutation", depth: int = 3, se: str = "plain",
+                formats=("png", "svg")) -> list[Path]:
+    """Draw one kind of figure of a sweep into `out_dir` and return the files written:
+    `<sweep id>-<kind>[-<model or method>].<format>`, one figure per model for
+    `complexity` unless `model` is given.
+
+    The sweep id and model labels come from the store, which others may have written, so
+    each becomes a safe file-name component (runner/filenames.py) and every file must
+    resolve inside `out_dir`. Labels are named from all of the sweep's models at once,
+    so a model's file name is the same whether or not `model` is given."""
+    if kind not in KINDS:
+        raise QueryError(f"unknown plot kind {kind!r}; kinds: {', '.join(KINDS)}.")
+    sid = store.resolve_sweep(sweep_id)
     if kind == "complexity":
-        model = options.pop("model", None)
-        models = [model] if model else model_order(store, sid)
-        jobs = [(dict(model=m, **options), f"{kind}-{m}") for m in models]
+        every = model_order(store, sid)
+        models = [model] if model is not None else every
+        names = safe_names([*every, *models])
+        jobs = [(dict(model=m, se=se), f"{kind}-{names[m]}") for m in models]
+    elif kind == "tree":
+        jobs = [(dict(rule=rule, model=model, depth=depth), kind)]
     elif kind == "importance":
-        jobs = [(options, f"{kind}-{options.get('method', 'permutation')}")]
+        jobs = [(dict(rule=rule, method=method), f"{kind}-{safe_component(method)}")]
     else:
-        jobs = [(options, kind)]
-    paths = []
-    for opts, name in jobs:
-        paths += save_figure(make_figure(kind, store, sid, **opts), Path(folder) / f"{sid}-{name}",
-                             formats)
+        jobs = [(dict(rule=rule), kind)]
+    folder = Path(out_dir)
+    paths: list[Path] = []
+    for options, name in jobs:
+        fig = make_figure(kind, store, sid, **options)
+        paths += save_figure(fig, folder / f"{safe_component(sid)}-{name}", formats)
     return paths
 
 
 def save_figure(fig, stem: Path, formats=("png", "svg"), *, dpi: int = 150) -> list[Path]:
-    """Write the figure as `stem.<format>` for each format; return the paths."""
+    """Write the figure as `stem.<format>` for each format (the format is appended, so a
+    dot in the stem stays); return the paths. Each file must resolve inside stem's folder."""
     stem = Path(stem)
     stem.parent.mkdir(parents=True, exist_ok=True)
     paths = []
     with _style():
         for fmt in formats:
-            path = stem.with_suffix(f".{fmt}")
+            path = inside(stem.parent, f"{stem.name}.{fmt}")
             fig.savefig(path, format=fmt, dpi=dpi, metadata=_metadata(fmt))
             paths.append(path)
     return paths

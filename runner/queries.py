@@ -26,7 +26,7 @@ from .store import Store
 __all__ = ["sweeps", "sweep_facts", "summary", "cell_stats", "picks", "complexity_table",
            "compare", "importance_table", "prediction_table", "tree_node_table",
            "tree_fold_table", "stability_table", "model_order", "picked_fold_scores",
-           "varying_params", "sweep_record", "process_alive"]
+           "varying_params", "sweep_record", "sweep_status", "coverage", "process_alive"]
 
 
 # -- sweeps ------------------------------------------------------------------------------
@@ -129,10 +129,13 @@ def _check_metric(facts: SweepFacts, metric: str | None) -> str:
     return metric
 
 
-def _unfinished(store: Store, sweep_id: str) -> bool:
-    """True while a sweep runs, or after it stopped before scoring everything."""
-    status = store.query("select status from sweeps where sweep_id = ?", [sweep_id])
-    return str(status.iloc[0, 0]) in ("running", "interrupted")
+def sweep_status(store: Store, sweep_id: str) -> str:
+    """How a sweep stands: 'running', 'finished', 'failed' or 'interrupted' (a sweep still
+    marked running whose process on this host has gone counts as interrupted)."""
+    row = store.query("select status, host, pid from sweeps where sweep_id = ?",
+                      [sweep_id]).iloc[0]
+    return "interrupted" if row["status"] == "running" and not _alive_here(row) else \
+        str(row["status"])
 
 
 # -- picks ---------------------------------------------------------------------------------
@@ -256,11 +259,25 @@ def picks(store: Store, sweep_id: str | None = None, *, rule: str | None = None,
         left join test_scores t on t.sweep_id = $1 and t.cell_id = p.cell_id and t.metric = $2
         where list_contains($6::varchar[], p.rule)
         order by j.model_row, p.rule""", [*args, rules])
-    unpicked = store.query(f"""with {_CELLS_SQL}
-        select model from eligible where eligible = 0 order by model""", args)["model"]
     df = df.drop(columns=["model_row"]).reset_index(drop=True)
-    return Picks(facts, tuple(rules), se, df, tuple(unpicked),
-                 _unfinished(store, facts.sweep_id), varying_params(store, facts.sweep_id))
+    return Picks(facts, tuple(rules), se, df, coverage(store, facts, model=model),
+                 varying_params(store, facts.sweep_id))
+
+
+def coverage(store: Store, facts: SweepFacts, *, model: str | None = None):
+    """Per model (or one model): its cells, and how many are complete, have a failed fit,
+    are unfinished or have a non-finite mean; with the sweep's status."""
+    from .results import Coverage
+
+    counts = store.query(f"""with {_CELLS_SQL}
+        select model, count(*) as cells,
+               count(*) filter (where excluded is null) as complete,
+               count(*) filter (where excluded = 'failed fits') as failed,
+               count(*) filter (where excluded = 'incomplete') as unfinished,
+               count(*) filter (where excluded = 'non-finite score') as non_finite
+        from judged group by model order by min(model_row)""",
+                         [facts.sweep_id, facts.metric, "plain", model, TOLERANCE])
+    return Coverage(sweep_status(store, facts.sweep_id), counts)
 
 
 def summary(store: Store, sweep_id: str | None = None, *,
@@ -297,7 +314,7 @@ def summary(store: Store, sweep_id: str | None = None, *,
         table = pd.DataFrame(columns=["model", "family", "cells", "failed_cells", "cell_id",
                                       "params", "rule"] + [f"{part}_{m}" for m in facts.metrics
                                                            for part in ("cv", "se", "test")])
-        return Summary(facts, rule, table, chosen.unpicked, chosen.unfinished, chosen.varying)
+        return Summary(facts, rule, table, chosen.coverage, chosen.varying)
     wide = long.pivot_table(index=["first_row", "model", "family", "cells", "failed_cells",
                                    "cell_id", "params"],
                             columns="metric", values=["mean", "se", "test"], aggfunc="first")
@@ -311,7 +328,7 @@ def summary(store: Store, sweep_id: str | None = None, *,
         ordered += [f"cv_{m}", f"se_{m}", f"test_{m}"]
     out = out[[c for c in ordered if c in out.columns]].reset_index(drop=True)
     out.insert(6, "rule", rule)
-    return Summary(facts, rule, out, chosen.unpicked, chosen.unfinished, chosen.varying)
+    return Summary(facts, rule, out, chosen.coverage, chosen.varying)
 
 
 # -- the complexity table ------------------------------------------------------------------
@@ -430,7 +447,7 @@ def compare(store: Store, sweep_id: str | None = None, *, rule: str | None = Non
     for row, adjusted in zip(rows, holm([r["p_value"] for r in rows])):
         row["p_holm"] = adjusted
     return Comparison(facts, rule, se, metric, pd.DataFrame(rows, columns=_PAIR_COLUMNS),
-                      chosen.unpicked)
+                      chosen.coverage)
 
 
 def picked_fold_scores(store: Store, sweep_id: str, metric: str,

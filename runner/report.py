@@ -12,6 +12,7 @@ from pathlib import Path
 import pandas as pd
 
 from .errors import FoldwiseError
+from .filenames import inside, safe_component
 from .metrics import get_metric, metric_label
 from .plots import (complexity_figure, figure_svg, importance_figure, model_colours,
                     models_figure, predictions_figure, tree_figure)
@@ -22,7 +23,7 @@ from .views import (METHODS, STABILITY_COLUMNS, TREE_FOLD_COLUMNS, View, columns
                     compare_view, complexity_view, decision, importance_matrix, number,
                     picks_view, stability_sentences, summary_view)
 
-__all__ = ["report_context", "render_report", "write_report", "CAUTIONS"]
+__all__ = ["report_context", "render_report", "write_report", "report_path", "CAUTIONS"]
 
 CAUTIONS = [
     "Cross-validated scores are estimates with their own noise, not guarantees. The standard "
@@ -130,7 +131,7 @@ def report_context(store: Store, sweep_id: str | None = None, *, se: str = "plai
         "picks": _html(picks_shown), "picks_title": picks_shown.title,
         "compare": _html(compare_shown), "compare_title": compare_shown.title,
         "compare_words": list(compare_shown.sentences),
-        "compare_note": compare_shown.notes[0].removeprefix("note: "),
+        "compare_note": " ".join(c.removeprefix("note: ") for c in compare_shown.caveats),
         "compare_rule": pairs.rule,
         "complexity": complexity,
         "importance": {k: _html(v) for k, v in importance_matrix(imp, rule_picks.table).items()},
@@ -149,6 +150,12 @@ def render_report(store: Store, sweep_id: str | None = None, *, se: str = "plain
                       autoescape=select_autoescape(["html", "j2"]), undefined=StrictUndefined,
                       trim_blocks=True, lstrip_blocks=True)
     return env.get_template("report.html.j2").render(**report_context(store, sweep_id, se=se))
+
+
+def report_path(sweep_id: str, folder: str | Path = "results") -> Path:
+    """The default report file of a sweep, `<folder>/report-<sweep id>.html`; the sweep id
+    comes from the store, so it is made a safe file-name component kept inside `folder`."""
+    return inside(folder, f"report-{safe_component(sweep_id)}.html")
 
 
 def write_report(store: Store, out: str | Path, sweep_id: str | None = None, *,

@@ -9,8 +9,8 @@ from dataclasses import dataclass, field
 
 import pandas as pd
 
-__all__ = ["SweepFacts", "Summary", "CellStats", "Picks", "ComplexityTable", "Comparison",
-           "Importances", "Stability"]
+__all__ = ["SweepFacts", "Coverage", "Summary", "CellStats", "Picks", "ComplexityTable",
+           "Comparison", "Importances", "Stability"]
 
 
 @dataclass(frozen=True)
@@ -40,6 +40,20 @@ class SweepFacts:
 
 
 @dataclass(frozen=True)
+class Coverage:
+    """How far a sweep's cells got, per model: what limits its picks. A cell is complete
+    (every fold scored, no failed fit, a finite mean), failed, unfinished or non-finite."""
+
+    status: str  # 'running', 'finished', 'failed' or 'interrupted'
+    table: pd.DataFrame  # model, cells, complete, failed, unfinished, non_finite
+
+    @property
+    def unpicked(self) -> tuple[str, ...]:
+        """Models without a single complete cell, so without a pick."""
+        return tuple(self.table.loc[self.table["complete"] == 0, "model"])
+
+
+@dataclass(frozen=True)
 class Summary:
     """One row per model: its picked cell under `rule`, CV mean ± SE and test score per
     metric (columns cv_<m>, se_<m>, test_<m>)."""
@@ -47,9 +61,12 @@ class Summary:
     facts: SweepFacts
     rule: str
     table: pd.DataFrame
-    unpicked: tuple[str, ...] = ()
-    unfinished: bool = False  # the sweep is still running, or stopped before it ended
+    coverage: Coverage
     varying: dict = field(default_factory=dict)  # model -> the params its grid varies
+
+    @property
+    def unpicked(self) -> tuple[str, ...]:
+        return self.coverage.unpicked
 
 
 @dataclass(frozen=True)
@@ -76,9 +93,12 @@ class Picks:
     rules: tuple[str, ...]
     se: str
     table: pd.DataFrame
-    unpicked: tuple[str, ...] = ()
-    unfinished: bool = False
+    coverage: Coverage
     varying: dict = field(default_factory=dict)  # model -> the params its grid varies
+
+    @property
+    def unpicked(self) -> tuple[str, ...]:
+        return self.coverage.unpicked
 
 
 @dataclass(frozen=True)
@@ -117,11 +137,15 @@ class Comparison:
     se: str
     metric: str
     table: pd.DataFrame
-    unpicked: tuple[str, ...] = ()
+    coverage: Coverage
 
     @property
     def better(self) -> str:
         return self.facts.better_of(self.metric)
+
+    @property
+    def unpicked(self) -> tuple[str, ...]:
+        return self.coverage.unpicked
 
 
 @dataclass(frozen=True)

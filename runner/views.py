@@ -6,18 +6,18 @@ from __future__ import annotations
 
 import json
 import math
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 
 import pandas as pd
 
 from .compare import APPROXIMATE_NOTE
 from .families import get_family
 from .metrics import metric_label
-from .results import Comparison, ComplexityTable, Picks, Summary
+from .results import Comparison, ComplexityTable, Coverage, Picks, Summary
 
 __all__ = ["View", "number", "mean_se", "params_text", "p_text", "value_text", "rule_label",
            "cell_text", "pair_sentence", "pair_sentences", "summary_view", "picks_view",
-           "compare_view", "complexity_view", "unpicked_notes", "decision", "Decision",
+           "compare_view", "complexity_view", "coverage_notes", "decision", "Decision",
            "stability_sentences", "columns_view", "importance_matrix", "METHODS"]
 
 
@@ -30,8 +30,8 @@ class View:
     table: pd.DataFrame
     numeric: tuple[str, ...] = ()
     sentences: tuple[str, ...] = ()  # printed under the table
-    notes: tuple[str, ...] = ()  # remarks for stderr on a terminal
-    warnings: tuple[str, ...] = field(default=())
+    caveats: tuple[str, ...] = ()  # under the table too; on stderr beside CSV or JSON
+    notes: tuple[str, ...] = ()  # what limits the result, always on stderr
 
 
 # -- numbers and params as text --------------------------------------------------------------
@@ -176,15 +176,53 @@ def pair_sentences(comparison: Comparison) -> list[str]:
             for r in comparison.table.itertuples(index=False)]
 
 
-def unpicked_notes(unpicked, *, unfinished: bool) -> tuple[str, ...]:
-    """Why a model has no pick: its cells have failed fits, or the sweep has not finished."""
-    if unfinished:
-        return tuple(f"model '{m}' has no cell with every fold scored yet: the sweep has not "
-                     "finished (it is running, or stopped early; `foldwise sweeps` tells)."
-                     for m in unpicked)
-    return tuple(f"model '{m}' has no cell to pick: every cell has a failed fit or missing "
-                 f"folds (see `foldwise path --model {m}` and `foldwise sql \"select * from "
-                 "failures\"`)." for m in unpicked)
+def _count(n: int, one: str, many: str) -> str:
+    return f"{n} {one if n == 1 else many}"
+
+
+def coverage_notes(coverage: Coverage, sweep_id: str, n_folds: int) -> tuple[str, ...]:
+    """Plain sentences on what limits a sweep's picks: a sweep still running or stopped
+    early (its picks are among the cells finished so far), and for each model without a
+    pick whether its cells are unfinished, have failed fits or a non-finite score.
+    Unfinished is not failed: a cell not scored yet is said to be so."""
+    status, counts = coverage.status, coverage.table
+    notes = []
+    if status != "finished":
+        done, total = int(counts["complete"].sum()), int(counts["cells"].sum())
+        now = {"running": "is still running", "interrupted": "was interrupted"}.get(
+            status, "stopped with an error")
+        then = (" so far." if status == "running" else
+                "; running the spec again completes only what is missing.")
+        if done:
+            notes.append(f"sweep {sweep_id} {now}: {done} of {total} cells have all "
+                         f"{n_folds} folds scored, and the picks are made among those{then}")
+        else:
+            notes.append(f"sweep {sweep_id} {now}: none of its "
+                         f"{_count(total, 'cell', 'cells')} has all {n_folds} folds scored"
+                         f"{then.replace(' so far', ' yet')}")
+    unfinished = {
+        "running": ("is not finished yet", "are not finished yet"),
+        "interrupted": ("was not finished when the sweep was interrupted",
+                        "were not finished when the sweep was interrupted"),
+        "failed": ("was not finished when the sweep stopped with an error",
+                   "were not finished when the sweep stopped with an error"),
+    }.get(status, ("lacks fold scores", "lack fold scores"))
+    for r in counts[counts["complete"] == 0].itertuples(index=False):
+        parts = []
+        if r.failed:
+            parts.append(_count(r.failed, "has a failed fit", "have a failed fit"))
+        if r.unfinished:
+            parts.append(_count(r.unfinished, *unfinished))
+        if r.non_finite:
+            parts.append(_count(r.non_finite, "has a non-finite mean score",
+                                "have a non-finite mean score"))
+        text = (f"model '{r.model}' has no cell to pick{' yet' if status == 'running' else ''}"
+                f": of its {_count(r.cells, 'cell', 'cells')}, {' and '.join(parts)}.")
+        if r.failed:
+            text += (f" `foldwise sql \"select * from failures where sweep_id = '{sweep_id}'\"` "
+                     "shows the errors.")
+        notes.append(text)
+    return tuple(f"note: {n}" for n in notes)
 
 
 # -- tables --------------------------------------------------------------------------------
@@ -217,7 +255,7 @@ def summary_view(result: Summary) -> View:
     title = (f"sweep {facts.sweep_id}: picked cell per model ({rule_label(result.rule)} "
              f"rule) by CV {metric_label(facts.metric)}")
     return View(title, shown.reset_index(drop=True), tuple(numeric),
-                notes=unpicked_notes(result.unpicked, unfinished=result.unfinished))
+                notes=coverage_notes(result.coverage, facts.sweep_id, facts.n_folds))
 
 
 def picks_view(result: Picks) -> View:
@@ -246,7 +284,7 @@ def picks_view(result: Picks) -> View:
              f"better, {result.se} SE; rank 0 = simplest; the sweep's rule is "
              f"{rule_label(facts.rule)})")
     return View(title, pd.DataFrame(rows), tuple(dict.fromkeys(numeric)),
-                notes=unpicked_notes(result.unpicked, unfinished=result.unfinished))
+                notes=coverage_notes(result.coverage, facts.sweep_id, facts.n_folds))
 
 
 def compare_view(result: Comparison) -> View:
@@ -266,12 +304,14 @@ def compare_view(result: Comparison) -> View:
              f"folds, CV {metric_label(m)} ({result.better} is better); corrected resampled "
              f"t-test, df = {n - 1}")
     numeric = [c for c in shown.columns if c != "pair (a − b)"]
-    tests = (f"note: {len(df)} pairwise tests were made; 'Holm p' adjusts each p for all of "
-             "them (Holm 1979), and a difference is called clear only when that is below "
-             f"{CLEAR_P:g}.",) if len(df) > 1 else ()
+    caveats = (f"note: {APPROXIMATE_NOTE}",) if len(df) else ()
+    if len(df) > 1:
+        caveats += (f"note: {len(df)} pairwise tests were made; 'Holm p' adjusts each p for "
+                    "all of them (Holm 1979), and a difference is called clear only when that "
+                    f"is below {CLEAR_P:g}.",)
     return View(title, shown, tuple(numeric), sentences=tuple(pair_sentences(result)),
-                notes=(f"note: {APPROXIMATE_NOTE}",) + tests
-                + unpicked_notes(result.unpicked, unfinished=False))
+                caveats=caveats, notes=coverage_notes(result.coverage, result.facts.sweep_id,
+                                                     result.facts.n_folds))
 
 
 def complexity_view(result: ComplexityTable) -> View:

@@ -16,12 +16,15 @@ def write_sweep(path: Path, models: dict[str, list[list[float]]], *, k: int, rep
                 metric: str = "rmse", better: str = "lower", pick_rule: str = "one_se",
                 sweep_id: str = "20260101-000000-aaaa", n_train=80, n_valid=20,
                 tests: dict[str, list[float]] | None = None, failures=(), drop=(),
-                family: str = "linear", started_at: datetime | None = None) -> Store:
+                family: str = "linear", started_at: datetime | None = None,
+                status: str = "finished", host: str | None = None,
+                pid: int | None = None) -> Store:
     """Write one sweep: `models` maps a label to its cells in complexity order (rank 0 first),
     each cell a list of k·repeats fold scores (position i = repeat i // k, fold i % k).
 
     Cell ids are '<label>-<rank>'. `failures` lists cell ids with a failed fit; `drop` lists
-    (cell_id, position) fold rows left out; n_train / n_valid are a number or one per fold."""
+    (cell_id, position) fold rows left out; n_train / n_valid are a number or one per fold.
+    `status`, `host` and `pid` are recorded as a sweep's own would be."""
     store = Store(path)
     store.ensure_schema()
     n_folds = k * repeats
@@ -53,7 +56,7 @@ def write_sweep(path: Path, models: dict[str, list[list[float]]], *, k: int, rep
                        "n_test": 25, "k": k, "repeats": repeats, "plan_seed": 0,
                        "metrics": metric, "pick_rule": pick_rule,
                        "started_at": started_at or datetime(2026, 1, 1) + timedelta(seconds=1),
-                       "status": "finished", "versions": {}},
+                       "status": status, "host": host, "pid": pid, "versions": {}},
                       pd.DataFrame(cells), {metric: better})
     store.write_batch({"fold_scores": pd.DataFrame(folds), "test_scores": pd.DataFrame(test_rows),
                        "failures": pd.DataFrame(fail_rows)})

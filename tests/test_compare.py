@@ -144,7 +144,7 @@ def test_compare_pairs_identical_folds(three_models):
         running = max(running, min(1.0, (3 - rank) * raw[i]))
         expected[i] = running
     assert df["p_holm"].tolist() == pytest.approx(expected.tolist(), rel=1e-12)
-    assert compare_view(result).notes[0] == f"note: {APPROXIMATE_NOTE}" and result.rule == "best"
+    assert compare_view(result).caveats[0] == f"note: {APPROXIMATE_NOTE}" and result.rule == "best"
 
 
 def test_compare_uses_the_picked_cells(tmp_path):
@@ -194,6 +194,6 @@ def test_compare_command(three_models):
     assert table.exit_code == 0, table.output
     for line in pair_sentences(result):
         assert line in table.stdout
-    assert "note: p-values from resampled folds are approximate" in table.stderr
+    assert "note: p-values from resampled folds are approximate" in table.stdout
     bad = runner.invoke(main, ["compare", "--store", path, "--metric", "mae"])
     assert bad.exit_code == 2 and "metric must be one of" in bad.stderr

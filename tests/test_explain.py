@@ -5,6 +5,10 @@ the fold refits reproduce what the sweep scored."""
 from __future__ import annotations
 
 import json
+import signal
+import subprocess
+import sys
+import time
 
 import numpy as np
 import pandas as pd
@@ -17,6 +21,7 @@ from runner.explain import explain_sweep
 from runner.families._readers import output_sources
 from runner.families import load_family
 from runner.resampling import refit_seed
+from runner.spec import load_spec as spec_from_path
 from runner.spec import parse_spec
 
 from .helpers import spec_from
@@ -195,3 +200,119 @@ def test_rerun_copies_explain_rows_instead_of_refitting(tmp_path, diabetes_csv):
     fresh = run_sweep(spec, store=store, jobs=1, fresh=True)
     marks = store.query("select reused_from from explained where sweep_id = ?", [fresh.sweep_id])
     assert len(marks) == 2 and marks["reused_from"].isna().all()
+
+
+def test_each_cell_is_stored_as_soon_as_its_refits_are_back(tmp_path, diabetes_csv):
+    from runner.engine import run_sweep
+    from runner.store import Store
+
+    spec = spec_from(tmp_path, "ridge: {family: linear, grid: {penalty: l2, "
+                     "alpha: [1.0, 100.0, 1000.0]}}")
+    result = run_sweep(spec, jobs=1)
+    seen: list[int] = [0]
+    stored: list[int] = []
+
+    class Recording(Store):
+        def write_batch(self, tables):
+            if "explained" in tables:
+                stored.append(seen[-1])
+            super().write_batch(tables)
+
+    done = explain_sweep(spec, Recording(result.store_path), result.sweep_id, cells="all",
+                         jobs=1, progress=lambda n, total: seen.append(n))
+    # one transaction per cell, each right after its 7th task (refit + 6 fold refits)
+    assert done.cells == 3 and stored == [7, 14, 21] and seen[-1] == 21
+
+
+KILL_MODELS = """
+ridge: {family: linear, grid: {penalty: l2, alpha: [0.1, 10.0]}}
+tree: {family: pruned_tree, grid: {ccp_alpha: [0.0, 50.0], min_samples_leaf: [3]}}
+forest: {family: forest, grid: {n_estimators: [100], max_features: [0.3, 0.6]}}
+"""  # `explain: all` -> 6 cells; the forests go first and take over a second each
+N_FEATURES, N_FOLDS = 10, 6
+
+SWEEP_SCRIPT = """
+import sys
+from runner.engine import run_sweep
+from runner.spec import load_spec
+from runner.store import Store
+run_sweep(load_spec(sys.argv[1]), store=Store(sys.argv[2]), jobs=1, batch_seconds=0.0)
+"""
+
+
+def _count_explained(path) -> int:
+    import duckdb
+
+    for _ in range(200):  # the sweep holds the file's lock now and then
+        try:
+            with duckdb.connect(str(path), read_only=True) as con:
+                return con.execute("select count(*) from explained").fetchone()[0]
+        except duckdb.Error:
+            time.sleep(0.02)
+    return -1
+
+
+def _explain_rows(store, sweep_id) -> dict:
+    from runner.explain import EXPLAIN_TABLES
+
+    out = {}
+    for table in EXPLAIN_TABLES:
+        lists = ", features_used::varchar as features_used" if table == "tree_folds" else ""
+        exclude = "sweep_id, features_used" if lists else "sweep_id"
+        out[table] = store.query(f"select * exclude ({exclude}){lists} from {table} "
+                                 "where sweep_id = ? order by all", [sweep_id])
+    return out
+
+
+def test_sigkill_during_explain_keeps_finished_cells_whole_and_the_rerun_reuses_them(tmp_path):
+    from runner.engine import run_sweep
+    from runner.store import Store
+
+    from .helpers import diabetes_frame, write_spec
+
+    diabetes_frame().to_csv(tmp_path / "diabetes.csv", index=False)
+    spec_path = write_spec(tmp_path, KILL_MODELS,
+                           extra="explain: {cells: all, permutation: {repeats: 2, seed: 5}}\n")
+    store_path = tmp_path / "killed.duckdb"
+    proc = subprocess.Popen([sys.executable, "-c", SWEEP_SCRIPT, str(spec_path),
+                             str(store_path)])
+    deadline = time.monotonic() + 120
+    while time.monotonic() < deadline and proc.poll() is None:
+        if store_path.exists() and _count_explained(store_path) >= 1:
+            break
+        time.sleep(0.05)
+    proc.send_signal(signal.SIGKILL)
+    assert proc.wait() == -signal.SIGKILL, "the sweep ended before the kill"
+    store = Store(store_path)
+    (killed,) = store.query("select sweep_id from sweeps")["sweep_id"]
+    kept = set(store.query("select cell_id from explained where sweep_id = ?",
+                           [killed])["cell_id"])
+    assert 1 <= len(kept) < 6  # the kill landed inside the explain step
+    n_test = int(store.query("select n_test from sweeps").iloc[0, 0])
+    cells = store.query("select cell_id, family from cells where sweep_id = ?", [killed])
+    rows = _explain_rows(store, killed)
+    for cell_id, family in zip(cells["cell_id"], cells["family"]):
+        n = {t: int((df["cell_id"] == cell_id).sum()) for t, df in rows.items()}
+        if cell_id not in kept:  # nothing of an unfinished cell
+            assert not any(n.values()), (cell_id, n)
+            continue
+        assert n["importances"] == 2 * N_FEATURES  # permutation + the family's own method
+        assert n["fold_importances"] == N_FOLDS * N_FEATURES
+        assert n["test_predictions"] == n_test
+        assert n["tree_folds"] == (N_FOLDS if family == "pruned_tree" else 0)
+        assert (n["tree_nodes"] > 0) == (family == "pruned_tree")
+
+    again = run_sweep(spec_from_path(spec_path), store=store, jobs=1)
+    status = store.query("select sweep_id, status from sweeps order by started_at")
+    assert status["status"].tolist() == ["interrupted", "finished"]
+    marks = store.query("select cell_id, reused_from from explained where sweep_id = ?",
+                        [again.sweep_id])
+    assert len(marks) == 6
+    reused = marks.set_index("cell_id")["reused_from"]
+    assert set(reused[reused.notna()].index) == kept and (reused.dropna() == killed).all()
+
+    clean = Store(tmp_path / "clean.duckdb")
+    reference = run_sweep(spec_from_path(spec_path), store=clean, jobs=1)
+    got, want = _explain_rows(store, again.sweep_id), _explain_rows(clean, reference.sweep_id)
+    for table in want:  # every explain table but `explained` (reused_from differs)
+        pd.testing.assert_frame_equal(got[table], want[table], check_exact=True, obj=table)

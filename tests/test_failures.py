@@ -61,3 +61,84 @@ def test_warnings_are_counted(tmp_path, diabetes_csv):
                          "join cells c using (sweep_id, cell_id) group by c.model")
     lo = dict(zip(counts.model, counts.lo))
     assert lo["forest"] >= 1 and lo["ridge"] == 0
+
+
+# -- unfinished is not failed: what summary, pick and compare say mid-sweep ----------------
+def _mid_sweep(path, *, status="running", pid=None, failures=(), done_slow=0):
+    """Model `m` finished (2 cells); model `slow` has 2 cells of which `done_slow` folds of
+    the first are scored and the rest not yet (k=2, repeats=2: 4 folds a cell)."""
+    import os
+    import socket
+
+    from .store_builder import write_sweep
+
+    scores = {"m": [[2.0, 2.2, 1.8, 2.0], [1.0, 1.2, 0.8, 1.0]],
+              "slow": [[3.0, 3.1, 2.9, 3.0], [2.5, 2.6, 2.4, 2.5]]}
+    missing = [("slow-0", i) for i in range(done_slow, 4)] + [("slow-1", i) for i in range(4)]
+    return write_sweep(path, scores, k=2, repeats=2, drop=missing, failures=failures,
+                       status=status, host=socket.gethostname(),
+                       pid=os.getpid() if pid is None else pid)
+
+
+def _dead_pid() -> int:
+    import subprocess
+
+    proc = subprocess.Popen(["true"])
+    proc.wait()
+    return proc.pid  # a process of this host that has exited
+
+
+SID = "20260101-000000-aaaa"
+RUNNING = (f"note: sweep {SID} is still running: 2 of 4 cells have all 4 folds scored, and "
+           "the picks are made among those so far.")
+
+
+@pytest.mark.parametrize("case, lines", [
+    ("running", [RUNNING, "note: model 'slow' has no cell to pick yet: of its 2 cells, 2 are "
+                          "not finished yet."]),
+    ("interrupted", [
+        f"note: sweep {SID} was interrupted: 2 of 4 cells have all 4 folds scored, and the "
+        "picks are made among those; running the spec again completes only what is missing.",
+        "note: model 'slow' has no cell to pick: of its 2 cells, 2 were not finished when the "
+        "sweep was interrupted."]),
+    ("running with a failure", [RUNNING, "note: model 'slow' has no cell to pick yet: of its "
+                                "2 cells, 1 has a failed fit and 1 is not finished yet. "
+                                f"`foldwise sql \"select * from failures where sweep_id = "
+                                f"'{SID}'\"` shows the errors."]),
+    ("finished with failures", [
+        "note: model 'slow' has no cell to pick: of its 2 cells, 2 have a failed fit. "
+        f"`foldwise sql \"select * from failures where sweep_id = '{SID}'\"` shows the "
+        "errors."]),
+])
+def test_unfinished_cells_are_not_blamed_on_failed_fits(tmp_path, case, lines):
+    path = tmp_path / "mid.duckdb"
+    if case == "running":
+        _mid_sweep(path, done_slow=2)
+    elif case == "interrupted":
+        _mid_sweep(path, status="running", pid=_dead_pid())  # killed: still marked running
+    elif case == "running with a failure":
+        _mid_sweep(path, failures=["slow-0"], done_slow=1)
+    else:
+        _mid_sweep(path, status="finished", failures=["slow-0", "slow-1"])
+    for command in (["summary"], ["pick"], ["compare"]):
+        out = CliRunner().invoke(main, [*command, "--store", str(path)])
+        assert out.exit_code == 0, out.output
+        assert out.stderr.splitlines() == lines, (command, out.stderr)
+    if case in ("running", "interrupted"):
+        assert "fail" not in out.stderr
+
+
+def test_summary_with_nothing_to_pick_yet_still_names_its_sweep(tmp_path):
+    from .store_builder import write_sweep
+
+    path = tmp_path / "early.duckdb"
+    write_sweep(path, {"slow": [[3.0, 3.1, 2.9, 3.0]]}, k=2, repeats=2,
+                drop=[("slow-0", i) for i in range(1, 4)], status="running", host="elsewhere")
+    result = summary(Store(path))
+    assert result.table.empty and result.facts.sweep_id == SID and result.coverage.unpicked == (
+        "slow",)
+    out = CliRunner().invoke(main, ["summary", "--store", str(path)])
+    assert out.exit_code == 0 and f"sweep {SID}: picked cell per model (one-SE rule)" in out.stdout
+    assert out.stderr.splitlines() == [
+        f"note: sweep {SID} is still running: none of its 1 cell has all 4 folds scored yet.",
+        "note: model 'slow' has no cell to pick yet: of its 1 cell, 1 is not finished yet."]

@@ -1,0 +1,116 @@
+"""File names built from stored text (model labels, sweep ids), made safe to write.
+
+Labels and sweep ids arrive from stores that others wrote (a merged store, a team store),
+so they are untrusted: they may hold path separators, `..`, NUL and control characters,
+names that Windows reserves, or run to any length. `safe_component` turns any text into
+one file-name component that is none of those; `safe_names` does so for a set of texts
+with no two results equal, even on a case-insensitive file system; `inside` joins a
+component to a folder and refuses a result that resolves outside it (a symlink planted
+in the folder, say). Only the standard library is used, so the CLI stays light."""
+
+from __future__ import annotations
+
+import hashlib
+import unicodedata
+from pathlib import Path
+from typing import Iterable
+
+from .errors import QueryError
+
+__all__ = ["safe_component", "safe_names", "inside", "MAX_BYTES", "WINDOWS_RESERVED"]
+
+MAX_BYTES = 80
+"""Longest component in UTF-8 bytes, hash suffix included; far below the usual 255-byte
+limit, so a sweep id, a kind and an extension still fit around it."""
+
+_HASH_CHARS = 12
+_KEPT_CATEGORIES = {"Lu", "Ll", "Lt", "Lm", "Lo", "Nd"}  # letters and decimal digits
+_KEPT_ASCII = set("-_.")
+
+WINDOWS_RESERVED = frozenset(
+    ["con", "prn", "aux", "nul", "conin$", "conout$"]
+    + [f"{dev}{n}" for dev in ("com", "lpt") for n in [*"123456789", "¹", "²", "³"]])
+"""Device names Windows will not use as a file name, with or without an extension."""
+
+
+def _digest(text: str) -> str:
+    return hashlib.sha256(text.encode("utf-8", "surrogatepass")).hexdigest()[:_HASH_CHARS]
+
+
+def _clip(text: str, max_bytes: int) -> str:
+    """The longest prefix of `text` that is at most `max_bytes` in UTF-8."""
+    return text.encode("utf-8")[:max_bytes].decode("utf-8", "ignore")
+
+
+def _cleaned(text: str) -> str:
+    """Every character outside letters, digits, '-', '_' and '.' becomes '_'; no leading
+    '.' or '-', no trailing '.', no run of dots."""
+    kept = "".join(ch if ch in _KEPT_ASCII or (ch.isascii() and ch.isalnum())
+                   or (not ch.isascii() and unicodedata.category(ch) in _KEPT_CATEGORIES)
+                   else "_" for ch in text)
+    while ".." in kept:
+        kept = kept.replace("..", "_.")
+    if kept[:1] in (".", "-"):
+        kept = "_" + kept[1:]
+    if kept.endswith("."):
+        kept = kept[:-1] + "_"
+    if kept.split(".", 1)[0].casefold() in WINDOWS_RESERVED:
+        kept = "_" + kept
+    return kept
+
+
+def safe_component(text: object, *, max_bytes: int = MAX_BYTES) -> str:
+    """`text` as one safe file-name component.
+
+    Text that is already safe (ASCII or Unicode letters and digits, '-', '_', '.', not
+    starting with '.' or '-', no '..', no reserved device name, short enough) is kept as
+    is; anything else is cleaned and, when it had to change, gets '-' and the first 12 hex
+    digits of the SHA-256 of the original text, so two texts that clean alike still give
+    different names."""
+    text = str(text)
+    normal = unicodedata.normalize("NFC", text)
+    cleaned = _cleaned(normal)
+    if cleaned == text and 0 < len(cleaned.encode("utf-8")) <= max_bytes:
+        return cleaned
+    suffix = f"-{_digest(text)}"
+    stem = _clip(cleaned, max_bytes - len(suffix)).rstrip(".") or "_"
+    return stem + suffix
+
+
+def safe_names(texts: Iterable[object], *, max_bytes: int = MAX_BYTES) -> dict[str, str]:
+    """A safe component per distinct text (in order), no two equal ignoring case.
+
+    A text whose component an earlier text already took (a label crafted to look like
+    another's cleaned name, or 'Tree' beside 'tree' on a case-insensitive disk) gets its
+    hash suffix, then a counter if it still clashes."""
+    names: dict[str, str] = {}
+    taken: set[str] = set()
+    for text in dict.fromkeys(str(t) for t in texts):
+        name = safe_component(text, max_bytes=max_bytes)
+        if name.casefold() in taken and not name.endswith(f"-{_digest(text)}"):
+            suffix = f"-{_digest(text)}"
+            name = _clip(name, max_bytes - len(suffix)) + suffix
+        base, n = name, 2
+        while name.casefold() in taken:
+            tail = f"-{n}"
+            name = _clip(base, max_bytes - len(tail)) + tail
+            n += 1
+        taken.add(name.casefold())
+        names[text] = name
+    return names
+
+
+def inside(folder: str | Path, name: str) -> Path:
+    """`folder / name`, after checking that `name` is one component and that the path
+    resolves inside the folder (symlinks followed); a QueryError otherwise."""
+    folder = Path(folder)
+    if not name or name in (".", "..") or "/" in name or "\\" in name or "\0" in name:
+        raise QueryError(f"refused to write {name!r} in {folder}: a file name built from "
+                         "stored text must be one plain name.")
+    path = folder / name
+    root = folder.resolve()
+    if not path.resolve().is_relative_to(root) or path.resolve() == root:
+        raise QueryError(f"refused to write {path}: it resolves to {path.resolve()}, outside "
+                         f"{root} (a link there points elsewhere). Remove the link or choose "
+                         "another folder.")
+    return path
