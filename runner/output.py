@@ -18,8 +18,41 @@ __all__ = ["emit", "FORMATS"]
 FORMATS = ("table", "csv", "json")
 
 
+JSON_COLUMNS = ("params", "versions", "settings", "card")
+"""Columns that hold JSON text in the store; JSON output gives them as objects."""
+
+
+def _plain(name: str, value):
+    """One value as JSON: floats exactly (shortest round-trip text), NaN and ±inf as null,
+    times in ISO 8601, stored JSON text as an object."""
+    import math
+
+    import numpy as np
+    import pandas as pd
+
+    if isinstance(value, (list, tuple, np.ndarray)):
+        return [_plain(name, v) for v in value]
+    if value is None or value is pd.NaT:
+        return None
+    if isinstance(value, (bool, np.bool_)):
+        return bool(value)
+    if isinstance(value, (int, np.integer)):
+        return int(value)
+    if isinstance(value, (float, np.floating)):
+        return float(value) if math.isfinite(value) else None
+    if hasattr(value, "isoformat"):
+        return value.isoformat()
+    if name in JSON_COLUMNS and isinstance(value, str) and value[:1] in "{[":
+        try:
+            return json.loads(value)
+        except ValueError:
+            return value
+    return value
+
+
 def _jsonable(df: pd.DataFrame) -> list[dict]:
-    return json.loads(df.to_json(orient="records", date_format="iso", double_precision=15))
+    return [{str(k): _plain(str(k), v) for k, v in row.items()}
+            for row in df.to_dict("records")]
 
 
 def _width(out) -> int:

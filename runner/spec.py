@@ -385,10 +385,10 @@ def _describe(exc: ValidationError, lines: dict[tuple, int], where: str) -> str:
             msg = "this required field is missing"
         at = f"line {line}, " if line else ""
         parts.append(f"{at}{field}: {msg}")
-    unique = [p.rstrip(".") for p in dict.fromkeys(parts)]
-    return (f"{where} does not validate: " + "; ".join(unique) +
-            ". Fix the field(s) named and run `foldwise check` again "
-            "(`foldwise schema` prints every field).")
+    body = "; ".join(p.rstrip(".") for p in dict.fromkeys(parts))
+    return (f"{where} does not validate: {body}{' ' if body.endswith('?') else '. '}Fix the "
+            "field(s) named and run `foldwise check` again (`foldwise schema` prints every "
+            "field).")
 
 
 def _valid_keys(parent: tuple) -> list[str]:

@@ -89,6 +89,7 @@ def test_bad_input_refused_cleanly(tmp_path, case, command):
     assert result.output.startswith("Error: "), result.output
     message = result.output.removeprefix("Error: ").strip()
     assert "\n" not in message and "Traceback" not in result.output
+    assert "?." not in message, message
     for word in words:
         assert word in message, (word, message)
     assert _snapshot(tmp_path) == before, "the store or data changed"

@@ -70,6 +70,19 @@ def test_summary_json_equals_fold_rows(swept):
         assert row["test_rmse"] > 0 and 0 < row["cv_r2"] < 1
 
 
+def test_json_gives_params_as_objects_and_every_digit(swept):
+    from runner.queries import summary
+    from runner.store import Store
+
+    _, store, _ = swept
+    rows = json.loads(invoke("summary", "--store", store, "--format", "json").output)
+    api = summary(Store(store)).table
+    for row, (_, ref) in zip(rows, api.iterrows()):
+        assert row["params"] == json.loads(ref["params"]) and isinstance(row["params"], dict)
+        for col in ("cv_rmse", "se_rmse", "test_r2"):
+            assert row[col] == ref[col]  # exactly: no digit lost on the way
+
+
 def test_sql_and_sweeps(swept):
     _, store, _ = swept
     out = invoke("sql", "--store", store, "--format", "json",
