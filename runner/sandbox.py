@@ -70,9 +70,14 @@ def run_user_query(store, sql: str, *, allow_files: bool = False):
 
 
 # -- the friendly first check --------------------------------------------------------------
+_parsing = []  # one locked, empty in-memory instance per process, for parsing only
+
+
 @contextmanager
 def _parser():
-    con = locked(duckdb.connect(config=LOCKED_SETTINGS))
+    if not _parsing:
+        _parsing.append(locked(duckdb.connect(config=LOCKED_SETTINGS)))
+    con = _parsing[0].cursor()
     try:
         yield con
     finally:
