@@ -102,7 +102,7 @@ class FileLocation:
             mode = _lock_mode(self.path, pid) or mode
         held = f"{who} holds it open for {mode}" if mode else f"{who} holds it open"
         if gave_up:
-            return (f"store {self.path} is still busy after {limit:.0f} s: {held}. DuckDB lets "
+            return (f"store {self.path} is still busy after {limit:g} s: {held}. DuckDB lets "
                     "one process write a file or many read it; try again when it has "
                     "finished.")
         if writing:
@@ -110,7 +110,7 @@ class FileLocation:
                     "or many read it, so this write waits until the file is free, however "
                     "long that takes (Ctrl-C stops; rows already written are kept)...")
         return (f"store {self.path} is busy: {held}; waiting for it to finish (up to "
-                f"{limit:.0f} s)...")
+                f"{limit:g} s)...")
 
 
 class ServerLocation:
@@ -269,7 +269,7 @@ def _command_line(pid: int) -> str:
         raw = Path(f"/proc/{pid}/cmdline").read_bytes()
     except OSError:
         return ""
-    text = " ".join(part for part in raw.decode(errors="replace").split("\0") if part)
+    text = " ".join(raw.decode(errors="replace").replace("\0", " ").split())
     return text if len(text) <= 90 else text[:87] + "..."
 
 

@@ -34,7 +34,7 @@ from . import landlock
 from .errors import QueryError
 
 __all__ = ["run_user_query", "check_statement", "tables_named", "locked", "confined_connection",
-           "LOCKED_SETTINGS"]
+           "child_environment", "LOCKED_SETTINGS"]
 
 LOCKED_SETTINGS = {
     "autoinstall_known_extensions": False, "autoload_known_extensions": False,
@@ -266,11 +266,16 @@ def _in_child(store, sql: str, inner: str):
                      "nothing was changed. Please report this with the query you ran.")
 
 
-def _spawn(request: bytes, folder: Path):
+def child_environment(folder: Path) -> dict[str, str]:
+    """The child's environment: a few plain variables, never a password or a key."""
     env = {k: os.environ[k] for k in _CHILD_ENV if k in os.environ}
     env["TMPDIR"] = str(folder)
+    return env
+
+
+def _spawn(request: bytes, folder: Path):
     out = subprocess.run([sys.executable, "-m", "runner.sandbox"], input=request,
-                         capture_output=True, env=env)
+                         capture_output=True, env=child_environment(folder))
     if out.returncode == _BUSY:
         raise duckdb.IOException(out.stderr.decode(errors="replace").strip())
     return out

@@ -296,8 +296,13 @@ class Store:
             order by 2, 3 $$)""").fetchall()
         if missing:
             role = missing[0][0]
-            lacks = "; ".join(f"{p} on " + ", ".join(t for _, q, t in missing if q == p)
-                              for p in dict.fromkeys(p for _, p, _ in missing))
+            lacks = []
+            for privilege in dict.fromkeys(p for _, p, _ in missing):
+                tables = [t for _, p, t in missing if p == privilege]
+                every = privilege == "INSERT" and len(tables) == len(TABLES)
+                lacks.append(f"{privilege} on " + ("every foldwise table" if every
+                                                    else ", ".join(tables)))
+            lacks = "; ".join(lacks)
             raise StoreError(f"role {role} may read team store {self.path} but not write "
                              f"sweeps into it: it lacks {lacks}. `run` and `merge` need "
                              "INSERT on every foldwise table and UPDATE on sweeps and cells; "

@@ -306,3 +306,26 @@ def test_allow_files_reads_a_file_through_the_command(request, tmp_path, where):
                           str(case.store.path)], capture_output=True, text=True,
                          env=case.extra["pg"].env() if where == "server" else None)
     assert out.returncode == 2 and "--allow-files" in out.stderr, out.stderr
+
+
+def test_allow_files_without_landlock_is_refused_in_one_paragraph(file_case, monkeypatch):
+    from runner import landlock
+
+    monkeypatch.setattr(landlock, "abi_version", lambda: 3)
+    out = _cli("sql", "select 1", "--store", file_case.store.path, "--allow-files")
+    assert out.exit_code == 2 and out.output.count("\n") == 1, out.output
+    assert "Landlock with ABI 4 or later" in out.output and "offers ABI 3" in out.output
+    assert "Run it without --allow-files" in out.output
+    assert _cli("sql", "select 1 as one", "--store", file_case.store.path).exit_code == 0
+
+
+def test_the_confined_child_sees_no_secrets_in_its_environment(monkeypatch, tmp_path):
+    """The child gets a short list of plain variables (PATH, HOME, locale, ...), so even a
+    query that may read files finds no password or key in its environment."""
+    monkeypatch.setenv("PGPASSWORD", "hunter2-sentinel")
+    monkeypatch.setenv("PGPASSFILE", "/somewhere/pgpass-sentinel")
+    monkeypatch.setenv("AWS_SECRET_ACCESS_KEY", "aws-sentinel")
+    env = sandbox.child_environment(tmp_path)
+    assert env["PATH"] == os.environ["PATH"] and env["TMPDIR"] == str(tmp_path)
+    assert not {"PGPASSWORD", "PGPASSFILE", "AWS_SECRET_ACCESS_KEY"} & set(env)
+    assert "sentinel" not in json.dumps(env)
