@@ -170,14 +170,14 @@ class ServerLocation:
         import duckdb
 
         con = duckdb.connect(config=_NO_DOWNLOADS)
+        url = read_only_session(self.url)
         try:
             con.execute(f"load '{_quote(postgres_extension())}'")
-            con.execute(f"attach '{_quote(read_only_session(self.url))}' as {self.alias} "
-                        "(type postgres, read_only)")
+            con.execute(f"attach '{_quote(url)}' as {self.alias} (type postgres, read_only)")
             con.execute(f"use {self.alias}")
         except duckdb.Error as exc:
             con.close()
-            raise self.open_error(exc) from None
+            raise self.open_error(RuntimeError(str(exc).replace(url, self.url))) from None
         return con
 
     _instances: dict = {}

@@ -173,12 +173,12 @@ def locked(con):
     return con
 
 
-def _answer(con, sql: str, *, files: bool = False):
+def _answer(con, sql: str):
     locked(con)
     try:
         return con.execute(sql).df()
     except duckdb.Error as exc:
-        raise _failure(exc, files=files) from None
+        raise _failure(exc, files=False) from None
 
 
 def _first_line(exc: Exception) -> str:

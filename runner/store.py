@@ -133,13 +133,15 @@ class Store:
 
     # -- connections -------------------------------------------------------------------
     @contextmanager
-    def _connect(self, *, read_only: bool, config: dict | None = None
-                 ) -> Iterator[duckdb.DuckDBPyConnection]:
+    def _connect(self, *, read_only: bool, config: dict | None = None,
+                 writing: bool | None = None) -> Iterator[duckdb.DuckDBPyConnection]:
+        """A short-lived connection; `writing` (default: not read_only) says whether it
+        serves a write, which waits for a busy file however long it takes."""
         if self._held is not None and not config:
             yield self._held
             return
         con = self.patiently(lambda: self.location.connect(read_only=read_only, config=config),
-                             writing=not read_only)
+                             writing=not read_only if writing is None else writing)
         if self.location.shared:
             _summary_view(con)
         try:
@@ -194,7 +196,7 @@ class Store:
         one win and the others look again on a fresh connection, which then sees them."""
         self.check_writable()
         if not self.location.shared and self.location.exists():
-            with self._connect(read_only=True) as con:  # a read-only look changes no byte
+            with self._connect(read_only=True, writing=True) as con:  # changes no byte
                 if self._schema_version(con) is None:
                     self._refuse_foreign(con)
         attempts = 20 if self.location.shared else 1

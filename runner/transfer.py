@@ -167,8 +167,13 @@ def _attached(con, where, other) -> Iterator[None]:
                             ).fetchone()[0]
         if not found:
             raise StoreError(f"{other} is not a foldwise store (no foldwise_meta table).")
-        version = int(con.execute("select value from _other.foldwise_meta where key = "
-                                  "'schema_version'").fetchone()[0])
+        row = con.execute("select value from _other.foldwise_meta where key = "
+                          "'schema_version'").fetchone()
+        try:
+            version = int(row[0])
+        except (TypeError, ValueError):
+            raise StoreError(f"{other} is damaged: its foldwise_meta table gives no numeric "
+                             "schema_version. Merge from a sound copy of it.") from None
         if version > SCHEMA_VERSION:
             raise StoreError(f"store {other} was written by a newer foldwise (schema version "
                              f"{version}); upgrade foldwise to merge it.")

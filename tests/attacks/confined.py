@@ -22,8 +22,10 @@ from runner.errors import QueryError
 
 
 def _connection(store: str, folder: str, way: str):
-    if way == "open":
-        return duckdb.connect(store, read_only=True)
+    if way == "open":  # only DuckDB's own folders moved where writing is allowed
+        return duckdb.connect(store, read_only=True, config={
+            "extension_directory": f"{folder}/ext", "secret_directory": f"{folder}/secrets",
+            "temp_directory": f"{folder}/spill"})
     return sandbox.confined_connection(store, folder)
 
 

@@ -242,10 +242,11 @@ def test_allow_files_refuses_and_changes_nothing(request, tmp_path, where):
     assert reads["select * from read_csv('/etc/passwd')"]["checked"] is None
 
 
-def test_landlock_alone_blocks_writes_and_the_network(file_case, tmp_path):
-    """A DuckDB connection with file access fully on and nothing locked, in the confined
-    process: the kernel still refuses every write outside the private folder and every TCP
-    connection, while reading a real file works."""
+def test_landlock_alone_blocks_writes(file_case, tmp_path):
+    """A DuckDB connection with file access fully on and nothing locked (only its own
+    folders moved into the private one), in the confined process: the kernel still
+    refuses every write outside the private folder, and INSTALL gets no extension, while
+    reading a real file works."""
     private = tmp_path / "private"
     private.mkdir()
     case = file_case
@@ -263,7 +264,8 @@ def test_landlock_alone_blocks_writes_and_the_network(file_case, tmp_path):
     assert case.state() == case.baseline
     for name in ("copy to the store", "copy to /tmp", "attach a new file"):
         assert "Permission denied" in outcomes[name]["open"], outcomes[name]
-    assert outcomes["install"]["open"] is not None
+    assert "Failed to download" in outcomes["install"]["open"], outcomes["install"]
+    assert not list((private / "ext").rglob("*.duckdb_extension"))
     assert outcomes["read a file"]["open"] is None
     assert outcomes["write the private folder"]["open"] is None
 
@@ -329,3 +331,60 @@ def test_the_confined_child_sees_no_secrets_in_its_environment(monkeypatch, tmp_
     assert env["PATH"] == os.environ["PATH"] and env["TMPDIR"] == str(tmp_path)
     assert not {"PGPASSWORD", "PGPASSFILE", "AWS_SECRET_ACCESS_KEY"} & set(env)
     assert "sentinel" not in json.dumps(env)
+
+
+CONFINED_PROBE = """
+import json, os, socket, sys
+from runner.landlock import restrict_to_reading
+folder, port, outside = sys.argv[1], int(sys.argv[2]), sys.argv[3]
+abi = restrict_to_reading(folder)
+
+def attempt(action):
+    try:
+        action()
+    except OSError as exc:
+        return type(exc).__name__
+    return None
+
+print(json.dumps({
+    "abi": abi,
+    "connect": attempt(lambda: socket.create_connection(("127.0.0.1", port), timeout=2)),
+    "bind": attempt(lambda: socket.socket().bind(("127.0.0.1", 0))),
+    "write outside": attempt(lambda: open(outside, "a")),
+    "make outside": attempt(lambda: os.mkdir(outside + ".d")),
+    "write inside": attempt(lambda: open(os.path.join(folder, "x"), "w").write("x")),
+    "read": attempt(lambda: open("/etc/hostname").read()),
+    "signal": attempt(lambda: os.kill(os.getppid(), 0)),
+}))
+"""
+
+
+def test_landlock_denies_tcp_signals_and_writes_outside_the_folder(tmp_path):
+    """The kernel side of --allow-files, seen from plain Python in a confined process: no
+    TCP connection (a listener here receives none) or bound port, no write or new folder
+    outside the private one, no signal to processes outside; reading still works."""
+    import socket
+
+    listener = socket.socket()
+    listener.bind(("127.0.0.1", 0))
+    listener.listen()
+    listener.settimeout(0.5)
+    private = tmp_path / "private"
+    private.mkdir()
+    outside = tmp_path / "outside.txt"
+    outside.write_text("unchanged")
+    out = subprocess.run([sys.executable, "-c", CONFINED_PROBE, str(private),
+                          str(listener.getsockname()[1]), str(outside)],
+                         capture_output=True, text=True)
+    assert out.returncode == 0, out.stderr
+    found = json.loads(out.stdout)
+    with pytest.raises(socket.timeout):
+        listener.accept()
+    listener.close()
+    assert found["abi"] >= 4
+    assert found["connect"] == found["bind"] == "PermissionError"
+    assert found["write outside"] == found["make outside"] == "PermissionError"
+    assert found["write inside"] is None and found["read"] is None
+    if found["abi"] >= 6:
+        assert found["signal"] == "PermissionError"
+    assert outside.read_text() == "unchanged" and not (tmp_path / "outside.txt.d").exists()
