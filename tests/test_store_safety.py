@@ -141,16 +141,20 @@ def test_a_writer_waits_for_a_reader_however_long_and_says_so_once(tmp_path):
 def test_a_reader_gives_up_after_its_limit_naming_the_writer(tmp_path):
     path = tmp_path / "store.duckdb"
     write_sweep(path, {"ridge": [[1.0, 2.0]]}, k=2, repeats=1)
-    writer = _hold(path, "write", 3.0)
+    writer = _hold(path, "write", 30.0)
     try:
-        with pytest.raises(StoreError) as err:
-            Store(path, wait_seconds=0.5).query("select count(*) from sweeps")
+        store = Store(path, wait_seconds=0.5)
+        for read in (lambda: store.query("select count(*) from sweeps"),
+                     lambda: store.user_query("select count(*) from sweeps"),
+                     lambda: store.user_query("select 1", allow_files=True)):
+            with pytest.raises(StoreError) as err:
+                read()
+            text = str(err.value)
+            assert "still busy after 0.5 s" in text, text
+            assert f"process {writer.pid}" in text and "for writing" in text, text
     finally:
         writer.kill()
         writer.wait()
-    text = str(err.value)
-    assert "still busy after 0.5 s" in text, text
-    assert f"process {writer.pid}" in text and "for writing" in text, text
 
 
 def test_a_run_meeting_a_reader_finishes_and_says_busy_once(tmp_path, diabetes_csv):
