@@ -96,7 +96,7 @@ def test_a_schema_version_that_is_not_a_number_is_one_clear_error(tmp_path):
 
 HOLDER = """
 import sys, time, duckdb
-path, mode, seconds = sys.argv[1], sys.argv[2], float(sys.argv[3])
+path, mode, seconds, hold = sys.argv[1], sys.argv[2], float(sys.argv[3]), float(sys.argv[4])
 end = time.monotonic() + seconds
 while time.monotonic() < end:
     try:
@@ -105,17 +105,17 @@ while time.monotonic() < end:
         time.sleep(0.05)
         continue
     print("holding", flush=True)
-    time.sleep(0.9)
+    time.sleep(hold)
     con.close()
     time.sleep(0.05)
 """
 
 
-def _hold(path: Path, mode: str, seconds: float) -> subprocess.Popen:
+def _hold(path: Path, mode: str, seconds: float, *, each: float = 0.9) -> subprocess.Popen:
     """Another process holding the file for reading or writing, letting go briefly every
-    0.9 s until `seconds` have passed."""
+    `each` seconds until `seconds` have passed."""
     proc = subprocess.Popen([sys.executable, "-c", textwrap.dedent(HOLDER), str(path), mode,
-                             str(seconds)], stdout=subprocess.PIPE, text=True)
+                             str(seconds), str(each)], stdout=subprocess.PIPE, text=True)
     assert proc.stdout.readline().strip() == "holding"
     return proc
 
@@ -141,7 +141,7 @@ def test_a_writer_waits_for_a_reader_however_long_and_says_so_once(tmp_path):
 def test_a_reader_gives_up_after_its_limit_naming_the_writer(tmp_path):
     path = tmp_path / "store.duckdb"
     write_sweep(path, {"ridge": [[1.0, 2.0]]}, k=2, repeats=1)
-    writer = _hold(path, "write", 30.0)
+    writer = _hold(path, "write", 60.0, each=60.0)  # without a break
     try:
         store = Store(path, wait_seconds=0.5)
         for read in (lambda: store.query("select count(*) from sweeps"),
@@ -164,7 +164,7 @@ def test_a_run_meeting_a_reader_finishes_and_says_busy_once(tmp_path, diabetes_c
                             str(path), "--jobs", "1", "--quiet"], capture_output=True,
                            text=True)
     assert first.returncode == 0, first.stderr
-    reader = _hold(path, "read", 4.0)
+    reader = _hold(path, "read", 8.0)  # longer than the run takes to start, even when slow
     out = subprocess.run([sys.executable, "-m", "runner", "run", str(spec), "--store",
                           str(path), "--jobs", "1", "--quiet", "--fresh"], capture_output=True,
                          text=True)
