@@ -25,7 +25,7 @@ _LAZY = {
     "importance_table": ("queries", "importance_table"),
     "stability_table": ("queries", "stability_table"),
     "figure": ("plots", "make_figure"), "write_report": ("report", "write_report"),
-    "merge_store": ("store", "merge_store"), "export_store": ("store", "export_store"),
+    "merge_store": ("transfer", "merge_store"), "export_store": ("transfer", "export_store"),
 }
 
 

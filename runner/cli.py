@@ -237,15 +237,18 @@ def sweeps(store_path, fmt):
 @_store_option
 @_format_option
 @click.option("--allow-files", is_flag=True,
-              help="Let the query read files outside the store (read_csv, read_parquet).")
+              help="Let the query read files (read_csv, read_parquet), never write one; "
+                   "runs it in a process Linux Landlock confines to reading.")
 def sql(query, store_path, fmt, allow_files):
-    """Run one read-only SQL query against the store.
+    """Run one read-only SQL query against the store; it cannot change anything.
 
-    Tables: sweeps, cells, fold_scores, test_scores, failures, importances, metrics,
-    fold_importances, tree_folds, tree_nodes, test_predictions; view: cell_summary.
+    One SELECT (or WITH, DESCRIBE, SUMMARIZE, plain EXPLAIN). Tables: sweeps, cells,
+    fold_scores, test_scores, failures, importances, metrics, fold_importances, tree_folds,
+    tree_nodes, test_predictions; view: cell_summary.
 
     \b
       foldwise sql "select model, metric, avg(value) from fold_scores join cells using (sweep_id, cell_id) group by all"
+      foldwise sql "select * from cell_summary join read_csv('notes.csv') using (model)" --allow-files
     """
     emit(_open_store(store_path).user_query(query, allow_files=allow_files), fmt)
 

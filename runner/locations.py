@@ -12,9 +12,10 @@ and a store URL that carries a password is refused."""
 from __future__ import annotations
 
 import os
+import re
 import tempfile
 from pathlib import Path
-from urllib.parse import parse_qsl, urlsplit, urlunsplit
+from urllib.parse import parse_qsl, quote, urlsplit, urlunsplit
 
 from .errors import StoreError
 
@@ -24,6 +25,8 @@ __all__ = ["FileLocation", "ServerLocation", "locate", "is_server_url", "url_pro
 SERVER_SCHEMES = ("postgresql", "postgres")
 _NO_DOWNLOADS = {"autoinstall_known_extensions": False, "autoload_known_extensions": False}
 _LOCK_WORDS = ("lock", "Conflicting lock", "being used by another process")
+_HOLDER = re.compile(r"held in (?P<program>.+?) \(PID (?P<pid>\d+)\)")
+_READ_ONLY_SESSION = "-c default_transaction_read_only=on"
 
 
 def is_server_url(location) -> bool:
@@ -87,6 +90,28 @@ class FileLocation:
                           "program holds the file open, close it; if the file is not a "
                           "foldwise store, choose another path.")
 
+    def busy_message(self, exc: Exception, *, writing: bool, limit: float,
+                     gave_up: bool = False) -> str:
+        """Who holds the file (process id, command line, reading or writing, where DuckDB's
+        message and /proc tell) and what happens next, in one paragraph."""
+        found = _HOLDER.search(str(exc))
+        who, mode = "another process", None if writing else "writing"
+        if found:
+            pid = int(found["pid"])
+            who = f"process {pid} ({_command_line(pid) or found['program']})"
+            mode = _lock_mode(self.path, pid) or mode
+        held = f"{who} holds it open for {mode}" if mode else f"{who} holds it open"
+        if gave_up:
+            return (f"store {self.path} is still busy after {limit:g} s: {held}. DuckDB lets "
+                    "one process write a file or many read it; try again when it has "
+                    "finished.")
+        if writing:
+            return (f"store {self.path} is busy: {held}. DuckDB lets one process write a file "
+                    "or many read it, so this write waits until the file is free, however "
+                    "long that takes (Ctrl-C stops; rows already written are kept)...")
+        return (f"store {self.path} is busy: {held}; waiting for it to finish (up to "
+                f"{limit:g} s)...")
+
 
 class ServerLocation:
     """A PostgreSQL database, attached to an in-memory DuckDB connection as `team`.
@@ -115,33 +140,52 @@ class ServerLocation:
         return True
 
     def check_writable(self) -> None:
-        """Reaching the server is the only check worth making; `connect` makes it."""
-        self.connect(read_only=False).close()
+        """Reaching the server is the only check worth making here; `connect` makes it
+        (the store checks the role's privileges once the tables are known)."""
+        import duckdb
+
+        try:
+            self.connect(read_only=False).close()
+        except duckdb.Error as exc:
+            raise self.open_error(exc) from None
 
     def connect(self, *, read_only: bool, config: dict | None = None):
         """A DuckDB connection whose default catalog is the attached PostgreSQL database.
 
         Loading the extension and attaching cost about half a second, so foldwise's own
         operations share one attached DuckDB instance per process and each gets a cursor
-        of it. A user's query (`config` given) gets a fresh instance attached read-only,
-        whose settings (such as enable_external_access=false) cannot leak into others."""
-        if config is None:
-            shared = self._shared_instance()
-            cursor = shared.cursor()
-            try:
-                cursor.execute(f"use {self.alias}")
-            except BaseException:
-                cursor.close()
-                raise
-            return cursor
-        return self._open(read_only=read_only, config=config)
+        of it. A user's query never runs here (runner/sandbox.py)."""
+        shared = self._shared_instance()
+        cursor = shared.cursor()
+        try:
+            cursor.execute(f"use {self.alias}")
+        except BaseException:
+            cursor.close()
+            raise
+        return cursor
+
+    def read_only_instance(self):
+        """A DuckDB instance of its own with the database attached read-only, in a server
+        session whose transactions are read-only too; for copying rows out, nothing else."""
+        import duckdb
+
+        con = duckdb.connect(config=_NO_DOWNLOADS)
+        url = read_only_session(self.url)
+        try:
+            con.execute(f"load '{_quote(postgres_extension())}'")
+            con.execute(f"attach '{_quote(url)}' as {self.alias} (type postgres, read_only)")
+            con.execute(f"use {self.alias}")
+        except duckdb.Error as exc:
+            con.close()
+            raise self.open_error(RuntimeError(str(exc).replace(url, self.url))) from None
+        return con
 
     _instances: dict = {}
 
     def _shared_instance(self):
         key = (self.url, os.getpid())
         if key not in ServerLocation._instances:
-            ServerLocation._instances[key] = self._open(read_only=False, config=None)
+            ServerLocation._instances[key] = self._open()
         return ServerLocation._instances[key]
 
     def forget_catalog(self) -> None:
@@ -151,15 +195,13 @@ class ServerLocation:
         if key in ServerLocation._instances:
             ServerLocation._instances[key].execute("call pg_clear_cache()")
 
-    def _open(self, *, read_only: bool, config: dict | None):
+    def _open(self):
         import duckdb
 
         con = duckdb.connect(config=_NO_DOWNLOADS)
         try:
-            self.attach_into(con, self.alias, read_only=read_only)
+            self.attach_into(con, self.alias, read_only=False)
             con.execute(f"use {self.alias}")
-            for key, value in (config or {}).items():
-                con.execute(f"set {key} = {_literal(value)}")
         except BaseException:
             con.close()
             raise
@@ -175,6 +217,10 @@ class ServerLocation:
     @staticmethod
     def is_busy(exc: Exception) -> bool:
         return False
+
+    def busy_message(self, exc: Exception, *, writing: bool, limit: float,
+                     gave_up: bool = False) -> str:
+        return f"team store {self.url} is busy: {exc}"
 
     def open_error(self, exc: Exception) -> StoreError:
         reason = " ".join(str(exc).split(": ", 1)[-1].split()).rstrip(".?")
@@ -203,6 +249,42 @@ def url_problem(url: str) -> str | None:
     if not parts.path.strip("/"):
         return (f"the store URL {url} names no database; write it as "
                 "postgresql://USER@HOST[:PORT]/DATABASE.")
+    return None
+
+
+def read_only_session(url: str) -> str:
+    """The URL with libpq's `options` asking the server for read-only transactions."""
+    parts = urlsplit(url)
+    pairs = parse_qsl(parts.query, keep_blank_values=True)
+    given = [v for k, v in pairs if k == "options"]
+    pairs = [(k, v) for k, v in pairs if k != "options"]
+    pairs.append(("options", " ".join([*given, _READ_ONLY_SESSION])))
+    query = "&".join(f"{quote(k, safe='')}={quote(v, safe='')}" for k, v in pairs)
+    return urlunsplit(parts._replace(query=query))
+
+
+def _command_line(pid: int) -> str:
+    """A process's command line, shortened, or '' where /proc does not say."""
+    try:
+        raw = Path(f"/proc/{pid}/cmdline").read_bytes()
+    except OSError:
+        return ""
+    text = " ".join(raw.decode(errors="replace").replace("\0", " ").split())
+    return text if len(text) <= 90 else text[:87] + "..."
+
+
+def _lock_mode(path: Path, pid: int) -> str | None:
+    """'reading' or 'writing' if /proc/locks shows `pid` holding a lock on this file."""
+    try:
+        st = path.stat()
+        lines = Path("/proc/locks").read_text().splitlines()
+    except OSError:
+        return None
+    where = f"{os.major(st.st_dev):02x}:{os.minor(st.st_dev):02x}:{st.st_ino}"
+    for line in lines:
+        fields = line.split()
+        if len(fields) >= 6 and fields[4] == str(pid) and fields[5] == where:
+            return {"READ": "reading", "WRITE": "writing"}.get(fields[3])
     return None
 
 
@@ -244,14 +326,6 @@ def postgres_extension() -> Path:
 
 def _quote(text) -> str:
     return str(text).replace("'", "''")
-
-
-def _literal(value) -> str:
-    if isinstance(value, bool):
-        return "true" if value else "false"
-    if isinstance(value, (int, float)):
-        return str(value)
-    return f"'{_quote(value)}'"
 
 
 def _netloc(parts) -> str:

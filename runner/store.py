@@ -2,7 +2,8 @@
 and knows nothing of scikit-learn.
 
 One class, two locations (`locations.py`): a DuckDB file, or a PostgreSQL database a team
-shares, attached through DuckDB so that the same SQL serves both. Every operation opens a
+shares, attached through DuckDB so that the same SQL serves both. A user's own query runs
+apart, read-only by construction (`sandbox.py`); export and merge are in `transfer.py`. Every operation opens a
 short-lived connection and closes it, so a sweep never holds a file's lock for long: two
 sweeps can write to one store in turn and another terminal can query while a sweep runs.
 Each batch is one transaction: it lands whole or not at all."""
@@ -11,23 +12,18 @@ from __future__ import annotations
 
 import contextlib
 import json
-import os
-import shutil
-import tempfile
 import time
 from contextlib import contextmanager
-from dataclasses import dataclass
 from pathlib import Path
 from typing import Callable, Iterator
 
 import duckdb
 import pandas as pd
 
-from .errors import QueryError, StoreError
+from .errors import StoreError
 from .locations import FileLocation, ServerLocation, locate
 
-__all__ = ["Store", "SCHEMA_VERSION", "DEFAULT_STORE", "TABLES", "export_store", "merge_store",
-           "MergeResult", "EXPORT_FORMATS"]
+__all__ = ["Store", "SCHEMA_VERSION", "DEFAULT_STORE", "TABLES", "VIEW_SQL", "Notices"]
 
 SCHEMA_VERSION = 2
 """2: cells.position keeps spec order explicit (a server table has no insertion order)."""
@@ -90,7 +86,7 @@ def _is_conflict(exc: Exception) -> bool:
     return any(w in str(exc) for w in _CONFLICT_WORDS)
 
 
-_VIEWS = """
+VIEW_SQL = """
 create or replace view cell_summary as
 select f.sweep_id, f.cell_id, c.model, c.family, c.params, c.complexity_rank, f.metric,
        avg(f.value) as mean, stddev_samp(f.value) as sd,
@@ -106,6 +102,21 @@ TABLES = ("sweeps", "metrics", "cells", "fold_scores", "test_scores", "failures"
 """Every table of results, in the order a copy must fill them."""
 
 
+class Notices:
+    """Passes each kind of notice on once, however many stores (or retries) share it: a
+    run that waits for a busy file says so once, not once per write."""
+
+    def __init__(self, tell: Callable[[str], None]):
+        self.tell = tell
+        self.said: set[str] = set()
+
+    def __call__(self, message: str, kind: str | None = None) -> None:
+        key = kind or message
+        if key not in self.said:
+            self.said.add(key)
+            self.tell(message)
+
+
 class Store:
     """Sweeps, cells and scores in a DuckDB file or a team's PostgreSQL database."""
 
@@ -114,39 +125,50 @@ class Store:
         self.location = locate(path)
         self.path = self.location.path
         self.wait_seconds = wait_seconds
-        self.on_wait = on_wait
+        self.on_wait = on_wait if on_wait is None or isinstance(on_wait, Notices) \
+            else Notices(on_wait)
         self._held = None  # the connection `session()` holds, if any
         self._schema_checked = False
+        self._privileges_checked = False
 
     # -- connections -------------------------------------------------------------------
     @contextmanager
-    def _connect(self, *, read_only: bool, config: dict | None = None
-                 ) -> Iterator[duckdb.DuckDBPyConnection]:
+    def _connect(self, *, read_only: bool, config: dict | None = None,
+                 writing: bool | None = None) -> Iterator[duckdb.DuckDBPyConnection]:
+        """A short-lived connection; `writing` (default: not read_only) says whether it
+        serves a write, which waits for a busy file however long it takes."""
         if self._held is not None and not config:
             yield self._held
             return
-        deadline = time.monotonic() + self.wait_seconds
-        delay, told = 0.05, False
-        while True:
-            try:
-                con = self.location.connect(read_only=read_only, config=config)
-                break
-            except duckdb.Error as exc:
-                if self.location.is_busy(exc) and time.monotonic() < deadline:
-                    if not told and self.on_wait:
-                        self.on_wait(f"store {self.path} is busy (another foldwise process is "
-                                     "writing); waiting for it...")
-                        told = True
-                    time.sleep(delay)
-                    delay = min(delay * 1.5, 0.5)
-                    continue
-                raise self.location.open_error(exc) from None
+        con = self.patiently(lambda: self.location.connect(read_only=read_only, config=config),
+                             writing=not read_only if writing is None else writing)
         if self.location.shared:
             _summary_view(con)
         try:
             yield con
         finally:
             con.close()
+
+    def patiently(self, open_: Callable, *, writing: bool):
+        """`open_()`, retried while the store file is busy: a writer waits as long as it
+        takes (a sweep never fails for a reader), a reader up to `wait_seconds`. The notice
+        naming who holds the file is given once per store (and per `on_wait`)."""
+        deadline = None if writing else time.monotonic() + self.wait_seconds
+        delay = 0.05
+        while True:
+            try:
+                return open_()
+            except duckdb.Error as exc:
+                if not self.location.is_busy(exc):
+                    raise self.location.open_error(exc) from None
+                if deadline is not None and time.monotonic() >= deadline:
+                    raise StoreError(self.location.busy_message(
+                        exc, writing=writing, limit=self.wait_seconds, gave_up=True)) from None
+                if self.on_wait:
+                    self.on_wait(self.location.busy_message(exc, writing=writing,
+                                                            limit=self.wait_seconds), "busy")
+                time.sleep(delay)
+                delay = min(delay * 1.5, 0.5)
 
     @contextmanager
     def session(self) -> Iterator["Store"]:
@@ -166,32 +188,40 @@ class Store:
         self.location.check_writable()
 
     def ensure_schema(self) -> None:
-        """Create tables and views if missing; refuse a store from a newer foldwise.
+        """Create tables and views if missing; refuse a store from a newer foldwise, a
+        database that holds tables but is no foldwise store (before writing anything into
+        it), and on a server a role that may not write sweeps.
 
         On a server several first sweeps may race to create the tables; PostgreSQL lets
         one win and the others look again on a fresh connection, which then sees them."""
         self.check_writable()
+        if not self.location.shared and self.location.exists():
+            with self._connect(read_only=True, writing=True) as con:  # changes no byte
+                if self._schema_version(con) is None:
+                    self._refuse_foreign(con)
         attempts = 20 if self.location.shared else 1
         for attempt in range(attempts):
             if self.location.shared:
                 self.location.forget_catalog()
             with self._connect(read_only=False) as con:
                 found = self._schema_version(con)
+                if found is None:
+                    self._refuse_foreign(con)
                 if found is not None and found > SCHEMA_VERSION:
                     raise StoreError(f"store {self.path} was written by a newer foldwise "
                                      f"(schema version {found}; this foldwise knows "
                                      f"{SCHEMA_VERSION}). Upgrade foldwise or use another "
                                      "store.")
                 if found == SCHEMA_VERSION:
+                    self._check_privileges(con)
                     return
                 try:
                     self._create_schema(con, found)
                     return
                 except duckdb.Error as exc:
                     con.execute("rollback")
-                    if attempt + 1 == attempts:
-                        raise StoreError(f"cannot create the tables of store {self.path}: "
-                                         f"{exc}") from None
+                    if "permission denied" in str(exc) or attempt + 1 == attempts:
+                        raise self._creation_error(exc) from None
             time.sleep(0.1 + 0.1 * attempt)
 
     def _create_schema(self, con, found: int | None) -> None:
@@ -201,13 +231,21 @@ class Store:
             con.execute("update cells set position = rowid")
         con.execute(_TABLES)
         if not self.location.shared:  # a server's view lives in each connection
-            con.execute(_VIEWS)
+            con.execute(VIEW_SQL)
         con.execute("insert or replace into foldwise_meta values ('schema_version', ?)",
                     [str(SCHEMA_VERSION)])
         con.execute("commit")
 
-    @staticmethod
-    def _schema_version(con) -> int | None:
+    def _creation_error(self, exc: Exception) -> StoreError:
+        first = str(exc).strip().splitlines()[0]
+        if "permission denied" in first:
+            return StoreError(f"cannot create the tables of team store {self.path}: {first}. "
+                              "The first sweep into a team store (and an upgrade) must be run "
+                              "by a role that may create tables in the database's schema, "
+                              "such as the owner; README 'Working as a team' has the roles.")
+        return StoreError(f"cannot create the tables of store {self.path}: {first}")
+
+    def _schema_version(self, con) -> int | None:
         has = con.execute("select count(*) from information_schema.tables "
                           "where table_name = 'foldwise_meta' and table_catalog = "
                           "current_database() and table_schema = current_schema()"
@@ -216,7 +254,64 @@ class Store:
             return None
         row = con.execute("select value from foldwise_meta where key = 'schema_version'"
                           ).fetchone()
-        return int(row[0]) if row else None
+        if row is None:
+            return None
+        try:
+            return int(row[0])
+        except (TypeError, ValueError):
+            raise StoreError(f"store {self.path} is damaged: its foldwise_meta table gives "
+                             f"schema_version {str(row[0])[:40]!r}, not a number. Restore "
+                             "the store from a copy, or point --store at another store."
+                             ) from None
+
+    def _tables_here(self, con) -> list[str]:
+        """Tables and views of this database (on a server: of its current schema)."""
+        where = "table_schema = current_schema()" if self.location.shared else "true"
+        return [t for (t,) in con.execute(
+            "select table_name from information_schema.tables where table_catalog = "
+            f"current_database() and {where} order by table_name").fetchall()]
+
+    def _refuse_foreign(self, con) -> None:
+        """Refuse a database without foldwise's marker unless it holds no table at all."""
+        tables = self._tables_here(con)
+        if tables:
+            shown = ", ".join(tables[:5]) + (", ..." if len(tables) > 5 else "")
+            raise StoreError(f"{self.path} is a database but not a foldwise store: it holds "
+                             f"{len(tables)} table(s) ({shown}) and no foldwise_meta table. "
+                             "foldwise writes only into its own stores or an empty database, "
+                             "so nothing was written; give --store (or the spec's `store`) "
+                             "a new path.")
+
+    _WRITES = [(t, "INSERT") for t in TABLES] + [("sweeps", "UPDATE"), ("cells", "UPDATE")]
+
+    def _check_privileges(self, con) -> None:
+        """On a server, refuse before anything is written if this role may not write sweeps
+        (INSERT on every table, UPDATE on sweeps and cells); checked once per store."""
+        if not self.location.shared or self._privileges_checked:
+            return
+        pairs = ", ".join(f"('{t}', '{p}')" for t, p in self._WRITES)
+        missing = con.execute(f"""select * from postgres_query('{self.location.alias}', $$
+            select current_user::text as role, w.p as privilege, w.t as table_name
+            from (values {pairs}) as w(t, p)
+            where not has_table_privilege(quote_ident(current_schema()) || '.' ||
+                                          quote_ident(w.t), w.p)
+            order by 2, 3 $$)""").fetchall()
+        if missing:
+            role = missing[0][0]
+            lacks = []
+            for privilege in dict.fromkeys(p for _, p, _ in missing):
+                tables = [t for _, p, t in missing if p == privilege]
+                every = privilege == "INSERT" and len(tables) == len(TABLES)
+                lacks.append(f"{privilege} on " + ("every foldwise table" if every
+                                                    else ", ".join(tables)))
+            lacks = "; ".join(lacks)
+            raise StoreError(f"role {role} may read team store {self.path} but not write "
+                             f"sweeps into it: it lacks {lacks}. `run` and `merge` need "
+                             "INSERT on every foldwise table and UPDATE on sweeps and cells; "
+                             "ask the database's owner to grant them (README 'Working as a "
+                             "team': grant foldwise_writer to " + role + "), or use a role "
+                             "that has them. Nothing was written.")
+        self._privileges_checked = True
 
     # -- writing ---------------------------------------------------------------------------
     def _transaction(self, work: Callable, *, what: str):
@@ -389,6 +484,12 @@ class Store:
             return
         with self._connect(read_only=True) as con:
             found = self._schema_version(con)
+        if found is None and self.location.shared:  # tables made since this process looked
+            self.location.forget_catalog()
+            with self._connect(read_only=True) as con:
+                found = self._schema_version(con)
+                if found is None:
+                    raise self.no_schema_error(con)
         if found is None:
             raise StoreError(f"{self.path} is not a foldwise store (no foldwise_meta table). "
                              "Run a sweep into it first (`foldwise run SPEC --store ...`), or "
@@ -404,27 +505,24 @@ class Store:
                                  f"version {found}) and could not be upgraded: {exc}") from None
         self._schema_checked = True
 
+    def no_schema_error(self, con) -> StoreError:
+        """Why a database without foldwise_meta cannot be read, in one paragraph."""
+        if self.location.shared and not self._tables_here(con):
+            return StoreError(f"team store {self.path} holds no foldwise tables yet: the store "
+                              "is being created by a first sweep (try again in a moment), or "
+                              "no sweep has run into it (`foldwise run SPEC --store ...`).")
+        return StoreError(f"{self.path} is not a foldwise store (no foldwise_meta table). Run "
+                          "a sweep into it first (`foldwise run SPEC --store ...`), or point "
+                          "--store at a foldwise store.")
+
     def user_query(self, sql: str, *, allow_files: bool = False) -> pd.DataFrame:
-        """Run one user-supplied SELECT on a read-only connection; anything else is refused."""
+        """Answer one query of the user's, read-only by construction (runner/sandbox.py):
+        anything that would change the store, or with `allow_files` any file, is refused or
+        cannot happen."""
+        from .sandbox import run_user_query
+
         self._require()
-        config = {} if allow_files else {"enable_external_access": False}
-        with self._connect(read_only=True, config=config) as con:
-            try:
-                statements = con.extract_statements(sql)
-            except duckdb.Error as exc:
-                raise QueryError(f"the query does not parse: {exc}") from None
-            if len(statements) != 1:
-                raise QueryError(f"give exactly one query, got {len(statements)} statements.")
-            kind = statements[0].type.name
-            if kind not in ("SELECT", "EXPLAIN"):
-                raise QueryError(f"only read queries (SELECT, WITH, DESCRIBE, SUMMARIZE, "
-                                 f"EXPLAIN) are allowed; refused a {kind} statement. The store "
-                                 "is changed only by foldwise's own commands.")
-            try:
-                return con.execute(sql).df()
-            except duckdb.Error as exc:
-                first = str(exc).splitlines()[0]
-                raise QueryError(f"the query failed: {first}") from None
+        return run_user_query(self, sql, allow_files=allow_files)
 
     def latest_sweep_id(self) -> str:
         """The most recently started sweep."""
@@ -451,166 +549,18 @@ class Store:
 def _summary_view(con) -> None:
     """The summary view, made for this connection only (a server keeps no DuckDB views)."""
     try:
-        con.execute(_VIEWS.replace("create or replace view", "create or replace temp view"))
+        con.execute(VIEW_SQL.replace("create or replace view", "create or replace temp view"))
     except duckdb.CatalogException:
         pass  # no tables yet
 
 
-EXPORT_MANIFEST = "foldwise-export.json"
-EXPORT_FORMATS = ("parquet", "csv")
+_MOVED = ("export_store", "merge_store", "MergeResult", "EXPORT_FORMATS", "EXPORT_MANIFEST")
 
 
-@dataclass
-class MergeResult:
-    """What a merge copied: rows per table, and the sweeps it left out and why."""
+def __getattr__(name: str):
+    """Export and merge live in runner/transfer.py; they stay importable from here."""
+    if name in _MOVED:
+        from . import transfer
 
-    rows: dict[str, int]
-    new_sweeps: list[str]
-    present: list[str]
-    running: list[str]
-
-
-def export_store(store: Store, folder: str | Path, fmt: str = "parquet") -> dict[str, int]:
-    """Write every table of the store as one file per table (parquet or csv) into `folder`,
-    with a manifest that `merge_store` reads back. Returns rows written per table.
-
-    Files are written to a temporary folder inside `folder` and moved in place at the end,
-    so an interrupted export leaves no half-written table behind."""
-    if fmt not in EXPORT_FORMATS:
-        raise StoreError(f"unknown export format '{fmt}'; choose parquet or csv.")
-    folder = Path(folder)
-    store._require()
-    if folder.exists() and not folder.is_dir():
-        raise StoreError(f"{folder} exists and is not a folder; give a folder to export into.")
-    clash = [name for name in [EXPORT_MANIFEST, *(f"{t}.{fmt}" for t in TABLES)]
-             if (folder / name).exists()]
-    if clash:
-        raise StoreError(f"{folder} already holds an export ({clash[0]}); choose an empty or "
-                         "new folder, so no earlier export is overwritten.")
-    folder.mkdir(parents=True, exist_ok=True)
-    staging = Path(tempfile.mkdtemp(prefix=".export-", dir=folder))
-    options = "format parquet" if fmt == "parquet" else "format csv, header true"
-    counts = {}
-    store._check_version()  # refuses a non-store, upgrades an older one
-    try:
-        with store._connect(read_only=True) as con:
-            for table in TABLES:
-                target = staging / f"{table}.{fmt}"
-                counts[table] = con.execute(f"copy (select * from {table} order by all) to "
-                                            f"'{_sql_text(target)}' ({options})"
-                                            ).fetchone()[0]
-        manifest = {"schema_version": SCHEMA_VERSION, "format": fmt, "tables": counts,
-                    "exported_from": store.location.kind}
-        (staging / EXPORT_MANIFEST).write_text(json.dumps(manifest, indent=2) + "\n")
-        for item in [*(f"{t}.{fmt}" for t in TABLES), EXPORT_MANIFEST]:
-            os.replace(staging / item, folder / item)
-    finally:
-        shutil.rmtree(staging, ignore_errors=True)
-    return counts
-
-
-def _export_sources(folder: Path) -> dict[str, str]:
-    """SQL table expressions reading an export folder's files, after checking its manifest."""
-    manifest_path = folder / EXPORT_MANIFEST
-    try:
-        manifest = json.loads(manifest_path.read_text())
-        fmt, version = manifest["format"], int(manifest["schema_version"])
-    except (OSError, ValueError, KeyError, TypeError):
-        raise StoreError(f"{folder} is not a foldwise export (no readable {EXPORT_MANIFEST}); "
-                         "create one with `foldwise export DIR`.") from None
-    if version > SCHEMA_VERSION or fmt not in EXPORT_FORMATS:
-        raise StoreError(f"export {folder} was written by a newer foldwise (schema version "
-                         f"{version}, format {fmt}); upgrade foldwise to read it.")
-    sources = {}
-    for table in TABLES:
-        path = folder / f"{table}.{fmt}"
-        if not path.exists():
-            raise StoreError(f"export {folder} lacks {path.name}; export the store again.")
-        reader = (f"read_parquet('{_sql_text(path)}')" if fmt == "parquet" else
-                  f"read_csv('{_sql_text(path)}', header = true, all_varchar = true)")
-        sources[table] = reader
-    return sources
-
-
-def merge_store(store: Store, other: str | Path) -> MergeResult:
-    """Copy into `store` every sweep of `other` (a store file, a server URL or an export
-    folder) that it does not hold yet, with all of that sweep's rows, in one transaction.
-
-    Sweeps already present (by sweep id) are skipped whole; sweeps still marked running are
-    left out, since their rows are not complete yet."""
-    from .locations import locate
-
-    store.ensure_schema()
-    if isinstance(other, (str, Path)) and Path(str(other)).is_dir():
-        sources, attach = _export_sources(Path(str(other))), None
-    else:
-        where = locate(other)
-        if str(where) == str(store.location) or (
-                where.kind == "file" and store.location.kind == "file"
-                and where.exists() and store.location.exists()
-                and Path(where.path).resolve() == Path(store.location.path).resolve()):
-            raise StoreError(f"{other} is this store itself; name another store to merge.")
-        if not where.exists():
-            raise StoreError(f"no store or export folder at {other}. Give a store file, a "
-                             "postgresql:// URL or a folder written by `foldwise export`.")
-        attach = where
-        sources = {t: f"_other.{t}" for t in TABLES}
-    with store._connect(read_only=False) as con, _attached(con, attach, other):
-        theirs = con.execute(f"select sweep_id, status from {sources['sweeps']}").df()
-        mine = set(con.execute("select sweep_id from sweeps").df()["sweep_id"])
-        present = sorted(s for s in theirs["sweep_id"] if s in mine)
-        running = sorted(theirs.loc[(theirs["status"] == "running")
-                                    & ~theirs["sweep_id"].isin(mine), "sweep_id"])
-        new = sorted(set(theirs["sweep_id"]) - mine - set(running))
-        rows = {t: 0 for t in TABLES}
-        if new:
-            con.register("_new_sweeps", pd.DataFrame({"sweep_id": new}))
-            con.execute("begin")
-            try:
-                rows["metrics"] = con.execute(
-                    f"insert into metrics by name select * from {sources['metrics']} m "
-                    "where m.metric not in (select metric from metrics)").fetchone()[0]
-                for table in TABLES:
-                    if table == "metrics":
-                        continue
-                    rows[table] = con.execute(
-                        f"insert into {table} by name select * from {sources[table]} s "
-                        "where s.sweep_id in (select sweep_id from _new_sweeps)"
-                    ).fetchone()[0]
-                con.execute("commit")
-            except duckdb.Error as exc:
-                con.execute("rollback")
-                raise StoreError(f"merging {other} into {store.path} failed, nothing was "
-                                 f"copied: {str(exc).splitlines()[0]}") from None
-    return MergeResult({t: int(n) for t, n in rows.items()}, new, present, running)
-
-
-@contextmanager
-def _attached(con, where, other) -> Iterator[None]:
-    """`where` (a store file or server) attached read-only as `_other` for the duration,
-    after checking it is a foldwise store this foldwise can read; nothing for a folder."""
-    if where is None:
-        yield
-        return
-    try:
-        where.attach_into(con, "_other")
-    except duckdb.Error as exc:
-        raise where.open_error(exc) from None
-    try:
-        found = con.execute("select count(*) from information_schema.tables where "
-                            "table_catalog = '_other' and table_name = 'foldwise_meta'"
-                            ).fetchone()[0]
-        if not found:
-            raise StoreError(f"{other} is not a foldwise store (no foldwise_meta table).")
-        version = int(con.execute("select value from _other.foldwise_meta where key = "
-                                  "'schema_version'").fetchone()[0])
-        if version > SCHEMA_VERSION:
-            raise StoreError(f"store {other} was written by a newer foldwise (schema version "
-                             f"{version}); upgrade foldwise to merge it.")
-        yield
-    finally:
-        con.execute("detach _other")
-
-
-def _sql_text(text) -> str:
-    return str(text).replace("'", "''")
+        return getattr(transfer, name)
+    raise AttributeError(f"module 'runner.store' has no attribute {name!r}")

@@ -4,12 +4,15 @@ and every query answering there exactly as on a DuckDB file holding the same swe
 from __future__ import annotations
 
 import io
+import json
 import subprocess
 import sys
+from pathlib import Path
 
 import pandas as pd
 import pytest
 
+from runner.errors import StoreError
 from runner.store import Store, merge_store
 
 from .helpers import diabetes_frame, write_spec
@@ -180,3 +183,96 @@ def test_explain_step_plots_and_report_work_on_a_server(pg, explained, tmp_path)
                                       check_exact=False, rtol=1e-12)
     report = write_report(server, tmp_path / "report.html", again.sweep_id)
     assert "forest" in report.read_text() and report.stat().st_size > 50_000
+
+
+# -- least privilege: the roles README documents ----------------------------------------------
+def _readme_roles_sql(database: str) -> str:
+    """The SQL block README gives for the team roles, for this database."""
+    text = (Path(__file__).resolve().parents[1] / "README.md").read_text()
+    block = text.split("```sql\n-- foldwise roles", 1)[1].split("```", 1)[0]
+    return ("-- foldwise roles" + block).replace("database foldwise", f'database "{database}"')
+
+
+@pytest.fixture(scope="module")
+def roles(team, file_copy, tmp_path_factory):
+    """A team store with the README's roles: the owner merged three sweeps, then ran the
+    README's SQL; ana writes, ben reads. Returns (pg, owner_url, {role: url}, env)."""
+    pg = team[0]
+    url = pg.create_database("team_roles")
+    merge_store(Store(url), file_copy.path)
+    pg.psql(_readme_roles_sql("team_roles"), "team_roles")
+    passfile = tmp_path_factory.mktemp("roles") / "pgpass"
+    lines = [pg.passfile.read_text().strip()]
+    for role in ("ana", "ben"):
+        secret = f"{role}-{pg.password}"
+        pg.psql(f"alter role {role} password '{secret}'")
+        lines.append(f"127.0.0.1:{pg.port}:*:{role}:{secret}")
+    passfile.write_text("\n".join(lines) + "\n")
+    passfile.chmod(0o600)
+    urls = {role: url.replace(f"//{pg.user}@", f"//{role}@") for role in ("ana", "ben")}
+    return pg, url, urls, {**pg.env(), "PGPASSFILE": str(passfile)}
+
+
+def _counts(pg, database: str) -> str:
+    return pg.psql("select (select count(*) from sweeps) || ',' || (select count(*) from "
+                   "cells) || ',' || (select count(*) from fold_scores)", database)
+
+
+def test_a_reader_role_reads_everything(roles, tmp_path):
+    pg, _, urls, env = roles
+    sweep = Store(roles[1]).query("select min(sweep_id) s from sweeps").s[0]
+    for command in (["summary", "--sweep", sweep], ["pick", "--sweep", sweep],
+                    ["compare", "--sweep", sweep], ["path", "--model", "ridge", "--sweep", sweep],
+                    ["sweeps"], ["sql", "select count(*) as n from fold_scores"],
+                    ["report", "--sweep", sweep, "--out", tmp_path / "r.html"]):
+        out = _cli(*map(str, command), "--store", urls["ben"], env=env)
+        assert "Error" not in out.stderr, (command, out.stderr)
+    out = _cli("sql", "select count(*) as n from fold_scores", "--format", "json", "--store",
+               urls["ben"], env=env)
+    assert json.loads(out.stdout) == [{"n": (8 + 7 + 9) * K * R * N_METRICS}]
+    assert (tmp_path / "r.html").stat().st_size > 10_000
+
+
+def test_a_reader_role_cannot_run_and_nothing_is_written(roles, tmp_path, diabetes_csv):
+    pg, _, urls, env = roles
+    before = _counts(pg, "team_roles")
+    spec = write_spec(tmp_path, "ridge: {family: linear, grid: {penalty: l2, alpha: [1.0]}}")
+    out = _cli("run", str(spec), "--store", urls["ben"], "--jobs", "1", "--quiet", env=env,
+               check=False)
+    assert out.returncode == 2 and "Traceback" not in out.stderr, out.stderr
+    assert out.stderr.startswith("Error: role ben may read") and out.stderr.count("\n") == 1
+    assert "lacks INSERT on every foldwise table; UPDATE on cells, sweeps." in out.stderr
+    assert "grant foldwise_writer to ben" in out.stderr and "Nothing was written" in out.stderr
+    out = _cli("merge", str(tmp_path / "none.duckdb"), "--store", urls["ben"], env=env,
+               check=False)
+    assert out.returncode == 2 and "lacks INSERT" in out.stderr, out.stderr
+    assert _counts(pg, "team_roles") == before
+
+
+def test_a_writer_role_runs_a_sweep(roles, tmp_path, diabetes_csv):
+    pg, _, urls, env = roles
+    before = [int(n) for n in _counts(pg, "team_roles").split(",")]
+    spec = write_spec(tmp_path, "ridge: {family: linear, grid: {penalty: l2, alpha: [1.0]}}")
+    _cli("run", str(spec), "--store", urls["ana"], "--jobs", "1", "--quiet", env=env)
+    after = [int(n) for n in _counts(pg, "team_roles").split(",")]
+    assert after == [before[0] + 1, before[1] + 1, before[2] + K * R * N_METRICS]
+    assert pg.psql("select user_name is not null, status from sweeps order by started_at "
+                   "desc limit 1", "team_roles") == "t|finished"
+
+
+# -- a store being created ------------------------------------------------------------------
+def test_reading_a_team_store_being_created_says_so(pg, file_copy):
+    """A reader that meets an empty database (a first sweep still creating the tables) is
+    told so, and once the tables exist the same process reads them (no stale catalogue)."""
+    from runner.queries import sweeps
+
+    url = pg.create_database("team_creating")
+    for command in (["sql", "select count(*) from sweeps"], ["summary"], ["sweeps"]):
+        out = _cli(*command, "--store", url, env=pg.env(), check=False)
+        assert out.returncode == 2 and out.stderr.count("\n") == 1, out.stderr
+        assert "holds no foldwise tables yet: the store is being created" in out.stderr
+    with pytest.raises(StoreError, match="being created"):
+        sweeps(Store(url))
+    _cli("merge", str(file_copy.path), "--store", url, env=pg.env())  # another process
+    assert len(sweeps(Store(url))) == 3
+    assert Store(url).user_query("select count(*) as n from sweeps").n[0] == 3

@@ -1,0 +1,175 @@
+"""What the store refuses and how it waits: a database that is not a foldwise store is
+never written into, a damaged schema marker is one clear error, a writer waits for a
+reader as long as it takes (saying once who holds the file), and a reader gives up after
+its limit naming the writer."""
+
+from __future__ import annotations
+
+import hashlib
+import subprocess
+import sys
+import textwrap
+import time
+from pathlib import Path
+
+import duckdb
+import pytest
+from click.testing import CliRunner
+
+from runner.cli import main
+from runner.errors import StoreError
+from runner.store import Store
+
+from .helpers import write_spec
+from .store_builder import write_sweep
+
+MODELS = """
+ridge: {family: linear, grid: {penalty: l2, alpha: [0.1, 10.0]}}
+"""
+
+
+def _cli(*args):
+    return CliRunner().invoke(main, [str(a) for a in args], catch_exceptions=False)
+
+
+def _digest(path: Path) -> str:
+    return hashlib.sha256(path.read_bytes()).hexdigest()
+
+
+def _foreign(path: Path, sql: str) -> Path:
+    con = duckdb.connect(str(path))
+    con.execute(sql)
+    con.close()
+    return path
+
+
+@pytest.mark.parametrize("tables", [
+    "create table invoices (id integer, total decimal(10, 2)); "
+    "insert into invoices values (1, 19.99), (2, 5.00)",
+    "create table sweeps (id integer, broom varchar); insert into sweeps values (1, 'birch')",
+], ids=["invoices", "own sweeps table"])
+def test_a_database_that_is_not_a_store_is_never_written(tmp_path, diabetes_csv, tables):
+    spec = write_spec(tmp_path, MODELS)
+    target = _foreign(tmp_path / "theirs.duckdb", tables)
+    before = _digest(target)
+    for args in (["run", spec, "--jobs", "1", "--quiet"], ["merge", tmp_path / "none.duckdb"]):
+        if args[0] == "merge":
+            write_sweep(tmp_path / "none.duckdb", {"ridge": [[1.0, 2.0]]}, k=2, repeats=1)
+        out = _cli(*args, "--store", target)
+        assert out.exit_code == 2, out.output
+        assert out.output.startswith("Error: ") and out.output.count("\n") == 1, out.output
+        assert "not a foldwise store" in out.output and "nothing was written" in out.output
+        assert _digest(target) == before
+    con = duckdb.connect(str(target), read_only=True)
+    names = [t for (t,) in con.execute("select table_name from information_schema.tables")
+             .fetchall()]
+    con.close()
+    assert len(names) == 1
+
+
+def test_an_empty_database_becomes_a_store(tmp_path):
+    empty = tmp_path / "empty.duckdb"
+    duckdb.connect(str(empty)).close()
+    store = Store(empty)
+    store.ensure_schema()
+    assert store.query("select value from foldwise_meta").value.tolist() == ["2"]
+
+
+def test_a_schema_version_that_is_not_a_number_is_one_clear_error(tmp_path):
+    path = tmp_path / "store.duckdb"
+    write_sweep(path, {"ridge": [[1.0, 2.0]]}, k=2, repeats=1)
+    with duckdb.connect(str(path)) as con:
+        con.execute("update foldwise_meta set value = 'two' where key = 'schema_version'")
+    before = _digest(path)
+    for args in (["summary"], ["sql", "select 1"], ["sweeps"]):
+        out = _cli(*args, "--store", path)
+        if args[0] == "sql":  # a user's query does not read the marker
+            assert out.exit_code == 0, out.output
+            continue
+        assert out.exit_code == 2, out.output
+        assert "schema_version 'two', not a number" in out.output
+        assert out.output.count("\n") == 1
+    with pytest.raises(StoreError, match="not a number"):
+        Store(path).ensure_schema()
+    assert _digest(path) == before
+
+
+HOLDER = """
+import sys, time, duckdb
+path, mode, seconds, hold = sys.argv[1], sys.argv[2], float(sys.argv[3]), float(sys.argv[4])
+end = time.monotonic() + seconds
+while time.monotonic() < end:
+    try:
+        con = duckdb.connect(path, read_only=mode == "read")
+    except duckdb.IOException:  # the other side has it this moment
+        time.sleep(0.05)
+        continue
+    print("holding", flush=True)
+    time.sleep(hold)
+    con.close()
+    time.sleep(0.05)
+"""
+
+
+def _hold(path: Path, mode: str, seconds: float, *, each: float = 0.9) -> subprocess.Popen:
+    """Another process holding the file for reading or writing, letting go briefly every
+    `each` seconds until `seconds` have passed."""
+    proc = subprocess.Popen([sys.executable, "-c", textwrap.dedent(HOLDER), str(path), mode,
+                             str(seconds), str(each)], stdout=subprocess.PIPE, text=True)
+    assert proc.stdout.readline().strip() == "holding"
+    return proc
+
+
+def test_a_writer_waits_for_a_reader_however_long_and_says_so_once(tmp_path):
+    path = tmp_path / "store.duckdb"
+    write_sweep(path, {"ridge": [[1.0, 2.0]]}, k=2, repeats=1)
+    told = []
+    store = Store(path, wait_seconds=0.2, on_wait=told.append)
+    reader = _hold(path, "read", 2.5)
+    start = time.monotonic()
+    for i in range(4):  # each write meets the reader again: still one notice
+        store.finish_sweep("20260101-000000-aaaa", f"finished-{i}")
+        time.sleep(0.3)
+    reader.wait(timeout=30)
+    assert time.monotonic() - start > 0.9  # it waited, well past its reader limit of 0.2 s
+    assert store.query("select status from sweeps").status.tolist() == ["finished-3"]
+    assert len(told) == 1, told
+    assert f"process {reader.pid}" in told[0] and "for reading" in told[0], told[0]
+    assert "however long that takes" in told[0]
+
+
+def test_a_reader_gives_up_after_its_limit_naming_the_writer(tmp_path):
+    path = tmp_path / "store.duckdb"
+    write_sweep(path, {"ridge": [[1.0, 2.0]]}, k=2, repeats=1)
+    writer = _hold(path, "write", 60.0, each=60.0)  # without a break
+    try:
+        store = Store(path, wait_seconds=0.5)
+        for read in (lambda: store.query("select count(*) from sweeps"),
+                     lambda: store.user_query("select count(*) from sweeps"),
+                     lambda: store.user_query("select 1", allow_files=True)):
+            with pytest.raises(StoreError) as err:
+                read()
+            text = str(err.value)
+            assert "still busy after 0.5 s" in text, text
+            assert f"process {writer.pid}" in text and "for writing" in text, text
+    finally:
+        writer.kill()
+        writer.wait()
+
+
+def test_a_run_meeting_a_reader_finishes_and_says_busy_once(tmp_path, diabetes_csv):
+    spec = write_spec(tmp_path, MODELS)
+    path = tmp_path / "store.duckdb"
+    first = subprocess.run([sys.executable, "-m", "runner", "run", str(spec), "--store",
+                            str(path), "--jobs", "1", "--quiet"], capture_output=True,
+                           text=True)
+    assert first.returncode == 0, first.stderr
+    reader = _hold(path, "read", 8.0)  # longer than the run takes to start, even when slow
+    out = subprocess.run([sys.executable, "-m", "runner", "run", str(spec), "--store",
+                          str(path), "--jobs", "1", "--quiet", "--fresh"], capture_output=True,
+                         text=True)
+    reader.wait(timeout=30)
+    assert out.returncode == 0, out.stderr
+    assert out.stderr.count("is busy") == 1, out.stderr
+    statuses = Store(path).query("select status from sweeps").status.tolist()
+    assert statuses == ["finished", "finished"]
