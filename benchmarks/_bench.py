@@ -16,8 +16,8 @@ import pandas as pd
 from sklearn.model_selection import RepeatedKFold
 
 from _table import print_table  # noqa: F401  (re-exported for the benchmarks)
-from runner.engine import prepare, run_sweep
-from runner.spec import parse_spec
+from runner.write.engine import prepare, run_sweep
+from runner.write.spec import parse_spec
 from runner.store import Store
 
 JOBS = 2
@@ -128,7 +128,7 @@ def median(values: list[float]) -> float:
 
 
 def _import_everything(_) -> None:
-    import runner.engine  # noqa: F401
+    import runner.write.engine  # noqa: F401
     import runner.families.forest  # noqa: F401
     import runner.families.linear  # noqa: F401
     import runner.families.pruned_tree  # noqa: F401

@@ -32,9 +32,9 @@ sys.path.insert(0, str(Path(__file__).resolve().parent))
 from _bench import (JOBS, K, REPEATS, SCORING, Case, grid_scores, interleaved,  # noqa: E402
                     max_difference, median, print_table, warm_workers)
 
-from runner.engine import _run_task  # noqa: E402
+from runner.write.engine import _run_task  # noqa: E402
 from runner.families import load_family  # noqa: E402
-from runner.resampling import refit_seed  # noqa: E402
+from runner.write.resampling import refit_seed  # noqa: E402
 
 CHECK_SPLITS = [0, K]  # the first fold of each of the first two repeats
 

@@ -37,7 +37,7 @@ REPO = Path(__file__).resolve().parent.parent
 sys.path.insert(0, str(REPO))
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 from _table import print_table  # noqa: E402
-from runner.locations import postgres_extension  # noqa: E402
+from runner.store.locations import postgres_extension  # noqa: E402
 from runner.store import Store  # noqa: E402
 
 CELLS, REPEATS, FOLDS, METRICS = 250, 5, 10, ["rmse", "r2"]
@@ -98,7 +98,7 @@ def attached(url: str, sql: str) -> pd.DataFrame:
 
 
 def _view_body() -> str:
-    from runner.store import VIEW_SQL
+    from runner.store.schema import VIEW_SQL
 
     return VIEW_SQL.split(" as\n", 1)[1]
 

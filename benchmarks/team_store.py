@@ -43,7 +43,7 @@ REPO = Path(__file__).resolve().parent.parent
 sys.path.insert(0, str(REPO))
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 from _table import print_table  # noqa: E402
-from runner.locations import postgres_extension  # noqa: E402
+from runner.store.locations import postgres_extension  # noqa: E402
 CONFIG = {"autoinstall_known_extensions": False, "autoload_known_extensions": False}
 
 CELLS_PER_SWEEP, REPEATS, FOLDS = 250, 5, 10  # 25,000 fold rows per sweep

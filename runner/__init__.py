@@ -1,6 +1,9 @@
-"""foldwise: tune and compare regression models by repeated cross-validation, keeping every
-fold score in DuckDB. The public API is re-exported here; nothing imported at this level
-pulls in scikit-learn, DuckDB or pandas, so `foldwise --help` starts fast."""
+"""foldwise: tune and compare models by repeated cross-validation, keeping every fold score
+in DuckDB. The package has two sides — `write` (spec to stored scores) and `read` (stored
+scores to results, views, figures and the report) — around the `store`, with the
+`families` and `metrics` as plug-in records both ask. The public API is re-exported here;
+nothing imported at this level pulls in scikit-learn, DuckDB or pandas, so
+`foldwise --help` starts fast."""
 
 __version__ = "0.1.0"
 
@@ -14,18 +17,21 @@ __all__ = ["__version__", "FoldwiseError", "SpecError", "DataError", "StoreError
 
 
 # name -> (module, attribute), imported on first use so `import runner` stays light. Names
-# differ from the submodules' (runner.picks is a module) so an import never shadows them.
+# differ from the submodules' (runner.store is a package) so an import never shadows them.
 _LAZY = {
-    "Spec": ("spec", "Spec"), "load_spec": ("spec", "load_spec"),
-    "parse_spec": ("spec", "parse_spec"), "spec_json_schema": ("spec", "spec_json_schema"),
+    "Spec": ("write.spec", "Spec"), "load_spec": ("write.spec", "load_spec"),
+    "parse_spec": ("write.spec", "parse_spec"),
+    "spec_json_schema": ("write.spec", "spec_json_schema"),
     "Store": ("store", "Store"),
-    "run_sweep": ("engine", "run_sweep"), "check_spec": ("engine", "check_spec"),
-    "summary": ("queries", "summary"), "pick_table": ("queries", "picks"),
-    "compare_table": ("queries", "compare"), "complexity_table": ("queries", "complexity_table"),
-    "importance_table": ("queries", "importance_table"),
-    "stability_table": ("queries", "stability_table"),
-    "figure": ("plots", "make_figure"), "write_report": ("report", "write_report"),
-    "merge_store": ("transfer", "merge_store"), "export_store": ("transfer", "export_store"),
+    "run_sweep": ("write.engine", "run_sweep"), "check_spec": ("write.engine", "check_spec"),
+    "summary": ("read.queries", "summary"), "pick_table": ("read.queries", "picks"),
+    "compare_table": ("read.queries", "compare"),
+    "complexity_table": ("read.queries", "complexity_table"),
+    "importance_table": ("read.queries", "importance_table"),
+    "stability_table": ("read.queries", "stability_table"),
+    "figure": ("read.plots", "make_figure"), "write_report": ("read.report", "write_report"),
+    "merge_store": ("store.transfer", "merge_store"),
+    "export_store": ("store.transfer", "export_store"),
 }
 
 

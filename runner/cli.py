@@ -87,10 +87,10 @@ def check(spec_file, lift_limits):
     \b
       foldwise check specs/greenhouse.yaml
     """
-    from .spec import load_spec
+    from .write.spec import load_spec
 
     spec = load_spec(spec_file)  # before the engine's imports: a hostile spec costs little
-    from .engine import check_spec
+    from .write.engine import check_spec
 
     plan, facts = check_spec(spec, lift_limits=lift_limits)
     click.echo(f"spec {spec_file} is valid: sweep '{spec.name}'")
@@ -133,13 +133,13 @@ def run(spec_file, store_path, jobs, force_jobs, quiet, paths, fresh, cluster, l
     fits only what is missing. A plan larger than the spec's `limits` is refused before
     anything is read (`foldwise check` prints its size); --lift-limits runs it anyway.
     """
-    from .spec import load_spec
+    from .write.spec import load_spec
 
     def say(message: str) -> None:
         click.echo(message, err=True)
 
     spec = load_spec(spec_file)  # before the engine's imports: a hostile spec costs little
-    from .engine import run_sweep, store_path as spec_store
+    from .write.engine import run_sweep, store_path as spec_store
     from .store import Store
 
     store = Store(spec_store(spec, store_path), on_wait=say)
@@ -197,8 +197,8 @@ def _show(result, view, fmt) -> None:
 
 
 def _print_summary(store, sweep_id, fmt):
-    from .queries import summary as read_summary
-    from .views import summary_view
+    from .read.queries import summary as read_summary
+    from .read.views import summary_view
 
     result = read_summary(store, sweep_id)
     _show(result, summary_view(result), fmt)
@@ -227,7 +227,7 @@ def sweeps(store_path, fmt):
     \b
       foldwise sweeps
     """
-    from .queries import sweeps as sweeps_df
+    from .read.queries import sweeps as sweeps_df
 
     emit(sweeps_df(_open_store(store_path)), fmt, title="sweeps")
 
@@ -268,7 +268,7 @@ def merge(other, store_path):
       foldwise merge ~/laptop-results.duckdb --store postgresql://ana@db.internal/results
       foldwise merge shared/exports/2026-12
     """
-    from .store import merge_store
+    from .store.transfer import merge_store
 
     store = _open_store(store_path)
     result = merge_store(store, other)
@@ -296,7 +296,7 @@ def export(folder, fmt, store_path):
       foldwise export shared/exports/2026-12
       foldwise export out/ --format csv
     """
-    from .store import export_store
+    from .store.transfer import export_store
 
     counts = export_store(_open_store(store_path), folder, fmt)
     click.echo(f"exported {sum(counts.values())} rows in {len(counts)} tables to {folder} "
@@ -335,8 +335,8 @@ def pick(store_path, sweep_id, rule, model, se, fmt):
       foldwise pick --rule one_se --model tree
       foldwise pick --se corrected --format json
     """
-    from .queries import picks
-    from .views import picks_view
+    from .read.queries import picks
+    from .read.views import picks_view
 
     result = picks(_open_store(store_path), sweep_id, rule=rule, se=se, model=model)
     _show(result, picks_view(result), fmt)
@@ -358,8 +358,8 @@ def compare(store_path, sweep_id, rule, metric, se, fmt):
       foldwise compare
       foldwise compare --rule best --metric mae --format csv
     """
-    from .queries import compare as read_compare
-    from .views import compare_view
+    from .read.queries import compare as read_compare
+    from .read.views import compare_view
 
     result = read_compare(_open_store(store_path), sweep_id, rule=rule, se=se, metric=metric)
     _show(result, compare_view(result), fmt)
@@ -381,8 +381,8 @@ def path(model, store_path, sweep_id, metric, se, fmt):
       foldwise path --model tree
       foldwise path --model forest --metric r2 --format csv
     """
-    from .queries import complexity_table
-    from .views import complexity_view
+    from .read.queries import complexity_table
+    from .read.views import complexity_view
 
     result = complexity_table(_open_store(store_path), model, sweep_id, se=se, metric=metric)
     _show(result, complexity_view(result), fmt)
@@ -423,7 +423,7 @@ def plot(kind, store_path, sweep_id, model, rule, method, depth, se, out_dir, im
       foldwise plot complexity --model tree --image png
       foldwise plot importance --method impurity --out-dir figures
     """
-    from .plots import write_plots
+    from .read.plots import write_plots
 
     if model is not None and kind not in ("complexity", "tree"):
         raise click.UsageError("--model is only for the complexity and tree kinds.")
@@ -449,7 +449,7 @@ def report(store_path, sweep_id, out_path, se):
       foldwise report
       foldwise report --sweep 20261202 --out report.html
     """
-    from .report import report_path, write_report
+    from .read.report import report_path, write_report
 
     store = _open_store(store_path)
     sid = store.resolve_sweep(sweep_id)
@@ -464,7 +464,7 @@ def schema():
     \b
       foldwise schema > foldwise-spec.schema.json
     """
-    from .spec import spec_json_schema
+    from .write.spec import spec_json_schema
 
     click.echo(json.dumps(spec_json_schema(), indent=2))
 

@@ -10,7 +10,7 @@ from typing import TYPE_CHECKING
 if TYPE_CHECKING:
     import pandas as pd
 
-    from .views import View
+    from .read.views import View
 
 
 __all__ = ["emit", "FORMATS"]
@@ -80,7 +80,7 @@ def emit(df: pd.DataFrame, fmt: str, *, view: View | None = None, title: str | N
     from rich.console import Console
     from rich.table import Table
 
-    from .views import number
+    from .read.views import number
 
     shown = view.table if view is not None else df
     right = set(view.numeric) if view is not None else {

@@ -50,8 +50,8 @@ models:
 def explained(tmp_path_factory):
     """One small sweep with the explain step, shared by the explain, plot and report tests:
     (spec, store, sweep_id). Diabetes with `sex` as text, so one-hot columns occur."""
-    from runner.engine import run_sweep
-    from runner.spec import load_spec
+    from runner.write.engine import run_sweep
+    from runner.write.spec import load_spec
     from runner.store import Store
 
     folder = tmp_path_factory.mktemp("explained")

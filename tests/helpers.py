@@ -10,7 +10,7 @@ import numpy as np
 import pandas as pd
 from sklearn.model_selection import RepeatedKFold, train_test_split
 
-from runner.spec import parse_spec
+from runner.write.spec import parse_spec
 
 
 def diabetes_frame() -> pd.DataFrame:

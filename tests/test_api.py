@@ -33,8 +33,8 @@ def test_tables_from_a_sweep(tmp_path, diabetes_csv):
     store = runner.Store(tmp_path / "store.duckdb")
     runner.run_sweep(spec, store=store, jobs=1)
     # Importing the submodules must not shadow the API's names.
-    importlib.import_module("runner.picks")
-    importlib.import_module("runner.stability")
+    importlib.import_module("runner.read.picks")
+    importlib.import_module("runner.store")
 
     for result in (runner.summary(store), runner.pick_table(store), runner.compare_table(store),
                    runner.complexity_table(store, "tree")):

@@ -71,7 +71,7 @@ def test_summary_json_equals_fold_rows(swept):
 
 
 def test_json_gives_params_as_objects_and_every_digit(swept):
-    from runner.queries import summary
+    from runner.read.queries import summary
     from runner.store import Store
 
     _, store, _ = swept

@@ -15,8 +15,8 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from runner.engine import _plan_tasks, _shared_data, prepare, run_sweep
-from runner.executors import DaskExecutor
+from runner.write.engine import _plan_tasks, _shared_data, prepare, run_sweep
+from runner.write.executors import DaskExecutor
 from runner.store import Store
 
 from .helpers import diabetes_frame, spec_from, write_spec
@@ -130,7 +130,7 @@ def test_bad_cluster_address_is_one_paragraph_and_writes_nothing(folder, address
 def test_workers_with_other_package_versions_are_refused():
     """Scores are only bit-identical with the same packages; a worker that differs (here:
     this machine claims another scikit-learn) is refused before anything runs."""
-    from runner.executors import ClusterError, package_versions
+    from runner.write.executors import ClusterError, package_versions
 
     claimed = {**package_versions(), "scikit-learn": "0.0-elsewhere"}
     with pytest.raises(ClusterError, match=r"scikit-learn .* this machine 0\.0-elsewhere"):

@@ -12,10 +12,10 @@ from click.testing import CliRunner
 from scipy import stats
 
 from runner.cli import main
-from runner.compare import APPROXIMATE_NOTE, corrected_t_test, holm, t_from_moments
+from runner.read.compare import APPROXIMATE_NOTE, corrected_t_test, holm, t_from_moments
 from runner.errors import QueryError
-from runner.queries import compare as read_compare
-from runner.views import compare_view, pair_sentence as in_words, pair_sentences
+from runner.read.queries import compare as read_compare
+from runner.read.views import compare_view, pair_sentence as in_words, pair_sentences
 
 from .store_builder import write_sweep
 

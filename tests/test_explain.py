@@ -15,14 +15,14 @@ import pandas as pd
 import pytest
 from sklearn.inspection import permutation_importance
 
-from runner.engine import prepare
+from runner.write.engine import prepare
 from runner.errors import SpecError
-from runner.explain import explain_sweep
+from runner.write.explain import explain_sweep
 from runner.families._readers import output_sources
 from runner.families import load_family
-from runner.resampling import refit_seed
-from runner.spec import load_spec as spec_from_path
-from runner.spec import parse_spec
+from runner.write.resampling import refit_seed
+from runner.write.spec import load_spec as spec_from_path
+from runner.write.spec import parse_spec
 
 from .helpers import spec_from
 
@@ -53,7 +53,7 @@ def _stored(store, sweep_id, cell_id, method):
 
 def test_picked_cells_of_every_model_are_explained(explained):
     spec, store, sid = explained
-    from runner.queries import picks
+    from runner.read.queries import picks
 
     assert {c["cell_id"] for c in _cells(store, sid)} == set(picks(store, sid).table["cell_id"])
     assert {c["family"] for c in _cells(store, sid)} == {"linear", "pruned_tree", "forest"}
@@ -154,7 +154,7 @@ def test_tree_nodes_describe_the_refit_tree(explained):
 def test_explain_none_then_all(tmp_path, diabetes_csv):
     spec = spec_from(tmp_path, "ridge: {family: linear, grid: {penalty: l2, alpha: [1.0, 100.0]}}",
                      extra="explain: {cells: none}\n")
-    from runner.engine import run_sweep
+    from runner.write.engine import run_sweep
     from runner.store import Store
 
     result = run_sweep(spec, jobs=1)
@@ -179,7 +179,7 @@ def test_explain_field_is_validated(explain, message):
 
 
 def test_rerun_copies_explain_rows_instead_of_refitting(tmp_path, diabetes_csv):
-    from runner.engine import run_sweep
+    from runner.write.engine import run_sweep
     from runner.store import Store
 
     spec = spec_from(tmp_path, "ridge: {family: linear, grid: {penalty: l2, alpha: [1.0, 100.0]}}",
@@ -203,7 +203,7 @@ def test_rerun_copies_explain_rows_instead_of_refitting(tmp_path, diabetes_csv):
 
 
 def test_each_cell_is_stored_as_soon_as_its_refits_are_back(tmp_path, diabetes_csv):
-    from runner.engine import run_sweep
+    from runner.write.engine import run_sweep
     from runner.store import Store
 
     spec = spec_from(tmp_path, "ridge: {family: linear, grid: {penalty: l2, "
@@ -233,8 +233,8 @@ N_FEATURES, N_FOLDS = 10, 6
 
 SWEEP_SCRIPT = """
 import sys
-from runner.engine import run_sweep
-from runner.spec import load_spec
+from runner.write.engine import run_sweep
+from runner.write.spec import load_spec
 from runner.store import Store
 run_sweep(load_spec(sys.argv[1]), store=Store(sys.argv[2]), jobs=1, batch_seconds=0.0)
 """
@@ -253,7 +253,7 @@ def _count_explained(path) -> int:
 
 
 def _explain_rows(store, sweep_id) -> dict:
-    from runner.explain import EXPLAIN_TABLES
+    from runner.write.explain import EXPLAIN_TABLES
 
     out = {}
     for table in EXPLAIN_TABLES:
@@ -265,7 +265,7 @@ def _explain_rows(store, sweep_id) -> dict:
 
 
 def test_sigkill_during_explain_keeps_finished_cells_whole_and_the_rerun_reuses_them(tmp_path):
-    from runner.engine import run_sweep
+    from runner.write.engine import run_sweep
     from runner.store import Store
 
     from .helpers import diabetes_frame, write_spec

@@ -9,9 +9,9 @@ import pytest
 from click.testing import CliRunner
 
 from runner.cli import main
-from runner.engine import run_sweep
+from runner.write.engine import run_sweep
 from runner.families import linear
-from runner.queries import summary
+from runner.read.queries import summary
 from runner.store import Store
 
 from .helpers import spec_from

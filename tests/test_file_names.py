@@ -17,8 +17,8 @@ from hypothesis import strategies as st
 
 from runner.cli import main
 from runner.errors import QueryError
-from runner.filenames import MAX_BYTES, WINDOWS_RESERVED, inside, safe_component, safe_names
-from runner.report import report_path
+from runner.read.filenames import MAX_BYTES, WINDOWS_RESERVED, inside, safe_component, safe_names
+from runner.read.report import report_path
 
 from .store_builder import write_sweep
 

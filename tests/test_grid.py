@@ -6,8 +6,8 @@ import numpy as np
 import pytest
 from hypothesis import given, settings, strategies as st
 
-from runner.grid import cell_id, expand_model, range_values, spread_along_path
-from runner.spec import LinearRange, LogRange, parse_spec
+from runner.write.grid import cell_id, expand_model, range_values, spread_along_path
+from runner.write.spec import LinearRange, LogRange, parse_spec
 
 PLAN = {"test": {"fraction": 0.2, "seed": 0}, "k": 5, "repeats": 2, "seed": 1}
 

@@ -10,12 +10,12 @@ import pandas as pd
 import pytest
 from click.testing import CliRunner
 
-from runner.budget import BYTES_PER_ROW, check_limits, plan_size
+from runner.write.budget import BYTES_PER_ROW, check_limits, plan_size
 from runner.cli import main
-from runner.data import MAX_MAGNITUDE, load_frame
-from runner.engine import prepare, resolve_jobs
+from runner.write.data import MAX_MAGNITUDE, load_frame
+from runner.write.engine import prepare, resolve_jobs
 from runner.errors import DataError, SpecError
-from runner.spec import load_spec
+from runner.write.spec import load_spec
 
 from .helpers import spec_from, write_spec
 
@@ -174,7 +174,7 @@ def test_text_with_commas_is_not_mistaken_for_grouped_numbers(tmp_path):
 
 
 def test_two_test_rows_are_enough(tmp_path, diabetes_csv):
-    from runner.resampling import make_plan
+    from runner.write.resampling import make_plan
 
     spec = spec_from(tmp_path, "m: {family: linear}")
     spec = spec.model_copy(update={"test": spec.test.model_copy(update={"fraction": 2 / 442})})

@@ -15,10 +15,10 @@ from sklearn.pipeline import Pipeline
 from sklearn.tree import DecisionTreeRegressor
 
 from runner.cli import main
-from runner.engine import run_sweep
+from runner.write.engine import run_sweep
 from runner.metrics import METRICS
-from runner.resampling import fold_seed
-from runner.spec import load_spec
+from runner.write.resampling import fold_seed
+from runner.write.spec import load_spec
 from runner.store import Store
 
 from .helpers import diabetes_frame, documented_plan, write_spec

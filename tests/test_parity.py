@@ -18,8 +18,8 @@ from sklearn.pipeline import Pipeline, make_pipeline
 from sklearn.preprocessing import OneHotEncoder, OrdinalEncoder, StandardScaler
 from sklearn.tree import DecisionTreeRegressor
 
-from runner.engine import run_sweep
-from runner.resampling import fold_seed, refit_seed
+from runner.write.engine import run_sweep
+from runner.write.resampling import fold_seed, refit_seed
 from runner.store import Store
 
 from .helpers import diabetes_frame, documented_plan, spec_from

@@ -9,7 +9,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from runner.engine import run_sweep
+from runner.write.engine import run_sweep
 from runner.families import load_family
 from runner.families._base import path_groups
 from runner.store import Store
@@ -251,7 +251,7 @@ def test_a_failing_group_fails_every_cell_as_plain_fits_do():
 @pytest.mark.parametrize("n_workers", [1, 2, 8])
 def test_tasks_cover_every_cell_once_per_fold_and_keep_groups_whole(tmp_path, paths,
                                                                      n_workers):
-    from runner.engine import _plan_tasks, prepare
+    from runner.write.engine import _plan_tasks, prepare
 
     from .helpers import diabetes_frame
 

@@ -16,12 +16,12 @@ from hypothesis import strategies as st
 
 from runner.cli import main
 from runner.errors import QueryError
-from runner.grid import expand_model
-from runner.picks import best_index, one_se_index, one_se_threshold, standard_error
-from runner.queries import complexity_table as read_complexity
-from runner.queries import picks as read_picks
-from runner.queries import summary as read_summary
-from runner.spec import ModelSpec
+from runner.write.grid import expand_model
+from runner.read.picks import best_index, one_se_index, one_se_threshold, standard_error
+from runner.read.queries import complexity_table as read_complexity
+from runner.read.queries import picks as read_picks
+from runner.read.queries import summary as read_summary
+from runner.write.spec import ModelSpec
 
 from .store_builder import write_sweep
 
@@ -309,8 +309,8 @@ def diabetes_sweep(tmp_path_factory):
     """A small sweep on scikit-learn's diabetes data (Efron et al. 2004), run once."""
     from sklearn.datasets import load_diabetes
 
-    from runner.engine import run_sweep
-    from runner.spec import parse_spec
+    from runner.write.engine import run_sweep
+    from runner.write.spec import parse_spec
     from runner.store import Store
 
     folder = tmp_path_factory.mktemp("diabetes")
@@ -332,7 +332,7 @@ def _sklearn_fold_scores(folder) -> tuple[dict, float]:
     from sklearn.preprocessing import StandardScaler
     from sklearn.tree import DecisionTreeRegressor
 
-    from runner.resampling import fold_seed
+    from runner.write.resampling import fold_seed
 
     df = pd.read_csv(folder / "diabetes.csv")
     y = df.pop("target").to_numpy()

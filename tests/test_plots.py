@@ -10,8 +10,8 @@ from PIL import Image
 
 from runner.cli import main
 from runner.errors import QueryError
-from runner.queries import complexity_table, picks
-from runner.plots import KINDS, complexity_figure, make_figure, models_figure, save_figure
+from runner.read.queries import complexity_table, picks
+from runner.read.plots import KINDS, complexity_figure, make_figure, models_figure, save_figure
 
 OPTIONS = {"complexity": {"model": "tree"}, "models": {}, "importance": {},
            "predictions": {}, "tree": {"depth": 2}}

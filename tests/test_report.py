@@ -14,9 +14,9 @@ from click.testing import CliRunner
 from PIL import Image
 
 from runner.cli import main
-from runner.queries import picks
-from runner.views import mean_se
-from runner.report import render_report, write_report
+from runner.read.queries import picks
+from runner.read.views import mean_se
+from runner.read.report import render_report, write_report
 
 CHROMIUM_FLAGS = ["--headless", "--no-sandbox", "--disable-gpu",
                   "--disable-background-networking", "--disable-component-update",

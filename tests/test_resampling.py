@@ -7,9 +7,9 @@ import pandas as pd
 import pytest
 from hypothesis import given, settings, strategies as st
 
-from runner.data import load_frame
+from runner.write.data import load_frame
 from runner.errors import DataError
-from runner.resampling import fold_seed, make_plan, plan_counts, plan_identity
+from runner.write.resampling import fold_seed, make_plan, plan_counts, plan_identity
 
 from .helpers import documented_plan, spec_from
 

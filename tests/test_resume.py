@@ -15,7 +15,7 @@ import duckdb
 import pandas as pd
 import pytest
 
-from runner.engine import run_sweep
+from runner.write.engine import run_sweep
 from runner.store import Store
 
 from .helpers import diabetes_frame, spec_from, write_spec
@@ -68,8 +68,8 @@ def test_changing_one_grid_value_fits_only_new_cells(folder):
 
 SWEEP_SCRIPT = """
 import sys
-from runner.engine import run_sweep
-from runner.spec import load_spec
+from runner.write.engine import run_sweep
+from runner.write.spec import load_spec
 from runner.store import Store
 run_sweep(load_spec(sys.argv[1]), store=Store(sys.argv[2]), jobs=1, batch_seconds=0.0)
 """

@@ -8,7 +8,7 @@ from pathlib import Path
 import pytest
 
 from runner.errors import SpecError
-from runner.spec import LogRange, PathRange, load_spec, parse_spec, spec_json_schema
+from runner.write.spec import LogRange, PathRange, load_spec, parse_spec, spec_json_schema
 
 ROOT = Path(__file__).resolve().parents[1]
 
@@ -130,7 +130,7 @@ def _nested(depth: int) -> str:
 
 
 def test_nesting_depth_bound_is_exact():
-    from runner.spec import MAX_DEPTH
+    from runner.write.spec import MAX_DEPTH
 
     with pytest.raises(SpecError) as info:  # deep enough to be built, then wrong in type
         parse_spec(_nested(MAX_DEPTH - 1))
@@ -140,7 +140,7 @@ def test_nesting_depth_bound_is_exact():
 
 
 def test_alias_expansion_is_counted_before_building():
-    from runner.spec import MAX_NODES
+    from runner.write.spec import MAX_NODES
 
     # An anchored list of 1 000 values referred to k times expands to about 1 000·k values.
     def doc(k):

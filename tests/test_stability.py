@@ -11,8 +11,8 @@ import pandas as pd
 import pytest
 from scipy.stats import spearmanr
 
-from runner.queries import stability_table
-from runner.stability import (NO_SPLIT, jaccard, leaves_spread, mean_pairwise_jaccard,
+from runner.read.queries import stability_table
+from runner.read.stability import (NO_SPLIT, jaccard, leaves_spread, mean_pairwise_jaccard,
                               mean_pairwise_spearman, root_agreement, spearman,
 )
 

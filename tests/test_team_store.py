@@ -13,7 +13,8 @@ import pandas as pd
 import pytest
 
 from runner.errors import StoreError
-from runner.store import Store, merge_store
+from runner.store import Store
+from runner.store.transfer import merge_store
 
 from .helpers import diabetes_frame, write_spec
 
@@ -166,7 +167,7 @@ def test_explain_step_plots_and_report_work_on_a_server(pg, explained, tmp_path)
     """The explain step (including its reuse of earlier rows) on a server stores what it
     stores in a DuckDB file (the session's `explained` sweep of the same spec)."""
     from runner import importance_table, stability_table, write_report
-    from runner.engine import run_sweep
+    from runner.write.engine import run_sweep
 
     spec, file_store, file_sweep = explained
     server = Store(pg.create_database("team_explain"))
@@ -264,7 +265,7 @@ def test_a_writer_role_runs_a_sweep(roles, tmp_path, diabetes_csv):
 def test_reading_a_team_store_being_created_says_so(pg, file_copy):
     """A reader that meets an empty database (a first sweep still creating the tables) is
     told so, and once the tables exist the same process reads them (no stale catalogue)."""
-    from runner.queries import sweeps
+    from runner.read.queries import sweeps
 
     url = pg.create_database("team_creating")
     for command in (["sql", "select count(*) from sweeps"], ["summary"], ["sweeps"]):

@@ -11,7 +11,8 @@ import pandas as pd
 import pytest
 
 from runner.errors import StoreError
-from runner.store import TABLES, Store, export_store, merge_store
+from runner.store import TABLES, Store
+from runner.store.transfer import export_store, merge_store
 
 
 def _table(store: Store, table: str) -> pd.DataFrame:

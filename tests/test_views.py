@@ -10,9 +10,9 @@ import pytest
 from click.testing import CliRunner
 
 from runner.cli import main
-from runner.queries import compare, complexity_table, picks, summary
-from runner.report import render_report
-from runner.views import compare_view, complexity_view, picks_view, summary_view
+from runner.read.queries import compare, complexity_table, picks, summary
+from runner.read.report import render_report
+from runner.read.views import compare_view, complexity_view, picks_view, summary_view
 
 
 def _text(page: str) -> str:

@@ -1,5 +1,5 @@
 """Runs many attempts in one process confined exactly as the child of `foldwise sql
---allow-files` confines itself (runner.landlock, then runner.sandbox.confined_connection),
+--allow-files` confines itself (runner.store.landlock, then runner.store.sandbox.confined_connection),
 so the corpus need not start a process per attempt.
 
     python -m tests.attacks.confined < request.json > outcomes.json
@@ -17,7 +17,7 @@ import sys
 
 import duckdb
 
-from runner import landlock, sandbox
+from runner.store import landlock, sandbox
 from runner.errors import QueryError
 
 

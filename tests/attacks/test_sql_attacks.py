@@ -22,12 +22,12 @@ import pytest
 import yaml
 from click.testing import CliRunner
 
-from runner import sandbox
+from runner.store import sandbox
 from runner.cli import main
 from runner.errors import FoldwiseError
-from runner.locations import postgres_extension
+from runner.store.locations import postgres_extension
 from runner.store import Store
-from runner.transfer import merge_store
+from runner.store.transfer import merge_store
 
 from ..store_builder import write_sweep
 from .confined import run_each
@@ -288,7 +288,7 @@ def test_the_probe_attempts_through_the_command(request, where, flag):
 
 @pytest.mark.parametrize("where", ["file", "server"])
 def test_allow_files_reads_a_file_through_the_command(request, tmp_path, where):
-    """A real child process (python -m runner.sandbox) reads a CSV and joins it to the
+    """A real child process (python -m runner.store.sandbox) reads a CSV and joins it to the
     store; the answer is the same table a query without files gives."""
     case = request.getfixturevalue(f"{where}_case")
     (tmp_path / "labels.csv").write_text("model,label\nridge,linear\ntree,pruned\n")
@@ -311,7 +311,7 @@ def test_allow_files_reads_a_file_through_the_command(request, tmp_path, where):
 
 
 def test_allow_files_without_landlock_is_refused_in_one_paragraph(file_case, monkeypatch):
-    from runner import landlock
+    from runner.store import landlock
 
     monkeypatch.setattr(landlock, "abi_version", lambda: 3)
     out = _cli("sql", "select 1", "--store", file_case.store.path, "--allow-files")
@@ -335,7 +335,7 @@ def test_the_confined_child_sees_no_secrets_in_its_environment(monkeypatch, tmp_
 
 CONFINED_PROBE = """
 import json, os, socket, sys
-from runner.landlock import restrict_to_reading
+from runner.store.landlock import restrict_to_reading
 folder, port, outside = sys.argv[1], int(sys.argv[2]), sys.argv[3]
 abi = restrict_to_reading(folder)
 

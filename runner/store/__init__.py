@@ -20,63 +20,11 @@ from typing import Callable, Iterator
 import duckdb
 import pandas as pd
 
-from .errors import StoreError
+from ..errors import StoreError
 from .locations import FileLocation, ServerLocation, locate
+from .schema import DEFAULT_STORE, SCHEMA_VERSION, TABLE_SQL, TABLES, VIEW_SQL
 
 __all__ = ["Store", "SCHEMA_VERSION", "DEFAULT_STORE", "TABLES", "VIEW_SQL", "Notices"]
-
-SCHEMA_VERSION = 2
-"""2: cells.position keeps spec order explicit (a server table has no insertion order)."""
-DEFAULT_STORE = Path("results") / "foldwise.duckdb"
-
-_TABLES = """
-create table if not exists foldwise_meta (key varchar primary key, value varchar);
-create table if not exists sweeps (
-    sweep_id varchar primary key, name varchar, spec_path varchar, spec_text varchar,
-    spec_sha256 varchar, data_path varchar, data_sha256 varchar, target varchar,
-    n_train integer, n_test integer, k integer, repeats integer, plan_seed bigint,
-    metrics varchar, pick_rule varchar, started_at timestamp, finished_at timestamp,
-    status varchar, versions json, host varchar, user_name varchar, pid integer,
-    n_reused integer);
-create table if not exists metrics (metric varchar primary key, better varchar);
-create table if not exists cells (
-    sweep_id varchar, cell_id varchar, model varchar, family varchar, params json,
-    complexity_rank integer, reused_from varchar, position integer,
-    primary key (sweep_id, cell_id));
-create table if not exists fold_scores (
-    sweep_id varchar, cell_id varchar, "repeat" integer, fold integer, metric varchar,
-    value double, fit_seconds double, n_train integer, n_valid integer, seed bigint,
-    n_leaves double, how varchar, n_warnings integer, reused_from varchar,
-    primary key (sweep_id, cell_id, "repeat", fold, metric));
-create table if not exists test_scores (
-    sweep_id varchar, cell_id varchar, metric varchar, value double, fit_seconds double,
-    n_train integer, n_test integer, seed bigint, n_leaves double, how varchar,
-    n_warnings integer, reused_from varchar, primary key (sweep_id, cell_id, metric));
-create table if not exists failures (
-    sweep_id varchar, cell_id varchar, "repeat" integer, fold integer, kind varchar,
-    message varchar);
-create table if not exists importances (
-    sweep_id varchar, cell_id varchar, feature varchar, method varchar, value double,
-    spread double);
--- explain step (runner/explain.py): per-fold importances, tree shapes, the refit tree's
--- nodes and the refit's test predictions, for the explained cells of a sweep
-create table if not exists fold_importances (
-    sweep_id varchar, cell_id varchar, "repeat" integer, fold integer, feature varchar,
-    method varchar, value double);
-create table if not exists tree_folds (
-    sweep_id varchar, cell_id varchar, "repeat" integer, fold integer, n_leaves integer,
-    depth integer, root_feature varchar, root_threshold double, root_rule varchar,
-    features_used varchar[]);
-create table if not exists tree_nodes (
-    sweep_id varchar, cell_id varchar, node integer, parent integer, left_child integer,
-    right_child integer, depth integer, feature varchar, threshold double, rule varchar,
-    missing_left boolean, value double, n_samples integer, impurity double);
-create table if not exists test_predictions (
-    sweep_id varchar, cell_id varchar, "row" integer, observed double, predicted double);
-create table if not exists explained (
-    sweep_id varchar, cell_id varchar, settings json, reused_from varchar,
-    primary key (sweep_id, cell_id));
-"""
 
 _CONFLICT_WORDS = ("could not serialize", "deadlock detected", "concurrent update")
 
@@ -84,22 +32,6 @@ _CONFLICT_WORDS = ("could not serialize", "deadlock detected", "concurrent updat
 def _is_conflict(exc: Exception) -> bool:
     """A server aborted the transaction for a concurrent one; running it again is safe."""
     return any(w in str(exc) for w in _CONFLICT_WORDS)
-
-
-VIEW_SQL = """
-create or replace view cell_summary as
-select f.sweep_id, f.cell_id, c.model, c.family, c.params, c.complexity_rank, f.metric,
-       avg(f.value) as mean, stddev_samp(f.value) as sd,
-       stddev_samp(f.value) / sqrt(count(*)) as se, count(*) as n,
-       avg(f.n_leaves) as mean_leaves, sum(f.fit_seconds) as fit_seconds
-from fold_scores f join cells c using (sweep_id, cell_id)
-group by all;
-"""
-
-TABLES = ("sweeps", "metrics", "cells", "fold_scores", "test_scores", "failures",
-          "importances", "fold_importances", "tree_folds", "tree_nodes", "test_predictions",
-          "explained")
-"""Every table of results, in the order a copy must fill them."""
 
 
 class Notices:
@@ -229,7 +161,7 @@ class Store:
         if found == 1:  # spec order was the file's insertion order; make it explicit
             con.execute("alter table cells add column position integer")
             con.execute("update cells set position = rowid")
-        con.execute(_TABLES)
+        con.execute(TABLE_SQL)
         if not self.location.shared:  # a server's view lives in each connection
             con.execute(VIEW_SQL)
         con.execute("insert or replace into foldwise_meta values ('schema_version', ?)",
@@ -552,15 +484,3 @@ def _summary_view(con) -> None:
         con.execute(VIEW_SQL.replace("create or replace view", "create or replace temp view"))
     except duckdb.CatalogException:
         pass  # no tables yet
-
-
-_MOVED = ("export_store", "merge_store", "MergeResult", "EXPORT_FORMATS", "EXPORT_MANIFEST")
-
-
-def __getattr__(name: str):
-    """Export and merge live in runner/transfer.py; they stay importable from here."""
-    if name in _MOVED:
-        from . import transfer
-
-        return getattr(transfer, name)
-    raise AttributeError(f"module 'runner.store' has no attribute {name!r}")

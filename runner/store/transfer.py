@@ -16,8 +16,9 @@ from typing import Iterator
 import duckdb
 import pandas as pd
 
-from .errors import StoreError
-from .store import SCHEMA_VERSION, TABLES, Store
+from ..errors import StoreError
+from . import Store
+from .schema import SCHEMA_VERSION, TABLES
 
 __all__ = ["export_store", "merge_store", "MergeResult", "EXPORT_FORMATS", "EXPORT_MANIFEST"]
 

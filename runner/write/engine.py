@@ -33,20 +33,20 @@ from typing import Callable
 import numpy as np
 import pandas as pd
 
-from . import __version__
+from .. import __version__
 from .budget import check_limits, check_plan_memory, data_limit_bytes
 from .data import load_frame
-from .errors import FoldwiseError
+from ..errors import FoldwiseError
 from .explain import explain_sweep
 from .executors import DaskExecutor, LocalExecutor, make_executor
-from .families import load_family
+from ..families import load_family
 from .grid import Cell
-from .metrics import METRICS
+from ..metrics import METRICS
 from .prepare import Prepared, load_checked, prepare
-from .queries import process_alive
+from ..read.queries import process_alive
 from .resampling import REFIT, Fold, make_plan, plan_counts, refit_seed
 from .spec import Spec
-from .store import DEFAULT_STORE, Store
+from ..store import DEFAULT_STORE, Store
 
 __all__ = ["run_sweep", "check_spec", "prepare", "SweepResult", "Prepared", "SweepInterrupted",
            "SweepFailed", "resolve_jobs"]
@@ -131,7 +131,7 @@ def store_path(spec: Spec, override=None):
     if override is not None:
         return override
     if spec.store is not None:
-        from .locations import is_server_url
+        from ..store.locations import is_server_url
 
         return spec.store if is_server_url(spec.store) else spec.resolve(spec.store)
     return DEFAULT_STORE

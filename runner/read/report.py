@@ -11,14 +11,14 @@ from pathlib import Path
 
 import pandas as pd
 
-from .errors import FoldwiseError
+from ..errors import FoldwiseError
 from .filenames import inside, safe_component
-from .metrics import get_metric, metric_label
+from ..metrics import get_metric, metric_label
 from .plots import (complexity_figure, figure_svg, importance_figure, model_colours,
                     models_figure, predictions_figure, tree_figure)
 from .queries import (compare, complexity_table, importance_table, picks, stability_table,
                       summary, sweep_facts, sweep_record, tree_fold_table)
-from .store import Store
+from ..store import Store
 from .views import (METHODS, STABILITY_COLUMNS, TREE_FOLD_COLUMNS, View, columns_view,
                     compare_view, complexity_view, decision, importance_matrix, number,
                     picks_view, stability_sentences, summary_view)
@@ -146,7 +146,7 @@ def render_report(store: Store, sweep_id: str | None = None, *, se: str = "plain
     """The report as one HTML string."""
     from jinja2 import Environment, PackageLoader, StrictUndefined, select_autoescape
 
-    env = Environment(loader=PackageLoader("runner", "templates"),
+    env = Environment(loader=PackageLoader("runner.read", "templates"),
                       autoescape=select_autoescape(["html", "j2"]), undefined=StrictUndefined,
                       trim_blocks=True, lstrip_blocks=True)
     return env.get_template("report.html.j2").render(**report_context(store, sweep_id, se=se))

@@ -6,7 +6,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
-from .errors import DataError, SpecError
+from ..errors import DataError, SpecError
 from .grid import count_cells
 
 __all__ = ["PlanSize", "plan_size", "check_limits", "check_plan_memory", "data_limit_bytes",

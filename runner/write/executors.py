@@ -20,7 +20,7 @@ import time
 import warnings
 from typing import Any, Callable, Iterable, Iterator
 
-from .errors import FoldwiseError
+from ..errors import FoldwiseError
 
 __all__ = ["LocalExecutor", "DaskExecutor", "make_executor", "ClusterError",
            "package_versions", "watch_parent"]

@@ -14,9 +14,9 @@ import yaml
 from pydantic import (BaseModel, ConfigDict, Field, ValidationError, field_validator,
                       model_validator)
 
-from .errors import SpecError
-from .families import FAMILIES, check_param_value, nearest
-from .metrics import METRICS
+from ..errors import SpecError
+from ..families import FAMILIES, check_param_value, nearest
+from ..metrics import METRICS
 
 __all__ = ["Spec", "ModelSpec", "Limits", "load_spec", "parse_spec", "spec_json_schema",
            "LogRange", "LinearRange", "PathRange", "MAX_SPEC_BYTES", "MAX_DEPTH", "MAX_NODES",
@@ -273,7 +273,7 @@ class Spec(_Strict):
     @field_validator("store")
     @classmethod
     def _store_without_password(cls, v):
-        from .locations import is_server_url, url_problem
+        from ..store.locations import is_server_url, url_problem
 
         if v is not None and is_server_url(v) and url_problem(v):
             raise ValueError(url_problem(v))

@@ -12,7 +12,7 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from .errors import DataError
+from ..errors import DataError
 
 __all__ = ["Plan", "Fold", "make_plan", "fold_seed", "refit_seed", "REFIT", "plan_identity",
            "plan_counts", "MIN_TEST_ROWS"]

@@ -17,8 +17,8 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from .errors import DataError
-from .families import nearest
+from ..errors import DataError
+from ..families import nearest
 
 __all__ = ["Frame", "read_table", "load_frame", "file_sha256", "MAX_MAGNITUDE"]
 

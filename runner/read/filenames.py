@@ -15,7 +15,7 @@ import unicodedata
 from pathlib import Path
 from typing import Iterable
 
-from .errors import QueryError
+from ..errors import QueryError
 
 __all__ = ["safe_component", "safe_names", "inside", "MAX_BYTES", "WINDOWS_RESERVED"]
 

@@ -19,15 +19,15 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from .errors import QueryError
-from .families import get_family
+from ..errors import QueryError
+from ..families import get_family
 from .filenames import inside, safe_component, safe_names
-from .metrics import get_metric, metric_label
+from ..metrics import get_metric, metric_label
 from .picks import check_rule
 from .queries import (complexity_table, importance_table, model_order, picked_fold_scores,
                       picks, prediction_table, sweep_facts, tree_node_table)
 from .results import ComplexityTable, Picks
-from .store import Store
+from ..store import Store
 from .views import number, params_text, rule_label
 
 __all__ = ["KINDS", "PALETTE", "make_figure", "complexity_figure", "models_figure",

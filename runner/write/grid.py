@@ -11,7 +11,7 @@ from typing import Callable
 
 import numpy as np
 
-from .families import FAMILIES
+from ..families import FAMILIES
 from .spec import LinearRange, LogRange, ModelSpec, PathRange
 
 __all__ = ["Cell", "expand_model", "expand_spec", "cell_id", "EVAL_VERSION", "range_values",

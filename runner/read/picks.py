@@ -10,7 +10,7 @@ from __future__ import annotations
 import math
 from typing import Sequence
 
-from .errors import QueryError
+from ..errors import QueryError
 
 __all__ = ["RULES", "SE_KINDS", "TOLERANCE", "best_index", "one_se_index", "one_se_threshold",
            "corrected_variance", "standard_error", "check_rule", "check_se"]

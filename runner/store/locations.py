@@ -17,7 +17,7 @@ import tempfile
 from pathlib import Path
 from urllib.parse import parse_qsl, quote, urlsplit, urlunsplit
 
-from .errors import StoreError
+from ..errors import StoreError
 
 __all__ = ["FileLocation", "ServerLocation", "locate", "is_server_url", "url_problem",
            "SERVER_SCHEMES"]

@@ -16,12 +16,12 @@ import socket
 import pandas as pd
 
 from .compare import holm, t_from_moments
-from .errors import QueryError
-from .families import get_family, nearest
+from ..errors import QueryError
+from ..families import get_family, nearest
 from .picks import RULES, TOLERANCE, check_rule, check_se
 from .results import (CellStats, Comparison, ComplexityTable, Importances, Picks, Stability,
                       Summary, SweepFacts)
-from .store import Store
+from ..store import Store
 
 __all__ = ["sweeps", "sweep_facts", "summary", "cell_stats", "picks", "complexity_table",
            "compare", "importance_table", "prediction_table", "tree_node_table",

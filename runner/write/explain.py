@@ -34,11 +34,11 @@ from typing import Callable
 import numpy as np
 import pandas as pd
 
-from .families import FAMILIES, get_family, load_family
-from .metrics import METRICS
+from ..families import FAMILIES, get_family, load_family
+from ..metrics import METRICS
 from .prepare import prepare
 from .resampling import refit_seed
-from .store import Store
+from ..store import Store
 
 __all__ = ["explain_sweep", "ExplainResult", "chosen_cells", "permutation_rows"]
 
@@ -150,7 +150,7 @@ def chosen_cells(store: Store, sweep_id: str, which: str = "picked") -> pd.DataF
                         "order by position", [sweep_id])
     if which == "all":
         return cells
-    from .queries import picks
+    from ..read.queries import picks
 
     picked = set(picks(store, sweep_id).table["cell_id"])
     return cells[cells["cell_id"].isin(picked)].reset_index(drop=True)

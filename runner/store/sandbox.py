@@ -8,7 +8,7 @@
   attaches the server read-only, in a read-only server session, copies the tables the
   query names into a fresh in-memory instance and closes; the fresh one, locked as above,
   answers.
-- `--allow-files`: the query runs in a child process (`python -m runner.sandbox`) that
+- `--allow-files`: the query runs in a child process (`python -m runner.store.sandbox`) that
   Linux Landlock confines to reading (runner/landlock.py) before it opens DuckDB, on the
   store file or on a snapshot of the team store in the child's private folder; the result
   comes back as Arrow IPC on its stdout.
@@ -31,7 +31,7 @@ from pathlib import Path
 import duckdb
 
 from . import landlock
-from .errors import QueryError
+from ..errors import QueryError
 
 __all__ = ["run_user_query", "check_statement", "tables_named", "locked", "confined_connection",
            "child_environment", "LOCKED_SETTINGS"]
@@ -204,7 +204,7 @@ def _snapshot(store, sql: str, path: Path | None = None):
     store, made through a read-only attachment that is closed before the instance is
     handed out: the rows of the tables `sql` reads, the columns of every other table (so
     DESCRIBE and the catalog answer as on a file), and the cell_summary view."""
-    from .store import VIEW_SQL
+    from .schema import VIEW_SQL
 
     wanted = tables_named(sql)
     target = duckdb.connect(str(path) if path else ":memory:", config=LOCKED_SETTINGS)
@@ -233,7 +233,7 @@ def _snapshot(store, sql: str, path: Path | None = None):
 
 
 def _all_tables() -> set[str]:
-    from .store import TABLES
+    from .schema import TABLES
 
     return {*TABLES, "foldwise_meta"}
 
@@ -274,7 +274,7 @@ def child_environment(folder: Path) -> dict[str, str]:
 
 
 def _spawn(request: bytes, folder: Path):
-    out = subprocess.run([sys.executable, "-m", "runner.sandbox"], input=request,
+    out = subprocess.run([sys.executable, "-m", "runner.store.sandbox"], input=request,
                          capture_output=True, env=child_environment(folder))
     if out.returncode == _BUSY:
         raise duckdb.IOException(out.stderr.decode(errors="replace").strip())

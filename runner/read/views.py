@@ -11,8 +11,8 @@ from dataclasses import dataclass
 import pandas as pd
 
 from .compare import APPROXIMATE_NOTE
-from .families import get_family
-from .metrics import metric_label
+from ..families import get_family
+from ..metrics import metric_label
 from .results import Comparison, ComplexityTable, Coverage, Picks, Summary
 
 __all__ = ["View", "number", "mean_se", "params_text", "p_text", "value_text", "rule_label",

@@ -6,10 +6,10 @@ from __future__ import annotations
 
 from .budget import check_limits, check_plan_memory, data_limit_bytes
 from .data import Frame, load_frame
-from .errors import DataError
-from .families import FAMILIES
+from ..errors import DataError
+from ..families import FAMILIES
 from .grid import Cell, expand_spec, spread_along_path
-from .metrics import METRICS
+from ..metrics import METRICS
 from .resampling import REFIT, Plan, make_plan, plan_counts, plan_identity, refit_seed
 from .spec import Spec
 
