@@ -253,7 +253,7 @@ def _count_explained(path) -> int:
 
 
 def _explain_rows(store, sweep_id) -> dict:
-    from runner.write.explain import EXPLAIN_TABLES
+    from runner.write.reuse import EXPLAIN_TABLES
 
     out = {}
     for table in EXPLAIN_TABLES:

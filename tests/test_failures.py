@@ -3,7 +3,6 @@ never picked and summary says so. Warnings during fits are counted per row."""
 
 from __future__ import annotations
 
-import json
 
 import pytest
 from click.testing import CliRunner

@@ -346,36 +346,39 @@ class Store:
                 group by all""", [metrics]).df()
         return folds, tests
 
-    def copy_finished(self, sweep_id: str, folds: pd.DataFrame, tests: pd.DataFrame,
-                      metrics: list[str]) -> tuple[int, int]:
-        """Copy earlier sweeps' rows for these (cell, fold)s and cells into `sweep_id`, in one
-        transaction; each copied row names its source in `reused_from`.
-
-        Returns the fold-score and test-score rows copied."""
-        if folds.empty and tests.empty:
-            return 0, 0
+    def copy_rows(self, sweep_id: str, sources: pd.DataFrame, tables: dict[str, tuple],
+                  *, metrics: list[str] | None = None,
+                  also: dict[str, pd.DataFrame] | None = None) -> dict[str, int]:
+        """Copy earlier sweeps' rows into `sweep_id`, all in one transaction: for each of
+        foldwise's `tables` (name -> key columns besides sweep_id), the rows whose sweep_id
+        and keys match a row of `sources`, limited to `metrics` where a table has them; a
+        copied row's `reused_from` (where the table has one) names the sweep that first
+        computed it. `also` rows are inserted in the same transaction. Returns rows copied
+        per table. The one way reuse copies anything, scores and explained cells alike."""
+        if sources.empty:
+            return {t: 0 for t in tables}
 
         def work(con):
-            con.register("_folds", folds)
-            con.register("_tests", tests)
-            n_folds = con.execute("""
-                insert into fold_scores by name
-                select f.* exclude (sweep_id, reused_from), $1 as sweep_id,
-                       coalesce(f.reused_from, f.sweep_id) as reused_from
-                from fold_scores f join _folds s
-                  on f.cell_id = s.cell_id and f."repeat" = s."repeat" and f.fold = s.fold
-                 and f.sweep_id = s.sweep_id
-                where f.metric in (select unnest($2::varchar[]))""",
-                                  [sweep_id, metrics]).fetchone()[0]
-            n_tests = con.execute("""
-                insert into test_scores by name
-                select t.* exclude (sweep_id, reused_from), $1 as sweep_id,
-                       coalesce(t.reused_from, t.sweep_id) as reused_from
-                from test_scores t join _tests s
-                  on t.cell_id = s.cell_id and t.sweep_id = s.sweep_id
-                where t.metric in (select unnest($2::varchar[]))""",
-                                  [sweep_id, metrics]).fetchone()[0]
-            return int(n_folds), int(n_tests)
+            con.register("_sources", sources)
+            counts = {}
+            for table, keys in tables.items():
+                columns = set(con.execute(f"select * from {table} limit 0").df().columns)
+                origin = ("exclude (sweep_id, reused_from), $1 as sweep_id, coalesce("
+                          "t.reused_from, t.sweep_id) as reused_from"
+                          if "reused_from" in columns else "exclude (sweep_id), $1 as sweep_id")
+                on = " and ".join(f't."{k}" = s."{k}"' for k in ("sweep_id", *keys))
+                limited = metrics is not None and "metric" in columns
+                where = "where t.metric in (select unnest($2::varchar[]))" if limited else ""
+                counts[table] = int(con.execute(
+                    f"insert into {table} by name select t.* {origin} from {table} t "
+                    f"join _sources s on {on} {where}",
+                    [sweep_id, metrics] if limited else [sweep_id]).fetchone()[0])
+            for table, df in (also or {}).items():
+                if len(df):
+                    con.register("_also", df)
+                    con.execute(f"insert into {table} by name select * from _also")
+                    con.unregister("_also")
+            return counts
 
         return self._transaction(work, what="copying earlier results")
 

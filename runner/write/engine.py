@@ -35,7 +35,6 @@ import pandas as pd
 
 from .. import __version__
 from .budget import check_limits, check_plan_memory, data_limit_bytes
-from .data import load_frame
 from ..errors import FoldwiseError
 from .explain import explain_sweep
 from .executors import DaskExecutor, LocalExecutor, make_executor
@@ -45,6 +44,7 @@ from ..metrics import METRICS
 from .prepare import Prepared, load_checked, prepare
 from ..read.queries import process_alive
 from .resampling import REFIT, Fold, make_plan, plan_counts, refit_seed
+from .reuse import all_found, copy_scores, find_scores
 from .spec import Spec
 from ..store import DEFAULT_STORE, Store
 
@@ -294,8 +294,8 @@ def run_sweep(spec: Spec, *, store: Store | None = None, jobs: int | None = None
     # A --no-paths sweep is a check of the path evaluators: it refits every cell, never
     # copying rows that an earlier sweep may have scored through a path.
     fresh = fresh or not paths
-    found = _finished(store, prep, fresh=fresh)
-    quick = _all_found(prep, found)
+    found = find_scores(store, prep, fresh=fresh)
+    quick = all_found(prep, found)
     if not quick:
         prep.plan  # builds and checks the plan before anything is written
     hold = contextlib.ExitStack()
@@ -327,7 +327,7 @@ def run_sweep(spec: Spec, *, store: Store | None = None, jobs: int | None = None
             "started_at": datetime.now(), "finished_at": None, "status": "running",
             "versions": _versions(), "host": host, "user_name": _user(), "pid": os.getpid()},
             cells_df, {m: METRICS[m].better for m in spec.metrics})
-        done, reused, copied = _reuse(store, sweep_id, prep, found)
+        done, reused, copied = copy_scores(store, sweep_id, prep, found)
 
         tasks = [] if len(reused) == len(prep.cells) else _plan_tasks(
             prep, paths=paths, n_workers=executor.n_workers, done=done)
@@ -404,45 +404,6 @@ def _all_failed(sweep_id: str, n: int, why: Counter, where) -> str:
             f"failures table: foldwise sql \"select kind, message, count(*) from failures "
             f"where sweep_id = '{sweep_id}' group by all\". Fix the data or the grid it "
             "points to and run again.")
-
-
-def _finished(store: Store, prep: Prepared, *, fresh: bool):
-    """Where earlier sweeps in the store hold finished rows for these cells (none if fresh)."""
-    if fresh:
-        return None
-    return store.finished_rows([c.cell_id for c in prep.cells], prep.spec.metrics)
-
-
-def _all_found(prep: Prepared, found) -> bool:
-    """True if every cell's every fold and refit is already stored."""
-    if found is None:
-        return False
-    folds, tests = found
-    have = set(zip(folds.cell_id, folds["repeat"].astype(int), folds.fold.astype(int)))
-    have |= {(c, REFIT, REFIT) for c in tests.cell_id}
-    return all((c.cell_id, *key) in have for c in prep.cells for key in prep.fold_keys())
-
-
-def _reuse(store: Store, sweep_id: str, prep: Prepared, found
-           ) -> tuple[frozenset, list[str], tuple[int, int]]:
-    """Copy what earlier sweeps finished for these cells into this sweep.
-
-    Returns the (cell_id, repeat, fold) keys now present (refit = (-1, -1)), the ids of
-    cells that need no fit at all, and the fold-score and test-score rows copied."""
-    if found is None:
-        return frozenset(), [], (0, 0)
-    metrics = prep.spec.metrics
-    ids = [c.cell_id for c in prep.cells]
-    folds, tests = found
-    copied = store.copy_finished(sweep_id, folds, tests, metrics)
-    done = {(c, int(r), int(f)) for c, r, f in zip(folds.cell_id, folds["repeat"], folds.fold)}
-    done |= {(c, REFIT, REFIT) for c in tests.cell_id}
-    keys = prep.fold_keys()
-    whole = [c for c in ids if all((c, *k) in done for k in keys)]
-    if whole:
-        source = folds[folds.cell_id.isin(whole)].groupby("cell_id").sweep_id.min()
-        store.set_reused(sweep_id, source.rename("reused_from").reset_index())
-    return frozenset(done), whole, copied
 
 
 def _user() -> str:

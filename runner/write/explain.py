@@ -31,20 +31,18 @@ import warnings
 from dataclasses import dataclass, field
 from typing import Callable
 
-import numpy as np
 import pandas as pd
 
 from ..families import FAMILIES, get_family, load_family
 from ..metrics import METRICS
 from .prepare import prepare
 from .resampling import refit_seed
+from .reuse import copy_explained
 from ..store import Store
 
 __all__ = ["explain_sweep", "ExplainResult", "chosen_cells", "permutation_rows"]
 
 
-EXPLAIN_TABLES = ("importances", "fold_importances", "tree_folds", "tree_nodes",
-                  "test_predictions")
 EXPLAIN_VERSION = "1"
 """Bumped whenever a change here would change stored explain rows; stops their reuse."""
 
@@ -176,32 +174,6 @@ def _settings(spec) -> str:
                        "version": EXPLAIN_VERSION}, sort_keys=True)
 
 
-def _reuse(store: Store, sweep_id: str, cell_ids: list[str], settings: str) -> list[str]:
-    """Copy the explain rows of cells already explained with these settings by an earlier
-    sweep, finished or not, into this one (one transaction); return the cells copied.
-    `reused_from` names the sweep that computed them, as for scores."""
-    # settings are compared here, not in SQL: a server cannot compare its JSON column to text
-    found = store.query("""
-        select cell_id, sweep_id as source, coalesce(reused_from, sweep_id) as origin,
-               settings::varchar as settings from explained
-        where sweep_id <> ? and list_contains(?::varchar[], cell_id)""", [sweep_id, cell_ids])
-    found = found[found["settings"] == settings]
-    if found.empty:
-        return []
-    found = found.sort_values(["cell_id", "source"]).drop_duplicates("cell_id")
-    pairs = [f"{a}|{b}" for a, b in zip(found["source"], found["cell_id"])]
-    batch = {}
-    for table in EXPLAIN_TABLES:
-        rows = store.query(f"select * exclude (sweep_id) from {table} "
-                           "where list_contains(?::varchar[], sweep_id || '|' || cell_id)",
-                           [pairs])
-        batch[table] = rows.assign(sweep_id=sweep_id)
-    batch["explained"] = pd.DataFrame({"sweep_id": sweep_id, "cell_id": found["cell_id"],
-                                       "settings": settings, "reused_from": found["origin"]})
-    store.write_batch(batch)
-    return found["cell_id"].tolist()
-
-
 def explain_sweep(spec, store: Store, sweep_id: str, *, prepared=None, jobs: int | None = None,
                   cells: str | None = None, reuse: bool = True,
                   progress: Callable[[int, int], None] | None = None,
@@ -229,7 +201,7 @@ def explain_sweep(spec, store: Store, sweep_id: str, *, prepared=None, jobs: int
         return result
     settings = _settings(spec)
     if reuse:
-        copied = _reuse(store, sweep_id, chosen["cell_id"].tolist(), settings)
+        copied = copy_explained(store, sweep_id, chosen["cell_id"].tolist(), settings)
         result.reused = len(copied)
         chosen = chosen[~chosen["cell_id"].isin(copied)]
         if chosen.empty:
