@@ -29,7 +29,7 @@ _LAZY = {
     "complexity_table": ("read.queries", "complexity_table"),
     "importance_table": ("read.queries", "importance_table"),
     "stability_table": ("read.queries", "stability_table"),
-    "figure": ("read.plots", "make_figure"), "write_report": ("read.report", "write_report"),
+    "figure": ("read.figures", "make_figure"), "write_report": ("read.report", "write_report"),
     "merge_store": ("store.transfer", "merge_store"),
     "export_store": ("store.transfer", "export_store"),
 }

@@ -389,7 +389,8 @@ def path(model, store_path, sweep_id, metric, se, fmt):
 
 
 # -- figures and the report ----------------------------------------------------------------
-_PLOT_KINDS = ("complexity", "models", "importance", "predictions", "tree")
+_PLOT_KINDS = ("complexity", "models", "importance", "predictions", "tree", "calibration",
+               "roc")
 _IMPORTANCE_METHODS = ("permutation", "impurity", "coefficient")
 
 
@@ -415,15 +416,16 @@ def plot(kind, store_path, sweep_id, model, rule, method, depth, se, out_dir, im
     """Draw one kind of figure of a sweep to PNG and SVG files and print their paths.
 
     Kinds: complexity (CV error against complexity, picks and one-SE threshold), models
-    (fold scores of each model's picked cell), importance, predictions (test split) and
-    tree (the picked pruned tree).
+    (fold scores of each model's picked cell), importance, predictions (test split, a
+    numeric target), calibration and roc (test split, a class target) and tree (the
+    picked pruned tree).
 
     \b
       foldwise plot models
       foldwise plot complexity --model tree --image png
       foldwise plot importance --method impurity --out-dir figures
     """
-    from .read.plots import write_plots
+    from .read.figures import write_plots
 
     if model is not None and kind not in ("complexity", "tree"):
         raise click.UsageError("--model is only for the complexity and tree kinds.")

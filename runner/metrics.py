@@ -11,7 +11,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 from typing import Callable
 
-__all__ = ["Metric", "METRICS", "get_metric", "metric_label"]
+__all__ = ["Metric", "METRICS", "get_metric", "metric_label", "TASK_DEFAULTS"]
 
 
 @dataclass(frozen=True)
@@ -26,8 +26,10 @@ class Metric:
     unit: str  # "target" (the target's units), "unitless" or "fraction"
     description: str
     task: str = "regression"
-    needs: str = "values"  # what a model must give: "values" (a number per row)
+    needs: str = "values"  # what it scores: "values" (a number per row), "probabilities"
+    #                        (one per class and row) or "classes" (the most probable class)
     target_check: Callable[[object], str | None] | None = None
+    compute: Callable | None = None  # classes: (y_true, probabilities, classes) -> float
 
     def _function(self):
         from sklearn import metrics
@@ -52,6 +54,24 @@ class Metric:
                                         P.shape[1], axis=1))
         values = self._function()(Y, P, multioutput="raw_values")
         return [float(v) for v in np.atleast_1d(values)]
+
+    def score_classes(self, y_true, probabilities, classes) -> float:
+        """The metric of one cell's class probabilities (columns in `classes` order); a
+        metric of classes scores the most probable class of each row, as `predict` does."""
+        return float(self.compute(y_true, probabilities, classes))
+
+    def scorer_for(self, classes=()):
+        """A scikit-learn scorer for permutation importance (higher is better): the named
+        one for numbers; for classes one that scores the pipeline's class probabilities
+        with this record's own computation, so it agrees with the stored scores."""
+        if self.task != "classification":
+            return self.scorer
+        from sklearn.metrics import make_scorer
+
+        labels = list(classes)
+        return make_scorer(lambda y, p: self.compute(y, p, labels),
+                           response_method="predict_proba",
+                           greater_is_better=self.better == "higher")
 
     def target_problem(self, y) -> str | None:
         """Why this metric cannot score this target (None if it can)."""
@@ -83,6 +103,44 @@ def _no_zeros(y) -> str | None:
     return None
 
 
+def _log_loss(y, p, classes):
+    from sklearn.metrics import log_loss
+
+    return log_loss(y, p, labels=list(classes))
+
+
+def _brier(y, p, classes):
+    from sklearn.metrics import brier_score_loss
+
+    return brier_score_loss(y, p, labels=list(classes), scale_by_half="auto")
+
+
+def _roc_auc(y, p, classes):
+    from sklearn.metrics import roc_auc_score
+
+    if len(classes) == 2:
+        return roc_auc_score(y, p[:, 1])
+    return roc_auc_score(y, p, multi_class="ovr", average="macro", labels=list(classes))
+
+
+def _most_probable(p, classes):
+    import numpy as np
+
+    return np.asarray(classes)[np.argmax(p, axis=1)]
+
+
+def _accuracy(y, p, classes):
+    from sklearn.metrics import accuracy_score
+
+    return accuracy_score(y, _most_probable(p, classes))
+
+
+def _balanced_accuracy(y, p, classes):
+    from sklearn.metrics import balanced_accuracy_score
+
+    return balanced_accuracy_score(y, _most_probable(p, classes))
+
+
 METRICS: dict[str, Metric] = {m.name: m for m in (
     Metric("rmse", "RMSE", "lower", "root_mean_squared_error",
            "neg_root_mean_squared_error", "target", "root mean squared error"),
@@ -94,6 +152,25 @@ METRICS: dict[str, Metric] = {m.name: m for m in (
            "neg_mean_absolute_percentage_error", "fraction",
            "mean absolute percentage error, as a fraction (0.05 = 5 %) of |target|",
            target_check=_no_zeros),
+    Metric("log_loss", "log loss", "lower", "log_loss", "neg_log_loss", "unitless",
+           "mean negative log-likelihood of the true class (natural log)",
+           task="classification", needs="probabilities", compute=_log_loss),
+    Metric("brier", "Brier score", "lower", "brier_score_loss", "neg_brier_score", "unitless",
+           "mean squared distance between the class probabilities and the truth: with two "
+           "classes that of the second class's probability (0 to 1), with more the sum over "
+           "classes (0 to 2), as scikit-learn's brier_score_loss with scale_by_half='auto'",
+           task="classification", needs="probabilities", compute=_brier),
+    Metric("roc_auc", "ROC AUC", "higher", "roc_auc_score", "roc_auc", "unitless",
+           "area under the ROC curve of the second class's probability; with three or more "
+           "classes the macro average of one-vs-rest areas",
+           task="classification", needs="probabilities", compute=_roc_auc),
+    Metric("accuracy", "accuracy", "higher", "accuracy_score", "accuracy", "unitless",
+           "share of rows whose most probable class is the true one",
+           task="classification", needs="classes", compute=_accuracy),
+    Metric("balanced_accuracy", "balanced accuracy", "higher", "balanced_accuracy_score",
+           "balanced_accuracy", "unitless", "mean over classes of the share of that class's "
+           "rows whose most probable class is the true one",
+           task="classification", needs="classes", compute=_balanced_accuracy),
 )}
 """Every metric foldwise scores, by name."""
 
@@ -110,3 +187,7 @@ def metric_label(name: str) -> str:
     """The one spelling of a metric's name in tables, sentences and figures."""
     return get_metric(name).label
 
+
+TASK_DEFAULTS = {"regression": ["rmse", "mae", "r2"],
+                 "classification": ["log_loss", "brier", "roc_auc", "accuracy"]}
+"""The metrics a spec gets when it lists none, per task (the first decides picks)."""

@@ -11,13 +11,14 @@ from PIL import Image
 from runner.cli import main
 from runner.errors import QueryError
 from runner.read.queries import complexity_table, picks
-from runner.read.plots import KINDS, complexity_figure, make_figure, models_figure, save_figure
+from runner.read.figures import KINDS, make_figure
+from runner.read.plots import complexity_figure, models_figure, save_figure
 
 OPTIONS = {"complexity": {"model": "tree"}, "models": {}, "importance": {},
            "predictions": {}, "tree": {"depth": 2}}
 
 
-@pytest.mark.parametrize("kind", sorted(KINDS))
+@pytest.mark.parametrize("kind", sorted(OPTIONS))
 def test_every_kind_renders_a_png_of_its_size(explained, tmp_path, kind):
     _, store, sid = explained
     fig = make_figure(kind, store, sid, **OPTIONS[kind])

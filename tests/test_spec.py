@@ -24,8 +24,12 @@ def _spec(extra: str):
 
 def test_minimal_spec_defaults():
     spec = _spec("models:\n  m: {family: linear}\n")
+    assert spec.metrics is None and spec.task is None  # both follow the target's column
+    spec.settle_task("regression")
     assert spec.metrics == ["rmse", "mae", "r2"]
-    assert spec.metrics[0] == "rmse"
+    other = _spec("models:\n  m: {family: linear}\n")
+    other.settle_task("classification")
+    assert other.metrics == ["log_loss", "brier", "roc_auc", "accuracy"]
     assert (spec.folds.k, spec.folds.repeats, spec.folds.seed) == (5, 1, 0)
     assert spec.pick == "one_se"
     assert spec.models["m"].grid == {}

@@ -12,6 +12,7 @@ import pytest
 
 from runner.errors import StoreError
 from runner.store import TABLES, Store
+from runner.store.schema import SCHEMA_VERSION, UPGRADE_COLUMNS
 from runner.store.transfer import export_store, merge_store
 
 
@@ -94,4 +95,26 @@ def test_a_store_of_schema_version_1_is_upgraded_keeping_spec_order(explained, t
     upgraded = Store(old.path)
     assert upgraded.query("select cell_id from cells order by position")["cell_id"].tolist() \
         == order
-    assert upgraded.query("select value from foldwise_meta")["value"].tolist() == ["2"]
+    assert upgraded.query("select value from foldwise_meta")["value"].tolist() == [
+        str(SCHEMA_VERSION)]
+
+
+def test_a_store_of_schema_version_2_gains_the_class_columns(explained, tmp_path):
+    from runner.read.queries import summary
+
+    _, store, sweep_id = explained
+    old = Store(tmp_path / "old.duckdb")
+    merge_store(old, store.path)
+    before = summary(old, sweep_id).table
+    with duckdb.connect(str(old.path)) as con:  # what a version-2 store looked like
+        con.execute("drop view cell_summary")
+        for table, column in UPGRADE_COLUMNS:
+            con.execute(f"alter table {table} drop column {column.split()[0]}")
+        con.execute("update foldwise_meta set value = '2' where key = 'schema_version'")
+    upgraded = Store(old.path)
+    after = summary(upgraded, sweep_id)
+    assert after.facts.task == "regression" and after.facts.classes == ()
+    pd.testing.assert_frame_equal(after.table, before)
+    columns = upgraded.query("select table_name, column_name from information_schema.columns")
+    for table, column in UPGRADE_COLUMNS:
+        assert column.split()[0] in set(columns[columns.table_name == table].column_name)

@@ -33,6 +33,11 @@ class Param:
     none_rank: float = 0.0  # where null sits among the values when ranking complexity
     choice_rank: tuple = ()  # (choice, rank) pairs for a "choice" parameter
     data_path: bool = False  # takes {path: N}: values read off the data's pruning path
+    tasks: tuple = ("regression", "classification")  # the tasks it applies to
+    task_defaults: tuple = ()  # (task, default) pairs where a task's default differs
+
+    def default_for(self, task: str):
+        return dict(self.task_defaults).get(task, self.default)
 
     def rank(self, value, n_features: int | None) -> float:
         """A number that orders this parameter's values (the direction is `simpler`)."""
@@ -71,15 +76,20 @@ class Family:
     def defaults(self) -> dict[str, Any]:
         return {name: p.default for name, p in self.params.items()}
 
+    def defaults_for(self, task: str) -> dict[str, Any]:
+        """The defaults of the parameters that apply to `task`."""
+        return {name: p.default_for(task) for name, p in self.params.items()
+                if task in p.tasks}
+
     @property
     def estimators(self):
         """The module that builds and fits this family's estimators (imports scikit-learn)."""
         return load_family(self.name)
 
-    def canonical(self, params: dict) -> dict:
-        """Defaults filled, parameters that cannot matter dropped, keys sorted: equal models
-        get equal parameters (and so equal cell ids)."""
-        full = {**self.defaults, **params}
+    def canonical(self, params: dict, task: str = "regression") -> dict:
+        """Defaults filled (of the parameters that apply to `task`), parameters that cannot
+        matter dropped, keys sorted: equal models get equal parameters (and cell ids)."""
+        full = {**self.defaults_for(task), **params}
         if self.tidy is not None:
             self.tidy(full)
         return dict(sorted(full.items()))
@@ -102,6 +112,13 @@ class Family:
 
 def _params(*items: Param) -> dict[str, Param]:
     return {p.name: p for p in items}
+
+
+_CLASS_WEIGHT = Param("class_weight", "choice", "none", choices=("none", "balanced"),
+                      tasks=("classification",),
+                      help="balanced weighs each class inversely to its share of the rows")
+_CRITERION = Param("criterion", "choice", "gini", choices=("gini", "entropy"),
+                   tasks=("classification",), help="the impurity a split reduces")
 
 
 def _tidy_linear(p: dict) -> None:
@@ -135,6 +152,7 @@ FAMILIES: dict[str, Family] = {
                   help="penalty strength (ignored when penalty is none)"),
             Param("l1_ratio", "float", 0.5, minimum=0.0, maximum=1.0,
                   help="share of the l1 penalty in the elastic net"),
+            _CLASS_WEIGHT,
         ),
         complexity_order=("penalty", "alpha"),
         path_params=("alpha",),
@@ -143,17 +161,19 @@ FAMILIES: dict[str, Family] = {
     "pruned_tree": Family(
         name="pruned_tree",
         module="runner.families.pruned_tree",
-        description="A regression tree pruned by cost complexity.",
+        description="A decision tree pruned by cost complexity.",
         params=_params(
             Param("ccp_alpha", "float", 0.0, minimum=0.0, simpler="higher", data_path=True,
                   help="cost-complexity pruning strength, as in scikit-learn"),
             Param("ccp_fraction", "float", None, minimum=0.0, allow_none=True, simpler="higher",
-                  help="ccp_alpha as a fraction of the root node's mean squared error"),
+                  help="ccp_alpha as a fraction of the root node's impurity (the mean squared "
+                  "error for numbers, the criterion's impurity for classes)"),
             Param("min_samples_leaf", "int", 1, minimum=1, simpler="higher"),
             Param("max_depth", "int", None, minimum=1, allow_none=True, simpler="lower",
                   none_rank=math.inf),
             Param("max_features", "max_features", None, allow_none=True, simpler="lower",
                   none_rank=1.0),
+            _CRITERION, _CLASS_WEIGHT,
         ),
         complexity_order=("ccp_alpha", "ccp_fraction", "min_samples_leaf", "max_depth",
                           "max_features"),
@@ -163,18 +183,21 @@ FAMILIES: dict[str, Family] = {
     "forest": Family(
         name="forest",
         module="runner.families.forest",
-        description="A random forest of regression trees.",
+        description="A random forest of decision trees.",
         params=_params(
             Param("n_estimators", "int", 100, minimum=1, simpler="lower",
                   help="number of trees (does not change complexity; fewer is cheaper)"),
             Param("max_features", "max_features", 1.0, allow_none=True, simpler="lower",
-                  none_rank=1.0),
+                  none_rank=1.0, task_defaults=(("classification", "sqrt"),),
+                  help="share of columns tried at each split (default 1.0 for numbers, "
+                  "'sqrt' for classes, as scikit-learn's forests)"),
             Param("min_samples_leaf", "int", 1, minimum=1, simpler="higher"),
             Param("max_depth", "int", None, minimum=1, allow_none=True, simpler="lower",
                   none_rank=math.inf),
             Param("max_samples", "float", None, minimum=0.0, maximum=1.0, min_inclusive=False,
                   allow_none=True),
             Param("bootstrap", "bool", True),
+            _CRITERION, _CLASS_WEIGHT,
         ),
         complexity_order=("min_samples_leaf", "max_features", "max_depth", "n_estimators"),
         path_params=("n_estimators",),

@@ -21,6 +21,7 @@ from sklearn.pipeline import Pipeline
 from sklearn.preprocessing import OneHotEncoder, OrdinalEncoder, StandardScaler
 
 __all__ = ["CellFit", "tree_preprocessor", "linear_preprocessor", "fit_each", "fit_grouped",
+           "predict",
            "path_groups", "work_units", "PLAIN"]
 
 PLAIN = "plain"
@@ -74,9 +75,15 @@ def _record_error(result: CellFit, exc: Exception) -> None:
     result.predictions = []
 
 
+def predict(estimator, X, task: str):
+    """What a fitted pipeline says of rows: a value per row (regression), or the probability
+    of each class per row, columns in `classes_` order (classification)."""
+    return estimator.predict_proba(X) if task == "classification" else estimator.predict(X)
+
+
 def fit_each(make_estimator: Callable, cells: list[dict], X_fit, y_fit, X_evals, *, seed: int,
              numeric: list[str], categorical: list[str],
-             leaves: Callable | None = None) -> list[CellFit]:
+             leaves: Callable | None = None, task: str = "regression") -> list[CellFit]:
     """Fit every cell separately on the same rows and predict each evaluation set."""
     out = []
     for params in cells:
@@ -86,10 +93,10 @@ def fit_each(make_estimator: Callable, cells: list[dict], X_fit, y_fit, X_evals,
             with warnings.catch_warnings(record=True) as caught:
                 warnings.simplefilter("always")
                 est = make_estimator(params, seed=seed, y_fit=y_fit, numeric=numeric,
-                                     categorical=categorical)
+                                     categorical=categorical, task=task)
                 est.fit(X_fit, y_fit)
                 result.fit_seconds = time.perf_counter() - start
-                result.predictions = [est.predict(X) for X in X_evals]
+                result.predictions = [predict(est, X, task) for X in X_evals]
             result.n_warnings = _count_warnings(caught)
             if leaves is not None:
                 result.n_leaves = leaves(est)
@@ -140,14 +147,16 @@ def work_units(cells: Sequence[dict], path_params: Sequence[str], *, paths: bool
 
 
 Evaluate = Callable[..., list[CellFit]]
-"""(group params, Xt_fit, y_fit, Xt_evals, seed=...) -> one CellFit per cell, predictions set."""
+"""(group params, Xt_fit, y_fit, Xt_evals, seed=..., task=...) -> one CellFit per cell,
+predictions set (values, or class probabilities for classification)."""
 
 
 def fit_grouped(make_estimator: Callable, preprocessor: Callable, evaluate: Evaluate,
                 how: Callable[[dict], str], path_params: Sequence[str], cells: list[dict],
                 X_fit, y_fit, X_evals, *, seed: int, numeric: list[str],
                 categorical: list[str], paths: bool = True, leaves: Callable | None = None,
-                eligible: Callable[[dict], bool] | None = None) -> list[CellFit]:
+                eligible: Callable[[dict], bool] | None = None,
+                task: str = "regression") -> list[CellFit]:
     """Score every cell: each group of path-sharing cells from one fit, the rest one by one.
 
     `how(params)` names the path evaluator a group runs, recorded in `CellFit.how` (also
@@ -161,12 +170,13 @@ def fit_grouped(make_estimator: Callable, preprocessor: Callable, evaluate: Eval
     `n_warnings` of a grouped cell counts the warnings its group's one fit raised."""
     if not paths:
         return fit_each(make_estimator, cells, X_fit, y_fit, X_evals, seed=seed,
-                        numeric=numeric, categorical=categorical, leaves=leaves)
+                        numeric=numeric, categorical=categorical, leaves=leaves, task=task)
     together, alone = path_groups(cells, path_params, eligible)
     out: list[CellFit | None] = [None] * len(cells)
     if alone:
         plain = fit_each(make_estimator, [cells[i] for i in alone], X_fit, y_fit, X_evals,
-                         seed=seed, numeric=numeric, categorical=categorical, leaves=leaves)
+                         seed=seed, numeric=numeric, categorical=categorical, leaves=leaves,
+                         task=task)
         for i, fit in zip(alone, plain):
             out[i] = fit
     if together:
@@ -182,7 +192,7 @@ def fit_grouped(make_estimator: Callable, preprocessor: Callable, evaluate: Eval
         for members in together:
             group = [cells[i] for i in members]
             fits = _evaluate_group(evaluate, group, prep_error, prep_share, Xt_fit, y_fit,
-                                   Xt_evals, seed)
+                                   Xt_evals, seed, task)
             for i, fit in zip(members, fits):
                 fit.how = how(group[0])
                 out[i] = fit
@@ -190,7 +200,7 @@ def fit_grouped(make_estimator: Callable, preprocessor: Callable, evaluate: Eval
 
 
 def _evaluate_group(evaluate: Evaluate, group: list[dict], prep_error, prep_seconds: float,
-                    Xt_fit, y_fit, Xt_evals, seed: int) -> list[CellFit]:
+                    Xt_fit, y_fit, Xt_evals, seed: int, task: str) -> list[CellFit]:
     start = time.perf_counter()
     n_warnings = 0
     try:
@@ -198,7 +208,7 @@ def _evaluate_group(evaluate: Evaluate, group: list[dict], prep_error, prep_seco
             raise prep_error
         with warnings.catch_warnings(record=True) as caught:
             warnings.simplefilter("always")
-            fits = evaluate(group, Xt_fit, y_fit, Xt_evals, seed=seed)
+            fits = evaluate(group, Xt_fit, y_fit, Xt_evals, seed=seed, task=task)
         n_warnings = _count_warnings(caught)
     except Exception as exc:  # the group's one fit failed: every cell of it is recorded failed
         fits = [CellFit() for _ in group]

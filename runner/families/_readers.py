@@ -35,9 +35,11 @@ def _by_source(values, sources: list[str], features: list[str]) -> dict[str, flo
 
 
 def coefficient_importance(pipeline, X_fit, features: list[str]) -> dict[str, float]:
-    """Per original column, the SD over the fitting rows of its part of the linear prediction."""
+    """Per original column, the SD over the fitting rows of its part of the linear prediction
+    (for classes: of the log-odds; with three or more classes the mean of that SD over the
+    classes' linear scores)."""
     prep, model = pipeline.named_steps["prep"], pipeline.named_steps["model"]
-    coefs = np.asarray(model.coef_, dtype=float).ravel()
+    coefs = np.atleast_2d(np.asarray(model.coef_, dtype=float))
     sources = output_sources(prep)
     Xt = np.asarray(prep.transform(X_fit), dtype=float)
     numeric = set()
@@ -50,9 +52,9 @@ def coefficient_importance(pipeline, X_fit, features: list[str]) -> dict[str, fl
         if not idx:
             continue
         if col in numeric:  # one standardised column: SD of w*z is |w|
-            out[col] = float(abs(coefs[idx[0]]))
+            out[col] = float(np.mean(np.abs(coefs[:, idx[0]])))
         else:
-            out[col] = float(np.std(Xt[:, idx] @ coefs[idx]))
+            out[col] = float(np.mean([np.std(Xt[:, idx] @ row[idx]) for row in coefs]))
     return out
 
 
@@ -98,6 +100,17 @@ def tree_shape(pipeline) -> dict:
     return out
 
 
+def _node_value(tree, node: int) -> dict:
+    """A node's prediction: its mean (regression), or its most likely class and that
+    class's share of the node's (weighted) rows (classification)."""
+    value = tree.tree_.value[node][0]
+    if not hasattr(tree, "classes_"):
+        return {"value": float(value[0]), "label": None}
+    shares = value / value.sum() if value.sum() > 0 else value
+    best = int(np.argmax(shares))
+    return {"value": float(shares[best]), "label": str(tree.classes_[best])}
+
+
 def tree_node_rows(pipeline) -> list[dict]:
     """One row per node of the fitted tree: links, depth, split rule, mean and size."""
     prep, tree = pipeline.named_steps["prep"], pipeline.named_steps["model"]
@@ -120,7 +133,7 @@ def tree_node_rows(pipeline) -> list[dict]:
                      "feature": name, "threshold": thr,
                      "rule": None if leaf else _rule(name, thr, levels.get(name)),
                      "missing_left": None if leaf else bool(t.missing_go_to_left[node]),
-                     "value": float(t.value[node].ravel()[0]),
+                     **_node_value(tree, node),
                      "n_samples": int(t.n_node_samples[node]),
                      "impurity": float(t.impurity[node])})
     return rows

@@ -1,13 +1,15 @@
-"""The `forest` family: a RandomForestRegressor on numbers and ordinal-coded categories.
+"""The `forest` family: a random forest (RandomForestRegressor for numbers,
+RandomForestClassifier for classes) on numbers and ordinal-coded categories.
 
 A grid over `n_estimators` is scored from one forest per combination of the other
 parameters: the largest forest is fitted once and its first k trees are the k-tree forest
 with the same random_state (the trees' seeds are drawn in order), so their running mean
-gives every smaller forest's predictions bit for bit (`paths.py`)."""
+gives every smaller forest's predictions bit for bit (`paths.py`); for classes the running
+mean of the trees' class probabilities, as the classifier's predict_proba averages them."""
 
 from __future__ import annotations
 
-from sklearn.ensemble import RandomForestRegressor
+from sklearn.ensemble import RandomForestClassifier, RandomForestRegressor
 from sklearn.pipeline import Pipeline
 
 from ._readers import impurity_importance as own_importance
@@ -19,19 +21,26 @@ __all__ = ["make_estimator", "fit_cells", "fit_units", "own_importance", "PATH_P
 PATH_PARAMS = ("n_estimators",)
 
 
-def _forest(params: dict, *, seed: int, n_estimators: int) -> RandomForestRegressor:
+def _forest(params: dict, *, seed: int, n_estimators: int, task: str = "regression"):
     bootstrap = params.get("bootstrap", True)
-    return RandomForestRegressor(n_estimators=n_estimators,
-                                 max_features=params.get("max_features", 1.0),
-                                 min_samples_leaf=params.get("min_samples_leaf", 1),
-                                 max_depth=params.get("max_depth"),
-                                 max_samples=params.get("max_samples") if bootstrap else None,
-                                 bootstrap=bootstrap, random_state=seed, n_jobs=1)
+    common = dict(n_estimators=n_estimators, max_features=params.get("max_features", 1.0),
+                  min_samples_leaf=params.get("min_samples_leaf", 1),
+                  max_depth=params.get("max_depth"),
+                  max_samples=params.get("max_samples") if bootstrap else None,
+                  bootstrap=bootstrap, random_state=seed, n_jobs=1)
+    if task == "classification":
+        weight = params.get("class_weight", "none")
+        return RandomForestClassifier(criterion=params.get("criterion", "gini"),
+                                      class_weight=None if weight == "none" else weight,
+                                      **common)
+    return RandomForestRegressor(**common)
 
 
-def make_estimator(params: dict, *, seed: int, y_fit=None, numeric, categorical) -> Pipeline:
+def make_estimator(params: dict, *, seed: int, y_fit=None, numeric, categorical,
+                   task: str = "regression") -> Pipeline:
     """The pipeline for one cell; the forest runs single-threaded (folds run in parallel)."""
-    forest = _forest(params, seed=seed, n_estimators=params.get("n_estimators", 100))
+    forest = _forest(params, seed=seed, n_estimators=params.get("n_estimators", 100),
+                     task=task)
     return Pipeline([("prep", tree_preprocessor(numeric, categorical)), ("model", forest)])
 
 
@@ -39,10 +48,12 @@ def _how(params: dict) -> str:
     return "forest_prefix"
 
 
-def _prefix_path(group: list[dict], Xt_fit, y_fit, Xt_evals, *, seed: int) -> list[CellFit]:
+def _prefix_path(group: list[dict], Xt_fit, y_fit, Xt_evals, *, seed: int,
+                 task: str = "regression") -> list[CellFit]:
     """Every forest size of the group from one fit of the largest."""
     sizes = [int(params.get("n_estimators", 100)) for params in group]
-    forest = _forest(group[0], seed=seed, n_estimators=max(sizes)).fit(Xt_fit, y_fit)
+    forest = _forest(group[0], seed=seed, n_estimators=max(sizes), task=task).fit(Xt_fit,
+                                                                                  y_fit)
     fits = [CellFit() for _ in group]
     for X in Xt_evals:
         for fit, p in zip(fits, forest_prefix_predictions(forest, X, sizes)):
@@ -50,12 +61,13 @@ def _prefix_path(group: list[dict], Xt_fit, y_fit, Xt_evals, *, seed: int) -> li
     return fits
 
 
-def fit_cells(cells, X_fit, y_fit, X_evals, *, seed, numeric, categorical, paths=True):
+def fit_cells(cells, X_fit, y_fit, X_evals, *, seed, numeric, categorical, paths=True,
+              task="regression"):
     """Score every cell on the fitting rows: size grids from one forest, or (with
     `paths=False`, or a lone size) one fit per cell."""
     return fit_grouped(make_estimator, tree_preprocessor, _prefix_path, _how, PATH_PARAMS,
                        cells, X_fit, y_fit, X_evals, seed=seed, numeric=numeric,
-                       categorical=categorical, paths=paths)
+                       categorical=categorical, paths=paths, task=task)
 
 
 def fit_units(cells, *, paths=True):

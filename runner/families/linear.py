@@ -1,6 +1,7 @@
-"""The `linear` family: ordinary least squares, ridge, lasso or elastic net, after median
-imputation and standardisation of numbers and one-hot encoding of categories, all fitted
-on the fitting rows only.
+"""The `linear` family: ordinary least squares, ridge, lasso or elastic net for numbers, and
+logistic regression with the same penalties for classes, after median imputation and
+standardisation of numbers and one-hot encoding of categories, all fitted on the fitting
+rows only.
 
 A grid over `alpha` is scored without one fit per cell: ridge from one SVD of the centred
 design per fold (the arithmetic of Ridge(solver="svd"), equal to ~1e-12), lasso and elastic
@@ -22,6 +23,7 @@ __all__ = ["make_estimator", "fit_cells", "fit_units", "own_importance", "origin
 
 PATH_PARAMS = ("alpha",)
 _CD_TOL, _CD_MAX_ITER = 1e-4, 1000  # Lasso's and ElasticNet's defaults
+_NEWTON_MAX_ITER = 100
 
 
 def _regressor(params: dict):
@@ -36,10 +38,37 @@ def _regressor(params: dict):
                       max_iter=_CD_MAX_ITER)
 
 
-def make_estimator(params: dict, *, seed: int, y_fit=None, numeric, categorical) -> Pipeline:
-    """The pipeline for one cell; `seed` is unused (these fits are deterministic)."""
-    return Pipeline([("prep", linear_preprocessor(numeric, categorical)),
-                     ("model", _regressor(params))])
+def _classifier(params: dict, *, n_fit: int, seed: int):
+    """Logistic regression with the penalty of `params`. One `alpha` means the same strength
+    on any number of rows: C = 1 / (alpha · n_fit), since scikit-learn's objective is
+    C · Σ loss + penalty and ours (mean loss) + alpha · penalty. Built the way scikit-learn
+    1.8 asks (l1_ratio and C, no `penalty`): none -> C = inf; l2 and none by Newton's method
+    (newton-cholesky, tol 1e-8, so coefficients are exact to many digits); l1 and elastic
+    net by saga (seeded, as it shuffles)."""
+    from sklearn.linear_model import LogisticRegression
+
+    penalty = params.get("penalty", "none")
+    weight = params.get("class_weight", "none")
+    common = dict(class_weight=None if weight == "none" else weight)
+    if penalty == "none":
+        return LogisticRegression(C=np.inf, solver="newton-cholesky", tol=1e-8,
+                                  max_iter=_NEWTON_MAX_ITER, **common)
+    C = 1.0 / (float(params["alpha"]) * n_fit)
+    if penalty == "l2":
+        return LogisticRegression(C=C, l1_ratio=0.0, solver="newton-cholesky", tol=1e-8,
+                                  max_iter=_NEWTON_MAX_ITER, **common)
+    l1_ratio = 1.0 if penalty == "l1" else float(params["l1_ratio"])
+    return LogisticRegression(C=C, l1_ratio=l1_ratio, solver="saga", tol=_CD_TOL,
+                              max_iter=_CD_MAX_ITER, random_state=seed, **common)
+
+
+def make_estimator(params: dict, *, seed: int, y_fit=None, numeric, categorical,
+                   task: str = "regression") -> Pipeline:
+    """The pipeline for one cell; `seed` matters only to saga's shuffling (lasso and elastic
+    net for classes); the other fits are deterministic."""
+    model = (_classifier(params, n_fit=len(y_fit), seed=seed) if task == "classification"
+             else _regressor(params))
+    return Pipeline([("prep", linear_preprocessor(numeric, categorical)), ("model", model)])
 
 
 def _penalised(params: dict) -> bool:
@@ -50,7 +79,8 @@ def _how(params: dict) -> str:
     return "ridge_svd" if params["penalty"] == "l2" else "enet_path"
 
 
-def _alpha_path(group: list[dict], Xt_fit, y_fit, Xt_evals, *, seed: int) -> list[CellFit]:
+def _alpha_path(group: list[dict], Xt_fit, y_fit, Xt_evals, *, seed: int,
+                task: str = "regression") -> list[CellFit]:
     """Every alpha of the group (one penalty, one l1_ratio) from one decomposition or path."""
     alphas = np.array([params["alpha"] for params in group], dtype=np.float64)
     penalty = group[0]["penalty"]
@@ -68,12 +98,15 @@ def _alpha_path(group: list[dict], Xt_fit, y_fit, Xt_evals, *, seed: int) -> lis
     return fits
 
 
-def fit_cells(cells, X_fit, y_fit, X_evals, *, seed, numeric, categorical, paths=True):
+def fit_cells(cells, X_fit, y_fit, X_evals, *, seed, numeric, categorical, paths=True,
+              task="regression"):
     """Score every cell on the fitting rows: alpha grids from one SVD or path per penalty and
-    l1_ratio, or (with `paths=False`, least squares, or a lone alpha) one fit per cell."""
+    l1_ratio, or (with `paths=False`, least squares, a lone alpha, or classes: logistic
+    regression has no exact one-fit route here) one fit per cell."""
     return fit_grouped(make_estimator, linear_preprocessor, _alpha_path, _how, PATH_PARAMS,
                        cells, X_fit, y_fit, X_evals, seed=seed, numeric=numeric,
-                       categorical=categorical, paths=paths, eligible=_penalised)
+                       categorical=categorical, paths=paths and task == "regression",
+                       eligible=_penalised, task=task)
 
 
 def fit_units(cells, *, paths=True):
@@ -91,7 +124,7 @@ def original_scale_coefficients(pipeline: Pipeline) -> tuple[dict[str, float], f
     prep = pipeline.named_steps["prep"]
     model = pipeline.named_steps["model"]
     coefs = np.asarray(model.coef_, dtype=float).ravel()
-    intercept = float(model.intercept_)
+    intercept = float(np.ravel(model.intercept_)[0])
     out: dict[str, float] = {}
     pos = 0
     for name, transformer, columns in prep.transformers_:

@@ -31,7 +31,7 @@ def _check_unpruned(tree):
     if tree.ccp_alpha != 0.0:
         raise ValueError("the tree must be fitted with ccp_alpha=0 (unpruned)")
     if tree.n_outputs_ != 1:
-        raise ValueError("only single-output regression trees are supported")
+        raise ValueError("only single-output trees are supported")
 
 
 def _parents(t):
@@ -136,8 +136,21 @@ def _steps_for(seq, alphas):
     return np.where(alphas == 0.0, 0, steps)
 
 
+def _node_outputs(tree):
+    """What each node predicts: its mean for a regression tree; for a classification tree
+    its class probabilities, normalised exactly as `predict_proba` normalises a leaf's."""
+    t = tree.tree_
+    if not hasattr(tree, "classes_"):
+        return t.value[:, 0, 0]
+    proba = t.value[:, 0, :].copy()
+    normalizer = proba.sum(axis=1)[:, None]
+    normalizer[normalizer == 0.0] = 1.0
+    return proba / normalizer
+
+
 def pruned_tree_predictions(tree, X, alphas):
-    """Predictions and leaf counts of refits with each ``ccp_alpha``, from one unpruned tree."""
+    """Predictions (values, or class probabilities of a classification tree) and leaf counts
+    of refits with each ``ccp_alpha``, from one unpruned tree."""
     _check_unpruned(tree)
     alphas = np.asarray(alphas, dtype=np.float64).reshape(-1)
     if np.any(~(alphas >= 0.0)):
@@ -155,10 +168,10 @@ def pruned_tree_predictions(tree, X, alphas):
         inner = frontier[t.children_left[frontier] != _LEAF]
         frontier = np.concatenate([t.children_left[inner], t.children_right[inner]])
     leaves = np.flatnonzero(t.children_left == _LEAF)
-    value = t.value[:, 0, 0]
+    value = _node_outputs(tree)
     row_leaf = tree.apply(X)  # the estimator's own routing (dtype, NaN handling)
 
-    preds = np.empty((alphas.size, row_leaf.size), dtype=np.float64)
+    preds = np.empty((alphas.size, row_leaf.size, *value.shape[1:]), dtype=np.float64)
     n_leaves = np.empty(alphas.size, dtype=np.intp)
     done = {}
     for j, s in enumerate(_steps_for(seq, alphas).tolist()):
@@ -172,7 +185,7 @@ def pruned_tree_predictions(tree, X, alphas):
                 up = owner[parent[lvl]]
                 owner[lvl] = np.where(up >= 0, up, np.where(collapsed[lvl], lvl, -1))
             final = np.where(owner[leaves] >= 0, owner[leaves], leaves)
-            node_value = np.empty(t.node_count, dtype=np.float64)
+            node_value = np.empty_like(value)
             node_value[leaves] = value[final]
             done[s] = (node_value[row_leaf], np.unique(final).size)
         preds[j], n_leaves[j] = done[s]
@@ -185,7 +198,8 @@ def pruned_tree_predictions(tree, X, alphas):
 
 
 def forest_prefix_predictions(forest, X, sizes):
-    """Predictions of forests with the first ``sizes[i]`` trees, from one fitted forest."""
+    """Predictions (class probabilities for a classifier) of forests with the first
+    ``sizes[i]`` trees, from one fitted forest."""
     check_is_fitted(forest, "estimators_")
     if forest.n_outputs_ != 1:
         raise ValueError("only single-output forests are supported")
@@ -196,14 +210,17 @@ def forest_prefix_predictions(forest, X, sizes):
     # Cast once to the trees' float32, as the forest's own predict does.
     X = check_array(X, dtype=np.float32, accept_sparse="csr", ensure_all_finite=False)
 
-    out = np.empty((sizes.size, X.shape[0]), dtype=np.float64)
+    classes = getattr(forest, "classes_", None)
+    shape = (X.shape[0],) if classes is None else (X.shape[0], len(classes))
+    out = np.empty((sizes.size, *shape), dtype=np.float64)
     wanted = {}
     for i, k in enumerate(sizes.tolist()):
         wanted.setdefault(int(k), []).append(i)
-    # Same arithmetic as the library: zeros, += each tree in order, /= count.
-    running = np.zeros(X.shape[0], dtype=np.float64)
+    # Same arithmetic as the library: zeros, += each tree in order, /= count (for a
+    # classifier the trees' class probabilities, as its predict_proba sums them).
+    running = np.zeros(shape, dtype=np.float64)
     for k, est in enumerate(forest.estimators_[: int(sizes.max())], start=1):
-        running += est.predict(X)
+        running += est.predict(X) if classes is None else est.predict_proba(X)
         if k in wanted:
             out[wanted[k]] = running / k
     return out

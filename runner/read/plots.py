@@ -21,7 +21,7 @@ import pandas as pd
 
 from ..errors import QueryError
 from ..families import get_family
-from .filenames import inside, safe_component, safe_names
+from .filenames import inside
 from ..metrics import get_metric, metric_label
 from .picks import check_rule
 from .queries import (complexity_table, importance_table, model_order, picked_fold_scores,
@@ -30,9 +30,8 @@ from .results import ComplexityTable, Picks
 from ..store import Store
 from .views import number, params_text, rule_label
 
-__all__ = ["KINDS", "PALETTE", "make_figure", "complexity_figure", "models_figure",
-           "importance_figure", "predictions_figure", "tree_figure", "save_figure",
-           "figure_svg", "model_colours", "write_plots"]
+__all__ = ["PALETTE", "complexity_figure", "models_figure", "importance_figure",
+           "predictions_figure", "tree_figure", "save_figure", "figure_svg", "model_colours"]
 
 PALETTE = ["#0072B2", "#E69F00", "#009E73", "#CC79A7", "#56B4E9", "#D55E00", "#F0E442",
            "#000000"]
@@ -267,6 +266,9 @@ def predictions_figure(store: Store, sweep_id: str | None = None, *, rule: str |
     result = _picked(store, sweep_id, rule)
     chosen, facts, rule = result.table, result.facts, rule_label(result.rules[0])
     sid, target = facts.sweep_id, facts.target
+    if facts.task == "classification":
+        raise QueryError(f"sweep {sid} predicts the classes of {target}; for their test "
+                         "predictions draw `foldwise plot calibration` or `foldwise plot roc`.")
     preds = prediction_table(store, sid)
     preds = preds[preds["cell_id"].isin(chosen["cell_id"])]
     if preds.empty:
@@ -378,7 +380,9 @@ def tree_figure(store: Store, sweep_id: str | None = None, *, rule: str | None =
         for node, (x, d, collapsed) in pos.items():
             row = by_id.loc[node]
             leaf = row["left_child"] < 0
-            mean = f"mean {row['value']:.3g}, n {int(row['n_samples'])}"
+            mean = (f"{row['label']} {row['value']:.0%}, n {int(row['n_samples'])}"
+                    if isinstance(row.get("label"), str)
+                    else f"mean {row['value']:.3g}, n {int(row['n_samples'])}")
             if leaf or collapsed:
                 text = mean if leaf else f"… {_leaves_under(nodes, node)} leaves\n{mean}"
                 face = cmap(norm(row["value"]))
@@ -399,54 +403,7 @@ def tree_figure(store: Store, sweep_id: str | None = None, *, rule: str | None =
     return fig
 
 
-# -- registry and files --------------------------------------------------------------------
-KINDS = {"complexity": complexity_figure, "models": models_figure,
-         "importance": importance_figure, "predictions": predictions_figure,
-         "tree": tree_figure}
-"""Every figure kind by name."""
-
-
-def make_figure(kind: str, store: Store, sweep_id: str | None = None, **options):
-    """The figure of one kind; options go to its function (e.g. model=, rule=, method=)."""
-    if kind not in KINDS:
-        raise QueryError(f"unknown plot kind {kind!r}; kinds: {', '.join(KINDS)}.")
-    return KINDS[kind](store, sweep_id=sweep_id, **options)
-
-
-def write_plots(kind: str, store: Store, out_dir: str | Path, sweep_id: str | None = None, *,
-                model: str | None = None, rule: str | None = None,
-                method: str = "permutation", depth: int = 3, se: str = "plain",
-                formats=("png", "svg")) -> list[Path]:
-    """Draw one kind of figure of a sweep into `out_dir` and return the files written:
-    `<sweep id>-<kind>[-<model or method>].<format>`, one figure per model for
-    `complexity` unless `model` is given.
-
-    The sweep id and model labels come from the store, which others may have written, so
-    each becomes a safe file-name component (runner/filenames.py) and every file must
-    resolve inside `out_dir`. Labels are named from all of the sweep's models at once,
-    so a model's file name is the same whether or not `model` is given."""
-    if kind not in KINDS:
-        raise QueryError(f"unknown plot kind {kind!r}; kinds: {', '.join(KINDS)}.")
-    sid = store.resolve_sweep(sweep_id)
-    if kind == "complexity":
-        every = model_order(store, sid)
-        models = [model] if model is not None else every
-        names = safe_names([*every, *models])
-        jobs = [(dict(model=m, se=se), f"{kind}-{names[m]}") for m in models]
-    elif kind == "tree":
-        jobs = [(dict(rule=rule, model=model, depth=depth), kind)]
-    elif kind == "importance":
-        jobs = [(dict(rule=rule, method=method), f"{kind}-{safe_component(method)}")]
-    else:
-        jobs = [(dict(rule=rule), kind)]
-    folder = Path(out_dir)
-    paths: list[Path] = []
-    for options, name in jobs:
-        fig = make_figure(kind, store, sid, **options)
-        paths += save_figure(fig, folder / f"{safe_component(sid)}-{name}", formats)
-    return paths
-
-
+# -- files ---------------------------------------------------------------------------------
 def save_figure(fig, stem: Path, formats=("png", "svg"), *, dpi: int = 150) -> list[Path]:
     """Write the figure as `stem.<format>` for each format (the format is appended, so a
     dot in the stem stays); return the paths. Each file must resolve inside stem's folder."""

@@ -70,15 +70,29 @@ def process_alive(pid: int) -> bool:
 def sweep_facts(store: Store, sweep_id: str | None = None) -> SweepFacts:
     """The resolved sweep with its metrics and their directions, folds, rule and target."""
     sweep_id = store.resolve_sweep(sweep_id)
-    row = store.query("""select name, target, metrics, k, repeats, pick_rule from sweeps
-                         where sweep_id = ?""", [sweep_id]).iloc[0]
+    row = store.query("""select name, target, metrics, k, repeats, pick_rule, task,
+                                classes::varchar as classes
+                         from sweeps where sweep_id = ?""", [sweep_id]).iloc[0]
     metrics = tuple(str(row["metrics"]).split(","))
     better = store.query("select metric, better from metrics where list_contains(?, metric)",
                          [list(metrics)])
     return SweepFacts(sweep_id=sweep_id, name=str(row["name"]), target=str(row["target"]),
                       metrics=metrics, better=dict(zip(better["metric"], better["better"])),
                       k=int(row["k"]), repeats=int(row["repeats"]),
-                      rule=str(row["pick_rule"] or "best"))
+                      rule=str(row["pick_rule"] or "best"),
+                      task=str(row["task"]) if isinstance(row["task"], str) else "regression",
+                      classes=_classes(row["classes"]))
+
+
+def _classes(text) -> tuple:
+    """A sweep's stored class labels (JSON text from the store: checked, never evaluated)."""
+    if not isinstance(text, str):
+        return ()
+    try:
+        labels = json.loads(text)
+    except ValueError:
+        return ()
+    return tuple(labels) if isinstance(labels, list) else ()
 
 
 def sweep_record(store: Store, sweep_id: str) -> dict:
@@ -492,6 +506,7 @@ def prediction_table(store: Store, sweep_id: str | None = None) -> pd.DataFrame:
     sweep_id = store.resolve_sweep(sweep_id)
     df = store.query("""
         select c.model, c.family, p.cell_id, p."row", p.observed, p.predicted,
+               p.observed_class, p.predicted_class, p.probabilities,
                min(c.position) over (partition by c.model) as model_row
         from test_predictions p
         join cells c on c.sweep_id = p.sweep_id and c.cell_id = p.cell_id

@@ -14,6 +14,7 @@ import pandas as pd
 from ..errors import FoldwiseError
 from .filenames import inside, safe_component
 from ..metrics import get_metric, metric_label
+from .class_figures import calibration_figure, roc_figure
 from .plots import (complexity_figure, figure_svg, importance_figure, model_colours,
                     models_figure, predictions_figure, tree_figure)
 from .queries import (compare, complexity_table, importance_table, picks, stability_table,
@@ -106,9 +107,12 @@ def report_context(store: Store, sweep_id: str | None = None, *, se: str = "plai
     if len(trees):
         trees["columns used"] = [", ".join(v) for v in trees["features_used"]]
     figures = {}
+    classes = facts.task == "classification"
     for key, make in (("models", models_figure), ("importance", importance_figure),
-                      ("predictions", predictions_figure), ("tree", tree_figure)):
-        figures[key] = dict(zip(("svg", "why"), _svg(make, key, store, sid)))
+                      ("predictions", calibration_figure if classes else predictions_figure),
+                      ("roc", roc_figure if classes else None), ("tree", tree_figure)):
+        figures[key] = (dict(zip(("svg", "why"), _svg(make, key, store, sid))) if make
+                        else {"svg": None, "why": None})
     started, finished = sweep.get("started_at"), sweep.get("finished_at")
     seconds = None
     if started is not None and finished is not None and not pd.isna(finished):

@@ -25,6 +25,8 @@ class SweepFacts:
     k: int
     repeats: int
     rule: str  # the spec's pick rule
+    task: str = "regression"
+    classes: tuple = ()  # class labels in the models' probability order (classification)
 
     @property
     def metric(self) -> str:

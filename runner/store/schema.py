@@ -6,10 +6,12 @@ from __future__ import annotations
 
 from pathlib import Path
 
-__all__ = ["SCHEMA_VERSION", "DEFAULT_STORE", "TABLE_SQL", "VIEW_SQL", "TABLES"]
+__all__ = ["SCHEMA_VERSION", "DEFAULT_STORE", "TABLE_SQL", "VIEW_SQL", "TABLES",
+           "UPGRADE_COLUMNS"]
 
-SCHEMA_VERSION = 2
-"""2: cells.position keeps spec order explicit (a server table has no insertion order)."""
+SCHEMA_VERSION = 3
+"""2: cells.position keeps spec order explicit (a server table has no insertion order).
+3: classes: sweeps.task and .classes; tree_nodes.label; test_predictions of classes."""
 DEFAULT_STORE = Path("results") / "foldwise.duckdb"
 
 TABLE_SQL = """
@@ -20,7 +22,7 @@ create table if not exists sweeps (
     n_train integer, n_test integer, k integer, repeats integer, plan_seed bigint,
     metrics varchar, pick_rule varchar, started_at timestamp, finished_at timestamp,
     status varchar, versions json, host varchar, user_name varchar, pid integer,
-    n_reused integer);
+    n_reused integer, task varchar, classes json);
 create table if not exists metrics (metric varchar primary key, better varchar);
 create table if not exists cells (
     sweep_id varchar, cell_id varchar, model varchar, family varchar, params json,
@@ -53,9 +55,10 @@ create table if not exists tree_folds (
 create table if not exists tree_nodes (
     sweep_id varchar, cell_id varchar, node integer, parent integer, left_child integer,
     right_child integer, depth integer, feature varchar, threshold double, rule varchar,
-    missing_left boolean, value double, n_samples integer, impurity double);
+    missing_left boolean, value double, n_samples integer, impurity double, label varchar);
 create table if not exists test_predictions (
-    sweep_id varchar, cell_id varchar, "row" integer, observed double, predicted double);
+    sweep_id varchar, cell_id varchar, "row" integer, observed double, predicted double,
+    observed_class varchar, predicted_class varchar, probabilities double[]);
 create table if not exists explained (
     sweep_id varchar, cell_id varchar, settings json, reused_from varchar,
     primary key (sweep_id, cell_id));
@@ -75,3 +78,12 @@ TABLES = ("sweeps", "metrics", "cells", "fold_scores", "test_scores", "failures"
           "importances", "fold_importances", "tree_folds", "tree_nodes", "test_predictions",
           "explained")
 """Every table of results, in the order a copy must fill them."""
+
+UPGRADE_COLUMNS = (
+    ("sweeps", "task varchar"), ("sweeps", "classes json"), ("tree_nodes", "label varchar"),
+    ("test_predictions", "observed_class varchar"),
+    ("test_predictions", "predicted_class varchar"),
+    ("test_predictions", "probabilities double[]"),
+)
+"""(table, column definition) added since a table was first created: an older store gains
+them on upgrade (idempotent: `add column if not exists`)."""

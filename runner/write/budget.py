@@ -7,6 +7,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 from ..errors import DataError, SpecError
+from ..metrics import TASK_DEFAULTS
 from .grid import count_cells
 
 __all__ = ["PlanSize", "plan_size", "check_limits", "check_plan_memory", "data_limit_bytes",
@@ -72,7 +73,8 @@ def _size_text(n: float) -> str:
 def plan_size(spec) -> PlanSize:
     """Cells per model, folds and metrics of a spec, without expanding any grid."""
     models = tuple((label, m.family, *count_cells(m)) for label, m in spec.models.items())
-    return PlanSize(models, spec.folds.k * spec.folds.repeats, len(spec.metrics))
+    metrics = spec.metrics or max(TASK_DEFAULTS.values(), key=len)  # task not known yet
+    return PlanSize(models, spec.folds.k * spec.folds.repeats, len(metrics))
 
 
 def check_limits(spec, *, lifted: bool = False) -> PlanSize:

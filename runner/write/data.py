@@ -11,7 +11,7 @@ import io
 import os
 import re
 import stat
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
@@ -20,7 +20,8 @@ import pandas as pd
 from ..errors import DataError
 from ..families import nearest
 
-__all__ = ["Frame", "read_table", "load_frame", "file_sha256", "MAX_MAGNITUDE"]
+__all__ = ["Frame", "read_table", "load_frame", "file_sha256", "infer_task", "MAX_MAGNITUDE",
+           "MAX_CLASSES"]
 
 _READERS = {".csv": "csv", ".parquet": "parquet", ".pq": "parquet"}
 
@@ -28,6 +29,8 @@ _READERS = {".csv": "csv", ".parquet": "parquet", ".pq": "parquet"}
 MAX_MAGNITUDE = 1e100
 """Largest |value| a target or numeric feature may hold: squares of larger values, summed
 over rows (variances, squared errors, the store's standard deviations), overflow float64."""
+MAX_CLASSES = 100
+"""Most classes a class target may hold (more looks like a number or an identifier)."""
 
 _SEPARATORS = {";": "semicolons", "\t": "tabs", "|": "vertical bars"}
 _GROUPED = re.compile(r"\s*[+-]?\d{1,3}(,\d{3})+(\.\d*)?\s*")
@@ -158,6 +161,8 @@ class Frame:
     sha256: str
     source: Path
     test_mask: np.ndarray | None = None  # from a boolean test column, if any
+    task: str = "regression"  # or "classification"
+    classes: list = field(default_factory=list)  # the class labels, sorted (classification)
 
     @property
     def features(self) -> list[str]:
@@ -267,15 +272,58 @@ def type_features(df: pd.DataFrame, categorical: list[str], path: Path, *,
     return pd.DataFrame(out, index=df.index), numeric, cats
 
 
-def _check_target(y: pd.Series, target: str, path: Path, rows: _Rows | None = None
-                  ) -> np.ndarray:
-    rows = rows or _Rows(path, len(y))
-    if not pd.api.types.is_numeric_dtype(y) or pd.api.types.is_bool_dtype(y):
+def infer_task(y: pd.Series, stated: str | None, target: str, path: Path) -> str:
+    """The sweep's task: as the spec states it, else classification for a text, boolean or
+    categorical target and regression for a numeric one."""
+    numeric = pd.api.types.is_numeric_dtype(y) and not pd.api.types.is_bool_dtype(y)
+    if stated == "regression" and not numeric:
         _separator_problem(f"target column '{target}'", y, path)
         sample = ", ".join(repr(v) for v in y.dropna().astype(str).unique()[:3])
         raise DataError(f"target column '{target}' of {path} is not numeric (values such as "
-                        f"{sample}). foldwise fits regression models; choose a numeric target "
-                        "or clean the column.")
+                        f"{sample}), but the spec says `task: regression`. Choose a numeric "
+                        "target, or set `task: classification` to predict its classes.")
+    if stated is None and not numeric:
+        _separator_problem(f"target column '{target}'", y, path)
+    return stated or ("regression" if numeric else "classification")
+
+
+def _check_classes(y: pd.Series, target: str, path: Path, rows: _Rows
+                   ) -> tuple[np.ndarray, list]:
+    """The class labels of every row (numbers stay numbers, so they sort as numbers) and
+    the classes in scikit-learn's order (sorted)."""
+    missing = y.isna().to_numpy()
+    if missing.all():
+        raise DataError(f"target column '{target}' of {path} is entirely missing.")
+    if missing.any():
+        first = [rows.number(i) for i in np.flatnonzero(missing)[:5]]
+        raise DataError(f"target column '{target}' of {path} has {int(missing.sum())} missing "
+                        f"values (first at file lines {', '.join(first)}). Drop those rows "
+                        "before the sweep: a row without a class can be neither fitted nor "
+                        "scored.")
+    if pd.api.types.is_bool_dtype(y):
+        values = y.to_numpy(dtype=bool)
+    elif pd.api.types.is_numeric_dtype(y):
+        values = y.to_numpy()
+        if np.issubdtype(values.dtype, np.floating) and np.all(values == np.round(values)):
+            values = values.astype(np.int64)
+    else:
+        values = y.astype(str).to_numpy(dtype=object)
+    classes = list(np.unique(values))
+    if len(classes) < 2:
+        raise DataError(f"target column '{target}' of {path} holds one class only "
+                        f"({classes[0]!r}); there is nothing to tell apart. Choose a target "
+                        "with two or more classes.")
+    if len(classes) > MAX_CLASSES:
+        raise DataError(f"target column '{target}' of {path} holds {len(classes)} classes "
+                        f"(more than {MAX_CLASSES}); a target with that many distinct values is "
+                        "likely a number or an identifier. Set `task: regression` if it is a "
+                        "number, or choose another target.")
+    return values, classes
+
+
+def _check_target(y: pd.Series, target: str, path: Path, rows: _Rows | None = None
+                  ) -> np.ndarray:
+    rows = rows or _Rows(path, len(y))
     values = y.to_numpy(dtype="float64")
     missing = np.isnan(values)
     if missing.all():
@@ -340,7 +388,11 @@ def load_frame(spec, *, max_bytes: int | None = None) -> Frame:
             raise DataError(f"test column '{col}' of {path} must be boolean (true/false or "
                             "1/0, no missing values).")
         dropped.append(col)
-    y = _check_target(df[target], target, path, rows)
+    task = infer_task(df[target], spec.task, target, path)
+    if task == "classification":
+        y, classes = _check_classes(df[target], target, path, rows)
+    else:
+        y, classes = _check_target(df[target], target, path, rows), []
     features = df.drop(columns=[target] + dropped)
     if features.shape[1] == 0:
         raise DataError(f"{path} has no feature columns left after removing the target and "
@@ -348,4 +400,4 @@ def load_frame(spec, *, max_bytes: int | None = None) -> Frame:
     X, numeric, cats = type_features(features, list(spec.data.categorical), path, rows=rows,
                                      infinite=spec.data.infinite)
     return Frame(X=X, y=y, numeric=numeric, categorical=cats, target=target, sha256=sha,
-                 source=path, test_mask=test_mask)
+                 source=path, test_mask=test_mask, task=task, classes=classes)

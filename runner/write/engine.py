@@ -19,6 +19,7 @@ from __future__ import annotations
 
 import contextlib
 import getpass
+import json
 import math
 import os
 import platform
@@ -34,7 +35,7 @@ import numpy as np
 import pandas as pd
 
 from .. import __version__
-from .budget import check_limits, check_plan_memory, data_limit_bytes
+from .budget import check_limits, check_plan_memory, data_limit_bytes, plan_size
 from ..errors import FoldwiseError
 from .explain import explain_sweep
 from .executors import DaskExecutor, LocalExecutor, make_executor
@@ -106,6 +107,7 @@ def check_spec(spec: Spec, *, lift_limits: bool = False) -> tuple[pd.DataFrame, 
     size = check_limits(spec, lifted=lift_limits)
     frame = load_checked(spec, max_bytes=data_limit_bytes(spec, lifted=lift_limits))
     check_plan_memory(spec, plan_counts(spec, frame)[0], lifted=lift_limits)
+    size = plan_size(spec)  # the task is known now, and with it the metrics
     plan = make_plan(spec, frame)
     Store(store_path(spec)).check_writable()
     rows = []
@@ -117,7 +119,12 @@ def check_spec(spec: Spec, *, lift_limits: bool = False) -> tuple[pd.DataFrame, 
     facts = {"data": str(frame.source), "rows": len(frame.y), "train rows": plan.n_train,
              "test rows": plan.n_test, "features": len(frame.features),
              "categorical": ", ".join(frame.categorical) or "none",
-             "folds": f"{plan.k} folds x {plan.repeats} repeats (seed {plan.seed})",
+             "task": frame.task + (f" ({len(frame.classes)} classes: "
+                                   f"{', '.join(map(str, frame.classes[:8]))}"
+                                   f"{', ...' if len(frame.classes) > 8 else ''})"
+                                   if frame.classes else ""),
+             "folds": f"{plan.k} folds x {plan.repeats} repeats (seed {plan.seed})"
+             + (", stratified by class" if frame.classes else ""),
              "metrics": ", ".join(spec.metrics), "store": str(store_path(spec)),
              "estimate": size.estimate(),
              "limits": "lifted (--lift-limits)" if lift_limits else
@@ -149,29 +156,31 @@ def _versions() -> dict:
 
 def _run_task(family: str, cells: list[tuple[str, dict]], X_fit, y_fit, X_eval, y_eval, *,
               seed: int, repeat: int, fold: int, metrics: list[str], numeric, categorical,
-              paths: bool = True):
+              paths: bool = True, task: str = "regression", classes: list | None = None):
     """Fit some of a model's cells on one fold (or the refit) and return their score rows."""
     from sklearn import config_context
 
     module = load_family(family)
     fits = module.fit_cells([p for _, p in cells], X_fit, y_fit, [X_eval], seed=seed,
-                            numeric=numeric, categorical=categorical, paths=paths)
+                            numeric=numeric, categorical=categorical, paths=paths, task=task)
     scores, failures = [], []
     good = []
     for (cid, _), fit in zip(cells, fits):
+        if fit.error is None and task == "classification" and \
+                np.shape(fit.predictions[0])[1] != len(classes):
+            fit.error_kind, fit.error = "MissingClass", (
+                "a class is missing from this fold's fitting rows, so the model gives no "
+                "probability for it")
         if fit.error is not None:
             failures.append({"cell_id": cid, "repeat": repeat, "fold": fold,
                              "kind": fit.error_kind, "message": fit.error})
         else:
             good.append((cid, fit))
     if good:
-        P = np.empty((len(y_eval), len(good)), dtype=np.float64, order="F")
-        for j, (_, fit) in enumerate(good):
-            P[:, j] = fit.predictions[0]
         # The metric arguments are ours and valid: skip scikit-learn's parameter checks
         # (only the argument validation is skipped; values are computed as always).
         with config_context(skip_parameter_validation=True):
-            values = {m: METRICS[m].score_columns(y_eval, P) for m in metrics}
+            values = _score(good, y_eval, metrics, task, classes)
         for j, (cid, fit) in enumerate(good):
             for metric in metrics:
                 scores.append({"cell_id": cid, "repeat": repeat, "fold": fold,
@@ -181,6 +190,18 @@ def _run_task(family: str, cells: list[tuple[str, dict]], X_fit, y_fit, X_eval, 
                                "n_leaves": fit.n_leaves, "how": fit.how,
                                "n_warnings": fit.n_warnings})
     return scores, failures
+
+
+def _score(good: list, y_eval, metrics: list[str], task: str, classes) -> dict[str, list]:
+    """Every metric of every good cell's predictions: for numbers all cells in one call per
+    metric; for classes cell by cell, from the class probabilities."""
+    if task == "classification":
+        return {m: [METRICS[m].score_classes(y_eval, fit.predictions[0], classes)
+                    for _, fit in good] for m in metrics}
+    P = np.empty((len(y_eval), len(good)), dtype=np.float64, order="F")
+    for j, (_, fit) in enumerate(good):
+        P[:, j] = fit.predictions[0]
+    return {m: METRICS[m].score_columns(y_eval, P) for m in metrics}
 
 
 @dataclass(frozen=True)
@@ -249,7 +270,8 @@ def _shared_data(prep: Prepared, *, paths: bool) -> dict:
     frame = prep.frame
     return dict(**prep.split, refit_seed=refit_seed(prep.plan.seed),
                 common=dict(metrics=prep.spec.metrics, numeric=frame.numeric,
-                            categorical=frame.categorical, paths=paths))
+                            categorical=frame.categorical, paths=paths, task=frame.task,
+                            classes=frame.classes))
 
 
 def _task_call(data: dict, task: _Task) -> tuple[tuple, dict]:
@@ -323,7 +345,10 @@ def run_sweep(spec: Spec, *, store: Store | None = None, jobs: int | None = None
             "spec_sha256": spec.sha256, "data_path": str(prep.frame.source),
             "data_sha256": prep.frame.sha256, "target": prep.frame.target,
             "n_train": n_train, "n_test": n_test, "k": spec.folds.k,
-            "repeats": spec.folds.repeats, "plan_seed": spec.folds.seed, "metrics": ",".join(spec.metrics), "pick_rule": spec.pick,
+            "repeats": spec.folds.repeats, "plan_seed": spec.folds.seed,
+            "metrics": ",".join(spec.metrics), "pick_rule": spec.pick,
+            "task": prep.frame.task,
+            "classes": json.dumps([_label(c) for c in prep.frame.classes]),
             "started_at": datetime.now(), "finished_at": None, "status": "running",
             "versions": _versions(), "host": host, "user_name": _user(), "pid": os.getpid()},
             cells_df, {m: METRICS[m].better for m in spec.metrics})
@@ -404,6 +429,11 @@ def _all_failed(sweep_id: str, n: int, why: Counter, where) -> str:
             f"failures table: foldwise sql \"select kind, message, count(*) from failures "
             f"where sweep_id = '{sweep_id}' group by all\". Fix the data or the grid it "
             "points to and run again.")
+
+
+def _label(value):
+    """A class label as JSON keeps it (a number stays a number, a flag a flag)."""
+    return value.item() if hasattr(value, "item") else value
 
 
 def _user() -> str:

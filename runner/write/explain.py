@@ -31,6 +31,7 @@ import warnings
 from dataclasses import dataclass, field
 from typing import Callable
 
+import numpy as np
 import pandas as pd
 
 from ..families import FAMILIES, get_family, load_family
@@ -58,20 +59,21 @@ class ExplainResult:
 
 
 def permutation_rows(pipeline, X_test, y_test, *, metric: str, repeats: int,
-                     seed: int) -> dict[str, tuple[float, float]]:
+                     seed: int, classes=()) -> dict[str, tuple[float, float]]:
     """Per original column, (mean, sd) of the score lost when the column is shuffled."""
     from sklearn.inspection import permutation_importance
 
-    result = permutation_importance(pipeline, X_test, y_test, scoring=METRICS[metric].scorer,
+    scoring = METRICS[metric].scorer_for(classes)
+    result = permutation_importance(pipeline, X_test, y_test, scoring=scoring,
                                     n_repeats=repeats, random_state=seed, n_jobs=1)
     return {str(col): (float(m), float(s)) for col, m, s in
             zip(X_test.columns, result.importances_mean, result.importances_std)}
 
 
 # -- the tasks -----------------------------------------------------------------------------
-def _fit(family: str, params: dict, X, y, *, seed: int, numeric, categorical):
+def _fit(family: str, params: dict, X, y, *, seed: int, numeric, categorical, task):
     est = load_family(family).make_estimator(params, seed=seed, y_fit=y, numeric=numeric,
-                                             categorical=categorical)
+                                             categorical=categorical, task=task)
     with warnings.catch_warnings():  # the sweep has counted this fit's warnings already
         warnings.simplefilter("ignore")
         return est.fit(X, y)
@@ -94,13 +96,13 @@ def _explain_task(kind: str, *args, **kwargs):
 
 
 def _fold_task(family, cell_id, params, X_fit, y_fit, *, seed, repeat, fold, numeric,
-               categorical):
+               categorical, task="regression", classes=()):
     """One chosen cell refitted on one fold's fitting rows: importances and tree shape."""
     fam = FAMILIES[family]
     features = list(X_fit.columns)
     try:
         est = _fit(family, params, X_fit, y_fit, seed=seed, numeric=numeric,
-                   categorical=categorical)
+                   categorical=categorical, task=task)
         values = fam.estimators.own_importance(est, X_fit, features)
     except Exception as exc:  # recorded and reported; the sweep's scores stand
         return cell_id, {}, f"{cell_id} fold ({repeat}, {fold}): {type(exc).__name__}: {exc}"
@@ -113,17 +115,18 @@ def _fold_task(family, cell_id, params, X_fit, y_fit, *, seed, repeat, fold, num
 
 
 def _refit_task(family, cell_id, params, X_train, y_train, X_test, y_test, test_rows, *,
-                seed, metric, repeats, perm_seed, numeric, categorical):
+                seed, metric, repeats, perm_seed, numeric, categorical, task="regression",
+                classes=()):
     """One chosen cell refitted on all training rows: importances, nodes, test predictions."""
     features = list(X_train.columns)
     try:
         est = _fit(family, params, X_train, y_train, seed=seed, numeric=numeric,
-                   categorical=categorical)
+                   categorical=categorical, task=task)
         perm = permutation_rows(est, X_test, y_test, metric=metric, repeats=repeats,
-                                seed=perm_seed)
+                                seed=perm_seed, classes=classes)
         fam = FAMILIES[family]
         own = fam.estimators.own_importance(est, X_train, features)
-        predicted = est.predict(X_test)
+        predictions = _prediction_rows(est, X_test, y_test, test_rows, task)
         nodes = fam.estimators.tree_node_rows(est) if fam.one_tree else []
     except Exception as exc:
         return cell_id, {}, f"{cell_id} refit: {type(exc).__name__}: {exc}"
@@ -132,11 +135,23 @@ def _refit_task(family, cell_id, params, X_train, y_train, X_test, y_test, test_
     imp += [{"cell_id": cell_id, "feature": f, "method": fam.importance, "value": v}
             for f, v in own.items()]
     rows = {"importances": imp,
-            "test_predictions": [{"cell_id": cell_id, "row": int(r), "observed": float(o),
-                                  "predicted": float(p)}
-                                 for r, o, p in zip(test_rows, y_test, predicted)],
+            "test_predictions": [{"cell_id": cell_id, **p} for p in predictions],
             "tree_nodes": [{"cell_id": cell_id, **n} for n in nodes]}
     return cell_id, rows, None
+
+
+def _prediction_rows(est, X_test, y_test, test_rows, task: str) -> list[dict]:
+    """The refit's test predictions: observed and predicted values; for classes the
+    observed and most probable class and the probability of every class (classes_ order)."""
+    if task != "classification":
+        return [{"row": int(r), "observed": float(o), "predicted": float(p)}
+                for r, o, p in zip(test_rows, y_test, est.predict(X_test))]
+    proba = est.predict_proba(X_test)
+    classes = est.classes_
+    best = classes[np.argmax(proba, axis=1)]
+    return [{"row": int(r), "observed_class": str(o), "predicted_class": str(b),
+             "probabilities": [float(x) for x in p]}
+            for r, o, b, p in zip(test_rows, y_test, best, proba)]
 
 
 # -- the step ------------------------------------------------------------------------------
@@ -213,7 +228,8 @@ def explain_sweep(spec, store: Store, sweep_id: str, *, prepared=None, jobs: int
     data = dict(**prepared.split, test_rows=plan.test_rows,
                 refit=dict(seed=refit_seed(plan.seed), metric=spec.metrics[0],
                            repeats=perm.repeats, perm_seed=perm.seed),
-                common=dict(numeric=frame.numeric, categorical=frame.categorical))
+                common=dict(numeric=frame.numeric, categorical=frame.categorical,
+                            task=frame.task, classes=list(frame.classes)))
     tasks, pending = [], {}
     for c in chosen.itertuples(index=False):
         params = json.loads(c.params) if isinstance(c.params, str) else dict(c.params)

@@ -75,7 +75,7 @@ PathResolver = Callable[[str, dict, int], list]
 
 def expand_model(label: str, model: ModelSpec, *, data_sha256: str, plan_identity: dict,
                  resolve_path: PathResolver | None = None,
-                 n_features: int | None = None) -> list[Cell]:
+                 n_features: int | None = None, task: str = "regression") -> list[Cell]:
     """All cells of one model, ranked simplest first, without duplicates."""
     fam = FAMILIES[model.family]
     fixed, paths = {}, {}
@@ -100,7 +100,7 @@ def expand_model(label: str, model: ModelSpec, *, data_sha256: str, plan_identit
             params_list.append(combo)
     unique = {}
     for params in params_list:
-        canon = fam.canonical(params)
+        canon = fam.canonical(params, task)
         unique.setdefault(json.dumps(canon, sort_keys=True), canon)
     ordered = sorted(unique.values(),
                      key=lambda p: (fam.complexity_key(p, model.simpler, n_features),
@@ -139,11 +139,11 @@ def count_cells(model: ModelSpec) -> tuple[int, bool]:
 
 def expand_spec(spec, *, data_sha256: str, plan_identity: dict,
                 resolve_path: PathResolver | None = None,
-                n_features: int | None = None) -> list[Cell]:
+                n_features: int | None = None, task: str = "regression") -> list[Cell]:
     """Every cell of every model in the spec, models in spec order."""
     cells = []
     for label, model in spec.models.items():
         cells.extend(expand_model(label, model, data_sha256=data_sha256,
                                   plan_identity=plan_identity, resolve_path=resolve_path,
-                                  n_features=n_features))
+                                  n_features=n_features, task=task))
     return cells

@@ -61,16 +61,24 @@ def _path_resolver(prep: Prepared):
         y = frame.y[plan.train_rows]
         alphas = family.pruning_path_alphas(combo, X, y, seed=refit_seed(plan.seed),
                                             numeric=frame.numeric,
-                                            categorical=frame.categorical)
+                                            categorical=frame.categorical, task=frame.task)
         return spread_along_path(alphas, n)
 
     return resolve
 
 
 def load_checked(spec: Spec, *, max_bytes: int | None = None) -> Frame:
-    """The spec's data (a file larger than `max_bytes` is refused unread), refused if one
-    of its metrics cannot score the target."""
+    """The spec's data (a file larger than `max_bytes` is refused unread), its task settled
+    (the spec's metrics and grids must suit it), refused if a metric cannot score the
+    target."""
     frame = load_frame(spec, max_bytes=max_bytes)
+    problem = spec.task_problem(frame.task)
+    if problem:
+        how = ("the spec says so" if spec.task else f"target column '{frame.target}' holds "
+               + ("numbers" if frame.task == "regression" else "classes"))
+        raise DataError(f"{problem} ({how}). Change the spec's metrics or grid, or state "
+                        "`task:` in the spec.")
+    spec.settle_task(frame.task)
     for name in spec.metrics:
         problem = METRICS[name].target_problem(frame.y)
         if problem:
@@ -88,7 +96,7 @@ def prepare(spec: Spec, *, lift_limits: bool = False) -> Prepared:
                                                                          lifted=lift_limits)))
     check_plan_memory(spec, plan_counts(spec, prep.frame)[0], lifted=lift_limits)
     prep.cells = expand_spec(spec, data_sha256=prep.frame.sha256,
-                             plan_identity=plan_identity(spec),
+                             plan_identity=plan_identity(spec, prep.frame.task),
                              resolve_path=_path_resolver(prep),
-                             n_features=len(prep.frame.features))
+                             n_features=len(prep.frame.features), task=prep.frame.task)
     return prep

@@ -60,6 +60,7 @@ class Plan:
     repeats: int
     seed: int
     test_form: dict
+    stratified: bool = False
 
     @property
     def n_train(self) -> int:
@@ -72,7 +73,8 @@ class Plan:
     @property
     def identity(self) -> dict:
         """What makes two plans the same: enters every cell id."""
-        return {"test": self.test_form, "k": self.k, "repeats": self.repeats, "seed": self.seed}
+        found = {"test": self.test_form, "k": self.k, "repeats": self.repeats, "seed": self.seed}
+        return {**found, "stratified": True} if self.stratified else found
 
 
 def _test_form(spec) -> dict:
@@ -82,10 +84,12 @@ def _test_form(spec) -> dict:
     return {"file": t.file} if t.file is not None else {"column": t.column}
 
 
-def plan_identity(spec) -> dict:
-    """The plan's identity from the spec alone (equal to `make_plan(...).identity`)."""
-    return {"test": _test_form(spec), "k": spec.folds.k, "repeats": spec.folds.repeats,
-            "seed": spec.folds.seed}
+def plan_identity(spec, task: str = "regression") -> dict:
+    """The plan's identity from the spec and the task (equal to `make_plan(...).identity`);
+    a class target's plan is stratified."""
+    found = {"test": _test_form(spec), "k": spec.folds.k, "repeats": spec.folds.repeats,
+             "seed": spec.folds.seed}
+    return {**found, "stratified": True} if task == "classification" else found
 
 
 def plan_counts(spec, frame) -> tuple[int, int]:
@@ -105,15 +109,23 @@ def _test_rows(spec, frame) -> tuple[np.ndarray, dict]:
     n = len(frame.y)
     t = spec.test
     if t.fraction is not None:
-        rows = train_test_split(np.arange(n), test_size=t.fraction, random_state=t.seed)[1]
+        strata = frame.y if frame.task == "classification" else None
+        try:
+            rows = train_test_split(np.arange(n), test_size=t.fraction, random_state=t.seed,
+                                    stratify=strata)[1]
+        except ValueError as exc:
+            raise DataError(f"the test split cannot keep every class's share: {exc} Set "
+                            "`test.fraction` so that every class has a test row, or merge rare "
+                            "classes.") from None
         return np.sort(rows), {"fraction": t.fraction, "seed": t.seed}
     form = {"file": t.file} if t.file is not None else {"column": t.column}
     return np.flatnonzero(frame.test_mask), form
 
 
 def make_plan(spec, frame) -> Plan:
-    """Resolve the spec's test split and fold plan against the data's rows."""
-    from sklearn.model_selection import RepeatedKFold
+    """Resolve the spec's test split and fold plan against the data's rows: stratified by
+    class (RepeatedStratifiedKFold, a stratified test split) for a class target."""
+    from sklearn.model_selection import RepeatedKFold, RepeatedStratifiedKFold
 
     test_rows, form = _test_rows(spec, frame)
     is_test = np.zeros(len(frame.y), dtype=bool)
@@ -128,12 +140,34 @@ def make_plan(spec, frame) -> Plan:
         raise DataError(f"only {len(train_rows)} training rows for {k} folds; each fold needs at "
                         f"least 2 rows to fit and 1 to score. Lower `folds.k` or supply more rows.")
     _check_test_levels(frame, train_rows, test_rows)
-    splitter = RepeatedKFold(n_splits=k, n_repeats=r, random_state=seed)
+    stratified = frame.task == "classification"
+    if stratified:
+        _check_class_counts(frame, train_rows, k)
+        splitter = RepeatedStratifiedKFold(n_splits=k, n_repeats=r, random_state=seed)
+        splits = splitter.split(train_rows, frame.y[train_rows])
+    else:
+        splits = RepeatedKFold(n_splits=k, n_repeats=r, random_state=seed).split(train_rows)
     folds = []
-    for i, (fit, valid) in enumerate(splitter.split(train_rows)):
+    for i, (fit, valid) in enumerate(splits):
         rep, f = divmod(i, k)
         folds.append(Fold(rep, f, fit, valid, fold_seed(seed, rep, f)))
-    return Plan(train_rows, test_rows, tuple(folds), k, r, seed, form)
+    return Plan(train_rows, test_rows, tuple(folds), k, r, seed, form, stratified)
+
+
+def _check_class_counts(frame, train_rows, k: int) -> None:
+    """Every class must have at least k training rows: one in every validation fold."""
+    labels, counts = np.unique(frame.y[train_rows], return_counts=True)
+    missing = [c for c in frame.classes if c not in set(labels.tolist())]
+    if missing:
+        raise DataError(f"class {missing[0]!r} of target '{frame.target}' has no training rows "
+                        "(all its rows are test rows); no model can learn it. Move some of "
+                        "its rows into training, or change the test split.")
+    few = [(c, n) for c, n in zip(labels.tolist(), counts.tolist()) if n < k]
+    if few:
+        c, n = few[0]
+        raise DataError(f"class {c!r} of target '{frame.target}' has {n} training row(s), fewer "
+                        f"than the {k} folds: stratified folds need one in each. Lower "
+                        "`folds.k`, merge rare classes, or supply more rows.")
 
 
 def _check_test_levels(frame, train_rows, test_rows) -> None:

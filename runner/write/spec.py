@@ -16,7 +16,7 @@ from pydantic import (BaseModel, ConfigDict, Field, ValidationError, field_valid
 
 from ..errors import SpecError
 from ..families import FAMILIES, check_param_value, nearest
-from ..metrics import METRICS
+from ..metrics import METRICS, TASK_DEFAULTS
 
 __all__ = ["Spec", "ModelSpec", "Limits", "load_spec", "parse_spec", "spec_json_schema",
            "LogRange", "LinearRange", "PathRange", "MAX_SPEC_BYTES", "MAX_DEPTH", "MAX_NODES",
@@ -256,9 +256,13 @@ class Spec(_Strict):
     description: str | None = None
     data: DataSpec
     test: TestSplit
+    task: Literal["regression", "classification"] | None = Field(
+        None, description="regression (a numeric target) or classification (its classes); "
+        "default: classification for a text, boolean or categorical target, else regression")
     folds: FoldPlan = Field(default_factory=FoldPlan)
-    metrics: list[str] = Field(default_factory=lambda: ["rmse", "mae", "r2"],
-                               description="the first one decides picks")
+    metrics: list[str] | None = Field(
+        None, description="the first one decides picks; default rmse, mae, r2 for regression "
+        "and log_loss, brier, roc_auc, accuracy for classification")
     pick: Literal["best", "one_se"] = Field("one_se", description="the default pick rule")
     store: str | None = Field(None, description="DuckDB file, relative to the spec file, or "
                               "a team store's postgresql://USER@HOST[:PORT]/DATABASE")
@@ -282,6 +286,8 @@ class Spec(_Strict):
     @field_validator("metrics")
     @classmethod
     def _known_metrics(cls, v):
+        if v is None:
+            return v
         if not v:
             raise ValueError("list at least one metric")
         for m in v:
@@ -299,6 +305,35 @@ class Spec(_Strict):
             if not isinstance(label, str) or not label.strip():
                 raise ValueError("model labels must be non-empty text")
         return v
+
+    @model_validator(mode="after")
+    def _fits_its_task(self):
+        if self.task is not None:
+            problem = self.task_problem(self.task)
+            if problem:
+                raise ValueError(problem)
+        return self
+
+    def task_problem(self, task: str) -> str | None:
+        """Why this spec's metrics or grids do not suit `task` (None if they do)."""
+        for m in self.metrics or []:
+            if METRICS[m].task != task:
+                fits = [n for n, r in METRICS.items() if r.task == task]
+                return (f"metric '{m}' scores {METRICS[m].task}, but this sweep is {task}; "
+                        f"its metrics are {', '.join(fits)}")
+        for label, model in self.models.items():
+            family = FAMILIES[model.family]
+            for name in model.grid:
+                if task not in family.params[name].tasks:
+                    return (f"models.{label}.grid.{name} is a {family.params[name].tasks[0]} "
+                            f"parameter of the {model.family} family, but this sweep is {task}")
+        return None
+
+    def settle_task(self, task: str) -> None:
+        """Once the task is known (stated or read off the target): its default metrics if the
+        spec lists none."""
+        if self.metrics is None:
+            self.metrics = list(TASK_DEFAULTS[task])
 
     # Set after loading; not part of the YAML.
     _source: Path | None = None

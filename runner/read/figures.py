@@ -1,0 +1,63 @@
+"""Every kind of figure by name, and drawing one kind into files: the one entry point the
+CLI (`foldwise plot`), the Python API (`runner.figure`) and the report share."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+from ..errors import QueryError
+from ..store import Store
+from .class_figures import calibration_figure, roc_figure
+from .filenames import safe_component, safe_names
+from .plots import (complexity_figure, importance_figure, models_figure, predictions_figure,
+                    save_figure, tree_figure)
+from .queries import model_order
+
+__all__ = ["KINDS", "make_figure", "write_plots"]
+
+
+KINDS = {"complexity": complexity_figure, "models": models_figure,
+         "importance": importance_figure, "predictions": predictions_figure,
+         "tree": tree_figure, "calibration": calibration_figure, "roc": roc_figure}
+"""Every figure kind by name."""
+
+
+def make_figure(kind: str, store: Store, sweep_id: str | None = None, **options):
+    """The figure of one kind; options go to its function (e.g. model=, rule=, method=)."""
+    if kind not in KINDS:
+        raise QueryError(f"unknown plot kind {kind!r}; kinds: {', '.join(KINDS)}.")
+    return KINDS[kind](store, sweep_id=sweep_id, **options)
+
+
+def write_plots(kind: str, store: Store, out_dir: str | Path, sweep_id: str | None = None, *,
+                model: str | None = None, rule: str | None = None,
+                method: str = "permutation", depth: int = 3, se: str = "plain",
+                formats=("png", "svg")) -> list[Path]:
+    """Draw one kind of figure of a sweep into `out_dir` and return the files written:
+    `<sweep id>-<kind>[-<model or method>].<format>`, one figure per model for
+    `complexity` unless `model` is given.
+
+    The sweep id and model labels come from the store, which others may have written, so
+    each becomes a safe file-name component (runner/filenames.py) and every file must
+    resolve inside `out_dir`. Labels are named from all of the sweep's models at once,
+    so a model's file name is the same whether or not `model` is given."""
+    if kind not in KINDS:
+        raise QueryError(f"unknown plot kind {kind!r}; kinds: {', '.join(KINDS)}.")
+    sid = store.resolve_sweep(sweep_id)
+    if kind == "complexity":
+        every = model_order(store, sid)
+        models = [model] if model is not None else every
+        names = safe_names([*every, *models])
+        jobs = [(dict(model=m, se=se), f"{kind}-{names[m]}") for m in models]
+    elif kind == "tree":
+        jobs = [(dict(rule=rule, model=model, depth=depth), kind)]
+    elif kind == "importance":
+        jobs = [(dict(rule=rule, method=method), f"{kind}-{safe_component(method)}")]
+    else:
+        jobs = [(dict(rule=rule), kind)]
+    folder = Path(out_dir)
+    paths: list[Path] = []
+    for options, name in jobs:
+        fig = make_figure(kind, store, sid, **options)
+        paths += save_figure(fig, folder / f"{safe_component(sid)}-{name}", formats)
+    return paths

@@ -1,0 +1,301 @@
+"""Class targets: stored fold and test scores equal scikit-learn's own estimators, stratified
+splitters and scorers on the documented folds and seeds (reference: scikit-learn 1.9
+`train_test_split(stratify=...)`, `RepeatedStratifiedKFold`, `cross_validate` with its
+named scorers), binary and multiclass, with missing values and a text category; path
+grids equal one fit per cell bit for bit; the picks, compare, figures and report work."""
+
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pandas as pd
+import pytest
+from sklearn import metrics as skm
+from sklearn.compose import ColumnTransformer
+from sklearn.ensemble import RandomForestClassifier
+from sklearn.impute import SimpleImputer
+from sklearn.linear_model import LogisticRegression
+from sklearn.model_selection import RepeatedStratifiedKFold, cross_validate, train_test_split
+from sklearn.pipeline import Pipeline, make_pipeline
+from sklearn.preprocessing import OneHotEncoder, OrdinalEncoder, StandardScaler
+from sklearn.tree import DecisionTreeClassifier
+
+from runner.read.class_figures import calibration_bins, roc_points
+from runner.read.queries import compare, picks, summary
+from runner.store import Store
+from runner.write.engine import run_sweep
+from runner.write.resampling import fold_seed, refit_seed
+from runner.write.spec import parse_spec
+
+K, R, SEED, TEST_SEED, FRACTION = 3, 2, 17, 3, 0.25
+MODELS = """
+  logit: {family: linear, grid: {penalty: l2, alpha: [0.001, 0.05]}}
+  plain: {family: linear, grid: {penalty: none}}
+  tree: {family: pruned_tree, grid: {ccp_alpha: [0.0, 0.01, 0.03], min_samples_leaf: [4]}}
+  frac: {family: pruned_tree, grid: {ccp_fraction: [0.02], criterion: entropy}}
+  forest: {family: forest, grid: {n_estimators: [8, 20], max_features: [0.5],
+                                  class_weight: balanced}}
+"""
+SCORERS = {"binary": {"log_loss": "neg_log_loss", "brier": "neg_brier_score",
+                      "roc_auc": "roc_auc", "accuracy": "accuracy",
+                      "balanced_accuracy": "balanced_accuracy"},
+           "multiclass": {"log_loss": "neg_log_loss", "brier": "neg_brier_score",
+                          "roc_auc": "roc_auc_ovr", "accuracy": "accuracy",
+                          "balanced_accuracy": "balanced_accuracy"}}
+SIGN = {"log_loss": -1.0, "brier": -1.0, "roc_auc": 1.0, "accuracy": 1.0,
+        "balanced_accuracy": 1.0}
+
+
+def _data(kind: str) -> pd.DataFrame:
+    """scikit-learn's bundled wine (3 classes) or breast-cancer (2) data, a few columns,
+    a text column made from one of them and 6 % of two columns blanked (fixed rows)."""
+    from sklearn.datasets import load_breast_cancer, load_wine
+
+    data = (load_wine if kind == "multiclass" else load_breast_cancer)(as_frame=True)
+    df = data.frame.iloc[:, [0, 1, 2, 3, 6, 9]].copy()
+    df.columns = ["a", "b", "c", "d", "e", "f"]
+    df["kind"] = np.where(df["f"] > df["f"].median(), "high", "low")
+    rng = np.random.default_rng(0)
+    for col in ("a", "c"):
+        df.loc[rng.random(len(df)) < 0.06, col] = np.nan
+    names = {0: "x", 1: "y", 2: "z"}
+    df["label"] = data.frame["target"].map(names)
+    return df
+
+
+@pytest.fixture(scope="module", params=["binary", "multiclass"])
+def sweep(request, tmp_path_factory):
+    folder = tmp_path_factory.mktemp(request.param)
+    df = _data(request.param)
+    df.to_csv(folder / "d.csv", index=False)
+    metrics = list(SCORERS[request.param])
+    (folder / "spec.yaml").write_text(
+        f"name: {request.param}\ndata: {{path: d.csv, target: label}}\n"
+        f"test: {{fraction: {FRACTION}, seed: {TEST_SEED}}}\n"
+        f"folds: {{k: {K}, repeats: {R}, seed: {SEED}}}\nmetrics: {json.dumps(metrics)}\n"
+        f"store: store.duckdb\nexplain: {{cells: none}}\nmodels:{MODELS}")
+    spec = parse_spec((folder / "spec.yaml").read_text(), source=folder / "spec.yaml")
+    result = run_sweep(spec, jobs=2)
+    return request.param, df, Store(result.store_path), result.sweep_id
+
+
+def _scorers(kind: str) -> dict:
+    """scikit-learn's named scorers; the binary Brier scorer told which class is positive
+    (the second, as scikit-learn orders classes), since the labels are text."""
+    scorers = {m: skm.get_scorer(s) for m, s in SCORERS[kind].items()}
+    if kind == "binary":
+        scorers["brier"] = skm.make_scorer(skm.brier_score_loss, response_method="predict_proba",
+                                           greater_is_better=False, pos_label="y")
+    return scorers
+
+
+def _reference(make, df: pd.DataFrame, kind: str):
+    """Fold scores by cross_validate on the documented stratified plan, and test scores."""
+    X, y = df.drop(columns="label"), df["label"].to_numpy(dtype=object)
+    n = len(y)
+    test_rows = np.sort(train_test_split(np.arange(n), test_size=FRACTION,
+                                         random_state=TEST_SEED, stratify=y)[1])
+    train_rows = np.setdiff1d(np.arange(n), test_rows)
+    Xtr, ytr = X.iloc[train_rows], y[train_rows]
+    splits = RepeatedStratifiedKFold(n_splits=K, n_repeats=R, random_state=SEED).split(
+        train_rows, ytr)
+    rows = []
+    for i, (fit, valid) in enumerate(splits):
+        rep, f = divmod(i, K)
+        seed = fold_seed(SEED, rep, f)
+        res = cross_validate(make(seed, len(fit)), Xtr, ytr, cv=[(fit, valid)],
+                             scoring=_scorers(kind))
+        rows += [(rep, f, m, SIGN[m] * res[f"test_{m}"][0]) for m in SCORERS[kind]]
+    est = make(refit_seed(SEED), len(train_rows)).fit(Xtr, ytr)
+    scorers = _scorers(kind)
+    test = {m: SIGN[m] * sc(est, X.iloc[test_rows], y[test_rows]) for m, sc in scorers.items()}
+    return pd.DataFrame(rows, columns=["repeat", "fold", "metric", "ref"]), test
+
+
+def _prep(kind_of_model: str):
+    num = ["a", "b", "c", "d", "e", "f"]
+    if kind_of_model == "linear":
+        return ColumnTransformer([
+            ("num", make_pipeline(SimpleImputer(strategy="median"), StandardScaler()), num),
+            ("cat", make_pipeline(SimpleImputer(strategy="most_frequent"),
+                                  OneHotEncoder(handle_unknown="ignore", sparse_output=False)),
+             ["kind"])])
+    return ColumnTransformer([
+        ("num", "passthrough", num),
+        ("cat", OrdinalEncoder(handle_unknown="use_encoded_value", unknown_value=np.nan),
+         ["kind"])])
+
+
+def _root_entropy(y_fit) -> float:
+    _, counts = np.unique(y_fit, return_counts=True)
+    p = counts / counts.sum()
+    return float(-np.sum(p * np.log2(p)))
+
+
+REFERENCES = {
+    # C = 1 / (alpha x fitting rows): the documented mapping of alpha to scikit-learn's C
+    ("logit", 0.001): lambda s, n: Pipeline([("prep", _prep("linear")), ("model", LogisticRegression(
+        C=1 / (0.001 * n), solver="newton-cholesky", tol=1e-8))]),
+    ("logit", 0.05): lambda s, n: Pipeline([("prep", _prep("linear")), ("model", LogisticRegression(
+        C=1 / (0.05 * n), solver="newton-cholesky", tol=1e-8))]),
+    ("plain", None): lambda s, n: Pipeline([("prep", _prep("linear")), ("model", LogisticRegression(
+        C=np.inf, solver="newton-cholesky", tol=1e-8))]),
+    ("tree", 0.0): lambda s, n: Pipeline([("prep", _prep("tree")), ("model", DecisionTreeClassifier(
+        ccp_alpha=0.0, min_samples_leaf=4, random_state=s))]),
+    ("tree", 0.03): lambda s, n: Pipeline([("prep", _prep("tree")), ("model", DecisionTreeClassifier(
+        ccp_alpha=0.03, min_samples_leaf=4, random_state=s))]),
+    ("forest", 20): lambda s, n: Pipeline([("prep", _prep("tree")), ("model", RandomForestClassifier(
+        n_estimators=20, max_features=0.5, class_weight="balanced", random_state=s, n_jobs=1))]),
+}
+
+
+def _stored(store: Store, sweep_id: str, model: str, key, value):
+    folds = store.query("""select c.params, f."repeat", f.fold, f.metric, f.value from
+        fold_scores f join cells c using (sweep_id, cell_id)
+        where f.sweep_id = ? and c.model = ?""", [sweep_id, model])
+    tests = store.query("""select c.params, t.metric, t.value from test_scores t
+        join cells c using (sweep_id, cell_id) where t.sweep_id = ? and c.model = ?""",
+                        [sweep_id, model])
+    keep = (lambda p: True) if key is None else (lambda p: json.loads(p)[key] == value)
+    return folds[folds.params.map(keep)], tests[tests.params.map(keep)]
+
+
+@pytest.mark.parametrize("model, value, key", [("logit", 0.001, "alpha"),
+                                               ("logit", 0.05, "alpha"), ("plain", None, None),
+                                               ("tree", 0.0, "ccp_alpha"),
+                                               ("tree", 0.03, "ccp_alpha"),
+                                               ("forest", 20, "n_estimators")])
+def test_scores_equal_scikit_learn(sweep, model, value, key):
+    kind, df, store, sid = sweep
+    ref, test = _reference(REFERENCES[(model, value)], df, kind)
+    folds, tests = _stored(store, sid, model, key, value)
+    merged = folds.merge(ref, on=["repeat", "fold", "metric"])
+    assert len(merged) == len(ref) == K * R * 5
+    np.testing.assert_allclose(merged["value"], merged["ref"], rtol=0, atol=1e-9)
+    for metric, expected in test.items():
+        assert tests[tests.metric == metric].value.iloc[0] == pytest.approx(expected, abs=1e-9)
+
+
+def test_ccp_fraction_is_a_share_of_the_root_impurity(sweep):
+    # entropy criterion: ccp_alpha = 0.02 x the fitting rows' class entropy in bits
+    kind, df, store, sid = sweep
+    X, y = df.drop(columns="label"), df["label"].to_numpy(dtype=object)
+    test_rows = np.sort(train_test_split(np.arange(len(y)), test_size=FRACTION,
+                                         random_state=TEST_SEED, stratify=y)[1])
+    train_rows = np.setdiff1d(np.arange(len(y)), test_rows)
+    est = Pipeline([("prep", _prep("tree")), ("model", DecisionTreeClassifier(
+        criterion="entropy", ccp_alpha=0.02 * _root_entropy(y[train_rows]),
+        random_state=refit_seed(SEED)))]).fit(X.iloc[train_rows], y[train_rows])
+    _, tests = _stored(store, sid, "frac", None, None)
+    got = tests.set_index("metric")["value"]
+    assert got["accuracy"] == pytest.approx(
+        skm.accuracy_score(y[test_rows], est.predict(X.iloc[test_rows])), abs=1e-12)
+
+
+def test_paths_equal_one_fit_per_cell(sweep, tmp_path):
+    """Bit-identical: the tree's pruning replay and the forest's prefix against --no-paths."""
+    kind, df, store, sid = sweep
+    df.to_csv(tmp_path / "d.csv", index=False)
+    text = store.query("select spec_text from sweeps where sweep_id = ?", [sid]).iloc[0, 0]
+    (tmp_path / "spec.yaml").write_text(text)
+    spec = parse_spec(text, source=tmp_path / "spec.yaml")
+    plain = run_sweep(spec, jobs=2, paths=False)
+    q = ("select c.model, c.params, f.\"repeat\", f.fold, f.metric, f.value, f.how "
+         "from fold_scores f join cells c using (sweep_id, cell_id) where f.sweep_id = ? "
+         "and c.model in ('tree', 'forest') order by all")
+    routed = store.query(q, [sid])
+    again = Store(plain.store_path).query(q, [plain.sweep_id])
+    assert set(routed["how"]) == {"tree_path", "forest_prefix"} and set(again["how"]) == {"plain"}
+    assert routed["value"].tolist() == again["value"].tolist()  # exactly, not approximately
+
+
+def test_picks_and_compare_follow_each_metrics_direction(sweep):
+    kind, _, store, sid = sweep
+    result = summary(store, sid)
+    assert result.facts.task == "classification"
+    assert len(result.facts.classes) == (3 if kind == "multiclass" else 2)
+    assert set(result.table["model"]) == {"logit", "plain", "tree", "frac", "forest"}
+    # log loss: lower is better, so the best cell has the smallest mean of its model
+    stats = store.query("""select c.model, c.cell_id, avg(f.value) m from fold_scores f
+        join cells c using (sweep_id, cell_id) where f.sweep_id = ? and f.metric = 'log_loss'
+        group by all""", [sid])
+    best = picks(store, sid, rule="best").table.set_index("model")["cell_id"]
+    for model, g in stats.groupby("model"):
+        assert best[model] == g.sort_values("m")["cell_id"].iloc[0]
+    pairs = compare(store, sid, metric="accuracy")
+    assert pairs.better == "higher" and len(pairs.table) == 10
+
+
+def test_roc_and_calibration_against_scikit_learn():
+    # Reference: sklearn.metrics.roc_auc_score and sklearn.calibration.calibration_curve
+    from sklearn.calibration import calibration_curve
+
+    rng = np.random.default_rng(4)
+    y = rng.random(300) < 0.4
+    scores = np.round(np.clip(0.35 * y + rng.normal(0.4, 0.2, 300), 0, 1), 2)  # ties too
+    _, _, area = roc_points(scores, y)
+    assert area == pytest.approx(skm.roc_auc_score(y, scores), abs=1e-12)
+    bins = calibration_bins(scores, y)
+    true, mean = calibration_curve(y, scores, n_bins=10, strategy="uniform")
+    assert bins["accuracy"].tolist() == pytest.approx(true.tolist(), abs=1e-12)
+    assert bins["confidence"].tolist() == pytest.approx(mean.tolist(), abs=1e-12)
+
+
+def test_figures_and_report_of_a_class_sweep(tmp_path):
+    from click.testing import CliRunner
+
+    from runner.cli import main
+    from runner.demo_grades import make_grades
+
+    make_grades(240, seed=2).to_csv(tmp_path / "g.csv", index=False)
+    (tmp_path / "spec.yaml").write_text(
+        "name: g\ndata: {path: g.csv, target: grade}\ntest: {fraction: 0.25, seed: 1}\n"
+        "folds: {k: 3, repeats: 1, seed: 2}\nstore: s.duckdb\n"
+        "explain: {permutation: {repeats: 2}}\nmodels:\n"
+        "  logit: {family: linear, grid: {penalty: l2, alpha: [0.01, 0.1]}}\n"
+        "  tree: {family: pruned_tree, grid: {ccp_fraction: [0.01, 0.05]}}\n")
+    runner_ = CliRunner()
+    out = runner_.invoke(main, ["run", str(tmp_path / "spec.yaml"), "--jobs", "1"])
+    assert out.exit_code == 0, out.output
+    assert "CV log loss (mean ± SE)" in out.stdout and "CV ROC AUC (mean ± SE)" in out.stdout
+    store = str(tmp_path / "s.duckdb")
+    for kind in ("calibration", "roc", "tree", "models", "importance"):
+        made = runner_.invoke(main, ["plot", kind, "--store", store, "--out-dir",
+                                     str(tmp_path / "p"), "--image", "png"])
+        assert made.exit_code == 0, (kind, made.output)
+    refused = runner_.invoke(main, ["plot", "predictions", "--store", store])
+    assert refused.exit_code == 2 and "foldwise plot calibration" in refused.output
+    report = runner_.invoke(main, ["report", "--store", store, "--out", str(tmp_path / "r.html")])
+    assert report.exit_code == 0, report.output
+    html = (tmp_path / "r.html").read_text()
+    assert "calibration and ranking" in html and "Figure not available" not in html
+    probabilities = Store(store).query("select probabilities, observed_class from "
+                                       "test_predictions")
+    assert all(abs(sum(p) - 1.0) < 1e-9 and len(p) == 3 for p in probabilities["probabilities"])
+    assert set(probabilities["observed_class"]) == {"A", "B", "C"}
+
+
+def test_logistic_coefficients_equal_the_published_spector_mazzeo_estimates():
+    """Published logit estimates for Spector & Mazzeo (1980) (tests/data/spector_published.json,
+    reproduced with statsmodels' Logit on its `spector` data): foldwise's unpenalised
+    logistic pipeline fitted on all 32 rows gives them to at least 5 significant digits
+    once its standardisation is undone."""
+    from pathlib import Path
+
+    from runner.families import linear
+
+    folder = Path(__file__).parent / "data"
+    published = json.loads((folder / "spector_published.json").read_text())["coefficients"]
+    df = pd.read_csv(folder / "spector.csv")
+    X, y = df[["gpa", "tuce", "psi"]].astype(float), df["grade"].to_numpy()
+    est = linear.make_estimator({"penalty": "none"}, seed=0, y_fit=y,
+                                numeric=["gpa", "tuce", "psi"], categorical=[],
+                                task="classification").fit(X, y)
+    coefs, intercept = linear.original_scale_coefficients(est)
+    got = {**coefs, "const": intercept}
+    for name, value in published.items():
+        assert got[name] == pytest.approx(value, rel=5e-6), name
+    p = est.predict_proba(X)[:, 1]
+    loglik = float(np.sum(y * np.log(p) + (1 - y) * np.log(1 - p)))
+    assert loglik == pytest.approx(-12.8896, abs=5e-5)
