@@ -66,6 +66,9 @@ class Family:
     plural: str = "models"  # what its fitted models are called, e.g. "forests"
     explain_cost: float = 1.0  # a refit's rough cost, to start the slowest first
     tidy: Callable[[dict], None] | None = None  # drops what cannot matter, in place
+    coefficients: bool = False  # the fitted model has one coefficient per input column
+    saved_types: tuple[str, ...] = ()  # classes its saved pipelines hold beyond the shared
+    #                                    preprocessing (runner/model/artefact.py trusts them)
 
     @property
     def defaults(self) -> dict[str, Any]:
@@ -75,6 +78,25 @@ class Family:
     def estimators(self):
         """The module that builds and fits this family's estimators (imports scikit-learn)."""
         return load_family(self.name)
+
+    def fit_pipeline(self, params: dict, X, y, *, seed: int, numeric, categorical):
+        """This cell's whole pipeline fitted on (X, y) with `seed`, exactly as the sweep
+        fits it; returns (pipeline, warnings raised while fitting)."""
+        import warnings
+
+        est = self.estimators.make_estimator(params, seed=seed, y_fit=y, numeric=numeric,
+                                             categorical=categorical)
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always")
+            est.fit(X, y)
+        return est, [str(w.message) for w in caught
+                     if not issubclass(w.category, (DeprecationWarning, FutureWarning))]
+
+    def prediction_columns(self, pipeline, X) -> dict:
+        """What a fitted pipeline of this family predicts for the rows X, as named columns
+        (regression: one column, `predicted`). The one place a task decides what `predict`
+        writes: a class target adds the class and a probability column per class here."""
+        return self.estimators.prediction_columns(pipeline, X)
 
     def canonical(self, params: dict) -> dict:
         """Defaults filled, parameters that cannot matter dropped, keys sorted: equal models
@@ -139,6 +161,9 @@ FAMILIES: dict[str, Family] = {
         complexity_order=("penalty", "alpha"),
         path_params=("alpha",),
         importance="coefficient", readable=True, plural="linear models", tidy=_tidy_linear,
+        coefficients=True,
+        saved_types=("sklearn.linear_model.LinearRegression", "sklearn.linear_model.Ridge",
+                     "sklearn.linear_model.Lasso", "sklearn.linear_model.ElasticNet"),
     ),
     "pruned_tree": Family(
         name="pruned_tree",
@@ -159,6 +184,7 @@ FAMILIES: dict[str, Family] = {
                           "max_features"),
         path_params=("ccp_alpha", "ccp_fraction"),
         one_tree=True, readable=True, plural="trees", tidy=_tidy_tree,
+        saved_types=("sklearn.tree.DecisionTreeRegressor", "sklearn.tree._tree.Tree"),
     ),
     "forest": Family(
         name="forest",
@@ -179,6 +205,8 @@ FAMILIES: dict[str, Family] = {
         complexity_order=("min_samples_leaf", "max_features", "max_depth", "n_estimators"),
         path_params=("n_estimators",),
         plural="forests", explain_cost=3.0, tidy=_tidy_forest,
+        saved_types=("sklearn.ensemble.RandomForestRegressor",
+                     "sklearn.tree.DecisionTreeRegressor", "sklearn.tree._tree.Tree"),
     ),
 }
 

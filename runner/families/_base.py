@@ -21,7 +21,7 @@ from sklearn.pipeline import Pipeline
 from sklearn.preprocessing import OneHotEncoder, OrdinalEncoder, StandardScaler
 
 __all__ = ["CellFit", "tree_preprocessor", "linear_preprocessor", "fit_each", "fit_grouped",
-           "path_groups", "work_units", "PLAIN"]
+           "path_groups", "work_units", "prediction_columns", "PLAIN"]
 
 PLAIN = "plain"
 """`CellFit.how` of a cell fitted on its own."""
@@ -62,6 +62,11 @@ def linear_preprocessor(numeric: list[str], categorical: list[str]) -> ColumnTra
             ("onehot", OneHotEncoder(handle_unknown="ignore", sparse_output=False))]),
             list(categorical)))
     return ColumnTransformer(parts, remainder="drop", sparse_threshold=0.0)
+
+
+def prediction_columns(pipeline, X) -> dict[str, np.ndarray]:
+    """A regression pipeline's predictions for the rows X: one column, `predicted`."""
+    return {"predicted": np.asarray(pipeline.predict(X), dtype=np.float64)}
 
 
 def _count_warnings(caught) -> int:
