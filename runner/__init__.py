@@ -7,9 +7,11 @@ nothing imported at this level pulls in scikit-learn, DuckDB or pandas, so
 
 __version__ = "0.1.0"
 
-from .errors import DataError, FoldwiseError, QueryError, SpecError, StoreError  # noqa: E402
+from .errors import (DataError, FoldwiseError, ModelError, QueryError, SpecError,  # noqa: E402
+                     StoreError)
 
 __all__ = ["__version__", "FoldwiseError", "SpecError", "DataError", "StoreError", "QueryError",
+           "ModelError",
            "Spec", "load_spec", "parse_spec", "spec_json_schema", "Store", "run_sweep",
            "check_spec", "summary", "pick_table", "compare_table", "complexity_table",
            "importance_table", "stability_table", "figure", "write_report", "merge_store",

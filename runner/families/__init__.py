@@ -67,6 +67,8 @@ class Family:
     explain_cost: float = 1.0  # a refit's rough cost, to start the slowest first
     tidy: Callable[[dict], None] | None = None  # drops what cannot matter, in place
     coefficients: bool = False  # the fitted model has one coefficient per input column
+    unseen_category: str = "treated as a missing value"  # what its pipeline does with a
+    #                                                      category it never saw
     saved_types: tuple[str, ...] = ()  # classes its saved pipelines hold beyond the shared
     #                                    preprocessing (runner/model/artefact.py trusts them)
 
@@ -162,6 +164,8 @@ FAMILIES: dict[str, Family] = {
         path_params=("alpha",),
         importance="coefficient", readable=True, plural="linear models", tidy=_tidy_linear,
         coefficients=True,
+        unseen_category="encoded with every indicator of the column 0, so no level's "
+        "coefficient applies",
         saved_types=("sklearn.linear_model.LinearRegression", "sklearn.linear_model.Ridge",
                      "sklearn.linear_model.Lasso", "sklearn.linear_model.ElasticNet"),
     ),
@@ -184,6 +188,7 @@ FAMILIES: dict[str, Family] = {
                           "max_features"),
         path_params=("ccp_alpha", "ccp_fraction"),
         one_tree=True, readable=True, plural="trees", tidy=_tidy_tree,
+        unseen_category="treated as a missing value, which the tree routes as it learned to",
         saved_types=("sklearn.tree.DecisionTreeRegressor", "sklearn.tree._tree.Tree"),
     ),
     "forest": Family(
@@ -205,6 +210,7 @@ FAMILIES: dict[str, Family] = {
         complexity_order=("min_samples_leaf", "max_features", "max_depth", "n_estimators"),
         path_params=("n_estimators",),
         plural="forests", explain_cost=3.0, tidy=_tidy_forest,
+        unseen_category="treated as a missing value, which each tree routes as it learned to",
         saved_types=("sklearn.ensemble.RandomForestRegressor",
                      "sklearn.tree.DecisionTreeRegressor", "sklearn.tree._tree.Tree"),
     ),

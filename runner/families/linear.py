@@ -128,8 +128,8 @@ def coefficient_rows(pipeline: Pipeline) -> list[dict]:
     rows.insert(0, {"term": INTERCEPT, "feature": None, "level": None,
                     "coefficient": float(intercept), "standardised": fitted_intercept,
                     "mean": None, "scale": None})
-    return [{**r, "coefficient": float(r["coefficient"]),
-             "standardised": float(r["standardised"])} for r in rows]
+    return [{**r, "position": i, "coefficient": float(r["coefficient"]),
+             "standardised": float(r["standardised"])} for i, r in enumerate(rows)]
 
 
 def original_scale_coefficients(pipeline: Pipeline) -> tuple[dict[str, float], float]:

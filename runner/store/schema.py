@@ -66,8 +66,9 @@ create table if not exists explained (
 -- standard deviation, with the centring and scale used (families/linear.py); class_label
 -- is null for a regression model
 create table if not exists coefficients (
-    sweep_id varchar, cell_id varchar, class_label varchar, term varchar, feature varchar,
-    level varchar, coefficient double, standardised double, mean double, scale double);
+    sweep_id varchar, cell_id varchar, class_label varchar, position integer, term varchar,
+    feature varchar, level varchar, coefficient double, standardised double, mean double,
+    scale double);
 -- built models (runner/model/): a picked cell fitted and saved, its card (JSON) and the
 -- artefact's bytes with their SHA-256; and a built linear model's coefficients
 create table if not exists models (
@@ -76,8 +77,8 @@ create table if not exists models (
     created_at timestamp, user_name varchar, host varchar, card json, artefact blob,
     artefact_sha256 varchar, artefact_bytes bigint);
 create table if not exists model_coefficients (
-    model_id varchar, class_label varchar, term varchar, feature varchar, level varchar,
-    coefficient double, standardised double, mean double, scale double);
+    model_id varchar, class_label varchar, position integer, term varchar, feature varchar,
+    level varchar, coefficient double, standardised double, mean double, scale double);
 """
 
 VIEW_SQL = """
