@@ -499,17 +499,19 @@ def build(store_path, sweep_id, model, rule, cell, all_rows, data_path, accept_d
 
 @main.command()
 @click.argument("model_ref", metavar="MODEL")
-@click.argument("data_file", type=click.Path(dir_okay=False))
-@click.option("--out", required=True, type=click.Path(dir_okay=False),
-              help="The predictions file to write (.csv or .parquet).")
+@click.argument("data_file")
+@click.option("--out", required=True, help="The predictions file to write (.csv or .parquet).")
 @click.option("--keep", multiple=True, metavar="COLUMN",
               help="An input column to copy to the output (e.g. an id); repeat for more.")
 @click.option("--overwrite", is_flag=True, help="Replace --out if it exists.")
+@click.option("--unseen", type=click.Choice(["refuse", "allow"]), default="refuse",
+              show_default=True, help="Categories the model never saw: refuse the file, or "
+              "predict them as the model's pipeline does (counted and reported).")
 @click.option("--chunk-rows", type=click.IntRange(min=1), default=100_000, show_default=True,
               help="Rows read and predicted at a time.")
 @click.option("--quiet", "-q", is_flag=True, help="No progress bar.")
 @_store_option
-def predict(model_ref, data_file, out, keep, overwrite, chunk_rows, quiet, store_path):
+def predict(model_ref, data_file, out, keep, overwrite, unseen, chunk_rows, quiet, store_path):
     """Predict the rows of a CSV or Parquet file with a built model.
 
     MODEL is a .skops file (its card beside it) or a model id from `foldwise models`. The
@@ -526,10 +528,10 @@ def predict(model_ref, data_file, out, keep, overwrite, chunk_rows, quiet, store
     model = load_model(model_ref, _open_store(store_path))
     for note in model.notes:
         click.echo(note, err=True)
-    bar = None if quiet else _ProgressBar("predicting")
+    bar = None if quiet or not sys.stderr.isatty() else _ProgressBar("predicting")
     try:
         result = predict_file(model, data_file, out, keep=keep, chunk_rows=chunk_rows,
-                              overwrite=overwrite, progress=bar)
+                              overwrite=overwrite, unseen=unseen, progress=bar)
     finally:
         if bar is not None:
             bar.close()

@@ -207,16 +207,18 @@ def build_model(store: Store, *, sweep_id: str | None = None, model: str | None 
     from ..write.prepare import load_checked
     from ..write.resampling import make_plan, refit_seed
 
-    facts = sweep_facts(store, sweep_id)
-    sid = facts.sweep_id
-    row, rule_used = _choose_cell(store, sid, model=model, rule=rule, cell=cell,
-                                  default_rule=facts.rule)
-    scores = _check_finished(store, sid, row)
+    store._require()
+    with store.session():  # a dozen small reads on one connection
+        facts = sweep_facts(store, sweep_id)
+        sid = facts.sweep_id
+        row, rule_used = _choose_cell(store, sid, model=model, rule=rule, cell=cell,
+                                      default_rule=facts.rule)
+        scores = _check_finished(store, sid, row)
+        record = sweep_record(store, sid)
     family = FAMILIES.get(str(row["family"]))
     if family is None:
         raise ModelError(f"cell {row['cell_id']} is of family '{row['family']}', which this "
                          "foldwise cannot fit. Upgrade foldwise.")
-    record = sweep_record(store, sid)
     spec = _sweep_spec(record, data)
     limit = data_limit_bytes(spec, lifted=lift_limits)
     sha = _check_data(spec, record, accept=accept_data, max_bytes=limit)

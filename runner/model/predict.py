@@ -10,8 +10,10 @@ What is checked, and how each finding ends:
 - values: a numeric column must hold numbers (text is an error naming column and line),
   finite unless the sweep read infinite values as missing, within ±1e100; a column missing
   in every row is an error (the model would predict from nothing but its imputation);
-- categories the model never saw are handled as its pipeline does (the family says how),
-  counted and reported; missing values are counted and reported.
+- categories the model never saw: by default an error naming the column, the rows and
+  examples (a new category usually means the inputs changed since the sweep); with
+  `unseen="allow"` they are handled as the pipeline does (the family says how), counted
+  and reported; missing values are counted and reported.
 
 Any error leaves no output file: rows go to a temporary file beside the output that
 replaces it only when every row is predicted."""
@@ -33,10 +35,13 @@ import pandas as pd
 from ..errors import DataError, ModelError
 from .keep import LoadedModel
 
-__all__ = ["predict_file", "PredictionResult", "CHUNK_ROWS"]
+__all__ = ["predict_file", "PredictionResult", "CHUNK_ROWS", "UNSEEN"]
 
 CHUNK_ROWS = 100_000
 """Rows read, checked and predicted at a time."""
+UNSEEN = ("refuse", "allow")
+"""What to do with categories the model never saw: refuse the file, or predict them as the
+pipeline does."""
 
 _KINDS = {".csv": "csv", ".parquet": "parquet", ".pq": "parquet"}
 _MAX_MAGNITUDE = 1e100  # as runner/write/data.py: squares of larger values overflow
@@ -103,11 +108,13 @@ def _csv_columns(fh, path: Path) -> list[str]:
 def _csv_chunks(fh, path: Path, usecols: list[str], text: list[str], chunk_rows: int):
     """(first line number, DataFrame) per chunk; text columns read as written."""
     try:
-        reader = pd.read_csv(fh, usecols=usecols, dtype={c: str for c in text},
-                             chunksize=chunk_rows, encoding="utf-8", keep_default_na=True)
+        # every column is parsed (not only `usecols`), so a line with more fields than the
+        # header - an unquoted comma shifting values - is refused as the sweep refuses it
+        reader = pd.read_csv(fh, dtype={c: str for c in text}, chunksize=chunk_rows,
+                             encoding="utf-8")
         line = 2
         for chunk in reader:
-            yield line, chunk
+            yield line, chunk[usecols]
             line += len(chunk)
     except UnicodeDecodeError as exc:
         raise DataError(f"prediction input {path} is not UTF-8 text ({exc.reason}). "
@@ -204,11 +211,13 @@ def _numeric(s: pd.Series, name: str, kind: str, first: int, path: Path,
 
 
 def _level_lookup(levels: list[str]) -> dict[str, str]:
-    """Other spellings of the seen categories that mean the same: '1' for '1.0' (a column
-    read as numbers in one file and as text in another), 'true' for 'True'."""
+    """Other spellings of the seen categories that mean the same value: '1' for '1.0' (a
+    column read as numbers in one file and as text in another), 'true' or 'TRUE' for a
+    boolean column's 'True'. Any other difference stays a different category."""
     out: dict[str, str] = {}
     for level in levels:
-        out.setdefault(level.lower(), level)
+        if level in ("True", "False"):
+            out.setdefault(level.lower(), level)
         try:
             out.setdefault(repr(float(level)), level)
         except ValueError:
@@ -226,7 +235,7 @@ def _categorical(s: pd.Series, feature: dict, lookup: dict[str, str], tally: _Ta
             if v in lookup:
                 return lookup[v]
             low = v.strip().lower()
-            if low in lookup:
+            if low in ("true", "false") and low in lookup:
                 return lookup[low]
             try:
                 return lookup.get(repr(float(v)), v)
@@ -303,6 +312,15 @@ class _Output:
             self.tmp.unlink(missing_ok=True)
 
 
+def _refuse_unseen(found: dict, path: Path, handling: str) -> None:
+    col, seen = next(iter(found.items()))
+    raise DataError(f"column '{col}' of prediction input {path} holds categories the model "
+                    f"never saw ({', '.join(map(repr, seen['examples']))}; "
+                    f"{seen['rows']:,} row(s) so far). Fix or map them to the model's "
+                    "categories (`foldwise card MODEL` lists them), or pass --unseen allow "
+                    f"to predict them anyway: each is then {handling}.")
+
+
 def _check_out(out: Path, data: Path, overwrite: bool) -> None:
     if out.suffix.lower() not in _KINDS:
         raise DataError(f"output {out} must end in .csv or .parquet.")
@@ -342,17 +360,20 @@ def _columns_plan(card: dict, columns: list[str], keep: list[str], path: Path,
 
 def predict_file(model: LoadedModel, data: str | Path, out: str | Path, *,
                  keep: tuple[str, ...] | list[str] = (), chunk_rows: int = CHUNK_ROWS,
-                 overwrite: bool = False,
+                 overwrite: bool = False, unseen: str = "refuse",
                  progress: Callable[[int, int], None] | None = None) -> PredictionResult:
     """Predict every row of `data` (CSV or Parquet) with `model` into `out` (.csv or
     .parquet): the `keep` columns as written, then the family's prediction columns.
 
     Reads `chunk_rows` rows at a time; `progress(done, total)` counts bytes of a CSV or
-    rows of a Parquet file. On any error no output file is left behind."""
+    rows of a Parquet file. Categories the model never saw are refused unless `unseen` is
+    "allow". On any error no output file is left behind."""
     start = time.perf_counter()
     data, out = Path(data), Path(out)
     if chunk_rows < 1:
         raise ModelError(f"chunk_rows must be >= 1, got {chunk_rows}.")
+    if unseen not in UNSEEN:
+        raise ModelError(f"unseen must be one of {', '.join(UNSEEN)}, got {unseen!r}.")
     keep = list(dict.fromkeys(keep))
     card, family = model.card, model.family
     features = card["features"]
@@ -377,7 +398,11 @@ def predict_file(model: LoadedModel, data: str | Path, out: str | Path, *,
         n_chunks = 0
         try:
             for first, df in chunks:
+                if df.empty:
+                    continue
                 X = _features(df, card, lookups, kind, first, data, tally)
+                if tally.unseen and unseen == "refuse":
+                    _refuse_unseen(tally.unseen, data, family.unseen_category)
                 with warnings.catch_warnings():  # unseen categories are counted above
                     warnings.simplefilter("ignore")
                     predicted = family.prediction_columns(model.pipeline, X)
