@@ -278,3 +278,34 @@ def test_signed_coefficients_reproduce_the_stored_test_predictions(demo_built):
                               "model_id = ? order by position", [built["ridge"].model_id])
     assert model_coefs["term"].tolist() == coefs["term"].tolist()
     np.testing.assert_array_equal(model_coefs["coefficient"], coefs["coefficient"])
+
+
+@pytest.mark.parametrize("fmt", ["parquet", "csv"])
+def test_export_and_merge_carry_built_models_whole(demo_built, tmp_path, fmt):
+    from runner.store.transfer import export_store, merge_store
+
+    _, store, _, built = demo_built
+    export_store(store, tmp_path / "out", fmt)
+    target = Store(tmp_path / "back.duckdb")
+    result = merge_store(target, tmp_path / "out")
+    assert {m.model_id for m in built.values()} <= set(result.new_models)
+    q = "select * from models order by model_id"
+    pd.testing.assert_frame_equal(target.query(q), store.query(q), check_exact=True)
+    q = "select * from model_coefficients order by model_id, position"
+    pd.testing.assert_frame_equal(target.query(q), store.query(q), check_exact=True)
+    assert load_model(built["forest"].model_id, target).card == built["forest"].card
+
+
+def test_a_model_built_after_a_merge_arrives_with_the_next_merge(demo_built, tmp_path):
+    from runner.store.transfer import merge_store
+
+    _, store, _, _ = demo_built
+    source = tmp_path / "source.duckdb"
+    shutil.copy(store.path, source)
+    target = Store(tmp_path / "target.duckdb")
+    merge_store(target, source)
+    later = build_model(Store(source), model="tree", rule="best", out=tmp_path / "l.skops")
+    again = merge_store(target, source)
+    assert again.new_sweeps == [] and again.new_models == [later.model_id]
+    assert again.rows["models"] == 1
+    assert load_model(later.model_id, target).card == later.card
