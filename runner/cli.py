@@ -508,11 +508,16 @@ def build(store_path, sweep_id, model, rule, cell, all_rows, data_path, accept_d
 @click.option("--unseen", type=click.Choice(["refuse", "allow"]), default="refuse",
               show_default=True, help="Categories the model never saw: refuse the file, or "
               "predict them as the model's pipeline does (counted and reported).")
+@click.option("--interval", type=click.FloatRange(0, 1, min_open=True, max_open=True),
+              default=None, metavar="LEVEL", help="Add lower and upper columns: a split-"
+              "conformal prediction interval at this level (e.g. 0.9) from the model's "
+              "residuals on the sweep's test rows.")
 @click.option("--chunk-rows", type=click.IntRange(min=1), default=100_000, show_default=True,
               help="Rows read and predicted at a time.")
 @click.option("--quiet", "-q", is_flag=True, help="No progress bar.")
 @_store_option
-def predict(model_ref, data_file, out, keep, overwrite, unseen, chunk_rows, quiet, store_path):
+def predict(model_ref, data_file, out, keep, overwrite, unseen, interval, chunk_rows, quiet,
+            store_path):
     """Predict the rows of a CSV or Parquet file with a built model.
 
     MODEL is a .skops file (its card beside it) or a model id from `foldwise models`. The
@@ -532,7 +537,8 @@ def predict(model_ref, data_file, out, keep, overwrite, unseen, chunk_rows, quie
     bar = None if quiet or not sys.stderr.isatty() else _ProgressBar("predicting")
     try:
         result = predict_file(model, data_file, out, keep=keep, chunk_rows=chunk_rows,
-                              overwrite=overwrite, unseen=unseen, progress=bar)
+                              overwrite=overwrite, unseen=unseen, interval=interval,
+                              progress=bar)
     finally:
         if bar is not None:
             bar.close()

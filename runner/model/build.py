@@ -29,8 +29,8 @@ from ..families import FAMILIES
 from ..metrics import METRICS
 from ..store import Store
 from .artefact import FORMAT, dump_pipeline, sha256_of
-from .card import CARD_FORMAT, CARD_VERSION, card_json, card_path_for, feature_schema, \
-    versions_here
+from .card import CARD_FORMAT, CARD_VERSION, card_json, card_path_for, conformal_scores, \
+    feature_schema, versions_here
 
 __all__ = ["build_model", "BuiltModel", "MODELS_FOLDER", "write_model_files"]
 
@@ -231,10 +231,11 @@ def build_model(store: Store, *, sweep_id: str | None = None, model: str | None 
     pipeline, warned = family.fit_pipeline(params, X, y, seed=seed, numeric=frame.numeric,
                                            categorical=frame.categorical)
     notes: list[str] = []
-    rebuilt = None
+    rebuilt, interval = None, None
     if not all_rows:
-        rebuilt = _metric_values(frame.y[plan.test_rows],
-                                 pipeline.predict(frame.X.iloc[plan.test_rows]), facts.metrics)
+        held_out = pipeline.predict(frame.X.iloc[plan.test_rows])
+        rebuilt = _metric_values(frame.y[plan.test_rows], held_out, facts.metrics)
+        interval = conformal_scores(frame.y[plan.test_rows], held_out)
         stored = dict(zip(scores["metric"], scores["test"]))
         off = [m for m, v in rebuilt.items()
                if abs(v - stored[m]) > _TEST_AGREEMENT * max(1.0, abs(stored[m]))]
@@ -277,6 +278,7 @@ def build_model(store: Store, *, sweep_id: str | None = None, model: str | None 
         "metrics": list(facts.metrics),
         "scores": _scores(scores, rebuilt, all_rows),
         "prediction_columns": list(family.prediction_columns(pipeline, X.iloc[:1])),
+        "interval": interval,
         "fit_warnings": warned[:20],
         "versions": versions_here(),
     }

@@ -17,7 +17,8 @@ from pathlib import Path
 from ..errors import ModelError
 
 __all__ = ["CARD_FORMAT", "CARD_VERSION", "versions_here", "version_notes", "feature_schema",
-           "card_path_for", "read_card_file", "card_json", "check_card", "VERSIONED"]
+           "card_path_for", "read_card_file", "card_json", "check_card", "VERSIONED",
+           "conformal_scores", "interval_halfwidth"]
 
 CARD_FORMAT = "foldwise model card"
 CARD_VERSION = 1
@@ -75,6 +76,53 @@ def feature_schema(X, numeric: list[str], categorical: list[str]) -> list[dict]:
             out.append({"name": str(name), "type": "categorical", "missing": missing,
                         "categories": levels})
     return out
+
+
+CONFORMAL = "split-conformal on the sweep's test rows"
+"""How a card's prediction interval is made (Papadopoulos et al. 2002; Lei, G'Sell,
+Rinaldo, Tibshirani & Wasserman 2018, JASA 113, "Distribution-free predictive inference
+for regression", split conformal with absolute residuals)."""
+_MAX_SCORES = 100_000
+
+
+def conformal_scores(y_test, predicted) -> dict:
+    """The card's interval record: the built model's absolute residuals on the test rows,
+    which it never fitted, sorted (the conformity scores of split conformal)."""
+    import numpy as np
+
+    scores = np.sort(np.abs(np.asarray(y_test, float) - np.asarray(predicted, float)))
+    if len(scores) > _MAX_SCORES:  # a rank-preserving thinning keeps the card small
+        keep = np.unique(np.linspace(0, len(scores) - 1, _MAX_SCORES).round().astype(int))
+        return {"method": CONFORMAL, "n": int(len(scores)), "ranks": (keep + 1).tolist(),
+                "scores": scores[keep].tolist()}
+    return {"method": CONFORMAL, "n": int(len(scores)), "scores": scores.tolist()}
+
+
+def interval_halfwidth(record: dict | str | None, level: float, where: str) -> float:
+    """q such that [prediction - q, prediction + q] covers a new row's target with
+    probability at least `level` when rows are exchangeable: the ceil((n + 1) level)-th
+    smallest of the n test residuals (split conformal)."""
+    import math
+
+    if record == "absent":
+        raise ModelError(f"{where} was built by a foldwise that kept no residuals for "
+                         "prediction intervals; build it again to get intervals.")
+    if not record:
+        raise ModelError(f"{where} has no held-out residuals for a prediction interval: it "
+                         "was built on every row (--all-rows). Build it on the training "
+                         "rows to get intervals.")
+    n = int(record["n"])
+    k = math.ceil((n + 1) * level)
+    if k > n:
+        raise ModelError(f"a {level:g} interval needs at least {math.ceil(level / (1 - level))}"
+                         f" held-out rows; {where} was calibrated on {n}. Ask for a lower "
+                         "level.")
+    ranks = record.get("ranks")
+    if ranks is None:
+        return float(record["scores"][k - 1])
+    import bisect
+
+    return float(record["scores"][min(bisect.bisect_left(ranks, k), len(ranks) - 1)])
 
 
 def card_path_for(artefact: Path) -> Path:

@@ -33,6 +33,7 @@ import numpy as np
 import pandas as pd
 
 from ..errors import DataError, ModelError
+from .card import interval_halfwidth
 from .keep import LoadedModel
 
 __all__ = ["predict_file", "PredictionResult", "CHUNK_ROWS", "UNSEEN"]
@@ -63,6 +64,8 @@ class PredictionResult:
     model_id: str = ""
     unseen_handling: str = ""
     notes: list[str] = field(default_factory=list)
+    interval: float | None = None
+    halfwidth: float | None = None
 
 
 # -- the input file --------------------------------------------------------------------------
@@ -361,13 +364,16 @@ def _columns_plan(card: dict, columns: list[str], keep: list[str], path: Path,
 def predict_file(model: LoadedModel, data: str | Path, out: str | Path, *,
                  keep: tuple[str, ...] | list[str] = (), chunk_rows: int = CHUNK_ROWS,
                  overwrite: bool = False, unseen: str = "refuse",
+                 interval: float | None = None,
                  progress: Callable[[int, int], None] | None = None) -> PredictionResult:
     """Predict every row of `data` (CSV or Parquet) with `model` into `out` (.csv or
     .parquet): the `keep` columns as written, then the family's prediction columns.
 
     Reads `chunk_rows` rows at a time; `progress(done, total)` counts bytes of a CSV or
     rows of a Parquet file. Categories the model never saw are refused unless `unseen` is
-    "allow". On any error no output file is left behind."""
+    "allow". With `interval` (a level such as 0.9), `lower` and `upper` columns bound each
+    prediction by split conformal on the sweep's test rows (`card.interval_halfwidth`).
+    On any error no output file is left behind."""
     start = time.perf_counter()
     data, out = Path(data), Path(out)
     if chunk_rows < 1:
@@ -378,6 +384,13 @@ def predict_file(model: LoadedModel, data: str | Path, out: str | Path, *,
     card, family = model.card, model.family
     features = card["features"]
     prediction = list(card.get("prediction_columns") or ["predicted"])
+    halfwidth = None
+    if interval is not None:
+        if not 0 < interval < 1:
+            raise ModelError(f"the interval level must be between 0 and 1, got {interval}.")
+        halfwidth = interval_halfwidth(card.get("interval", "absent"), interval,
+                                       model.source)
+        prediction += ["lower", "upper"]
     fh, kind = _open_input(data)
     with fh:
         if kind == "csv":
@@ -410,6 +423,9 @@ def predict_file(model: LoadedModel, data: str | Path, out: str | Path, *,
                                      for c in keep})
                 for name, values in predicted.items():
                     part[name] = values
+                if halfwidth is not None:
+                    part["lower"] = part["predicted"] - halfwidth
+                    part["upper"] = part["predicted"] + halfwidth
                 writer.write(part)
                 tally.rows += len(df)
                 n_chunks += 1
@@ -433,4 +449,5 @@ def predict_file(model: LoadedModel, data: str | Path, out: str | Path, *,
     return PredictionResult(out, tally.rows, n_chunks, time.perf_counter() - start,
                             [*keep, *prediction], keep, ignored, tally.unseen,
                             {k: v for k, v in tally.missing.items() if v},
-                            model.model_id, family.unseen_category, list(model.notes))
+                            model.model_id, family.unseen_category, list(model.notes),
+                            interval, halfwidth)

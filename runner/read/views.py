@@ -615,6 +615,10 @@ def prediction_sentences(result) -> list[str]:
     """What a prediction run wrote and met: counts, ignored columns, unseen categories."""
     lines = [f"predicted {result.rows:,} rows in {result.chunks} chunk(s), "
              f"{result.seconds:.1f} s -> {result.out} (columns: {', '.join(result.columns)})"]
+    if result.interval is not None:
+        lines.append(f"lower and upper: a {result.interval:g} split-conformal interval, "
+                     f"prediction ± {number(result.halfwidth)} (the model's residuals on "
+                     "the sweep's test rows; coverage holds on average over rows like them)")
     if result.ignored:
         lines.append(f"ignored {len(result.ignored)} column(s) the model does not use: "
                      f"{', '.join(result.ignored[:10])}{', ...' if len(result.ignored) > 10 else ''}")
