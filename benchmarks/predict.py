@@ -6,6 +6,8 @@ files of the same generator's rows: 200 000 and 2 000 000 rows. Each prediction 
 fresh child process, which reports its peak resident memory (ru_maxrss) and its time; the
 plain way - pandas.read_csv of the whole file, the pipeline's predict, to_csv - runs the
 same way for comparison. Flat memory means the 2 M-row peak is about the 200 k-row peak.
+Peaks are the child's VmHWM, reset once the model is loaded (Linux /proc), so they are the
+memory of predicting with the model in memory.
 
 Run: python benchmarks/predict.py [--rows 2000000] [--keep-files DIR]
 """
@@ -14,7 +16,6 @@ from __future__ import annotations
 
 import argparse
 import json
-import resource
 import shutil
 import subprocess
 import sys
@@ -40,8 +41,18 @@ models:
 """
 
 
-def _peak_mib() -> float:
-    return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
+def _status_mib(field: str) -> float:
+    """VmRSS (now) or VmHWM (peak since the last reset) of this process, in MiB."""
+    for line in Path("/proc/self/status").read_text().splitlines():
+        if line.startswith(field + ":"):
+            return int(line.split()[1]) / 1024
+    return float("nan")
+
+
+def _reset_peak() -> None:
+    """Start the peak afresh (Linux: writing 5 to clear_refs resets VmHWM); ru_maxrss
+    would also count what the parent held before it started this process."""
+    Path("/proc/self/clear_refs").write_text("5")
 
 
 def child(kind: str, model: str, data: str, out: str) -> None:
@@ -49,7 +60,8 @@ def child(kind: str, model: str, data: str, out: str) -> None:
     from runner.model.keep import load_model
 
     loaded = load_model(model)
-    before = _peak_mib()
+    _reset_peak()
+    before = _status_mib("VmRSS")
     start = time.perf_counter()
     if kind == "foldwise":
         from runner.model.predict import predict_file
@@ -66,8 +78,8 @@ def child(kind: str, model: str, data: str, out: str) -> None:
         X, _, _ = type_features(df[names], cats, Path(data))
         pd.DataFrame({"bay_row": df["bay_row"], "predicted": loaded.pipeline.predict(X)}
                      ).to_csv(out, index=False)
-    print(json.dumps({"seconds": time.perf_counter() - start, "peak_mib": _peak_mib(),
-                      "loaded_mib": before}))
+    print(json.dumps({"seconds": time.perf_counter() - start,
+                      "peak_mib": _status_mib("VmHWM"), "loaded_mib": before}))
 
 
 def _run_child(kind: str, model: Path, data: Path, out: Path) -> dict:

@@ -620,8 +620,9 @@ def prediction_sentences(result) -> list[str]:
                      f"prediction ± {number(result.halfwidth)} (the model's residuals on "
                      "the sweep's test rows; coverage holds on average over rows like them)")
     if result.ignored:
+        more = ", ..." if len(result.ignored) > 10 else ""
         lines.append(f"ignored {len(result.ignored)} column(s) the model does not use: "
-                     f"{', '.join(result.ignored[:10])}{', ...' if len(result.ignored) > 10 else ''}")
+                     f"{', '.join(result.ignored[:10])}{more}")
     for col, seen in result.unseen.items():
         lines.append(f"unseen categories: {seen['rows']:,} row(s) of '{col}' hold categories "
                      f"the model never saw (e.g. {', '.join(map(repr, seen['examples']))}); "
