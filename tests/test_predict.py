@@ -292,3 +292,19 @@ def test_intervals_need_held_out_rows(demo_built, tmp_path):
         predict_file(load_model(demo_built[3]["ridge"].artefact), tmp_path / "in.csv",
                      tmp_path / "p.csv", interval=0.999)
     assert not (tmp_path / "p.csv").exists()
+
+
+def test_other_spellings_of_a_seen_number_or_boolean_category_are_that_category():
+    # A category column of codes reads as '1' from one file and '1.0' from another (a
+    # missing value made pandas read floats); a boolean one as 'True' or 'true'. Those are
+    # the seen category; any other difference ('TWO' for 'two') stays unseen.
+    from runner.model.predict import _Tally, _categorical, _level_lookup
+
+    feature = {"name": "code", "type": "categorical", "categories": ["1", "2.5", "True",
+                                                                    "two"]}
+    tally = _Tally([feature])
+    s = pd.Series(["1.0", "2.50", "true", "TRUE", "TWO", "3", None], dtype=object)
+    got = _categorical(s, feature, _level_lookup(feature["categories"]), tally)
+    assert got.tolist()[:6] == ["1", "2.5", "True", "True", "TWO", "3"]
+    assert got.isna().tolist()[6]
+    assert tally.unseen == {"code": {"rows": 2, "examples": ["TWO", "3"]}}
