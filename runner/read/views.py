@@ -558,6 +558,10 @@ def card_view(card: dict) -> View:
                           + ("" if scores["test_describes_this_model"] else
                              " (of the refit on training rows; not of this model)")))
     facts.append(("predicts", ", ".join(card["prediction_columns"])))
+    interval = card.get("interval")
+    facts.append(("intervals", f"split conformal on {interval['n']:,} held-out residuals "
+                  "(predict --interval LEVEL)" if interval else
+                  "none: no held-out rows (built on every row)"))
     facts.append(("artefact", f"{card['artefact']['format']}, "
                               f"{_size(card['artefact']['bytes'])}, SHA-256 "
                               f"{card['artefact']['sha256']}"))
