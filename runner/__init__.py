@@ -7,13 +7,16 @@ nothing imported at this level pulls in scikit-learn, DuckDB or pandas, so
 
 __version__ = "0.1.0"
 
-from .errors import DataError, FoldwiseError, QueryError, SpecError, StoreError  # noqa: E402
+from .errors import (DataError, FoldwiseError, ModelError, QueryError, SpecError,  # noqa: E402
+                     StoreError)
 
 __all__ = ["__version__", "FoldwiseError", "SpecError", "DataError", "StoreError", "QueryError",
+           "ModelError",
            "Spec", "load_spec", "parse_spec", "spec_json_schema", "Store", "run_sweep",
            "check_spec", "summary", "pick_table", "compare_table", "complexity_table",
            "importance_table", "stability_table", "figure", "write_report", "merge_store",
-           "export_store"]
+           "export_store", "build_model", "load_model", "predict_file", "fetch_model",
+           "built_models", "coefficient_table"]
 
 
 # name -> (module, attribute), imported on first use so `import runner` stays light. Names
@@ -32,6 +35,11 @@ _LAZY = {
     "figure": ("read.figures", "make_figure"), "write_report": ("read.report", "write_report"),
     "merge_store": ("store.transfer", "merge_store"),
     "export_store": ("store.transfer", "export_store"),
+    "build_model": ("model.build", "build_model"), "load_model": ("model.keep", "load_model"),
+    "predict_file": ("model.predict", "predict_file"),
+    "fetch_model": ("model.keep", "fetch_model"),
+    "built_models": ("read.queries", "built_models"),
+    "coefficient_table": ("read.queries", "coefficient_table"),
 }
 
 

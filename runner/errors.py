@@ -31,3 +31,9 @@ class QueryError(FoldwiseError, ValueError):
     """A query against the store was refused or failed."""
 
     exit_code = 2
+
+
+class ModelError(FoldwiseError, ValueError):
+    """A built model cannot be made, found, trusted or loaded as asked."""
+
+    exit_code = 2

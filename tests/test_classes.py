@@ -276,26 +276,76 @@ def test_figures_and_report_of_a_class_sweep(tmp_path):
     assert set(probabilities["observed_class"]) == {"A", "B", "C"}
 
 
-def test_logistic_coefficients_equal_the_published_spector_mazzeo_estimates():
+def test_logistic_coefficients_equal_the_published_spector_mazzeo_estimates(tmp_path):
     """Published logit estimates for Spector & Mazzeo (1980) (tests/data/spector_published.json,
-    reproduced with statsmodels' Logit on its `spector` data): foldwise's unpenalised
-    logistic pipeline fitted on all 32 rows gives them to at least 5 significant digits
-    once its standardisation is undone."""
+    reproduced with statsmodels' Logit on its `spector` data): an unpenalised logistic
+    model swept, then built on all 32 rows, stores coefficients in the data's units that
+    agree to at least 5 significant digits, and its log-likelihood."""
     from pathlib import Path
 
-    from runner.families import linear
+    from click.testing import CliRunner
+
+    from runner.cli import main
 
     folder = Path(__file__).parent / "data"
-    published = json.loads((folder / "spector_published.json").read_text())["coefficients"]
-    df = pd.read_csv(folder / "spector.csv")
-    X, y = df[["gpa", "tuce", "psi"]].astype(float), df["grade"].to_numpy()
-    est = linear.make_estimator({"penalty": "none"}, seed=0, y_fit=y,
-                                numeric=["gpa", "tuce", "psi"], categorical=[],
-                                task="classification").fit(X, y)
-    coefs, intercept = linear.original_scale_coefficients(est)
-    got = {**coefs, "const": intercept}
-    for name, value in published.items():
+    published = json.loads((folder / "spector_published.json").read_text())
+    (tmp_path / "spector.csv").write_bytes((folder / "spector.csv").read_bytes())
+    (tmp_path / "spec.yaml").write_text(
+        "name: spector\ndata: {path: spector.csv, target: grade}\ntask: classification\n"
+        "test: {fraction: 0.25, seed: 1}\nfolds: {k: 3, repeats: 1, seed: 1}\n"
+        "store: s.duckdb\nexplain: {cells: none}\n"
+        "models:\n  logit: {family: linear, grid: {penalty: none}}\n")
+    store = str(tmp_path / "s.duckdb")
+    ran = CliRunner().invoke(main, ["run", str(tmp_path / "spec.yaml"), "-q", "--jobs", "1"])
+    assert ran.exit_code == 0, ran.output
+    built = CliRunner().invoke(main, ["build", "--all-rows", "--out", str(tmp_path / "m.skops"),
+                                      "--store", store])
+    assert built.exit_code == 0, built.output
+    model_id = Store(store).query("select model_id from models")["model_id"][0]
+    out = CliRunner().invoke(main, ["coefficients", "--model-id", model_id, "--format", "json",
+                                    "--store", store])
+    rows = json.loads(out.output)
+    assert {r["class_label"] for r in rows} == {"1"}  # the log-odds of grade 1 against 0
+    got = {("const" if r["term"] == "(intercept)" else r["term"]): r["coefficient"]
+           for r in rows}
+    for name, value in published["coefficients"].items():
         assert got[name] == pytest.approx(value, rel=5e-6), name
-    p = est.predict_proba(X)[:, 1]
+    from runner.model.keep import load_model
+
+    df = pd.read_csv(folder / "spector.csv")
+    model = load_model(str(tmp_path / "m.skops"))
+    p = model.pipeline.predict_proba(df[["gpa", "tuce", "psi"]])[:, 1]
+    y = df["grade"].to_numpy()
     loglik = float(np.sum(y * np.log(p) + (1 - y) * np.log(1 - p)))
-    assert loglik == pytest.approx(-12.8896, abs=5e-5)
+    assert loglik == pytest.approx(published["log_likelihood"], abs=5e-5)
+
+
+def test_a_built_class_model_predicts_the_stored_probabilities_bit_for_bit(tmp_path):
+    from click.testing import CliRunner
+
+    from runner.cli import main
+    from runner.demo_grades import make_grades
+
+    df = make_grades(240, seed=8)
+    df.to_csv(tmp_path / "g.csv", index=False)
+    (tmp_path / "spec.yaml").write_text(
+        "name: g\ndata: {path: g.csv, target: grade}\ntest: {fraction: 0.25, seed: 1}\n"
+        "folds: {k: 3, repeats: 1, seed: 2}\nstore: s.duckdb\n"
+        "explain: {permutation: {repeats: 1}}\nmodels:\n"
+        "  forest: {family: forest, grid: {n_estimators: [10, 20]}}\n")
+    runner_ = CliRunner()
+    assert runner_.invoke(main, ["run", str(tmp_path / "spec.yaml"), "-q", "--jobs", "1"]
+                          ).exit_code == 0
+    store = str(tmp_path / "s.duckdb")
+    built = runner_.invoke(main, ["build", "--out", str(tmp_path / "f.skops"), "--store", store])
+    assert built.exit_code == 0, built.output
+    stored = Store(store).query("""select p."row", p.predicted_class, p.probabilities
+        from test_predictions p join models m using (sweep_id, cell_id) order by p."row" """)
+    df.iloc[stored["row"]].drop(columns="grade").to_csv(tmp_path / "new.csv", index=False)
+    out = runner_.invoke(main, ["predict", str(tmp_path / "f.skops"), str(tmp_path / "new.csv"),
+                                "--out", str(tmp_path / "p.csv")])
+    assert out.exit_code == 0, out.output
+    got = pd.read_csv(tmp_path / "p.csv")
+    assert got["predicted_class"].tolist() == stored["predicted_class"].tolist()
+    for k, label in enumerate(["A", "B", "C"]):
+        assert got[f"probability_{label}"].tolist() == [p[k] for p in stored["probabilities"]]

@@ -57,3 +57,46 @@ def test_pipeline_standardises_before_least_squares(fitted):
     np.testing.assert_allclose(Z.mean(axis=0), 0, atol=1e-12)
     np.testing.assert_allclose(Z.std(axis=0), 1, atol=1e-12)
     assert np.linalg.cond(Z) < 1e3 < np.linalg.cond(X.to_numpy())
+
+
+LONGLEY_SPEC = """
+name: longley
+data: {path: longley.csv, target: y}
+test: {fraction: 0.25, seed: 1}
+folds: {k: 3, repeats: 1, seed: 1}
+metrics: [rmse]
+store: store.duckdb
+explain: {cells: none}
+models:
+  ols: {family: linear, grid: {penalty: none}}
+"""
+
+
+def test_a_least_squares_model_built_on_all_16_rows_reports_the_certified_coefficients(
+        tmp_path):
+    # NIST StRD, certified values (tests/data/longley_certified.json): a `penalty: none`
+    # model swept, then built with --all-rows, stores its signed coefficients in the data's
+    # units; each agrees with the certified estimate to at least 7 significant digits.
+    from click.testing import CliRunner
+
+    from runner.cli import main
+    from runner.store import Store
+
+    (tmp_path / "longley.csv").write_bytes((DATA / "longley.csv").read_bytes())
+    (tmp_path / "spec.yaml").write_text(LONGLEY_SPEC)
+    store = str(tmp_path / "store.duckdb")
+    assert CliRunner().invoke(main, ["run", str(tmp_path / "spec.yaml"), "-q",
+                                     "--jobs", "1"]).exit_code == 0
+    built = CliRunner().invoke(main, ["build", "--all-rows", "--out",
+                                      str(tmp_path / "ols.skops"), "--store", store])
+    assert built.exit_code == 0, built.output
+    assert "on 16 rows (training and test)" in built.output
+    model_id = Store(store).query("select model_id from models")["model_id"][0]
+    out = CliRunner().invoke(main, ["coefficients", "--model-id", model_id, "--format",
+                                    "json", "--store", store])
+    got = {r["term"]: r["coefficient"] for r in json.loads(out.output)}
+    cert = json.loads((DATA / "longley_certified.json").read_text())
+    assert len(got) == len(cert["parameters"]) == 7
+    for p in cert["parameters"]:
+        term = "(intercept)" if p["column"] == "intercept" else p["column"]
+        assert _digits(got[term], p["estimate"]) >= 7, (p["name"], got[term], p["estimate"])

@@ -18,8 +18,7 @@ from click.testing import CliRunner
 
 from runner.cli import main
 from runner.errors import StoreError
-from runner.store import Store
-from runner.store.schema import SCHEMA_VERSION
+from runner.store import SCHEMA_VERSION, Store
 
 from .helpers import write_spec
 from .store_builder import write_sweep

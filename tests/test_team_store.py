@@ -277,3 +277,35 @@ def test_reading_a_team_store_being_created_says_so(pg, file_copy):
     _cli("merge", str(file_copy.path), "--store", url, env=pg.env())  # another process
     assert len(sweeps(Store(url))) == 3
     assert Store(url).user_query("select count(*) as n from sweeps").n[0] == 3
+
+
+def test_a_model_is_built_listed_and_loaded_on_a_server(pg, demo_built, tmp_path):
+    """A model built into a team store and one merged there from a file both come back
+    from the server (its artefact as PostgreSQL bytea), SHA-256 checked, and predict what
+    the file store's copy predicts."""
+    import numpy as np
+
+    from runner.model.build import build_model
+    from runner.model.keep import load_model
+    from runner.read.queries import built_models
+
+    folder, file_store, _, built = demo_built
+    server = Store(pg.create_database("team_models"))
+    merged = merge_store(server, file_store.path)
+    assert built["tree"].model_id in merged.new_models
+    fresh = build_model(server, model="ridge", rule="best", out=tmp_path / "r.skops")
+    listed = built_models(server)
+    assert {fresh.model_id, built["tree"].model_id} <= set(listed["model_id"])
+    X = pd.read_csv(folder / "greenhouse.csv").head(50)
+    for model_id, reference in ((built["tree"].model_id, built["tree"].artefact),
+                                (fresh.model_id, fresh.artefact)):
+        from_server = load_model(model_id, server)
+        from_file = load_model(reference)
+        assert from_server.card == from_file.card
+        from runner.write.data import type_features
+
+        names = [f["name"] for f in from_file.card["features"]]
+        cats = [f["name"] for f in from_file.card["features"] if f["type"] == "categorical"]
+        typed, _, _ = type_features(X[names], cats, folder / "greenhouse.csv")
+        assert np.array_equal(from_server.pipeline.predict(typed),
+                              from_file.pipeline.predict(typed))

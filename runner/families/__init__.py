@@ -71,6 +71,11 @@ class Family:
     plural: str = "models"  # what its fitted models are called, e.g. "forests"
     explain_cost: float = 1.0  # a refit's rough cost, to start the slowest first
     tidy: Callable[[dict], None] | None = None  # drops what cannot matter, in place
+    coefficients: bool = False  # the fitted model has one coefficient per input column
+    unseen_category: str = "treated as a missing value"  # what its pipeline does with a
+    #                                                      category it never saw
+    saved_types: tuple[str, ...] = ()  # classes its saved pipelines hold beyond the shared
+    #                                    preprocessing (runner/model/artefact.py trusts them)
 
     @property
     def defaults(self) -> dict[str, Any]:
@@ -85,6 +90,26 @@ class Family:
     def estimators(self):
         """The module that builds and fits this family's estimators (imports scikit-learn)."""
         return load_family(self.name)
+
+    def fit_pipeline(self, params: dict, X, y, *, seed: int, numeric, categorical,
+                     task: str = "regression"):
+        """This cell's whole pipeline fitted on (X, y) with `seed`, exactly as the sweep
+        fits it; returns (pipeline, warnings raised while fitting)."""
+        import warnings
+
+        est = self.estimators.make_estimator(params, seed=seed, y_fit=y, numeric=numeric,
+                                             categorical=categorical, task=task)
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always")
+            est.fit(X, y)
+        return est, [str(w.message) for w in caught
+                     if not issubclass(w.category, (DeprecationWarning, FutureWarning))]
+
+    def prediction_columns(self, pipeline, X) -> dict:
+        """What a fitted pipeline of this family predicts for the rows X, as named columns:
+        `predicted` for numbers; for classes `predicted_class` (the most probable) and one
+        `probability_<class>` column per class."""
+        return self.estimators.prediction_columns(pipeline, X)
 
     def canonical(self, params: dict, task: str = "regression") -> dict:
         """Defaults filled (of the parameters that apply to `task`), parameters that cannot
@@ -157,6 +182,12 @@ FAMILIES: dict[str, Family] = {
         complexity_order=("penalty", "alpha"),
         path_params=("alpha",),
         importance="coefficient", readable=True, plural="linear models", tidy=_tidy_linear,
+        coefficients=True,
+        unseen_category="encoded with every indicator of the column 0, so no level's "
+        "coefficient applies",
+        saved_types=("sklearn.linear_model.LinearRegression", "sklearn.linear_model.Ridge",
+                     "sklearn.linear_model.Lasso", "sklearn.linear_model.ElasticNet",
+                     "sklearn.linear_model.LogisticRegression"),
     ),
     "pruned_tree": Family(
         name="pruned_tree",
@@ -179,6 +210,9 @@ FAMILIES: dict[str, Family] = {
                           "max_features"),
         path_params=("ccp_alpha", "ccp_fraction"),
         one_tree=True, readable=True, plural="trees", tidy=_tidy_tree,
+        unseen_category="treated as a missing value, which the tree routes as it learned to",
+        saved_types=("sklearn.tree.DecisionTreeRegressor", "sklearn.tree.DecisionTreeClassifier",
+                     "sklearn.tree._tree.Tree"),
     ),
     "forest": Family(
         name="forest",
@@ -202,6 +236,11 @@ FAMILIES: dict[str, Family] = {
         complexity_order=("min_samples_leaf", "max_features", "max_depth", "n_estimators"),
         path_params=("n_estimators",),
         plural="forests", explain_cost=3.0, tidy=_tidy_forest,
+        unseen_category="treated as a missing value, which each tree routes as it learned to",
+        saved_types=("sklearn.ensemble.RandomForestRegressor",
+                     "sklearn.ensemble.RandomForestClassifier",
+                     "sklearn.tree.DecisionTreeRegressor", "sklearn.tree.DecisionTreeClassifier",
+                     "sklearn.tree._tree.Tree"),
     ),
 }
 

@@ -21,8 +21,7 @@ from sklearn.pipeline import Pipeline
 from sklearn.preprocessing import OneHotEncoder, OrdinalEncoder, StandardScaler
 
 __all__ = ["CellFit", "tree_preprocessor", "linear_preprocessor", "fit_each", "fit_grouped",
-           "predict",
-           "path_groups", "work_units", "PLAIN"]
+           "predict", "path_groups", "work_units", "prediction_columns", "PLAIN"]
 
 PLAIN = "plain"
 """`CellFit.how` of a cell fitted on its own."""
@@ -63,6 +62,20 @@ def linear_preprocessor(numeric: list[str], categorical: list[str]) -> ColumnTra
             ("onehot", OneHotEncoder(handle_unknown="ignore", sparse_output=False))]),
             list(categorical)))
     return ColumnTransformer(parts, remainder="drop", sparse_threshold=0.0)
+
+
+def prediction_columns(pipeline, X) -> dict[str, np.ndarray]:
+    """A fitted pipeline's predictions for the rows X as named columns: `predicted` for a
+    regression pipeline; for a classifier `predicted_class` (the most probable class, as
+    `predict` gives it) and `probability_<class>` for each class, in `classes_` order."""
+    model = pipeline.steps[-1][1]
+    if not hasattr(model, "classes_"):
+        return {"predicted": np.asarray(pipeline.predict(X), dtype=np.float64)}
+    proba = pipeline.predict_proba(X)
+    out = {"predicted_class": model.classes_[np.argmax(proba, axis=1)]}
+    for k, label in enumerate(model.classes_):
+        out[f"probability_{label}"] = proba[:, k]
+    return out
 
 
 def _count_warnings(caught) -> int:

@@ -13,10 +13,12 @@ from sklearn.ensemble import RandomForestClassifier, RandomForestRegressor
 from sklearn.pipeline import Pipeline
 
 from ._readers import impurity_importance as own_importance
-from ._base import CellFit, fit_grouped, tree_preprocessor, work_units
+from ._base import (CellFit, fit_grouped, prediction_columns, tree_preprocessor,
+                    work_units)
 from .paths import forest_prefix_predictions
 
-__all__ = ["make_estimator", "fit_cells", "fit_units", "own_importance", "PATH_PARAMS"]
+__all__ = ["make_estimator", "fit_cells", "fit_units", "own_importance", "prediction_columns",
+           "PATH_PARAMS"]
 
 PATH_PARAMS = ("n_estimators",)
 

@@ -15,11 +15,15 @@ from sklearn.linear_model import ElasticNet, Lasso, LinearRegression, Ridge
 from sklearn.pipeline import Pipeline
 
 from ._readers import coefficient_importance as own_importance
-from ._base import CellFit, fit_grouped, linear_preprocessor, work_units
+from ._base import (CellFit, fit_grouped, linear_preprocessor, prediction_columns,
+                    work_units)
 from .paths import elastic_net_path_coefs, ridge_path_coefs
 
-__all__ = ["make_estimator", "fit_cells", "fit_units", "own_importance", "original_scale_coefficients",
-           "PATH_PARAMS"]
+__all__ = ["make_estimator", "fit_cells", "fit_units", "own_importance", "prediction_columns",
+           "original_scale_coefficients", "coefficient_rows", "INTERCEPT", "PATH_PARAMS"]
+
+INTERCEPT = "(intercept)"
+"""The `term` of the intercept's row in the coefficient tables."""
 
 PATH_PARAMS = ("alpha",)
 _CD_TOL, _CD_MAX_ITER = 1e-4, 1000  # Lasso's and ElasticNet's defaults
@@ -116,28 +120,69 @@ def fit_units(cells, *, paths=True):
                       cost_group=lambda group: 0.03 + 0.002 * len(group))
 
 
-def original_scale_coefficients(pipeline: Pipeline) -> tuple[dict[str, float], float]:
-    """Coefficients per numeric column in the data's own units, and the intercept.
+def coefficient_rows(pipeline: Pipeline) -> list[dict]:
+    """One row per term of the fitted linear model, signed, in the data's own units and on
+    the scale the model was fitted on.
 
-    Undoes the standardisation: b_j = w_j / scale_j and b_0 = w_0 - sum(w_j * mean_j / scale_j).
-    One-hot columns keep their coefficient (they are not scaled)."""
-    prep = pipeline.named_steps["prep"]
+    A numeric column j was median-imputed and standardised with mean m_j and scale s_j, and
+    the model holds w_j for it: `coefficient` = w_j / s_j (change in the target per unit of
+    the column), `standardised` = w_j (per standard deviation), `mean`/`scale` = m_j, s_j.
+    A category level's one-hot indicator is not scaled, so both numbers are its own
+    coefficient. The intercept on the original scale is w_0 - sum_j w_j m_j / s_j
+    (`standardised`: w_0, the prediction at every column's mean and every indicator 0).
+    A column imputation dropped (missing in every fitting row) has no term. For classes the
+    terms are those of the log-odds: `class_label` names the class whose score they make
+    (with two classes, the second: the log-odds of it against the first)."""
     model = pipeline.named_steps["model"]
-    coefs = np.asarray(model.coef_, dtype=float).ravel()
-    intercept = float(np.ravel(model.intercept_)[0])
-    out: dict[str, float] = {}
+    coefs = np.atleast_2d(np.asarray(model.coef_, dtype=float))
+    intercepts = np.atleast_1d(np.asarray(model.intercept_, dtype=float))
+    classes = getattr(model, "classes_", None)
+    if classes is None:
+        labels = [None]
+    else:
+        labels = [str(classes[1])] if len(coefs) == 1 else [str(c) for c in classes]
+    rows = []
+    for label, w, w0 in zip(labels, coefs, intercepts):
+        rows += [{**r, "class_label": label}
+                 for r in _terms(pipeline.named_steps["prep"], w, float(w0))]
+    return rows
+
+
+def _terms(prep, coefs: np.ndarray, fitted_intercept: float) -> list[dict]:
+    """The rows of one linear score (see coefficient_rows), intercept first."""
+    intercept = fitted_intercept
+    rows: list[dict] = []
     pos = 0
     for name, transformer, columns in prep.transformers_:
         if name == "num":
             scaler = transformer.named_steps["scale"]
             kept = transformer.named_steps["impute"].get_feature_names_out(columns)
             w = coefs[pos:pos + len(kept)]
-            b = w / scaler.scale_
             intercept -= float(np.sum(w * scaler.mean_ / scaler.scale_))
-            out.update(dict(zip(kept, b)))
+            for col, wj, m, sd in zip(kept, w, scaler.mean_, scaler.scale_):
+                rows.append({"term": str(col), "feature": str(col), "level": None,
+                             "coefficient": wj / sd, "standardised": wj, "mean": float(m),
+                             "scale": float(sd)})
             pos += len(kept)
         elif name == "cat":
-            names = transformer.get_feature_names_out(columns)
-            out.update(dict(zip(names, coefs[pos:pos + len(names)])))
-            pos += len(names)
-    return out, intercept
+            kept = transformer.named_steps["impute"].get_feature_names_out(columns)
+            onehot = transformer.named_steps["onehot"]
+            for col, levels in zip(kept, onehot.categories_):
+                for level in levels:
+                    rows.append({"term": f"{col}={level}", "feature": str(col),
+                                 "level": str(level), "coefficient": coefs[pos],
+                                 "standardised": coefs[pos], "mean": None, "scale": None})
+                    pos += 1
+    rows.insert(0, {"term": INTERCEPT, "feature": None, "level": None,
+                    "coefficient": float(intercept), "standardised": fitted_intercept,
+                    "mean": None, "scale": None})
+    return [{**r, "position": i, "coefficient": float(r["coefficient"]),
+             "standardised": float(r["standardised"])} for i, r in enumerate(rows)]
+
+
+def original_scale_coefficients(pipeline: Pipeline) -> tuple[dict[str, float], float]:
+    """Coefficients per term in the data's own units (`coefficient_rows`), and the intercept
+    (of the first class score, for classes)."""
+    every = coefficient_rows(pipeline)
+    rows = [r for r in every if r["class_label"] == every[0]["class_label"]]
+    return ({r["term"]: r["coefficient"] for r in rows[1:]}, rows[0]["coefficient"])

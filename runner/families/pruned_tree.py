@@ -19,10 +19,12 @@ from sklearn.tree import DecisionTreeClassifier, DecisionTreeRegressor
 
 from ._readers import impurity_importance as own_importance
 from ._readers import tree_node_rows, tree_shape
-from ._base import CellFit, fit_grouped, tree_preprocessor, work_units
+from ._base import (CellFit, fit_grouped, prediction_columns, tree_preprocessor,
+                    work_units)
 from .paths import pruned_tree_predictions, pruning_alphas
 
-__all__ = ["make_estimator", "fit_cells", "fit_units", "own_importance", "tree_shape",
+__all__ = ["make_estimator", "fit_cells", "fit_units", "own_importance", "prediction_columns",
+           "tree_shape",
            "tree_node_rows", "resolve_alpha", "pruning_path_alphas",
            "PATH_PARAMS"]
 

@@ -10,7 +10,7 @@ from dataclasses import dataclass, field
 import pandas as pd
 
 __all__ = ["SweepFacts", "Coverage", "Summary", "CellStats", "Picks", "ComplexityTable",
-           "Comparison", "Importances", "Stability"]
+           "Comparison", "Importances", "Stability", "Coefficients"]
 
 
 @dataclass(frozen=True)
@@ -163,4 +163,14 @@ class Stability:
     """One row per explained cell: how much its fitted model changes across folds."""
 
     facts: SweepFacts
+    table: pd.DataFrame
+
+
+@dataclass(frozen=True)
+class Coefficients:
+    """Signed coefficients, one row per term: of a sweep's explained linear cells, or of one
+    built model (`model_id`)."""
+
+    sweep_id: str
+    model_id: str | None
     table: pd.DataFrame

@@ -6,12 +6,15 @@ from __future__ import annotations
 
 from pathlib import Path
 
-__all__ = ["SCHEMA_VERSION", "DEFAULT_STORE", "TABLE_SQL", "VIEW_SQL", "TABLES",
-           "UPGRADE_COLUMNS"]
+__all__ = ["SCHEMA_VERSION", "DEFAULT_STORE", "TABLE_SQL", "VIEW_SQL", "TABLES", "MODEL_TABLES",
+           "SINCE", "UPGRADE_COLUMNS"]
 
 SCHEMA_VERSION = 3
 """2: cells.position keeps spec order explicit (a server table has no insertion order).
-3: classes: sweeps.task and .classes; tree_nodes.label; test_predictions of classes."""
+3: classes (sweeps.task and .classes, tree_nodes.label, test_predictions of classes), built
+models (`models`, `model_coefficients`) and the signed coefficients of explained linear
+cells (`coefficients`); new tables by `create table if not exists`, new columns by
+UPGRADE_COLUMNS."""
 DEFAULT_STORE = Path("results") / "foldwise.duckdb"
 
 TABLE_SQL = """
@@ -62,6 +65,23 @@ create table if not exists test_predictions (
 create table if not exists explained (
     sweep_id varchar, cell_id varchar, settings json, reused_from varchar,
     primary key (sweep_id, cell_id));
+-- signed coefficients of an explained linear cell's refit: in the data's units and per
+-- standard deviation, with the centring and scale used (families/linear.py); class_label
+-- is null for a regression model
+create table if not exists coefficients (
+    sweep_id varchar, cell_id varchar, class_label varchar, position integer, term varchar,
+    feature varchar, level varchar, coefficient double, standardised double, mean double,
+    scale double);
+-- built models (runner/model/): a picked cell fitted and saved, its card (JSON) and the
+-- artefact's bytes with their SHA-256; and a built linear model's coefficients
+create table if not exists models (
+    model_id varchar primary key, sweep_id varchar, cell_id varchar, model varchar,
+    family varchar, rule varchar, rows_used varchar, n_rows integer,
+    created_at timestamp, user_name varchar, host varchar, card json, artefact blob,
+    artefact_sha256 varchar, artefact_bytes bigint);
+create table if not exists model_coefficients (
+    model_id varchar, class_label varchar, position integer, term varchar, feature varchar,
+    level varchar, coefficient double, standardised double, mean double, scale double);
 """
 
 VIEW_SQL = """
@@ -74,9 +94,13 @@ from fold_scores f join cells c using (sweep_id, cell_id)
 group by all;
 """
 
+MODEL_TABLES = ("models", "model_coefficients")
+"""The tables of built models: keyed by model id, not by sweep (a model can be built on a
+sweep long after it ran, so a merge copies the models a store lacks by their id)."""
+
 TABLES = ("sweeps", "metrics", "cells", "fold_scores", "test_scores", "failures",
           "importances", "fold_importances", "tree_folds", "tree_nodes", "test_predictions",
-          "explained")
+          "explained", "coefficients") + MODEL_TABLES
 """Every table of results, in the order a copy must fill them."""
 
 UPGRADE_COLUMNS = (
@@ -87,3 +111,6 @@ UPGRADE_COLUMNS = (
 )
 """(table, column definition) added since a table was first created: an older store gains
 them on upgrade (idempotent: `add column if not exists`)."""
+
+SINCE = {"coefficients": 3, "models": 3, "model_coefficients": 3}
+"""The schema version that added a table: an export or store older than it lacks it."""

@@ -1,6 +1,7 @@
 """Moving results between stores: `export_store` writes every table of a store as files
 with a manifest, `merge_store` copies into a store every sweep another store (a file, a
-server or an export folder) holds and it lacks, whole and in one transaction."""
+server or an export folder) holds and it lacks, whole and in one transaction, and every
+built model it lacks whose sweep it then holds."""
 
 from __future__ import annotations
 
@@ -9,7 +10,7 @@ import os
 import shutil
 import tempfile
 from contextlib import contextmanager
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Iterator
 
@@ -18,7 +19,7 @@ import pandas as pd
 
 from ..errors import StoreError
 from . import Store
-from .schema import SCHEMA_VERSION, TABLES
+from .schema import MODEL_TABLES, SCHEMA_VERSION, SINCE, TABLES
 
 __all__ = ["export_store", "merge_store", "MergeResult", "EXPORT_FORMATS", "EXPORT_MANIFEST"]
 
@@ -34,6 +35,7 @@ class MergeResult:
     new_sweeps: list[str]
     present: list[str]
     running: list[str]
+    new_models: list[str] = field(default_factory=list)
 
 
 def export_store(store: Store, folder: str | Path, fmt: str = "parquet") -> dict[str, int]:
@@ -75,8 +77,9 @@ def export_store(store: Store, folder: str | Path, fmt: str = "parquet") -> dict
     return counts
 
 
-def _export_sources(folder: Path) -> dict[str, str]:
-    """SQL table expressions reading an export folder's files, after checking its manifest."""
+def _export_sources(folder: Path) -> dict[str, str | None]:
+    """SQL table expressions reading an export folder's files, after checking its manifest;
+    None for a table the export's foldwise did not have yet."""
     manifest_path = folder / EXPORT_MANIFEST
     try:
         manifest = json.loads(manifest_path.read_text())
@@ -90,6 +93,9 @@ def _export_sources(folder: Path) -> dict[str, str]:
     sources = {}
     for table in TABLES:
         path = folder / f"{table}.{fmt}"
+        if not path.exists() and SINCE.get(table, 0) > version:
+            sources[table] = None
+            continue
         if not path.exists():
             raise StoreError(f"export {folder} lacks {path.name}; export the store again.")
         reader = (f"read_parquet('{_sql_text(path)}')" if fmt == "parquet" else
@@ -103,7 +109,9 @@ def merge_store(store: Store, other: str | Path) -> MergeResult:
     folder) that it does not hold yet, with all of that sweep's rows, in one transaction.
 
     Sweeps already present (by sweep id) are skipped whole; sweeps still marked running are
-    left out, since their rows are not complete yet."""
+    left out, since their rows are not complete yet. Built models (`foldwise build`) this
+    store lacks are copied by model id when their sweep is here (already, or by this merge),
+    so a model built later on a sweep merged before still arrives."""
     from .locations import locate
 
     store.ensure_schema()
@@ -122,6 +130,11 @@ def merge_store(store: Store, other: str | Path) -> MergeResult:
         attach = where
         sources = {t: f"_other.{t}" for t in TABLES}
     with store._connect(read_only=False) as con, _attached(con, attach, other):
+        if attach is not None:  # an older store lacks the tables added since
+            theirs_tables = {t for (t,) in con.execute(
+                "select table_name from information_schema.tables "
+                "where table_catalog = '_other'").fetchall()}
+            sources = {t: s if t in theirs_tables else None for t, s in sources.items()}
         theirs = con.execute(f"select sweep_id, status from {sources['sweeps']}").df()
         mine = set(con.execute("select sweep_id from sweeps").df()["sweep_id"])
         present = sorted(s for s in theirs["sweep_id"] if s in mine)
@@ -129,26 +142,48 @@ def merge_store(store: Store, other: str | Path) -> MergeResult:
                                     & ~theirs["sweep_id"].isin(mine), "sweep_id"])
         new = sorted(set(theirs["sweep_id"]) - mine - set(running))
         rows = {t: 0 for t in TABLES}
-        if new:
-            con.register("_new_sweeps", pd.DataFrame({"sweep_id": new}))
-            con.execute("begin")
-            try:
+        con.register("_new_sweeps", pd.DataFrame({"sweep_id": new}, dtype=object))
+        con.execute("begin")
+        try:
+            if new:
                 rows["metrics"] = con.execute(
                     f"insert into metrics by name select * from {sources['metrics']} m "
                     "where m.metric not in (select metric from metrics)").fetchone()[0]
-                for table in TABLES:
-                    if table == "metrics":
-                        continue
-                    rows[table] = con.execute(
-                        f"insert into {table} by name select * from {sources[table]} s "
-                        "where s.sweep_id in (select sweep_id from _new_sweeps)"
-                    ).fetchone()[0]
-                con.execute("commit")
-            except duckdb.Error as exc:
-                con.execute("rollback")
-                raise StoreError(f"merging {other} into {store.path} failed, nothing was "
-                                 f"copied: {str(exc).splitlines()[0]}") from None
-    return MergeResult({t: int(n) for t, n in rows.items()}, new, present, running)
+            for table in TABLES:
+                if not new or table == "metrics" or table in MODEL_TABLES \
+                        or sources[table] is None:
+                    continue
+                rows[table] = con.execute(
+                    f"insert into {table} by name select * from {sources[table]} s "
+                    "where s.sweep_id in (select sweep_id from _new_sweeps)"
+                ).fetchone()[0]
+            models = _merge_models(con, sources, rows)
+            con.execute("commit")
+        except duckdb.Error as exc:
+            con.execute("rollback")
+            raise StoreError(f"merging {other} into {store.path} failed, nothing was "
+                             f"copied: {str(exc).splitlines()[0]}") from None
+    return MergeResult({t: int(n) for t, n in rows.items()}, new, present, running, models)
+
+
+def _merge_models(con, sources: dict, rows: dict) -> list[str]:
+    """Copy the built models this store lacks (by model id) whose sweep it holds by now,
+    with their coefficients; return their ids."""
+    if sources["models"] is None:
+        return []
+    ids = con.execute(f"""select s.model_id from {sources['models']} s
+        where s.model_id not in (select model_id from models)
+          and s.sweep_id in (select sweep_id from sweeps) order by 1""").fetchall()
+    ids = [str(i) for (i,) in ids]
+    if not ids:
+        return []
+    con.register("_new_models", pd.DataFrame({"model_id": ids}, dtype=object))
+    for table in MODEL_TABLES:
+        if sources[table] is not None:
+            rows[table] = con.execute(
+                f"insert into {table} by name select * from {sources[table]} s "
+                "where s.model_id in (select model_id from _new_models)").fetchone()[0]
+    return ids
 
 
 @contextmanager

@@ -20,6 +20,8 @@ For every chosen cell (by default each model's best and one-SE picks; the spec's
 - `tree_folds`: each pruned tree fold refit's leaves, depth, root split and used columns.
 - `tree_nodes`: the refit tree's nodes (for drawing it); `test_predictions`: the refit's
   predictions on the test rows (for predicted-against-observed plots).
+- `coefficients` (linear): the refit's signed coefficients, in the data's own units and
+  per standard deviation, and the intercept (`families/linear.py`, `coefficient_rows`).
 
 Fold refits use the plan's folds and seeds and the refit uses `refit_seed`, exactly as the
 sweep did, so a refit predicts what the sweep scored."""
@@ -27,14 +29,13 @@ sweep did, so a refit predicts what the sweep scored."""
 from __future__ import annotations
 
 import json
-import warnings
 from dataclasses import dataclass, field
 from typing import Callable
 
 import numpy as np
 import pandas as pd
 
-from ..families import FAMILIES, get_family, load_family
+from ..families import FAMILIES, get_family
 from ..metrics import METRICS
 from .prepare import prepare
 from .resampling import refit_seed
@@ -44,7 +45,7 @@ from ..store import Store
 __all__ = ["explain_sweep", "ExplainResult", "chosen_cells", "permutation_rows"]
 
 
-EXPLAIN_VERSION = "1"
+EXPLAIN_VERSION = "2"
 """Bumped whenever a change here would change stored explain rows; stops their reuse."""
 
 
@@ -72,11 +73,9 @@ def permutation_rows(pipeline, X_test, y_test, *, metric: str, repeats: int,
 
 # -- the tasks -----------------------------------------------------------------------------
 def _fit(family: str, params: dict, X, y, *, seed: int, numeric, categorical, task):
-    est = load_family(family).make_estimator(params, seed=seed, y_fit=y, numeric=numeric,
-                                             categorical=categorical, task=task)
-    with warnings.catch_warnings():  # the sweep has counted this fit's warnings already
-        warnings.simplefilter("ignore")
-        return est.fit(X, y)
+    # the sweep has counted this fit's warnings already
+    return FAMILIES[family].fit_pipeline(params, X, y, seed=seed, numeric=numeric,
+                                         categorical=categorical, task=task)[0]
 
 
 def _explain_call(data: dict, task) -> tuple[tuple, dict]:
@@ -128,6 +127,7 @@ def _refit_task(family, cell_id, params, X_train, y_train, X_test, y_test, test_
         own = fam.estimators.own_importance(est, X_train, features)
         predictions = _prediction_rows(est, X_test, y_test, test_rows, task)
         nodes = fam.estimators.tree_node_rows(est) if fam.one_tree else []
+        coefs = fam.estimators.coefficient_rows(est) if fam.coefficients else []
     except Exception as exc:
         return cell_id, {}, f"{cell_id} refit: {type(exc).__name__}: {exc}"
     imp = [{"cell_id": cell_id, "feature": f, "method": "permutation", "value": m, "spread": s}
@@ -136,7 +136,8 @@ def _refit_task(family, cell_id, params, X_train, y_train, X_test, y_test, test_
             for f, v in own.items()]
     rows = {"importances": imp,
             "test_predictions": [{"cell_id": cell_id, **p} for p in predictions],
-            "tree_nodes": [{"cell_id": cell_id, **n} for n in nodes]}
+            "tree_nodes": [{"cell_id": cell_id, **n} for n in nodes],
+            "coefficients": [{"cell_id": cell_id, **c} for c in coefs]}
     return cell_id, rows, None
 
 

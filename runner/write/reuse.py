@@ -13,7 +13,7 @@ from .resampling import REFIT
 __all__ = ["EXPLAIN_TABLES", "find_scores", "all_found", "copy_scores", "copy_explained"]
 
 EXPLAIN_TABLES = ("importances", "fold_importances", "tree_folds", "tree_nodes",
-                  "test_predictions")
+                  "test_predictions", "coefficients")
 """The tables the explain step fills for a cell (besides its `explained` mark)."""
 
 
