@@ -309,3 +309,31 @@ def test_a_model_is_built_listed_and_loaded_on_a_server(pg, demo_built, tmp_path
         typed, _, _ = type_features(X[names], cats, folder / "greenhouse.csv")
         assert np.array_equal(from_server.pipeline.predict(typed),
                               from_file.pipeline.predict(typed))
+
+
+def test_a_class_sweep_lands_on_a_server_as_on_a_file(pg, tmp_path):
+    """Class targets on the team store: the task, the classes and the refit's probabilities
+    (a list column) are stored and read back as on a DuckDB file."""
+    from runner.demo_grades import make_grades
+    from runner.read.queries import summary
+    from runner.write.engine import run_sweep
+    from runner.write.spec import load_spec
+
+    make_grades(150, seed=4).to_csv(tmp_path / "g.csv", index=False)
+    (tmp_path / "spec.yaml").write_text(
+        "name: g\ndata: {path: g.csv, target: grade}\ntest: {fraction: 0.25, seed: 1}\n"
+        "folds: {k: 3, repeats: 1, seed: 2}\nexplain: {permutation: {repeats: 1}}\nmodels:\n"
+        "  tree: {family: pruned_tree, grid: {ccp_fraction: [0.01, 0.05]}}\n")
+    spec = load_spec(tmp_path / "spec.yaml")
+    server = Store(pg.create_database("team_classes"))
+    on_server = run_sweep(spec, store=server, jobs=1)
+    on_file = run_sweep(load_spec(tmp_path / "spec.yaml"), store=Store(tmp_path / "f.duckdb"),
+                        jobs=1)
+    a, b = summary(server, on_server.sweep_id), summary(Store(tmp_path / "f.duckdb"),
+                                                        on_file.sweep_id)
+    assert a.facts.task == b.facts.task == "classification"
+    assert a.facts.classes == b.facts.classes == ("A", "B", "C")
+    pd.testing.assert_frame_equal(a.table, b.table, check_exact=False, rtol=1e-12)
+    q = "select probabilities from test_predictions order by cell_id, \"row\""
+    assert server.query(q)["probabilities"].map(list).tolist() == \
+        Store(tmp_path / "f.duckdb").query(q)["probabilities"].map(list).tolist()
