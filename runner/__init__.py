@@ -13,7 +13,8 @@ __all__ = ["__version__", "FoldwiseError", "SpecError", "DataError", "StoreError
            "Spec", "load_spec", "parse_spec", "spec_json_schema", "Store", "run_sweep",
            "check_spec", "summary", "pick_table", "compare_table", "complexity_table",
            "importance_table", "stability_table", "figure", "write_report", "merge_store",
-           "export_store"]
+           "export_store", "sweeps", "set_labels", "Selection", "diff_sweeps", "model_history",
+           "remove_sweeps"]
 
 
 # name -> (module, attribute), imported on first use so `import runner` stays light. Names
@@ -32,6 +33,10 @@ _LAZY = {
     "figure": ("read.plots", "make_figure"), "write_report": ("read.report", "write_report"),
     "merge_store": ("store.transfer", "merge_store"),
     "export_store": ("store.transfer", "export_store"),
+    "sweeps": ("read.queries", "sweeps"), "set_labels": ("store.labels", "set_labels"),
+    "Selection": ("store.labels", "Selection"), "diff_sweeps": ("read.past", "diff_sweeps"),
+    "model_history": ("read.past", "model_history"),
+    "remove_sweeps": ("store.tidy", "remove_sweeps"),
 }
 
 

@@ -11,7 +11,7 @@ import pandas as pd
 import pytest
 
 from runner.errors import StoreError
-from runner.store import TABLES, Store
+from runner.store import SCHEMA_VERSION, TABLES, Store
 from runner.store.transfer import export_store, merge_store
 
 
@@ -94,4 +94,5 @@ def test_a_store_of_schema_version_1_is_upgraded_keeping_spec_order(explained, t
     upgraded = Store(old.path)
     assert upgraded.query("select cell_id from cells order by position")["cell_id"].tolist() \
         == order
-    assert upgraded.query("select value from foldwise_meta")["value"].tolist() == ["2"]
+    assert upgraded.query("select value from foldwise_meta")["value"].tolist() == [
+        str(SCHEMA_VERSION)]

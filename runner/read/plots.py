@@ -31,7 +31,7 @@ from ..store import Store
 from .views import number, params_text, rule_label
 
 __all__ = ["KINDS", "PALETTE", "make_figure", "complexity_figure", "models_figure",
-           "importance_figure", "predictions_figure", "tree_figure", "save_figure",
+           "importance_figure", "predictions_figure", "tree_figure", "history_figure", "save_figure",
            "figure_svg", "model_colours", "write_plots"]
 
 PALETTE = ["#0072B2", "#E69F00", "#009E73", "#CC79A7", "#56B4E9", "#D55E00", "#F0E442",
@@ -399,10 +399,77 @@ def tree_figure(store: Store, sweep_id: str | None = None, *, rule: str | None =
     return fig
 
 
+# -- (f) a model's pick across sweeps ------------------------------------------------------
+def history_figure(store: Store, sweep_id: str | None = None, *, model: str | None = None,
+                   name: str | None = None, rule: str | None = None, se: str = "plain"):
+    """Each model's (or one model's) picked cell across the sweeps of one spec, oldest
+    left: CV mean ± SE joined by a line, the test score as a hollow diamond; a dashed rule
+    where the data changed, a dotted one where only the spec did, and for one model the
+    new cell written where the pick changed (lines gid 'data_changed', 'spec_changed')."""
+    from .past import model_history
+
+    if name is None and sweep_id is not None:
+        name = sweep_facts(store, sweep_id).name
+    result = model_history(store, model, name=name, rule=rule, se=se)
+    table = result.table
+    facts = sweep_facts(store, table["sweep_id"].iloc[-1])
+    sweeps = list(dict.fromkeys(table["sweep_id"]))
+    where = {sid: i for i, sid in enumerate(sweeps)}
+    order = model_order(store, facts.sweep_id)
+    colours = {m: PALETTE[(order.index(m) if m in order else len(order) + i) % len(PALETTE)]
+               for i, m in enumerate(result.models)}
+    firsts = table.drop_duplicates("sweep_id")
+    with _style():
+        fig = _figure(min(16.0, max(6.5, 0.5 * len(sweeps) + 2.8)), 4.6)
+        ax = fig.add_subplot()
+        for r in firsts.itertuples(index=False):
+            x = where[r.sweep_id] - 0.5
+            if r.data_changed or r.spec_changed:
+                kind = "data" if r.data_changed else "spec"
+                ax.axvline(x, color=MUTED if kind == "data" else FAINT, linewidth=1,
+                           linestyle="--" if kind == "data" else ":", zorder=1,
+                           gid=f"{kind}_changed")
+                ax.text(x, 1.0, f" {kind} changed", transform=ax.get_xaxis_transform(),
+                        rotation=90, va="top", ha="right", fontsize=7, color=MUTED)
+        for i, m in enumerate(result.models):
+            rows = table[(table["model"] == m) & table["mean"].notna()]
+            x = rows["sweep_id"].map(where).to_numpy(float) + (i - (len(result.models) - 1)
+                                                                / 2) * 0.08
+            col = colours[m]
+            ax.errorbar(x, rows["mean"], yerr=rows["se"], color=col, marker="o", markersize=4.5,
+                        linewidth=1.4, capsize=2.5, zorder=3, label=f"{m}: CV mean ± 1 SE")
+            if rows["test"].notna().any():
+                ax.plot(x, rows["test"], linestyle="none", marker="D", markersize=5,
+                        markerfacecolor="white", markeredgecolor=col, markeredgewidth=1.2,
+                        zorder=4, label=f"{m}: test split")
+            if len(result.models) == 1:
+                for xi, r in zip(x, rows.itertuples(index=False)):
+                    if r.pick_changed or xi == x[0]:
+                        ax.annotate(textwrap.shorten(params_text(r.params, hide=get_family(
+                            r.family).defaults), 40, placeholder="…"), (xi, r.mean),
+                            xytext=(0, 9), textcoords="offset points", ha="center",
+                            fontsize=7, color=INK)
+        ticks = [f"{pd.Timestamp(t):%Y-%m-%d}\n{pd.Timestamp(t):%H:%M} ·{safe_component(s)[-4:]}"
+                 for t, s in zip(firsts["started_at"], firsts["sweep_id"])]
+        step = max(1, math.ceil(len(sweeps) / 16))
+        ax.set_xticks(range(0, len(sweeps), step), ticks[::step], fontsize=7.5)
+        ax.set_xlim(-0.6, len(sweeps) - 0.4)
+        ax.set_xlabel("sweeps of the spec, oldest left (start time · end of sweep id)")
+        ax.set_ylabel(get_metric(result.metric).axis_label(facts.target))
+        who = result.models[0] if len(result.models) == 1 else "each model"
+        rule_text = "each sweep's rule" if result.rule is None else \
+            f"the {rule_label(result.rule)} rule"
+        _headline(fig, f"How has {who}'s pick moved across the sweeps of '{result.name}'?",
+                  f"cell picked under {rule_text} in each of {len(sweeps)} sweeps; "
+                  f"{metric_label(result.metric)} ({result.better} is better), {result.se} SE")
+        fig.legend(loc="outside lower center", ncols=min(4, 2 * len(result.models)))
+    return fig
+
+
 # -- registry and files --------------------------------------------------------------------
 KINDS = {"complexity": complexity_figure, "models": models_figure,
          "importance": importance_figure, "predictions": predictions_figure,
-         "tree": tree_figure}
+         "tree": tree_figure, "history": history_figure}
 """Every figure kind by name."""
 
 
@@ -414,7 +481,7 @@ def make_figure(kind: str, store: Store, sweep_id: str | None = None, **options)
 
 
 def write_plots(kind: str, store: Store, out_dir: str | Path, sweep_id: str | None = None, *,
-                model: str | None = None, rule: str | None = None,
+                model: str | None = None, name: str | None = None, rule: str | None = None,
                 method: str = "permutation", depth: int = 3, se: str = "plain",
                 formats=("png", "svg")) -> list[Path]:
     """Draw one kind of figure of a sweep into `out_dir` and return the files written:
@@ -435,6 +502,11 @@ def write_plots(kind: str, store: Store, out_dir: str | Path, sweep_id: str | No
         jobs = [(dict(model=m, se=se), f"{kind}-{names[m]}") for m in models]
     elif kind == "tree":
         jobs = [(dict(rule=rule, model=model, depth=depth), kind)]
+    elif kind == "history":
+        name = name or sweep_facts(store, sid).name
+        stem = safe_names([name, *([model] if model else [])])
+        jobs = [(dict(model=model, name=name, rule=rule, se=se),
+                 f"{kind}-{stem[name]}" + (f"-{stem[model]}" if model else ""))]
     elif kind == "importance":
         jobs = [(dict(rule=rule, method=method), f"{kind}-{safe_component(method)}")]
     else:

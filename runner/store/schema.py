@@ -6,10 +6,13 @@ from __future__ import annotations
 
 from pathlib import Path
 
-__all__ = ["SCHEMA_VERSION", "DEFAULT_STORE", "TABLE_SQL", "VIEW_SQL", "TABLES"]
+__all__ = ["SCHEMA_VERSION", "DEFAULT_STORE", "TABLE_SQL", "COLUMN_SQL", "VIEW_SQL", "TABLES"]
 
-SCHEMA_VERSION = 2
-"""2: cells.position keeps spec order explicit (a server table has no insertion order)."""
+SCHEMA_VERSION = 3
+"""2: cells.position keeps spec order explicit (a server table has no insertion order).
+3: sweep_labels (a sweep's key=value labels), sweeps.note (free text) and sweeps.plan (the
+plan's identity as JSON: test split, k, repeats, seed), so two sweeps' folds can be told
+equal or not."""
 DEFAULT_STORE = Path("results") / "foldwise.duckdb"
 
 TABLE_SQL = """
@@ -20,7 +23,9 @@ create table if not exists sweeps (
     n_train integer, n_test integer, k integer, repeats integer, plan_seed bigint,
     metrics varchar, pick_rule varchar, started_at timestamp, finished_at timestamp,
     status varchar, versions json, host varchar, user_name varchar, pid integer,
-    n_reused integer);
+    n_reused integer, note varchar, plan json);
+create table if not exists sweep_labels (
+    sweep_id varchar, key varchar, value varchar, primary key (sweep_id, key));
 create table if not exists metrics (metric varchar primary key, better varchar);
 create table if not exists cells (
     sweep_id varchar, cell_id varchar, model varchar, family varchar, params json,
@@ -61,6 +66,13 @@ create table if not exists explained (
     primary key (sweep_id, cell_id));
 """
 
+COLUMN_SQL = """
+alter table sweeps add column if not exists note varchar;
+alter table sweeps add column if not exists plan json;
+"""
+"""Columns added to existing tables since they were first made; every statement may run
+again (and in any order with other upgrades) without harm."""
+
 VIEW_SQL = """
 create or replace view cell_summary as
 select f.sweep_id, f.cell_id, c.model, c.family, c.params, c.complexity_rank, f.metric,
@@ -71,7 +83,7 @@ from fold_scores f join cells c using (sweep_id, cell_id)
 group by all;
 """
 
-TABLES = ("sweeps", "metrics", "cells", "fold_scores", "test_scores", "failures",
+TABLES = ("sweeps", "sweep_labels", "metrics", "cells", "fold_scores", "test_scores", "failures",
           "importances", "fold_importances", "tree_folds", "tree_nodes", "test_predictions",
           "explained")
 """Every table of results, in the order a copy must fill them."""
