@@ -564,13 +564,14 @@ def remove(sweep_ids, store_path, labels, name, status, older_than, dry_run, yes
     """
     from .read.queries import process_alive, sweep_rows, sweeps as read_sweeps
     from .read.views import removal_view
-    from .store.tidy import remove_sweeps
+    from .store.tidy import check_rights, remove_sweeps
 
     chosen = _selection(sweep_ids, labels, name, status, older_than)
     if chosen.empty:
         raise click.UsageError("name the sweeps to remove, or give --label, --name, --status "
                                "or --older-than; `foldwise sweeps` lists them.")
     store = _open_store(store_path)
+    check_rights(store)
     if sweep_ids:
         chosen = _selection([store.resolve_sweep(x) for x in sweep_ids], labels, name,
                             status, older_than)

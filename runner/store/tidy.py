@@ -15,10 +15,20 @@ from typing import Callable
 from ..errors import StoreError
 from .schema import TABLES
 
-__all__ = ["remove_sweeps", "SWEEP_TABLES"]
+__all__ = ["remove_sweeps", "check_rights", "SWEEP_TABLES"]
 
 SWEEP_TABLES = tuple(t for t in TABLES if t != "metrics")
 """Every table whose rows belong to one sweep (all but the shared `metrics`)."""
+
+
+def check_rights(store) -> None:
+    """Refuse, before anything is listed or changed, a team-store role that may not delete
+    rows from every foldwise table; a store file needs nothing."""
+    store._require()
+    store._check_version()
+    store.require_privileges([(t, "DELETE") for t in SWEEP_TABLES], doing="remove sweeps",
+                             needs="`remove` needs DELETE on every foldwise table",
+                             grant="foldwise_keeper", changed="removed")
 
 
 def remove_sweeps(store, sweep_ids: list[str], *,
@@ -31,11 +41,7 @@ def remove_sweeps(store, sweep_ids: list[str], *,
     ids = list(dict.fromkeys(sweep_ids))
     if not ids:
         return {t: 0 for t in SWEEP_TABLES}
-    store._require()
-    store._check_version()
-    store.require_privileges([(t, "DELETE") for t in SWEEP_TABLES], doing="remove sweeps",
-                             needs="`remove` needs DELETE on every foldwise table",
-                             grant="foldwise_keeper", changed="removed")
+    check_rights(store)
     host = socket.gethostname()
 
     def work(con):
