@@ -292,6 +292,34 @@ def test_removal_by_status_spares_running_sweeps(store, base):
     assert sweeps(store).table["sweep_id"].tolist() == [second]
 
 
+def test_a_rerun_whose_source_is_removed_meanwhile_fits_what_vanished(base, tmp_path,
+                                                                         monkeypatch):
+    """The rows a rerun found are removed before it copies them: it fits those cells
+    instead, and its scores equal the removed sweep's (same folds and seeds)."""
+    import runner.write.engine as engine
+
+    folder, _, first, _ = base
+    shutil.copy(base[1].path, tmp_path / "s.duckdb")
+    store = Store(tmp_path / "s.duckdb")
+    expected = store.query("""select c.model, c.params, f."repeat", f.fold, f.metric, f.value
+                              from fold_scores f join cells c using (sweep_id, cell_id)
+                              where sweep_id = ? order by all""", [first])
+    found_then_removed = engine.find_scores
+
+    def meanwhile(store_, prep, *, fresh):
+        found = found_then_removed(store_, prep, fresh=fresh)
+        remove_sweeps(store_, [s for s in sweeps(store_).table["sweep_id"]])
+        return found
+
+    monkeypatch.setattr(engine, "find_scores", meanwhile)
+    again = run_sweep(spec_from(folder, MODELS), store=store, jobs=1)
+    assert (again.n_reused, again.n_fitted, again.n_fold_rows) == (0, 6, 108)
+    got = store.query("""select c.model, c.params, f."repeat", f.fold, f.metric, f.value
+                         from fold_scores f join cells c using (sweep_id, cell_id)
+                         where sweep_id = ? order by all""", [again.sweep_id])
+    pd.testing.assert_frame_equal(got, expected, check_exact=False, rtol=1e-12)
+
+
 # -- sharing a part ------------------------------------------------------------------------
 def test_labels_and_notes_survive_export_and_merge_row_for_row(store, base, tmp_path):
     export_store(store, tmp_path / "all")
