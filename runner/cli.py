@@ -167,6 +167,9 @@ def run(spec_file, store_path, jobs, force_jobs, quiet, paths, fresh, cluster, l
         click.echo(f"nothing recorded: sweep {result.sweep_id}, the latest of spec "
                    f"'{spec.name}', finished with the same spec text and data, and the store "
                    "holds every cell (drop --if-changed to record a new sweep anyway).")
+        if labels or note is not None:
+            click.echo(f"the labels and note given were not recorded; `foldwise label --sweep "
+                       f"{result.sweep_id} ...` puts them on that sweep.", err=True)
         if not quiet:
             _print_summary(store, result.sweep_id, "table")
         return
@@ -322,9 +325,9 @@ def label(labels, store_path, sweep_id, drop, note, fmt):
 def sql(query, store_path, fmt, allow_files):
     """Run one read-only SQL query against the store; it cannot change anything.
 
-    One SELECT (or WITH, DESCRIBE, SUMMARIZE, plain EXPLAIN). Tables: sweeps, cells,
-    fold_scores, test_scores, failures, importances, metrics, fold_importances, tree_folds,
-    tree_nodes, test_predictions; view: cell_summary.
+    One SELECT (or WITH, DESCRIBE, SUMMARIZE, plain EXPLAIN). Tables: sweeps, sweep_labels,
+    cells, fold_scores, test_scores, failures, importances, metrics, fold_importances,
+    tree_folds, tree_nodes, test_predictions, explained; view: cell_summary.
 
     \b
       foldwise sql "select model, metric, avg(value) from fold_scores join cells using (sweep_id, cell_id) group by all"

@@ -128,6 +128,24 @@ def test_sweeps_filters_by_label_name_status_and_age(store, base):
     assert row["sweep_id"] == second and row["labels"] == {"purpose": "tuned"}
 
 
+def test_an_unchanged_rerun_with_if_changed_records_nothing(store, base):
+    folder, _, _, second = base
+    before = sweeps(store).table["sweep_id"].tolist()
+    same = run_sweep(spec_from(folder, CHANGED, name="b.yaml"), store=store, jobs=1,
+                     if_changed=True)
+    assert (same.status, same.sweep_id, same.n_fold_rows) == ("unchanged", second, 108)
+    assert sweeps(store).table["sweep_id"].tolist() == before
+    other = run_sweep(spec_from(folder, MODELS, name="a.yaml"), store=store, jobs=1,
+                      if_changed=True)  # the latest sweep ran the other grid: record it
+    assert other.status == "finished" and other.n_reused == 6
+    assert sweeps(store).table["sweep_id"].tolist() == [other.sweep_id, *before]
+    out = invoke("run", folder / "a.yaml", "--if-changed", "--quiet", "--label", "x=y",
+                 "--store", store.path)
+    assert out.output.startswith(f"nothing recorded: sweep {other.sweep_id}, the latest")
+    assert "the labels and note given were not recorded" in out.output
+    assert len(sweeps(store).table) == 3
+
+
 # -- diff ----------------------------------------------------------------------------------
 def _reference_pair(store, first, second, cell_a, cell_b):
     """The corrected resampled t-test (Nadeau & Bengio 2003) of b − a, with numpy and
