@@ -18,7 +18,8 @@ __all__ = ["emit", "FORMATS"]
 FORMATS = ("table", "csv", "json")
 
 
-JSON_COLUMNS = ("params", "versions", "settings", "card", "labels", "plan")
+JSON_COLUMNS = ("params", "versions", "settings", "card", "labels", "plan", "params_a",
+                "params_b")
 """Columns that hold JSON text in the store; JSON output gives them as objects."""
 
 

@@ -177,6 +177,9 @@ def _with_pairs(store: Store, table: pd.DataFrame, a: str, b: str, metric: str,
                 test.mean, test.se, test.t, test.df, test.p]
     tested = table["p_value"].notna()
     table.loc[tested, "p_holm"] = holm(table.loc[tested, "p_value"].astype(float).tolist())
+    for col in ("folds", "df", "wins_a", "wins_b", "ties"):  # counts: whole numbers or None
+        table[col] = pd.Series([None if v != v else int(v) for v in table[col]],
+                               index=table.index, dtype=object)
     return table.reset_index()
 
 
