@@ -88,9 +88,10 @@ def one_sweep(store: Store, sweep_id: str) -> dict:
             **{k: int(v or 0) for k, v in text.items()}}
 
 
-def server_sizes(file_store: Store) -> tuple[int, dict[str, int], float]:
+def server_sizes(file_store: Store) -> tuple[int, dict[str, int], float, float]:
     """Merge the file's sweeps into a new PostgreSQL database: (bytes over an empty
-    database, bytes per table with indexes, seconds the merge took)."""
+    database, bytes per table with indexes, seconds the merge took, seconds removing half
+    of the sweeps took)."""
     from tests.pg_server import start_server
 
     server = start_server()
@@ -108,7 +109,10 @@ def server_sizes(file_store: Store) -> tuple[int, dict[str, int], float]:
         for table in TABLES:
             tables[table] = int(server.psql(f"select pg_total_relation_size('{table}')",
                                             "sized"))
-        return total - empty, tables, seconds
+        ids = list_sweeps(Store(url)).table["sweep_id"].tolist()
+        began = time.perf_counter()
+        remove_sweeps(Store(url), ids[: len(ids) // 2])
+        return total - empty, tables, seconds, time.perf_counter() - began
     finally:
         server.stop()
 
@@ -138,7 +142,7 @@ def main() -> None:
         last = list_sweeps(store).table["sweep_id"].iloc[0]
         per_table = table_files(store, work)
         first_rows, copy_rows = one_sweep(store, first.sweep_id), one_sweep(store, last)
-        server_total, server_tables, merge_seconds = server_sizes(store)
+        server_total, server_tables, merge_seconds, server_remove = server_sizes(store)
 
         print(f"\n{n} sweeps of specs/greenhouse.yaml: the first fitted every cell in "
               f"{fit_seconds:.0f} s, each rerun copied everything in {rerun_seconds:.1f} s; "
@@ -168,7 +172,8 @@ def main() -> None:
         export_store(store, work / "export")
         compact = Store(work / "compact.duckdb")
         merge_store(compact, work / "export")
-        print(f"\nremoving {len(removed)} sweeps took {remove_seconds:.1f} s; the file then "
+        print(f"\nremoving {len(removed)} sweeps took {remove_seconds:.1f} s on the file, "
+              f"{server_remove:.1f} s on PostgreSQL; the file then "
               f"weighs {after_remove / MiB:.1f} MiB (DuckDB reuses the freed blocks, it "
               f"does not shrink the file); exported and merged into a new file: "
               f"{file_size(compact.path) / MiB:.1f} MiB")

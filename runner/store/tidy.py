@@ -55,9 +55,10 @@ def remove_sweeps(store, sweep_ids: list[str], *,
                              "anything else. Wait until it finishes, or stop it; a sweep "
                              "whose process is gone counts as interrupted and can be removed.")
         counts = {}
-        for table in reversed(SWEEP_TABLES):  # the sweep's own row last
-            counts[table] = sum(int(con.execute(f"delete from {table} where sweep_id = ?",
-                                                [sid]).fetchone()[0]) for sid in ids)
+        for table in reversed(SWEEP_TABLES):  # the sweeps' own rows last
+            counts[table] = int(con.execute(
+                f"delete from {table} where sweep_id in (select unnest(?::varchar[]))",
+                [ids]).fetchone()[0])
         return counts
 
     counts = store._transaction(work, what="removing sweeps")
