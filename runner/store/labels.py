@@ -17,7 +17,7 @@ import pandas as pd
 
 from ..errors import StoreError
 
-__all__ = ["Selection", "parse_label", "parse_labels", "check_labels", "check_note",
+__all__ = ["Selection", "parse_label", "parse_labels", "check_labels", "check_key", "check_note",
            "parse_age", "resolve_ids", "set_labels", "STATUSES", "MAX_NOTE", "MAX_VALUE"]
 
 KEY = re.compile(r"[A-Za-z0-9][A-Za-z0-9_.\-]{0,63}")
@@ -33,11 +33,11 @@ _AGE_UNITS = {"h": timedelta(hours=1), "d": timedelta(days=1), "w": timedelta(we
 def _check_text(text: str, what: str, limit: int, *, lines: bool = False) -> str:
     if not isinstance(text, str):
         raise StoreError(f"{what} must be text, got {type(text).__name__}.")
-    bad = _CONTROL.search(text.replace("\t", " ") if lines else text) or (
-        not lines and "\n" in text)
-    if bad:
-        raise StoreError(f"{what} holds a control character (such as a line break or an "
-                         "escape); write it as plain text on one line.")
+    if _CONTROL.search(text) or (not lines and ("\n" in text or "\t" in text)):
+        allowed = "line breaks and tabs are the only ones a note may hold" if lines else \
+            "write it as plain text on one line"
+        raise StoreError(f"{what} holds a control character (such as an escape, a carriage "
+                         f"return or, in a label, a line break); {allowed}.")
     if len(text) > limit:
         raise StoreError(f"{what} is {len(text)} characters long; the limit is {limit}. "
                          "Shorten it (a note can point to a longer document).")
@@ -75,6 +75,13 @@ def check_labels(labels: dict) -> dict[str, str]:
             raise StoreError(f"label {key} has an empty value; give one (KEY=VALUE), or "
                              f"remove the label with --drop {key}.")
     return dict(labels)
+
+
+def check_key(key: str) -> str:
+    """A label key as given, refused (as `check_labels` does) unless it is a plain name."""
+    if not KEY.fullmatch(key):
+        check_labels({key: "x"})
+    return key
 
 
 def check_note(note: str | None) -> str | None:
@@ -177,12 +184,6 @@ class Selection:
             clauses.append(f"{sweeps}.started_at < ?")
             params.append(self.before)
         return " and ".join(clauses), params
-
-
-def check_key(key: str) -> str:
-    if not KEY.fullmatch(key):
-        check_labels({key: "x"})
-    return key
 
 
 def set_labels(store, sweep_id: str, labels: dict[str, str] | None = None, *,
