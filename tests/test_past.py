@@ -136,8 +136,11 @@ def test_an_unchanged_rerun_with_if_changed_records_nothing(store, base):
     assert (same.status, same.sweep_id, same.n_fold_rows) == ("unchanged", second, 108)
     assert sweeps(store).table["sweep_id"].tolist() == before
     other = run_sweep(spec_from(folder, MODELS, name="a.yaml"), store=store, jobs=1,
-                      if_changed=True)  # the latest sweep ran the other grid: record it
-    assert other.status == "finished" and other.n_reused == 6
+                      if_changed=True, labels={"purpose": "check"}, note="rerun")
+    assert other.status == "finished" and other.n_reused == 6  # the latest ran the other grid
+    assert store.query("select key, value, note from sweep_labels join sweeps using "
+                       "(sweep_id) where sweep_id = ?", [other.sweep_id]).values.tolist() == [
+        ["purpose", "check", "rerun"]]
     assert sweeps(store).table["sweep_id"].tolist() == [other.sweep_id, *before]
     out = invoke("run", folder / "a.yaml", "--if-changed", "--quiet", "--label", "x=y",
                  "--store", store.path)

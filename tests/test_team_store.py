@@ -301,5 +301,5 @@ def test_reading_a_team_store_being_created_says_so(pg, file_copy):
     with pytest.raises(StoreError, match="being created"):
         sweeps(Store(url))
     _cli("merge", str(file_copy.path), "--store", url, env=pg.env())  # another process
-    assert len(sweeps(Store(url))) == 3
+    assert len(sweeps(Store(url)).table) == 3
     assert Store(url).user_query("select count(*) as n from sweeps").n[0] == 3
