@@ -16,7 +16,8 @@ __all__ = ["__version__", "FoldwiseError", "SpecError", "DataError", "StoreError
            "check_spec", "summary", "pick_table", "compare_table", "complexity_table",
            "importance_table", "stability_table", "figure", "write_report", "merge_store",
            "export_store", "build_model", "load_model", "predict_file", "fetch_model",
-           "built_models", "coefficient_table"]
+           "built_models", "coefficient_table", "sweeps", "set_labels", "Selection",
+           "diff_sweeps", "model_history", "remove_sweeps"]
 
 
 # name -> (module, attribute), imported on first use so `import runner` stays light. Names
@@ -40,6 +41,10 @@ _LAZY = {
     "fetch_model": ("model.keep", "fetch_model"),
     "built_models": ("read.queries", "built_models"),
     "coefficient_table": ("read.queries", "coefficient_table"),
+    "sweeps": ("read.queries", "sweeps"), "set_labels": ("store.labels", "set_labels"),
+    "Selection": ("store.labels", "Selection"), "diff_sweeps": ("read.past", "diff_sweeps"),
+    "model_history": ("read.past", "model_history"),
+    "remove_sweeps": ("store.tidy", "remove_sweeps"),
 }
 
 

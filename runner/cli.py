@@ -117,7 +117,14 @@ def check(spec_file, lift_limits):
               help="Run the tasks on a Dask cluster: a scheduler's tcp://HOST:PORT, or "
                    "local:N to start N worker processes here [default: local processes].")
 @_lift_option
-def run(spec_file, store_path, jobs, force_jobs, quiet, paths, fresh, cluster, lift_limits):
+@click.option("--note", default=None, help="A free-text note on what this sweep is for.")
+@click.option("--label", "labels", multiple=True, metavar="KEY=VALUE",
+              help="A label for the sweep, e.g. data=2026-11; repeat for more.")
+@click.option("--if-changed", is_flag=True,
+              help="Record nothing if the latest sweep of this spec name finished with the "
+                   "same spec text and data (every cell stored); say so and show it.")
+def run(spec_file, store_path, jobs, force_jobs, quiet, paths, fresh, cluster, lift_limits,
+        note, labels, if_changed):
     """Run a sweep: score every cell on every fold and on the test split.
 
     \b
@@ -127,6 +134,7 @@ def run(spec_file, store_path, jobs, force_jobs, quiet, paths, fresh, cluster, l
       foldwise run specs/greenhouse.yaml --fresh
       foldwise run specs/greenhouse.yaml --cluster tcp://scheduler:8786
       foldwise run specs/greenhouse.yaml --store postgresql://ana@db.internal/results
+      foldwise run specs/greenhouse.yaml --label data=2026-11 --note "new sensor feed"
 
     Cells whose results the store already holds (same family, params, data and plan) are
     copied into the new sweep instead of refitted, so a rerun after a crash or a grid change
@@ -138,6 +146,9 @@ def run(spec_file, store_path, jobs, force_jobs, quiet, paths, fresh, cluster, l
     def say(message: str) -> None:
         click.echo(message, err=True)
 
+    from .store.labels import check_note, parse_labels
+
+    labels, note = parse_labels(labels), check_note(note)
     spec = load_spec(spec_file)  # before the engine's imports: a hostile spec costs little
     from .write.engine import run_sweep, store_path as spec_store
     from .store import Store
@@ -147,10 +158,21 @@ def run(spec_file, store_path, jobs, force_jobs, quiet, paths, fresh, cluster, l
     try:
         result = run_sweep(spec, store=store, jobs=jobs, progress=bar, paths=paths, fresh=fresh,
                            cluster=cluster, on_message=say, lift_limits=lift_limits,
-                           force_jobs=force_jobs)
+                           force_jobs=force_jobs, note=note, labels=labels,
+                           if_changed=if_changed)
     finally:
         if bar is not None:
             bar.close()
+    if result.status == "unchanged":
+        click.echo(f"nothing recorded: sweep {result.sweep_id}, the latest of spec "
+                   f"'{spec.name}', finished with the same spec text and data, and the store "
+                   "holds every cell (drop --if-changed to record a new sweep anyway).")
+        if labels or note is not None:
+            click.echo(f"the labels and note given were not recorded; `foldwise label --sweep "
+                       f"{result.sweep_id} ...` puts them on that sweep.", err=True)
+        if not quiet:
+            _print_summary(store, result.sweep_id, "table")
+        return
     reused = f" ({result.n_reused} reused from earlier sweeps)" if result.n_reused else ""
     click.echo(f"sweep {result.sweep_id} {result.status} in {result.seconds:.1f} s: "
                f"{result.n_cells} cells{reused}, {result.n_fold_rows} fold-score rows, "
@@ -192,7 +214,8 @@ def _show(result, view, fmt) -> None:
     """Print a result: its view as a table, or its exact table as CSV or JSON; remarks go
     to stderr, so that CSV and JSON stay clean."""
     emit(result.table, fmt, view=view)
-    for note in (view.notes if fmt == "table" else view.caveats + view.notes):
+    for note in (view.notes if fmt == "table" else
+                 view.preface + view.caveats + view.notes):
         click.echo(note, err=True)
 
 
@@ -218,18 +241,78 @@ def summary(store_path, sweep_id, fmt):
     _print_summary(_open_store(store_path), sweep_id, fmt)
 
 
+_STATUSES = ("finished", "failed", "interrupted", "running")
+
+
+def _selection_options(f):
+    """--label, --name, --status and --older-than: which sweeps a command means."""
+    for option in reversed([
+            click.option("--label", "labels", multiple=True, metavar="KEY[=VALUE]",
+                         help="Only sweeps with this label (any value if no =VALUE); "
+                              "repeat: all must hold."),
+            click.option("--name", default=None, help="Only sweeps of this spec name."),
+            click.option("--status", type=click.Choice(_STATUSES), default=None,
+                         help="Only sweeps that ended so (a dead running sweep is "
+                              "interrupted)."),
+            click.option("--older-than", metavar="AGE", default=None,
+                         help="Only sweeps started longer ago than AGE: 12h, 30d, 6w.")]):
+        f = option(f)
+    return f
+
+
+def _selection(ids=(), labels=(), name=None, status=None, older_than=None):
+    from .store.labels import Selection
+
+    return Selection.of(ids=ids, labels=labels, name=name, status=status,
+                        older_than=older_than)
+
+
 @main.command()
 @_store_option
+@_selection_options
 @_format_option
-def sweeps(store_path, fmt):
-    """List the sweeps in the store, newest first.
+def sweeps(store_path, labels, name, status, older_than, fmt):
+    """List the sweeps in the store, newest first, with their labels and notes.
 
     \b
       foldwise sweeps
+      foldwise sweeps --label purpose=baseline --name greenhouse-yield
+      foldwise sweeps --status interrupted --older-than 30d
     """
-    from .read.queries import sweeps as sweeps_df
+    from .read.queries import sweeps as read_sweeps
+    from .read.views import sweeps_view
 
-    emit(sweeps_df(_open_store(store_path)), fmt, title="sweeps")
+    result = read_sweeps(_open_store(store_path), _selection((), labels, name, status,
+                                                             older_than))
+    _show(result, sweeps_view(result), fmt)
+
+
+@main.command()
+@click.argument("labels", nargs=-1, metavar="[KEY=VALUE]...")
+@_store_option
+@click.option("--sweep", "sweep_id", default=None,
+              help="Sweep id or unique prefix [default: latest].")
+@click.option("--drop", multiple=True, metavar="KEY", help="Remove this label; repeatable.")
+@click.option("--note", default=None, help="Replace the sweep's note ('' clears it).")
+@_format_option
+def label(labels, store_path, sweep_id, drop, note, fmt):
+    """Add or change a sweep's labels and note (all at once); with none given, show them.
+
+    \b
+      foldwise label purpose=baseline data=2026-11
+      foldwise label --sweep 20261202 --drop purpose --note "grid too coarse; see the next"
+      foldwise label --sweep 20261202
+    """
+    from .read.queries import sweeps as read_sweeps
+    from .read.views import sweeps_view
+    from .store.labels import Selection, parse_labels, set_labels
+
+    store = _open_store(store_path)
+    sid = store.resolve_sweep(sweep_id)
+    if labels or drop or note is not None:
+        set_labels(store, sid, parse_labels(labels), drop=drop, note=note)
+    result = read_sweeps(store, Selection(ids=(sid,)))
+    _show(result, sweeps_view(result, f"sweep {sid}"), fmt)
 
 
 @main.command()
@@ -242,10 +325,10 @@ def sweeps(store_path, fmt):
 def sql(query, store_path, fmt, allow_files):
     """Run one read-only SQL query against the store; it cannot change anything.
 
-    One SELECT (or WITH, DESCRIBE, SUMMARIZE, plain EXPLAIN). Tables: sweeps, cells,
-    fold_scores, test_scores, failures, importances, metrics, fold_importances, tree_folds,
-    tree_nodes, test_predictions, coefficients, models, model_coefficients; view:
-    cell_summary.
+    One SELECT (or WITH, DESCRIBE, SUMMARIZE, plain EXPLAIN). Tables: sweeps, sweep_labels,
+    cells, fold_scores, test_scores, failures, importances, metrics, fold_importances,
+    tree_folds, tree_nodes, test_predictions, explained, coefficients, models,
+    model_coefficients; view: cell_summary.
 
     \b
       foldwise sql "select model, metric, avg(value) from fold_scores join cells using (sweep_id, cell_id) group by all"
@@ -255,10 +338,17 @@ def sql(query, store_path, fmt, allow_files):
 
 
 # -- moving results between stores ---------------------------------------------------------
+def _sweeps_option(f):
+    return click.option("--sweep", "sweep_ids", multiple=True, metavar="ID",
+                        help="Only this sweep (id or unique prefix); repeatable.")(f)
+
+
 @main.command()
 @click.argument("other")
 @_store_option
-def merge(other, store_path):
+@_sweeps_option
+@_selection_options
+def merge(other, store_path, sweep_ids, labels, name, status, older_than):
     """Copy every sweep of another store into this one, skipping sweeps it already holds.
 
     OTHER is a store file, a team store's postgresql:// URL, or a folder written by
@@ -268,11 +358,14 @@ def merge(other, store_path):
     \b
       foldwise merge ~/laptop-results.duckdb --store postgresql://ana@db.internal/results
       foldwise merge shared/exports/2026-12
+      foldwise merge ~/laptop-results.duckdb --label purpose=baseline
+
+    --sweep, --label, --name, --status and --older-than choose among OTHER's sweeps.
     """
     from .store.transfer import merge_store
 
     store = _open_store(store_path)
-    result = merge_store(store, other)
+    result = merge_store(store, other, _selection(sweep_ids, labels, name, status, older_than))
     copied = {t: n for t, n in result.rows.items() if n}
     click.echo(f"merged {len(result.new_sweeps)} sweep(s) from {other} into {store.path}"
                + (": " + ", ".join(f"{n} {t}" for t, n in copied.items()) if copied else "")
@@ -289,17 +382,24 @@ def merge(other, store_path):
 @click.option("--format", "fmt", type=click.Choice(["parquet", "csv"]), default="parquet",
               show_default=True, help="One file per table in this format.")
 @_store_option
-def export(folder, fmt, store_path):
+@_sweeps_option
+@_selection_options
+def export(folder, fmt, store_path, sweep_ids, labels, name, status, older_than):
     """Write every table of the store into FOLDER, one file per table, with a manifest;
-    `foldwise merge FOLDER` reads it back into any store.
+    `foldwise merge FOLDER` reads it back into any store. --sweep, --label, --name,
+    --status and --older-than write only the sweeps they name.
 
     \b
       foldwise export shared/exports/2026-12
       foldwise export out/ --format csv
+      foldwise export shared/baseline --label purpose=baseline
     """
     from .store.transfer import export_store
 
-    counts = export_store(_open_store(store_path), folder, fmt)
+    store = _open_store(store_path)
+    ids = [store.resolve_sweep(s) for s in sweep_ids]
+    counts = export_store(store, folder, fmt, _selection(ids, labels, name, status,
+                                                         older_than))
     click.echo(f"exported {sum(counts.values())} rows in {len(counts)} tables to {folder} "
                f"({fmt}).")
 
@@ -389,9 +489,116 @@ def path(model, store_path, sweep_id, metric, se, fmt):
     _show(result, complexity_view(result), fmt)
 
 
+# -- the record of past sweeps --------------------------------------------------------------
+@main.command()
+@click.argument("sweep_a", required=False)
+@click.argument("sweep_b", required=False)
+@_store_option
+@_se_option
+@_format_option
+def diff(sweep_a, sweep_b, store_path, se, fmt):
+    """Show what changed between two sweeps: spec text, data, plan, versions, labels, and
+    per model the picked cell and its scores, paired fold by fold when the folds are the
+    same rows.
+
+    With no sweep given, the latest sweep against the one of its spec name before it; with
+    one, that sweep against its predecessor; with two, the change from A to B.
+
+    \b
+      foldwise diff
+      foldwise diff 20261202-0931
+      foldwise diff 20261101 20261202 --format csv
+    """
+    from .read.past import diff_sweeps
+    from .read.views import diff_view
+
+    result = diff_sweeps(_open_store(store_path), sweep_a, sweep_b, se=se)
+    _show(result, diff_view(result), fmt)
+
+
+@main.command()
+@click.option("--model", default=None, help="The model label to follow.")
+@click.option("--family", default=None,
+              help="Follow every model of this family instead (linear, pruned_tree, forest).")
+@click.option("--name", default=None,
+              help="The spec name whose sweeps to read [default: the latest sweep's].")
+@click.option("--rule", type=click.Choice(_RULES), default=None,
+              help="Pick rule in every sweep [default: each sweep's own].")
+@click.option("--metric", default=None,
+              help="Pick and show by this metric [default: the latest sweep's first].")
+@_store_option
+@_se_option
+@_format_option
+def history(model, family, name, rule, metric, store_path, se, fmt):
+    """Follow one model's pick across every sweep of a spec, oldest first: the picked cell,
+    CV mean ± SE and test score, and where the data, spec or pick changed.
+    `foldwise plot history --model M` draws it.
+
+    \b
+      foldwise history --model tree
+      foldwise history --family linear --name greenhouse-yield --format csv
+    """
+    from .read.past import model_history
+    from .read.views import history_view
+
+    if model is None and family is None:
+        raise click.UsageError("give --model LABEL or --family FAMILY.")
+    result = model_history(_open_store(store_path), model, name=name, family=family,
+                           rule=rule, se=se, metric=metric)
+    _show(result, history_view(result), fmt)
+
+
+@main.command()
+@click.argument("sweep_ids", nargs=-1, metavar="[SWEEP]...")
+@_store_option
+@_selection_options
+@click.option("--dry-run", is_flag=True, help="Show what would be removed and stop.")
+@click.option("--yes", "-y", is_flag=True, help="Remove without asking (for scripts).")
+def remove(sweep_ids, store_path, labels, name, status, older_than, dry_run, yes):
+    """Remove sweeps and every row they hold, all in one transaction: the sweeps named, or
+    those every filter given matches. Shows them first and asks before removing.
+
+    \b
+      foldwise remove 20261202-0931
+      foldwise remove --status interrupted --dry-run
+      foldwise remove --label purpose=scratch --older-than 30d --yes
+
+    Rows a later sweep reused are its own copies, so removing the sweep that first computed
+    them leaves every other sweep whole. A sweep still running is never removed.
+    """
+    from .read.queries import process_alive, sweep_rows, sweeps as read_sweeps
+    from .read.views import removal_view
+    from .store.tidy import check_rights, remove_sweeps
+
+    chosen = _selection(sweep_ids, labels, name, status, older_than)
+    if chosen.empty:
+        raise click.UsageError("name the sweeps to remove, or give --label, --name, --status "
+                               "or --older-than; `foldwise sweeps` lists them.")
+    store = _open_store(store_path)
+    check_rights(store)
+    if sweep_ids:
+        chosen = _selection([store.resolve_sweep(x) for x in sweep_ids], labels, name,
+                            status, older_than)
+    found = read_sweeps(store, chosen)
+    if found.table.empty:
+        click.echo(f"no sweep matches {chosen.describe()}; nothing removed.")
+        return
+    ids = found.table["sweep_id"].tolist()
+    emit(found.table, "table", view=removal_view(found, sweep_rows(store, ids)))
+    if dry_run:
+        click.echo("dry run: nothing removed.")
+        return
+    if not yes and not click.confirm(f"Remove {len(ids)} sweep(s)?", default=False, err=True):
+        click.echo("nothing removed.")
+        return
+    removed = remove_sweeps(store, ids, alive=process_alive)
+    click.echo(f"removed {len(ids)} sweep(s) and {sum(removed.values())} rows from "
+               f"{store.path}.")
+
+
 # -- figures and the report ----------------------------------------------------------------
 _PLOT_KINDS = ("complexity", "models", "importance", "predictions", "tree", "calibration",
-               "roc")
+               "roc", "history")
 _IMPORTANCE_METHODS = ("permutation", "impurity", "coefficient")
 
 
@@ -401,7 +608,11 @@ _IMPORTANCE_METHODS = ("permutation", "impurity", "coefficient")
 @_sweep_option
 @click.option("--model", default=None,
               help="complexity: only this model [default: one figure per model]; tree: this "
-                   "pruned_tree model [default: the first].")
+                   "pruned_tree model [default: the first]; history: this model [default: "
+                   "every model].")
+@click.option("--name", default=None,
+              help="history: the spec name whose sweeps to draw [default: the latest "
+                   "sweep's].")
 @click.option("--rule", type=click.Choice(_RULES), default=None,
               help="Which picked cell stands for each model [default: the sweep's rule].")
 @click.option("--method", type=click.Choice(_IMPORTANCE_METHODS), default="permutation",
@@ -413,13 +624,13 @@ _IMPORTANCE_METHODS = ("permutation", "impurity", "coefficient")
               show_default=True, help="Folder for the image files (created if missing).")
 @click.option("--image", "images", type=click.Choice(("png", "svg")), multiple=True,
               help="Image format; repeat for both [default: png and svg].")
-def plot(kind, store_path, sweep_id, model, rule, method, depth, se, out_dir, images):
+def plot(kind, store_path, sweep_id, model, name, rule, method, depth, se, out_dir, images):
     """Draw one kind of figure of a sweep to PNG and SVG files and print their paths.
 
     Kinds: complexity (CV error against complexity, picks and one-SE threshold), models
     (fold scores of each model's picked cell), importance, predictions (test split, a
-    numeric target), calibration and roc (test split, a class target) and tree (the
-    picked pruned tree).
+    numeric target), calibration and roc (test split, a class target), tree (the picked
+    pruned tree) and history (each model's pick across the sweeps of a spec).
 
     \b
       foldwise plot models
@@ -428,10 +639,12 @@ def plot(kind, store_path, sweep_id, model, rule, method, depth, se, out_dir, im
     """
     from .read.figures import write_plots
 
-    if model is not None and kind not in ("complexity", "tree"):
-        raise click.UsageError("--model is only for the complexity and tree kinds.")
+    if model is not None and kind not in ("complexity", "tree", "history"):
+        raise click.UsageError("--model is only for the complexity, tree and history kinds.")
+    if name is not None and kind != "history":
+        raise click.UsageError("--name is only for the history kind.")
     for path in write_plots(kind, _open_store(store_path), out_dir, sweep_id, model=model,
-                            rule=rule, method=method, depth=depth, se=se,
+                            name=name, rule=rule, method=method, depth=depth, se=se,
                             formats=images or ("png", "svg")):
         click.echo(str(path))
 

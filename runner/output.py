@@ -18,7 +18,8 @@ __all__ = ["emit", "FORMATS"]
 FORMATS = ("table", "csv", "json")
 
 
-JSON_COLUMNS = ("params", "versions", "settings", "card")
+JSON_COLUMNS = ("params", "versions", "settings", "card", "labels", "plan", "params_a",
+                "params_b")
 """Columns that hold JSON text in the store; JSON output gives them as objects."""
 
 
@@ -79,6 +80,7 @@ def emit(df: pd.DataFrame, fmt: str, *, view: View | None = None, title: str | N
     import pandas as pd
     from rich.console import Console
     from rich.table import Table
+    from rich.text import Text
 
     from .read.views import number
 
@@ -90,9 +92,12 @@ def emit(df: pd.DataFrame, fmt: str, *, view: View | None = None, title: str | N
     for col in shown.columns:
         table.add_column(str(col), justify="right" if col in right else "left",
                          overflow="fold")
-    for row in shown.itertuples(index=False):
-        table.add_row(*[number(v) if isinstance(v, float) else ("" if v is None else str(v))
-                        for v in row])
+    for row in shown.itertuples(index=False):  # as Text: stored words are never markup
+        table.add_row(*[Text(number(v) if isinstance(v, float) else
+                             ("" if v is None else str(v))) for v in row])
+    if view is not None:
+        for line in view.preface:
+            out.write(f"{line}\n")
     Console(file=out, width=_width(out)).print(table)
     if view is not None:
         for line in view.sentences:

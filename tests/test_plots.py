@@ -15,7 +15,7 @@ from runner.read.figures import KINDS, make_figure
 from runner.read.plots import complexity_figure, models_figure, save_figure
 
 OPTIONS = {"complexity": {"model": "tree"}, "models": {}, "importance": {},
-           "predictions": {}, "tree": {"depth": 2}}
+           "predictions": {}, "tree": {"depth": 2}, "history": {"model": "ridge"}}
 
 
 @pytest.mark.parametrize("kind", sorted(OPTIONS))
@@ -76,4 +76,4 @@ def test_plot_command_writes_files_and_prints_paths(explained, tmp_path):
     assert all((tmp_path / p.rsplit("/", 1)[-1]).stat().st_size > 0 for p in paths)
     out = CliRunner().invoke(main, ["plot", "models", "--model", "tree", "--store",
                                     str(store.path)])
-    assert out.exit_code == 2 and "--model is only for the complexity and tree kinds" in out.output
+    assert out.exit_code == 2 and "--model is only for the complexity, tree and history" in out.output

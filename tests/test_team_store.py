@@ -204,13 +204,13 @@ def roles(team, file_copy, tmp_path_factory):
     pg.psql(_readme_roles_sql("team_roles"), "team_roles")
     passfile = tmp_path_factory.mktemp("roles") / "pgpass"
     lines = [pg.passfile.read_text().strip()]
-    for role in ("ana", "ben"):
+    for role in ("ana", "ben", "cy"):
         secret = f"{role}-{pg.password}"
         pg.psql(f"alter role {role} password '{secret}'")
         lines.append(f"127.0.0.1:{pg.port}:*:{role}:{secret}")
     passfile.write_text("\n".join(lines) + "\n")
     passfile.chmod(0o600)
-    urls = {role: url.replace(f"//{pg.user}@", f"//{role}@") for role in ("ana", "ben")}
+    urls = {role: url.replace(f"//{pg.user}@", f"//{role}@") for role in ("ana", "ben", "cy")}
     return pg, url, urls, {**pg.env(), "PGPASSFILE": str(passfile)}
 
 
@@ -261,6 +261,32 @@ def test_a_writer_role_runs_a_sweep(roles, tmp_path, diabetes_csv):
                    "desc limit 1", "team_roles") == "t|finished"
 
 
+def test_labels_need_a_writer_and_removal_a_keeper(roles):
+    pg, owner, urls, env = roles
+    sweep = Store(owner).query("select min(sweep_id) s from sweeps").s[0]
+    before = _counts(pg, "team_roles")
+    out = _cli("label", "purpose=x", "--sweep", sweep, "--store", urls["ben"], env=env,
+               check=False)
+    assert out.returncode == 2 and out.stderr.startswith("Error: role ben may read"), out.stderr
+    assert "lacks DELETE on sweep_labels; INSERT on sweep_labels" in out.stderr
+    assert "Nothing was changed." in out.stderr
+    _cli("label", "purpose=x", "--note", "kept for the audit", "--sweep", sweep, "--store",
+         urls["ana"], env=env)
+    assert pg.psql(f"select key || '=' || value || ';' || note from sweep_labels join sweeps "
+                   f"using (sweep_id) where sweep_id = '{sweep}'", "team_roles") == \
+        "purpose=x;kept for the audit"
+    out = _cli("remove", sweep, "--yes", "--store", urls["ana"], env=env, check=False)
+    assert out.returncode == 2 and "lacks DELETE on cells, explained, " in out.stderr
+    assert out.stdout == ""  # refused before the sweeps to remove are even listed
+    assert "grant foldwise_keeper to ana" in out.stderr and "Nothing was removed" in out.stderr
+    assert _counts(pg, "team_roles") == before
+    _cli("remove", sweep, "--yes", "--store", urls["cy"], env=env)
+    assert pg.psql(f"select count(*) from fold_scores where sweep_id = '{sweep}'",
+                   "team_roles") == "0"
+    assert pg.psql(f"select count(*) from sweep_labels where sweep_id = '{sweep}'",
+                   "team_roles") == "0"
+
+
 # -- a store being created ------------------------------------------------------------------
 def test_reading_a_team_store_being_created_says_so(pg, file_copy):
     """A reader that meets an empty database (a first sweep still creating the tables) is
@@ -275,7 +301,7 @@ def test_reading_a_team_store_being_created_says_so(pg, file_copy):
     with pytest.raises(StoreError, match="being created"):
         sweeps(Store(url))
     _cli("merge", str(file_copy.path), "--store", url, env=pg.env())  # another process
-    assert len(sweeps(Store(url))) == 3
+    assert len(sweeps(Store(url)).table) == 3
     assert Store(url).user_query("select count(*) as n from sweeps").n[0] == 3
 
 

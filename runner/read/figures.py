@@ -9,16 +9,17 @@ from ..errors import QueryError
 from ..store import Store
 from .class_figures import calibration_figure, roc_figure
 from .filenames import safe_component, safe_names
-from .plots import (complexity_figure, importance_figure, models_figure, predictions_figure,
-                    save_figure, tree_figure)
-from .queries import model_order
+from .plots import (complexity_figure, history_figure, importance_figure, models_figure,
+                    predictions_figure, save_figure, tree_figure)
+from .queries import model_order, sweep_facts
 
 __all__ = ["KINDS", "make_figure", "write_plots"]
 
 
 KINDS = {"complexity": complexity_figure, "models": models_figure,
          "importance": importance_figure, "predictions": predictions_figure,
-         "tree": tree_figure, "calibration": calibration_figure, "roc": roc_figure}
+         "tree": tree_figure, "calibration": calibration_figure, "roc": roc_figure,
+         "history": history_figure}
 """Every figure kind by name."""
 
 
@@ -30,7 +31,7 @@ def make_figure(kind: str, store: Store, sweep_id: str | None = None, **options)
 
 
 def write_plots(kind: str, store: Store, out_dir: str | Path, sweep_id: str | None = None, *,
-                model: str | None = None, rule: str | None = None,
+                model: str | None = None, name: str | None = None, rule: str | None = None,
                 method: str = "permutation", depth: int = 3, se: str = "plain",
                 formats=("png", "svg")) -> list[Path]:
     """Draw one kind of figure of a sweep into `out_dir` and return the files written:
@@ -51,6 +52,11 @@ def write_plots(kind: str, store: Store, out_dir: str | Path, sweep_id: str | No
         jobs = [(dict(model=m, se=se), f"{kind}-{names[m]}") for m in models]
     elif kind == "tree":
         jobs = [(dict(rule=rule, model=model, depth=depth), kind)]
+    elif kind == "history":
+        name = name or sweep_facts(store, sid).name
+        stem = safe_names([name, *([model] if model else [])])
+        jobs = [(dict(model=model, name=name, rule=rule, se=se),
+                 f"{kind}-{stem[name]}" + (f"-{stem[model]}" if model else ""))]
     elif kind == "importance":
         jobs = [(dict(rule=rule, method=method), f"{kind}-{safe_component(method)}")]
     else:

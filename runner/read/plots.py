@@ -21,7 +21,7 @@ import pandas as pd
 
 from ..errors import QueryError
 from ..families import get_family
-from .filenames import inside
+from .filenames import inside, safe_component
 from ..metrics import get_metric, metric_label
 from .picks import check_rule
 from .queries import (complexity_table, importance_table, model_order, picked_fold_scores,
@@ -31,7 +31,8 @@ from ..store import Store
 from .views import number, params_text, rule_label
 
 __all__ = ["PALETTE", "complexity_figure", "models_figure", "importance_figure",
-           "predictions_figure", "tree_figure", "save_figure", "figure_svg", "model_colours"]
+           "predictions_figure", "tree_figure", "history_figure", "save_figure", "figure_svg",
+           "model_colours"]
 
 PALETTE = ["#0072B2", "#E69F00", "#009E73", "#CC79A7", "#56B4E9", "#D55E00", "#F0E442",
            "#000000"]
@@ -400,6 +401,73 @@ def tree_figure(store: Store, sweep_id: str | None = None, *, rule: str | None =
         _headline(fig, f"How does {pick['model']} split the rows?",
                   f"{rule_label(pick['rule'])} cell refit on all training rows, {total_leaves} leaves "
                   f"({shown}); 'yes' follows the condition; shade and 'mean': mean {target}")
+    return fig
+
+
+# -- (f) a model's pick across sweeps ------------------------------------------------------
+def history_figure(store: Store, sweep_id: str | None = None, *, model: str | None = None,
+                   name: str | None = None, rule: str | None = None, se: str = "plain"):
+    """Each model's (or one model's) picked cell across the sweeps of one spec, oldest
+    left: CV mean ± SE joined by a line, the test score as a hollow diamond; a dashed rule
+    where the data changed, a dotted one where only the spec did, and for one model the
+    new cell written where the pick changed (lines gid 'data_changed', 'spec_changed')."""
+    from .past import model_history
+
+    if name is None and sweep_id is not None:
+        name = sweep_facts(store, sweep_id).name
+    result = model_history(store, model, name=name, rule=rule, se=se)
+    table = result.table
+    facts = sweep_facts(store, table["sweep_id"].iloc[-1])
+    sweeps = list(dict.fromkeys(table["sweep_id"]))
+    where = {sid: i for i, sid in enumerate(sweeps)}
+    order = model_order(store, facts.sweep_id)
+    colours = {m: PALETTE[(order.index(m) if m in order else len(order) + i) % len(PALETTE)]
+               for i, m in enumerate(result.models)}
+    firsts = table.drop_duplicates("sweep_id")
+    with _style():
+        fig = _figure(min(16.0, max(6.5, 0.5 * len(sweeps) + 2.8)), 4.6)
+        ax = fig.add_subplot()
+        for r in firsts.itertuples(index=False):
+            x = where[r.sweep_id] - 0.5
+            if r.data_changed or r.spec_changed:
+                kind = "data" if r.data_changed else "spec"
+                ax.axvline(x, color=MUTED if kind == "data" else FAINT, linewidth=1,
+                           linestyle="--" if kind == "data" else ":", zorder=1,
+                           gid=f"{kind}_changed")
+                ax.text(x, 1.0, f" {kind} changed", transform=ax.get_xaxis_transform(),
+                        rotation=90, va="top", ha="right", fontsize=7, color=MUTED)
+        for i, m in enumerate(result.models):
+            rows = table[(table["model"] == m) & table["mean"].notna()]
+            x = rows["sweep_id"].map(where).to_numpy(float) + (i - (len(result.models) - 1)
+                                                                / 2) * 0.08
+            col = colours[m]
+            ax.errorbar(x, rows["mean"], yerr=rows["se"], color=col, marker="o", markersize=4.5,
+                        linewidth=1.4, capsize=2.5, zorder=3, label=f"{m}: CV mean ± 1 SE")
+            if rows["test"].notna().any():
+                ax.plot(x, rows["test"], linestyle="none", marker="D", markersize=5,
+                        markerfacecolor="white", markeredgecolor=col, markeredgewidth=1.2,
+                        zorder=4, label=f"{m}: test split")
+            if len(result.models) == 1:
+                for xi, r in zip(x, rows.itertuples(index=False)):
+                    if r.pick_changed or xi == x[0]:
+                        ax.annotate(textwrap.shorten(params_text(r.params, hide=get_family(
+                            r.family).defaults), 40, placeholder="…"), (xi, r.mean),
+                            xytext=(0, 9), textcoords="offset points", ha="center",
+                            fontsize=7, color=INK)
+        ticks = [f"{pd.Timestamp(t):%Y-%m-%d}\n{pd.Timestamp(t):%H:%M} ·{safe_component(s)[-4:]}"
+                 for t, s in zip(firsts["started_at"], firsts["sweep_id"])]
+        step = max(1, math.ceil(len(sweeps) / 16))
+        ax.set_xticks(range(0, len(sweeps), step), ticks[::step], fontsize=7.5)
+        ax.set_xlim(-0.6, len(sweeps) - 0.4)
+        ax.set_xlabel("sweeps of the spec, oldest left (start time · end of sweep id)")
+        ax.set_ylabel(get_metric(result.metric).axis_label(facts.target))
+        who = result.models[0] if len(result.models) == 1 else "each model"
+        rule_text = "each sweep's rule" if result.rule is None else \
+            f"the {rule_label(result.rule)} rule"
+        _headline(fig, f"How has {who}'s pick moved across the sweeps of '{result.name}'?",
+                  f"cell picked under {rule_text} in each of {len(sweeps)} sweeps; "
+                  f"{metric_label(result.metric)} ({result.better} is better), {result.se} SE")
+        fig.legend(loc="outside lower center", ncols=min(4, 2 * len(result.models)))
     return fig
 
 

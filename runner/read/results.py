@@ -10,7 +10,8 @@ from dataclasses import dataclass, field
 import pandas as pd
 
 __all__ = ["SweepFacts", "Coverage", "Summary", "CellStats", "Picks", "ComplexityTable",
-           "Comparison", "Importances", "Stability", "Coefficients"]
+           "Comparison", "Importances", "Stability", "Coefficients", "SweepList", "SweepDiff",
+           "ModelHistory"]
 
 
 @dataclass(frozen=True)
@@ -173,4 +174,55 @@ class Coefficients:
 
     sweep_id: str
     model_id: str | None
+    table: pd.DataFrame
+
+
+@dataclass(frozen=True)
+class SweepList:
+    """One row per sweep (newest first) with its size, status, labels (JSON text) and note;
+    `selection` says in words which sweeps were asked for."""
+
+    selection: str
+    table: pd.DataFrame
+
+
+@dataclass(frozen=True)
+class SweepDiff:
+    """What changed from sweep `a` to sweep `b`: spec text, data, plan, versions, labels,
+    then per model the cell each sweep picks under its own rule and how its scores moved.
+
+    `a` and `b` are the sweeps' stored records (plus `labels`). `table` has one row per
+    model (spec order of b, then models only a has): each side's cell, CV mean ± SE and
+    test score, the change b − a, and — when `paired` — the corrected resampled t-test
+    of the per-fold differences (folds, mean_diff, se, t, df, p_value, p_holm, wins)."""
+
+    a: dict
+    b: dict
+    spec_diff: tuple[str, ...]  # unified diff lines of the spec text; () when the same
+    data_same: bool
+    plan_same: bool | None  # None: not recorded for an older sweep, and no shared cell
+    versions: dict  # package -> (a, b), changed ones only
+    labels: dict  # key -> (a, b), changed ones only (None where absent)
+    metric: str | None  # the metric compared (None: the sweeps pick by different metrics)
+    better: str
+    se: str
+    paired: bool
+    not_paired: str  # why the folds are not paired ('' when paired)
+    shared_cells: int
+    table: pd.DataFrame
+    varying: dict = field(default_factory=dict)  # model -> params its grid varies (either)
+
+
+@dataclass(frozen=True)
+class ModelHistory:
+    """One model (or every model of a family) across the sweeps of one spec name, oldest
+    first: per sweep and model the cell its rule picks, CV mean ± SE and test score, and
+    whether the data or the spec changed since the sweep before."""
+
+    name: str
+    models: tuple[str, ...]
+    metric: str
+    better: str
+    se: str
+    rule: str | None  # None: each sweep's own rule
     table: pd.DataFrame

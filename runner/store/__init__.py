@@ -116,6 +116,23 @@ class Store:
             finally:
                 self._held = None
 
+    @contextmanager
+    def reading(self) -> Iterator["Store"]:
+        """Hold one read-only connection for a burst of queries (a diff or a history asks
+        dozens), then let go; on a file, writers wait meanwhile, so keep it short. Inside
+        it, nothing may be written."""
+        if self._held is not None:
+            yield self
+            return
+        self._require()
+        self._check_version()
+        with self._connect(read_only=True) as con:
+            self._held = con
+            try:
+                yield self
+            finally:
+                self._held = None
+
     def check_writable(self) -> None:
         """Raise a StoreError unless this store can be created or written here."""
         self.location.check_writable()
@@ -163,9 +180,8 @@ class Store:
             con.execute("alter table cells add column position integer")
             con.execute("update cells set position = rowid")
         con.execute(TABLE_SQL)
-        if found is not None:  # columns later versions added to existing tables
-            for table, column in UPGRADE_COLUMNS:
-                con.execute(f"alter table {table} add column if not exists {column}")
+        for table, column in UPGRADE_COLUMNS:  # columns added to tables since first made
+            con.execute(f"alter table {table} add column if not exists {column}")
         if not self.location.shared:  # a server's view lives in each connection
             con.execute(VIEW_SQL)
         con.execute("insert or replace into foldwise_meta values ('schema_version', ?)",
@@ -225,29 +241,43 @@ class Store:
         (INSERT on every table, UPDATE on sweeps and cells); checked once per store."""
         if not self.location.shared or self._privileges_checked:
             return
-        pairs = ", ".join(f"('{t}', '{p}')" for t, p in self._WRITES)
+        self.require_privileges(self._WRITES, doing="write sweeps into it", con=con,
+                                needs="`run` and `merge` need INSERT on every foldwise table "
+                                      "and UPDATE on sweeps and cells",
+                                grant="foldwise_writer", changed="written")
+        self._privileges_checked = True
+
+    def require_privileges(self, wanted: list[tuple[str, str]], *, doing: str, needs: str,
+                           grant: str, changed: str, con=None) -> None:
+        """On a server, raise a StoreError naming what this role lacks of `wanted`
+        ((table, privilege) pairs) before anything changes; nothing to check on a file."""
+        if not self.location.shared:
+            return
+        if con is None:
+            with self._connect(read_only=True) as con:
+                return self.require_privileges(wanted, doing=doing, needs=needs, grant=grant,
+                                               changed=changed, con=con)
+        pairs = ", ".join(f"('{t}', '{p}')" for t, p in wanted)
         missing = con.execute(f"""select * from postgres_query('{self.location.alias}', $$
             select current_user::text as role, w.p as privilege, w.t as table_name
             from (values {pairs}) as w(t, p)
             where not has_table_privilege(quote_ident(current_schema()) || '.' ||
                                           quote_ident(w.t), w.p)
             order by 2, 3 $$)""").fetchall()
-        if missing:
-            role = missing[0][0]
-            lacks = []
-            for privilege in dict.fromkeys(p for _, p, _ in missing):
-                tables = [t for _, p, t in missing if p == privilege]
-                every = privilege == "INSERT" and len(tables) == len(TABLES)
-                lacks.append(f"{privilege} on " + ("every foldwise table" if every
-                                                    else ", ".join(tables)))
-            lacks = "; ".join(lacks)
-            raise StoreError(f"role {role} may read team store {self.path} but not write "
-                             f"sweeps into it: it lacks {lacks}. `run` and `merge` need "
-                             "INSERT on every foldwise table and UPDATE on sweeps and cells; "
-                             "ask the database's owner to grant them (README 'Working as a "
-                             "team': grant foldwise_writer to " + role + "), or use a role "
-                             "that has them. Nothing was written.")
-        self._privileges_checked = True
+        if not missing:
+            return
+        role = missing[0][0]
+        lacks = []
+        for privilege in dict.fromkeys(p for _, p, _ in missing):
+            tables = [t for _, p, t in missing if p == privilege]
+            asked = {t for t, p in wanted if p == privilege}
+            every = len(asked) > 2 and set(tables) == asked
+            lacks.append(f"{privilege} on " + ("every foldwise table" if every
+                                                else ", ".join(tables)))
+        raise StoreError(f"role {role} may read team store {self.path} but not {doing}: it "
+                         f"lacks {'; '.join(lacks)}. {needs}; ask the database's owner to "
+                         f"grant them (README 'Working as a team': grant {grant} to {role}), "
+                         f"or use a role that has them. Nothing was {changed}.")
 
     # -- writing ---------------------------------------------------------------------------
     def _transaction(self, work: Callable, *, what: str):
@@ -271,6 +301,10 @@ class Store:
                         continue
                     raise StoreError(f"{what} in store {self.path} failed: "
                                      f"{str(exc).splitlines()[0]}") from None
+                except BaseException:  # a refusal or Ctrl-C inside `work`: nothing stays
+                    with contextlib.suppress(duckdb.Error):
+                        con.execute("rollback")
+                    raise
 
     def write_batch(self, tables: dict[str, pd.DataFrame]) -> None:
         """Insert several tables' rows in one transaction (all land or none)."""
@@ -287,11 +321,16 @@ class Store:
 
         self._transaction(work, what="writing")
 
-    def begin_sweep(self, sweep: dict, cells: pd.DataFrame, metrics: dict[str, str]) -> None:
-        """Record a new sweep (status 'running'), its cells and the metric directions."""
+    def begin_sweep(self, sweep: dict, cells: pd.DataFrame, metrics: dict[str, str],
+                    labels: dict[str, str] | None = None) -> None:
+        """Record a new sweep (status 'running'), its cells, the metric directions and its
+        labels (checked by `labels.check_labels` first)."""
         row = dict(sweep)
         row["versions"] = json.dumps(row.get("versions", {}), sort_keys=True)
         metric_df = pd.DataFrame({"metric": list(metrics), "better": list(metrics.values())})
+        label_df = pd.DataFrame({"sweep_id": row["sweep_id"], "key": list(labels or {}),
+                                 "value": list((labels or {}).values())},
+                                columns=["sweep_id", "key", "value"])
 
         def work(con):
             con.register("_sweep", pd.DataFrame([row]))
@@ -300,6 +339,9 @@ class Store:
             con.execute("insert or ignore into metrics select metric, better from _metrics")
             con.register("_cells", cells)
             con.execute("insert into cells by name select * from _cells")
+            if len(label_df):
+                con.register("_labels", label_df)
+                con.execute("insert into sweep_labels by name select * from _labels")
 
         self._transaction(work, what="recording the sweep")
 

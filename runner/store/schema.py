@@ -12,9 +12,10 @@ __all__ = ["SCHEMA_VERSION", "DEFAULT_STORE", "TABLE_SQL", "VIEW_SQL", "TABLES",
 SCHEMA_VERSION = 3
 """2: cells.position keeps spec order explicit (a server table has no insertion order).
 3: classes (sweeps.task and .classes, tree_nodes.label, test_predictions of classes), built
-models (`models`, `model_coefficients`) and the signed coefficients of explained linear
-cells (`coefficients`); new tables by `create table if not exists`, new columns by
-UPGRADE_COLUMNS."""
+models (`models`, `model_coefficients`), the signed coefficients of explained linear cells
+(`coefficients`), a sweep's labels (`sweep_labels`), note and plan identity (sweeps.note,
+sweeps.plan, so two sweeps' folds can be told equal or not); new tables by `create table
+if not exists`, new columns by UPGRADE_COLUMNS."""
 DEFAULT_STORE = Path("results") / "foldwise.duckdb"
 
 TABLE_SQL = """
@@ -25,7 +26,9 @@ create table if not exists sweeps (
     n_train integer, n_test integer, k integer, repeats integer, plan_seed bigint,
     metrics varchar, pick_rule varchar, started_at timestamp, finished_at timestamp,
     status varchar, versions json, host varchar, user_name varchar, pid integer,
-    n_reused integer, task varchar, classes json);
+    n_reused integer, task varchar, classes json, note varchar, plan json);
+create table if not exists sweep_labels (
+    sweep_id varchar, key varchar, value varchar, primary key (sweep_id, key));
 create table if not exists metrics (metric varchar primary key, better varchar);
 create table if not exists cells (
     sweep_id varchar, cell_id varchar, model varchar, family varchar, params json,
@@ -98,13 +101,14 @@ MODEL_TABLES = ("models", "model_coefficients")
 """The tables of built models: keyed by model id, not by sweep (a model can be built on a
 sweep long after it ran, so a merge copies the models a store lacks by their id)."""
 
-TABLES = ("sweeps", "metrics", "cells", "fold_scores", "test_scores", "failures",
+TABLES = ("sweeps", "sweep_labels", "metrics", "cells", "fold_scores", "test_scores", "failures",
           "importances", "fold_importances", "tree_folds", "tree_nodes", "test_predictions",
           "explained", "coefficients") + MODEL_TABLES
 """Every table of results, in the order a copy must fill them."""
 
 UPGRADE_COLUMNS = (
-    ("sweeps", "task varchar"), ("sweeps", "classes json"), ("tree_nodes", "label varchar"),
+    ("sweeps", "task varchar"), ("sweeps", "classes json"), ("sweeps", "note varchar"),
+    ("sweeps", "plan json"), ("tree_nodes", "label varchar"),
     ("test_predictions", "observed_class varchar"),
     ("test_predictions", "predicted_class varchar"),
     ("test_predictions", "probabilities double[]"),
@@ -112,5 +116,5 @@ UPGRADE_COLUMNS = (
 """(table, column definition) added since a table was first created: an older store gains
 them on upgrade (idempotent: `add column if not exists`)."""
 
-SINCE = {"coefficients": 3, "models": 3, "model_coefficients": 3}
+SINCE = {"coefficients": 3, "models": 3, "model_coefficients": 3, "sweep_labels": 3}
 """The schema version that added a table: an export or store older than it lacks it."""

@@ -10,7 +10,7 @@ import os
 import shutil
 import tempfile
 from contextlib import contextmanager
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Iterator
 
@@ -19,7 +19,12 @@ import pandas as pd
 
 from ..errors import StoreError
 from . import Store
+from .labels import Selection, resolve_ids
 from .schema import MODEL_TABLES, SCHEMA_VERSION, SINCE, TABLES
+
+EMPTY_LABELS = ("(select null::varchar as sweep_id, null::varchar as key, "
+                "null::varchar as value where false)")
+"""sweep_labels as read from a store or export older than the table: no labels."""
 
 __all__ = ["export_store", "merge_store", "MergeResult", "EXPORT_FORMATS", "EXPORT_MANIFEST"]
 
@@ -38,9 +43,13 @@ class MergeResult:
     new_models: list[str] = field(default_factory=list)
 
 
-def export_store(store: Store, folder: str | Path, fmt: str = "parquet") -> dict[str, int]:
+def export_store(store: Store, folder: str | Path, fmt: str = "parquet",
+                 selection: Selection | None = None) -> dict[str, int]:
     """Write every table of the store as one file per table (parquet or csv) into `folder`,
-    with a manifest that `merge_store` reads back. Returns rows written per table.
+    with a manifest that `merge_store` reads back. Returns rows written per table. With a
+    `selection` (sweep ids, labels, ...), only those sweeps' rows are written (and every
+    metric's direction, and the models built on them); a selection that names no sweep is
+    refused.
 
     Files are written to a temporary folder inside `folder` and moved in place at the end,
     so an interrupted export leaves no half-written table behind."""
@@ -62,13 +71,30 @@ def export_store(store: Store, folder: str | Path, fmt: str = "parquet") -> dict
     store._check_version()  # refuses a non-store, upgrades an older one
     try:
         with store._connect(read_only=True) as con:
+            chosen = None
+            if selection is not None and not selection.empty:
+                where, params = selection.where("s")
+                chosen = [r[0] for r in con.execute(
+                    f"select s.sweep_id from sweeps s where {where} order by s.sweep_id",
+                    params).fetchall()]
+                if not chosen:
+                    raise StoreError(f"no sweep in store {store.path} matches "
+                                     f"{selection.describe()}; nothing was exported. "
+                                     "`foldwise sweeps` lists them with their labels.")
             for table in TABLES:
                 target = staging / f"{table}.{fmt}"
-                counts[table] = con.execute(f"copy (select * from {table} order by all) to "
-                                            f"'{_sql_text(target)}' ({options})"
-                                            ).fetchone()[0]
+                only = "" if chosen is None or table == "metrics" else (
+                    " where model_id in (select model_id from models "
+                    "where list_contains($1::varchar[], sweep_id))"
+                    if table == "model_coefficients" else
+                    " where list_contains($1::varchar[], sweep_id)")
+                counts[table] = con.execute(f"copy (select * from {table}{only} order by all) "
+                                            f"to '{_sql_text(target)}' ({options})",
+                                            [chosen] if only else []).fetchone()[0]
         manifest = {"schema_version": SCHEMA_VERSION, "format": fmt, "tables": counts,
                     "exported_from": store.location.kind}
+        if chosen is not None:
+            manifest.update(sweeps=chosen, selection=selection.describe())
         (staging / EXPORT_MANIFEST).write_text(json.dumps(manifest, indent=2) + "\n")
         for item in [*(f"{t}.{fmt}" for t in TABLES), EXPORT_MANIFEST]:
             os.replace(staging / item, folder / item)
@@ -104,9 +130,12 @@ def _export_sources(folder: Path) -> dict[str, str | None]:
     return sources
 
 
-def merge_store(store: Store, other: str | Path) -> MergeResult:
+def merge_store(store: Store, other: str | Path,
+                selection: Selection | None = None) -> MergeResult:
     """Copy into `store` every sweep of `other` (a store file, a server URL or an export
-    folder) that it does not hold yet, with all of that sweep's rows, in one transaction.
+    folder) that it does not hold yet, with all of that sweep's rows, in one transaction;
+    with a `selection` (sweep ids or unique prefixes as `other` knows them, labels, ...),
+    only the sweeps of `other` it names.
 
     Sweeps already present (by sweep id) are skipped whole; sweeps still marked running are
     left out, since their rows are not complete yet. Built models (`foldwise build`) this
@@ -135,7 +164,10 @@ def merge_store(store: Store, other: str | Path) -> MergeResult:
                 "select table_name from information_schema.tables "
                 "where table_catalog = '_other'").fetchall()}
             sources = {t: s if t in theirs_tables else None for t, s in sources.items()}
-        theirs = con.execute(f"select sweep_id, status from {sources['sweeps']}").df()
+        if sources["sweep_labels"] is None:  # an older store: no labels, but readable
+            sources["sweep_labels"] = EMPTY_LABELS
+        theirs = con.execute(f"select sweep_id, status from {sources['sweeps']} s"
+                             + _chosen(con, sources, selection, other)).df()
         mine = set(con.execute("select sweep_id from sweeps").df()["sweep_id"])
         present = sorted(s for s in theirs["sweep_id"] if s in mine)
         running = sorted(theirs.loc[(theirs["status"] == "running")
@@ -220,3 +252,22 @@ def _attached(con, where, other) -> Iterator[None]:
 
 def _sql_text(text) -> str:
     return str(text).replace("'", "''")
+
+
+def _chosen(con, sources: dict, selection: Selection | None, other) -> str:
+    """A where clause keeping the sweeps of `other` that `selection` names (ids resolved
+    against other's own sweeps first); their ids travel as a registered table, never as
+    SQL text."""
+    if selection is None or selection.empty:
+        return ""
+    if selection.ids:
+        known = [r[0] for r in con.execute(f"select sweep_id from {sources['sweeps']}").fetchall()]
+        selection = replace(selection, ids=tuple(resolve_ids(known, selection.ids)))
+    where, params = selection.where("s", sources["sweep_labels"])
+    found = [r[0] for r in con.execute(f"select s.sweep_id from {sources['sweeps']} s "
+                                       f"where {where}", params).fetchall()]
+    if not found:
+        raise StoreError(f"no sweep of {other} matches {selection.describe()}; nothing was "
+                         "merged.")
+    con.register("_chosen_sweeps", pd.DataFrame({"sweep_id": found}))
+    return " where s.sweep_id in (select sweep_id from _chosen_sweeps)"

@@ -43,11 +43,12 @@ from ..families import load_family
 from .grid import Cell
 from ..metrics import METRICS
 from .prepare import Prepared, load_checked, prepare
-from ..read.queries import process_alive
-from .resampling import REFIT, Fold, make_plan, plan_counts, refit_seed
+from ..read.queries import process_alive, unchanged_sweep
+from .resampling import REFIT, Fold, make_plan, plan_counts, plan_identity, refit_seed
 from .reuse import all_found, copy_scores, find_scores
 from .spec import Spec
 from ..store import DEFAULT_STORE, Store
+from ..store.labels import check_labels, check_note
 
 __all__ = ["run_sweep", "check_spec", "prepare", "SweepResult", "Prepared", "SweepInterrupted",
            "SweepFailed", "resolve_jobs"]
@@ -295,7 +296,9 @@ def run_sweep(spec: Spec, *, store: Store | None = None, jobs: int | None = None
               paths: bool = True, fresh: bool = False,
               batch_seconds: float = 1.0, cluster: str | None = None,
               executor: LocalExecutor | DaskExecutor | None = None,
-              lift_limits: bool = False, force_jobs: bool = False) -> SweepResult:
+              lift_limits: bool = False, force_jobs: bool = False,
+              note: str | None = None, labels: dict[str, str] | None = None,
+              if_changed: bool = False) -> SweepResult:
     """Score every cell of the spec on every fold and on the test split, into the store.
 
     Results an earlier sweep already holds for the same cell id (same family, params, data
@@ -309,8 +312,14 @@ def run_sweep(spec: Spec, *, store: Store | None = None, jobs: int | None = None
     The plan's size is checked against the spec's `limits` before anything is read
     (`lift_limits` skips that), and more local workers than cores are capped to the cores
     unless `force_jobs` (a note says so through `on_message`). A sweep whose every fit
-    failed is stored as 'failed' and raises SweepFailed."""
+    failed is stored as 'failed' and raises SweepFailed.
+
+    `note` and `labels` (key -> value) are recorded with the sweep. With `if_changed`, a
+    rerun that would only copy what the latest sweep of this name already holds (same spec
+    text, same data, every cell stored) records nothing and returns that sweep with status
+    'unchanged'."""
     start = time.perf_counter()
+    labels, note = check_labels(labels or {}), check_note(note)
     prep = prepare(spec, lift_limits=lift_limits)
     store = store or Store(store_path(spec), on_wait=on_message)
     # A --no-paths sweep is a check of the path evaluators: it refits every cell, never
@@ -318,12 +327,18 @@ def run_sweep(spec: Spec, *, store: Store | None = None, jobs: int | None = None
     fresh = fresh or not paths
     found = find_scores(store, prep, fresh=fresh)
     quick = all_found(prep, found)
+    if quick and if_changed:
+        same = unchanged_sweep(store, spec.name, spec.sha256, prep.frame.sha256)
+        if same is not None:
+            return SweepResult(same["sweep_id"], str(store.path), "unchanged", len(prep.cells),
+                               int(same["fold_rows"]), int(same["test_rows"]), 0,
+                               time.perf_counter() - start, n_reused=len(prep.cells))
     if not quick:
         prep.plan  # builds and checks the plan before anything is written
     hold = contextlib.ExitStack()
-    n_jobs, note = resolve_jobs(jobs or spec.jobs, force=force_jobs or bool(cluster))
-    if note and on_message and executor is None:
-        on_message(note)
+    n_jobs, capped = resolve_jobs(jobs or spec.jobs, force=force_jobs or bool(cluster))
+    if capped and on_message and executor is None:
+        on_message(capped)
     if quick:  # only copying to do: one connection for it all, instead of dozens
         hold.enter_context(store.session())
     with hold:
@@ -350,8 +365,9 @@ def run_sweep(spec: Spec, *, store: Store | None = None, jobs: int | None = None
             "task": prep.frame.task,
             "classes": json.dumps([_label(c) for c in prep.frame.classes]),
             "started_at": datetime.now(), "finished_at": None, "status": "running",
-            "versions": _versions(), "host": host, "user_name": _user(), "pid": os.getpid()},
-            cells_df, {m: METRICS[m].better for m in spec.metrics})
+            "versions": _versions(), "host": host, "user_name": _user(), "pid": os.getpid(),
+            "note": note or None, "plan": json.dumps(plan_identity(spec), sort_keys=True)},
+            cells_df, {m: METRICS[m].better for m in spec.metrics}, labels)
         done, reused, copied = copy_scores(store, sweep_id, prep, found)
 
         tasks = [] if len(reused) == len(prep.cells) else _plan_tasks(

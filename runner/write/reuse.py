@@ -52,6 +52,9 @@ def copy_scores(store: Store, sweep_id: str, prep, found
                               metrics=metrics)["fold_scores"]
     n_tests = store.copy_rows(sweep_id, tests, {"test_scores": ("cell_id",)},
                               metrics=metrics)["test_scores"]
+    if (n_folds, n_tests) != (len(folds) * len(metrics), len(tests) * len(metrics)):
+        folds, tests = _arrived(store, sweep_id, metrics)  # a source sweep was removed
+        found = folds, tests
     done = _keys(found)
     keys = prep.fold_keys()
     whole = [c.cell_id for c in prep.cells if all((c.cell_id, *k) in done for k in keys)]
@@ -59,6 +62,23 @@ def copy_scores(store: Store, sweep_id: str, prep, found
         source = folds[folds.cell_id.isin(whole)].groupby("cell_id").sweep_id.min()
         store.set_reused(sweep_id, source.rename("reused_from").reset_index())
     return frozenset(done), whole, (n_folds, n_tests)
+
+
+def _arrived(store: Store, sweep_id: str, metrics: list[str]):
+    """What a copy really brought into this sweep, as (folds, tests) like `find_scores`:
+    the whole (cell, fold)s and refits, each with the sweep that first computed it. Asked
+    only when fewer rows arrived than were found, because a sweep they came from was
+    removed in between; what did not arrive is then fitted like any missing result."""
+    args = [sweep_id, metrics]
+    folds = store.query("""
+        select cell_id, "repeat", fold, min(reused_from) as sweep_id from fold_scores
+        where sweep_id = $1 and list_contains($2::varchar[], metric)
+        group by all having count(distinct metric) = len($2::varchar[])""", args)
+    tests = store.query("""
+        select cell_id, min(reused_from) as sweep_id from test_scores
+        where sweep_id = $1 and list_contains($2::varchar[], metric)
+        group by all having count(distinct metric) = len($2::varchar[])""", args)
+    return folds, tests
 
 
 def copy_explained(store: Store, sweep_id: str, cell_ids: list[str], settings: str

@@ -1,0 +1,391 @@
+"""The record of past sweeps — notes and labels, `diff`, a model's history, removal, and
+sharing part of a store — each on a DuckDB file and on the PostgreSQL team store (the
+session's throwaway server), with the same answers on both."""
+
+from __future__ import annotations
+
+import itertools
+import json
+import math
+import shutil
+import socket
+
+import numpy as np
+import pandas as pd
+import pytest
+from click.testing import CliRunner
+from scipy import stats
+
+from runner.cli import main
+from runner.errors import QueryError, StoreError
+from runner.read.past import diff_sweeps, model_history
+from runner.read.queries import picks, summary, sweeps
+from runner.store import TABLES, Store
+from runner.store.labels import Selection, set_labels
+from runner.store.tidy import remove_sweeps
+from runner.store.transfer import export_store, merge_store
+from runner.write.engine import run_sweep
+from runner.write.spec import load_spec
+
+from .helpers import diabetes_frame, spec_from, write_spec
+
+MODELS = """
+ridge: {family: linear, grid: {penalty: l2, alpha: [0.1, 1.0, 10.0]}}
+tree: {family: pruned_tree, grid: {ccp_alpha: [0.0, 50.0, 200.0], min_samples_leaf: [3]}}
+"""
+CHANGED = MODELS.replace("[0.1, 1.0, 10.0]", "[0.1, 1.0, 30.0]")
+OLD_LINE = "ridge: {family: linear, grid: {penalty: l2, alpha: [0.1, 1.0, 10.0]}}"
+NEW_LINE = "ridge: {family: linear, grid: {penalty: l2, alpha: [0.1, 1.0, 30.0]}}"
+_names = itertools.count()
+
+
+@pytest.fixture(scope="module")
+def base(tmp_path_factory):
+    """Two sweeps of spec 'small' differing in one ridge alpha, labelled and noted:
+    (folder, store, first sweep id, second sweep id)."""
+    folder = tmp_path_factory.mktemp("past")
+    diabetes_frame().to_csv(folder / "diabetes.csv", index=False)
+    store = Store(folder / "base.duckdb")
+    first = run_sweep(spec_from(folder, MODELS, name="a.yaml"), store=store, jobs=1,
+                      labels={"purpose": "baseline", "data": "2026-11"}, note="first grid")
+    second = run_sweep(spec_from(folder, CHANGED, name="b.yaml"), store=store, jobs=1,
+                       labels={"purpose": "tuned"})
+    return folder, store, first.sweep_id, second.sweep_id
+
+
+@pytest.fixture(params=["file", "server"])
+def store(request, base, tmp_path):
+    """A store of the given kind holding the base sweeps (its own copy, free to change)."""
+    if request.param == "file":
+        shutil.copy(base[1].path, tmp_path / "copy.duckdb")
+        return Store(tmp_path / "copy.duckdb")
+    pg = request.getfixturevalue("pg")
+    copy = Store(pg.create_database(f"past_{next(_names)}"))
+    merge_store(copy, base[1].path)
+    return copy
+
+
+def invoke(*args):
+    return CliRunner().invoke(main, [str(a) for a in args], catch_exceptions=False)
+
+
+def _rows(store: Store, table: str, sweep_id: str | None = None) -> pd.DataFrame:
+    where = "" if sweep_id is None else f" where sweep_id = '{sweep_id}'"
+    return store.query(f"select * from {table}{where} order by all")
+
+
+# -- notes and labels ----------------------------------------------------------------------
+def test_run_records_labels_and_note_as_rows(store, base):
+    _, _, first, second = base
+    labels = store.query("select sweep_id, key, value from sweep_labels order by all")
+    assert labels.values.tolist() == sorted([[first, "data", "2026-11"],
+                                             [first, "purpose", "baseline"],
+                                             [second, "purpose", "tuned"]])
+    notes = store.query("select sweep_id, coalesce(note, '(null)') as note from sweeps")
+    assert notes.set_index("sweep_id")["note"].to_dict() == {first: "first grid",
+                                                              second: "(null)"}
+    listed = sweeps(store).table.set_index("sweep_id")
+    assert json.loads(listed.loc[first, "labels"]) == {"data": "2026-11", "purpose": "baseline"}
+
+
+def test_label_command_adds_changes_drops_and_renotes(store, base):
+    _, _, first, second = base
+    out = invoke("label", "purpose=rerun", "owner=ana", "--drop", "data", "--note",
+                 "grid too coarse", "--sweep", first[:17], "--store", store.path)
+    assert out.exit_code == 0, out.output
+    assert "owner=ana, purpose=rerun" in out.output and "grid too coarse" in out.output
+    rows = store.query("select key, value from sweep_labels where sweep_id = ? order by key",
+                       [first])
+    assert rows.values.tolist() == [["owner", "ana"], ["purpose", "rerun"]]
+    set_labels(store, first, note="")
+    assert store.query("select note is null as gone from sweeps where sweep_id = ?",
+                       [first]).gone[0]
+    assert len(_rows(store, "sweep_labels", second)) == 1  # the other sweep untouched
+
+
+@pytest.mark.parametrize("bad, words", [
+    ("purpose", "has no '='"), ("bad key=x", "not a plain name"), ("k=", "empty value"),
+    ("k=a\x1b[31mb", "control character")])
+def test_bad_labels_are_refused_and_nothing_changes(base, tmp_path, bad, words):
+    shutil.copy(base[1].path, tmp_path / "s.duckdb")
+    before = (tmp_path / "s.duckdb").read_bytes()
+    out = CliRunner().invoke(main, ["label", bad, "--store", str(tmp_path / "s.duckdb")])
+    assert out.exit_code == 2 and words in out.output and "Traceback" not in out.output
+    assert (tmp_path / "s.duckdb").read_bytes() == before
+
+
+def test_sweeps_filters_by_label_name_status_and_age(store, base):
+    _, _, first, second = base
+    pick = lambda **kw: sweeps(store, Selection.of(**kw)).table["sweep_id"].tolist()
+    assert pick(labels=["purpose=baseline"]) == [first]
+    assert pick(labels=["purpose"]) == [second, first]
+    assert pick(labels=["purpose", "data=2026-11"]) == [first]
+    assert pick(labels=["purpose=nothing"]) == []
+    assert pick(name="small", status="finished") == [second, first]
+    assert pick(status="interrupted") == [] and pick(older_than="1d") == []
+    out = invoke("sweeps", "--label", "purpose=tuned", "--format", "json", "--store", store.path)
+    (row,) = json.loads(out.output)
+    assert row["sweep_id"] == second and row["labels"] == {"purpose": "tuned"}
+
+
+def test_an_unchanged_rerun_with_if_changed_records_nothing(store, base):
+    folder, _, _, second = base
+    before = sweeps(store).table["sweep_id"].tolist()
+    same = run_sweep(spec_from(folder, CHANGED, name="b.yaml"), store=store, jobs=1,
+                     if_changed=True)
+    assert (same.status, same.sweep_id, same.n_fold_rows) == ("unchanged", second, 108)
+    assert sweeps(store).table["sweep_id"].tolist() == before
+    other = run_sweep(spec_from(folder, MODELS, name="a.yaml"), store=store, jobs=1,
+                      if_changed=True, labels={"purpose": "check"}, note="rerun")
+    assert other.status == "finished" and other.n_reused == 6  # the latest ran the other grid
+    assert store.query("select key, value, note from sweep_labels join sweeps using "
+                       "(sweep_id) where sweep_id = ?", [other.sweep_id]).values.tolist() == [
+        ["purpose", "check", "rerun"]]
+    assert sweeps(store).table["sweep_id"].tolist() == [other.sweep_id, *before]
+    out = invoke("run", folder / "a.yaml", "--if-changed", "--quiet", "--label", "x=y",
+                 "--store", store.path)
+    assert out.output.startswith(f"nothing recorded: sweep {other.sweep_id}, the latest")
+    assert "the labels and note given were not recorded" in out.output
+    assert len(sweeps(store).table) == 3
+
+
+# -- diff ----------------------------------------------------------------------------------
+def _reference_pair(store, first, second, cell_a, cell_b):
+    """The corrected resampled t-test (Nadeau & Bengio 2003) of b − a, with numpy and
+    scipy's t distribution as the reference."""
+    q = ('select "repeat", fold, value, n_valid, n_train from fold_scores where sweep_id = ? '
+         "and cell_id = ? and metric = 'rmse'")
+    a, b = (store.query(q, [s, c]).set_index(["repeat", "fold"]) for s, c in
+            ((first, cell_a), (second, cell_b)))
+    d = (b["value"] - a["value"]).to_numpy()
+    n = len(d)
+    ratio = float((a["n_valid"] / a["n_train"]).mean())
+    se = math.sqrt((1 / n + ratio) * d.var(ddof=1))
+    t = d.mean() / se
+    return n, d.mean(), se, 2 * stats.t.sf(abs(t), n - 1)
+
+
+def test_diff_shows_the_one_changed_line_same_data_and_paired_changes(store, base):
+    _, _, first, second = base
+    result = diff_sweeps(store)  # default: the latest two of the spec
+    assert (result.a["sweep_id"], result.b["sweep_id"]) == (first, second)
+    changed = [x for x in result.spec_diff if x[:1] in "+-" and x[:3] not in ("---", "+++")]
+    assert changed == [f"-  {OLD_LINE}", f"+  {NEW_LINE}"]
+    assert result.data_same and result.plan_same and result.paired
+    assert result.versions == {} and result.labels == {"data": ("2026-11", None),
+                                                       "purpose": ("baseline", "tuned")}
+    table = result.table.set_index("model")
+    assert list(table.index) == ["ridge", "tree"]
+    tree = table.loc["tree"]  # its cells are shared: the same pick, identical fold scores
+    assert tree["same_cell"] and tree["folds"] == 6 and tree["mean_diff"] == 0
+    assert tree["ties"] == 6 and tree["p_value"] == 1.0
+    ridge = table.loc["ridge"]
+    n, mean, se, p = _reference_pair(store, first, second, ridge["cell_a"], ridge["cell_b"])
+    assert ridge["folds"] == n == 6
+    assert ridge["mean_diff"] == pytest.approx(mean, rel=1e-9, abs=1e-12)
+    assert ridge["se"] == pytest.approx(se, rel=1e-9)
+    assert ridge["p_value"] == pytest.approx(p, rel=1e-9)
+    assert ridge["cv_change"] == pytest.approx(ridge["mean_b"] - ridge["mean_a"], abs=1e-9)
+    picked = {s: picks(store, s, rule="one_se").table.set_index("model") for s in (first, second)}
+    assert ridge["cell_a"] == picked[first].loc["ridge", "cell_id"]
+    assert ridge["cell_b"] == picked[second].loc["ridge", "cell_id"]
+    out = invoke("diff", "--store", store.path)
+    assert out.exit_code == 0, out.output
+    lines = out.output.splitlines()
+    assert f"  -  {OLD_LINE}" in lines and f"  +  {NEW_LINE}" in lines
+    assert sum(1 for x in lines if x.startswith(("  -", "  +"))) == 4  # header pair + the line
+    assert any(x.startswith("data: same") for x in lines)
+    assert f"folds: paired on identical folds ({result.shared_cells} shared cells)" in lines
+    assert "tree: the same cell in both sweeps, with identical fold scores." in out.output
+
+
+def test_diff_of_one_sweep_and_of_two_named_sweeps(store, base):
+    _, _, first, second = base
+    one = diff_sweeps(store, second)
+    two = diff_sweeps(store, second[:18], first[:18])  # reversed: B is the older one
+    assert one.a["sweep_id"] == first and two.a["sweep_id"] == second
+    assert two.table.set_index("model")["mean_diff"]["ridge"] == pytest.approx(
+        -one.table.set_index("model")["mean_diff"]["ridge"], abs=1e-12)
+    with pytest.raises(QueryError, match="first sweep of spec 'small'"):
+        diff_sweeps(store, first)
+
+
+@pytest.fixture(scope="module")
+def varied(base, tmp_path_factory):
+    """A file store with the base sweeps and two more of spec 'small': one on another fold
+    seed (the plan changed), then one on fewer rows (the data changed):
+    (store, plan sweep id, data sweep id)."""
+    folder = base[0]
+    store = Store(tmp_path_factory.mktemp("varied") / "s.duckdb")
+    shutil.copy(base[1].path, store.path)
+    path = write_spec(folder, MODELS, name="c.yaml")
+    path.write_text(path.read_text().replace("seed: 17", "seed: 18"))
+    plan_run = run_sweep(load_spec(path), store=store, jobs=1)
+    diabetes_frame().iloc[:400].to_csv(folder / "fewer.csv", index=False)
+    data_run = run_sweep(spec_from(folder, MODELS, name="d.yaml", data="fewer.csv"),
+                         store=store, jobs=1)
+    return store, plan_run.sweep_id, data_run.sweep_id
+
+
+def test_diff_is_honest_when_the_folds_differ(base, varied):
+    first = base[2]
+    store, plan_sweep, data_sweep = varied
+    diff = diff_sweeps(store, first, plan_sweep)
+    assert diff.data_same and diff.plan_same is False and not diff.paired
+    assert diff.not_paired == "not paired: the folds differ (the plan changed)"
+    assert diff.table["p_value"].isna().all() and diff.table["cv_change"].notna().all()
+    diff = diff_sweeps(store, first, data_sweep)
+    assert not diff.data_same and diff.not_paired.endswith("(the data changed)")
+    out = invoke("diff", first, data_sweep, "--store", store.path)
+    assert "data: changed" in out.output and "not paired: the folds differ" in out.output
+    assert "training / test rows 331 / 111 → 300 / 100" in out.output
+
+
+# -- a model's history ---------------------------------------------------------------------
+def test_history_picks_what_pick_picks_in_every_sweep(store, base):
+    _, _, first, second = base
+    for rule in (None, "best"):
+        result = model_history(store, "ridge", rule=rule)
+        assert result.table["sweep_id"].tolist() == [first, second]
+        for row in result.table.itertuples(index=False):
+            chosen = picks(store, row.sweep_id, rule=rule or "one_se").table.set_index("model")
+            assert row.cell_id == chosen.loc["ridge", "cell_id"]
+            assert row.mean == pytest.approx(chosen.loc["ridge", "mean"], rel=1e-12)
+            assert row.se == pytest.approx(chosen.loc["ridge", "se"], rel=1e-12)
+            assert row.test == pytest.approx(chosen.loc["ridge", "test"], rel=1e-12)
+    family = model_history(store, family="pruned_tree")
+    assert family.models == ("tree",) and family.table["spec_changed"].tolist() == [False, True]
+    out = invoke("history", "--model", "ridge", "--format", "csv", "--store", store.path)
+    assert out.exit_code == 0 and out.output.count("\n") == 3
+    with pytest.raises(QueryError, match="no model 'lasso' in any sweep of spec 'small'"):
+        model_history(store, "lasso")
+
+
+def test_history_figure_marks_where_the_data_and_the_spec_changed(varied, tmp_path):
+    from runner.read.plots import history_figure
+
+    store = varied[0]
+    result = model_history(store, "ridge")
+    assert result.table["data_changed"].tolist() == [False, False, False, True]
+    assert result.table["spec_changed"].tolist() == [False, True, True, True]
+    fig = history_figure(store, model="ridge")
+    marks = [line.get_gid() for line in fig.axes[0].get_lines() if line.get_gid()]
+    assert marks == ["spec_changed", "spec_changed", "data_changed"]
+    out = invoke("plot", "history", "--model", "ridge", "--store", store.path, "--out-dir",
+                 tmp_path / "plots", "--image", "png")
+    assert out.exit_code == 0 and out.output.strip().endswith("-history-small-ridge.png")
+
+
+# -- removal -------------------------------------------------------------------------------
+def test_removal_asks_first_and_keeps_sweeps_that_reused_rows(store, base):
+    _, _, first, second = base
+    reused = store.query("select count(*) n from cells where sweep_id = ? and reused_from = ?",
+                         [second, first]).n[0]
+    assert reused == 5  # the second sweep copied 5 of its 6 cells from the first
+    before = {t: _rows(store, t, second) for t in TABLES
+              if t not in ("metrics", "model_coefficients")}
+    shown = summary(store, second).table
+    out = invoke("remove", first, "--dry-run", "--store", store.path)
+    assert "would remove 1 sweep" in out.output and "dry run: nothing removed." in out.output
+    out = CliRunner().invoke(main, ["remove", first, "--store", str(store.path)], input="n\n")
+    assert "nothing removed." in out.output
+    assert len(_rows(store, "fold_scores", first)) == 108
+    out = invoke("remove", first, "--yes", "--store", store.path)
+    assert out.exit_code == 0 and "removed 1 sweep(s) and " in out.output
+    for table in before:
+        assert _rows(store, table, first).empty, table
+        pd.testing.assert_frame_equal(_rows(store, table, second), before[table], obj=table)
+    pd.testing.assert_frame_equal(summary(store, second).table, shown)
+    assert sweeps(store).table["sweep_id"].tolist() == [second]
+
+
+def test_removal_by_status_spares_running_sweeps(store, base):
+    _, _, first, second = base
+    with store._connect(read_only=False) as con:  # a dead run here, a live one elsewhere
+        con.execute("update sweeps set status = 'running', host = ?, pid = 2147483000 "
+                    "where sweep_id = ?", [socket.gethostname(), first])
+        con.execute("update sweeps set status = 'running', host = 'elsewhere', pid = 1 "
+                    "where sweep_id = ?", [second])
+    with pytest.raises(StoreError, match=f"sweep {second} is still running"):
+        remove_sweeps(store, [first, second], alive=lambda pid: False)
+    assert len(_rows(store, "fold_scores")) == 216  # refused whole: nothing went
+    out = invoke("remove", "--status", "interrupted", "--yes", "--store", store.path)
+    assert out.exit_code == 0, out.output
+    assert sweeps(store).table["sweep_id"].tolist() == [second]
+
+
+def test_a_rerun_whose_source_is_removed_meanwhile_fits_what_vanished(base, tmp_path,
+                                                                         monkeypatch):
+    """The rows a rerun found are removed before it copies them: it fits those cells
+    instead, and its scores equal the removed sweep's (same folds and seeds)."""
+    import runner.write.engine as engine
+
+    folder, _, first, _ = base
+    shutil.copy(base[1].path, tmp_path / "s.duckdb")
+    store = Store(tmp_path / "s.duckdb")
+    expected = store.query("""select c.model, c.params, f."repeat", f.fold, f.metric, f.value
+                              from fold_scores f join cells c using (sweep_id, cell_id)
+                              where sweep_id = ? order by all""", [first])
+    found_then_removed = engine.find_scores
+
+    def meanwhile(store_, prep, *, fresh):
+        found = found_then_removed(store_, prep, fresh=fresh)
+        remove_sweeps(store_, [s for s in sweeps(store_).table["sweep_id"]])
+        return found
+
+    monkeypatch.setattr(engine, "find_scores", meanwhile)
+    again = run_sweep(spec_from(folder, MODELS), store=store, jobs=1)
+    assert (again.n_reused, again.n_fitted, again.n_fold_rows) == (0, 6, 108)
+    got = store.query("""select c.model, c.params, f."repeat", f.fold, f.metric, f.value
+                         from fold_scores f join cells c using (sweep_id, cell_id)
+                         where sweep_id = ? order by all""", [again.sweep_id])
+    pd.testing.assert_frame_equal(got, expected, check_exact=False, rtol=1e-12)
+
+
+# -- sharing a part ------------------------------------------------------------------------
+def test_labels_and_notes_survive_export_and_merge_row_for_row(store, base, tmp_path):
+    export_store(store, tmp_path / "all")
+    target = Store(tmp_path / "back.duckdb")
+    merge_store(target, tmp_path / "all")
+    for table in ("sweeps", "sweep_labels"):
+        pd.testing.assert_frame_equal(_rows(target, table), _rows(store, table), obj=table)
+
+
+def test_export_and_merge_take_only_the_chosen_sweeps(store, base, tmp_path):
+    _, _, first, second = base
+    counts = export_store(store, tmp_path / "part", "csv",
+                          Selection.of(labels=["purpose=tuned"]))
+    assert counts["sweeps"] == 1 and counts["fold_scores"] == 108
+    manifest = json.loads((tmp_path / "part" / "foldwise-export.json").read_text())
+    assert manifest["sweeps"] == [second]
+    target = Store(tmp_path / "part.duckdb")
+    merged = merge_store(target, tmp_path / "part")
+    assert merged.new_sweeps == [second]
+    for table in ("sweeps", "sweep_labels", "fold_scores", "cells"):
+        pd.testing.assert_frame_equal(_rows(target, table), _rows(store, table, second),
+                                      obj=table)
+    picked = Store(tmp_path / "picked.duckdb")
+    out = invoke("merge", store.path, "--sweep", first[:17], "--store", picked.path)
+    assert out.exit_code == 0 and "merged 1 sweep(s)" in out.output
+    assert sweeps(picked).table["sweep_id"].tolist() == [first]
+    with pytest.raises(StoreError, match="no sweep of .* matches label purpose=nothing"):
+        merge_store(picked, store.path, Selection.of(labels=["purpose=nothing"]))
+
+
+def test_a_store_of_schema_version_2_is_merged_and_diffed(base, tmp_path):
+    """What a version-2 store held: no labels table, no note or plan column."""
+    import duckdb
+
+    _, store, first, second = base
+    old = tmp_path / "v2.duckdb"
+    shutil.copy(store.path, old)
+    with duckdb.connect(str(old)) as con:
+        con.execute("drop table sweep_labels")
+        con.execute("alter table sweeps drop column note")
+        con.execute("alter table sweeps drop column plan")
+        con.execute("update foldwise_meta set value = '2' where key = 'schema_version'")
+    target = Store(tmp_path / "new.duckdb")
+    assert merge_store(target, old).new_sweeps == [first, second]
+    assert _rows(target, "sweep_labels").empty
+    diff = diff_sweeps(target)
+    assert diff.plan_same is True and diff.paired and diff.shared_cells == 5
