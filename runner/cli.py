@@ -96,7 +96,12 @@ def check(spec_file, lift_limits):
     click.echo(f"spec {spec_file} is valid: sweep '{spec.name}'")
     for key, value in facts.items():
         click.echo(f"  {key:<12} {value}")
-    emit(plan, "table", title="cells and fits per model (fits include one refit per cell)")
+    from .read.views import View
+
+    emit(plan, "table", view=View(
+        "cells and fits per model", plan, numeric=("cells", "fits per fold", "fits"),
+        sentences=("Cells that differ only in a path parameter share one fit per fold; "
+                   "fits = fits per fold x (folds + 1 refit).",)))
 
 
 @main.command()

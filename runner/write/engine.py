@@ -109,10 +109,11 @@ def check_spec(spec: Spec, *, lift_limits: bool = False) -> tuple[pd.DataFrame, 
     plan = make_plan(spec, frame)
     Store(store_path(spec)).check_writable()
     rows = []
-    for label, family, n, bound in size.models:
-        up = "≤" if bound else ""
-        rows.append({"model": label, "family": family, "cells": f"{up}{n}",
-                     "folds": size.folds, "fits": f"{up}{n * (size.folds + 1)}"})
+    for m in size.models:
+        rows.append({"model": m.label, "family": m.family,
+                     "cells": f"{'≤' if m.bound else ''}{m.cells:,}",
+                     "fits per fold": f"{m.fits_per_fold:,}",
+                     "fits": f"{m.fits_per_fold * (size.folds + 1):,}"})
     limits = spec.limits
     facts = {"data": str(frame.source), "rows": len(frame.y), "train rows": plan.n_train,
              "test rows": plan.n_test, "features": len(frame.features),
@@ -289,7 +290,7 @@ def run_sweep(spec: Spec, *, store: Store | None = None, jobs: int | None = None
     unless `force_jobs` (a note says so through `on_message`). A sweep whose every fit
     failed is stored as 'failed' and raises SweepFailed."""
     start = time.perf_counter()
-    prep = prepare(spec, lift_limits=lift_limits)
+    prep = prepare(spec, lift_limits=lift_limits, paths=paths)
     store = store or Store(store_path(spec), on_wait=on_message)
     # A --no-paths sweep is a check of the path evaluators: it refits every cell, never
     # copying rows that an earlier sweep may have scored through a path.

@@ -15,7 +15,7 @@ from ..families import FAMILIES
 from .spec import LinearRange, LogRange, ModelSpec, PathRange
 
 __all__ = ["Cell", "expand_model", "expand_spec", "cell_id", "EVAL_VERSION", "range_values",
-           "spread_along_path", "count_cells", "range_size"]
+           "spread_along_path", "count_model", "ModelCount", "range_size"]
 
 EVAL_VERSION = "1"
 """Bumped whenever a change to foldwise would change any stored score; enters every cell id."""
@@ -122,19 +122,69 @@ def range_size(value, kind: str) -> int:
     return int(np.unique(np.round(vals)).size)
 
 
-def count_cells(model: ModelSpec) -> tuple[int, bool]:
-    """Cells a model will have without looking at data; True if a path range makes it an upper bound."""
+EXACT_COUNT_COMBOS = 100_000
+"""Up to this many combinations of a model's non-path values are counted one by one (exact,
+duplicates merged); beyond it the counts are products, upper bounds."""
+
+
+@dataclass(frozen=True)
+class ModelCount:
+    """What one model's grid makes, worked out without data: cells, and the fits each fold
+    takes (a group of cells that differ only in a path parameter is fitted once)."""
+
+    cells: int
+    fits_per_fold: int
+    bound: bool  # True if the cell count is an upper bound ({path: N}, or a huge grid)
+
+
+def _value_count(value, kind: str) -> int:
+    if isinstance(value, PathRange):
+        return value.path
+    if isinstance(value, (LogRange, LinearRange)):
+        return range_size(value, kind)
+    return len(value)
+
+
+def _first_value(value, kind: str):
+    if isinstance(value, PathRange):
+        return 1.0
+    if isinstance(value, (LogRange, LinearRange)):
+        return range_values(value, kind)[0]
+    return value[0]
+
+
+def count_model(model: ModelSpec) -> ModelCount:
+    """Cells and fits per fold of one model, before any data are read.
+
+    Combinations of the values of the parameters that are not path parameters are
+    canonicalised (defaults filled, what cannot matter dropped), so duplicates count once;
+    each is one fit per fold, scoring every path value of it at once when the path
+    parameter matters to it (e.g. not for least squares, which has no alpha)."""
     fam = FAMILIES[model.family]
-    total, bound = 1, False
-    for name, value in model.grid.items():
-        if isinstance(value, PathRange):
-            total *= value.path
-            bound = True
-        elif isinstance(value, (LogRange, LinearRange)):
-            total *= range_size(value, fam.params[name].kind)
-        else:
-            total *= len(value)
-    return total, bound
+    path_name = next((n for n in model.grid if n in fam.path_params), None)
+    path_count = 1 if path_name is None else _value_count(model.grid[path_name],
+                                                          fam.params[path_name].kind)
+    other = {n: v for n, v in model.grid.items() if n != path_name}
+    combos = 1
+    for name, value in other.items():
+        combos *= _value_count(value, fam.params[name].kind)
+    bound = path_name is not None and isinstance(model.grid[path_name], PathRange)
+    if combos > EXACT_COUNT_COMBOS:
+        return ModelCount(combos * path_count, combos, True)
+    names = sorted(other)
+    values = [range_values(other[n], fam.params[n].kind)
+              if isinstance(other[n], (LogRange, LinearRange)) else list(other[n])
+              for n in names]
+    sample = ({} if path_name is None else
+              {path_name: _first_value(model.grid[path_name], fam.params[path_name].kind)})
+    groups: dict[str, bool] = {}
+    for combo in itertools.product(*values):
+        canon = fam.canonical({**dict(zip(names, combo)), **sample})
+        keeps_path = path_name is not None and path_name in canon
+        canon.pop(path_name, None)
+        groups[json.dumps(canon, sort_keys=True)] = keeps_path
+    cells = sum(path_count if keeps else 1 for keeps in groups.values())
+    return ModelCount(cells, len(groups), bound)
 
 
 def expand_spec(spec, *, data_sha256: str, plan_identity: dict,

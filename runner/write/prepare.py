@@ -80,10 +80,11 @@ def load_checked(spec: Spec, *, max_bytes: int | None = None) -> Frame:
     return frame
 
 
-def prepare(spec: Spec, *, lift_limits: bool = False) -> Prepared:
+def prepare(spec: Spec, *, lift_limits: bool = False, paths: bool = True) -> Prepared:
     """Check the plan's size, load and check the data and expand every model's grid; the
-    plan follows on demand. Limits (the spec's `limits`) hold unless `lift_limits`."""
-    check_limits(spec, lifted=lift_limits)
+    plan follows on demand. Limits (the spec's `limits`) hold unless `lift_limits`; the fits
+    limit counts the fits of `paths` (False: every cell on its own)."""
+    check_limits(spec, lifted=lift_limits, paths=paths)
     prep = Prepared(spec, load_checked(spec, max_bytes=data_limit_bytes(spec,
                                                                          lifted=lift_limits)))
     check_plan_memory(spec, plan_counts(spec, prep.frame)[0], lifted=lift_limits)
