@@ -7,6 +7,7 @@ import os
 import re
 import shutil
 import subprocess
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -58,6 +59,21 @@ def _chromium() -> str:
                         ".ci/run installs it with apt-get.")
         pytest.skip("chromium is not installed (apt-get install -y chromium)")
     return found
+
+
+def test_without_chromium_the_browser_test_skips_unless_ci(monkeypatch, tmp_path):
+    # What the README says happens without chromium: a skip, or a failure under CI.
+    monkeypatch.setenv("PATH", str(tmp_path))
+    monkeypatch.delenv("CI", raising=False)
+    with pytest.raises(pytest.skip.Exception, match="chromium is not installed"):
+        _chromium()
+    monkeypatch.setenv("CI", "1")
+    with pytest.raises(pytest.fail.Exception, match="CI must open the report"):
+        _chromium()
+    readme = " ".join((Path(__file__).parents[1] / "README.md").read_text().split())
+    assert ("one test (`test_report_in_a_real_browser`) opens the HTML report in `chromium` "
+            "and without it is skipped") in readme
+    assert "unless the environment variable `CI` is set, when it fails instead" in readme
 
 
 def test_report_in_a_real_browser(explained, report_file, tmp_path):
