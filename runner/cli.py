@@ -156,10 +156,12 @@ def run(spec_file, store_path, jobs, force_jobs, quiet, paths, fresh, cluster, l
     finally:
         if bar is not None:
             bar.close()
-    reused = f" ({result.n_reused} reused from earlier sweeps)" if result.n_reused else ""
-    click.echo(f"sweep {result.sweep_id} {result.status} in {result.seconds:.1f} s: "
-               f"{result.n_cells} cells{reused}, {result.n_fold_rows} fold-score rows, "
-               f"{result.n_test_rows} test-score rows -> {result.store_path}")
+    from .read.views import reuse_text, time_text
+
+    click.echo(f"sweep {result.sweep_id} {result.status} in {time_text(result.seconds)}: "
+               f"{reuse_text(result.n_cells, result.n_reused)}; "
+               f"{result.n_fold_rows} fold-score rows, {result.n_test_rows} test-score rows "
+               f"-> {result.store_path}")
     if result.n_failed_fits:
         click.echo(f"warning: {result.n_failed_fits} fits failed; see "
                    "`foldwise sql \"select * from failures\"`.", err=True)
@@ -234,7 +236,10 @@ def sweeps(store_path, fmt):
     """
     from .read.queries import sweeps as sweeps_df
 
-    emit(sweeps_df(_open_store(store_path)), fmt, title="sweeps")
+    from .read.views import TIME_MEANING
+
+    emit(sweeps_df(_open_store(store_path)), fmt,
+         title=f"sweeps, newest first (seconds: {TIME_MEANING})")
 
 
 @main.command()

@@ -43,6 +43,13 @@ def test_report_rebuilds_identically_from_the_store(explained, report_file):
     assert render_report(store, sid) == report_file.read_text(encoding="utf-8")
 
 
+def test_report_puts_sweep_facts_before_the_cautions(report_file):
+    # The cautions send the reader to the fingerprint "under Sweep facts, above".
+    page = report_file.read_text(encoding="utf-8")
+    assert page.index('id="facts"') < page.index("SHA-256") < page.index('id="cautions"')
+    assert "Sweep facts, above" in page[page.index('id="cautions"'):]
+
+
 def test_report_command(explained, tmp_path):
     _, store, sid = explained
     out = CliRunner().invoke(main, ["report", "--store", str(store.path), "--out",

@@ -82,16 +82,30 @@ def sweep_facts(store: Store, sweep_id: str | None = None) -> SweepFacts:
 
 
 def sweep_record(store: Store, sweep_id: str) -> dict:
-    """The sweep's stored row, with counts of what it holds."""
+    """The sweep's stored row, with counts of what it holds: rows, cells wholly reused
+    (`reused`) and the sweeps they came from (`reused_from`), and the worker seconds of
+    the fits this sweep made itself (`fit_seconds`: one metric's rows, reused rows left
+    out)."""
     sweep = store.query("select * from sweeps where sweep_id = ?", [sweep_id]).iloc[0].to_dict()
+    first = str(sweep["metrics"]).split(",")[0]
     counts = store.query("""
         select (select count(*) from cells where sweep_id = $1) as cells,
+               (select count(*) from cells where sweep_id = $1 and reused_from is not null)
+                   as reused,
                (select count(*) from fold_scores where sweep_id = $1) as fold_rows,
                (select count(*) from test_scores where sweep_id = $1) as test_rows,
                (select count(*) from failures where sweep_id = $1) as failures,
-               (select count(*) from explained where sweep_id = $1) as explained
-        """, [sweep_id]).iloc[0].to_dict()
-    return {**sweep, "counts": {k: int(v) for k, v in counts.items()}}
+               (select count(*) from explained where sweep_id = $1) as explained,
+               coalesce((select sum(fit_seconds) from fold_scores where sweep_id = $1
+                         and metric = $2 and reused_from is null), 0)
+               + coalesce((select sum(fit_seconds) from test_scores where sweep_id = $1
+                           and metric = $2 and reused_from is null), 0) as fit_seconds
+        """, [sweep_id, first]).iloc[0].to_dict()
+    sources = store.query("select distinct reused_from from cells where sweep_id = ? and "
+                          "reused_from is not null order by reused_from", [sweep_id])
+    counts = {k: float(v) if k == "fit_seconds" else int(v) for k, v in counts.items()}
+    counts["reused_from"] = sources["reused_from"].tolist()
+    return {**sweep, "counts": counts}
 
 
 def model_order(store: Store, sweep_id: str) -> list[str]:

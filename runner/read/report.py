@@ -20,8 +20,8 @@ from .queries import (compare, complexity_table, importance_table, picks, stabil
                       summary, sweep_facts, sweep_record, tree_fold_table)
 from ..store import Store
 from .views import (METHODS, STABILITY_COLUMNS, TREE_FOLD_COLUMNS, View, columns_view,
-                    compare_view, complexity_view, decision, importance_matrix, number,
-                    picks_view, stability_sentences, summary_view)
+                    compare_view, complexity_view, decision, importance_matrix,
+                    picks_view, reuse_text, stability_sentences, summary_view, time_text)
 
 __all__ = ["report_context", "render_report", "write_report", "report_path", "CAUTIONS"]
 
@@ -41,8 +41,8 @@ CAUTIONS = [
     "Correlated columns share importance (shuffling one leaves its partner to carry the "
     "signal), and impurity importance favours columns with many distinct values.",
     "Models that inform decisions about people or money must follow your organisation's "
-    "model-risk, fairness and data-protection rules. The spec text and data fingerprint below "
-    "support that audit; they do not replace it.",
+    "model-risk, fairness and data-protection rules. The spec text and data fingerprint under "
+    "Sweep facts, above, support that audit; they do not replace it.",
 ]
 
 
@@ -122,7 +122,9 @@ def report_context(store: Store, sweep_id: str | None = None, *, se: str = "plai
     return {
         "sweep": sweep, "sid": sid, "facts": facts, "counts": counts,
         "versions": ", ".join(f"{k} {v}" for k, v in sorted(versions.items())),
-        "seconds": number(seconds, 3) if seconds is not None else "",
+        "seconds": f"{seconds:.1f} s" if seconds is not None else "",
+        "time": time_text(seconds, counts["fit_seconds"]),
+        "reuse": reuse_text(counts["cells"], counts["reused"], counts["reused_from"]),
         "metric_label": get_metric(metric).axis_label(facts.target),
         "models": [{"name": m, "colour": c} for m, c in colours.items()],
         "decision": decision(rule_picks, pairs, imp),

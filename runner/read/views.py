@@ -18,7 +18,8 @@ from .results import Comparison, ComplexityTable, Coverage, Picks, Summary
 __all__ = ["View", "number", "mean_se", "params_text", "p_text", "value_text", "rule_label",
            "cell_text", "pair_sentence", "pair_sentences", "summary_view", "picks_view",
            "compare_view", "complexity_view", "coverage_notes", "decision", "Decision",
-           "stability_sentences", "columns_view", "importance_matrix", "METHODS"]
+           "stability_sentences", "columns_view", "importance_matrix", "METHODS",
+           "time_text", "reuse_text", "TIME_MEANING"]
 
 
 @dataclass(frozen=True)
@@ -133,6 +134,36 @@ def cell_text(params, keep, leaves=None) -> str:
     if leaves is not None and leaves == leaves:
         text += f" ({leaves:.3g} leaves)"
     return text
+
+
+# -- a sweep's time and reuse ---------------------------------------------------------------
+TIME_MEANING = "from reading the data to the last write"
+"""What a sweep's seconds measure, wherever they are shown (`run`, `sweeps`, the report)."""
+
+
+def time_text(seconds, fit_seconds=None) -> str:
+    """'38.6 s from reading the data to the last write; its fits took 52.1 s of worker
+    time' (worker seconds summed over processes, fits this sweep made itself)."""
+    if _missing(seconds):
+        return "not finished"
+    text = f"{float(seconds):.1f} s {TIME_MEANING}"
+    if fit_seconds is not None and not _missing(fit_seconds) and fit_seconds > 0:
+        text += f"; its own fits took {float(fit_seconds):.1f} s of worker time"
+    return text
+
+
+def reuse_text(cells: int, reused: int, sources=()) -> str:
+    """'42 cells, all reused from sweep X: nothing was fitted', '42 cells, 30 of them reused
+    from ...', or '42 cells, all computed in this sweep'."""
+    where = " from earlier sweeps"
+    if sources:
+        shown = ", ".join(list(sources)[:3]) + (", ..." if len(sources) > 3 else "")
+        where = f" from sweep{'s' if len(sources) > 1 else ''} {shown}"
+    if cells and reused == cells:
+        return f"{_count(cells, 'cell', 'cells')}, all reused{where}: nothing was fitted"
+    if reused:
+        return f"{_count(cells, 'cell', 'cells')}, {reused} of them reused{where}"
+    return f"{_count(cells, 'cell', 'cells')}, all computed in this sweep"
 
 
 # -- sentences -----------------------------------------------------------------------------

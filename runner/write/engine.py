@@ -289,7 +289,7 @@ def run_sweep(spec: Spec, *, store: Store | None = None, jobs: int | None = None
     (`lift_limits` skips that), and more local workers than cores are capped to the cores
     unless `force_jobs` (a note says so through `on_message`). A sweep whose every fit
     failed is stored as 'failed' and raises SweepFailed."""
-    start = time.perf_counter()
+    start, started_at = time.perf_counter(), datetime.now()  # the sweep's time starts here
     prep = prepare(spec, lift_limits=lift_limits, paths=paths)
     store = store or Store(store_path(spec), on_wait=on_message)
     # A --no-paths sweep is a check of the path evaluators: it refits every cell, never
@@ -325,7 +325,7 @@ def run_sweep(spec: Spec, *, store: Store | None = None, jobs: int | None = None
             "data_sha256": prep.frame.sha256, "target": prep.frame.target,
             "n_train": n_train, "n_test": n_test, "k": spec.folds.k,
             "repeats": spec.folds.repeats, "plan_seed": spec.folds.seed, "metrics": ",".join(spec.metrics), "pick_rule": spec.pick,
-            "started_at": datetime.now(), "finished_at": None, "status": "running",
+            "started_at": started_at, "finished_at": None, "status": "running",
             "versions": _versions(), "host": host, "user_name": _user(), "pid": os.getpid()},
             cells_df, {m: METRICS[m].better for m in spec.metrics})
         done, reused, copied = copy_scores(store, sweep_id, prep, found)
@@ -383,16 +383,25 @@ def run_sweep(spec: Spec, *, store: Store | None = None, jobs: int | None = None
         except KeyboardInterrupt:
             status = "interrupted"
             flush()
-            store.finish_sweep(sweep_id, status)
+            store.finish_sweep(sweep_id, status, _ended(started_at, start))
             raise SweepInterrupted(f"sweep {sweep_id} interrupted; {done} of {total} tasks kept "
                                    f"in {store.path}.") from None
         except BaseException:
-            store.finish_sweep(sweep_id, "failed")
+            store.finish_sweep(sweep_id, "failed", _ended(started_at, start))
             raise
-        store.finish_sweep(sweep_id, status)
+        ended = _ended(started_at, start)
+        store.finish_sweep(sweep_id, status, ended)
         return SweepResult(sweep_id, str(store.path), status, len(prep.cells), counts["fold"],
-                           counts["test"], counts["failed"], time.perf_counter() - start,
+                           counts["test"], counts["failed"], (ended - started_at).total_seconds(),
                            n_reused=len(reused), n_fitted=len(prep.cells) - len(reused))
+
+
+def _ended(started_at: datetime, start: float) -> datetime:
+    """Now, as the start's wall-clock time plus the monotonic time since, so that the stored
+    duration equals the one `run` prints (and a clock change meanwhile moves neither)."""
+    from datetime import timedelta
+
+    return started_at + timedelta(seconds=time.perf_counter() - start)
 
 
 def _all_failed(sweep_id: str, n: int, why: Counter, where) -> str:
