@@ -94,4 +94,19 @@ def test_a_store_of_schema_version_1_is_upgraded_keeping_spec_order(explained, t
     upgraded = Store(old.path)
     assert upgraded.query("select cell_id from cells order by position")["cell_id"].tolist() \
         == order
-    assert upgraded.query("select value from foldwise_meta")["value"].tolist() == ["2"]
+    assert upgraded.query("select value from foldwise_meta")["value"].tolist() == ["3"]
+
+
+def test_a_store_of_schema_version_2_gains_the_refit_sizes_column(explained, tmp_path):
+    _, store, sweep_id = explained
+    old = Store(tmp_path / "old.duckdb")
+    merge_store(old, store.path)
+    with duckdb.connect(str(old.path)) as con:  # what a version-2 store looked like
+        con.execute("alter table explained drop column n_terms")
+        con.execute("update foldwise_meta set value = '2' where key = 'schema_version'")
+    upgraded = Store(old.path)
+    sizes = upgraded.query("select n_terms from explained where sweep_id = ?", [sweep_id])
+    assert len(sizes) > 0 and sizes["n_terms"].isna().all()  # known only to newer sweeps
+    assert upgraded.query("select value from foldwise_meta")["value"].tolist() == ["3"]
+    upgraded.ensure_schema()  # the upgrade step is idempotent
+    merge_store(upgraded, store.path)

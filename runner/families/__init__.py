@@ -13,7 +13,7 @@ from dataclasses import dataclass, field
 from typing import Any, Callable
 
 __all__ = ["FAMILIES", "Family", "Param", "get_family", "load_family", "nearest",
-           "check_param_value"]
+           "check_param_value", "READABLE_LEAVES", "READABLE_COEFFICIENTS"]
 
 
 @dataclass(frozen=True)
@@ -62,7 +62,9 @@ class Family:
     path_params: tuple[str, ...] = field(default=())
     importance: str = "impurity"  # the fitted model's own importance: impurity/coefficient
     one_tree: bool = False  # the fitted model is one tree: leaves, shape and nodes are kept
-    readable: bool = False  # a person can read the fitted model as it is
+    readable_size: int | None = None  # the largest fitted model a person reads whole
+    size_word: str = ""  # what that size counts, e.g. "leaves"
+    size_param: str | None = None  # a parameter that states the size (a forest's trees)
     plural: str = "models"  # what its fitted models are called, e.g. "forests"
     explain_cost: float = 1.0  # a refit's rough cost, to start the slowest first
     tidy: Callable[[dict], None] | None = None  # drops what cannot matter, in place
@@ -70,6 +72,23 @@ class Family:
     @property
     def defaults(self) -> dict[str, Any]:
         return {name: p.default for name, p in self.params.items()}
+
+    def size_text(self, n) -> str:
+        """'79 leaves', '1 non-zero coefficient' ('' when unknown)."""
+        if n is None or n != n or not self.size_word:
+            return ""
+        word = self.size_word[:-1] if round(n) == 1 and self.size_word.endswith("s") else \
+            self.size_word
+        return f"{round(n)} {word}"
+
+    def readable(self, n) -> bool | None:
+        """Whether a fitted model of this size can be read whole: True, False, or None
+        when its size is not known (a family without `readable_size` never is)."""
+        if self.readable_size is None:
+            return False
+        if n is None or n != n:
+            return None
+        return round(n) <= self.readable_size
 
     @property
     def estimators(self):
@@ -120,6 +139,15 @@ def _tidy_forest(p: dict) -> None:
         p["max_samples"] = None
 
 
+READABLE_LEAVES = 16
+"""The most leaves a pruned tree may have to count as readable whole: 15 splits, a drawing
+of four levels or a page of rules (our judgement, not a standard)."""
+
+READABLE_COEFFICIENTS = 30
+"""The most non-zero coefficients a linear model may have to count as readable whole: one
+table a person can take in, one row a term (our judgement, not a standard)."""
+
+
 FAMILIES: dict[str, Family] = {
     "linear": Family(
         name="linear",
@@ -138,7 +166,8 @@ FAMILIES: dict[str, Family] = {
         ),
         complexity_order=("penalty", "alpha"),
         path_params=("alpha",),
-        importance="coefficient", readable=True, plural="linear models", tidy=_tidy_linear,
+        importance="coefficient", plural="linear models", tidy=_tidy_linear,
+        readable_size=READABLE_COEFFICIENTS, size_word="non-zero coefficients",
     ),
     "pruned_tree": Family(
         name="pruned_tree",
@@ -158,7 +187,8 @@ FAMILIES: dict[str, Family] = {
         complexity_order=("ccp_alpha", "ccp_fraction", "min_samples_leaf", "max_depth",
                           "max_features"),
         path_params=("ccp_alpha", "ccp_fraction"),
-        one_tree=True, readable=True, plural="trees", tidy=_tidy_tree,
+        one_tree=True, plural="trees", tidy=_tidy_tree,
+        readable_size=READABLE_LEAVES, size_word="leaves",
     ),
     "forest": Family(
         name="forest",
@@ -179,6 +209,7 @@ FAMILIES: dict[str, Family] = {
         complexity_order=("min_samples_leaf", "max_features", "max_depth", "n_estimators"),
         path_params=("n_estimators",),
         plural="forests", explain_cost=3.0, tidy=_tidy_forest,
+        size_word="trees", size_param="n_estimators",
     ),
 }
 

@@ -18,7 +18,7 @@ from ._base import CellFit, fit_grouped, linear_preprocessor, work_units
 from .paths import elastic_net_path_coefs, ridge_path_coefs
 
 __all__ = ["make_estimator", "fit_cells", "fit_units", "own_importance", "original_scale_coefficients",
-           "PATH_PARAMS"]
+           "model_size", "PATH_PARAMS"]
 
 PATH_PARAMS = ("alpha",)
 _CD_TOL, _CD_MAX_ITER = 1e-4, 1000  # Lasso's and ElasticNet's defaults
@@ -81,6 +81,12 @@ def fit_units(cells, *, paths=True):
     return work_units(cells, PATH_PARAMS, paths=paths, eligible=_penalised,
                       cost_alone=lambda params: 0.02,
                       cost_group=lambda group: 0.03 + 0.002 * len(group))
+
+
+def model_size(pipeline: Pipeline) -> int:
+    """The fitted model's size as a person reads it: its non-zero coefficients (one-hot
+    levels counted one by one; the intercept not counted)."""
+    return int(np.count_nonzero(pipeline.named_steps["model"].coef_))
 
 
 def original_scale_coefficients(pipeline: Pipeline) -> tuple[dict[str, float], float]:

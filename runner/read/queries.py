@@ -249,7 +249,9 @@ def picks(store: Store, sweep_id: str | None = None, *, rule: str | None = None,
           se: str = "plain", model: str | None = None) -> Picks:
     """The picked cell of each model: one row per model and rule (both rules when rule is None).
 
-    Cells with a failed fit or fewer fold scores than k·r are never picked."""
+    Cells with a failed fit or fewer fold scores than k·r are never picked. `n_terms` is
+    the size of the cell's refit where the explain step stored it (leaves of a tree,
+    non-zero coefficients of a linear model), `mean_leaves` a tree's mean over folds."""
     check_rule(rule)
     check_se(se)
     facts = sweep_facts(store, sweep_id)
@@ -263,14 +265,15 @@ def picks(store: Store, sweep_id: str | None = None, *, rule: str | None = None,
             select model, 'one_se' as rule, one_se_cell as cell_id from chosen)
         select p.model, j.family, p.rule, p.cell_id, j.params, j.complexity_rank,
                b.better, $2 as metric, j.mean, j.se, j.sd, j.n, b.best_mean, b.best_se,
-               b.threshold, c.n_within, t.value as test, j.mean_leaves, e.cells, e.eligible,
-               j.model_row
+               b.threshold, c.n_within, t.value as test, j.mean_leaves, x.n_terms, e.cells,
+               e.eligible, j.model_row
         from picked p
         join judged j using (model, cell_id)
         join bars b using (model)
         join chosen c using (model)
         join eligible e using (model)
         left join test_scores t on t.sweep_id = $1 and t.cell_id = p.cell_id and t.metric = $2
+        left join explained x on x.sweep_id = $1 and x.cell_id = p.cell_id
         where list_contains($6::varchar[], p.rule)
         order by j.model_row, p.rule""", [*args, rules])
     df = df.drop(columns=["model_row"]).reset_index(drop=True)

@@ -23,7 +23,7 @@ import pandas as pd
 
 from ..errors import StoreError
 from .locations import FileLocation, ServerLocation, locate
-from .schema import DEFAULT_STORE, SCHEMA_VERSION, TABLE_SQL, TABLES, VIEW_SQL
+from .schema import DEFAULT_STORE, SCHEMA_VERSION, TABLE_SQL, TABLES, UPGRADE_SQL, VIEW_SQL
 
 __all__ = ["Store", "SCHEMA_VERSION", "DEFAULT_STORE", "TABLES", "VIEW_SQL", "Notices"]
 
@@ -163,6 +163,9 @@ class Store:
             con.execute("alter table cells add column position integer")
             con.execute("update cells set position = rowid")
         con.execute(TABLE_SQL)
+        if found is not None:  # tables made by an older foldwise gain the newer columns
+            for statement in UPGRADE_SQL:
+                con.execute(statement)
         if not self.location.shared:  # a server's view lives in each connection
             con.execute(VIEW_SQL)
         con.execute("insert or replace into foldwise_meta values ('schema_version', ?)",

@@ -6,10 +6,11 @@ from __future__ import annotations
 
 from pathlib import Path
 
-__all__ = ["SCHEMA_VERSION", "DEFAULT_STORE", "TABLE_SQL", "VIEW_SQL", "TABLES"]
+__all__ = ["SCHEMA_VERSION", "DEFAULT_STORE", "TABLE_SQL", "UPGRADE_SQL", "VIEW_SQL", "TABLES"]
 
-SCHEMA_VERSION = 2
-"""2: cells.position keeps spec order explicit (a server table has no insertion order)."""
+SCHEMA_VERSION = 3
+"""2: cells.position keeps spec order explicit (a server table has no insertion order).
+3: explained.n_terms, the size of an explained cell's refit (see UPGRADE_SQL)."""
 DEFAULT_STORE = Path("results") / "foldwise.duckdb"
 
 TABLE_SQL = """
@@ -57,9 +58,15 @@ create table if not exists tree_nodes (
 create table if not exists test_predictions (
     sweep_id varchar, cell_id varchar, "row" integer, observed double, predicted double);
 create table if not exists explained (
-    sweep_id varchar, cell_id varchar, settings json, reused_from varchar,
+    sweep_id varchar, cell_id varchar, settings json, reused_from varchar, n_terms integer,
     primary key (sweep_id, cell_id));
 """
+
+UPGRADE_SQL = [
+    "alter table explained add column if not exists n_terms integer",
+]
+"""Columns added to existing tables since schema version 2, each statement idempotent and
+independent of the others (run on every upgrade, in any order)."""
 
 VIEW_SQL = """
 create or replace view cell_summary as

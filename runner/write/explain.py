@@ -20,6 +20,8 @@ For every chosen cell (by default each model's best and one-SE picks; the spec's
 - `tree_folds`: each pruned tree fold refit's leaves, depth, root split and used columns.
 - `tree_nodes`: the refit tree's nodes (for drawing it); `test_predictions`: the refit's
   predictions on the test rows (for predicted-against-observed plots).
+- `explained`: the cell's mark, with `n_terms`, the refit's size as a person reads it
+  (a tree's leaves, a linear model's non-zero coefficients; null for a forest).
 
 Fold refits use the plan's folds and seeds and the refit uses `refit_seed`, exactly as the
 sweep did, so a refit predicts what the sweep scored."""
@@ -43,8 +45,9 @@ from ..store import Store
 __all__ = ["explain_sweep", "ExplainResult", "chosen_cells", "permutation_rows"]
 
 
-EXPLAIN_VERSION = "1"
-"""Bumped whenever a change here would change stored explain rows; stops their reuse."""
+EXPLAIN_VERSION = "2"
+"""Bumped whenever a change here would change stored explain rows; stops their reuse.
+2: the refit's size (leaves, non-zero coefficients) is stored in `explained.n_terms`."""
 
 
 @dataclass
@@ -125,6 +128,8 @@ def _refit_task(family, cell_id, params, X_train, y_train, X_test, y_test, test_
         own = fam.estimators.own_importance(est, X_train, features)
         predicted = est.predict(X_test)
         nodes = fam.estimators.tree_node_rows(est) if fam.one_tree else []
+        size = getattr(fam.estimators, "model_size", None)
+        n_terms = size(est) if size is not None else None
     except Exception as exc:
         return cell_id, {}, f"{cell_id} refit: {type(exc).__name__}: {exc}"
     imp = [{"cell_id": cell_id, "feature": f, "method": "permutation", "value": m, "spread": s}
@@ -135,7 +140,8 @@ def _refit_task(family, cell_id, params, X_train, y_train, X_test, y_test, test_
             "test_predictions": [{"cell_id": cell_id, "row": int(r), "observed": float(o),
                                   "predicted": float(p)}
                                  for r, o, p in zip(test_rows, y_test, predicted)],
-            "tree_nodes": [{"cell_id": cell_id, **n} for n in nodes]}
+            "tree_nodes": [{"cell_id": cell_id, **n} for n in nodes],
+            "explained": [{"n_terms": n_terms}]}
     return cell_id, rows, None
 
 
@@ -258,10 +264,13 @@ def _store_cell(store: Store, sweep_id: str, cell_id: str, tables: dict[str, lis
                 settings: str, result: ExplainResult) -> None:
     """Write one explained cell's rows and its `explained` mark in one transaction, so a
     sweep stopped at any moment keeps every cell it finished, each of them whole."""
+    mark = {"sweep_id": sweep_id, "cell_id": cell_id, "settings": settings,
+            "reused_from": None, "n_terms": None}
+    for row in tables.pop("explained", []):  # the refit's size
+        mark.update(row)
     dfs = {t: pd.DataFrame(rows).assign(sweep_id=sweep_id) for t, rows in tables.items()
            if rows}
-    dfs["explained"] = pd.DataFrame([{"sweep_id": sweep_id, "cell_id": cell_id,
-                                      "settings": settings, "reused_from": None}])
+    dfs["explained"] = pd.DataFrame([mark]).astype({"n_terms": "Int64"})
     if "importances" in dfs:
         dfs["importances"] = _spreads(dfs["importances"], dfs.get("fold_importances",
                                                                   pd.DataFrame()))

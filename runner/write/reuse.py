@@ -68,14 +68,15 @@ def copy_explained(store: Store, sweep_id: str, cell_ids: list[str], settings: s
     # settings are compared here, not in SQL: a server cannot compare its JSON column to text
     found = store.query("""
         select cell_id, sweep_id, coalesce(reused_from, sweep_id) as origin,
-               settings::varchar as settings from explained
+               settings::varchar as settings, n_terms from explained
         where sweep_id <> ? and list_contains(?::varchar[], cell_id)""", [sweep_id, cell_ids])
     found = found[found["settings"] == settings]
     if found.empty:
         return []
     found = found.sort_values(["cell_id", "sweep_id"]).drop_duplicates("cell_id")
     marks = pd.DataFrame({"sweep_id": sweep_id, "cell_id": found["cell_id"],
-                          "settings": settings, "reused_from": found["origin"]})
+                          "settings": settings, "reused_from": found["origin"],
+                          "n_terms": found["n_terms"].astype("Int64")})
     store.copy_rows(sweep_id, found[["cell_id", "sweep_id"]],
                     {t: ("cell_id",) for t in EXPLAIN_TABLES}, also={"explained": marks})
     return found["cell_id"].tolist()
