@@ -18,7 +18,7 @@ import pandas as pd
 from .compare import holm, t_from_moments
 from ..errors import QueryError
 from ..families import get_family, nearest
-from .picks import RULES, TOLERANCE, check_rule, check_se
+from .picks import RULES, TOLERANCE, check_rule, check_se, grid_edges
 from .results import (CellStats, Comparison, ComplexityTable, Importances, Picks, Stability,
                       Summary, SweepFacts)
 from ..store import Store
@@ -278,7 +278,23 @@ def picks(store: Store, sweep_id: str | None = None, *, rule: str | None = None,
         order by j.model_row, p.rule""", [*args, rules])
     df = df.drop(columns=["model_row"]).reset_index(drop=True)
     return Picks(facts, tuple(rules), se, df, coverage(store, facts, model=model),
-                 varying_params(store, facts.sweep_id))
+                 varying_params(store, facts.sweep_id), _edges(store, facts.sweep_id, df))
+
+
+def _edges(store: Store, sweep_id: str, picked: pd.DataFrame) -> pd.DataFrame:
+    """Each picked cell's parameters on the edge of its model's grid (`picks.grid_edges`)."""
+    cells = store.query("select model, params from cells where sweep_id = ?", [sweep_id])
+    grids: dict[str, list[dict]] = {}
+    for model, params in zip(cells["model"], cells["params"]):
+        grids.setdefault(model, []).append(json.loads(params))
+    rows = []
+    for r in picked.itertuples(index=False):
+        leaves = None if pd.isna(r.mean_leaves) else float(r.mean_leaves)
+        for name, side, value in grid_edges(r.family, grids.get(r.model, []),
+                                            json.loads(r.params), leaves):
+            rows.append({"model": r.model, "family": r.family, "rule": r.rule, "param": name,
+                         "side": side, "value": value})
+    return pd.DataFrame(rows, columns=["model", "family", "rule", "param", "side", "value"])
 
 
 def coverage(store: Store, facts: SweepFacts, *, model: str | None = None):
@@ -332,6 +348,7 @@ def summary(store: Store, sweep_id: str | None = None, *,
                                       "params", "rule"] + [f"{part}_{m}" for m in facts.metrics
                                                            for part in ("cv", "se", "test")])
         return Summary(facts, rule, table, chosen.coverage, chosen.varying)
+    edges = picks(store, facts.sweep_id).edges  # both rules: a best on the edge matters too
     wide = long.pivot_table(index=["first_row", "model", "family", "cells", "failed_cells",
                                    "cell_id", "params"],
                             columns="metric", values=["mean", "se", "test"], aggfunc="first")
@@ -345,7 +362,7 @@ def summary(store: Store, sweep_id: str | None = None, *,
         ordered += [f"cv_{m}", f"se_{m}", f"test_{m}"]
     out = out[[c for c in ordered if c in out.columns]].reset_index(drop=True)
     out.insert(6, "rule", rule)
-    return Summary(facts, rule, out, chosen.coverage, chosen.varying)
+    return Summary(facts, rule, out, chosen.coverage, chosen.varying, edges)
 
 
 # -- the complexity table ------------------------------------------------------------------

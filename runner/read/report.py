@@ -20,6 +20,7 @@ from .queries import (compare, complexity_table, importance_table, picks, stabil
                       summary, sweep_facts, sweep_record, tree_fold_table)
 from ..store import Store
 from .views import (METHODS, STABILITY_COLUMNS, TREE_FOLD_COLUMNS, View, columns_view,
+                    edge_notes,
                     compare_view, complexity_view, decision, importance_matrix,
                     picks_view, reuse_text, stability_sentences, summary_view, time_text)
 
@@ -118,7 +119,8 @@ def report_context(store: Store, sweep_id: str | None = None, *, se: str = "plai
             sweep[key] = pd.Timestamp(sweep[key]).strftime("%Y-%m-%d %H:%M:%S")
     compare_shown = compare_view(pairs)
     summary_shown = summary_view(summary(store, sid))
-    picks_shown = picks_view(picks(store, sid, se=se))
+    both_picks = picks(store, sid, se=se)
+    picks_shown = picks_view(both_picks)
     return {
         "sweep": sweep, "sid": sid, "facts": facts, "counts": counts,
         "versions": ", ".join(f"{k} {v}" for k, v in sorted(versions.items())),
@@ -131,6 +133,7 @@ def report_context(store: Store, sweep_id: str | None = None, *, se: str = "plai
         "stability_sentences": stability_sentences(stab),
         "summary": _html(summary_shown), "summary_title": summary_shown.title,
         "picks": _html(picks_shown), "picks_title": picks_shown.title,
+        "edges": [n.removeprefix("note: ") for n in edge_notes(both_picks.edges)],
         "compare": _html(compare_shown), "compare_title": compare_shown.title,
         "compare_words": list(compare_shown.sentences),
         "compare_note": " ".join(c.removeprefix("note: ") for c in compare_shown.caveats),

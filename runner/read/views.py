@@ -19,7 +19,7 @@ __all__ = ["View", "number", "mean_se", "params_text", "p_text", "value_text", "
            "cell_text", "pair_sentence", "pair_sentences", "summary_view", "picks_view",
            "compare_view", "complexity_view", "coverage_notes", "decision", "Decision",
            "stability_sentences", "columns_view", "importance_matrix", "METHODS",
-           "time_text", "reuse_text", "TIME_MEANING"]
+           "time_text", "reuse_text", "TIME_MEANING", "edge_notes"]
 
 
 @dataclass(frozen=True)
@@ -256,6 +256,31 @@ def coverage_notes(coverage: Coverage, sweep_id: str, n_folds: int) -> tuple[str
     return tuple(f"note: {n}" for n in notes)
 
 
+def edge_notes(edges: pd.DataFrame) -> tuple[str, ...]:
+    """One sentence per picked cell on the edge of its grid, saying which way to extend it:
+    past the edge, a best cell may score better still, and a one-SE cell on its simpler
+    edge may have a simpler cell within one SE."""
+    out = []
+    if edges is None or edges.empty:
+        return ()
+    for r in edges.itertuples(index=False):
+        param = get_family(r.family).params.get(r.param)
+        low = r.side == "low"
+        way = "below" if low else "above"
+        simpler = param is not None and param.simpler == ("lower" if low else "higher")
+        if r.rule == "best":
+            why = f"the best {r.param} may lie {way} it"
+        elif simpler:
+            why = "a simpler cell may still be within one SE"
+        else:
+            why = "the best cell, and the one-SE cell with it, may lie beyond it"
+        out.append(f"note: {r.model}'s {rule_label(r.rule)} cell sits on the edge of its grid: "
+                   f"{r.param} = {value_text(r.value)} is the {'smallest' if low else 'largest'} "
+                   f"value tried, so {why}; extend the grid of {r.param} {way} "
+                   f"{value_text(r.value)}.")
+    return tuple(out)
+
+
 # -- tables --------------------------------------------------------------------------------
 def _cv_head(metric: str) -> str:
     return f"CV {metric_label(metric)} (mean ± SE)"
@@ -286,7 +311,8 @@ def summary_view(result: Summary) -> View:
     title = (f"sweep {facts.sweep_id}: picked cell per model ({rule_label(result.rule)} "
              f"rule) by CV {metric_label(facts.metric)}")
     return View(title, shown.reset_index(drop=True), tuple(numeric),
-                notes=coverage_notes(result.coverage, facts.sweep_id, facts.n_folds))
+                notes=coverage_notes(result.coverage, facts.sweep_id, facts.n_folds)
+                + edge_notes(result.edges))
 
 
 def picks_view(result: Picks) -> View:
@@ -315,7 +341,8 @@ def picks_view(result: Picks) -> View:
              f"better, {result.se} SE; rank 0 = simplest; the sweep's rule is "
              f"{rule_label(facts.rule)})")
     return View(title, pd.DataFrame(rows), tuple(dict.fromkeys(numeric)),
-                notes=coverage_notes(result.coverage, facts.sweep_id, facts.n_folds))
+                notes=coverage_notes(result.coverage, facts.sweep_id, facts.n_folds)
+                + edge_notes(result.edges))
 
 
 def compare_view(result: Comparison) -> View:
