@@ -35,7 +35,8 @@ def swept(tmp_path, diabetes_csv):
 def test_run_reports_rows(swept):
     _, _, result = swept
     # 4 cells x (3 folds x 2 repeats) x 3 metrics fold rows; 4 cells x 3 metrics test rows
-    assert "4 cells, 72 fold-score rows, 12 test-score rows" in result.output
+    assert "4 cells, all computed in this sweep; 72 fold-score rows, 12 test-score rows" in \
+        result.output
 
 
 def test_check_prints_plan_and_writes_nothing(tmp_path, diabetes_csv):
@@ -53,7 +54,7 @@ def test_summary_json_equals_fold_rows(swept):
     _, store, _ = swept
     out = invoke("summary", "--store", store, "--format", "json")
     assert out.exit_code == 0, out.output
-    rows = {r["model"]: r for r in json.loads(out.output)}
+    rows = {r["model"]: r for r in json.loads(out.stdout)}
     assert set(rows) == {"ridge", "tree"}
     # Recompute from the raw fold rows with pandas.
     raw = invoke("sql", "--store", store, "--format", "csv",
@@ -76,7 +77,7 @@ def test_json_gives_params_as_objects_and_every_digit(swept):
     from runner.store import Store
 
     _, store, _ = swept
-    rows = json.loads(invoke("summary", "--store", store, "--format", "json").output)
+    rows = json.loads(invoke("summary", "--store", store, "--format", "json").stdout)
     api = summary(Store(store)).table
     for row, (_, ref) in zip(rows, api.iterrows()):
         assert row["params"] == json.loads(ref["params"]) and isinstance(row["params"], dict)
@@ -91,7 +92,7 @@ def test_sql_and_sweeps(swept):
     assert json.loads(out.output) == [{"metric": "mae", "n": 24}, {"metric": "r2", "n": 24},
                                       {"metric": "rmse", "n": 24}]
     out = invoke("sweeps", "--store", store, "--format", "json")
-    (sweep,) = json.loads(out.output)
+    (sweep,) = json.loads(out.stdout)
     assert sweep["status"] == "finished" and sweep["cells"] == 4 and sweep["fold_rows"] == 72
     assert (sweep["n_train"], sweep["n_test"], sweep["k"], sweep["repeats"]) == (331, 111, 3, 2)
 
