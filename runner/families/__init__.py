@@ -45,7 +45,7 @@ class Param:
             return (math.log2(n) if value == "log2" else math.sqrt(n)) / n
         if self.kind == "max_features" and isinstance(value, int):
             return value / (n_features or 100)
-        return float(value)
+        return float(f"{float(value):.12g}")  # values equal in meaning rank equal
 
 
 @dataclass(frozen=True)

@@ -404,6 +404,10 @@ class Store:
         self._transaction(work, what="recording reused cells")
 
     # -- reading ---------------------------------------------------------------------------
+    def holds_tables(self) -> bool:
+        """True if the store exists and holds foldwise's tables (nothing is created)."""
+        return self._has_schema()
+
     def _has_schema(self) -> bool:
         if not self.location.exists():
             return False

@@ -44,7 +44,7 @@ from ..metrics import METRICS
 from .prepare import Prepared, load_checked, prepare
 from ..read.queries import process_alive
 from .resampling import REFIT, Fold, make_plan, plan_counts, refit_seed
-from .reuse import all_found, copy_scores, find_scores
+from .reuse import all_found, copy_scores, find_scores, version_note
 from .spec import Spec
 from ..store import DEFAULT_STORE, Store
 
@@ -139,13 +139,14 @@ def store_path(spec: Spec, override=None):
 
 
 def _versions() -> dict:
-    from importlib.metadata import version
-
+    """What a sweep records of its software: every package whose version enters a cell id,
+    with Python, DuckDB and foldwise."""
     import duckdb
 
-    return {"python": platform.python_version(), "scikit-learn": version("scikit-learn"),
-            "duckdb": duckdb.__version__, "pandas": pd.__version__, "numpy": np.__version__,
-            "foldwise": __version__}
+    from .grid import score_versions
+
+    return {"python": platform.python_version(), **score_versions(),
+            "duckdb": duckdb.__version__, "foldwise": __version__}
 
 
 def _run_task(family: str, cells: list[tuple[str, dict]], X_fit, y_fit, X_eval, y_eval, *,
@@ -297,6 +298,10 @@ def run_sweep(spec: Spec, *, store: Store | None = None, jobs: int | None = None
     fresh = fresh or not paths
     found = find_scores(store, prep, fresh=fresh)
     quick = all_found(prep, found)
+    if not quick and not fresh and on_message is not None:
+        note = version_note(store, prep, found)
+        if note:
+            on_message(note)
     if not quick:
         prep.plan  # builds and checks the plan before anything is written
     hold = contextlib.ExitStack()

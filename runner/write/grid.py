@@ -15,10 +15,14 @@ from ..families import FAMILIES
 from .spec import LinearRange, LogRange, ModelSpec, PathRange
 
 __all__ = ["Cell", "expand_model", "expand_spec", "cell_id", "EVAL_VERSION", "range_values",
-           "spread_along_path", "count_model", "ModelCount", "range_size"]
+           "spread_along_path", "count_model", "ModelCount", "range_size", "same_value",
+           "SCORE_PACKAGES", "score_versions"]
 
-EVAL_VERSION = "1"
-"""Bumped whenever a change to foldwise would change any stored score; enters every cell id."""
+EVAL_VERSION = "2"
+"""Bumped whenever a change to foldwise would change any stored score; enters every cell id.
+2: numeric columns listed as categorical are coded in numeric order (they were text order);
+{path: N} gives one set of alphas per model (it was one per combination); cell ids hold
+the versions of the packages that change scores."""
 
 
 @dataclass(frozen=True)
@@ -49,34 +53,73 @@ def range_values(value, kind: str) -> list:
     return [float(v) for v in vals]
 
 
-def spread_along_path(path_alphas: np.ndarray, n: int) -> list[float]:
-    """`n` alphas spread evenly by position along a pruning path's distinct alphas."""
-    distinct = np.unique(np.asarray(path_alphas, dtype=float))
+SAME_DIGITS = 12
+"""Significant digits to which two alphas are the same value: pruning paths computed on
+trees of different shapes give the same alpha up to rounding in the last bits."""
+
+
+def same_value(x: float) -> float:
+    """`x` rounded to SAME_DIGITS significant digits, so values equal in meaning are equal."""
+    return float(f"{float(x):.{SAME_DIGITS}g}")
+
+
+def spread_along_path(path_alphas, n: int) -> list[float]:
+    """`n` alphas spread evenly by position along the distinct alphas of one or more pruning
+    paths (merged). Alphas equal to SAME_DIGITS significant digits count once, as the largest
+    of them, so that every tree whose path holds that alpha is pruned at it."""
+    largest: dict[float, float] = {}
+    for a in np.asarray(path_alphas, dtype=float).ravel():
+        key = same_value(a)
+        largest[key] = max(largest.get(key, a), a)
+    distinct = np.array(sorted(largest.values()))
     if len(distinct) <= n:
         return [float(a) for a in distinct]
     picks = np.unique(np.linspace(0, len(distinct) - 1, n).round().astype(int))
     return [float(distinct[i]) for i in picks]
 
 
+SCORE_PACKAGES = ("scikit-learn", "numpy", "scipy", "pandas")
+"""The packages whose versions can change a score. Their versions enter every cell id (a
+rerun after an upgrade computes its scores anew rather than copying the old ones), and
+Dask workers must have the same ones as this machine (write/executors.py)."""
+
+
+def score_versions() -> dict[str, str]:
+    """The installed versions of SCORE_PACKAGES ('missing' for one not installed)."""
+    from importlib.metadata import PackageNotFoundError, version
+
+    found = {}
+    for name in SCORE_PACKAGES:
+        try:
+            found[name] = version(name)
+        except PackageNotFoundError:
+            found[name] = "missing"
+    return found
+
+
 def cell_id(family: str, params: dict, data_sha256: str, plan_identity: dict, *,
-            model: str = "") -> str:
-    """A stable hash of (model label, family, params, data, plan, evaluation version).
+            model: str = "", versions: dict | None = None) -> str:
+    """A stable hash of (model label, family, params, data, plan, evaluation version and
+    the versions of the packages that can change a score).
 
     The label is part of it so two models that share a grid point stay two cells."""
     payload = json.dumps({"model": model, "family": family, "params": params,
-                          "data": data_sha256, "plan": plan_identity, "eval": EVAL_VERSION},
-                         sort_keys=True)
+                          "data": data_sha256, "plan": plan_identity, "eval": EVAL_VERSION,
+                          "versions": versions or {}}, sort_keys=True)
     return hashlib.sha256(payload.encode()).hexdigest()[:16]
 
 
-PathResolver = Callable[[str, dict, int], list]
-"""(model label, the cell's other params, N) -> concrete ccp_alpha values."""
+PathResolver = Callable[[str, dict], list]
+"""(model label, the other params of a combination) -> that combination's pruning path."""
 
 
 def expand_model(label: str, model: ModelSpec, *, data_sha256: str, plan_identity: dict,
                  resolve_path: PathResolver | None = None,
-                 n_features: int | None = None) -> list[Cell]:
-    """All cells of one model, ranked simplest first, without duplicates."""
+                 n_features: int | None = None, versions: dict | None = None) -> list[Cell]:
+    """All cells of one model, ranked simplest first, without duplicates.
+
+    A {path: N} grid gives every combination of the other parameters the same N values,
+    spread along the merged pruning paths of all the combinations' trees."""
     fam = FAMILIES[model.family]
     fixed, paths = {}, {}
     for name, value in model.grid.items():
@@ -88,16 +131,15 @@ def expand_model(label: str, model: ModelSpec, *, data_sha256: str, plan_identit
             fixed[name] = list(value)
     names = sorted(fixed)
     combos = [dict(zip(names, combo)) for combo in itertools.product(*(fixed[n] for n in names))]
-    params_list = []
-    for combo in combos:
-        if paths:
-            (pname, n), = paths.items()
-            if resolve_path is None:
-                raise ValueError("a {path: N} grid needs the data; resolve it with resolve_path")
-            for alpha in resolve_path(label, combo, n):
-                params_list.append({**combo, pname: alpha})
-        else:
-            params_list.append(combo)
+    params_list = combos
+    if paths:
+        (pname, n), = paths.items()
+        if resolve_path is None:
+            raise ValueError("a {path: N} grid needs the data; resolve it with resolve_path")
+        merged = np.concatenate([np.asarray(resolve_path(label, combo), dtype=float)
+                                 for combo in combos])
+        values = spread_along_path(merged, n)
+        params_list = [{**combo, pname: alpha} for combo in combos for alpha in values]
     unique = {}
     for params in params_list:
         canon = fam.canonical(params)
@@ -106,7 +148,8 @@ def expand_model(label: str, model: ModelSpec, *, data_sha256: str, plan_identit
                      key=lambda p: (fam.complexity_key(p, model.simpler, n_features),
                                     json.dumps(p, sort_keys=True)))
     return [Cell(label, model.family, p,
-                 cell_id(model.family, p, data_sha256, plan_identity, model=label), i)
+                 cell_id(model.family, p, data_sha256, plan_identity, model=label,
+                         versions=versions), i)
             for i, p in enumerate(ordered)]
 
 
@@ -189,11 +232,11 @@ def count_model(model: ModelSpec) -> ModelCount:
 
 def expand_spec(spec, *, data_sha256: str, plan_identity: dict,
                 resolve_path: PathResolver | None = None,
-                n_features: int | None = None) -> list[Cell]:
+                n_features: int | None = None, versions: dict | None = None) -> list[Cell]:
     """Every cell of every model in the spec, models in spec order."""
     cells = []
     for label, model in spec.models.items():
         cells.extend(expand_model(label, model, data_sha256=data_sha256,
                                   plan_identity=plan_identity, resolve_path=resolve_path,
-                                  n_features=n_features))
+                                  n_features=n_features, versions=versions))
     return cells

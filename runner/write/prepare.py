@@ -8,7 +8,7 @@ from .budget import check_limits, check_plan_memory, data_limit_bytes
 from .data import Frame, load_frame
 from ..errors import DataError
 from ..families import FAMILIES
-from .grid import Cell, expand_spec, spread_along_path
+from .grid import Cell, expand_spec, score_versions
 from ..metrics import METRICS
 from .resampling import REFIT, Plan, make_plan, plan_counts, plan_identity, refit_seed
 from .spec import Spec
@@ -52,17 +52,15 @@ class Prepared:
 
 
 def _path_resolver(prep: Prepared):
-    """{path: N} values of a model's cell: read off its family's data path on the
-    training rows (a pruned tree's cost-complexity pruning path)."""
-    def resolve(label: str, combo: dict, n: int) -> list[float]:
+    """The data path of one combination of a model's other parameters, on the training
+    rows (a pruned tree's cost-complexity pruning path); `expand_model` merges them."""
+    def resolve(label: str, combo: dict):
         family = FAMILIES[prep.spec.models[label].family].estimators
         frame, plan = prep.frame, prep.plan
         X = frame.X.iloc[plan.train_rows]
         y = frame.y[plan.train_rows]
-        alphas = family.pruning_path_alphas(combo, X, y, seed=refit_seed(plan.seed),
-                                            numeric=frame.numeric,
-                                            categorical=frame.categorical)
-        return spread_along_path(alphas, n)
+        return family.pruning_path_alphas(combo, X, y, seed=refit_seed(plan.seed),
+                                          numeric=frame.numeric, categorical=frame.categorical)
 
     return resolve
 
@@ -91,5 +89,5 @@ def prepare(spec: Spec, *, lift_limits: bool = False, paths: bool = True) -> Pre
     prep.cells = expand_spec(spec, data_sha256=prep.frame.sha256,
                              plan_identity=plan_identity(spec),
                              resolve_path=_path_resolver(prep),
-                             n_features=len(prep.frame.features))
+                             n_features=len(prep.frame.features), versions=score_versions())
     return prep
