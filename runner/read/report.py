@@ -14,8 +14,8 @@ import pandas as pd
 from ..errors import FoldwiseError
 from .filenames import inside, safe_component
 from ..metrics import get_metric, metric_label
-from .plots import (complexity_figure, figure_svg, importance_figure, model_colours,
-                    models_figure, predictions_figure, tree_figure)
+from .plots import (NEUTRALS, complexity_figure, figure_svg, importance_figure,
+                    model_colours, models_figure, predictions_figure, tree_figure)
 from .queries import (compare, complexity_table, importance_table, picks, stability_table,
                       summary, sweep_facts, sweep_record, tree_fold_table)
 from ..store import Store
@@ -143,7 +143,7 @@ def report_context(store: Store, sweep_id: str | None = None, *, se: str = "plai
         "methods": {k: v.format(metric=metric_label(metric)) for k, v in METHODS.items()},
         "stability": _html(columns_view(stab, STABILITY_COLUMNS)) if len(stab) else None,
         "tree_folds": _html(columns_view(trees, TREE_FOLD_COLUMNS)) if len(trees) else None,
-        "figures": figures, "cautions": CAUTIONS,
+        "figures": figures, "cautions": CAUTIONS, "neutrals": NEUTRALS,
     }
 
 

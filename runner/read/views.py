@@ -372,29 +372,53 @@ def compare_view(result: Comparison) -> View:
                                                      result.facts.n_folds))
 
 
+def _status(pick: str, within: bool, excluded: str) -> str:
+    """A cell's standing in its model: its picks, else 'within one SE', else why it cannot
+    be picked."""
+    if pick:
+        return ", ".join({"best": "best", "one_se": "one-SE pick"}[r] for r in pick.split())
+    if excluded:
+        return f"not pickable: {excluded}"
+    return "within one SE" if within else ""
+
+
 def complexity_view(result: ComplexityTable) -> View:
-    """One model's cells simplest first: rank, the params shown, CV mean ± SE, leaves, test
-    score, whether within one SE of the best, and the picks."""
-    df, m = result.table, result.metric
-    shown = pd.DataFrame({"rank": df["complexity_rank"].map(number)})
+    """One model's cells simplest first: each cell's standing (picks, within one SE of the
+    best, or why it cannot be picked), rank, the params shown, mean leaves, CV mean ± SE,
+    its distance from the best in metric units and in the best cell's SEs, and test score."""
+    df, m, facts = result.table, result.metric, result.facts
+    sign = 1.0 if facts.better_of(m) == "lower" else -1.0
+    best = df[df["pick"].str.split().map(lambda r: "best" in r)]
+    best_mean = float(best["mean"].iloc[0]) if len(best) and m == facts.metric else None
+    se_best = (abs(result.threshold - best_mean) if best_mean is not None
+               and result.threshold is not None else None)
+    shown = pd.DataFrame({"standing": [_status(p, w, e) for p, w, e in
+                                       zip(df["pick"], df["within_one_se"], df["excluded"])],
+                          "rank": df["complexity_rank"].map(number)})
     for name in result.shown_params:
         shown[name] = df[name].map(value_text)
-    shown[_cv_head(m)] = [mean_se(x, e) for x, e in zip(df["mean"], df["se"])]
-    numeric = ["rank", _cv_head(m)]
+    numeric = ["rank"]
     if df["mean_leaves"].notna().any():
         shown["leaves"] = [value_text(round(v, 1)) if v == v else "" for v in df["mean_leaves"]]
         numeric.append("leaves")
+    shown[_cv_head(m)] = [mean_se(x, e) for x, e in zip(df["mean"], df["se"])]
+    numeric.append(_cv_head(m))
+    if best_mean is not None:
+        head = f"{'above' if sign > 0 else 'below'} best"
+        places = decimals_for(se_best)
+        shown[head] = ["" if v != v else
+                       (fixed(sign * (v - best_mean), places) if places is not None
+                        else number(sign * (v - best_mean)))
+                       + (f" = {number(sign * (v - best_mean) / se_best, 2)} SE"
+                          if se_best else "")
+                       for v in df["mean"]]
+        numeric.append(head)
     shown[_test_head(m)] = df["test"].map(number)
     numeric.append(_test_head(m))
-    shown["within 1 SE"] = ["yes" if w else "" for w in df["within_one_se"]]
-    shown["pick"] = [rule_label(p) if p else "" for p in df["pick"]]
-    if (df["excluded"] != "").any():
-        shown["excluded"] = df["excluded"]
-    facts = result.facts
     bar = result.threshold
     op = "≤" if facts.better_of() == "lower" else "≥"
-    bar_text = (f"; one-SE threshold: CV {metric_label(facts.metric)} {op} {number(bar)}"
-                if bar is not None else "")
+    bar_text = (f"; within one SE of the best: CV {metric_label(facts.metric)} {op} "
+                f"{number(bar)}" if bar is not None else "")
     family = get_family(result.family).name
     title = (f"{result.model} ({family}), simplest first: sweep {facts.sweep_id}, CV "
              f"{metric_label(m)}, {result.se} SE{bar_text}")
