@@ -12,7 +12,7 @@ import pytest
 
 from runner.families import READABLE_COEFFICIENTS, READABLE_LEAVES, get_family
 from runner.read.results import Comparison, Coverage, Picks, SweepFacts
-from runner.read.views import decision
+from runner.read.verdict import decision
 
 FACTS = SweepFacts(sweep_id="s", name="n", target="y", metrics=("rmse",),
                    better={"rmse": "lower"}, k=5, repeats=2, rule="one_se")

@@ -9,7 +9,6 @@ import re
 from pathlib import Path
 
 import matplotlib.colors as mcolors
-import numpy as np
 import pytest
 
 from runner.read.plots import (NEUTRALS, PALETTE, complexity_figure, importance_figure,

@@ -59,7 +59,7 @@ def test_run_sweeps_and_report_say_what_the_time_measures_and_what_was_reused(fo
     store = folder / "store.duckdb"
     first = CliRunner().invoke(main, ["run", str(spec), "--quiet", "--jobs", "1"])
     assert first.exit_code == 0, first.output
-    assert f"finished in " in first.output and f" s {TIME_MEANING}: 4 cells, all computed " \
+    assert "finished in " in first.output and f" s {TIME_MEANING}: 4 cells, all computed " \
         "in this sweep;" in first.output
     again = CliRunner().invoke(main, ["run", str(spec), "--quiet", "--jobs", "1"])
     assert again.exit_code == 0, again.output

@@ -19,9 +19,10 @@ from .plots import (NEUTRALS, complexity_figure, figure_svg, importance_figure,
 from .queries import (compare, complexity_table, importance_table, picks, stability_table,
                       summary, sweep_facts, sweep_record, tree_fold_table)
 from ..store import Store
+from .verdict import decision
 from .views import (METHODS, STABILITY_COLUMNS, TREE_FOLD_COLUMNS, View, columns_view,
                     edge_notes,
-                    compare_view, complexity_view, decision, importance_matrix,
+                    compare_view, complexity_view, importance_matrix,
                     picks_view, reuse_text, stability_sentences, summary_view, time_text)
 
 __all__ = ["report_context", "render_report", "write_report", "report_path", "CAUTIONS"]
