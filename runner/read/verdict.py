@@ -33,14 +33,15 @@ class Decision:
 
 def _size(r) -> float | None:
     """A picked cell's size: its refit's (explain step), else a tree's mean leaves over the
-    folds, else the family's size parameter (a forest's trees)."""
+    folds, else the family's size parameter (a forest's trees). `r` is a picks row."""
+    row = r.to_dict() if isinstance(r, pd.Series) else r._asdict()
     for name in ("n_terms", "mean_leaves"):
-        value = getattr(r, name, None) if not isinstance(r, pd.Series) else r.get(name)
+        value = row.get(name)
         if value is not None and not pd.isna(value):
             return float(value)
-    fam = get_family(r.family if not isinstance(r, pd.Series) else r["family"])
+    fam = get_family(row["family"])
     if fam.size_param:
-        params = r.params if not isinstance(r, pd.Series) else r["params"]
+        params = row["params"]
         value = (json.loads(params) if isinstance(params, str) else params).get(fam.size_param)
         return None if value is None else float(value)
     return None
