@@ -335,7 +335,8 @@ def picks_view(result: Picks) -> View:
             row.update(cols)
             numeric += list(cols)[1:]
         if result.rules == ("one_se",):
-            row["within 1 SE"] = f"{group['n_within'].iloc[0]} of {group['eligible'].iloc[0]}"
+            row["cells within one SE"] = (f"{group['n_within'].iloc[0]} of "
+                                          f"{group['eligible'].iloc[0]}")
         rows.append(row)
     title = (f"sweep {facts.sweep_id}: picks by CV {metric_label(m)} ({facts.better_of()} is "
              f"better, {result.se} SE; rank 0 = simplest; the sweep's rule is "
