@@ -418,8 +418,8 @@ def complexity_view(result: ComplexityTable) -> View:
     numeric.append(_test_head(m))
     bar = result.threshold
     op = "≤" if facts.better_of() == "lower" else "≥"
-    bar_text = (f"; within one SE of the best: CV {metric_label(facts.metric)} {op} "
-                f"{number(bar)}" if bar is not None else "")
+    bar_text = (f"; one-SE threshold: CV {metric_label(facts.metric)} {op} {number(bar)} "
+                "is within one SE of the best" if bar is not None else "")
     family = get_family(result.family).name
     title = (f"{result.model} ({family}), simplest first: sweep {facts.sweep_id}, CV "
              f"{metric_label(m)}, {result.se} SE{bar_text}")
