@@ -168,7 +168,7 @@ def complexity_figure(store: Store, model: str, sweep_id: str | None = None, *,
     mean, err = table["mean"].to_numpy(float), table["se"].to_numpy(float)
     better = facts.better_of()
     with _style():
-        fig = _figure(7.2, 4.6)
+        fig = _figure(7.25, 4.5)  # quarter inches: whole pixels at any common dpi
         ax = fig.add_subplot()
         threshold = result.threshold
         best = table[table["pick"].str.contains("best")]
@@ -346,7 +346,7 @@ def predictions_figure(store: Store, sweep_id: str | None = None, *, rule: str |
     pad = 0.03 * (hi - lo)
     rows, cols = panel_grid(len(models))
     with _style():
-        fig = _figure(2.9 * cols + 0.7, 2.9 * rows + 1.0)
+        fig = _figure(3.0 * cols + 0.75, 3.0 * rows + 1.0)
         axes = fig.subplots(rows, cols, sharex=True, sharey=True, squeeze=False).ravel()
         for ax, model in zip(axes, models):
             g = preds[preds["model"] == model]
@@ -449,7 +449,7 @@ def tree_figure(store: Store, sweep_id: str | None = None, *, rule: str | None =
         return 0.8 + 9.0 * int(by_id.loc[node, "n_samples"]) / root_rows
 
     with _style():
-        fig = _figure(10.0, 1.5 + 0.48 * n_rows)
+        fig = _figure(10.0, 1.5 + 0.5 * n_rows)
         tree_ax, bar_ax = fig.subplots(1, 2, sharey=True, width_ratios=[2.4, 1.0])
         tree_ax.set_axis_off()
         reach = deepest + 0.35  # where every end's branch meets its bar
