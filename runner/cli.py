@@ -96,7 +96,12 @@ def check(spec_file, lift_limits):
     click.echo(f"spec {spec_file} is valid: sweep '{spec.name}'")
     for key, value in facts.items():
         click.echo(f"  {key:<12} {value}")
-    emit(plan, "table", title="cells and fits per model (fits include one refit per cell)")
+    from .read.views import View
+
+    emit(plan, "table", view=View(
+        "cells and fits per model", plan, numeric=("cells", "fits per fold", "fits"),
+        sentences=("Cells that differ only in a path parameter share one fit per fold; "
+                   "fits = fits per fold x (folds + 1 refit).",)))
 
 
 @main.command()
@@ -173,10 +178,12 @@ def run(spec_file, store_path, jobs, force_jobs, quiet, paths, fresh, cluster, l
         if not quiet:
             _print_summary(store, result.sweep_id, "table")
         return
-    reused = f" ({result.n_reused} reused from earlier sweeps)" if result.n_reused else ""
-    click.echo(f"sweep {result.sweep_id} {result.status} in {result.seconds:.1f} s: "
-               f"{result.n_cells} cells{reused}, {result.n_fold_rows} fold-score rows, "
-               f"{result.n_test_rows} test-score rows -> {result.store_path}")
+    from .read.views import reuse_text, time_text
+
+    click.echo(f"sweep {result.sweep_id} {result.status} in {time_text(result.seconds)}: "
+               f"{reuse_text(result.n_cells, result.n_reused)}; "
+               f"{result.n_fold_rows} fold-score rows, {result.n_test_rows} test-score rows "
+               f"-> {result.store_path}")
     if result.n_failed_fits:
         click.echo(f"warning: {result.n_failed_fits} fits failed; see "
                    "`foldwise sql \"select * from failures\"`.", err=True)

@@ -35,7 +35,8 @@ def swept(tmp_path, diabetes_csv):
 def test_run_reports_rows(swept):
     _, _, result = swept
     # 4 cells x (3 folds x 2 repeats) x 3 metrics fold rows; 4 cells x 3 metrics test rows
-    assert "4 cells, 72 fold-score rows, 12 test-score rows" in result.output
+    assert "4 cells, all computed in this sweep; 72 fold-score rows, 12 test-score rows" in \
+        result.output
 
 
 def test_check_prints_plan_and_writes_nothing(tmp_path, diabetes_csv):
@@ -44,7 +45,8 @@ def test_check_prints_plan_and_writes_nothing(tmp_path, diabetes_csv):
     assert result.exit_code == 0, result.output
     assert "train rows   331" in result.output and "test rows    111" in result.output
     assert "3 folds x 2 repeats (seed 17)" in result.output
-    assert "│ ridge │ linear      │ 2     │     6 │ 14   │" in result.output
+    # two ridge alphas from one SVD a fold: 1 x (6 folds + 1 refit) = 7 fits
+    assert "│ ridge │ linear      │     2 │             1 │    7 │" in result.output
     assert not (tmp_path / "store.duckdb").exists()
 
 
@@ -52,7 +54,7 @@ def test_summary_json_equals_fold_rows(swept):
     _, store, _ = swept
     out = invoke("summary", "--store", store, "--format", "json")
     assert out.exit_code == 0, out.output
-    rows = {r["model"]: r for r in json.loads(out.output)}
+    rows = {r["model"]: r for r in json.loads(out.stdout)}
     assert set(rows) == {"ridge", "tree"}
     # Recompute from the raw fold rows with pandas.
     raw = invoke("sql", "--store", store, "--format", "csv",
@@ -75,7 +77,7 @@ def test_json_gives_params_as_objects_and_every_digit(swept):
     from runner.store import Store
 
     _, store, _ = swept
-    rows = json.loads(invoke("summary", "--store", store, "--format", "json").output)
+    rows = json.loads(invoke("summary", "--store", store, "--format", "json").stdout)
     api = summary(Store(store)).table
     for row, (_, ref) in zip(rows, api.iterrows()):
         assert row["params"] == json.loads(ref["params"]) and isinstance(row["params"], dict)
@@ -90,7 +92,7 @@ def test_sql_and_sweeps(swept):
     assert json.loads(out.output) == [{"metric": "mae", "n": 24}, {"metric": "r2", "n": 24},
                                       {"metric": "rmse", "n": 24}]
     out = invoke("sweeps", "--store", store, "--format", "json")
-    (sweep,) = json.loads(out.output)
+    (sweep,) = json.loads(out.stdout)
     assert sweep["status"] == "finished" and sweep["cells"] == 4 and sweep["fold_rows"] == 72
     assert (sweep["n_train"], sweep["n_test"], sweep["k"], sweep["repeats"]) == (331, 111, 3, 2)
 

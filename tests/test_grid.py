@@ -72,8 +72,45 @@ def test_path_values_spread_along_path():
     assert spread_along_path(path, 3) == [0.0, 2.0, 8.0]
     assert spread_along_path(path, 10) == [0.0, 1.0, 2.0, 3.0, 4.0, 8.0]
     cells = _cells("{ccp_alpha: {path: 3}}", "pruned_tree",
-                   resolve_path=lambda label, combo, n: spread_along_path(path, n))
+                   resolve_path=lambda label, combo: path)
     assert sorted(c.params["ccp_alpha"] for c in cells) == [0.0, 2.0, 8.0]
+
+
+def test_path_values_are_one_set_per_model():
+    # Each leaf size grows its own tree, whose path differs; the paths are merged (the same
+    # alpha computed on two trees, equal but for the last bits, counts once, as the larger,
+    # which prunes both trees at it) and every leaf size gets the same N values.
+    paths = {5: [0.0, 1.0, 2.0, 3.0, 1812.999687074599],
+             10: [0.0, 2.0, 1812.9996870745981],
+             20: [0.0, 1812.9996870745981]}
+    cells = _cells("{ccp_alpha: {path: 3}, min_samples_leaf: [5, 10, 20]}", "pruned_tree",
+                   resolve_path=lambda label, combo: paths[combo["min_samples_leaf"]])
+    # distinct [0, 1, 2, 3, 1813.0]: positions 0, 2, 4 -> 0, 2, 1813.0
+    by_leaf = {}
+    for c in cells:
+        by_leaf.setdefault(c.params["min_samples_leaf"], []).append(c.params["ccp_alpha"])
+    assert {k: sorted(v) for k, v in by_leaf.items()} == {
+        k: [0.0, 2.0, 1812.999687074599] for k in (5, 10, 20)}
+    assert len(cells) == 9
+
+
+def test_equal_alphas_rank_equal_so_the_next_parameter_decides():
+    # Two alphas equal in meaning, apart in the last digit: the larger leaf size is the
+    # simpler cell, whichever alpha carries the larger last digit.
+    cells = _cells("{ccp_alpha: [1812.999687074599, 1812.9996870745981], "
+                   "min_samples_leaf: [5, 10]}", "pruned_tree")
+    order = [(c.params["min_samples_leaf"], c.params["ccp_alpha"]) for c in cells
+             if c.params["ccp_alpha"] > 1000]
+    assert [leaf for leaf, _ in order] == [10, 10, 5, 5]
+
+
+def test_versions_that_change_scores_enter_the_cell_id():
+    old = {"scikit-learn": "1.6.0", "numpy": "2.1.0", "scipy": "1.14.0", "pandas": "2.2.0"}
+    new = dict(old, **{"scikit-learn": "1.7.0"})
+    a = cell_id("linear", {"penalty": "none"}, "d", PLAN, model="ols", versions=old)
+    b = cell_id("linear", {"penalty": "none"}, "d", PLAN, model="ols", versions=new)
+    assert a != b and a == cell_id("linear", {"penalty": "none"}, "d", PLAN, model="ols",
+                                   versions=dict(reversed(old.items())))
 
 
 def test_ids_stable_and_sensitive():
@@ -99,3 +136,13 @@ def test_id_changes_with_any_param_change(a, b):
     same = cell_id("linear", p1, "d", PLAN) == cell_id("linear", p2, "d", PLAN)
     assert same == (a == b)
     assert cell_id("linear", p1, "d", PLAN) == cell_id("linear", dict(reversed(p1.items())), "d", PLAN)
+
+
+def test_the_worker_check_and_the_cell_id_share_one_list_of_packages():
+    from runner.write.executors import package_versions
+    from runner.write.grid import SCORE_PACKAGES, score_versions
+
+    assert package_versions() == {"foldwise": package_versions()["foldwise"],
+                                  **score_versions()}
+    assert set(score_versions()) == set(SCORE_PACKAGES) == {"scikit-learn", "numpy", "scipy",
+                                                           "pandas"}

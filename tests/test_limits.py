@@ -31,11 +31,50 @@ def test_arithmetic_size_matches_the_expanded_grid():
     spec = load_spec(ROOT / "specs" / "greenhouse.yaml")
     size = plan_size(spec)
     assert size.cells == len(prepare(spec).cells) == 42
-    # 42 cells x (5 folds x 2 repeats + 1 refit); rows: x 10 folds x 3 metrics, x 3 metrics
-    assert (size.folds, size.fits, size.fold_rows, size.test_rows) == (10, 462, 1260, 126)
+    # rows: 42 cells x 10 folds x 3 metrics, and x 3 metrics on the test split
+    assert (size.folds, size.fold_rows, size.test_rows) == (10, 1260, 126)
+    # fits: ols 1, ridge 1 SVD, lasso 1 path, tree 1 unpruned tree, forest 4 (n_estimators
+    # takes one value, so no two forest cells share a fit): 8 a fold, x (10 folds + 1 refit)
+    assert [m.fits_per_fold for m in size.models] == [1, 1, 1, 1, 4]
+    assert (size.fits, size.fits_each) == (88, 462)
     assert size.store_bytes == (1260 + 126) * BYTES_PER_ROW
-    assert size.estimate() == ("462 fits, 1,260 fold-score rows, 126 test-score rows, store "
-                               "about 166.3 KB (explain step not counted)")
+    assert size.estimate() == ("88 fits (462 with --no-paths), 1,260 fold-score rows, 126 "
+                               "test-score rows, store about 166.3 KB (explain step not "
+                               "counted)")
+
+
+GRIDS = [  # (models block, cells, fits per fold, cells an upper bound?)
+    # least squares has no alpha: one cell, one fit; the 11 ridge alphas share one SVD
+    ("m: {family: linear, grid: {penalty: [none, l2], alpha: {log: [0.01, 100], n: 11}}}",
+     12, 2, False),
+    # l1_ratio cannot matter to ridge: its two values make the same cells
+    ("m: {family: linear, grid: {penalty: l2, alpha: [0.1, 1.0], l1_ratio: [0.2, 0.8]}}",
+     2, 1, False),
+    # one unpruned tree per leaf size scores all its pruning alphas
+    ("t: {family: pruned_tree, grid: {ccp_alpha: {path: 30}, min_samples_leaf: [5, 10, 20]}}",
+     90, 3, True),
+    ("f: {family: forest, grid: {n_estimators: [50, 100, 200], max_features: [0.5, 1.0]}}",
+     6, 2, False),
+    ("t: {family: pruned_tree, grid: {min_samples_leaf: [1, 5, 10]}}", 3, 3, False),
+]
+
+
+@pytest.mark.parametrize("models,cells,per_fold,bound", GRIDS)
+def test_fits_count_one_fit_per_path_group(tmp_path, models, cells, per_fold, bound):
+    (model,) = plan_size(spec_from(tmp_path, models)).models
+    assert (model.cells, model.fits_per_fold, model.bound) == (cells, per_fold, bound)
+
+
+@pytest.mark.parametrize("models", [g[0] for g in GRIDS if not g[3]])
+def test_fits_per_fold_are_the_engines_work_units(tmp_path, diabetes_csv, models):
+    # The count made before the data are read is the fits the engine makes on each fold.
+    from runner.families import load_family
+
+    spec = spec_from(tmp_path, models)
+    (model,) = plan_size(spec).models
+    cells = prepare(spec).cells
+    units = load_family(cells[0].family).fit_units([c.params for c in cells])
+    assert (len(cells), len(units)) == (model.cells, model.fits_per_fold)
 
 
 def test_int_range_counts_distinct_rounded_values(tmp_path):
@@ -49,8 +88,11 @@ def test_check_prints_the_estimate_and_limits(tmp_path, diabetes_csv):
                                 "{log: [0.1, 100], n: 7}}}")
     out = invoke("check", spec)
     assert out.exit_code == 0, out.output
-    # 7 cells x (3 folds x 2 repeats + 1) = 49 fits; 7 x 6 x 3 = 126 fold rows; 21 test rows
-    assert "estimate     49 fits, 126 fold-score rows, 21 test-score rows, store about" in out.output
+    # 7 alphas from one SVD a fold: 1 x (3 folds x 2 repeats + 1) = 7 fits (49 one by one);
+    # 7 cells x 6 folds x 3 metrics = 126 fold rows; 21 test rows
+    assert ("estimate     7 fits (49 with --no-paths), 126 fold-score rows, 21 test-score "
+            "rows, store about") in out.output
+    assert "│ ridge │ linear │     7 │             1 │    7 │" in out.output
     assert "limits       cells 10,000, folds 500, fits 250,000, data 1024 MiB" in out.output
 
 
@@ -60,7 +102,17 @@ def test_spec_limits_raise_a_ceiling(tmp_path):
         check_limits(spec_from(tmp_path, grid))
     raised = spec_from(tmp_path, grid, extra="limits: {cells: 20000, fits: 200000}\n")
     assert check_limits(raised).cells == 20000
-    assert check_limits(spec_from(tmp_path, grid), lifted=True).fits == 20000 * 7
+    assert check_limits(spec_from(tmp_path, grid), lifted=True).fits_each == 20000 * 7
+
+
+def test_fits_limit_counts_the_fits_of_the_chosen_way(tmp_path):
+    # 5 000 ridge alphas: 7 fits from one SVD a fold, 35 000 one cell at a time
+    grid = "ridge: {family: linear, grid: {penalty: l2, alpha: {log: [0.1, 100], n: 5000}}}"
+    spec = spec_from(tmp_path, grid, extra="limits: {fits: 10000}\n")
+    assert check_limits(spec).fits == 7
+    with pytest.raises(SpecError, match=r"35,000 fits = 5,000 cells x \(6 folds \+ 1 refit\), "
+                                        r"with --no-paths, more than the limit of 10,000"):
+        check_limits(spec, paths=False)
 
 
 def test_lift_limits_flag_lets_a_large_plan_through(tmp_path):

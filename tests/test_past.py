@@ -10,7 +10,6 @@ import math
 import shutil
 import socket
 
-import numpy as np
 import pandas as pd
 import pytest
 from click.testing import CliRunner

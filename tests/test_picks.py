@@ -435,3 +435,72 @@ def test_path_command_json_matches_the_api(diabetes_sweep):
 def test_commands_have_help(command):
     result = CliRunner().invoke(main, [command, "--help"])
     assert result.exit_code == 0 and "Usage:" in result.output
+
+
+# -- picks on the edge of their grid -------------------------------------------------------
+def _cells(name, values, **fixed):
+    return [{name: v, **fixed} for v in values]
+
+
+EDGES = [  # (family, cells, picked, mean leaves, expected edges)
+    ("linear", _cells("alpha", [0.001, 0.01, 3.0], penalty="l1"),
+     {"alpha": 0.001, "penalty": "l1"}, None, [("alpha", "low", 0.001)]),
+    ("linear", _cells("alpha", [0.01, 1.0, 1000.0], penalty="l2"),
+     {"alpha": 1000.0, "penalty": "l2"}, None, [("alpha", "high", 1000.0)]),
+    ("linear", _cells("alpha", [0.01, 1.0, 1000.0], penalty="l2"),
+     {"alpha": 1.0, "penalty": "l2"}, None, []),
+    # min_samples_leaf 1 and a fraction of 1.0 are bounds: nothing lies beyond them
+    ("forest", [{"min_samples_leaf": m, "max_features": f} for m in (1, 5) for f in (0.33, 1.0)],
+     {"min_samples_leaf": 1, "max_features": 1.0}, None, []),
+    ("forest", [{"min_samples_leaf": m, "max_features": f} for m in (1, 5) for f in (0.33, 1.0)],
+     {"min_samples_leaf": 5, "max_features": 0.33}, None,
+     [("max_features", "low", 0.33), ("min_samples_leaf", "high", 5)]),
+    # ccp_alpha 0 is a bound; the largest alpha of a one-leaf tree cannot get simpler
+    ("pruned_tree", _cells("ccp_alpha", [0.0, 10.0, 400.0]), {"ccp_alpha": 0.0}, 40.0, []),
+    ("pruned_tree", _cells("ccp_alpha", [0.0, 10.0, 400.0]), {"ccp_alpha": 400.0}, 1.0, []),
+    ("pruned_tree", _cells("ccp_alpha", [0.0, 10.0, 400.0]), {"ccp_alpha": 400.0}, 3.0,
+     [("ccp_alpha", "high", 400.0)]),
+    # null max_depth is unlimited, so 5 is not the deepest value tried
+    ("pruned_tree", _cells("max_depth", [3, 5, None]), {"max_depth": 5}, 9.0, []),
+    ("pruned_tree", _cells("max_depth", [3, 5, None]), {"max_depth": 3}, 6.0,
+     [("max_depth", "low", 3)]),
+    ("pruned_tree", _cells("min_samples_leaf", [5]), {"min_samples_leaf": 5}, 6.0, []),
+]
+
+
+@pytest.mark.parametrize("family,cells,picked,leaves,expected", EDGES)
+def test_grid_edges(family, cells, picked, leaves, expected):
+    from runner.read.picks import grid_edges
+
+    assert grid_edges(family, cells, picked, leaves) == expected
+
+
+def test_edge_picks_are_said_in_run_pick_and_the_report(tmp_path, diabetes_csv):
+    # Ridge alphas of 1000 and more all shrink too much on this data: the smallest scores
+    # best and is also the simplest within one SE, so both picks sit on the low edge.
+    import html
+
+    from click.testing import CliRunner
+
+    from runner.cli import main
+    from runner.read.report import render_report
+    from runner.store import Store
+
+    from .helpers import write_spec
+
+    spec = write_spec(tmp_path, "ridge: {family: linear, grid: {penalty: l2, alpha: "
+                                "[1000.0, 3000.0, 10000.0]}}")
+    run = CliRunner().invoke(main, ["run", str(spec), "--jobs", "1"])
+    assert run.exit_code == 0, run.output
+    best = ("note: ridge's best cell sits on the edge of its grid: alpha = 1000 is the "
+            "smallest value tried, so the best alpha may lie below it; extend the grid of "
+            "alpha below 1000.")
+    one_se = ("note: ridge's one-SE cell sits on the edge of its grid: alpha = 1000 is the "
+              "smallest value tried, so the best cell, and the one-SE cell with it, may lie "
+              "beyond it; extend the grid of alpha below 1000.")
+    assert best in run.stderr and one_se in run.stderr
+    store = tmp_path / "store.duckdb"
+    out = CliRunner().invoke(main, ["pick", "--store", str(store)])
+    assert best in out.stderr and one_se in out.stderr
+    page = html.unescape(render_report(Store(store)))
+    assert best.removeprefix("note: ") in page and "Picks on the edge of their grid" in page

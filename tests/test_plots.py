@@ -16,6 +16,11 @@ from runner.read.plots import complexity_figure, models_figure, save_figure
 
 OPTIONS = {"complexity": {"model": "tree"}, "models": {}, "importance": {},
            "predictions": {}, "tree": {"depth": 2}, "history": {"model": "ridge"}}
+CLASS_KINDS = {"calibration", "roc"}  # drawn from a class sweep (tests/test_classes.py)
+
+
+def test_every_kind_is_tried():
+    assert set(OPTIONS) | CLASS_KINDS == set(KINDS)
 
 
 @pytest.mark.parametrize("kind", sorted(OPTIONS))

@@ -7,6 +7,7 @@ import os
 import re
 import shutil
 import subprocess
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -42,6 +43,13 @@ def test_report_rebuilds_identically_from_the_store(explained, report_file):
     assert render_report(store, sid) == report_file.read_text(encoding="utf-8")
 
 
+def test_report_puts_sweep_facts_before_the_cautions(report_file):
+    # The cautions send the reader to the fingerprint "under Sweep facts, above".
+    page = report_file.read_text(encoding="utf-8")
+    assert page.index('id="facts"') < page.index("SHA-256") < page.index('id="cautions"')
+    assert "Sweep facts, above" in page[page.index('id="cautions"'):]
+
+
 def test_report_command(explained, tmp_path):
     _, store, sid = explained
     out = CliRunner().invoke(main, ["report", "--store", str(store.path), "--out",
@@ -58,6 +66,21 @@ def _chromium() -> str:
                         ".ci/run installs it with apt-get.")
         pytest.skip("chromium is not installed (apt-get install -y chromium)")
     return found
+
+
+def test_without_chromium_the_browser_test_skips_unless_ci(monkeypatch, tmp_path):
+    # What the README says happens without chromium: a skip, or a failure under CI.
+    monkeypatch.setenv("PATH", str(tmp_path))
+    monkeypatch.delenv("CI", raising=False)
+    with pytest.raises(pytest.skip.Exception, match="chromium is not installed"):
+        _chromium()
+    monkeypatch.setenv("CI", "1")
+    with pytest.raises(pytest.fail.Exception, match="CI must open the report"):
+        _chromium()
+    readme = " ".join((Path(__file__).parents[1] / "README.md").read_text().split())
+    assert ("one test (`test_report_in_a_real_browser`) opens the HTML report in `chromium` "
+            "and without it is skipped") in readme
+    assert "unless the environment variable `CI` is set, when it fails instead" in readme
 
 
 def test_report_in_a_real_browser(explained, report_file, tmp_path):

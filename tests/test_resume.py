@@ -66,6 +66,39 @@ def test_changing_one_grid_value_fits_only_new_cells(folder):
     pd.testing.assert_frame_equal(_scores(store, result.sweep_id), _scores(store, fresh.sweep_id))
 
 
+def test_an_upgrade_of_a_scoring_package_stops_reuse_and_run_says_so(folder, monkeypatch):
+    # The same spec and data after "upgrading" scikit-learn: every cell id changes, nothing
+    # is copied, and the run says which versions differ.
+    from runner.write import grid, prepare, reuse
+
+    spec = spec_from(folder, MODELS)
+    store = Store(folder / "store.duckdb")
+    first = run_sweep(spec, store=store, jobs=1)
+    real = grid.score_versions()
+    upgraded = dict(real, **{"scikit-learn": "99.0"})
+    for module in (grid, prepare, reuse):
+        monkeypatch.setattr(module, "score_versions", lambda: upgraded)
+    said: list[str] = []
+    again = run_sweep(spec, store=store, jobs=1, on_message=said.append)
+    assert (again.n_reused, again.n_fitted) == (0, N_CELLS)
+    assert said == [f"note: {N_CELLS} cells were not reused: earlier sweeps of the same data "
+                    f"and plan scored them with scikit-learn {real['scikit-learn']} (here "
+                    "99.0). Versions that can change a score are part of each cell's "
+                    "identity, so these are fitted again."]
+    ids = store.query("select sweep_id, count(*) n from cells c where exists (select 1 from "
+                      "cells d where d.cell_id = c.cell_id and d.sweep_id <> c.sweep_id) "
+                      "group by sweep_id")
+    assert ids.empty  # no cell id is shared by the two sweeps
+    versions = store.query("select versions::varchar v from sweeps where sweep_id = ?",
+                           [again.sweep_id]).v[0]
+    assert json.loads(versions)["scikit-learn"] == "99.0"
+    monkeypatch.undo()
+    third = run_sweep(spec, store=store, jobs=1, on_message=said.append)
+    assert third.n_reused == N_CELLS and len(said) == 1  # back on the first sweep's versions
+    assert store.query("select distinct reused_from from cells where sweep_id = ?",
+                       [third.sweep_id]).reused_from.tolist() == [first.sweep_id]
+
+
 SWEEP_SCRIPT = """
 import sys
 from runner.write.engine import run_sweep

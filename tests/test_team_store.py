@@ -276,7 +276,7 @@ def test_labels_need_a_writer_and_removal_a_keeper(roles):
                    f"using (sweep_id) where sweep_id = '{sweep}'", "team_roles") == \
         "purpose=x;kept for the audit"
     out = _cli("remove", sweep, "--yes", "--store", urls["ana"], env=env, check=False)
-    assert out.returncode == 2 and "lacks DELETE on cells, explained, " in out.stderr
+    assert out.returncode == 2 and "lacks DELETE on cells, coefficients, explained, " in out.stderr
     assert out.stdout == ""  # refused before the sweeps to remove are even listed
     assert "grant foldwise_keeper to ana" in out.stderr and "Nothing was removed" in out.stderr
     assert _counts(pg, "team_roles") == before

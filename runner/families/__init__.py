@@ -13,7 +13,7 @@ from dataclasses import dataclass, field
 from typing import Any, Callable
 
 __all__ = ["FAMILIES", "Family", "Param", "get_family", "load_family", "nearest",
-           "check_param_value"]
+           "check_param_value", "READABLE_LEAVES", "READABLE_COEFFICIENTS"]
 
 
 @dataclass(frozen=True)
@@ -50,7 +50,7 @@ class Param:
             return (math.log2(n) if value == "log2" else math.sqrt(n)) / n
         if self.kind == "max_features" and isinstance(value, int):
             return value / (n_features or 100)
-        return float(value)
+        return float(f"{float(value):.12g}")  # values equal in meaning rank equal
 
 
 @dataclass(frozen=True)
@@ -67,7 +67,9 @@ class Family:
     path_params: tuple[str, ...] = field(default=())
     importance: str = "impurity"  # the fitted model's own importance: impurity/coefficient
     one_tree: bool = False  # the fitted model is one tree: leaves, shape and nodes are kept
-    readable: bool = False  # a person can read the fitted model as it is
+    readable_size: int | None = None  # the largest fitted model a person reads whole
+    size_word: str = ""  # what that size counts, e.g. "leaves"
+    size_param: str | None = None  # a parameter that states the size (a forest's trees)
     plural: str = "models"  # what its fitted models are called, e.g. "forests"
     explain_cost: float = 1.0  # a refit's rough cost, to start the slowest first
     tidy: Callable[[dict], None] | None = None  # drops what cannot matter, in place
@@ -85,6 +87,23 @@ class Family:
         """The defaults of the parameters that apply to `task`."""
         return {name: p.default_for(task) for name, p in self.params.items()
                 if task in p.tasks}
+
+    def size_text(self, n) -> str:
+        """'79 leaves', '1 non-zero coefficient' ('' when unknown)."""
+        if n is None or n != n or not self.size_word:
+            return ""
+        word = self.size_word[:-1] if round(n) == 1 and self.size_word.endswith("s") else \
+            self.size_word
+        return f"{round(n)} {word}"
+
+    def readable(self, n) -> bool | None:
+        """Whether a fitted model of this size can be read whole: True, False, or None
+        when its size is not known (a family without `readable_size` never is)."""
+        if self.readable_size is None:
+            return False
+        if n is None or n != n:
+            return None
+        return round(n) <= self.readable_size
 
     @property
     def estimators(self):
@@ -162,6 +181,15 @@ def _tidy_forest(p: dict) -> None:
         p["max_samples"] = None
 
 
+READABLE_LEAVES = 16
+"""The most leaves a pruned tree may have to count as readable whole: 15 splits, a drawing
+of four levels or a page of rules (our judgement, not a standard)."""
+
+READABLE_COEFFICIENTS = 30
+"""The most non-zero coefficients a linear model may have to count as readable whole: one
+table a person can take in, one row a term (our judgement, not a standard)."""
+
+
 FAMILIES: dict[str, Family] = {
     "linear": Family(
         name="linear",
@@ -181,7 +209,8 @@ FAMILIES: dict[str, Family] = {
         ),
         complexity_order=("penalty", "alpha"),
         path_params=("alpha",),
-        importance="coefficient", readable=True, plural="linear models", tidy=_tidy_linear,
+        importance="coefficient", plural="linear models", tidy=_tidy_linear,
+        readable_size=READABLE_COEFFICIENTS, size_word="non-zero coefficients",
         coefficients=True,
         unseen_category="encoded with every indicator of the column 0, so no level's "
         "coefficient applies",
@@ -209,7 +238,8 @@ FAMILIES: dict[str, Family] = {
         complexity_order=("ccp_alpha", "ccp_fraction", "min_samples_leaf", "max_depth",
                           "max_features"),
         path_params=("ccp_alpha", "ccp_fraction"),
-        one_tree=True, readable=True, plural="trees", tidy=_tidy_tree,
+        one_tree=True, plural="trees", tidy=_tidy_tree,
+        readable_size=READABLE_LEAVES, size_word="leaves",
         unseen_category="treated as a missing value, which the tree routes as it learned to",
         saved_types=("sklearn.tree.DecisionTreeRegressor", "sklearn.tree.DecisionTreeClassifier",
                      "sklearn.tree._tree.Tree"),
@@ -236,6 +266,7 @@ FAMILIES: dict[str, Family] = {
         complexity_order=("min_samples_leaf", "max_features", "max_depth", "n_estimators"),
         path_params=("n_estimators",),
         plural="forests", explain_cost=3.0, tidy=_tidy_forest,
+        size_word="trees", size_param="n_estimators",
         unseen_category="treated as a missing value, which each tree routes as it learned to",
         saved_types=("sklearn.ensemble.RandomForestRegressor",
                      "sklearn.ensemble.RandomForestClassifier",

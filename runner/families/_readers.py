@@ -76,10 +76,17 @@ def _categories(prep) -> dict[str, list]:
     return out
 
 
+def _level(value) -> str:
+    """A level as the data file wrote it: 3 for a numeric level 3.0, 2.5 for 2.5."""
+    if isinstance(value, (float, np.floating)):
+        return str(int(value)) if float(value).is_integer() else f"{float(value):g}"
+    return str(value)
+
+
 def _rule(feature: str, threshold: float, levels: list | None) -> str:
     """The condition that sends a row to the left child, in the data's own terms."""
     if levels is not None:
-        left = [str(v) for i, v in enumerate(levels) if i <= threshold]
+        left = [_level(v) for i, v in enumerate(levels) if i <= threshold]
         return f"{feature} in {{{', '.join(left)}}}"
     return f"{feature} ≤ {threshold:.4g}"
 

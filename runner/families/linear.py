@@ -20,7 +20,8 @@ from ._base import (CellFit, fit_grouped, linear_preprocessor, prediction_column
 from .paths import elastic_net_path_coefs, ridge_path_coefs
 
 __all__ = ["make_estimator", "fit_cells", "fit_units", "own_importance", "prediction_columns",
-           "original_scale_coefficients", "coefficient_rows", "INTERCEPT", "PATH_PARAMS"]
+           "original_scale_coefficients", "coefficient_rows", "model_size", "INTERCEPT",
+           "PATH_PARAMS"]
 
 INTERCEPT = "(intercept)"
 """The `term` of the intercept's row in the coefficient tables."""
@@ -118,6 +119,12 @@ def fit_units(cells, *, paths=True):
     return work_units(cells, PATH_PARAMS, paths=paths, eligible=_penalised,
                       cost_alone=lambda params: 0.02,
                       cost_group=lambda group: 0.03 + 0.002 * len(group))
+
+
+def model_size(pipeline: Pipeline) -> int:
+    """The fitted model's size as a person reads it: its non-zero coefficients (one-hot
+    levels counted one by one; the intercept not counted)."""
+    return int(np.count_nonzero(pipeline.named_steps["model"].coef_))
 
 
 def coefficient_rows(pipeline: Pipeline) -> list[dict]:

@@ -24,8 +24,7 @@ from ._base import (CellFit, fit_grouped, prediction_columns, tree_preprocessor,
 from .paths import pruned_tree_predictions, pruning_alphas
 
 __all__ = ["make_estimator", "fit_cells", "fit_units", "own_importance", "prediction_columns",
-           "tree_shape",
-           "tree_node_rows", "resolve_alpha", "pruning_path_alphas",
+           "tree_shape", "tree_node_rows", "resolve_alpha", "pruning_path_alphas", "model_size",
            "PATH_PARAMS"]
 
 PATH_PARAMS = ("ccp_alpha", "ccp_fraction")
@@ -75,6 +74,11 @@ def make_estimator(params: dict, *, seed: int, y_fit, numeric, categorical,
 
 def _leaves(pipeline: Pipeline) -> float:
     return float(pipeline.named_steps["model"].get_n_leaves())
+
+
+def model_size(pipeline: Pipeline) -> int:
+    """The fitted tree's size as a person reads it: its leaves."""
+    return int(pipeline.named_steps["model"].get_n_leaves())
 
 
 def _how(params: dict) -> str:

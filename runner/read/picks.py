@@ -11,9 +11,10 @@ import math
 from typing import Sequence
 
 from ..errors import QueryError
+from ..families import get_family
 
 __all__ = ["RULES", "SE_KINDS", "TOLERANCE", "best_index", "one_se_index", "one_se_threshold",
-           "corrected_variance", "standard_error", "check_rule", "check_se"]
+           "corrected_variance", "standard_error", "check_rule", "check_se", "grid_edges"]
 
 RULES = ("best", "one_se")
 SE_KINDS = ("plain", "corrected")
@@ -93,3 +94,50 @@ def check_se(kind: str) -> None:
     """Refuse an unknown kind of standard error."""
     if kind not in SE_KINDS:
         raise QueryError(f"se must be one of {', '.join(SE_KINDS)}, got se={kind!r}.")
+
+
+# -- picks on the edge of their grid -------------------------------------------------------
+def _numeric(value, kind: str) -> bool:
+    if isinstance(value, bool) or not isinstance(value, (int, float)):
+        return False
+    return kind != "max_features" or isinstance(value, float)  # fractions, not counts
+
+
+def _beyond(param, value, side: str) -> bool:
+    """Whether the grid could go further than `value` on `side` (a bound stops it)."""
+    if side == "low":
+        return param.minimum is None or value > param.minimum
+    top = 1.0 if param.kind == "max_features" else param.maximum
+    return top is None or value < top
+
+
+def grid_edges(family: str, cells: Sequence[dict], picked: dict,
+               leaves: float | None = None) -> list[tuple[str, str, float]]:
+    """The parameters whose picked value is the lowest or highest of the model's grid where
+    the grid could go further: [(name, 'low' or 'high', value)].
+
+    Only numbers that vary among the model's cells count. An edge that is also the
+    parameter's bound (alpha or ccp_alpha 0, min_samples_leaf 1, a fraction of 1) cannot be
+    extended; nor can the high side of a grid holding null where null means unlimited or
+    all (max_depth, max_features); nor the simpler side of a one-leaf tree."""
+    fam = get_family(family)
+    out = []
+    for name, value in sorted(picked.items()):
+        param = fam.params.get(name)
+        if param is None or param.kind not in ("float", "int", "max_features") \
+                or not _numeric(value, param.kind):
+            continue
+        seen = [c.get(name) for c in cells if name in c]
+        values = sorted({v for v in seen if _numeric(v, param.kind)})
+        if len(values) < 2:
+            continue
+        side = "low" if value == values[0] else "high" if value == values[-1] else None
+        if side is None or not _beyond(param, value, side):
+            continue
+        if side == "high" and any(v is None for v in seen):
+            continue
+        simpler_side = {"higher": "high", "lower": "low"}.get(param.simpler or "")
+        if fam.one_tree and leaves is not None and leaves <= 1 and side == simpler_side:
+            continue
+        out.append((name, side, value))
+    return out

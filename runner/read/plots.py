@@ -30,7 +30,7 @@ from .results import ComplexityTable, Picks
 from ..store import Store
 from .views import number, params_text, rule_label
 
-__all__ = ["PALETTE", "complexity_figure", "models_figure", "importance_figure",
+__all__ = ["PALETTE", "NEUTRALS", "complexity_figure", "models_figure", "importance_figure",
            "predictions_figure", "tree_figure", "history_figure", "save_figure", "figure_svg",
            "model_colours"]
 
@@ -38,12 +38,19 @@ PALETTE = ["#0072B2", "#E69F00", "#009E73", "#CC79A7", "#56B4E9", "#D55E00", "#F
            "#000000"]
 """Okabe–Ito colours, ordered so the first few differ most on a white page."""
 
-INK, MUTED, FAINT = "#1f2328", "#6e7781", "#d0d7de"
-PICK_BEST, PICK_ONE_SE = "#D55E00", "#000000"
+NEUTRALS = {"ink": "#272b28", "muted": "#646b65", "rule": "#cdd3cd", "grid": "#e4e8e3",
+            "wash": "#f2f4f1", "paper": "#fbfcfa"}
+"""foldwise's own neutrals, a faintly green grey from ink to paper, shared by the figures
+and the report: text, secondary text, lines and borders, grid lines, washes, page."""
+
+INK, MUTED, FAINT, GRID = (NEUTRALS[k] for k in ("ink", "muted", "rule", "grid"))
+PICK_MARK = INK
+"""The picks are marked in ink, by shape (best: a star; one-SE: a ring), never in a
+model's colour."""
 
 _STYLE = {"font.size": 9, "axes.titlesize": 10, "axes.labelsize": 9, "axes.edgecolor": MUTED,
           "axes.labelcolor": INK, "axes.spines.top": False, "axes.spines.right": False,
-          "axes.grid": True, "axes.grid.axis": "y", "grid.color": "#eaeef2",
+          "axes.grid": True, "axes.grid.axis": "y", "grid.color": GRID,
           "grid.linewidth": 0.8, "xtick.color": MUTED, "ytick.color": MUTED,
           "text.color": INK, "legend.frameon": False, "legend.fontsize": 8,
           "figure.facecolor": "white", "axes.facecolor": "white", "svg.fonttype": "none"}
@@ -104,60 +111,114 @@ def _x_axis(result: ComplexityTable):
     return x, "cell (complexity rank, simplest left)", False, False, ticks
 
 
+def _tick(value: float) -> str:
+    """A log axis's tick as a plain number: 0.01, 2, 100, 3000 (not 2×10⁰)."""
+    return f"{value:g}" if 1e-4 <= abs(value) < 1e6 else f"{value:.0e}"
+
+
+def _plain_log_ticks(axis, lo: float, hi: float) -> None:
+    """Plain numbers on a log axis; across fewer than two decades also the 2s and 5s."""
+    from matplotlib.ticker import FuncFormatter, NullFormatter
+
+    axis.set_major_formatter(FuncFormatter(lambda v, _: _tick(v)))
+    if hi / lo < 100:
+        axis.set_minor_formatter(FuncFormatter(
+            lambda v, _: _tick(v) if f"{v:.0e}"[0] in "25" else ""))
+    else:
+        axis.set_minor_formatter(NullFormatter())
+
+
+def _mark_picks(ax, x, table, better: str) -> None:
+    """The best cell (an ink star) and the one-SE cell (an ink ring), each named beside it
+    (lines gid 'pick_best' and 'pick_one_se')."""
+    marks = {"best": ("*", 13, INK, "best"), "one_se": ("o", 11, "none", "one-SE pick")}
+    placed = {}
+    for rule, (marker, size, face, text) in marks.items():
+        hit = table["pick"].str.split().map(lambda r, rule=rule: rule in r).to_numpy()
+        if not hit.any():
+            continue
+        i = int(np.flatnonzero(hit)[0])
+        y = float(table["mean"].iloc[i])
+        ax.plot([x[i]], [y], linestyle="none", marker=marker, markersize=size,
+                markerfacecolor=face, markeredgecolor=PICK_MARK,
+                markeredgewidth=1.8 if rule == "one_se" else 0.8, zorder=5, gid=f"pick_{rule}")
+        placed.setdefault(i, []).append(text)
+    for i, texts in placed.items():
+        y = float(table["mean"].iloc[i])
+        down = (better == "lower") == (len(placed) == 1 or texts[0] == "best")
+        ax.annotate(" and ".join(texts) + f"\n{number(y)}", (x[i], y),
+                    xytext=(0, -26 if down else 20), textcoords="offset points",
+                    ha="center", va="center", fontsize=8, color=INK, zorder=6,
+                    arrowprops={"arrowstyle": "-", "color": MUTED, "linewidth": 0.7,
+                                "shrinkA": 0, "shrinkB": 7})
+
+
 def complexity_figure(store: Store, model: str, sweep_id: str | None = None, *,
                       se: str = "plain"):
-    """One model's CV error against complexity: mean ± SE per cell, the best and one-SE
-    cells marked and the one-SE threshold drawn (line gid 'one_se_threshold')."""
+    """One model's CV error against complexity: the mean of every cell on a line with a
+    ±1 SE ribbon, the cells within one SE of the best shaded as a band (its edge, the
+    one-SE threshold, is the line gid 'one_se_threshold'), the picks marked in ink and
+    named, and the test scores as small crosses."""
     result = complexity_table(store, model, sweep_id, se=se)
     table, facts = result.table, result.facts
     sid, metric, family = facts.sweep_id, result.metric, result.family
     colour = model_colours(store, sid).get(model, PALETTE[0])
     x, xlabel, log, reverse, ticks = _x_axis(result)
     order = np.argsort(x)
+    mean, err = table["mean"].to_numpy(float), table["se"].to_numpy(float)
+    better = facts.better_of()
     with _style():
-        fig = _figure(7.2, 4.2)
+        fig = _figure(7.25, 4.5)  # quarter inches: whole pixels at any common dpi
         ax = fig.add_subplot()
-        joined = "-" if ticks is None else "none"  # no line through an unordered grid
-        ax.errorbar(x[order], table["mean"].to_numpy()[order], yerr=table["se"].to_numpy()[order],
-                    color=colour, marker="o", markersize=4, linewidth=1.4, capsize=2.5,
-                    linestyle=joined, label=f"CV mean ± 1 SE ({facts.n_folds} folds)", zorder=3)
-        if table["test"].notna().any():
-            ax.plot(x[order], table["test"].to_numpy()[order], color=MUTED,
-                    linestyle=":" if ticks is None else "none", linewidth=1, marker=".",
-                    markersize=4, label="test split (shown, never used to pick)", zorder=2)
         threshold = result.threshold
         best = table[table["pick"].str.contains("best")]
+        inside = np.zeros(len(table), dtype=bool)
         if threshold is not None and len(best):
             best_mean = float(best["mean"].iloc[0])
-            ax.axhspan(min(best_mean, threshold), max(best_mean, threshold), color=colour,
-                       alpha=0.10, linewidth=0, zorder=1)
-            op = "+" if facts.better_of() == "lower" else "−"
-            line = ax.axhline(threshold, color=INK, linestyle="--", linewidth=1,
-                              label=f"one-SE threshold: best {op} 1 SE = {threshold:.4g}",
-                              zorder=2)
+            lo, hi = sorted((best_mean, threshold))
+            ax.axhspan(lo, hi, color=colour, alpha=0.24, linewidth=0, zorder=1,
+                       label="within one SE of the best")
+            line = ax.axhline(threshold, color=colour, linewidth=1.0, zorder=2)
             line.set_gid("one_se_threshold")
-        for rule, marker, size, col, text in (("best", "*", 15, PICK_BEST, "best"),
-                                              ("one_se", "D", 7, PICK_ONE_SE, "one-SE pick")):
-            hit = table["pick"].str.split().map(lambda r, rule=rule: rule in r)
-            if hit.any():
-                i = int(np.flatnonzero(hit.to_numpy())[0])
-                ax.plot([x[i]], [table["mean"].iloc[i]], linestyle="none", marker=marker,
-                        markersize=size, markerfacecolor="white" if rule == "one_se" else col,
-                        markeredgecolor=col, markeredgewidth=1.6, zorder=4,
-                        label=f"{text}: {number(table['mean'].iloc[i])}", gid=f"pick_{rule}")
+            op = "+" if better == "lower" else "−"
+            ax.annotate(f"one-SE threshold: best {op} 1 SE = {number(threshold)}",
+                        (0.0, threshold), xycoords=("axes fraction", "data"),
+                        xytext=(4, 3 if better == "lower" else -3), textcoords="offset points",
+                        ha="left", va="bottom" if better == "lower" else "top", fontsize=7.5,
+                        color=MUTED)
+            inside = table["within_one_se"].to_numpy(bool)
+        if ticks is None:
+            ax.fill_between(x[order], (mean - err)[order], (mean + err)[order], color=colour,
+                            alpha=0.22, linewidth=0, zorder=2)
+            ax.plot(x[order], mean[order], color=colour, linewidth=1.6, zorder=3,
+                    label=f"CV mean, ±1 SE shaded ({facts.n_folds} folds)")
+        else:  # no line through an unordered grid: a mean and its SE per cell
+            ax.errorbar(x, mean, yerr=err, color=colour, linestyle="none", elinewidth=1.2,
+                        capsize=0, zorder=3, label=f"CV mean ± 1 SE ({facts.n_folds} folds)")
+        ax.scatter(x[inside], mean[inside], s=22, color=colour, edgecolor="white",
+                   linewidth=0.6, zorder=4)
+        ax.scatter(x[~inside], mean[~inside], s=20, facecolor="white", edgecolor=colour,
+                   linewidth=1.1, zorder=4)
+        if table["test"].notna().any():
+            ax.plot(x, table["test"].to_numpy(float), linestyle="none", marker="x",
+                    markersize=4, markeredgewidth=1.0, color=MUTED, zorder=3,
+                    label="test split (not used to pick)")
+        _mark_picks(ax, x, table, better)
         if log:
             ax.set_xscale("log")
+            _plain_log_ticks(ax.xaxis, float(x.min()), float(x.max()))
         if reverse:
             ax.invert_xaxis()
         if ticks is not None:
             ax.set_xticks(x, ticks, fontsize=8)
             ax.set_xlim(x.min() - 0.5, x.max() + 0.5)
+        ax.margins(y=0.2)  # room for the picks' names
         ax.set_xlabel(f"{xlabel}\n← simpler        more complex →", color=INK)
         ax.set_ylabel(get_metric(metric).axis_label(facts.target))
         _headline(fig, f"{model}: where does CV {metric_label(metric)} stop "
                   "improving as the model grows?",
-                  f"family {family}; every grid cell on the same {facts.n_folds} folds; "
-                  f"{result.se} SE")
+                  f"{family}, {facts.n_folds} folds per cell, {result.se} SE; filled "
+                  "points: within one SE of the best")
         fig.legend(loc="outside lower center", ncols=3)
     return fig
 
@@ -240,8 +301,8 @@ def importance_figure(store: Store, sweep_id: str | None = None, *,
             else f"units of {target}")
     with _style():
         fig = _figure(max(6.0, 2.3 * len(models) + 1.6), 1.3 + 0.24 * len(order))
-        axes = fig.subplots(1, len(models), sharey=True, sharex=method == "permutation",
-                            squeeze=False)[0]
+        # one x scale for every panel: the same method's values compare across models
+        axes = fig.subplots(1, len(models), sharey=True, sharex=True, squeeze=False)[0]
         for ax, model in zip(axes, models):
             g = imp[imp["model"] == model].set_index("feature").reindex(order)
             y = np.arange(len(order))
@@ -250,7 +311,7 @@ def importance_figure(store: Store, sweep_id: str | None = None, *,
                     height=0.7, error_kw={"ecolor": INK, "elinewidth": 0.8, "capsize": 1.5})
             ax.axvline(0, color=MUTED, linewidth=0.8)
             ax.set_yticks(y, order)
-            ax.grid(axis="x", color="#eaeef2")
+            ax.grid(axis="x", color=GRID)
             ax.grid(axis="y", visible=False)
             ax.set_title(model, loc="left", fontweight="bold")
         fig.supxlabel(_METHOD_AXIS[method].format(metric=metric_label(metric),
@@ -262,6 +323,13 @@ def importance_figure(store: Store, sweep_id: str | None = None, *,
 
 
 # -- (d) predicted against observed --------------------------------------------------------
+def panel_grid(n: int) -> tuple[int, int]:
+    """(rows, columns) of n square panels: one row up to three, then as square as it gets
+    (4: 2 x 2, 5 or 6: 2 x 3, 7 to 9: 3 x 3)."""
+    cols = n if n <= 3 else math.ceil(math.sqrt(n))
+    return math.ceil(n / cols), cols
+
+
 def predictions_figure(store: Store, sweep_id: str | None = None, *, rule: str | None = None):
     """Predicted against observed on the test split, one panel per model's picked cell."""
     result = _picked(store, sweep_id, rule)
@@ -279,10 +347,9 @@ def predictions_figure(store: Store, sweep_id: str | None = None, *, rule: str |
     lo = float(min(preds["observed"].min(), preds["predicted"].min()))
     hi = float(max(preds["observed"].max(), preds["predicted"].max()))
     pad = 0.03 * (hi - lo)
-    cols = min(len(models), 5)
-    rows = math.ceil(len(models) / cols)
+    rows, cols = panel_grid(len(models))
     with _style():
-        fig = _figure(2.6 * cols + 0.6, 2.7 * rows + 0.8)
+        fig = _figure(3.0 * cols + 0.75, 3.0 * rows + 1.0)
         axes = fig.subplots(rows, cols, sharex=True, sharey=True, squeeze=False).ravel()
         for ax, model in zip(axes, models):
             g = preds[preds["model"] == model]
@@ -294,7 +361,7 @@ def predictions_figure(store: Store, sweep_id: str | None = None, *, rule: str |
             ax.set_xlim(lo - pad, hi + pad)
             ax.set_ylim(lo - pad, hi + pad)
             ax.set_aspect("equal")
-            ax.grid(axis="x", color="#eaeef2")
+            ax.grid(axis="x", color=GRID)
             ax.set_title(f"{model}: test RMSE {rmse:.3g}", loc="left", fontsize=9)
         for ax in axes[len(models):]:
             ax.set_visible(False)
@@ -340,12 +407,33 @@ def _leaves_under(nodes: pd.DataFrame, node: int) -> int:
     return count
 
 
+def _other_side(rule: str) -> str:
+    """The condition of the right branch, from the left branch's rule."""
+    if " ≤ " in rule:
+        return rule.replace(" ≤ ", " > ", 1)
+    return "otherwise"
+
+
+def _node_text(row) -> str:
+    """A node's prediction: 'mean 3.2', or for classes 'pass 83%' (its most likely class
+    and that class's share of its rows)."""
+    if isinstance(row.get("label"), str):
+        return f"{row['label']} {row['value']:.0%}"
+    return f"mean {row['value']:.3g}"
+
+
+def _wrapped(text: str, width: int = 32) -> str:
+    return textwrap.fill(text, width, break_long_words=False, break_on_hyphens=False)
+
+
 def tree_figure(store: Store, sweep_id: str | None = None, *, rule: str | None = None,
                 model: str | None = None, depth: int = 3):
-    """The picked pruned tree (refit on all training rows), its first `depth` levels drawn
-    and deeper branches summarised; leaves shaded by their mean prediction."""
-    from matplotlib import colormaps
-    from matplotlib.colors import Normalize
+    """The picked pruned tree (refit on all training rows), drawn from left to right: each
+    split's condition written on the branch it sends rows down, a branch's width following
+    the rows that take it, and on the right each leaf's mean as a bar from the mean of all
+    rows (blue above it, orange below). The first `depth` levels are drawn; deeper branches
+    end in one bar for their rows."""
+    from matplotlib.patches import ConnectionPatch
 
     result = _picked(store, sweep_id, rule)
     chosen, sid, target = result.table, result.facts.sweep_id, result.facts.target
@@ -360,47 +448,93 @@ def tree_figure(store: Store, sweep_id: str | None = None, *, rule: str | None =
     if nodes.empty:
         raise _nothing_stored(f"tree for cell {pick['cell_id']}", sid)
     pos = _layout(nodes, depth)
-    n_drawn = int(max(x for x, _, _ in pos.values())) + 1  # drawn leaves, one x step each
     by_id = nodes.set_index("node")
-    norm = Normalize(float(nodes["value"].min()), float(nodes["value"].max()))
-    cmap = colormaps["cividis"]
+    root_rows, root_mean = int(by_id.loc[0, "n_samples"]), float(by_id.loc[0, "value"])
+    n_rows = int(max(x for x, _, _ in pos.values())) + 1
+    deepest = max(d for _, d, _ in pos.values())
+    ends = [n for n, (_, _, c) in pos.items() if c or by_id.loc[n, "left_child"] < 0]
     total_leaves = int((nodes["left_child"] < 0).sum())
+    above, below = PALETTE[0], PALETTE[1]
+    classes = "label" in nodes and nodes["label"].map(lambda v: isinstance(v, str)).any()
+    class_colour = {c: PALETTE[i % len(PALETTE)] for i, c in
+                    enumerate(sorted(nodes["label"].dropna().unique()))} if classes else {}
+
+    def width(node: int) -> float:
+        return 0.8 + 9.0 * int(by_id.loc[node, "n_samples"]) / root_rows
+
     with _style():
-        fig = _figure(min(20.0, max(7.0, 1.3 * n_drawn + 0.6)), 1.2 + 1.0 * (depth + 1))
-        ax = fig.add_subplot()
-        ax.set_axis_off()
-        for node, (x, d, _) in pos.items():
+        fig = _figure(10.0, 1.5 + 0.5 * n_rows)
+        tree_ax, bar_ax = fig.subplots(1, 2, sharey=True, width_ratios=[2.4, 1.0])
+        tree_ax.set_axis_off()
+        reach = deepest + 0.35  # where every end's branch meets its bar
+        for node, (y, d, _) in pos.items():
             parent = int(by_id.loc[node, "parent"])
-            if parent >= 0 and parent in pos:
-                px, pd_, _ = pos[parent]
-                ax.plot([px, x], [-pd_, -d], color=FAINT, linewidth=1.2, zorder=1)
-                left = int(by_id.loc[parent, "left_child"]) == node
-                ax.text((px + x) / 2, -(pd_ + d) / 2, "yes" if left else "no", fontsize=7,
-                        color=MUTED, ha="center", va="center",
-                        bbox={"boxstyle": "round,pad=0.15", "fc": "white", "ec": "none"})
-        for node, (x, d, collapsed) in pos.items():
+            if parent < 0 or parent not in pos:
+                continue
+            py, pdepth, _ = pos[parent]
+            left = int(by_id.loc[parent, "left_child"]) == node
+            condition = by_id.loc[parent, "rule"] if left else _other_side(
+                str(by_id.loc[parent, "rule"]))
+            end_x = reach if node in ends else d
+            tree_ax.plot([pdepth, pdepth, end_x], [-py, -y, -y], color=FAINT,
+                         linewidth=width(node), solid_capstyle="butt",
+                         solid_joinstyle="miter", zorder=1)
+            tree_ax.text(pdepth + 0.06, -y + 0.1, _wrapped(str(condition)), fontsize=7.5,
+                         color=INK, ha="left", va="bottom", linespacing=1.1, zorder=3)
+        for node, (y, d, collapsed) in pos.items():
+            if node in ends:
+                continue
             row = by_id.loc[node]
-            leaf = row["left_child"] < 0
-            mean = (f"{row['label']} {row['value']:.0%}, n {int(row['n_samples'])}"
-                    if isinstance(row.get("label"), str)
-                    else f"mean {row['value']:.3g}, n {int(row['n_samples'])}")
-            if leaf or collapsed:
-                text = mean if leaf else f"… {_leaves_under(nodes, node)} leaves\n{mean}"
-                face = cmap(norm(row["value"]))
-                ink = "white" if norm(row["value"]) < 0.55 else INK
+            tree_ax.plot([d], [-y], marker="o", markersize=4.5, color=INK, zorder=4)
+            tree_ax.text(d - 0.04, -y - 0.14, f"{int(row['n_samples']):,} rows\n"
+                         f"{_node_text(row)}", fontsize=7, color=MUTED, ha="right",
+                         va="top", zorder=3)
+        tree_ax.set_xlim(-0.55, reach)
+        ys, means, labels, colours = [], [], [], []
+        for node in ends:
+            y, _, collapsed = pos[node]
+            row = by_id.loc[node]
+            ys.append(-y)
+            means.append(float(row["value"]))
+            more = f" · {_leaves_under(nodes, node)} leaves" if collapsed else ""
+            if classes:
+                labels.append(f"{_node_text(row)} · {int(row['n_samples']):,} rows{more}")
+                colours.append(class_colour[row["label"]])
             else:
-                rule = textwrap.fill(f"{row['rule']}?", 30, break_long_words=False)
-                text, face, ink = f"{rule}\n{mean}", "#f6f8fa", INK
-            ax.text(x, -d, text, ha="center", va="center", fontsize=8, color=ink, zorder=3,
-                    bbox={"boxstyle": "round,pad=0.35", "fc": face, "ec": MUTED, "lw": 0.6})
-        xs = [p[0] for p in pos.values()]
-        ax.set_xlim(min(xs) - 0.7, max(xs) + 0.7)
-        ax.set_ylim(-max(p[1] for p in pos.values()) - 0.35, 0.35)
+                labels.append(f"{row['value']:.3g} · {int(row['n_samples']):,} rows{more}")
+                colours.append(above if row["value"] >= root_mean else below)
+        means = np.array(means)
+        if classes:  # shares of each end's most likely class, drawn from zero
+            root_mean = 0.0
+        bar_ax.barh(ys, means - root_mean, left=root_mean, height=0.55, color=colours,
+                    zorder=2)
+        if not classes:
+            bar_ax.axvline(root_mean, color=INK, linewidth=1.0, zorder=3)
+        lo, hi = min(means.min(), root_mean), max(means.max(), root_mean)
+        if classes:
+            hi = 1.0
+        pad = 0.08 * max(hi - lo, 1e-9)
+        bar_ax.set_xlim(lo - pad, hi + pad)
+        for y in ys:  # each end's branch runs on to its bar
+            fig.add_artist(ConnectionPatch((reach, y), (lo - pad, y), "data",
+                                           "data", axesA=tree_ax, axesB=bar_ax, color=FAINT,
+                                           linewidth=0.8, linestyle=(0, (1, 2))))
+        bar_ax.set_yticks(ys, labels, fontsize=7.5, color=INK)
+        bar_ax.yaxis.tick_right()
+        bar_ax.set_ylim(-n_rows + 0.4, 0.75)
+        bar_ax.grid(axis="y", visible=False)
+        bar_ax.grid(axis="x", color=GRID)
+        bar_ax.spines["left"].set_visible(False)
+        bar_ax.tick_params(axis="y", length=0, labelright=True, labelleft=False)
+        bar_ax.set_xlabel(f"share of the rows at each end in its most likely {target}"
+                          if classes else f"mean {target} of the rows at each end; line: all "
+                          f"{root_rows:,} rows ({root_mean:.3g})", fontsize=8)
         shown = "the whole tree" if all(not c for *_, c in pos.values()) else (
-            f"first {depth} levels; '…' boxes summarise deeper branches")
+            f"first {depth} levels; a branch cut there ends in one bar for its rows")
         _headline(fig, f"How does {pick['model']} split the rows?",
-                  f"{rule_label(pick['rule'])} cell refit on all training rows, {total_leaves} leaves "
-                  f"({shown}); 'yes' follows the condition; shade and 'mean': mean {target}")
+                  f"{rule_label(pick['rule'])} cell refit on all training rows, "
+                  f"{total_leaves} leaves ({shown}); read left to right, each branch "
+                  "labelled with the rows it takes, its width following their number")
     return fig
 
 

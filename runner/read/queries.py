@@ -18,7 +18,7 @@ import pandas as pd
 from .compare import holm, t_from_moments
 from ..errors import ModelError, QueryError
 from ..families import get_family, nearest
-from .picks import RULES, TOLERANCE, check_rule, check_se
+from .picks import RULES, TOLERANCE, check_rule, check_se, grid_edges
 from .results import (CellStats, Coefficients, Comparison, ComplexityTable, Importances, Picks,
                       Stability, Summary, SweepFacts, SweepList)
 from ..store import Store
@@ -138,16 +138,30 @@ def _classes(text) -> tuple:
 
 
 def sweep_record(store: Store, sweep_id: str) -> dict:
-    """The sweep's stored row, with counts of what it holds."""
+    """The sweep's stored row, with counts of what it holds: rows, cells wholly reused
+    (`reused`) and the sweeps they came from (`reused_from`), and the worker seconds of
+    the fits this sweep made itself (`fit_seconds`: one metric's rows, reused rows left
+    out)."""
     sweep = store.query("select * from sweeps where sweep_id = ?", [sweep_id]).iloc[0].to_dict()
+    first = str(sweep["metrics"]).split(",")[0]
     counts = store.query("""
         select (select count(*) from cells where sweep_id = $1) as cells,
+               (select count(*) from cells where sweep_id = $1 and reused_from is not null)
+                   as reused,
                (select count(*) from fold_scores where sweep_id = $1) as fold_rows,
                (select count(*) from test_scores where sweep_id = $1) as test_rows,
                (select count(*) from failures where sweep_id = $1) as failures,
-               (select count(*) from explained where sweep_id = $1) as explained
-        """, [sweep_id]).iloc[0].to_dict()
-    return {**sweep, "counts": {k: int(v) for k, v in counts.items()}}
+               (select count(*) from explained where sweep_id = $1) as explained,
+               coalesce((select sum(fit_seconds) from fold_scores where sweep_id = $1
+                         and metric = $2 and reused_from is null), 0)
+               + coalesce((select sum(fit_seconds) from test_scores where sweep_id = $1
+                           and metric = $2 and reused_from is null), 0) as fit_seconds
+        """, [sweep_id, first]).iloc[0].to_dict()
+    sources = store.query("select distinct reused_from from cells where sweep_id = ? and "
+                          "reused_from is not null order by reused_from", [sweep_id])
+    counts = {k: float(v) if k == "fit_seconds" else int(v) for k, v in counts.items()}
+    counts["reused_from"] = sources["reused_from"].tolist()
+    return {**sweep, "counts": counts}
 
 
 def model_order(store: Store, sweep_id: str) -> list[str]:
@@ -291,7 +305,9 @@ def picks(store: Store, sweep_id: str | None = None, *, rule: str | None = None,
           se: str = "plain", model: str | None = None) -> Picks:
     """The picked cell of each model: one row per model and rule (both rules when rule is None).
 
-    Cells with a failed fit or fewer fold scores than k·r are never picked."""
+    Cells with a failed fit or fewer fold scores than k·r are never picked. `n_terms` is
+    the size of the cell's refit where the explain step stored it (leaves of a tree,
+    non-zero coefficients of a linear model), `mean_leaves` a tree's mean over folds."""
     check_rule(rule)
     check_se(se)
     facts = sweep_facts(store, sweep_id)
@@ -305,19 +321,36 @@ def picks(store: Store, sweep_id: str | None = None, *, rule: str | None = None,
             select model, 'one_se' as rule, one_se_cell as cell_id from chosen)
         select p.model, j.family, p.rule, p.cell_id, j.params, j.complexity_rank,
                b.better, $2 as metric, j.mean, j.se, j.sd, j.n, b.best_mean, b.best_se,
-               b.threshold, c.n_within, t.value as test, j.mean_leaves, e.cells, e.eligible,
-               j.model_row
+               b.threshold, c.n_within, t.value as test, j.mean_leaves, x.n_terms, e.cells,
+               e.eligible, j.model_row
         from picked p
         join judged j using (model, cell_id)
         join bars b using (model)
         join chosen c using (model)
         join eligible e using (model)
         left join test_scores t on t.sweep_id = $1 and t.cell_id = p.cell_id and t.metric = $2
+        left join explained x on x.sweep_id = $1 and x.cell_id = p.cell_id
         where list_contains($6::varchar[], p.rule)
         order by j.model_row, p.rule""", [*args, rules])
     df = df.drop(columns=["model_row"]).reset_index(drop=True)
     return Picks(facts, tuple(rules), se, df, coverage(store, facts, model=model),
-                 varying_params(store, facts.sweep_id))
+                 varying_params(store, facts.sweep_id), _edges(store, facts.sweep_id, df))
+
+
+def _edges(store: Store, sweep_id: str, picked: pd.DataFrame) -> pd.DataFrame:
+    """Each picked cell's parameters on the edge of its model's grid (`picks.grid_edges`)."""
+    cells = store.query("select model, params from cells where sweep_id = ?", [sweep_id])
+    grids: dict[str, list[dict]] = {}
+    for model, params in zip(cells["model"], cells["params"]):
+        grids.setdefault(model, []).append(json.loads(params))
+    rows = []
+    for r in picked.itertuples(index=False):
+        leaves = None if pd.isna(r.mean_leaves) else float(r.mean_leaves)
+        for name, side, value in grid_edges(r.family, grids.get(r.model, []),
+                                            json.loads(r.params), leaves):
+            rows.append({"model": r.model, "family": r.family, "rule": r.rule, "param": name,
+                         "side": side, "value": value})
+    return pd.DataFrame(rows, columns=["model", "family", "rule", "param", "side", "value"])
 
 
 def coverage(store: Store, facts: SweepFacts, *, model: str | None = None):
@@ -371,6 +404,7 @@ def summary(store: Store, sweep_id: str | None = None, *,
                                       "params", "rule"] + [f"{part}_{m}" for m in facts.metrics
                                                            for part in ("cv", "se", "test")])
         return Summary(facts, rule, table, chosen.coverage, chosen.varying)
+    edges = picks(store, facts.sweep_id).edges  # both rules: a best on the edge matters too
     wide = long.pivot_table(index=["first_row", "model", "family", "cells", "failed_cells",
                                    "cell_id", "params"],
                             columns="metric", values=["mean", "se", "test"], aggfunc="first")
@@ -384,7 +418,7 @@ def summary(store: Store, sweep_id: str | None = None, *,
         ordered += [f"cv_{m}", f"se_{m}", f"test_{m}"]
     out = out[[c for c in ordered if c in out.columns]].reset_index(drop=True)
     out.insert(6, "rule", rule)
-    return Summary(facts, rule, out, chosen.coverage, chosen.varying)
+    return Summary(facts, rule, out, chosen.coverage, chosen.varying, edges)
 
 
 # -- the complexity table ------------------------------------------------------------------

@@ -15,14 +15,16 @@ from ..errors import FoldwiseError
 from .filenames import inside, safe_component
 from ..metrics import get_metric, metric_label
 from .class_figures import calibration_figure, roc_figure
-from .plots import (complexity_figure, figure_svg, importance_figure, model_colours,
-                    models_figure, predictions_figure, tree_figure)
+from .plots import (NEUTRALS, complexity_figure, figure_svg, importance_figure,
+                    model_colours, models_figure, predictions_figure, tree_figure)
 from .queries import (compare, complexity_table, importance_table, picks, stability_table,
                       summary, sweep_facts, sweep_record, tree_fold_table)
 from ..store import Store
+from .verdict import decision
 from .views import (METHODS, STABILITY_COLUMNS, TREE_FOLD_COLUMNS, View, columns_view,
-                    compare_view, complexity_view, decision, importance_matrix, number,
-                    picks_view, stability_sentences, summary_view)
+                    edge_notes,
+                    compare_view, complexity_view, importance_matrix,
+                    picks_view, reuse_text, stability_sentences, summary_view, time_text)
 
 __all__ = ["report_context", "render_report", "write_report", "report_path", "CAUTIONS"]
 
@@ -42,8 +44,8 @@ CAUTIONS = [
     "Correlated columns share importance (shuffling one leaves its partner to carry the "
     "signal), and impurity importance favours columns with many distinct values.",
     "Models that inform decisions about people or money must follow your organisation's "
-    "model-risk, fairness and data-protection rules. The spec text and data fingerprint below "
-    "support that audit; they do not replace it.",
+    "model-risk, fairness and data-protection rules. The spec text and data fingerprint under "
+    "Sweep facts, above, support that audit; they do not replace it.",
 ]
 
 
@@ -122,17 +124,21 @@ def report_context(store: Store, sweep_id: str | None = None, *, se: str = "plai
             sweep[key] = pd.Timestamp(sweep[key]).strftime("%Y-%m-%d %H:%M:%S")
     compare_shown = compare_view(pairs)
     summary_shown = summary_view(summary(store, sid))
-    picks_shown = picks_view(picks(store, sid, se=se))
+    both_picks = picks(store, sid, se=se)
+    picks_shown = picks_view(both_picks)
     return {
         "sweep": sweep, "sid": sid, "facts": facts, "counts": counts,
         "versions": ", ".join(f"{k} {v}" for k, v in sorted(versions.items())),
-        "seconds": number(seconds, 3) if seconds is not None else "",
+        "seconds": f"{seconds:.1f} s" if seconds is not None else "",
+        "time": time_text(seconds, counts["fit_seconds"]),
+        "reuse": reuse_text(counts["cells"], counts["reused"], counts["reused_from"]),
         "metric_label": get_metric(metric).axis_label(facts.target),
         "models": [{"name": m, "colour": c} for m, c in colours.items()],
         "decision": decision(rule_picks, pairs, imp),
         "stability_sentences": stability_sentences(stab),
         "summary": _html(summary_shown), "summary_title": summary_shown.title,
         "picks": _html(picks_shown), "picks_title": picks_shown.title,
+        "edges": [n.removeprefix("note: ") for n in edge_notes(both_picks.edges)],
         "compare": _html(compare_shown), "compare_title": compare_shown.title,
         "compare_words": list(compare_shown.sentences),
         "compare_note": " ".join(c.removeprefix("note: ") for c in compare_shown.caveats),
@@ -142,7 +148,7 @@ def report_context(store: Store, sweep_id: str | None = None, *, se: str = "plai
         "methods": {k: v.format(metric=metric_label(metric)) for k, v in METHODS.items()},
         "stability": _html(columns_view(stab, STABILITY_COLUMNS)) if len(stab) else None,
         "tree_folds": _html(columns_view(trees, TREE_FOLD_COLUMNS)) if len(trees) else None,
-        "figures": figures, "cautions": CAUTIONS,
+        "figures": figures, "cautions": CAUTIONS, "neutrals": NEUTRALS,
     }
 
 

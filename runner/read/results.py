@@ -66,6 +66,7 @@ class Summary:
     table: pd.DataFrame
     coverage: Coverage
     varying: dict = field(default_factory=dict)  # model -> the params its grid varies
+    edges: pd.DataFrame = field(default_factory=pd.DataFrame)  # picks on a grid's edge
 
     @property
     def unpicked(self) -> tuple[str, ...]:
@@ -90,7 +91,9 @@ class CellStats:
 
 @dataclass(frozen=True)
 class Picks:
-    """The picked cell of each model: one row per model and rule."""
+    """The picked cell of each model: one row per model and rule; `edges` one row per
+    picked cell and parameter whose value is the lowest or highest of its grid where the
+    grid could go further (model, family, rule, param, side 'low'/'high', value)."""
 
     facts: SweepFacts
     rules: tuple[str, ...]
@@ -98,6 +101,7 @@ class Picks:
     table: pd.DataFrame
     coverage: Coverage
     varying: dict = field(default_factory=dict)  # model -> the params its grid varies
+    edges: pd.DataFrame = field(default_factory=pd.DataFrame)
 
     @property
     def unpicked(self) -> tuple[str, ...]:

@@ -18,8 +18,9 @@ from .results import (Coefficients, Comparison, ComplexityTable, Coverage, Model
 
 __all__ = ["View", "number", "mean_se", "params_text", "p_text", "value_text", "rule_label",
            "cell_text", "pair_sentence", "pair_sentences", "summary_view", "picks_view",
-           "compare_view", "complexity_view", "coverage_notes", "decision", "Decision",
+           "compare_view", "complexity_view", "coverage_notes",
            "stability_sentences", "columns_view", "importance_matrix", "METHODS",
+           "time_text", "reuse_text", "TIME_MEANING", "edge_notes",
            "models_view", "card_view", "coefficients_view", "built_sentences",
            "prediction_sentences", "plain_text", "labels_text", "sweeps_view", "removal_view",
            "diff_view", "history_view"]
@@ -140,6 +141,36 @@ def cell_text(params, keep, leaves=None) -> str:
     return text
 
 
+# -- a sweep's time and reuse ---------------------------------------------------------------
+TIME_MEANING = "from reading the data to the last write"
+"""What a sweep's seconds measure, wherever they are shown (`run`, `sweeps`, the report)."""
+
+
+def time_text(seconds, fit_seconds=None) -> str:
+    """'38.6 s from reading the data to the last write; its fits took 52.1 s of worker
+    time' (worker seconds summed over processes, fits this sweep made itself)."""
+    if _missing(seconds):
+        return "not finished"
+    text = f"{float(seconds):.1f} s {TIME_MEANING}"
+    if fit_seconds is not None and not _missing(fit_seconds) and fit_seconds > 0:
+        text += f"; its own fits took {float(fit_seconds):.1f} s of worker time"
+    return text
+
+
+def reuse_text(cells: int, reused: int, sources=()) -> str:
+    """'42 cells, all reused from sweep X: nothing was fitted', '42 cells, 30 of them reused
+    from ...', or '42 cells, all computed in this sweep'."""
+    where = " from earlier sweeps"
+    if sources:
+        shown = ", ".join(list(sources)[:3]) + (", ..." if len(sources) > 3 else "")
+        where = f" from sweep{'s' if len(sources) > 1 else ''} {shown}"
+    if cells and reused == cells:
+        return f"{_count(cells, 'cell', 'cells')}, all reused{where}: nothing was fitted"
+    if reused:
+        return f"{_count(cells, 'cell', 'cells')}, {reused} of them reused{where}"
+    return f"{_count(cells, 'cell', 'cells')}, all computed in this sweep"
+
+
 # -- sentences -----------------------------------------------------------------------------
 CLEAR_P = 0.05
 """A paired difference is worded as clear when its p-value (Holm-adjusted when several
@@ -230,6 +261,31 @@ def coverage_notes(coverage: Coverage, sweep_id: str, n_folds: int) -> tuple[str
     return tuple(f"note: {n}" for n in notes)
 
 
+def edge_notes(edges: pd.DataFrame) -> tuple[str, ...]:
+    """One sentence per picked cell on the edge of its grid, saying which way to extend it:
+    past the edge, a best cell may score better still, and a one-SE cell on its simpler
+    edge may have a simpler cell within one SE."""
+    out = []
+    if edges is None or edges.empty:
+        return ()
+    for r in edges.itertuples(index=False):
+        param = get_family(r.family).params.get(r.param)
+        low = r.side == "low"
+        way = "below" if low else "above"
+        simpler = param is not None and param.simpler == ("lower" if low else "higher")
+        if r.rule == "best":
+            why = f"the best {r.param} may lie {way} it"
+        elif simpler:
+            why = "a simpler cell may still be within one SE"
+        else:
+            why = "the best cell, and the one-SE cell with it, may lie beyond it"
+        out.append(f"note: {r.model}'s {rule_label(r.rule)} cell sits on the edge of its grid: "
+                   f"{r.param} = {value_text(r.value)} is the {'smallest' if low else 'largest'} "
+                   f"value tried, so {why}; extend the grid of {r.param} {way} "
+                   f"{value_text(r.value)}.")
+    return tuple(out)
+
+
 # -- tables --------------------------------------------------------------------------------
 def _cv_head(metric: str) -> str:
     return f"CV {metric_label(metric)} (mean ± SE)"
@@ -260,7 +316,8 @@ def summary_view(result: Summary) -> View:
     title = (f"sweep {facts.sweep_id}: picked cell per model ({rule_label(result.rule)} "
              f"rule) by CV {metric_label(facts.metric)}")
     return View(title, shown.reset_index(drop=True), tuple(numeric),
-                notes=coverage_notes(result.coverage, facts.sweep_id, facts.n_folds))
+                notes=coverage_notes(result.coverage, facts.sweep_id, facts.n_folds)
+                + edge_notes(result.edges))
 
 
 def picks_view(result: Picks) -> View:
@@ -283,13 +340,15 @@ def picks_view(result: Picks) -> View:
             row.update(cols)
             numeric += list(cols)[1:]
         if result.rules == ("one_se",):
-            row["within 1 SE"] = f"{group['n_within'].iloc[0]} of {group['eligible'].iloc[0]}"
+            row["cells within one SE"] = (f"{group['n_within'].iloc[0]} of "
+                                          f"{group['eligible'].iloc[0]}")
         rows.append(row)
     title = (f"sweep {facts.sweep_id}: picks by CV {metric_label(m)} ({facts.better_of()} is "
              f"better, {result.se} SE; rank 0 = simplest; the sweep's rule is "
              f"{rule_label(facts.rule)})")
     return View(title, pd.DataFrame(rows), tuple(dict.fromkeys(numeric)),
-                notes=coverage_notes(result.coverage, facts.sweep_id, facts.n_folds))
+                notes=coverage_notes(result.coverage, facts.sweep_id, facts.n_folds)
+                + edge_notes(result.edges))
 
 
 def compare_view(result: Comparison) -> View:
@@ -319,29 +378,53 @@ def compare_view(result: Comparison) -> View:
                                                      result.facts.n_folds))
 
 
+def _status(pick: str, within: bool, excluded: str) -> str:
+    """A cell's standing in its model: its picks, else 'within one SE', else why it cannot
+    be picked."""
+    if pick:
+        return ", ".join({"best": "best", "one_se": "one-SE pick"}[r] for r in pick.split())
+    if excluded:
+        return f"not pickable: {excluded}"
+    return "within one SE" if within else ""
+
+
 def complexity_view(result: ComplexityTable) -> View:
-    """One model's cells simplest first: rank, the params shown, CV mean ± SE, leaves, test
-    score, whether within one SE of the best, and the picks."""
-    df, m = result.table, result.metric
-    shown = pd.DataFrame({"rank": df["complexity_rank"].map(number)})
+    """One model's cells simplest first: each cell's standing (picks, within one SE of the
+    best, or why it cannot be picked), rank, the params shown, mean leaves, CV mean ± SE,
+    its distance from the best in metric units and in the best cell's SEs, and test score."""
+    df, m, facts = result.table, result.metric, result.facts
+    sign = 1.0 if facts.better_of(m) == "lower" else -1.0
+    best = df[df["pick"].str.split().map(lambda r: "best" in r)]
+    best_mean = float(best["mean"].iloc[0]) if len(best) and m == facts.metric else None
+    se_best = (abs(result.threshold - best_mean) if best_mean is not None
+               and result.threshold is not None else None)
+    shown = pd.DataFrame({"standing": [_status(p, w, e) for p, w, e in
+                                       zip(df["pick"], df["within_one_se"], df["excluded"])],
+                          "rank": df["complexity_rank"].map(number)})
     for name in result.shown_params:
         shown[name] = df[name].map(value_text)
-    shown[_cv_head(m)] = [mean_se(x, e) for x, e in zip(df["mean"], df["se"])]
-    numeric = ["rank", _cv_head(m)]
+    numeric = ["rank"]
     if df["mean_leaves"].notna().any():
         shown["leaves"] = [value_text(round(v, 1)) if v == v else "" for v in df["mean_leaves"]]
         numeric.append("leaves")
+    shown[_cv_head(m)] = [mean_se(x, e) for x, e in zip(df["mean"], df["se"])]
+    numeric.append(_cv_head(m))
+    if best_mean is not None:
+        head = f"{'above' if sign > 0 else 'below'} best"
+        places = decimals_for(se_best)
+        shown[head] = ["" if v != v else
+                       (fixed(sign * (v - best_mean), places) if places is not None
+                        else number(sign * (v - best_mean)))
+                       + (f" = {number(sign * (v - best_mean) / se_best, 2)} SE"
+                          if se_best else "")
+                       for v in df["mean"]]
+        numeric.append(head)
     shown[_test_head(m)] = df["test"].map(number)
     numeric.append(_test_head(m))
-    shown["within 1 SE"] = ["yes" if w else "" for w in df["within_one_se"]]
-    shown["pick"] = [rule_label(p) if p else "" for p in df["pick"]]
-    if (df["excluded"] != "").any():
-        shown["excluded"] = df["excluded"]
-    facts = result.facts
     bar = result.threshold
     op = "≤" if facts.better_of() == "lower" else "≥"
-    bar_text = (f"; one-SE threshold: CV {metric_label(facts.metric)} {op} {number(bar)}"
-                if bar is not None else "")
+    bar_text = (f"; one-SE threshold: CV {metric_label(facts.metric)} {op} {number(bar)} "
+                "is within one SE of the best" if bar is not None else "")
     family = get_family(result.family).name
     title = (f"{result.model} ({family}), simplest first: sweep {facts.sweep_id}, CV "
              f"{metric_label(m)}, {result.se} SE{bar_text}")
@@ -363,85 +446,6 @@ METHODS = {
                    "categories (spread = sd over fold refits)",
 }
 """What each importance method's value means, for tables and reports."""
-
-
-@dataclass(frozen=True)
-class Decision:
-    """The models ranked by their picked cells, and the plain sentences drawn from that."""
-
-    rule: str
-    metric: str
-    rows: list
-    sentences: list
-    leader: str | None
-
-
-def decision(chosen: Picks, pairs: Comparison, importances=None) -> Decision:
-    """Rank the models' picked cells (under one rule) and say what the paired folds show."""
-    facts, table = chosen.facts, chosen.table
-    rule, better, name = rule_label(chosen.rules[0]), facts.better_of(), metric_label(facts.metric)
-    if table.empty:
-        return Decision(rule, name, [], ["No model has a cell with every fold scored; nothing "
-                                         "can be recommended."], None)
-    sign = 1.0 if better == "lower" else -1.0
-    ranked = table.assign(_key=sign * table["mean"]).sort_values("_key").reset_index(drop=True)
-    leader = ranked.iloc[0]
-    lm = leader["model"]
-    p = pairs.table
-    rows, gaps = [], {}
-    for r in ranked.itertuples(index=False):
-        gap = se = pv = wins = None
-        if r.model != lm:
-            hit = p[((p.model_a == lm) & (p.model_b == r.model)) |
-                    ((p.model_b == lm) & (p.model_a == r.model))]
-            if len(hit):
-                h = hit.iloc[0]
-                d_other = -h.mean_diff if h.model_a == lm else h.mean_diff
-                gap, se, pv = sign * d_other, h.se, h.p_value
-                wins = int(h.wins_a if h.model_a == lm else h.wins_b)
-                gaps[r.model] = (gap, se, pv, wins, int(h.folds))
-        rows.append({"model": r.model, "family": r.family,
-                     "cell": cell_text(r.params, chosen.varying.get(r.model, [])),
-                     "cv": mean_se(r.mean, r.se), "test": number(r.test),
-                     "gap": "leader" if gap is None else mean_se(gap, se),
-                     "wins": "" if wins is None else f"{wins} of {gaps[r.model][4]}",
-                     "p": p_text(pv), "leader": r.model == lm})
-    said = [f"{lm} (a {leader['family']} model) has the best cross-validated {name} of the "
-            f"{rule} picks: {mean_se(leader['mean'], leader['se'])} over {facts.n_folds} folds "
-            f"({better} is better), and {number(leader['test'])} on the test split."]
-    if len(ranked) > 1:
-        ru = ranked.iloc[1]["model"]
-        if ru in gaps:
-            gap, se, pv, wins, folds = gaps[ru]
-            clear = pv < 0.05 and gap > 0
-            said.append(f"The runner-up, {ru}, is {number(gap, 3)} ± {number(se, 2)} worse in "
-                        f"CV {name}; {lm} wins {wins} of {folds} paired folds ({p_text(pv)}). " +
-                        ("The lead is clear on these folds." if clear else
-                         f"The lead is within the noise of these folds: {lm} and {ru} are "
-                         "not clearly separated, so prefer whichever is simpler to run and "
-                         "explain."))
-    if not get_family(leader["family"]).readable:
-        readable = ranked[ranked["family"].map(lambda f: get_family(f).readable)]
-        if len(readable) and readable.iloc[0]["model"] in gaps:
-            rm = readable.iloc[0]
-            gap, se, *_ = gaps[rm["model"]]
-            said.append(f"If a person must be able to read the model, the best readable one is "
-                        f"{rm['model']} ({rm['family']}), at a cost of {number(gap, 3)} ± "
-                        f"{number(se, 2)} in CV {name}.")
-    tests = table.dropna(subset=["test"])
-    if len(tests) > 1:
-        top = tests.loc[(sign * tests["test"]).idxmin(), "model"]
-        said.append(f"The test split agrees: {lm} also scores best there." if top == lm else
-                    f"The test split ranks {top} first, not {lm}; one split is a noisy check, "
-                    "so weigh the paired folds above more heavily.")
-    if importances is not None:
-        imp = importances.table
-        imp = imp[(imp["cell_id"] == leader["cell_id"]) & (imp["method"] == "permutation")]
-        if len(imp):
-            top3 = ", ".join(imp.sort_values("rank")["feature"].head(3))
-            said.append(f"{lm} relies most on {top3} (permutation importance on the test "
-                        "split).")
-    return Decision(rule, name, rows, said, lm)
 
 
 def stability_sentences(stab: pd.DataFrame) -> list[str]:
@@ -676,10 +680,11 @@ def sweeps_view(result: SweepList, title: str | None = None) -> View:
         "cells": df["cells"].map(number), "fold rows": df["fold_rows"].map(number),
         "data": df["data"], "labels": df["labels"].map(labels_text),
         "note": df["note"].map(lambda n: plain_text(n, 60))})
+    sentences = (f"seconds: {TIME_MEANING}.",)
     if title is None:
         title = (f"sweeps, newest first ({len(df)})" if result.selection == "every sweep" else
                  f"sweeps with {plain_text(result.selection)}, newest first ({len(df)})")
-    return View(title, shown, ("seconds", "cells", "fold rows"))
+    return View(title, shown, ("seconds", "cells", "fold rows"), sentences)
 
 
 def removal_view(result: SweepList, rows: dict[str, int], *, done: bool = False) -> View:

@@ -14,6 +14,7 @@ import contextlib
 import json
 import time
 from contextlib import contextmanager
+from datetime import datetime
 from pathlib import Path
 from typing import Callable, Iterator
 
@@ -345,11 +346,17 @@ class Store:
 
         self._transaction(work, what="recording the sweep")
 
-    def finish_sweep(self, sweep_id: str, status: str) -> None:
-        """Mark a sweep finished, failed or interrupted, with the time."""
+    def finish_sweep(self, sweep_id: str, status: str, at: datetime | None = None) -> None:
+        """Mark a sweep finished, failed or interrupted, with the time (`at`, by the clock
+        that took its start, else the store's)."""
+        if at is None:
+            self._transaction(lambda con: con.execute(
+                "update sweeps set status = ?, finished_at = current_timestamp::timestamp "
+                "where sweep_id = ?", [status, sweep_id]), what="finishing the sweep")
+            return
         self._transaction(lambda con: con.execute(
-            "update sweeps set status = ?, finished_at = current_timestamp::timestamp "
-            "where sweep_id = ?", [status, sweep_id]), what="finishing the sweep")
+            "update sweeps set status = ?, finished_at = ? where sweep_id = ?",
+            [status, at, sweep_id]), what="finishing the sweep")
 
     def mark_interrupted(self, host: str, alive: Callable[[int], bool]) -> list[str]:
         """Mark this host's 'running' sweeps whose process is gone as 'interrupted'.
@@ -440,6 +447,10 @@ class Store:
         self._transaction(work, what="recording reused cells")
 
     # -- reading ---------------------------------------------------------------------------
+    def holds_tables(self) -> bool:
+        """True if the store exists and holds foldwise's tables (nothing is created)."""
+        return self._has_schema()
+
     def _has_schema(self) -> bool:
         if not self.location.exists():
             return False

@@ -14,8 +14,9 @@ SCHEMA_VERSION = 3
 3: classes (sweeps.task and .classes, tree_nodes.label, test_predictions of classes), built
 models (`models`, `model_coefficients`), the signed coefficients of explained linear cells
 (`coefficients`), a sweep's labels (`sweep_labels`), note and plan identity (sweeps.note,
-sweeps.plan, so two sweeps' folds can be told equal or not); new tables by `create table
-if not exists`, new columns by UPGRADE_COLUMNS."""
+sweeps.plan, so two sweeps' folds can be told equal or not), the size of an explained
+cell's refit (explained.n_terms); new tables by `create table if not exists`, new columns
+by UPGRADE_COLUMNS."""
 DEFAULT_STORE = Path("results") / "foldwise.duckdb"
 
 TABLE_SQL = """
@@ -66,7 +67,7 @@ create table if not exists test_predictions (
     sweep_id varchar, cell_id varchar, "row" integer, observed double, predicted double,
     observed_class varchar, predicted_class varchar, probabilities double[]);
 create table if not exists explained (
-    sweep_id varchar, cell_id varchar, settings json, reused_from varchar,
+    sweep_id varchar, cell_id varchar, settings json, reused_from varchar, n_terms integer,
     primary key (sweep_id, cell_id));
 -- signed coefficients of an explained linear cell's refit: in the data's units and per
 -- standard deviation, with the centring and scale used (families/linear.py); class_label
@@ -111,7 +112,7 @@ UPGRADE_COLUMNS = (
     ("sweeps", "plan json"), ("tree_nodes", "label varchar"),
     ("test_predictions", "observed_class varchar"),
     ("test_predictions", "predicted_class varchar"),
-    ("test_predictions", "probabilities double[]"),
+    ("test_predictions", "probabilities double[]"), ("explained", "n_terms integer"),
 )
 """(table, column definition) added since a table was first created: an older store gains
 them on upgrade (idempotent: `add column if not exists`)."""

@@ -5,12 +5,13 @@ any array is built: cells, folds, fits, score rows and a rough store size, and t
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import NamedTuple
 
 from ..errors import DataError, SpecError
 from ..metrics import TASK_DEFAULTS
-from .grid import count_cells
+from .grid import count_model
 
-__all__ = ["PlanSize", "plan_size", "check_limits", "check_plan_memory", "data_limit_bytes",
+__all__ = ["PlanSize", "ModelSize", "plan_size", "check_limits", "check_plan_memory", "data_limit_bytes",
            "BYTES_PER_ROW"]
 
 BYTES_PER_ROW = 120
@@ -21,25 +22,42 @@ _LIFT = ("raise `limits.{field}` in the spec, or run with --lift-limits if the m
          "can take it")
 
 
+class ModelSize(NamedTuple):
+    """One model's share of a plan; `bound`: the cell count is an upper bound."""
+
+    label: str
+    family: str
+    cells: int
+    fits_per_fold: int
+    bound: bool
+
+
 @dataclass(frozen=True)
 class PlanSize:
     """What a sweep will compute and store, before the explain step."""
 
-    models: tuple[tuple[str, str, int, bool], ...]  # (label, family, cells, upper bound?)
+    models: tuple[ModelSize, ...]
     folds: int
     metrics: int
 
     @property
     def cells(self) -> int:
-        return sum(m[2] for m in self.models)
+        return sum(m.cells for m in self.models)
 
     @property
     def bound(self) -> bool:
         """True if a {path: N} grid makes the cell count an upper bound."""
-        return any(m[3] for m in self.models)
+        return any(m.bound for m in self.models)
 
     @property
     def fits(self) -> int:
+        """Fits a sweep makes: per fold and for the refit, one per group of cells that
+        differ only in a path parameter, one per other cell."""
+        return sum(m.fits_per_fold for m in self.models) * (self.folds + 1)
+
+    @property
+    def fits_each(self) -> int:
+        """Fits with --no-paths: every cell on every fold and the refit."""
         return self.cells * (self.folds + 1)
 
     @property
@@ -57,7 +75,9 @@ class PlanSize:
     def estimate(self) -> str:
         """One line: fits, rows and the rough store size."""
         up = "≤" if self.bound else ""
-        return (f"{up}{self.fits:,} fits, {up}{self.fold_rows:,} fold-score rows, "
+        each = (f" ({up}{self.fits_each:,} with --no-paths)" if self.fits_each != self.fits
+                else "")
+        return (f"{self.fits:,} fits{each}, {up}{self.fold_rows:,} fold-score rows, "
                 f"{up}{self.test_rows:,} test-score rows, store about "
                 f"{_size_text(self.store_bytes)} (explain step not counted)")
 
@@ -72,13 +92,18 @@ def _size_text(n: float) -> str:
 
 def plan_size(spec) -> PlanSize:
     """Cells per model, folds and metrics of a spec, without expanding any grid."""
-    models = tuple((label, m.family, *count_cells(m)) for label, m in spec.models.items())
+    models = []
+    for label, m in spec.models.items():
+        count = count_model(m)
+        models.append(ModelSize(label, m.family, count.cells, count.fits_per_fold,
+                                count.bound))
     metrics = spec.metrics or max(TASK_DEFAULTS.values(), key=len)  # task not known yet
-    return PlanSize(models, spec.folds.k * spec.folds.repeats, len(metrics))
+    return PlanSize(tuple(models), spec.folds.k * spec.folds.repeats, len(metrics))
 
 
-def check_limits(spec, *, lifted: bool = False) -> PlanSize:
-    """The plan's size, or a SpecError if it passes a limit (unless `lifted`)."""
+def check_limits(spec, *, lifted: bool = False, paths: bool = True) -> PlanSize:
+    """The plan's size, or a SpecError if it passes a limit (unless `lifted`); `paths=False`
+    (every cell fitted on its own) holds the fits of that way to the fits limit."""
     size = plan_size(spec)
     if lifted:
         return size
@@ -91,16 +116,20 @@ def check_limits(spec, *, lifted: bool = False) -> PlanSize:
             f"(limits.folds). Lower folds.repeats or folds.k, or "
             + _LIFT.format(field="folds") + ".")
     if size.cells > limits.cells:
-        label, _, n, _ = max(size.models, key=lambda m: m[2])
+        label, _, n, *_ = max(size.models, key=lambda m: m.cells)
         raise SpecError(
             f"{where}the grids make {size.cells:,} cells (models.{label} alone {n:,}), more than the "
             f"limit of {limits.cells:,} (limits.cells). Give fewer values or a smaller n in "
             "the ranges of models." + label + ".grid, or " + _LIFT.format(field="cells") + ".")
-    if size.fits > limits.fits:
+    fits = size.fits if paths else size.fits_each
+    if fits > limits.fits:
+        how = ("(one per fold and one refit for each group of cells a path fit scores at "
+               "once, and for each other cell)" if paths else
+               f"= {size.cells:,} cells x ({size.folds:,} folds + 1 refit), with --no-paths")
         raise SpecError(
-            f"{where}{size.cells:,} cells x ({size.folds:,} folds + 1 refit) = {size.fits:,} fits, more "
-            f"than the limit of {limits.fits:,} (limits.fits). Shrink the grids or "
-            "folds.repeats, or " + _LIFT.format(field="fits") + ".")
+            f"{where}the plan makes {fits:,} fits {how}, more than the limit of "
+            f"{limits.fits:,} (limits.fits). Shrink the grids or folds.repeats, or "
+            + _LIFT.format(field="fits") + ".")
     return size
 
 

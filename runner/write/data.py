@@ -243,8 +243,10 @@ def type_features(df: pd.DataFrame, categorical: list[str], path: Path, *,
                   ) -> tuple[pd.DataFrame, list, list]:
     """Cast features to float64 (numeric) or object text (categorical), keeping NaN as missing.
 
-    Numeric values must be finite (or, with infinite="missing", ±inf becomes missing) and
-    within ±MAX_MAGNITUDE; a text column of numbers with thousands separators is refused."""
+    A numeric column listed in `categorical` stays numbers, so that its levels sort in
+    numeric order (1 < 2 < 10), not as text ("1" < "10" < "2"). Numeric values must be
+    finite (or, with infinite="missing", ±inf becomes missing) and within ±MAX_MAGNITUDE; a
+    text column of numbers with thousands separators is refused."""
     rows = rows or _Rows(path, len(df))
     out = {}
     numeric, cats = [], []
@@ -253,7 +255,14 @@ def type_features(df: pd.DataFrame, categorical: list[str], path: Path, *,
         if s.isna().all():
             raise DataError(f"feature column '{name}' of {path} is entirely missing. Add it to "
                             "`data.drop` in the spec or fill it.")
-        if name in categorical or _is_categorical(s):
+        if name in categorical and not _is_categorical(s):
+            values = s.to_numpy(dtype="float64", na_value=np.nan, copy=True)
+            _check_magnitude(f"categorical column '{name}'", values, rows,
+                             inf_ok=infinite == "missing")
+            values[np.isinf(values)] = np.nan
+            out[name] = pd.Series(values, index=df.index)
+            cats.append(name)
+        elif name in categorical or _is_categorical(s):
             if name not in categorical:
                 _separator_problem(f"feature column '{name}'", s, path)
             out[name] = s.astype(object).map(str).where(s.notna(), np.nan).astype(object)

@@ -45,7 +45,7 @@ from ..metrics import METRICS
 from .prepare import Prepared, load_checked, prepare
 from ..read.queries import process_alive, unchanged_sweep
 from .resampling import REFIT, Fold, make_plan, plan_counts, plan_identity, refit_seed
-from .reuse import all_found, copy_scores, find_scores
+from .reuse import all_found, copy_scores, find_scores, version_note
 from .spec import Spec
 from ..store import DEFAULT_STORE, Store
 from ..store.labels import check_labels, check_note
@@ -112,10 +112,11 @@ def check_spec(spec: Spec, *, lift_limits: bool = False) -> tuple[pd.DataFrame, 
     plan = make_plan(spec, frame)
     Store(store_path(spec)).check_writable()
     rows = []
-    for label, family, n, bound in size.models:
-        up = "≤" if bound else ""
-        rows.append({"model": label, "family": family, "cells": f"{up}{n}",
-                     "folds": size.folds, "fits": f"{up}{n * (size.folds + 1)}"})
+    for m in size.models:
+        rows.append({"model": m.label, "family": m.family,
+                     "cells": f"{'≤' if m.bound else ''}{m.cells:,}",
+                     "fits per fold": f"{m.fits_per_fold:,}",
+                     "fits": f"{m.fits_per_fold * (size.folds + 1):,}"})
     limits = spec.limits
     facts = {"data": str(frame.source), "rows": len(frame.y), "train rows": plan.n_train,
              "test rows": plan.n_test, "features": len(frame.features),
@@ -146,13 +147,14 @@ def store_path(spec: Spec, override=None):
 
 
 def _versions() -> dict:
-    from importlib.metadata import version
-
+    """What a sweep records of its software: every package whose version enters a cell id,
+    with Python, DuckDB and foldwise."""
     import duckdb
 
-    return {"python": platform.python_version(), "scikit-learn": version("scikit-learn"),
-            "duckdb": duckdb.__version__, "pandas": pd.__version__, "numpy": np.__version__,
-            "foldwise": __version__}
+    from .grid import score_versions
+
+    return {"python": platform.python_version(), **score_versions(),
+            "duckdb": duckdb.__version__, "foldwise": __version__}
 
 
 def _run_task(family: str, cells: list[tuple[str, dict]], X_fit, y_fit, X_eval, y_eval, *,
@@ -318,9 +320,9 @@ def run_sweep(spec: Spec, *, store: Store | None = None, jobs: int | None = None
     rerun that would only copy what the latest sweep of this name already holds (same spec
     text, same data, every cell stored) records nothing and returns that sweep with status
     'unchanged'."""
-    start = time.perf_counter()
+    start, started_at = time.perf_counter(), datetime.now()  # the sweep's time starts here
     labels, note = check_labels(labels or {}), check_note(note)
-    prep = prepare(spec, lift_limits=lift_limits)
+    prep = prepare(spec, lift_limits=lift_limits, paths=paths)
     store = store or Store(store_path(spec), on_wait=on_message)
     # A --no-paths sweep is a check of the path evaluators: it refits every cell, never
     # copying rows that an earlier sweep may have scored through a path.
@@ -333,6 +335,10 @@ def run_sweep(spec: Spec, *, store: Store | None = None, jobs: int | None = None
             return SweepResult(same["sweep_id"], str(store.path), "unchanged", len(prep.cells),
                                int(same["fold_rows"]), int(same["test_rows"]), 0,
                                time.perf_counter() - start, n_reused=len(prep.cells))
+    if not quick and not fresh and on_message is not None:
+        versions_changed = version_note(store, prep, found)
+        if versions_changed:
+            on_message(versions_changed)
     if not quick:
         prep.plan  # builds and checks the plan before anything is written
     hold = contextlib.ExitStack()
@@ -364,9 +370,10 @@ def run_sweep(spec: Spec, *, store: Store | None = None, jobs: int | None = None
             "metrics": ",".join(spec.metrics), "pick_rule": spec.pick,
             "task": prep.frame.task,
             "classes": json.dumps([_label(c) for c in prep.frame.classes]),
-            "started_at": datetime.now(), "finished_at": None, "status": "running",
+            "started_at": started_at, "finished_at": None, "status": "running",
             "versions": _versions(), "host": host, "user_name": _user(), "pid": os.getpid(),
-            "note": note or None, "plan": json.dumps(plan_identity(spec), sort_keys=True)},
+            "note": note or None,
+            "plan": json.dumps(plan_identity(spec, prep.frame.task), sort_keys=True)},
             cells_df, {m: METRICS[m].better for m in spec.metrics}, labels)
         done, reused, copied = copy_scores(store, sweep_id, prep, found)
 
@@ -423,16 +430,25 @@ def run_sweep(spec: Spec, *, store: Store | None = None, jobs: int | None = None
         except KeyboardInterrupt:
             status = "interrupted"
             flush()
-            store.finish_sweep(sweep_id, status)
+            store.finish_sweep(sweep_id, status, _ended(started_at, start))
             raise SweepInterrupted(f"sweep {sweep_id} interrupted; {done} of {total} tasks kept "
                                    f"in {store.path}.") from None
         except BaseException:
-            store.finish_sweep(sweep_id, "failed")
+            store.finish_sweep(sweep_id, "failed", _ended(started_at, start))
             raise
-        store.finish_sweep(sweep_id, status)
+        ended = _ended(started_at, start)
+        store.finish_sweep(sweep_id, status, ended)
         return SweepResult(sweep_id, str(store.path), status, len(prep.cells), counts["fold"],
-                           counts["test"], counts["failed"], time.perf_counter() - start,
+                           counts["test"], counts["failed"], (ended - started_at).total_seconds(),
                            n_reused=len(reused), n_fitted=len(prep.cells) - len(reused))
+
+
+def _ended(started_at: datetime, start: float) -> datetime:
+    """Now, as the start's wall-clock time plus the monotonic time since, so that the stored
+    duration equals the one `run` prints (and a clock change meanwhile moves neither)."""
+    from datetime import timedelta
+
+    return started_at + timedelta(seconds=time.perf_counter() - start)
 
 
 def _all_failed(sweep_id: str, n: int, why: Counter, where) -> str:

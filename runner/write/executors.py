@@ -170,8 +170,7 @@ class DaskExecutor:
                     raise ClusterError(
                         f"worker {worker} has {package} {versions.get(package)}, this machine "
                         f"{version}; its scores would differ from a local run's. Install the "
-                        "same versions of foldwise, scikit-learn, numpy, scipy and pandas on "
-                        "every worker.")
+                        f"same versions of {', '.join(ours)} on every worker.")
 
     def __exit__(self, *exc) -> None:
         self._sent.clear()
@@ -215,16 +214,17 @@ class DaskExecutor:
 
 
 def package_versions() -> dict[str, str]:
-    """The versions that decide a score, as installed where this runs."""
+    """The versions that decide a score, as installed where this runs: foldwise's own and
+    those of the packages that enter every cell id (`grid.SCORE_PACKAGES`)."""
     from importlib.metadata import PackageNotFoundError, version
 
-    found = {}
-    for name in ("foldwise", "scikit-learn", "numpy", "scipy", "pandas"):
-        try:
-            found[name] = version(name)
-        except PackageNotFoundError:
-            found[name] = "missing"
-    return found
+    from .grid import score_versions
+
+    try:
+        own = version("foldwise")
+    except PackageNotFoundError:
+        own = "missing"
+    return {"foldwise": own, **score_versions()}
 
 
 def _local_workers(address: str) -> int:

@@ -22,6 +22,8 @@ For every chosen cell (by default each model's best and one-SE picks; the spec's
   predictions on the test rows (for predicted-against-observed plots).
 - `coefficients` (linear): the refit's signed coefficients, in the data's own units and
   per standard deviation, and the intercept (`families/linear.py`, `coefficient_rows`).
+- `explained`: the cell's mark, with `n_terms`, the refit's size as a person reads it
+  (a tree's leaves, a linear model's non-zero coefficients; null for a forest).
 
 Fold refits use the plan's folds and seeds and the refit uses `refit_seed`, exactly as the
 sweep did, so a refit predicts what the sweep scored."""
@@ -45,8 +47,10 @@ from ..store import Store
 __all__ = ["explain_sweep", "ExplainResult", "chosen_cells", "permutation_rows"]
 
 
-EXPLAIN_VERSION = "2"
-"""Bumped whenever a change here would change stored explain rows; stops their reuse."""
+EXPLAIN_VERSION = "3"
+"""Bumped whenever a change here would change stored explain rows; stops their reuse.
+2: class targets (probability predictions) and the signed coefficients of linear cells.
+3: the refit's size (leaves, non-zero coefficients) is stored in `explained.n_terms`."""
 
 
 @dataclass
@@ -128,6 +132,8 @@ def _refit_task(family, cell_id, params, X_train, y_train, X_test, y_test, test_
         predictions = _prediction_rows(est, X_test, y_test, test_rows, task)
         nodes = fam.estimators.tree_node_rows(est) if fam.one_tree else []
         coefs = fam.estimators.coefficient_rows(est) if fam.coefficients else []
+        size = getattr(fam.estimators, "model_size", None)
+        n_terms = size(est) if size is not None else None
     except Exception as exc:
         return cell_id, {}, f"{cell_id} refit: {type(exc).__name__}: {exc}"
     imp = [{"cell_id": cell_id, "feature": f, "method": "permutation", "value": m, "spread": s}
@@ -137,7 +143,8 @@ def _refit_task(family, cell_id, params, X_train, y_train, X_test, y_test, test_
     rows = {"importances": imp,
             "test_predictions": [{"cell_id": cell_id, **p} for p in predictions],
             "tree_nodes": [{"cell_id": cell_id, **n} for n in nodes],
-            "coefficients": [{"cell_id": cell_id, **c} for c in coefs]}
+            "coefficients": [{"cell_id": cell_id, **c} for c in coefs],
+            "explained": [{"n_terms": n_terms}]}
     return cell_id, rows, None
 
 
@@ -275,10 +282,13 @@ def _store_cell(store: Store, sweep_id: str, cell_id: str, tables: dict[str, lis
                 settings: str, result: ExplainResult) -> None:
     """Write one explained cell's rows and its `explained` mark in one transaction, so a
     sweep stopped at any moment keeps every cell it finished, each of them whole."""
+    mark = {"sweep_id": sweep_id, "cell_id": cell_id, "settings": settings,
+            "reused_from": None, "n_terms": None}
+    for row in tables.pop("explained", []):  # the refit's size
+        mark.update(row)
     dfs = {t: pd.DataFrame(rows).assign(sweep_id=sweep_id) for t, rows in tables.items()
            if rows}
-    dfs["explained"] = pd.DataFrame([{"sweep_id": sweep_id, "cell_id": cell_id,
-                                      "settings": settings, "reused_from": None}])
+    dfs["explained"] = pd.DataFrame([mark]).astype({"n_terms": "Int64"})
     if "importances" in dfs:
         dfs["importances"] = _spreads(dfs["importances"], dfs.get("fold_importances",
                                                                   pd.DataFrame()))

@@ -15,10 +15,14 @@ from ..families import FAMILIES
 from .spec import LinearRange, LogRange, ModelSpec, PathRange
 
 __all__ = ["Cell", "expand_model", "expand_spec", "cell_id", "EVAL_VERSION", "range_values",
-           "spread_along_path", "count_cells", "range_size"]
+           "spread_along_path", "count_model", "ModelCount", "range_size", "same_value",
+           "SCORE_PACKAGES", "score_versions"]
 
-EVAL_VERSION = "1"
-"""Bumped whenever a change to foldwise would change any stored score; enters every cell id."""
+EVAL_VERSION = "2"
+"""Bumped whenever a change to foldwise would change any stored score; enters every cell id.
+2: numeric columns listed as categorical are coded in numeric order (they were text order);
+{path: N} gives one set of alphas per model (it was one per combination); cell ids hold
+the versions of the packages that change scores."""
 
 
 @dataclass(frozen=True)
@@ -49,34 +53,74 @@ def range_values(value, kind: str) -> list:
     return [float(v) for v in vals]
 
 
-def spread_along_path(path_alphas: np.ndarray, n: int) -> list[float]:
-    """`n` alphas spread evenly by position along a pruning path's distinct alphas."""
-    distinct = np.unique(np.asarray(path_alphas, dtype=float))
+SAME_DIGITS = 12
+"""Significant digits to which two alphas are the same value: pruning paths computed on
+trees of different shapes give the same alpha up to rounding in the last bits."""
+
+
+def same_value(x: float) -> float:
+    """`x` rounded to SAME_DIGITS significant digits, so values equal in meaning are equal."""
+    return float(f"{float(x):.{SAME_DIGITS}g}")
+
+
+def spread_along_path(path_alphas, n: int) -> list[float]:
+    """`n` alphas spread evenly by position along the distinct alphas of one or more pruning
+    paths (merged). Alphas equal to SAME_DIGITS significant digits count once, as the largest
+    of them, so that every tree whose path holds that alpha is pruned at it."""
+    largest: dict[float, float] = {}
+    for a in np.asarray(path_alphas, dtype=float).ravel():
+        key = same_value(a)
+        largest[key] = max(largest.get(key, a), a)
+    distinct = np.array(sorted(largest.values()))
     if len(distinct) <= n:
         return [float(a) for a in distinct]
     picks = np.unique(np.linspace(0, len(distinct) - 1, n).round().astype(int))
     return [float(distinct[i]) for i in picks]
 
 
+SCORE_PACKAGES = ("scikit-learn", "numpy", "scipy", "pandas")
+"""The packages whose versions can change a score. Their versions enter every cell id (a
+rerun after an upgrade computes its scores anew rather than copying the old ones), and
+Dask workers must have the same ones as this machine (write/executors.py)."""
+
+
+def score_versions() -> dict[str, str]:
+    """The installed versions of SCORE_PACKAGES ('missing' for one not installed)."""
+    from importlib.metadata import PackageNotFoundError, version
+
+    found = {}
+    for name in SCORE_PACKAGES:
+        try:
+            found[name] = version(name)
+        except PackageNotFoundError:
+            found[name] = "missing"
+    return found
+
+
 def cell_id(family: str, params: dict, data_sha256: str, plan_identity: dict, *,
-            model: str = "") -> str:
-    """A stable hash of (model label, family, params, data, plan, evaluation version).
+            model: str = "", versions: dict | None = None) -> str:
+    """A stable hash of (model label, family, params, data, plan, evaluation version and
+    the versions of the packages that can change a score).
 
     The label is part of it so two models that share a grid point stay two cells."""
     payload = json.dumps({"model": model, "family": family, "params": params,
-                          "data": data_sha256, "plan": plan_identity, "eval": EVAL_VERSION},
-                         sort_keys=True)
+                          "data": data_sha256, "plan": plan_identity, "eval": EVAL_VERSION,
+                          "versions": versions or {}}, sort_keys=True)
     return hashlib.sha256(payload.encode()).hexdigest()[:16]
 
 
-PathResolver = Callable[[str, dict, int], list]
-"""(model label, the cell's other params, N) -> concrete ccp_alpha values."""
+PathResolver = Callable[[str, dict], list]
+"""(model label, the other params of a combination) -> that combination's pruning path."""
 
 
 def expand_model(label: str, model: ModelSpec, *, data_sha256: str, plan_identity: dict,
                  resolve_path: PathResolver | None = None,
-                 n_features: int | None = None, task: str = "regression") -> list[Cell]:
-    """All cells of one model, ranked simplest first, without duplicates."""
+                 n_features: int | None = None, task: str = "regression",
+                 versions: dict | None = None) -> list[Cell]:
+    """All cells of one model, ranked simplest first, without duplicates.
+
+    A {path: N} grid gives every combination of the other parameters the same N values,
+    spread along the merged pruning paths of all the combinations' trees."""
     fam = FAMILIES[model.family]
     fixed, paths = {}, {}
     for name, value in model.grid.items():
@@ -88,16 +132,15 @@ def expand_model(label: str, model: ModelSpec, *, data_sha256: str, plan_identit
             fixed[name] = list(value)
     names = sorted(fixed)
     combos = [dict(zip(names, combo)) for combo in itertools.product(*(fixed[n] for n in names))]
-    params_list = []
-    for combo in combos:
-        if paths:
-            (pname, n), = paths.items()
-            if resolve_path is None:
-                raise ValueError("a {path: N} grid needs the data; resolve it with resolve_path")
-            for alpha in resolve_path(label, combo, n):
-                params_list.append({**combo, pname: alpha})
-        else:
-            params_list.append(combo)
+    params_list = combos
+    if paths:
+        (pname, n), = paths.items()
+        if resolve_path is None:
+            raise ValueError("a {path: N} grid needs the data; resolve it with resolve_path")
+        merged = np.concatenate([np.asarray(resolve_path(label, combo), dtype=float)
+                                 for combo in combos])
+        values = spread_along_path(merged, n)
+        params_list = [{**combo, pname: alpha} for combo in combos for alpha in values]
     unique = {}
     for params in params_list:
         canon = fam.canonical(params, task)
@@ -106,7 +149,8 @@ def expand_model(label: str, model: ModelSpec, *, data_sha256: str, plan_identit
                      key=lambda p: (fam.complexity_key(p, model.simpler, n_features),
                                     json.dumps(p, sort_keys=True)))
     return [Cell(label, model.family, p,
-                 cell_id(model.family, p, data_sha256, plan_identity, model=label), i)
+                 cell_id(model.family, p, data_sha256, plan_identity, model=label,
+                         versions=versions), i)
             for i, p in enumerate(ordered)]
 
 
@@ -122,28 +166,79 @@ def range_size(value, kind: str) -> int:
     return int(np.unique(np.round(vals)).size)
 
 
-def count_cells(model: ModelSpec) -> tuple[int, bool]:
-    """Cells a model will have without looking at data; True if a path range makes it an upper bound."""
+EXACT_COUNT_COMBOS = 100_000
+"""Up to this many combinations of a model's non-path values are counted one by one (exact,
+duplicates merged); beyond it the counts are products, upper bounds."""
+
+
+@dataclass(frozen=True)
+class ModelCount:
+    """What one model's grid makes, worked out without data: cells, and the fits each fold
+    takes (a group of cells that differ only in a path parameter is fitted once)."""
+
+    cells: int
+    fits_per_fold: int
+    bound: bool  # True if the cell count is an upper bound ({path: N}, or a huge grid)
+
+
+def _value_count(value, kind: str) -> int:
+    if isinstance(value, PathRange):
+        return value.path
+    if isinstance(value, (LogRange, LinearRange)):
+        return range_size(value, kind)
+    return len(value)
+
+
+def _first_value(value, kind: str):
+    if isinstance(value, PathRange):
+        return 1.0
+    if isinstance(value, (LogRange, LinearRange)):  # its first value alone, nothing built
+        return range_values(value.model_copy(update={"n": 1}), kind)[0]
+    return value[0]
+
+
+def count_model(model: ModelSpec) -> ModelCount:
+    """Cells and fits per fold of one model, before any data are read.
+
+    Combinations of the values of the parameters that are not path parameters are
+    canonicalised (defaults filled, what cannot matter dropped), so duplicates count once;
+    each is one fit per fold, scoring every path value of it at once when the path
+    parameter matters to it (e.g. not for least squares, which has no alpha)."""
     fam = FAMILIES[model.family]
-    total, bound = 1, False
-    for name, value in model.grid.items():
-        if isinstance(value, PathRange):
-            total *= value.path
-            bound = True
-        elif isinstance(value, (LogRange, LinearRange)):
-            total *= range_size(value, fam.params[name].kind)
-        else:
-            total *= len(value)
-    return total, bound
+    path_name = next((n for n in model.grid if n in fam.path_params), None)
+    path_count = 1 if path_name is None else _value_count(model.grid[path_name],
+                                                          fam.params[path_name].kind)
+    other = {n: v for n, v in model.grid.items() if n != path_name}
+    combos = 1
+    for name, value in other.items():
+        combos *= _value_count(value, fam.params[name].kind)
+    bound = path_name is not None and isinstance(model.grid[path_name], PathRange)
+    if combos > EXACT_COUNT_COMBOS:
+        return ModelCount(combos * path_count, combos, True)
+    names = sorted(other)
+    values = [range_values(other[n], fam.params[n].kind)
+              if isinstance(other[n], (LogRange, LinearRange)) else list(other[n])
+              for n in names]
+    sample = ({} if path_name is None else
+              {path_name: _first_value(model.grid[path_name], fam.params[path_name].kind)})
+    groups: dict[str, bool] = {}
+    for combo in itertools.product(*values):
+        canon = fam.canonical({**dict(zip(names, combo)), **sample})
+        keeps_path = path_name is not None and path_name in canon
+        canon.pop(path_name, None)
+        groups[json.dumps(canon, sort_keys=True)] = keeps_path
+    cells = sum(path_count if keeps else 1 for keeps in groups.values())
+    return ModelCount(cells, len(groups), bound)
 
 
 def expand_spec(spec, *, data_sha256: str, plan_identity: dict,
                 resolve_path: PathResolver | None = None,
-                n_features: int | None = None, task: str = "regression") -> list[Cell]:
+                n_features: int | None = None, task: str = "regression",
+                versions: dict | None = None) -> list[Cell]:
     """Every cell of every model in the spec, models in spec order."""
     cells = []
     for label, model in spec.models.items():
         cells.extend(expand_model(label, model, data_sha256=data_sha256,
                                   plan_identity=plan_identity, resolve_path=resolve_path,
-                                  n_features=n_features, task=task))
+                                  n_features=n_features, task=task, versions=versions))
     return cells

@@ -8,7 +8,7 @@ from .budget import check_limits, check_plan_memory, data_limit_bytes
 from .data import Frame, load_frame
 from ..errors import DataError
 from ..families import FAMILIES
-from .grid import Cell, expand_spec, spread_along_path
+from .grid import Cell, expand_spec, score_versions
 from ..metrics import METRICS
 from .resampling import REFIT, Plan, make_plan, plan_counts, plan_identity, refit_seed
 from .spec import Spec
@@ -52,17 +52,16 @@ class Prepared:
 
 
 def _path_resolver(prep: Prepared):
-    """{path: N} values of a model's cell: read off its family's data path on the
-    training rows (a pruned tree's cost-complexity pruning path)."""
-    def resolve(label: str, combo: dict, n: int) -> list[float]:
+    """The data path of one combination of a model's other parameters, on the training
+    rows (a pruned tree's cost-complexity pruning path); `expand_model` merges them."""
+    def resolve(label: str, combo: dict):
         family = FAMILIES[prep.spec.models[label].family].estimators
         frame, plan = prep.frame, prep.plan
         X = frame.X.iloc[plan.train_rows]
         y = frame.y[plan.train_rows]
-        alphas = family.pruning_path_alphas(combo, X, y, seed=refit_seed(plan.seed),
-                                            numeric=frame.numeric,
-                                            categorical=frame.categorical, task=frame.task)
-        return spread_along_path(alphas, n)
+        return family.pruning_path_alphas(combo, X, y, seed=refit_seed(plan.seed),
+                                          numeric=frame.numeric, categorical=frame.categorical,
+                                          task=frame.task)
 
     return resolve
 
@@ -88,15 +87,17 @@ def load_checked(spec: Spec, *, max_bytes: int | None = None) -> Frame:
     return frame
 
 
-def prepare(spec: Spec, *, lift_limits: bool = False) -> Prepared:
+def prepare(spec: Spec, *, lift_limits: bool = False, paths: bool = True) -> Prepared:
     """Check the plan's size, load and check the data and expand every model's grid; the
-    plan follows on demand. Limits (the spec's `limits`) hold unless `lift_limits`."""
-    check_limits(spec, lifted=lift_limits)
+    plan follows on demand. Limits (the spec's `limits`) hold unless `lift_limits`; the fits
+    limit counts the fits of `paths` (False: every cell on its own)."""
+    check_limits(spec, lifted=lift_limits, paths=paths)
     prep = Prepared(spec, load_checked(spec, max_bytes=data_limit_bytes(spec,
                                                                          lifted=lift_limits)))
     check_plan_memory(spec, plan_counts(spec, prep.frame)[0], lifted=lift_limits)
     prep.cells = expand_spec(spec, data_sha256=prep.frame.sha256,
                              plan_identity=plan_identity(spec, prep.frame.task),
                              resolve_path=_path_resolver(prep),
-                             n_features=len(prep.frame.features), task=prep.frame.task)
+                             n_features=len(prep.frame.features), task=prep.frame.task,
+                             versions=score_versions())
     return prep

@@ -7,10 +7,14 @@ from __future__ import annotations
 
 import pandas as pd
 
-from ..store import Store
-from .resampling import REFIT
+import json
 
-__all__ = ["EXPLAIN_TABLES", "find_scores", "all_found", "copy_scores", "copy_explained"]
+from ..store import Store
+from .grid import SCORE_PACKAGES, cell_id, score_versions
+from .resampling import REFIT, plan_identity
+
+__all__ = ["EXPLAIN_TABLES", "find_scores", "all_found", "copy_scores", "copy_explained",
+           "version_note"]
 
 EXPLAIN_TABLES = ("importances", "fold_importances", "tree_folds", "tree_nodes",
                   "test_predictions", "coefficients")
@@ -88,14 +92,53 @@ def copy_explained(store: Store, sweep_id: str, cell_ids: list[str], settings: s
     # settings are compared here, not in SQL: a server cannot compare its JSON column to text
     found = store.query("""
         select cell_id, sweep_id, coalesce(reused_from, sweep_id) as origin,
-               settings::varchar as settings from explained
+               settings::varchar as settings, n_terms from explained
         where sweep_id <> ? and list_contains(?::varchar[], cell_id)""", [sweep_id, cell_ids])
     found = found[found["settings"] == settings]
     if found.empty:
         return []
     found = found.sort_values(["cell_id", "sweep_id"]).drop_duplicates("cell_id")
     marks = pd.DataFrame({"sweep_id": sweep_id, "cell_id": found["cell_id"],
-                          "settings": settings, "reused_from": found["origin"]})
+                          "settings": settings, "reused_from": found["origin"],
+                          "n_terms": found["n_terms"].astype("Int64")})
     store.copy_rows(sweep_id, found[["cell_id", "sweep_id"]],
                     {t: ("cell_id",) for t in EXPLAIN_TABLES}, also={"explained": marks})
     return found["cell_id"].tolist()
+
+
+def version_note(store: Store, prep, found) -> str | None:
+    """A sentence if cells found nothing to reuse only because earlier sweeps of the same
+    data and plan scored them with other versions of the packages that change scores: each
+    such cell's id, computed with an earlier sweep's versions, is in the store."""
+    have = set() if found is None else set(found[0].cell_id) | set(found[1].cell_id)
+    missing = [c for c in prep.cells if c.cell_id not in have]
+    if not missing or not store.holds_tables():
+        return None
+    sweeps = store.query("select sweep_id, versions::varchar as versions from sweeps "
+                         "where data_sha256 = ? order by started_at desc",
+                         [prep.frame.sha256])
+    ours, plan = score_versions(), plan_identity(prep.spec, prep.frame.task)
+    seen, hits = set(), []
+    for stored in sweeps["versions"]:
+        theirs = {k: v for k, v in json.loads(stored or "{}").items() if k in SCORE_PACKAGES}
+        key = json.dumps(theirs, sort_keys=True)
+        if theirs == ours or key in seen or set(theirs) != set(SCORE_PACKAGES):
+            continue
+        seen.add(key)
+        ids = {cell_id(c.family, c.params, prep.frame.sha256, plan, model=c.model,
+                       versions=theirs): c.cell_id for c in missing}
+        found_ids = store.query("select distinct cell_id from fold_scores where "
+                                "list_contains(?::varchar[], cell_id)", [list(ids)])
+        cells = {ids[i] for i in found_ids["cell_id"]} - {c for _, c, _ in hits}
+        if cells:
+            hits.append((theirs, cells, len(cells)))
+    if not hits:
+        return None
+    n = len(set().union(*(cells for _, cells, _ in hits)))
+    theirs = hits[0][0]
+    changed = ", ".join(f"{k} {theirs[k]} (here {ours[k]})" for k in SCORE_PACKAGES
+                        if theirs[k] != ours[k])
+    return (f"note: {n} cell{'s were' if n != 1 else ' was'} not reused: earlier sweeps of "
+            f"the same data and plan scored {'them' if n != 1 else 'it'} with {changed}. "
+            "Versions that can change a score are part of each cell's identity, so "
+            f"{'these are' if n != 1 else 'it is'} fitted again.")
