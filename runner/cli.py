@@ -92,11 +92,16 @@ def check(spec_file, lift_limits):
     spec = load_spec(spec_file)  # before the engine's imports: a hostile spec costs little
     from .write.engine import check_spec
 
-    plan, facts = check_spec(spec, lift_limits=lift_limits)
+    from .read.views import finding_lines, findings_view
+
+    plan, facts, findings = check_spec(spec, lift_limits=lift_limits)
     click.echo(f"spec {spec_file} is valid: sweep '{spec.name}'")
     for key, value in facts.items():
         click.echo(f"  {key:<12} {value}")
     emit(plan, "table", title="cells and fits per model (fits include one refit per cell)")
+    click.echo(findings_view(findings).title)
+    for line in finding_lines(findings):
+        click.echo(f"  {line}")
 
 
 @main.command()

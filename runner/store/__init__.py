@@ -22,7 +22,7 @@ import pandas as pd
 
 from ..errors import StoreError
 from .locations import FileLocation, ServerLocation, locate
-from .schema import DEFAULT_STORE, SCHEMA_VERSION, TABLE_SQL, TABLES, VIEW_SQL
+from .schema import DEFAULT_STORE, SCHEMA_VERSION, TABLE_SQL, TABLES, UPGRADE_SQL, VIEW_SQL
 
 __all__ = ["Store", "SCHEMA_VERSION", "DEFAULT_STORE", "TABLES", "VIEW_SQL", "Notices"]
 
@@ -162,6 +162,9 @@ class Store:
             con.execute("alter table cells add column position integer")
             con.execute("update cells set position = rowid")
         con.execute(TABLE_SQL)
+        if found is not None:
+            for statement in UPGRADE_SQL:
+                con.execute(statement)
         if not self.location.shared:  # a server's view lives in each connection
             con.execute(VIEW_SQL)
         con.execute("insert or replace into foldwise_meta values ('schema_version', ?)",
@@ -283,10 +286,14 @@ class Store:
 
         self._transaction(work, what="writing")
 
-    def begin_sweep(self, sweep: dict, cells: pd.DataFrame, metrics: dict[str, str]) -> None:
-        """Record a new sweep (status 'running'), its cells and the metric directions."""
+    def begin_sweep(self, sweep: dict, cells: pd.DataFrame, metrics: dict[str, str],
+                    findings: pd.DataFrame | None = None) -> None:
+        """Record a new sweep (status 'running'), its cells, the metric directions and the
+        findings of its leakage checks, in one transaction."""
         row = dict(sweep)
         row["versions"] = json.dumps(row.get("versions", {}), sort_keys=True)
+        if isinstance(row.get("plan"), dict):
+            row["plan"] = json.dumps(row["plan"], sort_keys=True)
         metric_df = pd.DataFrame({"metric": list(metrics), "better": list(metrics.values())})
 
         def work(con):
@@ -296,6 +303,9 @@ class Store:
             con.execute("insert or ignore into metrics select metric, better from _metrics")
             con.register("_cells", cells)
             con.execute("insert into cells by name select * from _cells")
+            if findings is not None and len(findings):
+                con.register("_findings", findings.assign(sweep_id=row["sweep_id"]))
+                con.execute("insert into findings by name select * from _findings")
 
         self._transaction(work, what="recording the sweep")
 

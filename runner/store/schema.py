@@ -6,10 +6,13 @@ from __future__ import annotations
 
 from pathlib import Path
 
-__all__ = ["SCHEMA_VERSION", "DEFAULT_STORE", "TABLE_SQL", "VIEW_SQL", "TABLES"]
+__all__ = ["SCHEMA_VERSION", "DEFAULT_STORE", "TABLE_SQL", "VIEW_SQL", "TABLES", "UPGRADE_SQL",
+           "ADDED_IN"]
 
-SCHEMA_VERSION = 2
-"""2: cells.position keeps spec order explicit (a server table has no insertion order)."""
+SCHEMA_VERSION = 3
+"""2: cells.position keeps spec order explicit (a server table has no insertion order).
+3: sweeps record their fold scheme and plan (scheme, plan_column, plan, checks_key); table
+findings holds the leakage checks' findings."""
 DEFAULT_STORE = Path("results") / "foldwise.duckdb"
 
 TABLE_SQL = """
@@ -20,7 +23,7 @@ create table if not exists sweeps (
     n_train integer, n_test integer, k integer, repeats integer, plan_seed bigint,
     metrics varchar, pick_rule varchar, started_at timestamp, finished_at timestamp,
     status varchar, versions json, host varchar, user_name varchar, pid integer,
-    n_reused integer);
+    n_reused integer, scheme varchar, plan_column varchar, plan json, checks_key varchar);
 create table if not exists metrics (metric varchar primary key, better varchar);
 create table if not exists cells (
     sweep_id varchar, cell_id varchar, model varchar, family varchar, params json,
@@ -59,7 +62,20 @@ create table if not exists test_predictions (
 create table if not exists explained (
     sweep_id varchar, cell_id varchar, settings json, reused_from varchar,
     primary key (sweep_id, cell_id));
+-- leakage checks (runner/write/leakage.py): one row per finding of a sweep's checks
+create table if not exists findings (
+    sweep_id varchar, kind varchar, severity varchar, column_name varchar, value double,
+    message varchar, allowed boolean);
 """
+
+UPGRADE_SQL = [
+    "alter table sweeps add column if not exists scheme varchar",
+    "alter table sweeps add column if not exists plan_column varchar",
+    "alter table sweeps add column if not exists plan json",
+    "alter table sweeps add column if not exists checks_key varchar",
+]
+"""Columns added to existing tables since schema 2, each safe to run again (new tables come
+from TABLE_SQL's `create table if not exists`)."""
 
 VIEW_SQL = """
 create or replace view cell_summary as
@@ -73,5 +89,9 @@ group by all;
 
 TABLES = ("sweeps", "metrics", "cells", "fold_scores", "test_scores", "failures",
           "importances", "fold_importances", "tree_folds", "tree_nodes", "test_predictions",
-          "explained")
+          "explained", "findings")
 """Every table of results, in the order a copy must fill them."""
+
+ADDED_IN = {"findings": 3}
+"""Tables younger than the first schema, by the version that added them: a store or an
+export from before that version lacks them, and a merge from it copies the rest."""

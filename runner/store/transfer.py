@@ -18,7 +18,7 @@ import pandas as pd
 
 from ..errors import StoreError
 from . import Store
-from .schema import SCHEMA_VERSION, TABLES
+from .schema import ADDED_IN, SCHEMA_VERSION, TABLES
 
 __all__ = ["export_store", "merge_store", "MergeResult", "EXPORT_FORMATS", "EXPORT_MANIFEST"]
 
@@ -90,6 +90,8 @@ def _export_sources(folder: Path) -> dict[str, str]:
     sources = {}
     for table in TABLES:
         path = folder / f"{table}.{fmt}"
+        if not path.exists() and version < ADDED_IN.get(table, 0):
+            continue  # an export from before the table existed
         if not path.exists():
             raise StoreError(f"export {folder} lacks {path.name}; export the store again.")
         reader = (f"read_parquet('{_sql_text(path)}')" if fmt == "parquet" else
@@ -122,6 +124,11 @@ def merge_store(store: Store, other: str | Path) -> MergeResult:
         attach = where
         sources = {t: f"_other.{t}" for t in TABLES}
     with store._connect(read_only=False) as con, _attached(con, attach, other):
+        if attach is not None:  # a store from before a table existed lacks it
+            present = {t for (t,) in con.execute(
+                "select table_name from information_schema.tables where table_catalog = "
+                "'_other'").fetchall()}
+            sources = {t: s for t, s in sources.items() if t in present or t not in ADDED_IN}
         theirs = con.execute(f"select sweep_id, status from {sources['sweeps']}").df()
         mine = set(con.execute("select sweep_id from sweeps").df()["sweep_id"])
         present = sorted(s for s in theirs["sweep_id"] if s in mine)
@@ -137,7 +144,7 @@ def merge_store(store: Store, other: str | Path) -> MergeResult:
                     f"insert into metrics by name select * from {sources['metrics']} m "
                     "where m.metric not in (select metric from metrics)").fetchone()[0]
                 for table in TABLES:
-                    if table == "metrics":
+                    if table == "metrics" or table not in sources:
                         continue
                     rows[table] = con.execute(
                         f"insert into {table} by name select * from {sources[table]} s "

@@ -43,8 +43,10 @@ from .grid import Cell
 from ..metrics import METRICS
 from .prepare import Prepared, load_checked, prepare
 from ..read.queries import process_alive
-from .resampling import REFIT, Fold, make_plan, plan_counts, refit_seed
-from .reuse import all_found, copy_scores, find_scores
+from ..read.views import finding_lines
+from .leakage import refuse
+from .resampling import REFIT, Fold, plan_counts, refit_seed, resolve_scheme
+from .reuse import all_found, copy_scores, find_findings, find_scores
 from .spec import Spec
 from ..store import DEFAULT_STORE, Store
 
@@ -99,14 +101,19 @@ class SweepResult:
     n_fitted: int = 0  # cells with at least one fold or refit computed by this sweep
 
 
-def check_spec(spec: Spec, *, lift_limits: bool = False) -> tuple[pd.DataFrame, dict]:
-    """The plan of a sweep without fitting anything: cells and fits per model, plus facts
-    (among them the cost estimate). The size is checked against the limits first, by
-    arithmetic, so a plan too large is refused before the data are read."""
+def check_spec(spec: Spec, *, lift_limits: bool = False
+               ) -> tuple[pd.DataFrame, dict, pd.DataFrame]:
+    """The plan of a sweep without fitting anything: cells and fits per model, facts
+    (among them the plan and the cost estimate) and the leakage checks' findings. The size
+    is checked against the limits first, by arithmetic, so a plan too large is refused
+    before the data are read; a finding that is an error (and not allowed) is refused."""
     size = check_limits(spec, lifted=lift_limits)
     frame = load_checked(spec, max_bytes=data_limit_bytes(spec, lifted=lift_limits))
     check_plan_memory(spec, plan_counts(spec, frame)[0], lifted=lift_limits)
-    plan = make_plan(spec, frame)
+    prep = Prepared(spec, frame)
+    plan = prep.plan
+    findings = prep.findings()
+    refuse(findings, f"spec {spec.source or spec.name}")
     Store(store_path(spec)).check_writable()
     rows = []
     for label, family, n, bound in size.models:
@@ -117,13 +124,32 @@ def check_spec(spec: Spec, *, lift_limits: bool = False) -> tuple[pd.DataFrame, 
     facts = {"data": str(frame.source), "rows": len(frame.y), "train rows": plan.n_train,
              "test rows": plan.n_test, "features": len(frame.features),
              "categorical": ", ".join(frame.categorical) or "none",
-             "folds": f"{plan.k} folds x {plan.repeats} repeats (seed {plan.seed})",
+             "folds": plan_text(spec),
              "metrics": ", ".join(spec.metrics), "store": str(store_path(spec)),
              "estimate": size.estimate(),
              "limits": "lifted (--lift-limits)" if lift_limits else
              (f"cells {limits.cells:,}, folds {limits.folds:,}, fits {limits.fits:,}, data "
               f"{limits.data_mb:g} MiB (raise in the spec's `limits`)")}
-    return pd.DataFrame(rows), facts
+    return pd.DataFrame(rows), facts, findings
+
+
+def plan_text(spec: Spec) -> str:
+    """The fold plan and test split in a few words, as `check` prints them."""
+    f, scheme = spec.folds, resolve_scheme(spec)
+    folds = {"rows": f"{f.k} folds x {f.repeats} repeats over rows",
+             "groups": f"{f.k} folds x {f.repeats} repeats over groups of '{f.groups}'",
+             "time": f"{f.k} time-ordered folds by '{f.order}'" +
+                     (f", gap {f.gap}" if f.gap else "")}.get(scheme.name, scheme.name)
+    t = spec.test
+    if t.fraction is None:
+        test = f"test file {t.file}" if t.file else f"test rows marked by '{t.column}'"
+    elif scheme.name == "time":
+        test = f"test = the last {t.fraction:g} of '{f.order}'"
+    else:
+        groups = t.groups or (f.groups if scheme.name == "groups" else None)
+        test = f"test = {t.fraction:g} of " + (f"the groups of '{groups}'" if groups else
+                                               "the rows") + f" (seed {t.seed})"
+    return f"{folds} (seed {f.seed}); {test}"
 
 
 def store_path(spec: Spec, override=None):
@@ -296,8 +322,13 @@ def run_sweep(spec: Spec, *, store: Store | None = None, jobs: int | None = None
     fresh = fresh or not paths
     found = find_scores(store, prep, fresh=fresh)
     quick = all_found(prep, found)
-    if not quick:
-        prep.plan  # builds and checks the plan before anything is written
+    findings = find_findings(store, prep.checks_key) if quick else None
+    if findings is None:  # builds and checks the plan before anything is written
+        findings = prep.findings()
+    refuse(findings, f"spec {spec.source or spec.name}")
+    if on_message:
+        for line in finding_lines(findings):
+            on_message(line)
     hold = contextlib.ExitStack()
     n_jobs, note = resolve_jobs(jobs or spec.jobs, force=force_jobs or bool(cluster))
     if note and on_message and executor is None:
@@ -323,10 +354,13 @@ def run_sweep(spec: Spec, *, store: Store | None = None, jobs: int | None = None
             "spec_sha256": spec.sha256, "data_path": str(prep.frame.source),
             "data_sha256": prep.frame.sha256, "target": prep.frame.target,
             "n_train": n_train, "n_test": n_test, "k": spec.folds.k,
-            "repeats": spec.folds.repeats, "plan_seed": spec.folds.seed, "metrics": ",".join(spec.metrics), "pick_rule": spec.pick,
+            "repeats": spec.folds.repeats, "plan_seed": spec.folds.seed,
+            "scheme": resolve_scheme(spec).name, "plan_column": _plan_column(spec),
+            "plan": prep.identity, "checks_key": prep.checks_key,
+            "metrics": ",".join(spec.metrics), "pick_rule": spec.pick,
             "started_at": datetime.now(), "finished_at": None, "status": "running",
             "versions": _versions(), "host": host, "user_name": _user(), "pid": os.getpid()},
-            cells_df, {m: METRICS[m].better for m in spec.metrics})
+            cells_df, {m: METRICS[m].better for m in spec.metrics}, findings)
         done, reused, copied = copy_scores(store, sweep_id, prep, found)
 
         tasks = [] if len(reused) == len(prep.cells) else _plan_tasks(
@@ -392,6 +426,12 @@ def run_sweep(spec: Spec, *, store: Store | None = None, jobs: int | None = None
         return SweepResult(sweep_id, str(store.path), status, len(prep.cells), counts["fold"],
                            counts["test"], counts["failed"], time.perf_counter() - start,
                            n_reused=len(reused), n_fitted=len(prep.cells) - len(reused))
+
+
+def _plan_column(spec: Spec) -> str | None:
+    """The column the fold scheme reads (groups or time order), if any."""
+    scheme = resolve_scheme(spec)
+    return getattr(spec.folds, scheme.column) if scheme.column else None
 
 
 def _all_failed(sweep_id: str, n: int, why: Counter, where) -> str:

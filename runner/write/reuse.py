@@ -10,7 +10,8 @@ import pandas as pd
 from ..store import Store
 from .resampling import REFIT
 
-__all__ = ["EXPLAIN_TABLES", "find_scores", "all_found", "copy_scores", "copy_explained"]
+__all__ = ["EXPLAIN_TABLES", "find_scores", "all_found", "copy_scores", "copy_explained",
+           "find_findings"]
 
 EXPLAIN_TABLES = ("importances", "fold_importances", "tree_folds", "tree_nodes",
                   "test_predictions")
@@ -79,3 +80,16 @@ def copy_explained(store: Store, sweep_id: str, cell_ids: list[str], settings: s
     store.copy_rows(sweep_id, found[["cell_id", "sweep_id"]],
                     {t: ("cell_id",) for t in EXPLAIN_TABLES}, also={"explained": marks})
     return found["cell_id"].tolist()
+
+
+def find_findings(store: Store, key: str) -> pd.DataFrame | None:
+    """The findings an earlier sweep with this checks key recorded, so that a rerun with
+    nothing to fit need not build the plan to check it again; None if no sweep has the key."""
+    from .leakage import FINDING_COLUMNS, ordered
+
+    earlier = store.query("select sweep_id from sweeps where checks_key = ? "
+                          "order by started_at desc, sweep_id desc limit 1", [key])
+    if earlier.empty:
+        return None
+    return ordered(store.query(f"select {', '.join(FINDING_COLUMNS)} from findings "
+                               "where sweep_id = ?", [str(earlier["sweep_id"].iloc[0])]))

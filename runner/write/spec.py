@@ -17,6 +17,7 @@ from pydantic import (BaseModel, ConfigDict, Field, ValidationError, field_valid
 from ..errors import SpecError
 from ..families import FAMILIES, check_param_value, nearest
 from ..metrics import METRICS
+from .findings import KINDS
 
 __all__ = ["Spec", "ModelSpec", "Limits", "load_spec", "parse_spec", "spec_json_schema",
            "LogRange", "LinearRange", "PathRange", "MAX_SPEC_BYTES", "MAX_DEPTH", "MAX_NODES",
@@ -71,6 +72,8 @@ class TestSplit(_Strict):
     fraction: float | None = Field(None, gt=0.0, lt=1.0, description="share of rows held out")
     seed: int = Field(0, ge=0, le=MAX_SEED, description="random_state of the test split "
                       "(0 ... 2**32 - 1)")
+    groups: str | None = Field(None, description="with fraction: hold out this share of the "
+                               "groups this column names, whole (default: folds.groups)")
     file: str | None = Field(None, description="a separate test file with the same columns")
     column: str | None = Field(None, description="a boolean column: true marks test rows")
 
@@ -80,16 +83,70 @@ class TestSplit(_Strict):
         if len(given) != 1:
             raise ValueError("give exactly one of fraction, file or column "
                              f"(got {', '.join(given) or 'none'})")
+        if self.groups is not None and self.fraction is None:
+            raise ValueError("groups holds out a fraction of the groups, so it needs "
+                             "test.fraction; a test file or column already says which rows "
+                             "are test rows")
         return self
 
 
-class FoldPlan(_Strict):
-    """Repeated k-fold cross-validation on the training rows."""
+SCHEMES = ("rows", "groups", "time")
+"""How folds cut the training rows: at random by row, by whole groups, or in time order."""
 
+
+def implied_scheme(folds: "FoldPlan") -> str:
+    """The scheme a fold plan asks for: as written, else implied by its column."""
+    if folds.scheme is not None:
+        return folds.scheme
+    return "groups" if folds.groups is not None else "time" if folds.order is not None \
+        else "rows"
+
+
+class FoldPlan(_Strict):
+    """How the training rows are cut into validation folds: repeated k-fold over rows,
+    repeated k-fold over whole groups, or expanding windows in time order."""
+
+    scheme: Literal["rows", "groups", "time"] | None = Field(
+        None, description="rows (default), groups (needs groups) or time (needs order); "
+        "implied by groups or order when left out")
     k: int = Field(5, ge=2, description="folds per repeat")
-    repeats: int = Field(1, ge=1, description="how many times the k folds are redrawn")
+    repeats: int = Field(1, ge=1, description="how many times the k folds are redrawn "
+                         "(time-ordered folds: 1)")
     seed: int = Field(0, ge=0, le=MAX_SEED, description="random_state of the folds "
                       "(0 ... 2**32 - 1); estimator seeds derive from it")
+    groups: str | None = Field(None, description="a column naming groups (plant, bay, "
+                               "patient, site, batch): every group's rows fall on one side of "
+                               "every split; not a feature unless listed in data.categorical")
+    order: str | None = Field(None, description="a column of numbers or ISO dates: folds "
+                              "fit on earlier values and validate on later ones")
+    gap: int = Field(0, ge=0, le=MAX_RANGE_N, description="time-ordered folds: distinct "
+                     "values of `order` left out between the fitting and validation rows "
+                     "(and before the test split)")
+
+    @model_validator(mode="after")
+    def _one_scheme(self):
+        if self.groups is not None and self.order is not None:
+            raise ValueError("give groups (grouped folds) or order (time-ordered folds), "
+                             "not both")
+        scheme = implied_scheme(self)
+        needs = {"groups": "groups", "time": "order"}
+        for name, column in needs.items():
+            if scheme == name and getattr(self, column) is None:
+                raise ValueError(f"scheme {name} needs folds.{column}: the column "
+                                 + ("whose values name the groups" if name == "groups" else
+                                    "whose values give the time order"))
+        for name, column in needs.items():
+            if scheme != name and getattr(self, column) is not None:
+                raise ValueError(f"{column} belongs to scheme {name}, but the scheme is "
+                                 f"{scheme}; remove {column} or set scheme: {name}")
+        if scheme == "time" and self.repeats > 1:
+            raise ValueError(f"time-ordered folds cannot be redrawn, so repeats must be 1 "
+                             f"(got repeats={self.repeats}); remove repeats, or use scheme "
+                             "rows or groups to repeat folds")
+        if scheme != "time" and self.gap:
+            raise ValueError(f"gap is for time-ordered folds (scheme time with order); the "
+                             f"scheme here is {scheme}, so remove gap")
+        return self
 
 
 def _finite_bounds(v):
@@ -249,6 +306,24 @@ class Limits(_Strict):
                            "(8 bytes x training rows x folds), in MiB")
 
 
+class Checks(_Strict):
+    """The leakage checks run by `check` and `run`: which findings are accepted."""
+
+    allow: list[str] = Field(default_factory=list, description="finding kinds accepted "
+                             "knowingly: an allowed error no longer stops the sweep, an "
+                             "allowed warning is still listed, marked allowed. Kinds: " +
+                             ", ".join(KINDS))
+
+    @field_validator("allow")
+    @classmethod
+    def _known_kinds(cls, v):
+        for name in v:
+            if name not in KINDS:
+                raise ValueError(f"unknown check '{name}'; the checks are "
+                                 f"{', '.join(KINDS)}.{nearest(name, KINDS)}")
+        return v
+
+
 class Spec(_Strict):
     """A whole sweep: data, test split, folds, metrics, store and models."""
 
@@ -268,7 +343,23 @@ class Spec(_Strict):
                            description="ceilings on the sweep's size (see `foldwise check`)")
     explain: ExplainPlan = Field(default_factory=ExplainPlan,
                                  description="importances and tree stability after the sweep")
+    checks: Checks = Field(default_factory=Checks,
+                           description="leakage checks: which findings are accepted")
     models: dict[str, ModelSpec] = Field(min_length=1)
+
+    @model_validator(mode="after")
+    def _plan_columns(self):
+        scheme = implied_scheme(self.folds)
+        if scheme == "time" and self.test.groups is not None:
+            raise ValueError("test.groups does not go with time-ordered folds: their test "
+                             "split is the last fraction in folds.order; remove test.groups")
+        for field, column in (("folds.groups", self.folds.groups),
+                              ("folds.order", self.folds.order),
+                              ("test.groups", self.test.groups)):
+            if column is not None and column == self.data.target:
+                raise ValueError(f"{field} names the target '{column}'; name the column "
+                                 "that holds the groups or the time order instead")
+        return self
 
     @field_validator("store")
     @classmethod
@@ -311,6 +402,14 @@ class Spec(_Strict):
     @property
     def text(self) -> str:
         return self._text
+
+    @property
+    def plan_columns(self) -> dict[str, str]:
+        """The data columns the plan reads, by the field that names them: never features
+        unless also listed in data.categorical."""
+        named = {"folds.groups": self.folds.groups, "folds.order": self.folds.order,
+                 "test.groups": self.test.groups}
+        return {field: column for field, column in named.items() if column is not None}
 
     @property
     def sha256(self) -> str:
