@@ -19,14 +19,15 @@ from .compare import holm, t_from_moments
 from ..errors import QueryError
 from ..families import get_family, nearest
 from .picks import RULES, TOLERANCE, check_rule, check_se
-from .results import (CellStats, Comparison, ComplexityTable, Importances, Picks, Stability,
-                      Summary, SweepFacts)
+from .results import (CellStats, Comparison, ComplexityTable, Findings, Importances, Picks,
+                      Stability, Summary, SweepFacts)
 from ..store import Store
 
 __all__ = ["sweeps", "sweep_facts", "summary", "cell_stats", "picks", "complexity_table",
            "compare", "importance_table", "prediction_table", "tree_node_table",
            "tree_fold_table", "stability_table", "model_order", "picked_fold_scores",
-           "varying_params", "sweep_record", "sweep_status", "coverage", "process_alive"]
+           "varying_params", "sweep_record", "sweep_status", "coverage", "process_alive",
+           "findings"]
 
 
 # -- sweeps ------------------------------------------------------------------------------
@@ -38,7 +39,7 @@ def sweeps(store: Store) -> pd.DataFrame:
     df = store.query("""
         select s.sweep_id, s.name, s.status, s.started_at,
                round(epoch(s.finished_at - s.started_at), 1) as seconds,
-               s.n_train, s.n_test, s.k, s.repeats,
+               s.n_train, s.n_test, coalesce(s.scheme, 'rows') as scheme, s.k, s.repeats,
                (select count(*) from cells c where c.sweep_id = s.sweep_id) as cells,
                (select count(*) from fold_scores f where f.sweep_id = s.sweep_id) as fold_rows,
                s.data_sha256[1:12] as data, s.host, s.pid
@@ -70,7 +71,8 @@ def process_alive(pid: int) -> bool:
 def sweep_facts(store: Store, sweep_id: str | None = None) -> SweepFacts:
     """The resolved sweep with its metrics and their directions, folds, rule and target."""
     sweep_id = store.resolve_sweep(sweep_id)
-    row = store.query("""select name, target, metrics, k, repeats, pick_rule from sweeps
+    row = store.query("""select name, target, metrics, k, repeats, pick_rule,
+                                coalesce(scheme, 'rows') as scheme from sweeps
                          where sweep_id = ?""", [sweep_id]).iloc[0]
     metrics = tuple(str(row["metrics"]).split(","))
     better = store.query("select metric, better from metrics where list_contains(?, metric)",
@@ -78,7 +80,7 @@ def sweep_facts(store: Store, sweep_id: str | None = None) -> SweepFacts:
     return SweepFacts(sweep_id=sweep_id, name=str(row["name"]), target=str(row["target"]),
                       metrics=metrics, better=dict(zip(better["metric"], better["better"])),
                       k=int(row["k"]), repeats=int(row["repeats"]),
-                      rule=str(row["pick_rule"] or "best"))
+                      rule=str(row["pick_rule"] or "best"), scheme=str(row["scheme"]))
 
 
 def sweep_record(store: Store, sweep_id: str) -> dict:
@@ -92,6 +94,16 @@ def sweep_record(store: Store, sweep_id: str) -> dict:
                (select count(*) from explained where sweep_id = $1) as explained
         """, [sweep_id]).iloc[0].to_dict()
     return {**sweep, "counts": {k: int(v) for k, v in counts.items()}}
+
+
+def findings(store: Store, sweep_id: str | None = None) -> Findings:
+    """What the sweep's leakage checks found, errors first, then by check and column."""
+    facts = sweep_facts(store, sweep_id)
+    table = store.query("""select kind, severity, column_name, value, message, allowed
+                           from findings where sweep_id = ?
+                           order by severity = 'warning', kind, column_name""",
+                        [facts.sweep_id])
+    return Findings(facts, table)
 
 
 def model_order(store: Store, sweep_id: str) -> list[str]:

@@ -10,7 +10,7 @@ from dataclasses import dataclass, field
 import pandas as pd
 
 __all__ = ["SweepFacts", "Coverage", "Summary", "CellStats", "Picks", "ComplexityTable",
-           "Comparison", "Importances", "Stability"]
+           "Comparison", "Importances", "Stability", "Findings"]
 
 
 @dataclass(frozen=True)
@@ -25,6 +25,12 @@ class SweepFacts:
     k: int
     repeats: int
     rule: str  # the spec's pick rule
+    scheme: str = "rows"  # how the folds cut the rows: rows, groups or time
+
+    @property
+    def ordered(self) -> bool:
+        """True if the folds follow time order, so they are not exchangeable draws."""
+        return self.scheme == "time"
 
     @property
     def metric(self) -> str:
@@ -159,6 +165,15 @@ class Importances:
 @dataclass(frozen=True)
 class Stability:
     """One row per explained cell: how much its fitted model changes across folds."""
+
+    facts: SweepFacts
+    table: pd.DataFrame
+
+
+@dataclass(frozen=True)
+class Findings:
+    """The findings of a sweep's leakage checks: kind, severity, column, value, message,
+    allowed; errors first."""
 
     facts: SweepFacts
     table: pd.DataFrame

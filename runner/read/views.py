@@ -13,7 +13,7 @@ import pandas as pd
 from .compare import APPROXIMATE_NOTE
 from ..families import get_family
 from ..metrics import metric_label
-from .results import Comparison, ComplexityTable, Coverage, Picks, Summary
+from .results import Comparison, ComplexityTable, Coverage, Findings, Picks, Summary
 
 __all__ = ["View", "number", "mean_se", "params_text", "p_text", "value_text", "rule_label",
            "cell_text", "pair_sentence", "pair_sentences", "summary_view", "picks_view",
@@ -306,6 +306,8 @@ def compare_view(result: Comparison) -> View:
              f"t-test, df = {n - 1}")
     numeric = [c for c in shown.columns if c != "pair (a − b)"]
     caveats = (f"note: {APPROXIMATE_NOTE}",) if len(df) else ()
+    if len(df) and result.facts.ordered:
+        caveats += (f"note: {ORDERED_FOLDS_NOTE}",)
     if len(df) > 1:
         caveats += (f"note: {len(df)} pairwise tests were made; 'Holm p' adjusts each p for "
                     "all of them (Holm 1979), and a difference is called clear only when that "
@@ -357,14 +359,16 @@ ORDERED_FOLDS_NOTE = (
 """What the SE and the paired comparison mean when the folds are ordered in time."""
 
 
-def finding_lines(findings: pd.DataFrame) -> tuple[str, ...]:
+def finding_lines(findings: pd.DataFrame | Findings) -> tuple[str, ...]:
     """One line per finding of the leakage checks: 'warning (group_key): ...'."""
+    findings = findings.table if isinstance(findings, Findings) else findings
     return tuple(f"{r.severity}{' (allowed)' if r.allowed else ''} ({r.kind}): {r.message}"
                  for r in findings.itertuples(index=False))
 
 
-def findings_view(findings: pd.DataFrame) -> View:
+def findings_view(findings: pd.DataFrame | Findings) -> View:
     """The leakage checks' findings as a table: severity, check, column and what it means."""
+    findings = findings.table if isinstance(findings, Findings) else findings
     n = len(findings)
     title = (f"leakage checks: {_count(n, 'finding', 'findings')}" if n else
              "leakage checks: nothing found")

@@ -25,7 +25,7 @@ import numpy as np
 import pandas as pd
 
 from ..errors import DataError
-from .findings import ERROR, KINDS, Finding
+from .findings import ERROR, Finding
 from .resampling import SCHEMES, Plan
 
 __all__ = ["run_checks", "checks_key", "best_split_r2", "id_like", "findings_frame",
@@ -89,11 +89,9 @@ def findings_frame(findings: list[Finding]) -> pd.DataFrame:
 
 
 def ordered(findings: pd.DataFrame) -> pd.DataFrame:
-    """Findings in one order wherever they come from: errors first, then by kind (in the
-    order of KINDS) and column."""
-    rank = {name: i for i, name in enumerate(KINDS)}
-    key = pd.DataFrame({"e": findings["severity"] != ERROR,
-                        "k": findings["kind"].map(rank),
+    """Findings in one order wherever they come from (as the read side's query orders
+    them): errors first, then by kind and column."""
+    key = pd.DataFrame({"e": findings["severity"] != ERROR, "k": findings["kind"],
                         "c": findings["column_name"].fillna("")})
     return findings.loc[key.sort_values(["e", "k", "c"], kind="stable").index].reset_index(
         drop=True)
@@ -253,8 +251,8 @@ def _group_keys(spec, frame, plan: Plan) -> list[Finding]:
             continue
         s = _column(frame, col)
         n, n_values = int(s.notna().sum()), s.nunique()
-        if n_values < 2 or n < 2 * n_values:
-            continue
+        if n_values < max(3, spec.folds.k) or n < 2 * n_values:
+            continue  # too few values to be groups that folds could keep whole
         text = col in frame.categorical or not pd.api.types.is_numeric_dtype(s)
         if not (id_like(col) or (text and n_values >= GROUP_LEVELS)):
             continue
