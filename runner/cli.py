@@ -249,7 +249,7 @@ def sql(query, store_path, fmt, allow_files):
 
     One SELECT (or WITH, DESCRIBE, SUMMARIZE, plain EXPLAIN). Tables: sweeps, cells,
     fold_scores, test_scores, failures, importances, metrics, fold_importances, tree_folds,
-    tree_nodes, test_predictions; view: cell_summary.
+    tree_nodes, test_predictions, explained, findings; view: cell_summary.
 
     \b
       foldwise sql "select model, metric, avg(value) from fold_scores join cells using (sweep_id, cell_id) group by all"

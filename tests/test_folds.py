@@ -317,3 +317,25 @@ def test_row_folds_are_optimistic_on_grouped_data_and_group_folds_are_not(tmp_pa
     # (measured: rows 3.60 ± 0.10 and groups 4.56 ± 0.14 against a test RMSE of 4.45)
     assert abs(optimism_groups) < 0.1 * test and abs(optimism_groups) < optimism_rows / 2
     assert cv_groups - cv_rows > 3 * (se_rows + se_groups)
+
+
+def test_picks_and_compare_work_on_every_plan_and_time_folds_carry_their_caveat(sweeps):
+    from click.testing import CliRunner
+
+    from runner import compare_table, pick_table
+    from runner.cli import main
+    from runner.read.report import render_report
+
+    done, store = sweeps
+    for scheme, (_, sid) in done.items():
+        picks = pick_table(store, sid, rule="one_se").table
+        assert sorted(picks["model"]) == ["ridge", "tree"] and picks["mean"].notna().all()
+        pairs = compare_table(store, sid).table
+        assert len(pairs) == 1 and pairs["folds"].iloc[0] == (4 if scheme == "time" else 6)
+        out = CliRunner().invoke(main, ["compare", "--store", str(store.path), "--sweep", sid])
+        assert out.exit_code == 0, out.output
+        assert ("these folds follow time order, so they are not exchangeable" in out.output) \
+            == (scheme == "time")
+    html = render_report(store, done["time"][1])
+    assert "Time-ordered folds: these folds follow time order" in html
+    assert "4 time-ordered folds by day (expanding window, gap 2)" in html
