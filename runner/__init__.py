@@ -12,8 +12,8 @@ from .errors import DataError, FoldwiseError, QueryError, SpecError, StoreError 
 __all__ = ["__version__", "FoldwiseError", "SpecError", "DataError", "StoreError", "QueryError",
            "Spec", "load_spec", "parse_spec", "spec_json_schema", "Store", "run_sweep",
            "check_spec", "summary", "pick_table", "compare_table", "complexity_table",
-           "importance_table", "stability_table", "figure", "write_report", "merge_store",
-           "export_store"]
+           "importance_table", "stability_table", "findings_table", "figure", "write_report",
+           "merge_store", "export_store"]
 
 
 # name -> (module, attribute), imported on first use so `import runner` stays light. Names
@@ -29,6 +29,7 @@ _LAZY = {
     "complexity_table": ("read.queries", "complexity_table"),
     "importance_table": ("read.queries", "importance_table"),
     "stability_table": ("read.queries", "stability_table"),
+    "findings_table": ("read.queries", "findings"),
     "figure": ("read.plots", "make_figure"), "write_report": ("read.report", "write_report"),
     "merge_store": ("store.transfer", "merge_store"),
     "export_store": ("store.transfer", "export_store"),

@@ -29,7 +29,8 @@ from runner.write.resampling import (fold_seed, make_plan, plan_counts, plan_ide
                                      refit_seed)
 from runner.write.spec import load_spec
 
-from .helpers import (diabetes_frame, documented_group_plan, documented_time_plan,
+from .helpers import (diabetes_frame, documented_group_plan, documented_plan,
+                      documented_time_plan,
                       spec_from, write_spec)
 
 MODELS = """
@@ -37,6 +38,7 @@ ridge: {family: linear, grid: {penalty: l2, alpha: [1.0]}}
 tree: {family: pruned_tree, grid: {ccp_alpha: [150.0], min_samples_leaf: [5]}}
 """
 SCHEMES = {
+    "rows": "folds: {k: 3, repeats: 2, seed: 17}\n",
     "groups": "folds: {k: 3, repeats: 2, seed: 17, groups: clinic}\n",
     "test_groups": "test: {fraction: 0.25, seed: 3, groups: clinic}\n",
     "time": "folds: {k: 4, order: day, gap: 2, seed: 17}\n",
@@ -59,7 +61,7 @@ def _spec(folder, scheme: str):
     text = SCHEMES[scheme]
     spec_path = write_spec(folder, MODELS, data="clinics.csv", name=f"{scheme}.yaml")
     raw = _replace_block(spec_path.read_text(), text.split(":", 1)[0], text)
-    drop = "day" if scheme != "time" else "clinic"
+    drop = {"rows": "clinic, day", "time": "clinic"}.get(scheme, "day")
     raw = raw.replace("  target: progression\n", f"  target: progression\n  drop: [{drop}]\n")
     spec_path.write_text(raw)
     return load_spec(spec_path)
@@ -81,6 +83,9 @@ def _replace_block(raw: str, block: str, text: str) -> str:
 
 
 def _recipe(scheme: str, df: pd.DataFrame):
+    if scheme == "rows":
+        return documented_plan(len(df), test_fraction=0.25, test_seed=3, k=3, repeats=2,
+                               seed=17)
     if scheme == "groups":
         return documented_group_plan(df["clinic"].to_numpy(), test_fraction=0.25, test_seed=3,
                                      k=3, repeats=2, seed=17)
@@ -224,8 +229,8 @@ def test_a_sweep_stores_enough_to_rebuild_its_plan(sweeps):
                           "plan_seed from sweeps where sweep_id = ?", [sid]).iloc[0]
         plan = json.loads(row["plan"])
         assert plan == plan_identity(spec)
-        expected = {"groups": ("groups", "clinic"), "test_groups": ("rows", None),
-                    "time": ("time", "day")}[scheme]
+        expected = {"rows": ("rows", None), "groups": ("groups", "clinic"),
+                    "test_groups": ("rows", None), "time": ("time", "day")}[scheme]
         column = row["plan_column"] if isinstance(row["plan_column"], str) else None
         assert (row["scheme"], column) == expected
         assert row["data_sha256"] == load_frame(spec).sha256
@@ -235,7 +240,9 @@ def test_changing_the_plan_never_reuses_rows(sweeps, tmp_path):
     done, store = sweeps
     ids = {scheme: set(store.query("select cell_id from cells where sweep_id = ?",
                                    [sid])["cell_id"]) for scheme, (_, sid) in done.items()}
-    assert not ids["groups"] & ids["test_groups"] and not ids["groups"] & ids["time"]
+    for a, b in [("rows", "groups"), ("rows", "test_groups"), ("rows", "time"),
+                 ("groups", "test_groups"), ("groups", "time"), ("test_groups", "time")]:
+        assert not ids[a] & ids[b], (a, b)
     reused = store.query("select count(*) as n from cells where reused_from is not null")
     assert reused["n"].iloc[0] == 0
 
@@ -339,3 +346,34 @@ def test_picks_and_compare_work_on_every_plan_and_time_folds_carry_their_caveat(
     html = render_report(store, done["time"][1])
     assert "Time-ordered folds: these folds follow time order" in html
     assert "4 time-ordered folds by day (expanding window, gap 2)" in html
+
+
+def _readme_recipes() -> list[str]:
+    """The python blocks of README's "Rebuilding the folds yourself": the start, rows,
+    groups, time, and the loop every scheme ends with."""
+    text = (Path(__file__).resolve().parents[1] / "README.md").read_text()
+    section = text.split("## Rebuilding the folds yourself", 1)[1].split("\n## ", 1)[0]
+    blocks = [b.split("```", 1)[0] for b in section.split("```python\n")[1:]]
+    assert len(blocks) == 5
+    return blocks
+
+
+@pytest.mark.parametrize("scheme", SCHEMES)
+def test_the_readme_recipes_rebuild_every_plan(tmp_path, scheme):
+    start, rows, groups, time, loop = _readme_recipes()
+    spec = _spec(tmp_path, scheme)
+    plan = make_plan(spec, load_frame(spec))
+    row_folds = rows.strip().splitlines()[-1]  # `splits = RepeatedKFold(...)` alone
+    steps = {"rows": [rows], "groups": [groups], "time": [time],
+             "test_groups": [groups, row_folds]}[scheme]
+    assert row_folds.startswith("splits = RepeatedKFold(")
+    names = {"path": tmp_path / "clinics.csv", "fraction": 0.25, "test_seed": 3,
+             "k": spec.folds.k, "repeats": spec.folds.repeats, "seed": 17, "gap": 2,
+             "column": "day" if scheme == "time" else "clinic"}
+    exec("\n".join([start, *steps, loop]), names)
+    assert np.array_equal(names["test_rows"], plan.test_rows)
+    assert np.array_equal(names["train_rows"], plan.train_rows)
+    assert len(names["folds"]) == len(plan.folds)
+    for (repeat, fold, fit, valid, seed), f in zip(names["folds"], plan.folds):
+        assert (repeat, fold, seed) == (f.repeat, f.fold, f.seed)
+        assert np.array_equal(fit, f.fit) and np.array_equal(valid, f.valid)
