@@ -59,7 +59,8 @@ def _spec(folder, scheme: str):
     if not path.exists():
         _frame().to_csv(path, index=False)
     text = SCHEMES[scheme]
-    spec_path = write_spec(folder, MODELS, data="clinics.csv", name=f"{scheme}.yaml")
+    spec_path = write_spec(folder, MODELS, data="clinics.csv", name=f"{scheme}.yaml",
+                           explain="picked" if scheme == "groups" else "none")
     raw = _replace_block(spec_path.read_text(), text.split(":", 1)[0], text)
     drop = {"rows": "clinic, day", "time": "clinic"}.get(scheme, "day")
     raw = raw.replace("  target: progression\n", f"  target: progression\n  drop: [{drop}]\n")
@@ -204,6 +205,11 @@ def test_no_group_on_both_sides_of_any_split(sweeps):
         [(f.repeat, f.fold, len(f.fit), len(f.valid)) for f in plan.folds]
     first, second = plan.folds[0].valid, plan.folds[3].valid
     assert not np.array_equal(np.sort(train[first]), np.sort(train[second]))
+    # the explain step refits on the same grouped folds
+    refits = store.query("select distinct \"repeat\", fold from fold_importances "
+                         "where sweep_id = ? order by 1, 2", [sid])
+    assert [tuple(r) for r in refits.itertuples(index=False)] == \
+        [(f.repeat, f.fold) for f in plan.folds]
 
 
 def test_time_folds_only_look_ahead(sweeps):
@@ -377,3 +383,31 @@ def test_the_readme_recipes_rebuild_every_plan(tmp_path, scheme):
     for (repeat, fold, fit, valid, seed), f in zip(names["folds"], plan.folds):
         assert (repeat, fold, seed) == (f.repeat, f.fold, f.seed)
         assert np.array_equal(fit, f.fit) and np.array_equal(valid, f.valid)
+
+
+def test_the_plan_column_is_a_feature_only_when_listed_as_categorical(tmp_path):
+    spec = _spec(tmp_path, "groups")
+    frame = load_frame(spec)
+    assert "clinic" not in frame.features and "clinic" in frame.others.columns
+    path = tmp_path / "groups.yaml"
+    path.write_text(path.read_text().replace("  drop: [day]\n",
+                                             "  drop: [day]\n  categorical: [clinic]\n"))
+    frame = load_frame(load_spec(path))
+    assert "clinic" in frame.categorical
+    # still the plan's column: the folds are the same
+    assert plan_identity(load_spec(path)) == plan_identity(spec)
+
+
+def test_dates_as_text_order_rows_as_their_day_numbers_do(tmp_path):
+    spec = _spec(tmp_path, "time")
+    df = _frame()
+    df["day"] = [str((pd.Timestamp("2024-03-01") + pd.Timedelta(days=int(d))).date())
+                 for d in df["day"]]
+    df.to_csv(tmp_path / "dated.csv", index=False)
+    path = tmp_path / "time.yaml"
+    path.write_text(path.read_text().replace("clinics.csv", "dated.csv"))
+    dated = load_spec(path)
+    by_day, by_date = make_plan(spec, load_frame(spec)), make_plan(dated, load_frame(dated))
+    assert np.array_equal(by_day.test_rows, by_date.test_rows)
+    for a, b in zip(by_day.folds, by_date.folds):
+        assert np.array_equal(a.fit, b.fit) and np.array_equal(a.valid, b.valid)
