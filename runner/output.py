@@ -18,7 +18,7 @@ __all__ = ["emit", "FORMATS"]
 FORMATS = ("table", "csv", "json")
 
 
-JSON_COLUMNS = ("params", "versions", "settings", "card")
+JSON_COLUMNS = ("params", "versions", "settings", "card", "plan")
 """Columns that hold JSON text in the store; JSON output gives them as objects."""
 
 
