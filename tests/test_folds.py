@@ -34,8 +34,8 @@ from .helpers import (diabetes_frame, documented_group_plan, documented_plan,
                       spec_from, write_spec)
 
 MODELS = """
-ridge: {family: linear, grid: {penalty: l2, alpha: [1.0]}}
-tree: {family: pruned_tree, grid: {ccp_alpha: [150.0], min_samples_leaf: [5]}}
+ridge: {family: linear, grid: {penalty: l2, alpha: [1.0, 30.0]}}
+tree: {family: pruned_tree, grid: {ccp_alpha: [0.0, 150.0], min_samples_leaf: [5]}}
 """
 SCHEMES = {
     "rows": "folds: {k: 3, repeats: 2, seed: 17}\n",
@@ -173,18 +173,24 @@ def test_scores_equal_cross_validate_on_the_recipe(sweeps, scheme, model):
             "tree": lambda s: DecisionTreeRegressor(ccp_alpha=150.0, min_samples_leaf=5,
                                                     random_state=s)}[model]
     ref, test = _reference(make, X, y, _recipe(scheme, df))
-    got = store.query("""select f."repeat", f.fold, f.value, f.n_train, f.n_valid
-                         from fold_scores f join cells c using (sweep_id, cell_id)
-                         where f.sweep_id = ? and c.model = ? and f.metric = 'rmse'
-                         order by 1, 2""", [sid, model])
+    cell = {"ridge": "alpha", "tree": "ccp_alpha"}[model]
+    value = {"ridge": 1.0, "tree": 150.0}[model]
+    got = store.query(f"""select f."repeat", f.fold, f.value, f.n_train, f.n_valid, f.how
+                          from fold_scores f join cells c using (sweep_id, cell_id)
+                          where f.sweep_id = ? and c.model = ? and f.metric = 'rmse'
+                            and json_extract(c.params, '$.{cell}')::double = ?
+                          order by 1, 2""", [sid, model, value])
+    # the cells were scored through their path (one fit per fold for the whole grid)
+    assert set(got["how"]) == {{"ridge": "ridge_svd", "tree": "tree_path"}[model]}
     assert len(got) == len(ref)
-    for row, (rep, f, value, n_fit, n_valid) in zip(got.itertuples(index=False), ref):
+    for row, (rep, f, score, n_fit, n_valid) in zip(got.itertuples(index=False), ref):
         assert (row.repeat, row.fold, row.n_train, row.n_valid) == (rep, f, n_fit, n_valid)
-        assert row.value == pytest.approx(value, abs=1e-9)
-    stored = store.query("""select t.value from test_scores t join cells c
-                            using (sweep_id, cell_id)
-                            where t.sweep_id = ? and c.model = ? and t.metric = 'rmse'""",
-                         [sid, model])["value"].iloc[0]
+        assert row.value == pytest.approx(score, abs=1e-9)
+    stored = store.query(f"""select t.value from test_scores t join cells c
+                             using (sweep_id, cell_id)
+                             where t.sweep_id = ? and c.model = ? and t.metric = 'rmse'
+                               and json_extract(c.params, '$.{cell}')::double = ?""",
+                         [sid, model, value])["value"].iloc[0]
     assert stored == pytest.approx(test, abs=1e-9)
 
 
