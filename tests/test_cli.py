@@ -43,8 +43,8 @@ def test_check_prints_plan_and_writes_nothing(tmp_path, diabetes_csv):
     result = invoke("check", spec)
     assert result.exit_code == 0, result.output
     assert "train rows   331" in result.output and "test rows    111" in result.output
-    assert "3 folds x 2 repeats over rows (seed 17); test = 0.25 of the rows (seed 3)" \
-        in result.output
+    assert ("plan         3 folds × 2 repeats over rows, seed 17; test split: 0.25 of the "
+            "rows (seed 3)") in result.output
     assert "leakage checks: nothing found" in result.output
     assert "│ ridge │ linear      │ 2     │     6 │ 14   │" in result.output
     assert not (tmp_path / "store.duckdb").exists()

@@ -399,9 +399,10 @@ def plan_sentence(record: dict) -> str:
     elif "order" in test:
         held = f"the last {test.get('fraction', 0):g} of the values of {test['order']}"
     elif "groups" in test:
-        held = f"{test.get('fraction', 0):g} of the groups of {test['groups']}"
+        held = f"{test['fraction']:g} of the groups of {test['groups']} (seed {test['seed']})"
     else:
-        held = f"{test.get('fraction', 0):g} of the rows" if test else "held-out rows"
+        held = f"{test['fraction']:g} of the rows (seed {test['seed']})" if test else \
+            "held-out rows"
     return f"{folds}, seed {record.get('plan_seed')}; test split: {held}"
 
 

@@ -43,7 +43,7 @@ from .grid import Cell
 from ..metrics import METRICS
 from .prepare import Prepared, load_checked, prepare
 from ..read.queries import process_alive
-from ..read.views import finding_lines
+from ..read.views import finding_lines, plan_sentence
 from .leakage import refuse
 from .resampling import REFIT, Fold, plan_counts, refit_seed, resolve_scheme
 from .reuse import all_found, copy_scores, find_findings, find_scores
@@ -124,7 +124,7 @@ def check_spec(spec: Spec, *, lift_limits: bool = False
     facts = {"data": str(frame.source), "rows": len(frame.y), "train rows": plan.n_train,
              "test rows": plan.n_test, "features": len(frame.features),
              "categorical": ", ".join(frame.categorical) or "none",
-             "folds": plan_text(spec),
+             "plan": plan_sentence(plan_record(spec, prep.identity)),
              "metrics": ", ".join(spec.metrics), "store": str(store_path(spec)),
              "estimate": size.estimate(),
              "limits": "lifted (--lift-limits)" if lift_limits else
@@ -133,23 +133,14 @@ def check_spec(spec: Spec, *, lift_limits: bool = False
     return pd.DataFrame(rows), facts, findings
 
 
-def plan_text(spec: Spec) -> str:
-    """The fold plan and test split in a few words, as `check` prints them."""
-    f, scheme = spec.folds, resolve_scheme(spec)
-    folds = {"rows": f"{f.k} folds x {f.repeats} repeats over rows",
-             "groups": f"{f.k} folds x {f.repeats} repeats over groups of '{f.groups}'",
-             "time": f"{f.k} time-ordered folds by '{f.order}'" +
-                     (f", gap {f.gap}" if f.gap else "")}.get(scheme.name, scheme.name)
-    t = spec.test
-    if t.fraction is None:
-        test = f"test file {t.file}" if t.file else f"test rows marked by '{t.column}'"
-    elif scheme.name == "time":
-        test = f"test = the last {t.fraction:g} of '{f.order}'"
-    else:
-        groups = t.groups or (f.groups if scheme.name == "groups" else None)
-        test = f"test = {t.fraction:g} of " + (f"the groups of '{groups}'" if groups else
-                                               "the rows") + f" (seed {t.seed})"
-    return f"{folds} (seed {f.seed}); {test}"
+def plan_record(spec: Spec, identity: dict) -> dict:
+    """The plan as a sweep records it: the scheme, the column it reads, the plan's identity
+    (test split, folds, seeds; what enters the cell ids), k, repeats and seed."""
+    scheme = resolve_scheme(spec)
+    return {"scheme": scheme.name,
+            "plan_column": getattr(spec.folds, scheme.column) if scheme.column else None,
+            "plan": identity, "k": spec.folds.k, "repeats": spec.folds.repeats,
+            "plan_seed": spec.folds.seed}
 
 
 def store_path(spec: Spec, override=None):
@@ -353,11 +344,8 @@ def run_sweep(spec: Spec, *, store: Store | None = None, jobs: int | None = None
             "spec_path": str(spec.source) if spec.source else None, "spec_text": spec.text,
             "spec_sha256": spec.sha256, "data_path": str(prep.frame.source),
             "data_sha256": prep.frame.sha256, "target": prep.frame.target,
-            "n_train": n_train, "n_test": n_test, "k": spec.folds.k,
-            "repeats": spec.folds.repeats, "plan_seed": spec.folds.seed,
-            "scheme": resolve_scheme(spec).name, "plan_column": _plan_column(spec),
-            "plan": prep.identity, "checks_key": prep.checks_key,
-            "metrics": ",".join(spec.metrics), "pick_rule": spec.pick,
+            "n_train": n_train, "n_test": n_test, **plan_record(spec, prep.identity),
+            "checks_key": prep.checks_key, "metrics": ",".join(spec.metrics), "pick_rule": spec.pick,
             "started_at": datetime.now(), "finished_at": None, "status": "running",
             "versions": _versions(), "host": host, "user_name": _user(), "pid": os.getpid()},
             cells_df, {m: METRICS[m].better for m in spec.metrics}, findings)
@@ -426,12 +414,6 @@ def run_sweep(spec: Spec, *, store: Store | None = None, jobs: int | None = None
         return SweepResult(sweep_id, str(store.path), status, len(prep.cells), counts["fold"],
                            counts["test"], counts["failed"], time.perf_counter() - start,
                            n_reused=len(reused), n_fitted=len(prep.cells) - len(reused))
-
-
-def _plan_column(spec: Spec) -> str | None:
-    """The column the fold scheme reads (groups or time order), if any."""
-    scheme = resolve_scheme(spec)
-    return getattr(spec.folds, scheme.column) if scheme.column else None
 
 
 def _all_failed(sweep_id: str, n: int, why: Counter, where) -> str:

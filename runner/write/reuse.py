@@ -8,6 +8,7 @@ from __future__ import annotations
 import pandas as pd
 
 from ..store import Store
+from .leakage import FINDING_COLUMNS, ordered
 from .resampling import REFIT
 
 __all__ = ["EXPLAIN_TABLES", "find_scores", "all_found", "copy_scores", "copy_explained",
@@ -85,8 +86,6 @@ def copy_explained(store: Store, sweep_id: str, cell_ids: list[str], settings: s
 def find_findings(store: Store, key: str) -> pd.DataFrame | None:
     """The findings an earlier sweep with this checks key recorded, so that a rerun with
     nothing to fit need not build the plan to check it again; None if no sweep has the key."""
-    from .leakage import FINDING_COLUMNS, ordered
-
     earlier = store.query("select sweep_id from sweeps where checks_key = ? "
                           "order by started_at desc, sweep_id desc limit 1", [key])
     if earlier.empty:
