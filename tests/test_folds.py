@@ -417,3 +417,26 @@ def test_dates_as_text_order_rows_as_their_day_numbers_do(tmp_path):
     assert np.array_equal(by_day.test_rows, by_date.test_rows)
     for a, b in zip(by_day.folds, by_date.folds):
         assert np.array_equal(a.fit, b.fit) and np.array_equal(a.valid, b.valid)
+
+
+@pytest.mark.parametrize("k, gap", [(2, 0), (3, 2), (3, 3), (3, 4), (4, 9), (5, 1)])
+def test_the_fewest_times_named_for_time_folds_are_what_the_splitter_needs(k, gap):
+    # reference: TimeSeriesSplit itself, which raises on fewer samples than it can cut
+    from sklearn.model_selection import TimeSeriesSplit
+
+    from runner.write.resampling import Cut, SCHEMES
+
+    def cuts(n):
+        try:
+            list(TimeSeriesSplit(n_splits=k, gap=gap).split(np.arange(n)))
+            return True
+        except ValueError:
+            return False
+
+    fewest = next(n for n in range(1, 500) if cuts(n))
+    scheme = SCHEMES["time"]
+    for n in (fewest - 1, fewest):
+        problem = scheme.problem(Cut(np.zeros(n), np.arange(n), k, 1, 0, gap), "day")
+        assert (problem is None) == (n == fewest), (n, problem)
+        if problem:
+            assert f"need at least {fewest}" in problem

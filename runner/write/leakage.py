@@ -220,7 +220,8 @@ def _target_proxies(frame, plan: Plan) -> list[Finding]:
         yy = y[present]
         if col in frame.numeric:
             x = s.to_numpy(dtype=float)[present]
-            r = float(np.corrcoef(x, yy)[0, 1]) if np.ptp(x) > 0 else 0.0
+            with np.errstate(all="ignore"):
+                r = float(np.corrcoef(x, yy)[0, 1]) if np.ptp(x) > 0 and np.ptp(yy) > 0 else 0.0
             split = best_split_r2(x, yy)
         else:
             r, split = 0.0, best_split_r2(s.to_numpy()[present], yy, categorical=True)

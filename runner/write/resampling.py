@@ -119,7 +119,10 @@ def _enough_times(cut: Cut, column: str | None) -> str | None:
     n_times = len(np.unique(cut.values))
     per_fold = n_times // (cut.k + 1)
     if per_fold < 1 or n_times - cut.gap - per_fold * cut.k <= 0:
-        need = cut.k + 1 + cut.gap
+        # the fewest values T with T // (k + 1) >= 1 and T - gap - (T // (k + 1)) * k > 0,
+        # TimeSeriesSplit's own conditions
+        k, gap = cut.k, cut.gap
+        need = k + 1 + gap if gap <= k else (gap + 1 - k) * (k + 1) + k
         return (f"the training rows hold {n_times} distinct value(s) of column '{column}' "
                 f"(folds.order); {cut.k} time-ordered folds with gap {cut.gap} need at least "
                 f"{need}. Lower `folds.k` or `folds.gap`, or order by a finer column")
