@@ -104,14 +104,15 @@ def _enough_rows(cut: Cut, column: str | None) -> str | None:
 
 def _enough_groups(cut: Cut, column: str | None) -> str | None:
     n_groups = len(np.unique(cut.values))
+    if n_groups < 2:
+        return (f"column '{column}' (folds.groups) has a single value in the training rows, "
+                "so there is nothing to cut into folds. Name a column with one value per "
+                "group (plant, bay, patient, site, batch)")
     if n_groups < cut.k:
         return (f"the training rows hold {n_groups} group(s) of column '{column}' "
                 f"(folds.groups) for {cut.k} folds; grouped folds need at least one group per "
-                f"fold. Lower `folds.k` to at most {max(n_groups, 2)}, or group by a column "
-                "with more groups") if n_groups >= 2 else (
-                f"column '{column}' (folds.groups) has a single value in the training rows, "
-                "so there is nothing to cut into folds. Name a column with one value per "
-                "group (plant, bay, patient, site, batch)")
+                f"fold. Lower `folds.k` to at most {n_groups}, or group by a column with more "
+                "groups")
     return _enough_rows(cut, column)
 
 
@@ -132,22 +133,21 @@ def _enough_times(cut: Cut, column: str | None) -> str | None:
 @dataclass(frozen=True)
 class Scheme:
     """One way of cutting training rows into folds: its column, whether it ignores any
-    grouping of the rows, whether its folds are exchangeable draws, the test split a
-    fraction gets with it, and the splitter. Add a scheme by adding a record."""
+    grouping of the rows, the test split a fraction gets with it, the splitter, and why
+    rows cannot be cut. Add a scheme by adding a record."""
 
     name: str
     column: str | None  # the folds field naming its column: "groups", "order" or None
     row_wise: bool  # rows fall into folds whatever group they belong to
-    exchangeable: bool  # False: folds follow an order, so their scores are not exchangeable
     holdout: str  # the HOLDOUTS entry a test fraction uses
     split: Callable[[Cut], Iterable]
     problem: Callable[[Cut, str | None], str | None]  # why these rows cannot be cut, or None
 
 
 SCHEMES = {s.name: s for s in (
-    Scheme("rows", None, True, True, "rows", _rows_folds, _enough_rows),
-    Scheme("groups", "groups", False, True, "groups", _group_folds, _enough_groups),
-    Scheme("time", "order", False, False, "time", _time_folds, _enough_times),
+    Scheme("rows", None, True, "rows", _rows_folds, _enough_rows),
+    Scheme("groups", "groups", False, "groups", _group_folds, _enough_groups),
+    Scheme("time", "order", False, "time", _time_folds, _enough_times),
 )}
 
 
@@ -157,11 +157,9 @@ def resolve_scheme(spec) -> Scheme:
 
 
 # -- test splits -------------------------------------------------------------------------------
-def _rest(n: int, test: np.ndarray, left_out: np.ndarray | None = None) -> np.ndarray:
+def _rest(n: int, test: np.ndarray) -> np.ndarray:
     keep = np.ones(n, dtype=bool)
     keep[test] = False
-    if left_out is not None:
-        keep[left_out] = False
     return np.flatnonzero(keep)
 
 
