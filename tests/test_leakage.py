@@ -61,7 +61,8 @@ def test_identifiers_as_features(tmp_path):
 
 @pytest.mark.parametrize("name, expected", [
     ("plant_id", True), ("PlantID", True), ("plantId", True), ("batch_no", True),
-    ("zip_code", True), ("bay", False), ("valid", False), ("humidity", False)])
+    ("zip_code", True), ("bay", False), ("valid", False), ("humidity", False),
+    ("number_of_leaves", False), ("num_rooms", False)])
 def test_id_like_names(name, expected):
     assert id_like(name) is expected
 
@@ -170,6 +171,7 @@ def test_group_keys_under_row_folds(tmp_path):
     df["patient_id"] = rng.integers(0, 110, len(df))  # about 4 rows per patient
     df["batch"] = [f"b{v}" for v in rng.integers(0, 110, len(df))]  # text, 110 levels
     df["sex_code"] = df["sex"]  # id-like name but 2 values: a category, not a group key
+    df["colour_code"] = [f"c{v}" for v in rng.integers(0, 8, len(df))]  # 8 values: likewise
     spec, found = _findings(tmp_path, df, extra="")
     keys = {f.column: f for f in found if f.kind == "group_key"}
     assert set(keys) == {"patient_id", "batch"}

@@ -32,8 +32,8 @@ KINDS = {k.name: k for k in (
     Kind("target_proxy", WARNING, "a feature that predicts the target almost perfectly "
          "(|r| > 0.99, or one split with R² > 0.99): likely a copy or a consequence of it"),
     Kind("group_key", WARNING, "under row-wise folds, a column that looks like a group key "
-         "(an id-like name, or text with hundreds of levels, several rows each) has rows on "
-         "both sides of a fold: set folds.groups to it"),
+         "(an id-like name, or text with hundreds of levels; ten values or more, several "
+         "rows each) has rows on both sides of a fold: set folds.groups to it"),
     Kind("split_overlap", ERROR, "a test file or column that breaks the plan's promise: "
          "groups shared with the training rows (grouped plans), or test rows not after "
          "every training row (time-ordered plans)"),

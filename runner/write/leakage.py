@@ -30,7 +30,7 @@ from .resampling import SCHEMES, Plan
 
 __all__ = ["run_checks", "checks_key", "best_split_r2", "id_like", "findings_frame",
            "refuse", "ordered", "FINDING_COLUMNS", "CHECKS_VERSION",
-           "ID_SHARE", "MOSTLY", "PROXY", "GROUP_LEVELS", "DISTINCT_ROWS"]
+           "ID_SHARE", "MOSTLY", "PROXY", "GROUP_LEVELS", "MIN_GROUPS", "DISTINCT_ROWS"]
 
 CHECKS_VERSION = "1"
 """Bumped whenever a check changes what it finds; enters `checks_key`."""
@@ -48,7 +48,11 @@ DISTINCT_ROWS = 0.5
 """The duplicate check runs when at least this share of rows is distinct: in data of a few
 discrete columns, repeated rows are expected and say nothing about leakage."""
 
-_ID_WORDS = {"id", "ids", "key", "uuid", "guid", "code", "no", "nr", "num", "number", "serial"}
+MIN_GROUPS = 10
+"""Fewest values a column needs to look like a group key (fewer are categories, such as a
+code for a colour or a sex)."""
+
+_ID_WORDS = {"id", "ids", "key", "uuid", "guid", "code", "no", "nr", "serial"}
 
 
 def id_like(name: str) -> bool:
@@ -252,8 +256,8 @@ def _group_keys(spec, frame, plan: Plan) -> list[Finding]:
             continue
         s = _column(frame, col)
         n, n_values = int(s.notna().sum()), s.nunique()
-        if n_values < max(3, spec.folds.k) or n < 2 * n_values:
-            continue  # too few values to be groups that folds could keep whole
+        if n_values < max(MIN_GROUPS, spec.folds.k) or n < 2 * n_values:
+            continue
         text = col in frame.categorical or not pd.api.types.is_numeric_dtype(s)
         if not (id_like(col) or (text and n_values >= GROUP_LEVELS)):
             continue
