@@ -18,7 +18,7 @@ from click.testing import CliRunner
 
 from runner.cli import main
 from runner.errors import StoreError
-from runner.store import Store
+from runner.store import SCHEMA_VERSION, Store
 
 from .helpers import write_spec
 from .store_builder import write_sweep
@@ -72,7 +72,7 @@ def test_an_empty_database_becomes_a_store(tmp_path):
     duckdb.connect(str(empty)).close()
     store = Store(empty)
     store.ensure_schema()
-    assert store.query("select value from foldwise_meta").value.tolist() == ["2"]
+    assert store.query("select value from foldwise_meta").value.tolist() == [str(SCHEMA_VERSION)]
 
 
 def test_a_schema_version_that_is_not_a_number_is_one_clear_error(tmp_path):
