@@ -14,10 +14,10 @@ __all__ = ["__version__", "FoldwiseError", "SpecError", "DataError", "StoreError
            "ModelError",
            "Spec", "load_spec", "parse_spec", "spec_json_schema", "Store", "run_sweep",
            "check_spec", "summary", "pick_table", "compare_table", "complexity_table",
-           "importance_table", "stability_table", "figure", "write_report", "merge_store",
-           "export_store", "build_model", "load_model", "predict_file", "fetch_model",
-           "built_models", "coefficient_table", "sweeps", "set_labels", "Selection",
-           "diff_sweeps", "model_history", "remove_sweeps"]
+           "importance_table", "stability_table", "findings_table", "figure", "write_report",
+           "merge_store", "export_store", "build_model", "load_model", "predict_file",
+           "fetch_model", "built_models", "coefficient_table", "sweeps", "set_labels",
+           "Selection", "diff_sweeps", "model_history", "remove_sweeps"]
 
 
 # name -> (module, attribute), imported on first use so `import runner` stays light. Names
@@ -33,6 +33,7 @@ _LAZY = {
     "complexity_table": ("read.queries", "complexity_table"),
     "importance_table": ("read.queries", "importance_table"),
     "stability_table": ("read.queries", "stability_table"),
+    "findings_table": ("read.queries", "findings"),
     "figure": ("read.figures", "make_figure"), "write_report": ("read.report", "write_report"),
     "merge_store": ("store.transfer", "merge_store"),
     "export_store": ("store.transfer", "export_store"),

@@ -92,7 +92,9 @@ def check(spec_file, lift_limits):
     spec = load_spec(spec_file)  # before the engine's imports: a hostile spec costs little
     from .write.engine import check_spec
 
-    plan, facts = check_spec(spec, lift_limits=lift_limits)
+    from .read.views import finding_lines, findings_view
+
+    plan, facts, findings = check_spec(spec, lift_limits=lift_limits)
     click.echo(f"spec {spec_file} is valid: sweep '{spec.name}'")
     for key, value in facts.items():
         click.echo(f"  {key:<12} {value}")
@@ -102,6 +104,9 @@ def check(spec_file, lift_limits):
         "cells and fits per model", plan, numeric=("cells", "fits per fold", "fits"),
         sentences=("Cells that differ only in a path parameter share one fit per fold; "
                    "fits = fits per fold x (folds + 1 refit).",)))
+    click.echo(findings_view(findings).title)
+    for line in finding_lines(findings):
+        click.echo(f"  {line}")
 
 
 @main.command()
@@ -335,7 +340,7 @@ def sql(query, store_path, fmt, allow_files):
     One SELECT (or WITH, DESCRIBE, SUMMARIZE, plain EXPLAIN). Tables: sweeps, sweep_labels,
     cells, fold_scores, test_scores, failures, importances, metrics, fold_importances,
     tree_folds, tree_nodes, test_predictions, explained, coefficients, models,
-    model_coefficients; view: cell_summary.
+    model_coefficients, findings; view: cell_summary.
 
     \b
       foldwise sql "select model, metric, avg(value) from fold_scores join cells using (sweep_id, cell_id) group by all"

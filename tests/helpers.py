@@ -1,5 +1,5 @@
-"""Test helpers: the diabetes data, spec writing, and the documented plan rebuilt with
-scikit-learn alone (README: "Rebuilding the folds")."""
+"""Test helpers: the diabetes data, spec writing, and the documented plans rebuilt with
+scikit-learn alone (README: "Rebuilding the folds yourself"), one per fold scheme."""
 
 from __future__ import annotations
 
@@ -8,7 +8,8 @@ from pathlib import Path
 
 import numpy as np
 import pandas as pd
-from sklearn.model_selection import RepeatedKFold, train_test_split
+from sklearn.model_selection import (GroupKFold, GroupShuffleSplit, RepeatedKFold,
+                                     TimeSeriesSplit, train_test_split)
 
 from runner.write.spec import parse_spec
 
@@ -67,4 +68,45 @@ def documented_plan(n_rows: int, *, test_fraction: float, test_seed: int, k: int
     train_rows = np.setdiff1d(np.arange(n_rows), test_rows)  # file order
     splits = RepeatedKFold(n_splits=k, n_repeats=repeats, random_state=seed).split(train_rows)
     folds = [(i // k, i % k, fit, valid) for i, (fit, valid) in enumerate(splits)]
+    return train_rows, test_rows, folds
+
+
+def documented_group_plan(groups: np.ndarray, *, test_fraction: float, test_seed: int, k: int,
+                          repeats: int, seed: int, test_groups: np.ndarray | None = None,
+                          folds_by_groups: bool = True):
+    """The README's grouped recipe: the test split holds out whole groups
+    (GroupShuffleSplit); each repeat's GroupKFold(shuffle=True) draws from one RandomState
+    handed on from repeat to repeat. With `folds_by_groups=False` the folds are row-wise
+    (RepeatedKFold) and only the test split is grouped (test.groups)."""
+    n = len(groups)
+    held = groups if test_groups is None else test_groups
+    split = GroupShuffleSplit(n_splits=1, test_size=test_fraction, random_state=test_seed)
+    test_rows = np.sort(next(split.split(np.arange(n), groups=held))[1])
+    train_rows = np.setdiff1d(np.arange(n), test_rows)
+    if not folds_by_groups:
+        splits = RepeatedKFold(n_splits=k, n_repeats=repeats, random_state=seed).split(train_rows)
+        return train_rows, test_rows, [(i // k, i % k, fit, valid)
+                                       for i, (fit, valid) in enumerate(splits)]
+    rng = np.random.RandomState(seed)
+    folds = []
+    for repeat in range(repeats):
+        cv = GroupKFold(n_splits=k, shuffle=True, random_state=rng)
+        for fold, (fit, valid) in enumerate(cv.split(train_rows, groups=groups[train_rows])):
+            folds.append((repeat, fold, fit, valid))
+    return train_rows, test_rows, folds
+
+
+def documented_time_plan(order: np.ndarray, *, test_fraction: float, k: int, gap: int):
+    """The README's time-ordered recipe: the test split is the rows of the last
+    ceil(fraction x distinct values) values of the order column, the `gap` values before
+    them are left out, and TimeSeriesSplit(k, gap) cuts the training rows' distinct values."""
+    times = np.unique(order)
+    first_test = len(times) - int(np.ceil(test_fraction * len(times)))
+    test_rows = np.flatnonzero(order >= times[first_test])
+    train_rows = np.flatnonzero(order < times[first_test - gap])
+    ordered, train_times = order[train_rows], np.unique(order[train_rows])
+    folds = []
+    for fold, (fit_t, valid_t) in enumerate(TimeSeriesSplit(n_splits=k, gap=gap).split(train_times)):
+        folds.append((0, fold, np.flatnonzero(np.isin(ordered, train_times[fit_t])),
+                      np.flatnonzero(np.isin(ordered, train_times[valid_t]))))
     return train_rows, test_rows, folds

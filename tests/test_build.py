@@ -71,13 +71,14 @@ def test_the_card_says_where_the_model_came_from(demo_built):
     assert card["cell"]["estimator_params"]["min_samples_leaf"] == 5
     # The inputs: the data file's columns less target and dropped, categories as seen in
     # the training rows (the plan's rows rebuilt with scikit-learn's splitter, README recipe).
-    from sklearn.model_selection import train_test_split
+    from sklearn.model_selection import GroupShuffleSplit
 
     df = pd.read_csv(folder / "greenhouse.csv")
-    test = train_test_split(np.arange(len(df)), test_size=0.2, random_state=11)[1]
+    split = GroupShuffleSplit(n_splits=1, test_size=0.2, random_state=11)
+    test = next(split.split(np.arange(len(df)), groups=df["bay_id"]))[1]
     train = df.drop(index=test)
     names = [f["name"] for f in card["features"]]
-    assert names == [c for c in df.columns if c not in ("yield_kg_m2", "bay_row")]
+    assert names == [c for c in df.columns if c not in ("yield_kg_m2", "bay_row", "bay_id")]
     cultivar = next(f for f in card["features"] if f["name"] == "cultivar")
     assert cultivar["categories"] == sorted(train["cultivar"].unique())
     leaf = next(f for f in card["features"] if f["name"] == "leaf_temp_c")

@@ -349,3 +349,63 @@ def test_a_built_class_model_predicts_the_stored_probabilities_bit_for_bit(tmp_p
     assert got["predicted_class"].tolist() == stored["predicted_class"].tolist()
     for k, label in enumerate(["A", "B", "C"]):
         assert got[f"probability_{label}"].tolist() == [p[k] for p in stored["probabilities"]]
+
+
+def test_grouped_class_folds_are_scikit_learns_stratified_group_folds(tmp_path):
+    """A class target with folds.groups: the test split is scikit-learn's GroupShuffleSplit
+    and each repeat's folds its StratifiedGroupKFold(shuffle=True) with one RandomState
+    handed from repeat to repeat (reference: scikit-learn 1.9 model_selection, the recipe in
+    README 'Rebuilding the folds yourself'); no group on both sides; the plan says so."""
+    from sklearn.model_selection import GroupShuffleSplit, StratifiedGroupKFold
+
+    from runner.write.prepare import load_checked
+    from runner.write.resampling import make_plan
+
+    df = _data("multiclass")
+    df["lot"] = [f"L{i // 3:03d}" for i in range(len(df))]
+    df.to_csv(tmp_path / "d.csv", index=False)
+    (tmp_path / "spec.yaml").write_text(
+        "name: g\ndata: {path: d.csv, target: label}\n"
+        f"test: {{fraction: {FRACTION}, seed: {TEST_SEED}}}\n"
+        f"folds: {{k: {K}, repeats: {R}, seed: {SEED}, groups: lot}}\n"
+        "store: store.duckdb\nmodels:\n  tree: {family: pruned_tree}\n")
+    spec = parse_spec((tmp_path / "spec.yaml").read_text(), source=tmp_path / "spec.yaml")
+    frame = load_checked(spec)
+    plan = make_plan(spec, frame)
+    y, groups = df["label"].to_numpy(dtype=object), df["lot"].to_numpy(dtype=object)
+    split = GroupShuffleSplit(n_splits=1, test_size=FRACTION, random_state=TEST_SEED)
+    test_rows = np.sort(next(split.split(np.arange(len(y)), groups=groups))[1])
+    train_rows = np.setdiff1d(np.arange(len(y)), test_rows)
+    rng = np.random.RandomState(SEED)
+    expected = [s for _ in range(R) for s in StratifiedGroupKFold(
+        n_splits=K, shuffle=True, random_state=rng).split(train_rows, y[train_rows],
+                                                          groups=groups[train_rows])]
+    assert np.array_equal(plan.test_rows, test_rows)
+    assert np.array_equal(plan.train_rows, train_rows)
+    assert len(plan.folds) == len(expected) == K * R
+    for fold, (fit, valid) in zip(plan.folds, expected):
+        assert np.array_equal(fold.fit, fit) and np.array_equal(fold.valid, valid)
+        g = groups[train_rows]
+        assert not set(g[fold.fit]) & set(g[fold.valid])
+    assert plan.identity["stratified"] is True and plan.identity["scheme"] == "groups"
+    result = run_sweep(spec, jobs=1)
+    record = Store(result.store_path).query("select plan from sweeps")["plan"][0]
+    assert json.loads(record)["stratified"] is True
+
+
+def test_a_feature_that_gives_a_class_away_is_found(tmp_path):
+    """The target-proxy check reads a class target as one 0/1 indicator per class: a column
+    that is a copy of the class is found, the data's own columns are not."""
+    df = _data("multiclass")
+    df["copy"] = df["label"].map({"x": 1.0, "y": 5.0, "z": 9.0})
+    df.to_csv(tmp_path / "d.csv", index=False)
+    (tmp_path / "spec.yaml").write_text(
+        "name: p\ndata: {path: d.csv, target: label}\ntest: {fraction: 0.25, seed: 1}\n"
+        "folds: {k: 3, seed: 2}\nstore: store.duckdb\nmodels:\n  tree: {family: pruned_tree}\n")
+    from runner.write.engine import check_spec
+
+    spec = parse_spec((tmp_path / "spec.yaml").read_text(), source=tmp_path / "spec.yaml")
+    _, _, findings = check_spec(spec)
+    proxies = findings[findings["kind"] == "target_proxy"]
+    assert proxies["column_name"].tolist() == ["copy"]
+    assert proxies["value"].iloc[0] == pytest.approx(1.0)

@@ -44,7 +44,9 @@ def test_check_prints_plan_and_writes_nothing(tmp_path, diabetes_csv):
     result = invoke("check", spec)
     assert result.exit_code == 0, result.output
     assert "train rows   331" in result.output and "test rows    111" in result.output
-    assert "3 folds x 2 repeats (seed 17)" in result.output
+    assert ("plan         3 folds × 2 repeats over rows, seed 17; test split: 0.25 of the "
+            "rows (seed 3)") in result.output
+    assert "leakage checks: nothing found" in result.output
     # two ridge alphas from one SVD a fold: 1 x (6 folds + 1 refit) = 7 fits
     assert "│ ridge │ linear      │     2 │             1 │    7 │" in result.output
     assert not (tmp_path / "store.duckdb").exists()

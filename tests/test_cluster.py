@@ -136,3 +136,34 @@ def test_workers_with_other_package_versions_are_refused():
     with pytest.raises(ClusterError, match=r"scikit-learn .* this machine 0\.0-elsewhere"):
         with DaskExecutor("local:1", versions=claimed):
             pass
+
+
+def test_grouped_and_time_plans_on_a_cluster_equal_the_local_run(folder):
+    """Fold schemes reach the workers as fold positions like any plan: a grouped and a
+    time-ordered sweep (invented clinic and day columns) give the local run's scores."""
+    df = diabetes_frame()
+    df["clinic"] = [f"c{i % 25:02d}" for i in range(len(df))]
+    df["day"] = [i // 3 for i in range(len(df))]
+    df.to_csv(folder / "clinics.csv", index=False)
+    models = "tree: {family: pruned_tree, grid: {ccp_alpha: [0.0, 50.0], min_samples_leaf: [3]}}"
+    specs = []
+    for name, old, new in (
+            ("grouped.yaml", "  seed: 17\n", "  seed: 17\n  groups: clinic\n"),
+            ("timed.yaml", "  k: 3\n  repeats: 2\n", "  k: 3\n  order: day\n")):
+        path = write_spec(folder, models, data="clinics.csv", name=name)
+        drop = "day" if name == "grouped.yaml" else "clinic"
+        path.write_text(path.read_text().replace(old, new).replace(
+            "  target: progression\n", f"  target: progression\n  drop: [{drop}]\n"))
+        specs.append(path)
+    from runner.write.spec import load_spec
+
+    local, remote = Store(folder / "schemes_local.duckdb"), Store(folder / "schemes_dask.duckdb")
+    for path in specs:
+        run_sweep(load_spec(path), store=local, jobs=1, fresh=True)
+    with DaskExecutor("local:2") as executor:
+        for path in specs:
+            run_sweep(load_spec(path), store=remote, executor=executor, fresh=True)
+    for table in ("fold_scores", "test_scores"):
+        mine, reference = _scores(remote, table), _scores(local, table)
+        assert len(mine) == len(reference) > 0
+        pd.testing.assert_frame_equal(mine, reference, check_exact=True)

@@ -1,4 +1,6 @@
-"""The shipped demo data are exactly what the generator writes (so anyone can rebuild them)."""
+"""The shipped demo data are exactly what the generator writes (so anyone can rebuild them),
+they hold the groups the demo spec folds by, and the row-folds twin of the demo spec differs
+from it only in its fold plan."""
 
 from __future__ import annotations
 
@@ -6,9 +8,11 @@ from pathlib import Path
 
 import pandas as pd
 
-from runner.demo import make_greenhouse, write_greenhouse
+from runner.demo import SEASONS, make_greenhouse, write_greenhouse
+from runner.write.spec import load_spec
 
-SHIPPED = Path(__file__).resolve().parents[1] / "specs" / "data" / "greenhouse.csv"
+ROOT = Path(__file__).resolve().parents[1]
+SHIPPED = ROOT / "specs" / "data" / "greenhouse.csv"
 
 
 def test_shipped_csv_is_the_generator_output(tmp_path):
@@ -18,8 +22,34 @@ def test_shipped_csv_is_the_generator_output(tmp_path):
 
 def test_generator_shape_and_missing_sensors():
     df = make_greenhouse(3000, seed=7)
-    assert df.shape == (3000, 17)
-    assert {"cultivar", "glazing", "irrigation", "yield_kg_m2"} <= set(df.columns)
+    assert df.shape == (3000, 19)
+    assert {"bay_id", "season", "cultivar", "glazing", "irrigation", "yield_kg_m2"} <= set(df.columns)
     share = df[["leaf_temp_c", "par_umol_m2_s"]].isna().mean()
     assert 0.08 < share.min() and share.max() < 0.15
     pd.testing.assert_frame_equal(df, make_greenhouse(3000, seed=7))
+
+
+def test_every_bay_has_a_row_per_season_and_fixed_traits():
+    df = make_greenhouse(3000, seed=7)
+    per_bay = df.groupby("bay_id")
+    assert per_bay.size().eq(SEASONS).all() and df["bay_id"].nunique() == 250
+    assert per_bay["season"].nunique().eq(SEASONS).all()
+    for fixed in ("glazing", "irrigation", "bay_area_m2", "bay_row"):
+        assert per_bay[fixed].nunique().eq(1).all(), fixed
+    # settings are the bay's own, adjusted a little each season: most of their spread is
+    # between bays (intraclass share well above a half)
+    within = per_bay["co2_ppm"].var().mean()
+    assert within < 0.1 * df["co2_ppm"].var()
+
+
+def test_row_folds_twin_differs_only_in_its_folds():
+    demo = load_spec(ROOT / "specs" / "greenhouse.yaml")
+    twin = load_spec(ROOT / "specs" / "greenhouse_row_folds.yaml")
+    assert demo.folds.groups == "bay_id" and twin.folds.groups is None
+    assert twin.test.groups == "bay_id" and demo.test.groups is None
+    same = ("data", "metrics", "pick", "store", "models", "limits", "explain", "checks")
+    for field in same:
+        assert getattr(demo, field) == getattr(twin, field), field
+    assert (demo.folds.k, demo.folds.repeats, demo.folds.seed) == \
+        (twin.folds.k, twin.folds.repeats, twin.folds.seed)
+    assert (demo.test.fraction, demo.test.seed) == (twin.test.fraction, twin.test.seed)

@@ -191,7 +191,7 @@ def test_chunks_and_formats_give_the_same_predictions_as_one_call(rows, demo_bui
                                expected, rtol=1e-14 if model.family.coefficients else 0,
                                atol=0)
     missing = df[features].isna().sum()
-    assert one.ignored == ["yield_kg_m2"] and one.missing == missing[missing > 0].to_dict()
+    assert one.ignored == ["bay_id", "yield_kg_m2"] and one.missing == missing[missing > 0].to_dict()
     assert one.missing["leaf_temp_c"] >= 3
 
 
@@ -233,7 +233,7 @@ def test_the_cli_reports_counts_and_refuses_to_overwrite(rows, demo_built, tmp_p
     first = run("--keep", "bay_row", "-q")
     assert first.exit_code == 0, first.output
     assert "predicted 40 rows in 1 chunk(s)" in first.output
-    assert "ignored 2 column(s) the model does not use: yield_kg_m2, note" in first.output
+    assert "ignored 3 column(s) the model does not use: bay_id, yield_kg_m2, note" in first.output
     before = (tmp_path / "p.csv").read_bytes()
     again = run()
     assert again.exit_code == 2 and "already exists" in again.output

@@ -68,6 +68,22 @@ REFUSED = [
     ("folds: {k: 1}\nmodels:\n  m: {family: linear}\n", ["folds.k", "greater than or equal to 2"]),
     ("folds: {k: 5, repeats: 0}\nmodels:\n  m: {family: linear}\n", ["folds.repeats"]),
     ("folds: {k: five}\nmodels:\n  m: {family: linear}\n", ["folds.k", "integer"]),
+    ("folds: {scheme: groups}\nmodels:\n  m: {family: linear}\n",
+     ["folds", "scheme groups needs folds.groups"]),
+    ("folds: {scheme: time}\nmodels:\n  m: {family: linear}\n",
+     ["scheme time needs folds.order"]),
+    ("folds: {scheme: rows, groups: site}\nmodels:\n  m: {family: linear}\n",
+     ["groups belongs to scheme groups, but the scheme is rows"]),
+    ("folds: {scheme: time, order: day, groups: site}\nmodels:\n  m: {family: linear}\n",
+     ["not both"]),
+    ("folds: {scheme: blocks}\nmodels:\n  m: {family: linear}\n",
+     ["folds.scheme", "'rows', 'groups' or 'time'"]),
+    ("folds: {order: day, repeats: 3}\nmodels:\n  m: {family: linear}\n",
+     ["repeats must be 1 (got repeats=3)"]),
+    ("folds: {groups: y}\nmodels:\n  m: {family: linear}\n",
+     ["folds.groups names the target 'y'"]),
+    ("checks: {allow: [id_colum]}\nmodels:\n  m: {family: linear}\n",
+     ["checks.allow", "unknown check 'id_colum'", "Did you mean 'id_column'"]),
     ("models: {}\n", ["models"]),
     ("modles:\n  m: {family: linear}\n", ["unknown field 'modles'", "Did you mean 'models'"]),
     ("models:\n  m: {family: linear}\n  m: {family: forest}\n", ["duplicate key 'm'"]),
@@ -89,6 +105,9 @@ def test_refused_specs_name_the_field(extra, words):
     ("name: t\ntest: {fraction: 1.5}\n", ["test.fraction", "less than 1", "data"]),
     ("name: t\ndata: {path: d.csv, target: y}\ntest: {fraction: 0.2, column: c}\n"
      "models: {m: {family: linear}}\n", ["exactly one of fraction, file or column"]),
+    ("name: t\ndata: {path: d.csv, target: y}\ntest: {fraction: 0.2, groups: site}\n"
+     "folds: {order: day}\nmodels: {m: {family: linear}}\n",
+     ["test.groups does not go with time-ordered folds"]),
 ])
 def test_refused_documents(text, words):
     with pytest.raises(SpecError) as info:

@@ -363,3 +363,73 @@ def test_a_class_sweep_lands_on_a_server_as_on_a_file(pg, tmp_path):
     q = "select probabilities from test_predictions order by cell_id, \"row\""
     assert server.query(q)["probabilities"].map(list).tolist() == \
         Store(tmp_path / "f.duckdb").query(q)["probabilities"].map(list).tolist()
+
+
+# -- fold schemes and findings on a server ------------------------------------------------------
+def test_grouped_and_time_sweeps_with_findings_on_a_server_answer_as_on_a_file(pg, tmp_path):
+    """A grouped sweep (with a finding) and a time-ordered sweep on a server: the same
+    rows, findings, picks and comparisons as the same sweeps in a DuckDB file, and a rerun
+    on the server reuses both sweeps' scores and findings. The clinic and day columns are
+    invented for the test."""
+    from runner import compare_table, pick_table
+    from runner.read.queries import findings
+    from runner.write.engine import run_sweep
+    from runner.write.spec import load_spec
+
+    df = diabetes_frame()
+    df["clinic"] = [f"c{i % 30:02d}" for i in range(len(df))]
+    df["day"] = [i // 4 for i in range(len(df))]
+    df["patient_id"] = [i // 3 for i in range(len(df))]  # a group key, unchecked off row folds
+    df["record_no"] = range(len(df))  # an identifier as a feature
+    df.to_csv(tmp_path / "clinics.csv", index=False)
+    grouped = write_spec(tmp_path, MODELS, data="clinics.csv", name="grouped.yaml")
+    grouped.write_text(grouped.read_text().replace(
+        "  target: progression\n", "  target: progression\n  drop: [day]\n").replace(
+        "  seed: 17\n", "  seed: 17\n  groups: clinic\n"))
+    timed = write_spec(tmp_path, MODELS, data="clinics.csv", name="timed.yaml")
+    timed.write_text(timed.read_text().replace(
+        "  target: progression\n", "  target: progression\n  drop: [clinic, record_no]\n").replace(
+        "  k: 3\n  repeats: 2\n  seed: 17\n", "  k: 3\n  seed: 17\n  order: day\n  gap: 1\n"))
+    server, file = Store(pg.create_database("team_schemes")), Store(tmp_path / "f.duckdb")
+    ids = {}
+    for store in (server, file):
+        for spec_path in (grouped, timed):
+            ids[(store.path, spec_path.name)] = run_sweep(load_spec(spec_path), store=store,
+                                                          jobs=1).sweep_id
+    for name in ("grouped.yaml", "timed.yaml"):
+        a, b = ids[(server.path, name)], ids[(file.path, name)]
+        for read in (pick_table, compare_table, findings):
+            mine, theirs = read(server, a).table, read(file, b).table
+            pd.testing.assert_frame_equal(mine, theirs, check_exact=False, rtol=1e-12)
+        row = server.query("select scheme, plan_column, plan from sweeps where sweep_id = ?",
+                           [a]).iloc[0]
+        assert row["scheme"] == {"grouped.yaml": "groups", "timed.yaml": "time"}[name]
+        assert json.loads(row["plan"])["k"] == 3
+    assert findings(server, ids[(server.path, "grouped.yaml")]).table["kind"].tolist() == \
+        ["id_column"]
+    assert findings(server, ids[(server.path, "timed.yaml")]).table.empty
+    again = run_sweep(load_spec(grouped), store=server, jobs=1)
+    assert again.n_reused == again.n_cells
+    assert findings(server, again.sweep_id).table["column_name"].tolist() == ["record_no"]
+
+
+def test_a_server_store_of_schema_version_2_is_upgraded(pg, tmp_path, diabetes_csv):
+    from runner.store import SCHEMA_VERSION
+    from runner.write.engine import run_sweep
+    from runner.write.spec import load_spec
+
+    name = "team_upgrade"
+    url = pg.create_database(name)
+    spec = load_spec(write_spec(tmp_path, MODELS))
+    run_sweep(spec, store=Store(url), jobs=1)
+    pg.psql("drop table findings; alter table sweeps drop column scheme, drop column "
+            "plan_column, drop column plan, drop column checks_key; update foldwise_meta "
+            "set value = '2' where key = 'schema_version'", name)
+    upgraded = Store(url)
+    assert upgraded.query("select count(*) as n from sweeps where scheme is null")["n"][0] == 1
+    again = run_sweep(spec, store=upgraded, jobs=1)
+    assert again.n_reused == again.n_cells
+    assert pg.psql("select value from foldwise_meta where key = 'schema_version'",
+                   name).strip() == str(SCHEMA_VERSION)
+    assert pg.psql(f"select scheme from sweeps where sweep_id = '{again.sweep_id}'",
+                   name).strip() == "rows"

@@ -121,3 +121,37 @@ def test_a_store_of_schema_version_2_gains_the_class_columns(explained, tmp_path
     assert len(sizes) > 0 and sizes["n_terms"].isna().all()  # known only to newer sweeps
     upgraded.ensure_schema()  # the upgrade step is idempotent
     merge_store(upgraded, store.path)
+
+
+def _as_version_2(path):
+    """Turn a store file back into what schema version 2 looked like: no plan columns on
+    sweeps, no findings table."""
+    with duckdb.connect(str(path)) as con:
+        con.execute("drop view cell_summary")
+        con.execute("drop table findings")
+        for column in ("scheme", "plan_column", "plan", "checks_key"):
+            con.execute(f"alter table sweeps drop column {column}")
+        con.execute("update foldwise_meta set value = '2' where key = 'schema_version'")
+
+
+def test_a_store_of_schema_version_2_is_upgraded_and_merges(explained, tmp_path):
+    _, store, sweep_id = explained
+    old = Store(tmp_path / "old.duckdb")
+    merge_store(old, store.path)
+    _as_version_2(old.path)
+    fresh = Store(tmp_path / "fresh.duckdb")
+    result = merge_store(fresh, old.path)  # a version-2 store lacks findings: the rest merges
+    assert result.new_sweeps == [sweep_id] and result.rows["findings"] == 0
+    assert len(_table(fresh, "fold_scores")) == len(_table(store, "fold_scores"))
+    upgraded = Store(old.path)
+    assert upgraded.query("select scheme, plan_column, checks_key from sweeps").isna().all(
+        axis=None)
+    assert upgraded.query("select count(*) as n from findings")["n"].tolist() == [0]
+    assert upgraded.query("select value from foldwise_meta")["value"].tolist() == \
+        [str(SCHEMA_VERSION)]
+    with duckdb.connect(str(old.path)) as con:  # the upgrade step runs again harmlessly
+        con.execute("update foldwise_meta set value = '2' where key = 'schema_version'")
+    again = Store(old.path)
+    assert len(again.query("select * from sweeps")) == 1
+    assert again.query("select value from foldwise_meta")["value"].tolist() == \
+        [str(SCHEMA_VERSION)]

@@ -19,8 +19,8 @@ from .compare import holm, t_from_moments
 from ..errors import ModelError, QueryError
 from ..families import get_family, nearest
 from .picks import RULES, TOLERANCE, check_rule, check_se, grid_edges
-from .results import (CellStats, Coefficients, Comparison, ComplexityTable, Importances, Picks,
-                      Stability, Summary, SweepFacts, SweepList)
+from .results import (CellStats, Coefficients, Comparison, ComplexityTable, Findings,
+                      Importances, Picks, Stability, Summary, SweepFacts, SweepList)
 from ..store import Store
 from ..store.labels import Selection
 
@@ -30,7 +30,7 @@ __all__ = ["sweeps", "sweep_facts", "summary", "cell_stats", "picks", "complexit
            "varying_params", "sweep_record", "sweep_status", "coverage", "process_alive",
            "cell_record", "cell_scores", "built_models", "model_record", "coefficient_table",
            "sweep_labels", "unchanged_sweep", "sweep_records", "previous_sweep", "shared_cells",
-           "paired_changes", "history_cells", "sweep_rows"]
+           "paired_changes", "history_cells", "sweep_rows", "findings"]
 
 
 # -- sweeps ------------------------------------------------------------------------------
@@ -45,7 +45,7 @@ def sweeps(store: Store, selection: Selection | None = None) -> SweepList:
     df = store.query(f"""
         select s.sweep_id, s.name, s.status, s.started_at,
                round(epoch(s.finished_at - s.started_at), 1) as seconds,
-               s.n_train, s.n_test, s.k, s.repeats,
+               s.n_train, s.n_test, coalesce(s.scheme, 'rows') as scheme, s.k, s.repeats,
                (select count(*) from cells c where c.sweep_id = s.sweep_id) as cells,
                (select count(*) from fold_scores f where f.sweep_id = s.sweep_id) as fold_rows,
                s.data_sha256[1:12] as data, s.note, s.host, s.pid
@@ -113,7 +113,8 @@ def sweep_facts(store: Store, sweep_id: str | None = None) -> SweepFacts:
     """The resolved sweep with its metrics and their directions, folds, rule and target."""
     sweep_id = store.resolve_sweep(sweep_id)
     row = store.query("""select name, target, metrics, k, repeats, pick_rule, task,
-                                classes::varchar as classes
+                                classes::varchar as classes,
+                                coalesce(scheme, 'rows') as scheme
                          from sweeps where sweep_id = ?""", [sweep_id]).iloc[0]
     metrics = tuple(str(row["metrics"]).split(","))
     better = store.query("select metric, better from metrics where list_contains(?, metric)",
@@ -123,7 +124,7 @@ def sweep_facts(store: Store, sweep_id: str | None = None) -> SweepFacts:
                       k=int(row["k"]), repeats=int(row["repeats"]),
                       rule=str(row["pick_rule"] or "best"),
                       task=str(row["task"]) if isinstance(row["task"], str) else "regression",
-                      classes=_classes(row["classes"]))
+                      classes=_classes(row["classes"]), scheme=str(row["scheme"]))
 
 
 def _classes(text) -> tuple:
@@ -162,6 +163,16 @@ def sweep_record(store: Store, sweep_id: str) -> dict:
     counts = {k: float(v) if k == "fit_seconds" else int(v) for k, v in counts.items()}
     counts["reused_from"] = sources["reused_from"].tolist()
     return {**sweep, "counts": counts}
+
+
+def findings(store: Store, sweep_id: str | None = None) -> Findings:
+    """What the sweep's leakage checks found, errors first, then by check and column."""
+    facts = sweep_facts(store, sweep_id)
+    table = store.query("""select kind, severity, column_name, value, message, allowed
+                           from findings where sweep_id = ?
+                           order by severity = 'warning', kind, column_name""",
+                        [facts.sweep_id])
+    return Findings(facts, table)
 
 
 def model_order(store: Store, sweep_id: str) -> list[str]:

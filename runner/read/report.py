@@ -17,14 +17,14 @@ from ..metrics import get_metric, metric_label
 from .class_figures import calibration_figure, roc_figure
 from .plots import (NEUTRALS, complexity_figure, figure_svg, importance_figure,
                     model_colours, models_figure, predictions_figure, tree_figure)
-from .queries import (compare, complexity_table, importance_table, picks, stability_table,
-                      summary, sweep_facts, sweep_record, tree_fold_table)
+from .queries import (compare, complexity_table, findings, importance_table, picks,
+                      stability_table, summary, sweep_facts, sweep_record, tree_fold_table)
 from ..store import Store
 from .verdict import decision
-from .views import (METHODS, STABILITY_COLUMNS, TREE_FOLD_COLUMNS, View, columns_view,
-                    edge_notes,
-                    compare_view, complexity_view, importance_matrix,
-                    picks_view, reuse_text, stability_sentences, summary_view, time_text)
+from .views import (METHODS, ORDERED_FOLDS_NOTE, STABILITY_COLUMNS, TREE_FOLD_COLUMNS, View,
+                    columns_view, compare_view, complexity_view, edge_notes, findings_view,
+                    importance_matrix, picks_view, plan_sentence, reuse_text,
+                    stability_sentences, summary_view, time_text)
 
 __all__ = ["report_context", "render_report", "write_report", "report_path", "CAUTIONS"]
 
@@ -37,7 +37,9 @@ CAUTIONS = [
     "because of a test score, the test split stops being a fair check.",
     "Check for leakage before trusting any score: columns that would not be known when the "
     "model is used, rows duplicated across the split, identifiers that stand in for the "
-    "target.",
+    "target. The leakage checks above catch some of these, not all; and when rows come in "
+    "groups (plants, bays, patients, sites) or in time order, only folds that keep a group "
+    "whole, or fit on the past alone, say how the model will do on new ones.",
     "Check for drift: these scores hold for data like the data tuned on. A change of season, "
     "site, sensor or population can make every number here optimistic.",
     "Importances describe what these fitted models use, not what causes the target. "
@@ -123,6 +125,7 @@ def report_context(store: Store, sweep_id: str | None = None, *, se: str = "plai
         if sweep.get(key) is not None and not pd.isna(sweep[key]):
             sweep[key] = pd.Timestamp(sweep[key]).strftime("%Y-%m-%d %H:%M:%S")
     compare_shown = compare_view(pairs)
+    checks_shown = findings_view(findings(store, sid))
     summary_shown = summary_view(summary(store, sid))
     both_picks = picks(store, sid, se=se)
     picks_shown = picks_view(both_picks)
@@ -149,6 +152,9 @@ def report_context(store: Store, sweep_id: str | None = None, *, se: str = "plai
         "stability": _html(columns_view(stab, STABILITY_COLUMNS)) if len(stab) else None,
         "tree_folds": _html(columns_view(trees, TREE_FOLD_COLUMNS)) if len(trees) else None,
         "figures": figures, "cautions": CAUTIONS, "neutrals": NEUTRALS,
+        "plan": plan_sentence(sweep),
+        "checks": _html(checks_shown), "checks_title": checks_shown.title,
+        "ordered_note": ("Time-ordered folds: " + ORDERED_FOLDS_NOTE) if facts.ordered else "",
     }
 
 

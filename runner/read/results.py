@@ -11,7 +11,7 @@ import pandas as pd
 
 __all__ = ["SweepFacts", "Coverage", "Summary", "CellStats", "Picks", "ComplexityTable",
            "Comparison", "Importances", "Stability", "Coefficients", "SweepList", "SweepDiff",
-           "ModelHistory"]
+           "ModelHistory", "Findings"]
 
 
 @dataclass(frozen=True)
@@ -28,6 +28,12 @@ class SweepFacts:
     rule: str  # the spec's pick rule
     task: str = "regression"
     classes: tuple = ()  # class labels in the models' probability order (classification)
+    scheme: str = "rows"  # how the folds cut the rows: rows, groups or time
+
+    @property
+    def ordered(self) -> bool:
+        """True if the folds follow time order, so they are not exchangeable draws."""
+        return self.scheme == "time"
 
     @property
     def metric(self) -> str:
@@ -229,4 +235,13 @@ class ModelHistory:
     better: str
     se: str
     rule: str | None  # None: each sweep's own rule
+    table: pd.DataFrame
+
+
+@dataclass(frozen=True)
+class Findings:
+    """The findings of a sweep's leakage checks: kind, severity, column, value, message,
+    allowed; errors first."""
+
+    facts: SweepFacts
     table: pd.DataFrame

@@ -13,8 +13,8 @@ import pandas as pd
 from .compare import APPROXIMATE_NOTE
 from ..families import get_family
 from ..metrics import metric_label
-from .results import (Coefficients, Comparison, ComplexityTable, Coverage, ModelHistory, Picks,
-                      Summary, SweepDiff, SweepList)
+from .results import (Coefficients, Comparison, ComplexityTable, Coverage, Findings,
+                      ModelHistory, Picks, Summary, SweepDiff, SweepList)
 
 __all__ = ["View", "number", "mean_se", "params_text", "p_text", "value_text", "rule_label",
            "cell_text", "pair_sentence", "pair_sentences", "summary_view", "picks_view",
@@ -23,7 +23,8 @@ __all__ = ["View", "number", "mean_se", "params_text", "p_text", "value_text", "
            "time_text", "reuse_text", "TIME_MEANING", "edge_notes",
            "models_view", "card_view", "coefficients_view", "built_sentences",
            "prediction_sentences", "plain_text", "labels_text", "sweeps_view", "removal_view",
-           "diff_view", "history_view"]
+           "diff_view", "history_view",
+           "finding_lines", "findings_view", "plan_sentence", "ORDERED_FOLDS_NOTE"]
 
 
 @dataclass(frozen=True)
@@ -369,6 +370,8 @@ def compare_view(result: Comparison) -> View:
              f"t-test, df = {n - 1}")
     numeric = [c for c in shown.columns if c != "pair (a − b)"]
     caveats = (f"note: {APPROXIMATE_NOTE}",) if len(df) else ()
+    if len(df) and result.facts.ordered:
+        caveats += (f"note: {ORDERED_FOLDS_NOTE}",)
     if len(df) > 1:
         caveats += (f"note: {len(df)} pairwise tests were made; 'Holm p' adjusts each p for "
                     "all of them (Holm 1979), and a difference is called clear only when that "
@@ -433,6 +436,63 @@ def complexity_view(result: ComplexityTable) -> View:
         notes = ("other params at their defaults: " + ", ".join(
             f"{k}={value_text(v)}" for k, v in result.fixed_params.items()),)
     return View(title, shown, tuple(numeric), sentences=notes)
+
+
+# -- the plan and the leakage checks ---------------------------------------------------------
+ORDERED_FOLDS_NOTE = (
+    "these folds follow time order, so they are not exchangeable draws: later folds fit on "
+    "more rows and score other periods. The SE is the spread of the fold scores over time, "
+    "not a sampling error, and the corrected t-test assumes exchangeable folds, so its p is "
+    "a rough guide at best; look at the fold-by-fold differences (plot models) as well.")
+"""What the SE and the paired comparison mean when the folds are ordered in time."""
+
+
+def finding_lines(findings: pd.DataFrame | Findings) -> tuple[str, ...]:
+    """One line per finding of the leakage checks: 'warning (group_key): ...'."""
+    findings = findings.table if isinstance(findings, Findings) else findings
+    return tuple(f"{r.severity}{' (allowed)' if r.allowed else ''} ({r.kind}): {r.message}"
+                 for r in findings.itertuples(index=False))
+
+
+def findings_view(findings: pd.DataFrame | Findings) -> View:
+    """The leakage checks' findings as a table: severity, check, column and what it means."""
+    findings = findings.table if isinstance(findings, Findings) else findings
+    n = len(findings)
+    title = (f"leakage checks: {_count(n, 'finding', 'findings')}" if n else
+             "leakage checks: nothing found")
+    shown = pd.DataFrame({
+        "severity": [f"{s} (allowed)" if a else s
+                     for s, a in zip(findings["severity"], findings["allowed"])],
+        "check": findings["kind"], "column": findings["column_name"].fillna(""),
+        "finding": findings["message"]})
+    return View(title, shown)
+
+
+def plan_sentence(record: dict) -> str:
+    """A sweep's plan in one sentence, from its stored record (scheme, column, plan)."""
+    plan = record.get("plan")
+    plan = json.loads(plan) if isinstance(plan, str) else (plan or {})
+    scheme = record.get("scheme") or "rows"
+    k, repeats = record.get("k"), record.get("repeats")
+    folds = {"groups": f"{k} folds × {repeats} repeats over whole groups of "
+                       f"{record.get('plan_column')}",
+             "time": f"{k} time-ordered folds by {record.get('plan_column')} (expanding "
+                     f"window, gap {plan.get('gap', 0)})"}.get(
+        scheme, f"{k} folds × {repeats} repeats over rows")
+    test = plan.get("test", {})
+    if "file" in test:
+        held = f"the rows of test file {test['file']}"
+    elif "column" in test:
+        held = f"the rows marked by column {test['column']}"
+    elif "order" in test:
+        held = f"the last {test.get('fraction', 0):g} of the values of {test['order']}"
+    elif "groups" in test:
+        held = f"{test['fraction']:g} of the groups of {test['groups']} (seed {test['seed']})"
+    else:
+        held = f"{test['fraction']:g} of the rows (seed {test['seed']})" if test else \
+            "held-out rows"
+    strata = ", stratified by class" if plan.get("stratified") else ""
+    return f"{folds}{strata}, seed {record.get('plan_seed')}; test split: {held}"
 
 
 # -- the report's own tables -----------------------------------------------------------------

@@ -323,11 +323,15 @@ class Store:
         self._transaction(work, what="writing")
 
     def begin_sweep(self, sweep: dict, cells: pd.DataFrame, metrics: dict[str, str],
-                    labels: dict[str, str] | None = None) -> None:
-        """Record a new sweep (status 'running'), its cells, the metric directions and its
-        labels (checked by `labels.check_labels` first)."""
+                    labels: dict[str, str] | None = None,
+                    findings: pd.DataFrame | None = None) -> None:
+        """Record a new sweep (status 'running'), its cells, the metric directions, its
+        labels (checked by `labels.check_labels` first) and the findings of its leakage
+        checks, in one transaction."""
         row = dict(sweep)
         row["versions"] = json.dumps(row.get("versions", {}), sort_keys=True)
+        if isinstance(row.get("plan"), dict):
+            row["plan"] = json.dumps(row["plan"], sort_keys=True)
         metric_df = pd.DataFrame({"metric": list(metrics), "better": list(metrics.values())})
         label_df = pd.DataFrame({"sweep_id": row["sweep_id"], "key": list(labels or {}),
                                  "value": list((labels or {}).values())},
@@ -343,6 +347,9 @@ class Store:
             if len(label_df):
                 con.register("_labels", label_df)
                 con.execute("insert into sweep_labels by name select * from _labels")
+            if findings is not None and len(findings):
+                con.register("_findings", findings.assign(sweep_id=row["sweep_id"]))
+                con.execute("insert into findings by name select * from _findings")
 
         self._transaction(work, what="recording the sweep")
 

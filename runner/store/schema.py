@@ -15,8 +15,9 @@ SCHEMA_VERSION = 3
 models (`models`, `model_coefficients`), the signed coefficients of explained linear cells
 (`coefficients`), a sweep's labels (`sweep_labels`), note and plan identity (sweeps.note,
 sweeps.plan, so two sweeps' folds can be told equal or not), the size of an explained
-cell's refit (explained.n_terms); new tables by `create table if not exists`, new columns
-by UPGRADE_COLUMNS."""
+cell's refit (explained.n_terms), the fold scheme (sweeps.scheme, .plan_column,
+.checks_key) and the leakage checks' `findings`; new tables by `create table if not
+exists`, new columns by UPGRADE_COLUMNS."""
 DEFAULT_STORE = Path("results") / "foldwise.duckdb"
 
 TABLE_SQL = """
@@ -27,7 +28,8 @@ create table if not exists sweeps (
     n_train integer, n_test integer, k integer, repeats integer, plan_seed bigint,
     metrics varchar, pick_rule varchar, started_at timestamp, finished_at timestamp,
     status varchar, versions json, host varchar, user_name varchar, pid integer,
-    n_reused integer, task varchar, classes json, note varchar, plan json);
+    n_reused integer, task varchar, classes json, note varchar, plan json, scheme varchar,
+    plan_column varchar, checks_key varchar);
 create table if not exists sweep_labels (
     sweep_id varchar, key varchar, value varchar, primary key (sweep_id, key));
 create table if not exists metrics (metric varchar primary key, better varchar);
@@ -86,7 +88,20 @@ create table if not exists models (
 create table if not exists model_coefficients (
     model_id varchar, class_label varchar, position integer, term varchar, feature varchar,
     level varchar, coefficient double, standardised double, mean double, scale double);
+-- leakage checks (runner/write/leakage.py): one row per finding of a sweep's checks
+create table if not exists findings (
+    sweep_id varchar, kind varchar, severity varchar, column_name varchar, value double,
+    message varchar, allowed boolean);
 """
+
+UPGRADE_SQL = [
+    "alter table sweeps add column if not exists scheme varchar",
+    "alter table sweeps add column if not exists plan_column varchar",
+    "alter table sweeps add column if not exists plan json",
+    "alter table sweeps add column if not exists checks_key varchar",
+]
+"""Columns added to existing tables since schema 2, each safe to run again (new tables come
+from TABLE_SQL's `create table if not exists`)."""
 
 VIEW_SQL = """
 create or replace view cell_summary as
@@ -104,7 +119,7 @@ sweep long after it ran, so a merge copies the models a store lacks by their id)
 
 TABLES = ("sweeps", "sweep_labels", "metrics", "cells", "fold_scores", "test_scores", "failures",
           "importances", "fold_importances", "tree_folds", "tree_nodes", "test_predictions",
-          "explained", "coefficients") + MODEL_TABLES
+          "explained", "coefficients", "findings") + MODEL_TABLES
 """Every table of results, in the order a copy must fill them."""
 
 UPGRADE_COLUMNS = (
@@ -113,9 +128,12 @@ UPGRADE_COLUMNS = (
     ("test_predictions", "observed_class varchar"),
     ("test_predictions", "predicted_class varchar"),
     ("test_predictions", "probabilities double[]"), ("explained", "n_terms integer"),
+    ("sweeps", "scheme varchar"), ("sweeps", "plan_column varchar"),
+    ("sweeps", "checks_key varchar"),
 )
 """(table, column definition) added since a table was first created: an older store gains
 them on upgrade (idempotent: `add column if not exists`)."""
 
-SINCE = {"coefficients": 3, "models": 3, "model_coefficients": 3, "sweep_labels": 3}
+SINCE = {"coefficients": 3, "models": 3, "model_coefficients": 3, "sweep_labels": 3,
+         "findings": 3}
 """The schema version that added a table: an export or store older than it lacks it."""

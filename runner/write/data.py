@@ -163,6 +163,8 @@ class Frame:
     test_mask: np.ndarray | None = None  # from a boolean test column, if any
     task: str = "regression"  # or "classification"
     classes: list = field(default_factory=list)  # the class labels, sorted (classification)
+    plan_values: dict = field(default_factory=dict)  # plan column -> its values, every row
+    others: pd.DataFrame | None = None  # the file's other columns (drop, plan, test), as read
 
     @property
     def features(self) -> list[str]:
@@ -397,16 +399,60 @@ def load_frame(spec, *, max_bytes: int | None = None) -> Frame:
             raise DataError(f"test column '{col}' of {path} must be boolean (true/false or "
                             "1/0, no missing values).")
         dropped.append(col)
+    plan_values = {}
+    for role, column in spec.plan_columns.items():
+        _need_columns(df, [column], f"column in `{role}`", path)
+        plan_values[column] = _plan_values(df[column], role, column, path, rows)
     task = infer_task(df[target], spec.task, target, path)
     if task == "classification":
         y, classes = _check_classes(df[target], target, path, rows)
     else:
         y, classes = _check_target(df[target], target, path, rows), []
+    dropped += [c for c in plan_values if c not in spec.data.categorical and c not in dropped]
     features = df.drop(columns=[target] + dropped)
     if features.shape[1] == 0:
-        raise DataError(f"{path} has no feature columns left after removing the target and "
-                        "`data.drop`.")
+        raise DataError(f"{path} has no feature columns left after removing the target, "
+                        "`data.drop` and the columns the plan reads (folds.groups, "
+                        "folds.order, test.groups).")
     X, numeric, cats = type_features(features, list(spec.data.categorical), path, rows=rows,
                                      infinite=spec.data.infinite)
     return Frame(X=X, y=y, numeric=numeric, categorical=cats, target=target, sha256=sha,
-                 source=path, test_mask=test_mask, task=task, classes=classes)
+                 source=path, test_mask=test_mask, task=task, classes=classes,
+                 plan_values=plan_values,
+                 others=df[[c for c in dict.fromkeys(dropped) if c in df.columns]])
+
+
+def _plan_values(s: pd.Series, role: str, column: str, path: Path, rows: _Rows) -> np.ndarray:
+    """A plan column's values, every row: group names as read (text as text), or the time
+    order as numbers or dates (ISO 8601 text). Missing values are refused: a row without a
+    group or a time cannot be placed on either side of a split."""
+    missing = s.isna().to_numpy()
+    if missing.any():
+        first = ", ".join(rows.number(i) for i in np.flatnonzero(missing)[:5])
+        raise DataError(f"column '{column}' of {path}, named by `{role}`, has "
+                        f"{int(missing.sum())} missing value(s) (first at file lines {first}); "
+                        "every row needs one to be placed on one side of each split. Fill "
+                        "them or remove those rows.")
+    if role != "folds.order":
+        return s.astype(str).to_numpy() if s.dtype == object else s.to_numpy()
+    if pd.api.types.is_bool_dtype(s):
+        raise DataError(f"column '{column}' of {path}, named by `folds.order`, is true/false; "
+                        "the time order needs numbers (a day or period count) or dates.")
+    if pd.api.types.is_numeric_dtype(s):
+        values = s.to_numpy(dtype="float64")
+        if not np.isfinite(values).all():
+            i = int(np.flatnonzero(~np.isfinite(values))[0])
+            raise DataError(f"column '{column}' of {path}, named by `folds.order`, has an "
+                            f"infinite value at {rows(i)}; fix that row.")
+        return values
+    try:
+        when = pd.to_datetime(s.astype(str), format="ISO8601")
+        if when.dt.tz is not None:
+            when = when.dt.tz_convert("UTC").dt.tz_localize(None)
+    except (ValueError, TypeError, OverflowError):
+        sample = ", ".join(repr(v) for v in s.astype(str).unique()[:3])
+        raise DataError(f"column '{column}' of {path}, named by `folds.order`, holds text "
+                        f"that is not ISO 8601 dates (values such as {sample}); the time "
+                        "order needs numbers or dates written as YYYY-MM-DD (with a time "
+                        "if needed).") from None
+    return when.to_numpy(dtype="datetime64[ns]")

@@ -44,8 +44,10 @@ from .grid import Cell
 from ..metrics import METRICS
 from .prepare import Prepared, load_checked, prepare
 from ..read.queries import process_alive, unchanged_sweep
-from .resampling import REFIT, Fold, make_plan, plan_counts, plan_identity, refit_seed
-from .reuse import all_found, copy_scores, find_scores, version_note
+from ..read.views import finding_lines, plan_sentence
+from .leakage import refuse
+from .resampling import REFIT, Fold, plan_counts, refit_seed, resolve_scheme
+from .reuse import all_found, copy_scores, find_findings, find_scores, version_note
 from .spec import Spec
 from ..store import DEFAULT_STORE, Store
 from ..store.labels import check_labels, check_note
@@ -101,15 +103,20 @@ class SweepResult:
     n_fitted: int = 0  # cells with at least one fold or refit computed by this sweep
 
 
-def check_spec(spec: Spec, *, lift_limits: bool = False) -> tuple[pd.DataFrame, dict]:
-    """The plan of a sweep without fitting anything: cells and fits per model, plus facts
-    (among them the cost estimate). The size is checked against the limits first, by
-    arithmetic, so a plan too large is refused before the data are read."""
+def check_spec(spec: Spec, *, lift_limits: bool = False
+               ) -> tuple[pd.DataFrame, dict, pd.DataFrame]:
+    """The plan of a sweep without fitting anything: cells and fits per model, facts
+    (among them the plan and the cost estimate) and the leakage checks' findings. The size
+    is checked against the limits first, by arithmetic, so a plan too large is refused
+    before the data are read; a finding that is an error (and not allowed) is refused."""
     size = check_limits(spec, lifted=lift_limits)
     frame = load_checked(spec, max_bytes=data_limit_bytes(spec, lifted=lift_limits))
     check_plan_memory(spec, plan_counts(spec, frame)[0], lifted=lift_limits)
     size = plan_size(spec)  # the task is known now, and with it the metrics
-    plan = make_plan(spec, frame)
+    prep = Prepared(spec, frame)
+    plan = prep.plan
+    findings = prep.findings()
+    refuse(findings, f"spec {spec.source or spec.name}")
     Store(store_path(spec)).check_writable()
     rows = []
     for m in size.models:
@@ -125,14 +132,23 @@ def check_spec(spec: Spec, *, lift_limits: bool = False) -> tuple[pd.DataFrame, 
                                    f"{', '.join(map(str, frame.classes[:8]))}"
                                    f"{', ...' if len(frame.classes) > 8 else ''})"
                                    if frame.classes else ""),
-             "folds": f"{plan.k} folds x {plan.repeats} repeats (seed {plan.seed})"
-             + (", stratified by class" if frame.classes else ""),
+             "plan": plan_sentence(plan_record(spec, prep.identity)),
              "metrics": ", ".join(spec.metrics), "store": str(store_path(spec)),
              "estimate": size.estimate(),
              "limits": "lifted (--lift-limits)" if lift_limits else
              (f"cells {limits.cells:,}, folds {limits.folds:,}, fits {limits.fits:,}, data "
               f"{limits.data_mb:g} MiB (raise in the spec's `limits`)")}
-    return pd.DataFrame(rows), facts
+    return pd.DataFrame(rows), facts, findings
+
+
+def plan_record(spec: Spec, identity: dict) -> dict:
+    """The plan as a sweep records it: the scheme, the column it reads, the plan's identity
+    (test split, folds, seeds; what enters the cell ids), k, repeats and seed."""
+    scheme = resolve_scheme(spec)
+    return {"scheme": scheme.name,
+            "plan_column": getattr(spec.folds, scheme.column) if scheme.column else None,
+            "plan": identity, "k": spec.folds.k, "repeats": spec.folds.repeats,
+            "plan_seed": spec.folds.seed}
 
 
 def store_path(spec: Spec, override=None):
@@ -339,8 +355,13 @@ def run_sweep(spec: Spec, *, store: Store | None = None, jobs: int | None = None
         versions_changed = version_note(store, prep, found)
         if versions_changed:
             on_message(versions_changed)
-    if not quick:
-        prep.plan  # builds and checks the plan before anything is written
+    findings = find_findings(store, prep.checks_key) if quick else None
+    if findings is None:  # builds and checks the plan before anything is written
+        findings = prep.findings()
+    refuse(findings, f"spec {spec.source or spec.name}")
+    if on_message:
+        for line in finding_lines(findings):
+            on_message(line)
     hold = contextlib.ExitStack()
     n_jobs, capped = resolve_jobs(jobs or spec.jobs, force=force_jobs or bool(cluster))
     if capped and on_message and executor is None:
@@ -365,16 +386,14 @@ def run_sweep(spec: Spec, *, store: Store | None = None, jobs: int | None = None
             "spec_path": str(spec.source) if spec.source else None, "spec_text": spec.text,
             "spec_sha256": spec.sha256, "data_path": str(prep.frame.source),
             "data_sha256": prep.frame.sha256, "target": prep.frame.target,
-            "n_train": n_train, "n_test": n_test, "k": spec.folds.k,
-            "repeats": spec.folds.repeats, "plan_seed": spec.folds.seed,
-            "metrics": ",".join(spec.metrics), "pick_rule": spec.pick,
-            "task": prep.frame.task,
+            "n_train": n_train, "n_test": n_test, **plan_record(spec, prep.identity),
+            "checks_key": prep.checks_key, "metrics": ",".join(spec.metrics),
+            "pick_rule": spec.pick, "task": prep.frame.task,
             "classes": json.dumps([_label(c) for c in prep.frame.classes]),
             "started_at": started_at, "finished_at": None, "status": "running",
             "versions": _versions(), "host": host, "user_name": _user(), "pid": os.getpid(),
-            "note": note or None,
-            "plan": json.dumps(plan_identity(spec, prep.frame.task), sort_keys=True)},
-            cells_df, {m: METRICS[m].better for m in spec.metrics}, labels)
+            "note": note or None},
+            cells_df, {m: METRICS[m].better for m in spec.metrics}, labels, findings)
         done, reused, copied = copy_scores(store, sweep_id, prep, found)
 
         tasks = [] if len(reused) == len(prep.cells) else _plan_tasks(

@@ -9,6 +9,7 @@ from .data import Frame, load_frame
 from ..errors import DataError
 from ..families import FAMILIES
 from .grid import Cell, expand_spec, score_versions
+from .leakage import checks_key, findings_frame, run_checks
 from ..metrics import METRICS
 from .resampling import REFIT, Plan, make_plan, plan_counts, plan_identity, refit_seed
 from .spec import Spec
@@ -24,6 +25,7 @@ class Prepared:
 
     def __init__(self, spec: Spec, frame: Frame, cells: list[Cell] | None = None):
         self.spec, self.frame, self.cells = spec, frame, cells or []
+        self.identity = plan_identity(spec, frame.task)
         self._plan: Plan | None = None
         self._split: dict | None = None
 
@@ -44,6 +46,15 @@ class Prepared:
                                X_test=frame.X.iloc[plan.test_rows],
                                y_test=frame.y[plan.test_rows])
         return self._split
+
+    @property
+    def checks_key(self) -> str:
+        """What this sweep's leakage findings depend on (see `leakage.checks_key`)."""
+        return checks_key(self.spec, self.frame, self.identity)
+
+    def findings(self):
+        """The leakage checks' findings on this data and plan, as rows (builds the plan)."""
+        return findings_frame(run_checks(self.spec, self.frame, self.plan))
 
     def fold_keys(self) -> list[tuple[int, int]]:
         """(repeat, fold) of every validation fold, then the refit's."""
@@ -96,7 +107,7 @@ def prepare(spec: Spec, *, lift_limits: bool = False, paths: bool = True) -> Pre
                                                                          lifted=lift_limits)))
     check_plan_memory(spec, plan_counts(spec, prep.frame)[0], lifted=lift_limits)
     prep.cells = expand_spec(spec, data_sha256=prep.frame.sha256,
-                             plan_identity=plan_identity(spec, prep.frame.task),
+                             plan_identity=prep.identity,
                              resolve_path=_path_resolver(prep),
                              n_features=len(prep.frame.features), task=prep.frame.task,
                              versions=score_versions())

@@ -1,21 +1,41 @@
-"""The plan: the held-out test rows and the repeated k-fold split of the training rows.
+"""The plan: the held-out test rows and the folds of the training rows, built from
+scikit-learn's own splitters so that anyone can rebuild them (README, "Rebuilding the folds
+yourself", gives every recipe). The spec's fold scheme and test split are resolved here, in
+one place (`resolve_scheme`, `resolve_holdout`), into records the rest of foldwise reads.
 
-Built from scikit-learn's own splitters so that anyone can rebuild the folds:
-test rows = train_test_split(np.arange(n_rows), test_size=f, random_state=seed)[1];
-training rows = the rest, in file order; folds = RepeatedKFold(n_splits=k, n_repeats=r,
-random_state=seed).split(training_rows), the i-th split being repeat i // k, fold i % k."""
+Fold schemes, over the training rows in file order (the i-th split is repeat i // k, fold
+i % k):
+- `rows`: RepeatedKFold(n_splits=k, n_repeats=r, random_state=seed); for a class target
+  RepeatedStratifiedKFold (same arguments, y = the training rows' classes).
+- `groups`: one numpy RandomState(seed), handed from repeat to repeat as RepeatedKFold does,
+  gives each repeat's GroupKFold(n_splits=k, shuffle=True, random_state=that RandomState);
+  groups = the column's values of the training rows. No group is on both sides of a fold.
+  For a class target StratifiedGroupKFold with the same arguments: whole groups still, each
+  fold's class shares as close to the whole's as whole groups allow.
+- `time`: TimeSeriesSplit(n_splits=k, gap=gap) over the distinct values of the order column
+  (ascending); a fold's rows are those whose value its split holds. No repeats; time order
+  comes first, so a class target's folds are not stratified.
+
+Test splits of a fraction: `rows` train_test_split (stratify = the classes, for a class
+target); `groups` GroupShuffleSplit(n_splits=1) on the group column (test.groups, else
+folds.groups; whole groups, not stratified); `time` the rows holding the last
+ceil(fraction x distinct values) values of the order column, with the `gap` values before
+them in neither part. Training rows = the others, in file order.""" 
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
+from typing import Callable, Iterable
 
 import numpy as np
-import pandas as pd
 
 from ..errors import DataError
+from .spec import implied_scheme
 
-__all__ = ["Plan", "Fold", "make_plan", "fold_seed", "refit_seed", "REFIT", "plan_identity",
-           "plan_counts", "MIN_TEST_ROWS"]
+__all__ = ["Plan", "Fold", "Scheme", "Holdout", "SCHEMES", "HOLDOUTS", "make_plan",
+           "fold_seed", "refit_seed", "REFIT", "plan_identity", "plan_counts",
+           "resolve_scheme", "resolve_holdout", "stratifies", "MIN_TEST_ROWS"]
 
 MIN_TEST_ROWS = 2
 """The fewest test rows a plan may have: every metric, r2 included, needs two."""
@@ -39,6 +59,232 @@ def refit_seed(plan_seed: int) -> int:
 
 
 @dataclass(frozen=True)
+class Cut:
+    """What a splitter may look at: its rows' target and column values (positions 0..n-1
+    of the rows it cuts) and the plan's numbers."""
+
+    y: np.ndarray
+    values: np.ndarray | None  # the scheme's column (groups or order) for these rows
+    k: int
+    repeats: int
+    seed: int
+    gap: int = 0
+    stratify: bool = False  # a class target: keep each class's share where the scheme can
+
+    @property
+    def n(self) -> int:
+        return len(self.y)
+
+
+# -- fold schemes ----------------------------------------------------------------------------
+def _rows_folds(cut: Cut) -> Iterable:
+    from sklearn.model_selection import RepeatedKFold, RepeatedStratifiedKFold
+
+    if cut.stratify:
+        return RepeatedStratifiedKFold(n_splits=cut.k, n_repeats=cut.repeats,
+                                       random_state=cut.seed).split(np.arange(cut.n), cut.y)
+    return RepeatedKFold(n_splits=cut.k, n_repeats=cut.repeats,
+                         random_state=cut.seed).split(np.arange(cut.n))
+
+
+def _group_folds(cut: Cut) -> Iterable:
+    from sklearn.model_selection import GroupKFold, StratifiedGroupKFold
+
+    rng = np.random.RandomState(cut.seed)
+    for _ in range(cut.repeats):
+        if cut.stratify:
+            yield from StratifiedGroupKFold(n_splits=cut.k, shuffle=True,
+                                            random_state=rng).split(
+                np.arange(cut.n), cut.y, groups=cut.values)
+        else:
+            yield from GroupKFold(n_splits=cut.k, shuffle=True, random_state=rng).split(
+                np.arange(cut.n), groups=cut.values)
+
+
+def _time_folds(cut: Cut) -> Iterable:
+    from sklearn.model_selection import TimeSeriesSplit
+
+    times, codes = np.unique(cut.values, return_inverse=True)
+    for fit_t, valid_t in TimeSeriesSplit(n_splits=cut.k, gap=cut.gap).split(times):
+        yield np.flatnonzero(np.isin(codes, fit_t)), np.flatnonzero(np.isin(codes, valid_t))
+
+
+def _enough_rows(cut: Cut, column: str | None) -> str | None:
+    if cut.n < 2 * cut.k:
+        return (f"only {cut.n} training rows for {cut.k} folds; each fold needs at least 2 rows "
+                "to fit and 1 to score. Lower `folds.k` or supply more rows")
+    if cut.stratify:
+        labels, counts = np.unique(cut.y, return_counts=True)
+        few = [(c, n) for c, n in zip(labels.tolist(), counts.tolist()) if n < cut.k]
+        if few:
+            c, n = few[0]
+            return (f"class {c!r} has {n} training row(s), fewer than the {cut.k} folds: "
+                    "stratified folds need one in each. Lower `folds.k`, merge rare "
+                    "classes, or supply more rows")
+    return None
+
+
+def _enough_groups(cut: Cut, column: str | None) -> str | None:
+    n_groups = len(np.unique(cut.values))
+    if n_groups < 2:
+        return (f"column '{column}' (folds.groups) has a single value in the training rows, "
+                "so there is nothing to cut into folds. Name a column with one value per "
+                "group (plant, bay, patient, site, batch)")
+    if n_groups < cut.k:
+        return (f"the training rows hold {n_groups} group(s) of column '{column}' "
+                f"(folds.groups) for {cut.k} folds; grouped folds need at least one group per "
+                f"fold. Lower `folds.k` to at most {n_groups}, or group by a column with more "
+                "groups")
+    return _enough_rows(cut, column)
+
+
+def _enough_times(cut: Cut, column: str | None) -> str | None:
+    n_times = len(np.unique(cut.values))
+    per_fold = n_times // (cut.k + 1)
+    if per_fold < 1 or n_times - cut.gap - per_fold * cut.k <= 0:
+        # the fewest values T with T // (k + 1) >= 1 and T - gap - (T // (k + 1)) * k > 0,
+        # TimeSeriesSplit's own conditions
+        k, gap = cut.k, cut.gap
+        need = k + 1 + gap if gap <= k else (gap + 1 - k) * (k + 1) + k
+        return (f"the training rows hold {n_times} distinct value(s) of column '{column}' "
+                f"(folds.order); {cut.k} time-ordered folds with gap {cut.gap} need at least "
+                f"{need}. Lower `folds.k` or `folds.gap`, or order by a finer column")
+    return None
+
+
+@dataclass(frozen=True)
+class Scheme:
+    """One way of cutting training rows into folds: its column, whether it ignores any
+    grouping of the rows, the test split a fraction gets with it, the splitter, and why
+    rows cannot be cut. Add a scheme by adding a record."""
+
+    name: str
+    column: str | None  # the folds field naming its column: "groups", "order" or None
+    row_wise: bool  # rows fall into folds whatever group they belong to
+    holdout: str  # the HOLDOUTS entry a test fraction uses
+    split: Callable[[Cut], Iterable]
+    problem: Callable[[Cut, str | None], str | None]  # why these rows cannot be cut, or None
+
+
+SCHEMES = {s.name: s for s in (
+    Scheme("rows", None, True, "rows", _rows_folds, _enough_rows),
+    Scheme("groups", "groups", False, "groups", _group_folds, _enough_groups),
+    Scheme("time", "order", False, "time", _time_folds, _enough_times),
+)}
+
+
+def resolve_scheme(spec) -> Scheme:
+    """The fold scheme a spec asks for (written, or implied by folds.groups / folds.order)."""
+    return SCHEMES[implied_scheme(spec.folds)]
+
+
+# -- test splits -------------------------------------------------------------------------------
+def _rest(n: int, test: np.ndarray) -> np.ndarray:
+    keep = np.ones(n, dtype=bool)
+    keep[test] = False
+    return np.flatnonzero(keep)
+
+
+def _rows_holdout(n, fraction, seed, values, gap, strata=None):
+    from sklearn.model_selection import train_test_split
+
+    try:
+        test = train_test_split(np.arange(n), test_size=fraction, random_state=seed,
+                                stratify=strata)[1]
+    except ValueError as exc:  # only a stratified split can fail here
+        raise DataError(f"the test split cannot keep every class's share: {exc} Set "
+                        "`test.fraction` so that every class has a test row, or merge rare "
+                        "classes.") from None
+    test = np.sort(test)
+    return _rest(n, test), test
+
+
+def _rows_count(n, fraction, seed, values, gap):
+    """train_test_split holds out ceil(fraction x rows) rows."""
+    n_test = math.ceil(fraction * n)
+    return n - n_test, n_test
+
+
+def _groups_holdout(n, fraction, seed, values, gap, strata=None):
+    from sklearn.model_selection import GroupShuffleSplit
+
+    split = GroupShuffleSplit(n_splits=1, test_size=fraction, random_state=seed)
+    test = np.sort(next(split.split(np.arange(n), groups=values))[1])
+    return _rest(n, test), test
+
+
+def _groups_count(n, fraction, seed, values, gap):
+    """GroupShuffleSplit's own arithmetic, without importing it: the test groups are the
+    first ceil(fraction x groups) of numpy's RandomState(seed).permutation of the sorted
+    distinct groups (tests/test_resampling.py checks it against the splitter)."""
+    names, codes = np.unique(values, return_inverse=True)
+    chosen = np.random.RandomState(seed).permutation(len(names))[:math.ceil(fraction * len(names))]
+    n_test = int(np.isin(codes, chosen).sum())
+    return n - n_test, n_test
+
+
+def _time_holdout(n, fraction, seed, values, gap, strata=None):
+    times, codes = np.unique(values, return_inverse=True)
+    cut = len(times) - math.ceil(fraction * len(times))
+    return np.flatnonzero(codes < cut - gap), np.flatnonzero(codes >= cut)
+
+
+def _time_count(n, fraction, seed, values, gap):
+    train, test = _time_holdout(n, fraction, seed, values, gap)
+    return len(train), len(test)
+
+
+def _groups_problem(values, fraction, gap, column) -> str | None:
+    n_groups = len(np.unique(values))
+    if n_groups < 2 or math.ceil(fraction * n_groups) >= n_groups:
+        return (f"column '{column}' names {n_groups} group(s); holding out "
+                f"{fraction:g} of them leaves no group to train on. Lower `test.fraction`, or "
+                "group by a column with more groups")
+    return None
+
+
+def _time_problem(values, fraction, gap, column) -> str | None:
+    n_times = len(np.unique(values))
+    if n_times - math.ceil(fraction * n_times) - gap < 1:
+        return (f"column '{column}' (folds.order) has {n_times} distinct value(s); the last "
+                f"{fraction:g} of them as the test split and a gap of {gap} leave none to "
+                "train on. Lower `test.fraction` or `folds.gap`")
+    return None
+
+
+@dataclass(frozen=True)
+class Holdout:
+    """One way of holding out a fraction of the rows as the test split: the rows it takes
+    (scikit-learn's splitter), their count by arithmetic alone (no scikit-learn import, so
+    a rerun with nothing to fit stays quick), and why it cannot split a column, if so."""
+
+    name: str
+    rows: Callable  # (n, fraction, seed, values, gap, strata) -> (train rows, test rows)
+    count: Callable  # same arguments -> (n_train, n_test)
+    problem: Callable | None = None  # (values, fraction, gap, column) -> reason or None
+
+
+HOLDOUTS = {h.name: h for h in (
+    Holdout("rows", _rows_holdout, _rows_count),
+    Holdout("groups", _groups_holdout, _groups_count, _groups_problem),
+    Holdout("time", _time_holdout, _time_count, _time_problem),
+)}
+
+
+def resolve_holdout(spec) -> tuple[Holdout, str | None]:
+    """The test split a spec's fraction gets, and the column it reads: the fold scheme's
+    own (time order), else test.groups or the folds' groups, else random rows."""
+    scheme = resolve_scheme(spec)
+    if scheme.holdout == "time":
+        return HOLDOUTS["time"], spec.folds.order
+    column = spec.test.groups or (spec.folds.groups if scheme.column == "groups" else None)
+    if column is not None:
+        return HOLDOUTS["groups"], column
+    return HOLDOUTS[scheme.holdout], None
+
+
+# -- the plan -----------------------------------------------------------------------------------
+@dataclass(frozen=True)
 class Fold:
     """One validation fold: positions into the training rows, and its estimator seed."""
 
@@ -60,7 +306,9 @@ class Plan:
     repeats: int
     seed: int
     test_form: dict
-    stratified: bool = False
+    scheme: str
+    identity: dict  # what makes two plans the same: enters every cell id
+    stratified: bool = False  # folds (and a row-wise test split) keep each class's share
 
     @property
     def n_train(self) -> int:
@@ -70,112 +318,102 @@ class Plan:
     def n_test(self) -> int:
         return len(self.test_rows)
 
-    @property
-    def identity(self) -> dict:
-        """What makes two plans the same: enters every cell id."""
-        found = {"test": self.test_form, "k": self.k, "repeats": self.repeats, "seed": self.seed}
-        return {**found, "stratified": True} if self.stratified else found
-
 
 def _test_form(spec) -> dict:
     t = spec.test
-    if t.fraction is not None:
-        return {"fraction": t.fraction, "seed": t.seed}
-    return {"file": t.file} if t.file is not None else {"column": t.column}
+    if t.fraction is None:
+        return {"file": t.file} if t.file is not None else {"column": t.column}
+    holdout, column = resolve_holdout(spec)
+    if holdout.name == "time":
+        return {"fraction": t.fraction, "order": column}
+    form = {"fraction": t.fraction, "seed": t.seed}
+    return {**form, "groups": column} if column is not None else form
+
+
+def stratifies(spec, task: str) -> bool:
+    """Whether a plan keeps class shares: a class target's row or group folds do (time
+    order comes first)."""
+    return task == "classification" and resolve_scheme(spec).name != "time"
 
 
 def plan_identity(spec, task: str = "regression") -> dict:
-    """The plan's identity from the spec and the task (equal to `make_plan(...).identity`);
-    a class target's plan is stratified."""
-    found = {"test": _test_form(spec), "k": spec.folds.k, "repeats": spec.folds.repeats,
-             "seed": spec.folds.seed}
-    return {**found, "stratified": True} if task == "classification" else found
+    """The plan's identity from the spec and the task (equal to `make_plan(...).identity`).
+    A row plan's identity is what it was before schemes existed, so its cell ids are
+    unchanged; a stratified plan (a class target) says so."""
+    identity = {"test": _test_form(spec), "k": spec.folds.k, "repeats": spec.folds.repeats,
+                "seed": spec.folds.seed}
+    scheme = resolve_scheme(spec)
+    if scheme.column is not None:
+        identity.update(scheme=scheme.name, **{scheme.column: getattr(spec.folds, scheme.column)})
+    if scheme.name == "time":
+        identity["gap"] = spec.folds.gap
+    return {**identity, "stratified": True} if stratifies(spec, task) else identity
+
+
+def _holdout_values(spec, frame):
+    """(holdout, its column's values for every row, the column) of a fraction test split."""
+    holdout, column = resolve_holdout(spec)
+    values = frame.plan_values[column] if column is not None else None
+    if holdout.problem is not None:
+        problem = holdout.problem(values, spec.test.fraction, spec.folds.gap, column)
+        if problem:
+            raise DataError(f"the test split cannot be made from {frame.source}: {problem}.")
+    return holdout, values
 
 
 def plan_counts(spec, frame) -> tuple[int, int]:
-    """(training rows, test rows) without building the plan: train_test_split holds out
-    ceil(fraction x rows) rows, a test file or column marks its rows."""
+    """(training rows, test rows) without building the plan or importing scikit-learn: a
+    fraction by the holdout's arithmetic, a test file or column by its marked rows."""
     n = len(frame.y)
-    if spec.test.fraction is not None:
-        n_test = int(np.ceil(spec.test.fraction * n))
-    else:
+    if spec.test.fraction is None:
         n_test = int(np.count_nonzero(frame.test_mask))
-    return n - n_test, n_test
+        return n - n_test, n_test
+    holdout, values = _holdout_values(spec, frame)
+    return holdout.count(n, spec.test.fraction, spec.test.seed, values, spec.folds.gap)
 
 
-def _test_rows(spec, frame) -> tuple[np.ndarray, dict]:
-    from sklearn.model_selection import train_test_split
-
+def _split_test(spec, frame) -> tuple[np.ndarray, np.ndarray]:
     n = len(frame.y)
-    t = spec.test
-    if t.fraction is not None:
-        strata = frame.y if frame.task == "classification" else None
-        try:
-            rows = train_test_split(np.arange(n), test_size=t.fraction, random_state=t.seed,
-                                    stratify=strata)[1]
-        except ValueError as exc:
-            raise DataError(f"the test split cannot keep every class's share: {exc} Set "
-                            "`test.fraction` so that every class has a test row, or merge rare "
-                            "classes.") from None
-        return np.sort(rows), {"fraction": t.fraction, "seed": t.seed}
-    form = {"file": t.file} if t.file is not None else {"column": t.column}
-    return np.flatnonzero(frame.test_mask), form
+    if spec.test.fraction is None:
+        return np.flatnonzero(~frame.test_mask), np.flatnonzero(frame.test_mask)
+    holdout, values = _holdout_values(spec, frame)
+    strata = frame.y if frame.task == "classification" and holdout.name == "rows" else None
+    return holdout.rows(n, spec.test.fraction, spec.test.seed, values, spec.folds.gap,
+                        strata=strata)
 
 
 def make_plan(spec, frame) -> Plan:
-    """Resolve the spec's test split and fold plan against the data's rows: stratified by
-    class (RepeatedStratifiedKFold, a stratified test split) for a class target."""
-    from sklearn.model_selection import RepeatedKFold, RepeatedStratifiedKFold
-
-    test_rows, form = _test_rows(spec, frame)
-    is_test = np.zeros(len(frame.y), dtype=bool)
-    is_test[test_rows] = True
-    train_rows = np.flatnonzero(~is_test)
+    """Resolve the spec's test split and fold plan against the data's rows; a class
+    target's folds are stratified where the scheme allows (`stratifies`)."""
+    scheme = resolve_scheme(spec)
+    train_rows, test_rows = _split_test(spec, frame)
     k, r, seed = spec.folds.k, spec.folds.repeats, spec.folds.seed
     if len(test_rows) < MIN_TEST_ROWS:
         raise DataError(f"the test split has {len(test_rows)} row(s) of {len(frame.y)}; it needs "
                         f"at least {MIN_TEST_ROWS} (r2 is undefined on one row). Set "
                         "`test.fraction` larger, or mark more rows in the test file or column.")
-    if len(train_rows) < 2 * k:
-        raise DataError(f"only {len(train_rows)} training rows for {k} folds; each fold needs at "
-                        f"least 2 rows to fit and 1 to score. Lower `folds.k` or supply more rows.")
-    _check_test_levels(frame, train_rows, test_rows)
-    stratified = frame.task == "classification"
-    if stratified:
-        _check_class_counts(frame, train_rows, k)
-        splitter = RepeatedStratifiedKFold(n_splits=k, n_repeats=r, random_state=seed)
-        splits = splitter.split(train_rows, frame.y[train_rows])
-    else:
-        splits = RepeatedKFold(n_splits=k, n_repeats=r, random_state=seed).split(train_rows)
+    column = getattr(spec.folds, scheme.column) if scheme.column else None
+    values = frame.plan_values[column][train_rows] if column else None
+    stratified = stratifies(spec, frame.task)
+    if frame.task == "classification":
+        _check_classes_trained(frame, train_rows)
+    cut = Cut(frame.y[train_rows], values, k, r, seed, spec.folds.gap, stratified)
+    problem = scheme.problem(cut, column)
+    if problem:
+        raise DataError(f"the folds cannot be made from {frame.source}: {problem}.")
     folds = []
-    for i, (fit, valid) in enumerate(splits):
+    for i, (fit, valid) in enumerate(scheme.split(cut)):
         rep, f = divmod(i, k)
         folds.append(Fold(rep, f, fit, valid, fold_seed(seed, rep, f)))
-    return Plan(train_rows, test_rows, tuple(folds), k, r, seed, form, stratified)
+    return Plan(train_rows, test_rows, tuple(folds), k, r, seed, _test_form(spec), scheme.name,
+                plan_identity(spec, frame.task), stratified)
 
 
-def _check_class_counts(frame, train_rows, k: int) -> None:
-    """Every class must have at least k training rows: one in every validation fold."""
-    labels, counts = np.unique(frame.y[train_rows], return_counts=True)
-    missing = [c for c in frame.classes if c not in set(labels.tolist())]
+def _check_classes_trained(frame, train_rows) -> None:
+    """Every class must have training rows, or no model can learn it."""
+    present = set(np.unique(frame.y[train_rows]).tolist())
+    missing = [c for c in frame.classes if c not in present]
     if missing:
         raise DataError(f"class {missing[0]!r} of target '{frame.target}' has no training rows "
                         "(all its rows are test rows); no model can learn it. Move some of "
                         "its rows into training, or change the test split.")
-    few = [(c, n) for c, n in zip(labels.tolist(), counts.tolist()) if n < k]
-    if few:
-        c, n = few[0]
-        raise DataError(f"class {c!r} of target '{frame.target}' has {n} training row(s), fewer "
-                        f"than the {k} folds: stratified folds need one in each. Lower "
-                        "`folds.k`, merge rare classes, or supply more rows.")
-
-
-def _check_test_levels(frame, train_rows, test_rows) -> None:
-    for col in frame.categorical:
-        train_levels = set(pd.unique(frame.X[col].iloc[train_rows].dropna()))
-        test_only = set(pd.unique(frame.X[col].iloc[test_rows].dropna())) - train_levels
-        if test_only:
-            shown = ", ".join(sorted(map(repr, test_only))[:5])
-            raise DataError(f"categorical column '{col}' has levels only in the test rows "
-                            f"({shown}); no model can learn them. Merge rare levels, move those "
-                            "rows into training, or change the test split.")

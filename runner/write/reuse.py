@@ -5,16 +5,17 @@ row always names the sweep that first computed it in `reused_from`."""
 
 from __future__ import annotations
 
-import pandas as pd
-
 import json
+
+import pandas as pd
 
 from ..store import Store
 from .grid import SCORE_PACKAGES, cell_id, score_versions
+from .leakage import FINDING_COLUMNS, ordered
 from .resampling import REFIT, plan_identity
 
 __all__ = ["EXPLAIN_TABLES", "find_scores", "all_found", "copy_scores", "copy_explained",
-           "version_note"]
+           "version_note", "find_findings"]
 
 EXPLAIN_TABLES = ("importances", "fold_importances", "tree_folds", "tree_nodes",
                   "test_predictions", "coefficients")
@@ -142,3 +143,14 @@ def version_note(store: Store, prep, found) -> str | None:
             f"the same data and plan scored {'them' if n != 1 else 'it'} with {changed}. "
             "Versions that can change a score are part of each cell's identity, so "
             f"{'these are' if n != 1 else 'it is'} fitted again.")
+
+
+def find_findings(store: Store, key: str) -> pd.DataFrame | None:
+    """The findings an earlier sweep with this checks key recorded, so that a rerun with
+    nothing to fit need not build the plan to check it again; None if no sweep has the key."""
+    earlier = store.query("select sweep_id from sweeps where checks_key = ? "
+                          "order by started_at desc, sweep_id desc limit 1", [key])
+    if earlier.empty:
+        return None
+    return ordered(store.query(f"select {', '.join(FINDING_COLUMNS)} from findings "
+                               "where sweep_id = ?", [str(earlier["sweep_id"].iloc[0])]))

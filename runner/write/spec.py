@@ -17,17 +17,16 @@ from pydantic import (BaseModel, ConfigDict, Field, ValidationError, field_valid
 from ..errors import SpecError
 from ..families import FAMILIES, check_param_value, nearest
 from ..metrics import METRICS, TASK_DEFAULTS
+from .findings import KINDS
+from .spec_yaml import MAX_DEPTH, MAX_NODES, UniqueKeyLoader, line_map, shape_problem
 
 __all__ = ["Spec", "ModelSpec", "Limits", "load_spec", "parse_spec", "spec_json_schema",
            "LogRange", "LinearRange", "PathRange", "MAX_SPEC_BYTES", "MAX_DEPTH", "MAX_NODES",
-           "MAX_SEED", "MAX_RANGE_N"]
+           "MAX_SEED", "MAX_RANGE_N", "FoldPlan", "TestSplit", "Checks", "SCHEMES",
+           "implied_scheme"]
 
 MAX_SPEC_BYTES = 128 * 1024
 """A spec file larger than this is refused unread (real specs are a few KiB)."""
-MAX_DEPTH = 32
-"""Deepest nesting of mappings and lists a spec may have (real specs use 4 or 5)."""
-MAX_NODES = 100_000
-"""Most values a spec may hold once every alias (*name) is expanded."""
 MAX_SEED = 2**32 - 1
 """numpy's and scikit-learn's random_state take 0 ... 2**32 - 1."""
 MAX_RANGE_N = 1_000_000
@@ -71,6 +70,8 @@ class TestSplit(_Strict):
     fraction: float | None = Field(None, gt=0.0, lt=1.0, description="share of rows held out")
     seed: int = Field(0, ge=0, le=MAX_SEED, description="random_state of the test split "
                       "(0 ... 2**32 - 1)")
+    groups: str | None = Field(None, description="with fraction: hold out this share of the "
+                               "groups this column names, whole (default: folds.groups)")
     file: str | None = Field(None, description="a separate test file with the same columns")
     column: str | None = Field(None, description="a boolean column: true marks test rows")
 
@@ -80,16 +81,70 @@ class TestSplit(_Strict):
         if len(given) != 1:
             raise ValueError("give exactly one of fraction, file or column "
                              f"(got {', '.join(given) or 'none'})")
+        if self.groups is not None and self.fraction is None:
+            raise ValueError("groups holds out a fraction of the groups, so it needs "
+                             "test.fraction; a test file or column already says which rows "
+                             "are test rows")
         return self
 
 
-class FoldPlan(_Strict):
-    """Repeated k-fold cross-validation on the training rows."""
+SCHEMES = ("rows", "groups", "time")
+"""How folds cut the training rows: at random by row, by whole groups, or in time order."""
 
+
+def implied_scheme(folds: "FoldPlan") -> str:
+    """The scheme a fold plan asks for: as written, else implied by its column."""
+    if folds.scheme is not None:
+        return folds.scheme
+    return "groups" if folds.groups is not None else "time" if folds.order is not None \
+        else "rows"
+
+
+class FoldPlan(_Strict):
+    """How the training rows are cut into validation folds: repeated k-fold over rows,
+    repeated k-fold over whole groups, or expanding windows in time order."""
+
+    scheme: Literal["rows", "groups", "time"] | None = Field(
+        None, description="rows (default), groups (needs groups) or time (needs order); "
+        "implied by groups or order when left out")
     k: int = Field(5, ge=2, description="folds per repeat")
-    repeats: int = Field(1, ge=1, description="how many times the k folds are redrawn")
+    repeats: int = Field(1, ge=1, description="how many times the k folds are redrawn "
+                         "(time-ordered folds: 1)")
     seed: int = Field(0, ge=0, le=MAX_SEED, description="random_state of the folds "
                       "(0 ... 2**32 - 1); estimator seeds derive from it")
+    groups: str | None = Field(None, description="a column naming groups (plant, bay, "
+                               "patient, site, batch): every group's rows fall on one side of "
+                               "every split; not a feature unless listed in data.categorical")
+    order: str | None = Field(None, description="a column of numbers or ISO dates: folds "
+                              "fit on earlier values and validate on later ones")
+    gap: int = Field(0, ge=0, le=MAX_RANGE_N, description="time-ordered folds: distinct "
+                     "values of `order` left out between the fitting and validation rows "
+                     "(and before the test split)")
+
+    @model_validator(mode="after")
+    def _one_scheme(self):
+        if self.groups is not None and self.order is not None:
+            raise ValueError("give groups (grouped folds) or order (time-ordered folds), "
+                             "not both")
+        scheme = implied_scheme(self)
+        needs = {"groups": "groups", "time": "order"}
+        for name, column in needs.items():
+            if scheme == name and getattr(self, column) is None:
+                raise ValueError(f"scheme {name} needs folds.{column}: the column "
+                                 + ("whose values name the groups" if name == "groups" else
+                                    "whose values give the time order"))
+        for name, column in needs.items():
+            if scheme != name and getattr(self, column) is not None:
+                raise ValueError(f"{column} belongs to scheme {name}, but the scheme is "
+                                 f"{scheme}; remove {column} or set scheme: {name}")
+        if scheme == "time" and self.repeats > 1:
+            raise ValueError(f"time-ordered folds cannot be redrawn, so repeats must be 1 "
+                             f"(got repeats={self.repeats}); remove repeats, or use scheme "
+                             "rows or groups to repeat folds")
+        if scheme != "time" and self.gap:
+            raise ValueError(f"gap is for time-ordered folds (scheme time with order); the "
+                             f"scheme here is {scheme}, so remove gap")
+        return self
 
 
 def _finite_bounds(v):
@@ -249,6 +304,24 @@ class Limits(_Strict):
                            "(8 bytes x training rows x folds), in MiB")
 
 
+class Checks(_Strict):
+    """The leakage checks run by `check` and `run`: which findings are accepted."""
+
+    allow: list[str] = Field(default_factory=list, description="finding kinds accepted "
+                             "knowingly: an allowed error no longer stops the sweep, an "
+                             "allowed warning is still listed, marked allowed. Kinds: " +
+                             ", ".join(KINDS))
+
+    @field_validator("allow")
+    @classmethod
+    def _known_kinds(cls, v):
+        for name in v:
+            if name not in KINDS:
+                raise ValueError(f"unknown check '{name}'; the checks are "
+                                 f"{', '.join(KINDS)}.{nearest(name, KINDS)}")
+        return v
+
+
 class Spec(_Strict):
     """A whole sweep: data, test split, folds, metrics, store and models."""
 
@@ -272,7 +345,23 @@ class Spec(_Strict):
                            description="ceilings on the sweep's size (see `foldwise check`)")
     explain: ExplainPlan = Field(default_factory=ExplainPlan,
                                  description="importances and tree stability after the sweep")
+    checks: Checks = Field(default_factory=Checks,
+                           description="leakage checks: which findings are accepted")
     models: dict[str, ModelSpec] = Field(min_length=1)
+
+    @model_validator(mode="after")
+    def _plan_columns(self):
+        scheme = implied_scheme(self.folds)
+        if scheme == "time" and self.test.groups is not None:
+            raise ValueError("test.groups does not go with time-ordered folds: their test "
+                             "split is the last fraction in folds.order; remove test.groups")
+        for field, column in (("folds.groups", self.folds.groups),
+                              ("folds.order", self.folds.order),
+                              ("test.groups", self.test.groups)):
+            if column is not None and column == self.data.target:
+                raise ValueError(f"{field} names the target '{column}'; name the column "
+                                 "that holds the groups or the time order instead")
+        return self
 
     @field_validator("store")
     @classmethod
@@ -348,6 +437,14 @@ class Spec(_Strict):
         return self._text
 
     @property
+    def plan_columns(self) -> dict[str, str]:
+        """The data columns the plan reads, by the field that names them: never features
+        unless also listed in data.categorical."""
+        named = {"folds.groups": self.folds.groups, "folds.order": self.folds.order,
+                 "test.groups": self.test.groups}
+        return {field: column for field, column in named.items() if column is not None}
+
+    @property
     def sha256(self) -> str:
         return hashlib.sha256(self._text.encode()).hexdigest()
 
@@ -360,41 +457,6 @@ class Spec(_Strict):
         p = Path(relative).expanduser()
         return p if p.is_absolute() else (self.base_dir / p)
 
-
-
-class _UniqueKeyLoader(yaml.SafeLoader):
-    """The safe loader, refusing duplicate mapping keys instead of keeping the last."""
-
-
-def _construct_mapping(loader, node, deep=False):
-    seen = {}
-    for key_node, _ in node.value:
-        key = loader.construct_object(key_node, deep=deep)
-        if key in seen:
-            raise SpecError(f"duplicate key '{key}' at line {key_node.start_mark.line + 1} "
-                            f"(first at line {seen[key]}); each key may appear once — rename "
-                            "or remove one of them.")
-        seen[key] = key_node.start_mark.line + 1
-    return yaml.SafeLoader.construct_mapping(loader, node, deep=deep)
-
-
-_UniqueKeyLoader.add_constructor(yaml.resolver.BaseResolver.DEFAULT_MAPPING_TAG,
-                                 _construct_mapping)
-
-
-def _line_map(node, path=(), out=None) -> dict[tuple, int]:
-    """Map each field path in a composed YAML tree to its 1-based line."""
-    out = {} if out is None else out
-    out.setdefault(path, node.start_mark.line + 1)
-    if isinstance(node, yaml.MappingNode):
-        for k, v in node.value:
-            key = k.value
-            out[path + (key,)] = k.start_mark.line + 1
-            _line_map(v, path + (key,), out)
-    elif isinstance(node, yaml.SequenceNode):
-        for i, v in enumerate(node.value):
-            _line_map(v, path + (i,), out)
-    return out
 
 
 def _describe(exc: ValidationError, lines: dict[tuple, int], where: str) -> str:
@@ -447,60 +509,6 @@ def _valid_keys(parent: tuple) -> list[str]:
     return list(model.model_fields)
 
 
-_FAST_LOADER = getattr(yaml, "CSafeLoader", yaml.SafeLoader)
-
-
-def _shape_problem(text: str) -> str | None:
-    """Why the YAML's shape is too costly to build (too deep, or aliases expanding too far),
-    found from the parser's events alone, before any node is composed; None if it is fine.
-
-    Each collection's size counts its expanded aliases, so `&a [...]` used many times inside
-    other anchors (an alias bomb) is caught while its total is still small. libyaml's parser
-    is used where installed (fast, not recursive); a document it rejects is scanned again by
-    the pure-Python one, whose syntax error the loader then reports with its line."""
-    try:
-        return _scan_events(yaml.parse(text, Loader=_FAST_LOADER))
-    except yaml.YAMLError:
-        pass
-    try:
-        return _scan_events(yaml.parse(text, Loader=yaml.SafeLoader))
-    except yaml.YAMLError:
-        return None
-
-
-def _scan_events(events) -> str | None:
-    sizes: dict[str, int] = {}  # anchor -> its expanded number of values
-    stack: list[list] = [[None, 0]]  # [anchor, expanded values so far] per open collection
-    for event in events:
-        if isinstance(event, (yaml.MappingStartEvent, yaml.SequenceStartEvent)):
-            stack.append([event.anchor, 1])
-            if len(stack) > MAX_DEPTH + 1:
-                return (f"at line {event.start_mark.line + 1} lists and mappings are nested "
-                        f"more than {MAX_DEPTH} deep; a spec needs 5 or 6 levels. Check the "
-                        "brackets and indentation")
-            continue
-        if isinstance(event, (yaml.MappingEndEvent, yaml.SequenceEndEvent)):
-            anchor, n = stack.pop()
-        elif isinstance(event, yaml.ScalarEvent):
-            anchor, n = event.anchor, 1
-        elif isinstance(event, yaml.AliasEvent):
-            if any(event.anchor == a for a, _ in stack):
-                return (f"at line {event.start_mark.line + 1} the alias *{event.anchor} refers "
-                        f"to a list or mapping that contains it, which never ends. Refer only "
-                        "to anchors defined outside")
-            anchor, n = None, sizes.get(event.anchor, 1)
-        else:
-            continue
-        if anchor is not None:
-            sizes[anchor] = n
-        stack[-1][1] += n
-        if stack[-1][1] > MAX_NODES:
-            return (f"at line {event.start_mark.line + 1} the document grows beyond "
-                    f"{MAX_NODES:,} values once its aliases (*name) are expanded; a spec needs "
-                    "far fewer. Write the values out, or reuse an anchor fewer times")
-    return None
-
-
 def parse_spec(text: str, *, source: Path | None = None) -> Spec:
     """Validate spec text; `source` (the file) is used for messages and relative paths."""
     where = f"spec {source}" if source else "the spec"
@@ -508,12 +516,12 @@ def parse_spec(text: str, *, source: Path | None = None) -> Spec:
         raise SpecError(f"{where} is {len(text):,} characters long; foldwise reads specs of at "
                         f"most {MAX_SPEC_BYTES // 1024} KiB. A spec lists models and grids, not "
                         "data: put data in the file that `data.path` names.")
-    problem = _shape_problem(text)
+    problem = shape_problem(text)
     if problem:
         raise SpecError(f"{where} is refused before it is built: {problem}.")
     try:
         node = yaml.compose(text, Loader=yaml.SafeLoader)
-        raw = yaml.load(text, Loader=_UniqueKeyLoader)
+        raw = yaml.load(text, Loader=UniqueKeyLoader)
     except SpecError as exc:
         raise SpecError(f"{where}: {exc}") from None
     except yaml.YAMLError as exc:
@@ -529,7 +537,7 @@ def parse_spec(text: str, *, source: Path | None = None) -> Spec:
     if not isinstance(raw, dict):
         raise SpecError(f"{where} must be a YAML mapping with keys such as name, data, test, "
                         f"folds, metrics and models; got {type(raw).__name__}.")
-    lines = _line_map(node) if node is not None else {}
+    lines = line_map(node) if node is not None else {}
     try:
         spec = Spec.model_validate(raw)
     except ValidationError as exc:

@@ -1,0 +1,253 @@
+"""The leakage checks: each fires on a small made-up case (the columns added to the diabetes
+data below are invented for these tests) and stays silent on the demo's clean columns;
+findings are stored with the sweep, printed by `check` and `run`, listed in the report,
+and an error stops the sweep unless the spec allows it."""
+
+from __future__ import annotations
+
+import itertools
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+from click.testing import CliRunner
+from sklearn.tree import DecisionTreeRegressor
+
+from runner.cli import main
+from runner.errors import DataError
+from runner.store import Store
+from runner.write.data import load_frame
+from runner.write.engine import run_sweep
+from runner.write.leakage import best_split_r2, id_like, run_checks
+from runner.write.resampling import make_plan
+from runner.write.spec import load_spec
+
+from .helpers import diabetes_frame, write_spec
+
+ROOT = Path(__file__).resolve().parents[1]
+RIDGE = "ridge: {family: linear, grid: {penalty: l2, alpha: [1.0]}}"
+
+
+def _findings(folder: Path, df: pd.DataFrame, *, extra: str = "", models: str = RIDGE):
+    """(spec, findings) of the small spec on `df` with `extra` YAML appended."""
+    df.to_csv(folder / "made_up.csv", index=False)
+    path = write_spec(folder, models, data="made_up.csv", extra=extra)
+    spec = load_spec(path)
+    frame = load_frame(spec)
+    return spec, run_checks(spec, frame, make_plan(spec, frame))
+
+
+def _kinds(findings) -> list[tuple[str, str | None]]:
+    return sorted((f.kind, f.column) for f in findings)
+
+
+def test_the_diabetes_columns_are_clean(tmp_path):
+    assert _findings(tmp_path, diabetes_frame())[1] == []
+
+
+def test_identifiers_as_features(tmp_path):
+    df = diabetes_frame()
+    n = len(df)
+    df["row_number"] = np.arange(1, n + 1)  # a serial number
+    df["order_no"] = np.random.default_rng(1).permutation(10**6)[:n]  # whole, unique, id-like name
+    df["code_text"] = [f"r{i:04d}" for i in range(n)]  # unique text
+    df["weight_g"] = np.random.default_rng(2).permutation(10**6)[:n]  # whole, unique, a measurement
+    _, found = _findings(tmp_path, df)
+    ids = [f for f in found if f.kind == "id_column"]
+    assert sorted(f.column for f in ids) == ["code_text", "order_no", "row_number"]
+    assert all(f.value == 1.0 and "data.drop" in f.message for f in ids)
+
+
+@pytest.mark.parametrize("name, expected", [
+    ("plant_id", True), ("PlantID", True), ("plantId", True), ("batch_no", True),
+    ("zip_code", True), ("bay", False), ("valid", False), ("humidity", False),
+    ("number_of_leaves", False), ("num_rooms", False)])
+def test_id_like_names(name, expected):
+    assert id_like(name) is expected
+
+
+def test_levels_mostly_unseen_across_folds(tmp_path):
+    df = diabetes_frame()
+    days = pd.date_range("2024-01-01", periods=len(df), freq="D")
+    df["visit"] = [str(d.date()) for d in days]  # dates as text, one row each
+    _, found = _findings(tmp_path, df)
+    (hit,) = [f for f in found if f.kind == "unseen_levels"]
+    assert hit.column == "visit" and hit.value == 1.0
+    assert "100% of a fold's validation rows carry a level" in hit.message
+    assert "dates or identifiers written as text" in hit.message
+    assert ("id_column", "visit") in _kinds(found)
+
+
+def test_levels_only_in_the_test_rows_warn_and_the_sweep_runs(tmp_path):
+    """What was refused before (a level only in the test rows) is now a finding: the models
+    treat the level as missing, and the sweep goes on."""
+    df = diabetes_frame().iloc[:120].copy()
+    df["site"] = "north"
+    df["holdout"] = np.arange(120) % 4 == 0
+    df.loc[[0, 4], "site"] = "island"  # both rows are test rows
+    df.to_csv(tmp_path / "sites.csv", index=False)
+    path = write_spec(tmp_path, RIDGE, data="sites.csv")
+    path.write_text(path.read_text().replace("  fraction: 0.25\n  seed: 3\n",
+                                             "  column: holdout\n"))
+    result = CliRunner().invoke(main, ["run", str(path), "--jobs", "1", "--quiet"])
+    assert result.exit_code == 0, result.output
+    assert ("warning (unseen_levels): categorical feature 'site' has levels only in the test "
+            "rows ('island': 2 row(s), 6.7% of them)") in result.output
+    stored = Store(tmp_path / "store.duckdb").query("select kind, column_name, value "
+                                                    "from findings")
+    assert stored.to_dict("records") == [{"kind": "unseen_levels", "column_name": "site",
+                                          "value": pytest.approx(2 / 30)}]
+
+
+def test_duplicate_rows_across_the_test_split(tmp_path):
+    df = diabetes_frame()
+    twice = pd.concat([df, df.iloc[:40]], ignore_index=True)  # 40 rows twice
+    spec, found = _findings(tmp_path, twice)
+    (hit,) = [f for f in found if f.kind == "duplicate_rows"]
+    plan = make_plan(spec, load_frame(spec))
+    # independent count: copies of one row with one copy in the test rows, one in training
+    is_test = np.isin(np.arange(len(twice)), plan.test_rows)
+    expected = sum(int(is_test[i] != is_test[442 + i]) for i in range(40))
+    assert hit.value == expected > 0
+    assert f"{expected} of {plan.n_test} test rows" in hit.message
+
+
+def test_few_discrete_columns_repeat_by_nature_and_are_not_flagged(tmp_path):
+    rng = np.random.default_rng(3)
+    df = pd.DataFrame({"a": rng.integers(0, 3, 400), "b": rng.choice(["x", "y"], 400)})
+    df["progression"] = df["a"] * 2.0 + rng.normal(size=400)
+    assert not [f for f in _findings(tmp_path, df)[1] if f.kind == "duplicate_rows"]
+
+
+def test_features_that_give_the_target_away(tmp_path):
+    df = diabetes_frame()
+    rng = np.random.default_rng(4)
+    df["copy"] = df["progression"] * 2.0 + 1.0  # r = 1
+    # a step: the target is two tight clusters that one split of `switch` separates
+    switch = rng.normal(size=len(df))
+    df["progression"] = np.where(switch > 0, 300.0, 100.0) + rng.normal(0, 1.0, len(df))
+    df["copy"] = df["progression"] * 2.0 + 1.0
+    df["switch"] = switch
+    df["band"] = np.where(switch > 0, "upper", "lower")
+    _, found = _findings(tmp_path, df)
+    hits = {f.column: f for f in found if f.kind == "target_proxy"}
+    assert set(hits) == {"copy", "switch", "band"}
+    assert "|r| = 1.0000" in hits["copy"].message
+    r = abs(np.corrcoef(switch, df["progression"])[0, 1])
+    assert r < 0.99 and "one split R² = 0.99" in hits["switch"].message
+
+
+def test_best_split_equals_a_depth_one_tree():
+    # reference: scikit-learn's DecisionTreeRegressor(max_depth=1), R² on its own rows
+    df = diabetes_frame()
+    y = df["progression"].to_numpy(float)
+    for col in ("bmi", "s5", "age", "sex"):
+        x = df[col].to_numpy(float)
+        tree = DecisionTreeRegressor(max_depth=1).fit(x[:, None], y)
+        assert best_split_r2(x, y) == pytest.approx(tree.score(x[:, None], y), abs=1e-9), col
+
+
+def test_best_split_of_a_category_equals_every_partition_tried():
+    # reference: brute force over all two-way partitions of the levels (from memory: for
+    # squared error the best one is found among the levels ordered by mean, Breiman 1984)
+    rng = np.random.default_rng(6)
+    levels = np.array(list("abcdef"))
+    x = levels[rng.integers(0, 6, 300)]
+    y = rng.normal(size=300) + (x == "c") * 2.0 - (x == "e") * 1.5 + (x == "a") * 0.7
+    total = np.sum((y - y.mean()) ** 2)
+    best = 0.0
+    for size in range(1, 6):
+        for left in itertools.combinations(levels, size):
+            mask = np.isin(x, left)
+            fit = np.where(mask, y[mask].mean(), y[~mask].mean())
+            best = max(best, 1 - np.sum((y - fit) ** 2) / total)
+    assert best_split_r2(x, y, categorical=True) == pytest.approx(best, abs=1e-12)
+
+
+def test_group_keys_under_row_folds(tmp_path):
+    df = diabetes_frame()
+    rng = np.random.default_rng(7)
+    df["patient_id"] = rng.integers(0, 110, len(df))  # about 4 rows per patient
+    df["batch"] = [f"b{v}" for v in rng.integers(0, 110, len(df))]  # text, 110 levels
+    df["sex_code"] = df["sex"]  # id-like name but 2 values: a category, not a group key
+    df["colour_code"] = [f"c{v}" for v in rng.integers(0, 8, len(df))]  # 8 values: likewise
+    spec, found = _findings(tmp_path, df, extra="")
+    keys = {f.column: f for f in found if f.kind == "group_key"}
+    assert set(keys) == {"patient_id", "batch"}
+    assert "set folds.groups: patient_id" in keys["patient_id"].message
+    assert keys["patient_id"].value > 0.5
+    # dropped columns count too: a patient id in data.drop is still a group key
+    path = tmp_path / "spec.yaml"
+    path.write_text(path.read_text().replace("  target: progression\n",
+                                             "  target: progression\n  drop: [patient_id]\n"))
+    spec = load_spec(path)
+    frame = load_frame(spec)
+    assert "patient_id" in {f.column for f in run_checks(spec, frame, make_plan(spec, frame))
+                            if f.kind == "group_key"}
+    # grouped folds are what the check asks for: then it is silent
+    path.write_text(path.read_text().replace("  seed: 17\n", "  seed: 17\n  groups: patient_id\n"))
+    spec = load_spec(path)
+    frame = load_frame(spec)
+    assert not [f for f in run_checks(spec, frame, make_plan(spec, frame))
+                if f.kind == "group_key" and f.column == "patient_id"]
+
+
+def test_a_test_column_breaking_a_time_plan_is_an_error_unless_allowed(tmp_path):
+    df = diabetes_frame()
+    df["day"] = np.arange(len(df))
+    df["holdout"] = np.arange(len(df)) % 5 == 0  # test rows spread over the whole period
+    df.to_csv(tmp_path / "days.csv", index=False)
+    path = write_spec(tmp_path, RIDGE, data="days.csv")
+    text = path.read_text().replace("  fraction: 0.25\n  seed: 3\n", "  column: holdout\n")
+    text = text.replace("  k: 3\n  repeats: 2\n", "  k: 3\n  order: day\n")
+    path.write_text(text)
+    spec = load_spec(path)
+    frame = load_frame(spec)
+    (hit,) = run_checks(spec, frame, make_plan(spec, frame))
+    assert (hit.kind, hit.severity, hit.refused, hit.value) == ("split_overlap", "error", True,
+                                                               89.0)
+    result = CliRunner().invoke(main, ["check", str(path)])
+    assert result.exit_code == 2 and "do not come after every training row" in result.output
+    with pytest.raises(DataError, match="split_overlap to checks.allow"):
+        run_sweep(spec, jobs=1)
+    assert not (tmp_path / "store.duckdb").exists()
+    path.write_text(text + "checks: {allow: [split_overlap]}\n")
+    result = CliRunner().invoke(main, ["run", str(path), "--jobs", "1", "--quiet"])
+    assert result.exit_code == 0, result.output
+    assert "error (allowed) (split_overlap): 89 of 89 test rows" in result.output
+    stored = Store(tmp_path / "store.duckdb").query("select severity, allowed from findings")
+    assert stored.to_dict("records") == [{"severity": "error", "allowed": True}]
+
+
+def test_silent_on_the_demo_and_loud_on_its_row_folds_twin():
+    demo = load_spec(ROOT / "specs" / "greenhouse.yaml")
+    frame = load_frame(demo)
+    assert "bay_id" not in frame.features
+    assert run_checks(demo, frame, make_plan(demo, frame)) == []
+    twin = load_spec(ROOT / "specs" / "greenhouse_row_folds.yaml")
+    frame = load_frame(twin)
+    (hit,) = run_checks(twin, frame, make_plan(twin, frame))
+    assert (hit.kind, hit.column, hit.value) == ("group_key", "bay_id", 1.0)
+    assert "250 values, 12.0 rows each" in hit.message
+
+
+def test_findings_are_printed_stored_and_reported(tmp_path):
+    df = diabetes_frame()
+    df["patient_id"] = np.random.default_rng(7).integers(0, 110, len(df))
+    df.to_csv(tmp_path / "patients.csv", index=False)
+    path = write_spec(tmp_path, RIDGE, data="patients.csv")
+    check = CliRunner().invoke(main, ["check", str(path)])
+    assert check.exit_code == 0, check.output
+    assert "leakage checks: 1 finding\n  warning (group_key): column 'patient_id'" in check.output
+    run = CliRunner().invoke(main, ["run", str(path), "--jobs", "1", "--quiet"])
+    assert run.exit_code == 0 and "warning (group_key): column 'patient_id'" in run.output
+    store = Store(tmp_path / "store.duckdb")
+    rows = store.query("select kind, severity, column_name, allowed from findings")
+    assert rows.to_dict("records") == [{"kind": "group_key", "severity": "warning",
+                                        "column_name": "patient_id", "allowed": False}]
+    from runner.read.report import render_report
+
+    html = render_report(store)
+    assert 'id="checks"' in html and "leakage checks: 1 finding" not in html
+    assert "group_key" in html and "looks like a group key" in html
