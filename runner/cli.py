@@ -292,7 +292,7 @@ def sweeps(store_path, labels, name, status, older_than, fmt):
       foldwise sweeps --status interrupted --older-than 30d
     """
     from .read.queries import sweeps as read_sweeps
-    from .read.views import sweeps_view
+    from .read.past_views import sweeps_view
 
     result = read_sweeps(_open_store(store_path), _selection((), labels, name, status,
                                                              older_than))
@@ -316,7 +316,7 @@ def label(labels, store_path, sweep_id, drop, note, fmt):
       foldwise label --sweep 20261202
     """
     from .read.queries import sweeps as read_sweeps
-    from .read.views import sweeps_view
+    from .read.past_views import sweeps_view
     from .store.labels import Selection, parse_labels, set_labels
 
     store = _open_store(store_path)
@@ -522,7 +522,7 @@ def diff(sweep_a, sweep_b, store_path, se, fmt):
       foldwise diff 20261101 20261202 --format csv
     """
     from .read.past import diff_sweeps
-    from .read.views import diff_view
+    from .read.past_views import diff_view
 
     result = diff_sweeps(_open_store(store_path), sweep_a, sweep_b, se=se)
     _show(result, diff_view(result), fmt)
@@ -551,7 +551,7 @@ def history(model, family, name, rule, metric, store_path, se, fmt):
       foldwise history --family linear --name greenhouse-yield --format csv
     """
     from .read.past import model_history
-    from .read.views import history_view
+    from .read.past_views import history_view
 
     if model is None and family is None:
         raise click.UsageError("give --model LABEL or --family FAMILY.")
@@ -579,7 +579,7 @@ def remove(sweep_ids, store_path, labels, name, status, older_than, dry_run, yes
     them leaves every other sweep whole. A sweep still running is never removed.
     """
     from .read.queries import process_alive, sweep_rows, sweeps as read_sweeps
-    from .read.views import removal_view
+    from .read.past_views import removal_view
     from .store.tidy import check_rights, remove_sweeps
 
     chosen = _selection(sweep_ids, labels, name, status, older_than)
@@ -716,7 +716,7 @@ def build(store_path, sweep_id, model, rule, cell, all_rows, data_path, accept_d
       foldwise build --cell 3f9a2c --all-rows
     """
     from .model.build import build_model
-    from .read.views import built_sentences
+    from .read.model_views import built_sentences
 
     built = build_model(_open_store(store_path), sweep_id=sweep_id, model=model, rule=rule,
                         cell=cell, all_rows=all_rows, data=data_path, accept_data=accept_data,
@@ -756,7 +756,7 @@ def predict(model_ref, data_file, out, keep, overwrite, unseen, interval, chunk_
     """
     from .model.keep import load_model
     from .model.predict import predict_file
-    from .read.views import prediction_sentences
+    from .read.model_views import prediction_sentences
 
     model = load_model(model_ref, _open_store(store_path))
     for note in model.notes:
@@ -785,7 +785,7 @@ def models(store_path, sweep_id, fmt):
       foldwise models --sweep 20261202 --format csv
     """
     from .read.queries import built_models
-    from .read.views import models_view
+    from .read.model_views import models_view
 
     df = built_models(_open_store(store_path), sweep_id)
     _show(_Plain(df), models_view(df), fmt)
@@ -813,7 +813,7 @@ def card(model_ref, store_path, fmt):
       foldwise card results/models/tree.skops --format json
     """
     from .model.keep import read_model
-    from .read.views import card_view
+    from .read.model_views import card_view
 
     _, the_card, _ = read_model(model_ref, _open_store(store_path))
     if fmt == "json":
@@ -855,7 +855,7 @@ def coefficients(store_path, sweep_id, model_id, fmt):
       foldwise coefficients --model-id model-20261202-101010-ab12 --format csv
     """
     from .read.queries import coefficient_table
-    from .read.views import coefficients_view
+    from .read.model_views import coefficients_view
 
     result = coefficient_table(_open_store(store_path), sweep_id, model_id=model_id)
     _show(result, coefficients_view(result), fmt)

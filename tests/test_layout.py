@@ -98,6 +98,7 @@ def test_the_cycle_finder_finds_a_cycle():
 
 
 READ_SIDE = ["runner.store", "runner.read.queries", "runner.read.results", "runner.read.views",
+             "runner.read.model_views", "runner.read.past_views",
              "runner.read.plots", "runner.read.report"]
 
 

@@ -13,18 +13,15 @@ import pandas as pd
 from .compare import APPROXIMATE_NOTE
 from ..families import get_family
 from ..metrics import metric_label
-from .results import (Coefficients, Comparison, ComplexityTable, Coverage, Findings,
-                      ModelHistory, Picks, Summary, SweepDiff, SweepList)
+from .results import Comparison, ComplexityTable, Coverage, Findings, Picks, Summary
 
 __all__ = ["View", "number", "mean_se", "params_text", "p_text", "value_text", "rule_label",
            "cell_text", "pair_sentence", "pair_sentences", "summary_view", "picks_view",
            "compare_view", "complexity_view", "coverage_notes",
            "stability_sentences", "columns_view", "importance_matrix", "METHODS",
            "time_text", "reuse_text", "TIME_MEANING", "edge_notes",
-           "models_view", "card_view", "coefficients_view", "built_sentences",
-           "prediction_sentences", "plain_text", "labels_text", "sweeps_view", "removal_view",
-           "diff_view", "history_view",
-           "finding_lines", "findings_view", "plan_sentence", "ORDERED_FOLDS_NOTE"]
+           "finding_lines", "findings_view", "plan_sentence", "ORDERED_FOLDS_NOTE",
+           "is_missing", "count_text", "cv_head", "test_head", "CLEAR_P"]
 
 
 @dataclass(frozen=True)
@@ -46,7 +43,7 @@ MINUS = "\u2212"
 """Shown numbers use the typographic minus sign, in tables and sentences alike."""
 
 
-def _missing(value) -> bool:
+def is_missing(value) -> bool:
     return value is None or (isinstance(value, float) and math.isnan(value))
 
 
@@ -56,7 +53,7 @@ def _minus(text: str) -> str:
 
 def number(value, digits: int = 4) -> str:
     """A number shown alone: `digits` significant digits, or '' when missing."""
-    if _missing(value):
+    if is_missing(value):
         return ""
     if isinstance(value, (int,)) and not isinstance(value, bool):
         return _minus(str(value))
@@ -70,7 +67,7 @@ def number(value, digits: int = 4) -> str:
 
 def decimals_for(se) -> int | None:
     """Decimal places that show an SE to two significant digits (None: no usable SE)."""
-    if _missing(se) or not math.isfinite(float(se)) or float(se) == 0:
+    if is_missing(se) or not math.isfinite(float(se)) or float(se) == 0:
         return None
     return max(0, 1 - math.floor(math.log10(abs(float(se)))))
 
@@ -84,7 +81,7 @@ def fixed(value, places: int) -> str:
 def mean_se(mean, se, digits: int = 4) -> str:
     """'mean ± se': the SE to two significant digits and the mean to the same decimal
     place (common practice), or `digits` significant digits when there is no usable SE."""
-    if _missing(mean):
+    if is_missing(mean):
         return ""
     places = decimals_for(se)
     if places is None or not math.isfinite(float(mean)):
@@ -150,10 +147,10 @@ TIME_MEANING = "from reading the data to the last write"
 def time_text(seconds, fit_seconds=None) -> str:
     """'38.6 s from reading the data to the last write; its fits took 52.1 s of worker
     time' (worker seconds summed over processes, fits this sweep made itself)."""
-    if _missing(seconds):
+    if is_missing(seconds):
         return "not finished"
     text = f"{float(seconds):.1f} s {TIME_MEANING}"
-    if fit_seconds is not None and not _missing(fit_seconds) and fit_seconds > 0:
+    if fit_seconds is not None and not is_missing(fit_seconds) and fit_seconds > 0:
         text += f"; its own fits took {float(fit_seconds):.1f} s of worker time"
     return text
 
@@ -166,10 +163,10 @@ def reuse_text(cells: int, reused: int, sources=()) -> str:
         shown = ", ".join(list(sources)[:3]) + (", ..." if len(sources) > 3 else "")
         where = f" from sweep{'s' if len(sources) > 1 else ''} {shown}"
     if cells and reused == cells:
-        return f"{_count(cells, 'cell', 'cells')}, all reused{where}: nothing was fitted"
+        return f"{count_text(cells, 'cell', 'cells')}, all reused{where}: nothing was fitted"
     if reused:
-        return f"{_count(cells, 'cell', 'cells')}, {reused} of them reused{where}"
-    return f"{_count(cells, 'cell', 'cells')}, all computed in this sweep"
+        return f"{count_text(cells, 'cell', 'cells')}, {reused} of them reused{where}"
+    return f"{count_text(cells, 'cell', 'cells')}, all computed in this sweep"
 
 
 # -- sentences -----------------------------------------------------------------------------
@@ -213,7 +210,7 @@ def pair_sentences(comparison: Comparison) -> list[str]:
             for r in comparison.table.itertuples(index=False)]
 
 
-def _count(n: int, one: str, many: str) -> str:
+def count_text(n: int, one: str, many: str) -> str:
     return f"{n} {one if n == 1 else many}"
 
 
@@ -235,7 +232,7 @@ def coverage_notes(coverage: Coverage, sweep_id: str, n_folds: int) -> tuple[str
                          f"{n_folds} folds scored, and the picks are made among those{then}")
         else:
             notes.append(f"sweep {sweep_id} {now}: none of its "
-                         f"{_count(total, 'cell', 'cells')} has all {n_folds} folds scored"
+                         f"{count_text(total, 'cell', 'cells')} has all {n_folds} folds scored"
                          f"{then.replace(' so far', ' yet')}")
     unfinished = {
         "running": ("is not finished yet", "are not finished yet"),
@@ -247,14 +244,14 @@ def coverage_notes(coverage: Coverage, sweep_id: str, n_folds: int) -> tuple[str
     for r in counts[counts["complete"] == 0].itertuples(index=False):
         parts = []
         if r.failed:
-            parts.append(_count(r.failed, "has a failed fit", "have a failed fit"))
+            parts.append(count_text(r.failed, "has a failed fit", "have a failed fit"))
         if r.unfinished:
-            parts.append(_count(r.unfinished, *unfinished))
+            parts.append(count_text(r.unfinished, *unfinished))
         if r.non_finite:
-            parts.append(_count(r.non_finite, "has a non-finite mean score",
+            parts.append(count_text(r.non_finite, "has a non-finite mean score",
                                 "have a non-finite mean score"))
         text = (f"model '{r.model}' has no cell to pick{' yet' if status == 'running' else ''}"
-                f": of its {_count(r.cells, 'cell', 'cells')}, {' and '.join(parts)}.")
+                f": of its {count_text(r.cells, 'cell', 'cells')}, {' and '.join(parts)}.")
         if r.failed:
             text += (f" `foldwise sql \"select * from failures where sweep_id = '{sweep_id}'\"` "
                      "shows the errors.")
@@ -288,11 +285,11 @@ def edge_notes(edges: pd.DataFrame) -> tuple[str, ...]:
 
 
 # -- tables --------------------------------------------------------------------------------
-def _cv_head(metric: str) -> str:
+def cv_head(metric: str) -> str:
     return f"CV {metric_label(metric)} (mean ± SE)"
 
 
-def _test_head(metric: str) -> str:
+def test_head(metric: str) -> str:
     return f"test {metric_label(metric)}"
 
 
@@ -311,9 +308,9 @@ def summary_view(result: Summary) -> View:
     for m in facts.metrics:
         if f"cv_{m}" not in df:
             continue
-        shown[_cv_head(m)] = [mean_se(a, b) for a, b in zip(df[f"cv_{m}"], df[f"se_{m}"])]
-        shown[_test_head(m)] = df[f"test_{m}"].map(number)
-        numeric += [_cv_head(m), _test_head(m)]
+        shown[cv_head(m)] = [mean_se(a, b) for a, b in zip(df[f"cv_{m}"], df[f"se_{m}"])]
+        shown[test_head(m)] = df[f"test_{m}"].map(number)
+        numeric += [cv_head(m), test_head(m)]
     title = (f"sweep {facts.sweep_id}: picked cell per model ({rule_label(result.rule)} "
              f"rule) by CV {metric_label(facts.metric)}")
     return View(title, shown.reset_index(drop=True), tuple(numeric),
@@ -336,8 +333,8 @@ def picks_view(result: Picks) -> View:
             cols = {f"{prefix}cell": cell_text(r.params, result.varying.get(r.model, []),
                                                r.mean_leaves),
                     f"{prefix}rank": number(int(r.complexity_rank)),
-                    f"{prefix}{_cv_head(m)}": mean_se(r.mean, r.se),
-                    f"{prefix}{_test_head(m)}": number(r.test)}
+                    f"{prefix}{cv_head(m)}": mean_se(r.mean, r.se),
+                    f"{prefix}{test_head(m)}": number(r.test)}
             row.update(cols)
             numeric += list(cols)[1:]
         if result.rules == ("one_se",):
@@ -410,8 +407,8 @@ def complexity_view(result: ComplexityTable) -> View:
     if df["mean_leaves"].notna().any():
         shown["leaves"] = [value_text(round(v, 1)) if v == v else "" for v in df["mean_leaves"]]
         numeric.append("leaves")
-    shown[_cv_head(m)] = [mean_se(x, e) for x, e in zip(df["mean"], df["se"])]
-    numeric.append(_cv_head(m))
+    shown[cv_head(m)] = [mean_se(x, e) for x, e in zip(df["mean"], df["se"])]
+    numeric.append(cv_head(m))
     if best_mean is not None:
         head = f"{'above' if sign > 0 else 'below'} best"
         places = decimals_for(se_best)
@@ -422,8 +419,8 @@ def complexity_view(result: ComplexityTable) -> View:
                           if se_best else "")
                        for v in df["mean"]]
         numeric.append(head)
-    shown[_test_head(m)] = df["test"].map(number)
-    numeric.append(_test_head(m))
+    shown[test_head(m)] = df["test"].map(number)
+    numeric.append(test_head(m))
     bar = result.threshold
     op = "≤" if facts.better_of() == "lower" else "≥"
     bar_text = (f"; one-SE threshold: CV {metric_label(facts.metric)} {op} {number(bar)} "
@@ -458,7 +455,7 @@ def findings_view(findings: pd.DataFrame | Findings) -> View:
     """The leakage checks' findings as a table: severity, check, column and what it means."""
     findings = findings.table if isinstance(findings, Findings) else findings
     n = len(findings)
-    title = (f"leakage checks: {_count(n, 'finding', 'findings')}" if n else
+    title = (f"leakage checks: {count_text(n, 'finding', 'findings')}" if n else
              "leakage checks: nothing found")
     shown = pd.DataFrame({
         "severity": [f"{s} (allowed)" if a else s
@@ -563,330 +560,3 @@ def importance_matrix(importances, cells: pd.DataFrame) -> dict[str, pd.DataFram
             rows.append(row)
         out[method] = pd.DataFrame(rows, columns=["column"] + models)
     return out
-
-
-# -- built models ----------------------------------------------------------------------------
-def _size(n) -> str:
-    n = float(n)
-    for unit in ("bytes", "KiB", "MiB", "GiB"):
-        if n < 1024 or unit == "GiB":
-            return f"{n:.0f} {unit}" if unit == "bytes" else f"{n:.1f} {unit}"
-        n /= 1024
-    return ""
-
-
-def models_view(df: pd.DataFrame) -> View:
-    """The store's built models, newest first."""
-    table = pd.DataFrame({
-        "model id": df["model_id"], "sweep": df["sweep_id"], "model": df["model"],
-        "family": df["family"], "rule": [rule_label(r) if r != "cell" else "named cell"
-                                         for r in df["rule"]],
-        "cell": [str(c)[:12] for c in df["cell_id"]],
-        "rows": [f"{n:,} ({u})" for n, u in zip(df["n_rows"], df["rows_used"])],
-        "built": [str(t)[:19] for t in df["created_at"]], "by": df["user_name"],
-        "size": [_size(b) for b in df["artefact_bytes"]]})
-    notes = () if len(df) else ("note: no built models yet; `foldwise build --model LABEL` "
-                                "builds one from a sweep's pick.",)
-    return View("built models", table, notes=notes)
-
-
-def card_view(card: dict) -> View:
-    """A model card as a two-column table, one fact a row."""
-    cell, rows, data, scores = card["cell"], card["rows"], card["data"], card["scores"]
-    feats = card["features"]
-    cats = [f for f in feats if f["type"] == "categorical"]
-    facts = [
-        ("model id", card["model_id"]),
-        ("built", f"{card['created_at']} by {card['user']} on {card['host']}"),
-        ("task", card["task"]),
-        ("sweep", f"{card['sweep']['sweep_id']} ({card['sweep']['name']})"),
-        ("model", f"{cell['model']}: {cell['family']}, {cell['estimator']}"),
-        ("cell", f"{cell['cell_id']} — {params_text(cell['params'])}"),
-        ("chosen by", "cell named by id" if card["rule"] == "cell" else
-         f"{rule_label(card['rule'])} rule"),
-        ("rows", f"{rows['n']:,}: {rows['which']}"),
-        ("data", f"{data['path']}"),
-        ("data SHA-256", data["sha256"] + ("" if not data["accepted_other_data"] else
-                                           f" (the sweep's: {data['sweep_sha256']})")),
-        ("spec SHA-256", card["sweep"]["spec_sha256"]),
-        ("target", card["target"]["name"]),
-        ("input columns", f"{len(feats)}: {len(feats) - len(cats)} numeric, "
-                          f"{len(cats)} categorical"),
-    ]
-    for f in cats:
-        shown = ", ".join(f["categories"][:8]) + (", ..." if len(f["categories"]) > 8 else "")
-        facts.append((f"  {f['name']}", f"{len(f['categories'])} categories: {shown}"))
-    for metric, cv in scores["cv"].items():
-        test = scores["test"].get(metric)
-        facts.append((f"CV {metric_label(metric)}", mean_se(cv["mean"], cv["se"])
-                      + f" over {cv['folds']} folds"))
-        if test is not None:
-            facts.append((f"test {metric_label(metric)}", number(test)
-                          + ("" if scores["test_describes_this_model"] else
-                             " (of the refit on training rows; not of this model)")))
-    facts.append(("predicts", ", ".join(card["prediction_columns"])))
-    interval = card.get("interval")
-    facts.append(("intervals", f"split conformal on {interval['n']:,} held-out residuals "
-                  "(predict --interval LEVEL)" if interval else
-                  "none: no held-out rows (built on every row)"))
-    facts.append(("artefact", f"{card['artefact']['format']}, "
-                              f"{_size(card['artefact']['bytes'])}, SHA-256 "
-                              f"{card['artefact']['sha256']}"))
-    facts.append(("versions", ", ".join(f"{k} {v}" for k, v in card["versions"].items())))
-    table = pd.DataFrame(facts, columns=["", "value"])
-    sentences = tuple(s for s in [scores.get("note")] if s)
-    return View(f"model card {card['model_id']}", table, sentences=sentences)
-
-
-def coefficients_view(result: Coefficients) -> View:
-    """Signed coefficients per term: in the data's units and per standard deviation."""
-    df = result.table
-    table = pd.DataFrame({
-        "model": df["model"], "pick": [rule_label(p) if p and p != "cell" else p
-                                       for p in df["picked"]],
-        "term": df["term"], "coefficient": [number(v, 6) for v in df["coefficient"]],
-        "per SD": [number(v, 6) if not (_missing(s) and not _missing(f)) else ""
-                   for v, s, f in zip(df["standardised"], df["scale"], df["feature"])],
-        "mean": [number(v) for v in df["mean"]], "SD": [number(v) for v in df["scale"]]})
-    if df["class_label"].notna().any():
-        table.insert(2, "class", df["class_label"].fillna(""))
-    what = f"model {result.model_id}" if result.model_id else f"sweep {result.sweep_id}"
-    notes = () if len(df) else (f"note: {what} has no stored coefficients: they are kept "
-                                "for explained and built linear models.",)
-    return View(f"coefficients of {what}", table,
-                numeric=("coefficient", "per SD", "mean", "SD"),
-                sentences=("coefficient: change in the target per unit of the column (a "
-                           "category level: its indicator's coefficient); per SD: per "
-                           "standard deviation of the column in the fitting rows (the "
-                           "intercept: the prediction at every column's mean).",)
-                if len(df) else (),
-                notes=notes)
-
-
-def built_sentences(built) -> list[str]:
-    """What a build made, in a few lines."""
-    card = built.card
-    cell, rows = card["cell"], card["rows"]
-    chosen = "the named cell" if card["rule"] == "cell" else \
-        f"the {rule_label(card['rule'])} cell"
-    first = card["metrics"][0]
-    test = card["scores"]["test"].get(first)
-    lines = [f"built {built.model_id}: model '{cell['model']}' ({cell['family']}), {chosen} "
-             f"{cell['cell_id'][:12]} of sweep {card['sweep']['sweep_id']}, on {rows['n']:,} "
-             f"{'rows (training and test)' if rows['used'] == 'all' else 'training rows'}.",
-             f"  {built.artefact} ({_size(built.n_bytes)}, SHA-256 {built.sha256[:16]}…) and "
-             f"its card {built.card_file}; also kept in the store."]
-    if test is not None and card["scores"]["test_describes_this_model"]:
-        lines.append(f"  test {metric_label(first)} {number(test)}: the sweep's refit, "
-                     "rebuilt here.")
-    return lines + list(built.notes)
-
-
-def prediction_sentences(result) -> list[str]:
-    """What a prediction run wrote and met: counts, ignored columns, unseen categories."""
-    lines = [f"predicted {result.rows:,} rows in {result.chunks} chunk(s), "
-             f"{result.seconds:.1f} s -> {result.out} (columns: {', '.join(result.columns)})"]
-    if result.interval is not None:
-        lines.append(f"lower and upper: a {result.interval:g} split-conformal interval, "
-                     f"prediction ± {number(result.halfwidth)} (the model's residuals on "
-                     "the sweep's test rows; coverage holds on average over rows like them)")
-    if result.ignored:
-        more = ", ..." if len(result.ignored) > 10 else ""
-        lines.append(f"ignored {len(result.ignored)} column(s) the model does not use: "
-                     f"{', '.join(result.ignored[:10])}{more}")
-    for col, seen in result.unseen.items():
-        lines.append(f"unseen categories: {seen['rows']:,} row(s) of '{col}' hold categories "
-                     f"the model never saw (e.g. {', '.join(map(repr, seen['examples']))}); "
-                     f"{result.unseen_handling}.")
-    if result.missing:
-        shown = ", ".join(f"{c} {n:,}" for c, n in list(result.missing.items())[:8])
-        lines.append(f"missing values (filled or routed as in the sweep): {shown}")
-    return lines + list(result.notes)
-
-
-# -- the record of past sweeps ---------------------------------------------------------------
-_UNSHOWN = {i: " " for i in [*range(0, 32), *range(127, 160)]}
-
-
-def plain_text(text, limit: int | None = None) -> str:
-    """Text from a store (a label, a note, a spec line) safe to print: control characters
-    (escapes, line breaks) become spaces, and with `limit` it is cut to that many
-    characters with '…'."""
-    if _missing(text):
-        return ""
-    text = str(text).translate(_UNSHOWN)
-    return text if limit is None or len(text) <= limit else text[:limit - 1] + "…"
-
-
-def labels_text(labels) -> str:
-    """Labels (a dict or its JSON text) as 'key=value, ...', keys sorted."""
-    if isinstance(labels, str):
-        labels = json.loads(labels) if labels else {}
-    return ", ".join(f"{plain_text(k)}={plain_text(v, 60)}" for k, v in sorted(labels.items()))
-
-
-def _when(value) -> str:
-    return "" if _missing(value) or value is pd.NaT else f"{pd.Timestamp(value):%Y-%m-%d %H:%M}"
-
-
-def sweeps_view(result: SweepList, title: str | None = None) -> View:
-    """One line per sweep: id, spec name, status, start, rows, folds, size, labels, note."""
-    df = result.table
-    shown = pd.DataFrame({
-        "sweep": df["sweep_id"], "spec": df["name"].map(plain_text), "status": df["status"],
-        "started": df["started_at"].map(_when), "seconds": df["seconds"].map(number),
-        "rows (train / test)": [f"{a} / {b}" for a, b in zip(df["n_train"], df["n_test"])],
-        "folds": [f"{k} × {r}" for k, r in zip(df["k"], df["repeats"])],
-        "cells": df["cells"].map(number), "fold rows": df["fold_rows"].map(number),
-        "data": df["data"], "labels": df["labels"].map(labels_text),
-        "note": df["note"].map(lambda n: plain_text(n, 60))})
-    sentences = (f"seconds: {TIME_MEANING}.",)
-    if title is None:
-        title = (f"sweeps, newest first ({len(df)})" if result.selection == "every sweep" else
-                 f"sweeps with {plain_text(result.selection)}, newest first ({len(df)})")
-    return View(title, shown, ("seconds", "cells", "fold rows"), sentences)
-
-
-def removal_view(result: SweepList, rows: dict[str, int], *, done: bool = False) -> View:
-    """The sweeps a removal takes (or took), and the rows per table that go with them."""
-    n = len(result.table)
-    verb = "removed" if done else "would remove"
-    held = ", ".join(f"{number(v)} {t}" for t, v in rows.items() if v) or "no rows"
-    view = sweeps_view(result, f"{verb} {_count(n, 'sweep', 'sweeps')} "
-                               f"({plain_text(result.selection)})")
-    return View(view.title, view.table, view.numeric,
-                sentences=(f"{verb}, all in one transaction: {held}.",))
-
-
-def _side(params, keep, leaves=None) -> str:
-    return "—" if params is None else cell_text(params, keep, leaves)
-
-
-def diff_view(result: SweepDiff) -> View:
-    """What changed from sweep A to sweep B: the spec diff, data, plan, versions and labels
-    above; per model each sweep's picked cell, CV mean ± SE, paired change and test score."""
-    a, b, df = result.a, result.b, result.table
-    m = result.metric
-    lines = [f"A = sweep {a['sweep_id']} ({_when(a['started_at'])}, {a['status']}); "
-             f"B = sweep {b['sweep_id']} ({_when(b['started_at'])}, {b['status']}); "
-             f"spec '{plain_text(b['name'])}'" + ("" if a["name"] == b["name"] else
-                                                  f" (A: '{plain_text(a['name'])}')")]
-    if result.spec_diff:
-        lines += ["spec: changed"] + [f"  {plain_text(x)}" for x in result.spec_diff]
-    else:
-        lines.append("spec: same text")
-    rows_a, rows_b = f"{a['n_train']} / {a['n_test']}", f"{b['n_train']} / {b['n_test']}"
-    if result.data_same:
-        lines.append(f"data: same (SHA-256 {str(b['data_sha256'])[:12]}; {rows_b} training / "
-                     "test rows)")
-    else:
-        lines.append(f"data: changed (SHA-256 {str(a['data_sha256'])[:12]} → "
-                     f"{str(b['data_sha256'])[:12]}; training / test rows {rows_a} → {rows_b})")
-    lines.append({True: "plan: same", False: "plan: changed",
-                  None: "plan: not recorded for the older sweep"}[result.plan_same])
-    lines.append("versions: same" if not result.versions else "versions: changed: " + ", ".join(
-        f"{plain_text(k)} {plain_text(x)} → {plain_text(y)}"
-        for k, (x, y) in result.versions.items()))
-    if result.labels:
-        lines.append("labels: " + ", ".join(
-            f"{plain_text(k)} {plain_text(x) if x is not None else '(none)'} → "
-            f"{plain_text(y) if y is not None else '(none)'}" for k, (x, y) in result.labels.items()))
-    if (a["note"] or None) != (b["note"] or None):
-        lines.append(f"note: A {plain_text(a['note'], 80) or '(none)'!s}; "
-                     f"B {plain_text(b['note'], 80) or '(none)'}")
-    lines.append(f"folds: paired on identical folds ({result.shared_cells} shared cells)"
-                 if result.paired else f"folds: {result.not_paired}")
-    if m is None:
-        lines.append("the sweeps pick by different metrics, so their scores are not "
-                     "compared; each sweep's picks are shown.")
-    label = metric_label(m or "rmse") if m else "score"
-    paired = result.paired and m is not None
-    shown = pd.DataFrame({
-        "model": df["model"],
-        "A cell": [_side(p, result.varying.get(x, [])) for p, x in zip(df["params_a"], df["model"])],
-        "B cell": [_side(p, result.varying.get(x, [])) for p, x in zip(df["params_b"], df["model"])],
-        f"A CV {label}": [mean_se(x, e) for x, e in zip(df["mean_a"], df["se_a"])],
-        f"B CV {label}": [mean_se(x, e) for x, e in zip(df["mean_b"], df["se_b"])]})
-    numeric = [f"A CV {label}", f"B CV {label}"]
-    if paired:
-        shown["B − A paired (mean ± SE)"] = [mean_se(x, e) for x, e in
-                                              zip(df["mean_diff"], df["se"])]
-        shown["p"] = df["p_value"].map(p_text)
-        shown["Holm p"] = df["p_holm"].map(p_text)
-        shown["folds won A : B"] = ["" if _missing(x) else f"{int(x)} : {int(y)}"
-                                    for x, y in zip(df["wins_a"], df["wins_b"])]
-        numeric += ["B − A paired (mean ± SE)", "p", "Holm p", "folds won A : B"]
-    else:
-        shown["B − A"] = df["cv_change"].map(number)
-        numeric.append("B − A")
-    shown[f"test {label} A → B"] = [f"{number(x)} → {number(y)}" if not (_missing(x) and _missing(y))
-                                    else "" for x, y in zip(df["test_a"], df["test_b"])]
-    numeric.append(f"test {label} A → B")
-    title = (f"picked cell per model, each under its sweep's rule, by CV {label} "
-             f"({result.better} is better; {result.se} SE)")
-    sentences = tuple(_diff_sentence(r, label, result.better, paired)
-                      for r in df.itertuples(index=False))
-    caveats = (f"note: {APPROXIMATE_NOTE}",) if paired and df["p_value"].notna().any() else ()
-    if paired and df["p_value"].notna().sum() > 1:
-        caveats += ("note: one test per model; 'Holm p' adjusts each p for all of them "
-                    f"(Holm 1979), and a change is called clear only below {CLEAR_P:g}.",)
-    return View(title, shown, tuple(numeric), sentences=sentences, caveats=caveats,
-                preface=tuple(lines))
-
-
-def _diff_sentence(r, label: str, better: str, paired: bool) -> str:
-    if r.cell_a is None or r.cell_b is None:
-        where = "B" if r.cell_a is None else "A"
-        return f"{r.model}: no picked cell in sweep {where} (absent, or none complete)."
-    if paired and not _missing(r.mean_diff):
-        if r.same_cell and r.mean_diff == 0 and r.se == 0:
-            return f"{r.model}: the same cell in both sweeps, with identical fold scores."
-        p = r.p_holm if not _missing(r.p_holm) else r.p_value
-        b_better = (r.mean_diff < 0) == (better == "lower")
-        places = decimals_for(r.se)
-        change = (f"mean {label} change B − A {fixed(r.mean_diff, places)} ± "
-                  f"{fixed(r.se, places)}" if places is not None else
-                  f"mean {label} change B − A {number(r.mean_diff)}")
-        won = int(r.wins_b if b_better else r.wins_a)
-        side, other = ("B", "A") if b_better else ("A", "B")
-        same = " (the same cell)" if r.same_cell else ""
-        if not _missing(p) and p < CLEAR_P:
-            return (f"{r.model}: {side}'s pick{same} is better than {other}'s on {won} of "
-                    f"{int(r.folds)} paired folds; {change} ({p_text(r.p_value)}).")
-        return (f"{r.model}: no clear change{same}: {side} is better on {won} of "
-                f"{int(r.folds)} paired folds; {change} ({p_text(r.p_value)}).")
-    return (f"{r.model}: CV {label} {mean_se(r.mean_a, r.se_a)} → {mean_se(r.mean_b, r.se_b)}"
-            f"{' (not paired)' if not paired else ''}.")
-
-
-def history_view(result: ModelHistory) -> View:
-    """Per sweep (oldest first) and model: the picked cell, CV mean ± SE, test score, and
-    marks where the data, the spec or the pick changed."""
-    df, m = result.table, result.metric
-    several = len(result.models) > 1
-    shown = pd.DataFrame({"sweep": df["sweep_id"], "started": df["started_at"].map(_when),
-                          "status": df["status"]})
-    if several:
-        shown["model"] = df["model"]
-    shown["rule"] = df["rule"].map(rule_label)
-    shown["picked cell"] = [
-        "(no complete cell)" if p is None else
-        params_text(p, hide=get_family(f).defaults) for p, f in zip(df["params"], df["family"])]
-    shown[_cv_head(m)] = [mean_se(x, e) for x, e in zip(df["mean"], df["se"])]
-    shown[_test_head(m)] = df["test"].map(number)
-    shown["data"] = [f"{d} (changed)" if c else d for d, c in zip(df["data"], df["data_changed"])]
-    shown["changed"] = [", ".join(w for w, flag in (("spec", s), ("pick", p)) if flag)
-                        for s, p in zip(df["spec_changed"], df["pick_changed"])]
-    shown["labels"] = df["labels"].map(labels_text)
-    who = ", ".join(result.models) if several else result.models[0]
-    rule = "each sweep's rule" if result.rule is None else f"{rule_label(result.rule)} rule"
-    n = df["sweep_id"].nunique()
-    title = (f"{who} across {_count(n, 'sweep', 'sweeps')} of spec '{plain_text(result.name)}', "
-             f"oldest first: picked cell ({rule}) by CV {metric_label(m)} "
-             f"({result.better} is better, {result.se} SE)")
-    said = []
-    changed = df.loc[df["data_changed"], "sweep_id"].drop_duplicates().tolist()
-    if changed:
-        said.append(f"the data changed before sweep{'s' if len(changed) > 1 else ''} "
-                    f"{', '.join(changed)}.")
-    return View(title, shown, (_cv_head(m), _test_head(m)), sentences=tuple(said))

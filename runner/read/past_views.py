@@ -1,0 +1,208 @@
+"""The record of past sweeps as the terminal and the report show it: lists of sweeps with
+their labels and notes, what a removal takes, the diff of two sweeps and a model's history.
+The rules of numbers and labels are those of `views.py`."""
+
+from __future__ import annotations
+
+import json
+
+import pandas as pd
+
+from .compare import APPROXIMATE_NOTE
+from ..families import get_family
+from ..metrics import metric_label
+from .results import ModelHistory, SweepDiff, SweepList
+from .views import (CLEAR_P, TIME_MEANING, View, cell_text, count_text, cv_head, decimals_for,
+                    fixed, is_missing, mean_se, number, p_text, params_text, rule_label,
+                    test_head)
+
+__all__ = ["plain_text", "labels_text", "sweeps_view", "removal_view", "diff_view",
+           "history_view"]
+
+
+# -- the record of past sweeps ---------------------------------------------------------------
+_UNSHOWN = {i: " " for i in [*range(0, 32), *range(127, 160)]}
+
+
+def plain_text(text, limit: int | None = None) -> str:
+    """Text from a store (a label, a note, a spec line) safe to print: control characters
+    (escapes, line breaks) become spaces, and with `limit` it is cut to that many
+    characters with '…'."""
+    if is_missing(text):
+        return ""
+    text = str(text).translate(_UNSHOWN)
+    return text if limit is None or len(text) <= limit else text[:limit - 1] + "…"
+
+
+def labels_text(labels) -> str:
+    """Labels (a dict or its JSON text) as 'key=value, ...', keys sorted."""
+    if isinstance(labels, str):
+        labels = json.loads(labels) if labels else {}
+    return ", ".join(f"{plain_text(k)}={plain_text(v, 60)}" for k, v in sorted(labels.items()))
+
+
+def _when(value) -> str:
+    return "" if is_missing(value) or value is pd.NaT else f"{pd.Timestamp(value):%Y-%m-%d %H:%M}"
+
+
+def sweeps_view(result: SweepList, title: str | None = None) -> View:
+    """One line per sweep: id, spec name, status, start, rows, folds, size, labels, note."""
+    df = result.table
+    shown = pd.DataFrame({
+        "sweep": df["sweep_id"], "spec": df["name"].map(plain_text), "status": df["status"],
+        "started": df["started_at"].map(_when), "seconds": df["seconds"].map(number),
+        "rows (train / test)": [f"{a} / {b}" for a, b in zip(df["n_train"], df["n_test"])],
+        "folds": [f"{k} × {r}" for k, r in zip(df["k"], df["repeats"])],
+        "cells": df["cells"].map(number), "fold rows": df["fold_rows"].map(number),
+        "data": df["data"], "labels": df["labels"].map(labels_text),
+        "note": df["note"].map(lambda n: plain_text(n, 60))})
+    sentences = (f"seconds: {TIME_MEANING}.",)
+    if title is None:
+        title = (f"sweeps, newest first ({len(df)})" if result.selection == "every sweep" else
+                 f"sweeps with {plain_text(result.selection)}, newest first ({len(df)})")
+    return View(title, shown, ("seconds", "cells", "fold rows"), sentences)
+
+
+def removal_view(result: SweepList, rows: dict[str, int], *, done: bool = False) -> View:
+    """The sweeps a removal takes (or took), and the rows per table that go with them."""
+    n = len(result.table)
+    verb = "removed" if done else "would remove"
+    held = ", ".join(f"{number(v)} {t}" for t, v in rows.items() if v) or "no rows"
+    view = sweeps_view(result, f"{verb} {count_text(n, 'sweep', 'sweeps')} "
+                               f"({plain_text(result.selection)})")
+    return View(view.title, view.table, view.numeric,
+                sentences=(f"{verb}, all in one transaction: {held}.",))
+
+
+def _side(params, keep, leaves=None) -> str:
+    return "—" if params is None else cell_text(params, keep, leaves)
+
+
+def diff_view(result: SweepDiff) -> View:
+    """What changed from sweep A to sweep B: the spec diff, data, plan, versions and labels
+    above; per model each sweep's picked cell, CV mean ± SE, paired change and test score."""
+    a, b, df = result.a, result.b, result.table
+    m = result.metric
+    lines = [f"A = sweep {a['sweep_id']} ({_when(a['started_at'])}, {a['status']}); "
+             f"B = sweep {b['sweep_id']} ({_when(b['started_at'])}, {b['status']}); "
+             f"spec '{plain_text(b['name'])}'" + ("" if a["name"] == b["name"] else
+                                                  f" (A: '{plain_text(a['name'])}')")]
+    if result.spec_diff:
+        lines += ["spec: changed"] + [f"  {plain_text(x)}" for x in result.spec_diff]
+    else:
+        lines.append("spec: same text")
+    rows_a, rows_b = f"{a['n_train']} / {a['n_test']}", f"{b['n_train']} / {b['n_test']}"
+    if result.data_same:
+        lines.append(f"data: same (SHA-256 {str(b['data_sha256'])[:12]}; {rows_b} training / "
+                     "test rows)")
+    else:
+        lines.append(f"data: changed (SHA-256 {str(a['data_sha256'])[:12]} → "
+                     f"{str(b['data_sha256'])[:12]}; training / test rows {rows_a} → {rows_b})")
+    lines.append({True: "plan: same", False: "plan: changed",
+                  None: "plan: not recorded for the older sweep"}[result.plan_same])
+    lines.append("versions: same" if not result.versions else "versions: changed: " + ", ".join(
+        f"{plain_text(k)} {plain_text(x)} → {plain_text(y)}"
+        for k, (x, y) in result.versions.items()))
+    if result.labels:
+        lines.append("labels: " + ", ".join(
+            f"{plain_text(k)} {plain_text(x) if x is not None else '(none)'} → "
+            f"{plain_text(y) if y is not None else '(none)'}" for k, (x, y) in result.labels.items()))
+    if (a["note"] or None) != (b["note"] or None):
+        lines.append(f"note: A {plain_text(a['note'], 80) or '(none)'!s}; "
+                     f"B {plain_text(b['note'], 80) or '(none)'}")
+    lines.append(f"folds: paired on identical folds ({result.shared_cells} shared cells)"
+                 if result.paired else f"folds: {result.not_paired}")
+    if m is None:
+        lines.append("the sweeps pick by different metrics, so their scores are not "
+                     "compared; each sweep's picks are shown.")
+    label = metric_label(m or "rmse") if m else "score"
+    paired = result.paired and m is not None
+    shown = pd.DataFrame({
+        "model": df["model"],
+        "A cell": [_side(p, result.varying.get(x, [])) for p, x in zip(df["params_a"], df["model"])],
+        "B cell": [_side(p, result.varying.get(x, [])) for p, x in zip(df["params_b"], df["model"])],
+        f"A CV {label}": [mean_se(x, e) for x, e in zip(df["mean_a"], df["se_a"])],
+        f"B CV {label}": [mean_se(x, e) for x, e in zip(df["mean_b"], df["se_b"])]})
+    numeric = [f"A CV {label}", f"B CV {label}"]
+    if paired:
+        shown["B − A paired (mean ± SE)"] = [mean_se(x, e) for x, e in
+                                              zip(df["mean_diff"], df["se"])]
+        shown["p"] = df["p_value"].map(p_text)
+        shown["Holm p"] = df["p_holm"].map(p_text)
+        shown["folds won A : B"] = ["" if is_missing(x) else f"{int(x)} : {int(y)}"
+                                    for x, y in zip(df["wins_a"], df["wins_b"])]
+        numeric += ["B − A paired (mean ± SE)", "p", "Holm p", "folds won A : B"]
+    else:
+        shown["B − A"] = df["cv_change"].map(number)
+        numeric.append("B − A")
+    shown[f"test {label} A → B"] = [f"{number(x)} → {number(y)}" if not (is_missing(x) and is_missing(y))
+                                    else "" for x, y in zip(df["test_a"], df["test_b"])]
+    numeric.append(f"test {label} A → B")
+    title = (f"picked cell per model, each under its sweep's rule, by CV {label} "
+             f"({result.better} is better; {result.se} SE)")
+    sentences = tuple(_diff_sentence(r, label, result.better, paired)
+                      for r in df.itertuples(index=False))
+    caveats = (f"note: {APPROXIMATE_NOTE}",) if paired and df["p_value"].notna().any() else ()
+    if paired and df["p_value"].notna().sum() > 1:
+        caveats += ("note: one test per model; 'Holm p' adjusts each p for all of them "
+                    f"(Holm 1979), and a change is called clear only below {CLEAR_P:g}.",)
+    return View(title, shown, tuple(numeric), sentences=sentences, caveats=caveats,
+                preface=tuple(lines))
+
+
+def _diff_sentence(r, label: str, better: str, paired: bool) -> str:
+    if r.cell_a is None or r.cell_b is None:
+        where = "B" if r.cell_a is None else "A"
+        return f"{r.model}: no picked cell in sweep {where} (absent, or none complete)."
+    if paired and not is_missing(r.mean_diff):
+        if r.same_cell and r.mean_diff == 0 and r.se == 0:
+            return f"{r.model}: the same cell in both sweeps, with identical fold scores."
+        p = r.p_holm if not is_missing(r.p_holm) else r.p_value
+        b_better = (r.mean_diff < 0) == (better == "lower")
+        places = decimals_for(r.se)
+        change = (f"mean {label} change B − A {fixed(r.mean_diff, places)} ± "
+                  f"{fixed(r.se, places)}" if places is not None else
+                  f"mean {label} change B − A {number(r.mean_diff)}")
+        won = int(r.wins_b if b_better else r.wins_a)
+        side, other = ("B", "A") if b_better else ("A", "B")
+        same = " (the same cell)" if r.same_cell else ""
+        if not is_missing(p) and p < CLEAR_P:
+            return (f"{r.model}: {side}'s pick{same} is better than {other}'s on {won} of "
+                    f"{int(r.folds)} paired folds; {change} ({p_text(r.p_value)}).")
+        return (f"{r.model}: no clear change{same}: {side} is better on {won} of "
+                f"{int(r.folds)} paired folds; {change} ({p_text(r.p_value)}).")
+    return (f"{r.model}: CV {label} {mean_se(r.mean_a, r.se_a)} → {mean_se(r.mean_b, r.se_b)}"
+            f"{' (not paired)' if not paired else ''}.")
+
+
+def history_view(result: ModelHistory) -> View:
+    """Per sweep (oldest first) and model: the picked cell, CV mean ± SE, test score, and
+    marks where the data, the spec or the pick changed."""
+    df, m = result.table, result.metric
+    several = len(result.models) > 1
+    shown = pd.DataFrame({"sweep": df["sweep_id"], "started": df["started_at"].map(_when),
+                          "status": df["status"]})
+    if several:
+        shown["model"] = df["model"]
+    shown["rule"] = df["rule"].map(rule_label)
+    shown["picked cell"] = [
+        "(no complete cell)" if p is None else
+        params_text(p, hide=get_family(f).defaults) for p, f in zip(df["params"], df["family"])]
+    shown[cv_head(m)] = [mean_se(x, e) for x, e in zip(df["mean"], df["se"])]
+    shown[test_head(m)] = df["test"].map(number)
+    shown["data"] = [f"{d} (changed)" if c else d for d, c in zip(df["data"], df["data_changed"])]
+    shown["changed"] = [", ".join(w for w, flag in (("spec", s), ("pick", p)) if flag)
+                        for s, p in zip(df["spec_changed"], df["pick_changed"])]
+    shown["labels"] = df["labels"].map(labels_text)
+    who = ", ".join(result.models) if several else result.models[0]
+    rule = "each sweep's rule" if result.rule is None else f"{rule_label(result.rule)} rule"
+    n = df["sweep_id"].nunique()
+    title = (f"{who} across {count_text(n, 'sweep', 'sweeps')} of spec '{plain_text(result.name)}', "
+             f"oldest first: picked cell ({rule}) by CV {metric_label(m)} "
+             f"({result.better} is better, {result.se} SE)")
+    said = []
+    changed = df.loc[df["data_changed"], "sweep_id"].drop_duplicates().tolist()
+    if changed:
+        said.append(f"the data changed before sweep{'s' if len(changed) > 1 else ''} "
+                    f"{', '.join(changed)}.")
+    return View(title, shown, (cv_head(m), test_head(m)), sentences=tuple(said))
