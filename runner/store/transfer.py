@@ -166,13 +166,15 @@ def merge_store(store: Store, other: str | Path,
             sources = {t: s if t in theirs_tables else None for t, s in sources.items()}
         if sources["sweep_labels"] is None:  # an older store: no labels, but readable
             sources["sweep_labels"] = EMPTY_LABELS
-        theirs = con.execute(f"select sweep_id, status from {sources['sweeps']} s"
+        theirs = con.execute(f"select sweep_id, status, started_at from {sources['sweeps']} s"
                              + _chosen(con, sources, selection, other)).df()
         mine = set(con.execute("select sweep_id from sweeps").df()["sweep_id"])
         present = sorted(s for s in theirs["sweep_id"] if s in mine)
         running = sorted(theirs.loc[(theirs["status"] == "running")
                                     & ~theirs["sweep_id"].isin(mine), "sweep_id"])
-        new = sorted(set(theirs["sweep_id"]) - mine - set(running))
+        left_out = mine | set(running)
+        new = list(theirs.loc[~theirs["sweep_id"].isin(left_out)]
+                   .sort_values(["started_at", "sweep_id"])["sweep_id"].drop_duplicates())
         rows = {t: 0 for t in TABLES}
         con.register("_new_sweeps", pd.DataFrame({"sweep_id": new}, dtype=object))
         con.execute("begin")
