@@ -44,60 +44,6 @@ def _parents(t):
     return parent
 
 
-def _weakest_link_sequence(t, parent):
-    """Replay scikit-learn's weakest-link loop one step at a time; return (effective alphas,
-    pruned node ids). The plain reference that `_weakest_link_rounds` must equal."""
-    # Mirrors _cost_complexity_prune in sklearn/tree/_tree.pyx operation for
-    # operation so every floating-point value matches: node risk
-    # w * impurity / w_root, branch risks summed leaf by leaf in increasing leaf
-    # id, the smallest effective alpha chosen with ties going to the lowest node
-    # id, ancestors updated by += r_diff after each pruning.  Only ancestors'
-    # alphas are recomputed per step; the others are unchanged, so none differs.
-    n = t.node_count
-    left, right = t.children_left, t.children_right
-    r_node, r_branch, n_leaves = _initial_risks(t, _ancestors(parent))
-    score = np.full(n, np.inf)
-    internal = left != _LEAF
-    score[internal] = (r_node[internal] - r_branch[internal]) / (n_leaves[internal] - 1)
-
-    # Plain Python floats/ints below: IEEE double arithmetic, same as the C loop.
-    r_node_l, r_branch_l = r_node.tolist(), r_branch.tolist()
-    n_leaves_l, parent_l = n_leaves.tolist(), parent.tolist()
-    left_l, right_l = left.tolist(), right.tolist()
-    in_subtree = [True] * n
-    alphas, pruned = [], []
-    while left_l[0] != _LEAF:
-        p = int(np.argmin(score))
-        if score[p] == np.inf:
-            break
-        alphas.append(float(score[p]))
-        pruned.append(p)
-        stack = [p]  # drop the branch below p (already-dropped nodes are skipped)
-        while stack:
-            node = stack.pop()
-            if not in_subtree[node]:
-                continue
-            in_subtree[node] = False
-            score[node] = np.inf
-            if left_l[node] != _LEAF:
-                stack.append(left_l[node])
-                stack.append(right_l[node])
-        in_subtree[p] = True
-        if p == 0:
-            break  # the root is a leaf: the sequence is complete
-        n_pruned = n_leaves_l[p] - 1
-        n_leaves_l[p] = 0
-        r_diff = r_node_l[p] - r_branch_l[p]
-        r_branch_l[p] = r_node_l[p]
-        node = parent_l[p]
-        while node != -1:
-            n_leaves_l[node] -= n_pruned
-            r_branch_l[node] += r_diff
-            score[node] = (r_node_l[node] - r_branch_l[node]) / (n_leaves_l[node] - 1)
-            node = parent_l[node]
-    return np.asarray(alphas, dtype=np.float64), np.asarray(pruned, dtype=np.intp)
-
-
 def _ancestors(parent):
     """Strict ancestors of every node, nearest first: an (n, depth) matrix padded with -1."""
     step = np.append(parent, -1).astype(np.int32 if parent.size < 2**31 - 1 else np.intp)
@@ -149,7 +95,10 @@ rounding of its running sums, so its true value cannot reach them within the rou
 
 def _weakest_link_rounds(t, anc):
     """The weakest-link sequence in rounds of many prunings; returns (effective alphas,
-    pruned node ids, leaves each pruning removes), equal to `_weakest_link_sequence`.
+    pruned node ids, leaves each pruning removes), value for value those of the library's
+    one-at-a-time loop (_cost_complexity_prune in sklearn/tree/_tree.pyx): node risk
+    w * impurity / w_root, the smallest effective alpha first with ties to the lowest node
+    id, and each pruning's r_diff added to every ancestor's branch risk.
 
     A round sorts the current alphas (ties: lower node id first, as the library's scan) and
     takes the longest prefix the one-at-a-time loop would also take: it stops before a node
