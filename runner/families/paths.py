@@ -197,17 +197,19 @@ def _node_outputs(tree):
     return proba / normalizer
 
 
-_last_replay: list = [None, None]  # [the tree_ replayed last, its replay]
+_last_replay: list = [(None, None)]  # [(the tree_ replayed last, its replay)], swapped whole
 
 
 def _replay(tree):
     """(effective alphas, pruned node ids, leaves each pruning removes, ancestor matrix) of
     a fitted tree. The last tree's replay is kept, so several evaluation sets share it."""
     t = tree.tree_
-    if _last_replay[0] is not t:
+    kept, replay = _last_replay[0]
+    if kept is not t:
         anc = _ancestors(_parents(t))
-        _last_replay[:] = [t, (*_weakest_link_rounds(t, anc), anc)]
-    return _last_replay[1]
+        replay = (*_weakest_link_rounds(t, anc), anc)
+        _last_replay[0] = (t, replay)
+    return replay
 
 
 def _leaf_owners(t, anc, pruned, steps):
