@@ -233,7 +233,7 @@ def target_rows(runs: int, quick: bool = False) -> list[list]:
         ratio = median(times["plain"]) / median(times["foldwise"])
         bound = " (bound 1.875x)" if name == "forest" else ""
         rows.append([f"{label}: x GridSearchCV", f">= {GOALS[name]:g}x{bound}",
-                     f"{ratio:.1f}x (max |d| {diff:.2g})",
+                     f"{ratio:.2f}x (max |d| {diff:.2g})",
                      "PASS" if ratio >= GOALS[name] else "short"])
         if name == "tree":
             task, fit, outside = tree_path_share(case, max(runs, 3))
