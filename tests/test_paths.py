@@ -91,6 +91,27 @@ def test_pruned_tree_matches_refits(name, params, xf, yf):
         assert k == ref.get_n_leaves(), (name, a)
 
 
+def test_weakest_link_rounds_match_the_library_on_a_large_tree():
+    """Thousands of leaves: the rounds replay many prunings at once, so the order of every
+    pruning, the running branch risks and ties must all come out as in the library."""
+    X, y = _friedman(n=6000, p=10, seed=4)
+    X_tr, y_tr, X_ev = X[:5000], np.round(y[:5000], 1), X[5000:]  # rounding makes ties
+    tree = DecisionTreeRegressor(random_state=3).fit(X_tr, y_tr)
+    assert tree.get_n_leaves() > 2000
+    path = tree.cost_complexity_pruning_path(X_tr, y_tr).ccp_alphas
+    # reference: scikit-learn's own cost_complexity_pruning_path (every effective alpha)
+    assert np.array_equal(pruning_alphas(tree), path)
+
+    picks = np.unique(np.linspace(1, path.size - 1, 24).astype(int))
+    grid = np.concatenate([path[picks], (path[picks[:-1]] + path[picks[:-1] + 1]) / 2])
+    preds, n_leaves = pruned_tree_predictions(tree, X_ev, grid)
+    for a, p, k in zip(grid, preds, n_leaves):
+        # reference: scikit-learn's own ccp_alpha refits (DecisionTreeRegressor(ccp_alpha=a))
+        ref = DecisionTreeRegressor(random_state=3, ccp_alpha=a).fit(X_tr, y_tr)
+        assert np.array_equal(p, ref.predict(X_ev)), a
+        assert k == ref.get_n_leaves(), a
+
+
 def test_pruned_tree_zero_alpha_is_unpruned_and_constant_target():
     X, y = _friedman(n=200)
     tree = DecisionTreeRegressor(random_state=0).fit(X, y)

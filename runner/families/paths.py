@@ -4,7 +4,8 @@ Each function reproduces what separate scikit-learn fits would predict for every
 grid value, while fitting (or decomposing) only once:
 
 * regression trees: weakest-link (cost-complexity) pruning replayed on the
-  unpruned tree, bit-for-bit equal to refits with ``ccp_alpha``;
+  unpruned tree in rounds of many prunings, bit-for-bit equal to refits with
+  ``ccp_alpha``; one ``apply`` per evaluation set, then one gather per alpha;
 * random forests: running prefix means over the fitted trees, bit-for-bit equal
   to forests with fewer ``n_estimators``;
 * ridge: one SVD of the centred design shared by all ``alpha`` values;
@@ -43,88 +44,136 @@ def _parents(t):
     return parent
 
 
-def _weakest_link_sequence(t, parent):
-    """Replay scikit-learn's weakest-link loop; return (effective alphas, pruned node ids)."""
-    # Mirrors _cost_complexity_prune in sklearn/tree/_tree.pyx operation for
-    # operation so every floating-point value matches: node risk
-    # w * impurity / w_root, branch risks summed leaf by leaf in increasing leaf
-    # id, the smallest effective alpha chosen with ties going to the lowest node
-    # id, ancestors updated by += r_diff after each pruning.  Only ancestors'
-    # alphas are recomputed per step; the others are unchanged, so none differs.
+def _ancestors(parent):
+    """Strict ancestors of every node, nearest first: an (n, depth) matrix padded with -1."""
+    step = np.append(parent, -1).astype(np.int32 if parent.size < 2**31 - 1 else np.intp)
+    cols = [step[:-1]]
+    while True:
+        up = step[cols[-1]]  # the appended -1 answers -1
+        if up.max(initial=-1) < 0:
+            break
+        cols.append(up)
+    return np.stack(cols, axis=1)
+
+
+def _initial_risks(t, anc):
+    """Node risks, branch risks and leaf counts before any pruning, as the library sums them
+    (each ancestor adds its leaves' risks in increasing leaf id; bincount adds in order)."""
     n = t.node_count
-    left, right = t.children_left, t.children_right
     w = t.weighted_n_node_samples
     r_node = w * t.impurity / w[0]
-    is_leaf = left == _LEAF
-    leaves = np.flatnonzero(is_leaf)
-
-    # (ancestor, leaf) pairs, ordered by leaf id so that bincount adds each
-    # ancestor's leaf risks in the library's order (bincount sums sequentially).
-    anc_parts, leaf_parts = [], []
-    cur, ids = leaves, leaves
-    while cur.size:
-        keep = cur != 0
-        cur, ids = parent[cur[keep]], ids[keep]
-        anc_parts.append(cur)
-        leaf_parts.append(ids)
-    anc = np.concatenate(anc_parts)
-    order = np.argsort(np.concatenate(leaf_parts), kind="stable")
-    anc = anc[order]
-    leaf_of_pair = np.concatenate(leaf_parts)[order]
-    r_branch = np.bincount(anc, weights=r_node[leaf_of_pair], minlength=n)
+    leaves = np.flatnonzero(t.children_left == _LEAF)
+    up = anc[leaves]
+    real = up >= 0
+    pair_anc = up[real]  # row by row: leaf ids increase
+    r_branch = np.bincount(pair_anc, weights=np.repeat(r_node[leaves], real.sum(axis=1)),
+                           minlength=n)
     r_branch[leaves] = r_node[leaves]
-    n_leaves = np.bincount(anc, minlength=n)
+    n_leaves = np.bincount(pair_anc, minlength=n)
+    return r_node, r_branch, n_leaves
 
-    # Effective alpha of every candidate (inf once a node is no candidate);
-    # np.argmin returns the first minimum, i.e. the lowest node id on ties,
-    # exactly like the library's strict "<" scan.
-    score = np.full(n, np.inf)
-    internal = ~is_leaf
+
+def _preorder_spans(t, anc):
+    """Each node's subtree as a half-open span [start, stop) of preorder positions."""
+    n = t.node_count
+    left, right = t.children_left, t.children_right
+    size = np.bincount(anc[anc >= 0], minlength=n) + 1
+    depth = (anc >= 0).sum(axis=1)
+    start = np.zeros(n, dtype=np.intp)
+    internal = np.flatnonzero(left != _LEAF)
+    for d in range(int(depth.max(initial=0)) + 1):
+        lvl = internal[depth[internal] == d]
+        start[left[lvl]] = start[lvl] + 1
+        start[right[lvl]] = start[lvl] + 1 + size[left[lvl]]
+    return start, start + size
+
+
+_SLACK = 1e-9
+"""Relative margin by which an ancestor's alpha must exceed a round's prunings: far above the
+rounding of its running sums, so its true value cannot reach them within the round."""
+
+
+def _weakest_link_rounds(t, anc):
+    """The weakest-link sequence in rounds of many prunings; returns (effective alphas,
+    pruned node ids, leaves each pruning removes), value for value those of the library's
+    one-at-a-time loop (_cost_complexity_prune in sklearn/tree/_tree.pyx): node risk
+    w * impurity / w_root, the smallest effective alpha first with ties to the lowest node
+    id, and each pruning's r_diff added to every ancestor's branch risk.
+
+    A round sorts the current alphas (ties: lower node id first, as the library's scan) and
+    takes the longest prefix the one-at-a-time loop would also take: it stops before a node
+    whose alpha an earlier pruning of the round changes (an ancestor of it), skips nodes an
+    earlier pruning removes, and stops where an ancestor's alpha lies within `_SLACK` of
+    the round's (pruning a weakest link only raises its ancestors' alphas). Ancestors'
+    branch risks then receive each pruning's r_diff in pruning order, as in the library."""
+    n = t.node_count
+    r_node, r_branch, n_leaves = _initial_risks(t, anc)
+    # One extra slot at index n answers the -1 padding of `anc`.
+    r_node = np.append(r_node, 0.0)
+    r_branch = np.append(r_branch, 0.0)
+    n_leaves = np.append(n_leaves, 2)
+    score = np.full(n + 1, np.inf)
+    internal = np.flatnonzero(t.children_left != _LEAF)
     score[internal] = (r_node[internal] - r_branch[internal]) / (n_leaves[internal] - 1)
-
-    # Plain Python floats/ints below: IEEE double arithmetic, same as the C loop.
-    r_node_l, r_branch_l = r_node.tolist(), r_branch.tolist()
-    n_leaves_l, parent_l = n_leaves.tolist(), parent.tolist()
-    left_l, right_l = left.tolist(), right.tolist()
-    in_subtree = [True] * n
-    alphas, pruned = [], []
-    while left_l[0] != _LEAF:
-        p = int(np.argmin(score))
-        if score[p] == np.inf:
-            break
-        alphas.append(float(score[p]))
-        pruned.append(p)
-        stack = [p]  # drop the branch below p (already-dropped nodes are skipped)
-        while stack:
-            node = stack.pop()
-            if not in_subtree[node]:
-                continue
-            in_subtree[node] = False
-            score[node] = np.inf
-            if left_l[node] != _LEAF:
-                stack.append(left_l[node])
-                stack.append(right_l[node])
-        in_subtree[p] = True
-        if p == 0:
-            break  # the root is a leaf: the sequence is complete
-        n_pruned = n_leaves_l[p] - 1
-        n_leaves_l[p] = 0
-        r_diff = r_node_l[p] - r_branch_l[p]
-        r_branch_l[p] = r_node_l[p]
-        node = parent_l[p]
-        while node != -1:
-            n_leaves_l[node] -= n_pruned
-            r_branch_l[node] += r_diff
-            score[node] = (r_node_l[node] - r_branch_l[node]) / (n_leaves_l[node] - 1)
-            node = parent_l[node]
-    return np.asarray(alphas, dtype=np.float64), np.asarray(pruned, dtype=np.intp)
+    far = np.iinfo(np.intp).max
+    pos = np.full(n + 1, far, dtype=np.intp)
+    start, stop = _preorder_spans(t, anc)
+    cand = internal[np.argsort(start[internal], kind="stable")]  # candidates in preorder
+    alphas, pruned, drops = [], [], []
+    window = 1024
+    while cand.size and cand[0] == 0:  # the root, first in preorder, is still a candidate
+        sc = score[cand]
+        if window < cand.size:
+            edge = np.partition(sc, window - 1)[window - 1]
+            win = cand[sc <= edge]
+        else:
+            win = cand
+        win_score = score[win]
+        order = np.lexsort((win, win_score))
+        nodes, s = win[order], win_score[order]
+        m = nodes.size
+        pos[nodes] = np.arange(m)
+        up = anc[nodes]
+        up_pos = pos[up]
+        rank = np.arange(m)[:, None]
+        cut = min(m, int(np.where(up_pos > rank, up_pos, far).min()))
+        keep = np.flatnonzero(~(up_pos[:cut] < rank[:cut]).any(axis=1))
+        pos[nodes] = far
+        up = up[keep]
+        lowest = (score[up] - _SLACK * (np.abs(r_node[up]) + np.abs(r_branch[up]))).min(axis=1)
+        late = np.flatnonzero(s[keep][1:] >= np.minimum.accumulate(lowest)[:-1])
+        if late.size:
+            keep, up = keep[: late[0] + 1], up[: late[0] + 1]
+        P = nodes[keep]
+        real = up >= 0
+        reps = real.sum(axis=1)
+        flat = up[real]  # pruning by pruning, in pruning order
+        drop = n_leaves[P] - 1
+        np.add.at(r_branch, flat, np.repeat(r_node[P] - r_branch[P], reps))
+        np.subtract.at(n_leaves, flat, np.repeat(drop, reps))
+        r_branch[P] = r_node[P]
+        n_leaves[P] = 0
+        changed = flat  # repeats write the same value
+        score[changed] = (r_node[changed] - r_branch[changed]) / (n_leaves[changed] - 1)
+        score[P] = np.inf
+        alphas.append(s[keep])
+        pruned.append(P)
+        drops.append(drop)
+        first = start[cand]
+        cover = np.zeros(cand.size + 1, dtype=np.intp)
+        np.add.at(cover, np.searchsorted(first, start[P]), 1)
+        np.add.at(cover, np.searchsorted(first, stop[P]), -1)
+        cand = cand[np.cumsum(cover[:-1]) == 0]
+        window = max(64, 2 * cut)
+    if not alphas:
+        return np.empty(0), np.empty(0, dtype=np.intp), np.empty(0, dtype=np.intp)
+    return np.concatenate(alphas), np.concatenate(pruned), np.concatenate(drops)
 
 
 def pruning_alphas(tree):
     """Effective alphas of the weakest-link sequence, as ``cost_complexity_pruning_path`` gives."""
     _check_unpruned(tree)
-    seq, _ = _weakest_link_sequence(tree.tree_, _parents(tree.tree_))
-    return np.concatenate([[0.0], seq])
+    return np.concatenate([[0.0], _replay(tree)[0]])
 
 
 def _steps_for(seq, alphas):
@@ -148,6 +197,41 @@ def _node_outputs(tree):
     return proba / normalizer
 
 
+_last_replay: list = [(None, None)]  # [(the tree_ replayed last, its replay)], swapped whole
+
+
+def _replay(tree):
+    """(effective alphas, pruned node ids, leaves each pruning removes, ancestor matrix) of
+    a fitted tree. The last tree's replay is kept, so several evaluation sets share it."""
+    t = tree.tree_
+    kept, replay = _last_replay[0]
+    if kept is not t:
+        anc = _ancestors(_parents(t))
+        replay = (*_weakest_link_rounds(t, anc), anc)
+        _last_replay[0] = (t, replay)
+    return replay
+
+
+def _leaf_owners(t, anc, pruned, steps):
+    """For every leaf and each number of prunings in `steps`, the node it falls into in the
+    pruned tree: its topmost ancestor pruned by then (an ancestor is pruned after every
+    pruned node below it), or the leaf itself."""
+    leaves = np.flatnonzero(t.children_left == _LEAF)
+    step_of = np.full(t.node_count + 1, -1, dtype=np.intp)  # index -1: the padding
+    step_of[pruned] = np.arange(pruned.size)
+    up_step = step_of[anc[leaves]]
+    row, col = np.nonzero(up_step >= 0)
+    when = up_step[row, col]
+    # Column i holds the latest pruning step among those done within steps[i] prunings.
+    first = np.searchsorted(steps, when, side="right")
+    latest = np.full((leaves.size, steps.size + 1), -1, dtype=np.intp)
+    np.maximum.at(latest, (row, first), when)
+    latest = np.maximum.accumulate(latest[:, :-1], axis=1)
+    topmost = np.append(pruned, 0)[latest]  # index -1: no pruning yet, masked below
+    owners = np.where(latest >= 0, topmost, leaves[:, None])
+    return leaves, owners
+
+
 def pruned_tree_predictions(tree, X, alphas):
     """Predictions (values, or class probabilities of a classification tree) and leaf counts
     of refits with each ``ccp_alpha``, from one unpruned tree."""
@@ -156,40 +240,18 @@ def pruned_tree_predictions(tree, X, alphas):
     if np.any(~(alphas >= 0.0)):
         raise ValueError("ccp_alpha values must be non-negative")
     t = tree.tree_
-    parent = _parents(t)
-    seq, pruned = _weakest_link_sequence(t, parent)
-    prune_step = np.full(t.node_count, np.iinfo(np.intp).max, dtype=np.intp)
-    prune_step[pruned] = np.arange(pruned.size)
-
-    # Nodes grouped by depth, root first, for a top-down sweep.
-    levels, frontier = [], np.array([0], dtype=np.intp)
-    while frontier.size:
-        levels.append(frontier)
-        inner = frontier[t.children_left[frontier] != _LEAF]
-        frontier = np.concatenate([t.children_left[inner], t.children_right[inner]])
-    leaves = np.flatnonzero(t.children_left == _LEAF)
+    seq, pruned, drops, anc = _replay(tree)
+    steps = _steps_for(seq, alphas)
+    distinct, column = np.unique(steps, return_inverse=True)
+    leaves, owners = _leaf_owners(t, anc, pruned, distinct)
+    slot = np.empty(t.node_count, dtype=np.intp)
+    slot[leaves] = np.arange(leaves.size)
+    row_leaf = slot[tree.apply(X)]  # the estimator's own routing (dtype, NaN handling)
     value = _node_outputs(tree)
-    row_leaf = tree.apply(X)  # the estimator's own routing (dtype, NaN handling)
-
-    preds = np.empty((alphas.size, row_leaf.size, *value.shape[1:]), dtype=np.float64)
-    n_leaves = np.empty(alphas.size, dtype=np.intp)
-    done = {}
-    for j, s in enumerate(_steps_for(seq, alphas).tolist()):
-        if s not in done:
-            # After s steps a leaf of the pruned tree is the topmost node pruned so
-            # far on each path; an untouched original leaf stays itself.
-            collapsed = prune_step < s
-            owner = np.full(t.node_count, -1, dtype=np.intp)
-            owner[0] = 0 if collapsed[0] else -1
-            for lvl in levels[1:]:
-                up = owner[parent[lvl]]
-                owner[lvl] = np.where(up >= 0, up, np.where(collapsed[lvl], lvl, -1))
-            final = np.where(owner[leaves] >= 0, owner[leaves], leaves)
-            node_value = np.empty_like(value)
-            node_value[leaves] = value[final]
-            done[s] = (node_value[row_leaf], np.unique(final).size)
-        preds[j], n_leaves[j] = done[s]
-    return preds, n_leaves
+    preds = np.stack([value[owners[row_leaf, c]] for c in column.tolist()]) \
+        if alphas.size else np.empty((0, row_leaf.size, *value.shape[1:]))
+    removed = np.concatenate([[0], np.cumsum(drops)])
+    return preds.astype(np.float64, copy=False), leaves.size - removed[steps]
 
 
 # --------------------------------------------------------------------------

@@ -9,6 +9,7 @@ fewer fold scores than k·r is never picked."""
 
 from __future__ import annotations
 
+import functools
 import json
 import os
 import socket
@@ -33,7 +34,19 @@ __all__ = ["sweeps", "sweep_facts", "summary", "cell_stats", "picks", "complexit
            "paired_changes", "history_cells", "sweep_rows", "findings"]
 
 
+def _one_connection(read):
+    """Answer every query of one read on a single read-only connection (opening one per
+    query cost more than the queries on a large store); nested reads share it."""
+    @functools.wraps(read)
+    def on_one(store: Store, *args, **kwargs):
+        with store.reading():
+            return read(store, *args, **kwargs)
+
+    return on_one
+
+
 # -- sweeps ------------------------------------------------------------------------------
+@_one_connection
 def sweeps(store: Store, selection: Selection | None = None) -> SweepList:
     """One row per sweep, newest first, with its size, how it ended, labels and note;
     only the sweeps `selection` names when it is given.
@@ -138,6 +151,7 @@ def _classes(text) -> tuple:
     return tuple(labels) if isinstance(labels, list) else ()
 
 
+@_one_connection
 def sweep_record(store: Store, sweep_id: str) -> dict:
     """The sweep's stored row, with counts of what it holds: rows, cells wholly reused
     (`reused`) and the sweeps they came from (`reused_from`), and the worker seconds of
@@ -165,6 +179,7 @@ def sweep_record(store: Store, sweep_id: str) -> dict:
     return {**sweep, "counts": counts}
 
 
+@_one_connection
 def findings(store: Store, sweep_id: str | None = None) -> Findings:
     """What the sweep's leakage checks found, errors first, then by check and column."""
     facts = sweep_facts(store, sweep_id)
@@ -276,6 +291,7 @@ _CELLS_SQL = """
 """
 
 
+@_one_connection
 def cell_stats(store: Store, sweep_id: str | None = None, *, se: str = "plain",
                model: str | None = None, metric: str | None = None) -> CellStats:
     """Every cell with mean, SE, n, leaves, test score, why it is excluded, and marks
@@ -312,6 +328,7 @@ def cell_stats(store: Store, sweep_id: str | None = None, *, se: str = "plain",
     return CellStats(facts, metric, se, df, thresholds.to_dict())
 
 
+@_one_connection
 def picks(store: Store, sweep_id: str | None = None, *, rule: str | None = None,
           se: str = "plain", model: str | None = None) -> Picks:
     """The picked cell of each model: one row per model and rule (both rules when rule is None).
@@ -380,6 +397,7 @@ def coverage(store: Store, facts: SweepFacts, *, model: str | None = None):
     return Coverage(sweep_status(store, facts.sweep_id), counts)
 
 
+@_one_connection
 def summary(store: Store, sweep_id: str | None = None, *,
             rule: str | None = None) -> Summary:
     """Per model: its picked cell (the sweep's pick rule unless `rule` is given), mean ± SE
@@ -389,8 +407,9 @@ def summary(store: Store, sweep_id: str | None = None, *,
     plus `rule` and `failed_cells` (cells with a failed fit: never picked, see picks)."""
     check_rule(rule)
     facts = sweep_facts(store, sweep_id)
-    chosen = picks(store, facts.sweep_id, rule=rule or facts.rule)
-    rule = chosen.rules[0]
+    rule = rule or facts.rule
+    both = picks(store, facts.sweep_id)  # both rules: a best on the edge matters too
+    chosen = both.table[both.table["rule"] == rule]
     long = store.query("""
         with picked as (select unnest(?::varchar[]) as cell_id),
         sizes as (select c.model, c.family, count(*) as cells, min(c.position) as first_row,
@@ -409,13 +428,12 @@ def summary(store: Store, sweep_id: str | None = None, *,
         left join test_scores t
           on t.sweep_id = c.sweep_id and t.cell_id = c.cell_id and t.metric = s.metric
         order by z.first_row, s.metric""",
-                       [chosen.table["cell_id"].tolist(), facts.sweep_id, facts.sweep_id])
+                       [chosen["cell_id"].tolist(), facts.sweep_id, facts.sweep_id])
     if long.empty:  # nothing picked (e.g. every fit failed): an empty table, facts intact
         table = pd.DataFrame(columns=["model", "family", "cells", "failed_cells", "cell_id",
                                       "params", "rule"] + [f"{part}_{m}" for m in facts.metrics
                                                            for part in ("cv", "se", "test")])
-        return Summary(facts, rule, table, chosen.coverage, chosen.varying)
-    edges = picks(store, facts.sweep_id).edges  # both rules: a best on the edge matters too
+        return Summary(facts, rule, table, both.coverage, both.varying)
     wide = long.pivot_table(index=["first_row", "model", "family", "cells", "failed_cells",
                                    "cell_id", "params"],
                             columns="metric", values=["mean", "se", "test"], aggfunc="first")
@@ -429,7 +447,7 @@ def summary(store: Store, sweep_id: str | None = None, *,
         ordered += [f"cv_{m}", f"se_{m}", f"test_{m}"]
     out = out[[c for c in ordered if c in out.columns]].reset_index(drop=True)
     out.insert(6, "rule", rule)
-    return Summary(facts, rule, out, chosen.coverage, chosen.varying, edges)
+    return Summary(facts, rule, out, both.coverage, both.varying, both.edges)
 
 
 # -- the complexity table ------------------------------------------------------------------
@@ -449,6 +467,7 @@ def _shown_params(family: str, params_list: list[dict]) -> list[str]:
     return sorted(shown, key=lambda n: (order.index(n) if n in order else len(order), n))
 
 
+@_one_connection
 def complexity_table(store: Store, model: str, sweep_id: str | None = None, *,
                      se: str = "plain", metric: str | None = None) -> ComplexityTable:
     """Every cell of `model` in complexity order (rank 0 = simplest).
@@ -516,6 +535,7 @@ _PAIR_COLUMNS = ["model_a", "model_b", "cell_a", "cell_b", "metric", "folds", "m
                  "test_b", "test_diff"]
 
 
+@_one_connection
 def compare(store: Store, sweep_id: str | None = None, *, rule: str | None = None,
             se: str = "plain", metric: str | None = None) -> Comparison:
     """Every pair of models (spec order, a before b), their picked cells compared fold by fold.
