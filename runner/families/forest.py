@@ -9,6 +9,8 @@ mean of the trees' class probabilities, as the classifier's predict_proba averag
 
 from __future__ import annotations
 
+import copy
+
 from sklearn.ensemble import RandomForestClassifier, RandomForestRegressor
 from sklearn.pipeline import Pipeline
 
@@ -52,24 +54,36 @@ def _how(params: dict) -> str:
 
 def _prefix_path(group: list[dict], Xt_fit, y_fit, Xt_evals, *, seed: int,
                  task: str = "regression") -> list[CellFit]:
-    """Every forest size of the group from one fit of the largest."""
+    """Every forest size of the group from one fit of the largest; each cell also gets its
+    own forest (`CellFit.model`): the first k trees, as a k-tree fit with this seed grows."""
     sizes = [int(params.get("n_estimators", 100)) for params in group]
     forest = _forest(group[0], seed=seed, n_estimators=max(sizes), task=task).fit(Xt_fit,
                                                                                   y_fit)
-    fits = [CellFit() for _ in group]
+    fits = [CellFit(model=first_trees(forest, k)) for k in sizes]
     for X in Xt_evals:
         for fit, p in zip(fits, forest_prefix_predictions(forest, X, sizes)):
             fit.predictions.append(p)
     return fits
 
 
+def first_trees(forest, k: int):
+    """The forest of `forest`'s first k trees: a k-tree forest fitted with the same seed on
+    the same rows, since the trees' seeds are drawn in order."""
+    if k == len(forest.estimators_):
+        return forest
+    smaller = copy.copy(forest)
+    smaller.estimators_ = forest.estimators_[:k]
+    smaller.n_estimators = k
+    return smaller
+
+
 def fit_cells(cells, X_fit, y_fit, X_evals, *, seed, numeric, categorical, paths=True,
-              task="regression"):
+              task="regression", read=None):
     """Score every cell on the fitting rows: size grids from one forest, or (with
     `paths=False`, or a lone size) one fit per cell."""
     return fit_grouped(make_estimator, tree_preprocessor, _prefix_path, _how, PATH_PARAMS,
                        cells, X_fit, y_fit, X_evals, seed=seed, numeric=numeric,
-                       categorical=categorical, paths=paths, task=task)
+                       categorical=categorical, paths=paths, task=task, read=read)
 
 
 def fit_units(cells, *, paths=True):
