@@ -183,3 +183,27 @@ def test_refit_readings_are_keyed_for_the_explain_step(tmp_path, diabetes_csv):
     assert key == (prep.cells[0].cell_id, None) and kwargs["repeat"] == REFIT
     assert len(rows["test_predictions"]) == prep.plan.n_test
     assert rows["explained"] == [{"n_terms": len(prep.frame.features)}]
+
+
+def test_local_workers_read_mapped_data_and_score_the_same(tmp_path, diabetes_csv,
+                                                           monkeypatch):
+    # Source: the same sweep in one process (jobs=1), its rows cut and sent in this process.
+    import glob
+    import tempfile
+
+    from runner.write import executors
+
+    spec = spec_from(tmp_path, MODELS, explain="picked")
+    store = Store(tmp_path / "store.duckdb")
+    one = run_sweep(spec, store=store, jobs=1)
+    monkeypatch.setattr(executors, "SHARE_BYTES", 0)  # every data set goes through a file
+    before = set(glob.glob(f"{tempfile.gettempdir()}/foldwise-shared-*"))
+    two = run_sweep(spec, store=store, jobs=2, force_jobs=True, fresh=True)
+    assert set(glob.glob(f"{tempfile.gettempdir()}/foldwise-shared-*")) == before  # removed
+    for table in ("fold_scores", "test_scores", "importances", "fold_importances"):
+        cols = "* exclude (sweep_id, fit_seconds)" if "scores" in table else \
+            "* exclude (sweep_id)"
+        a, b = (store.query(f"select {cols} from {table} where sweep_id = ? order by all",
+                            [s]) for s in (one.sweep_id, two.sweep_id))
+        assert len(a) > 0
+        pd.testing.assert_frame_equal(a, b, check_exact=True, obj=table)
