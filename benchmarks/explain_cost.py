@@ -141,9 +141,20 @@ def watched(cmd: list[str], *, interval: float = 0.25) -> dict:
     return got
 
 
-def run_case(folder: Path, rows: int, cells: str, *, jobs: int = 2) -> dict:
+def stored_rows(store: Path) -> int:
+    """Rows of every table of a store (one sweep in it): what the sweep wrote."""
+    import duckdb
+
+    with duckdb.connect(str(store), read_only=True) as con:
+        tables = [t for (t,) in con.execute("select table_name from information_schema.tables"
+                                            " where table_type = 'BASE TABLE'").fetchall()]
+        return sum(con.execute(f'select count(*) from "{t}"').fetchone()[0] for t in tables)
+
+
+def run_case(folder: Path, rows: int, cells: str, *, jobs: int = 2,
+             count_rows: bool = False) -> dict:
     """One sweep of the case in a fresh process and store; what `watched` measures, plus
-    the store's size after the sweep."""
+    the store's size (and with `count_rows` its rows) after the sweep."""
     write_data(folder, rows)
     spec = write_spec(folder, rows, cells=cells, jobs=jobs)
     store = folder / f"store-{cells}-{time.monotonic_ns()}.duckdb"
@@ -151,7 +162,9 @@ def run_case(folder: Path, rows: int, cells: str, *, jobs: int = 2) -> dict:
     got.pop("stdout")
     got["store_bytes"] = store.stat().st_size + sum(
         p.stat().st_size for p in store.parent.glob(store.name + ".wal"))
-    got["data_bytes"] = (folder / "data.csv").stat().st_size
+    got["csv_bytes"] = (folder / "data.csv").stat().st_size
+    if count_rows:
+        got["rows_written"] = stored_rows(store)
     store.unlink()
     return got
 

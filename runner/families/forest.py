@@ -10,6 +10,10 @@ mean of the trees' class probabilities, as the classifier's predict_proba averag
 from __future__ import annotations
 
 import copy
+import functools
+import hashlib
+
+import numpy as np
 
 from sklearn.ensemble import RandomForestClassifier, RandomForestRegressor
 from sklearn.pipeline import Pipeline
@@ -60,10 +64,33 @@ def _prefix_path(group: list[dict], Xt_fit, y_fit, Xt_evals, *, seed: int,
     forest = _forest(group[0], seed=seed, n_estimators=max(sizes), task=task).fit(Xt_fit,
                                                                                   y_fit)
     fits = [CellFit(model=first_trees(forest, k)) for k in sizes]
+    if task != "classification" and len(set(sizes)) > 1:
+        shared = _SharedPredictions(forest, sizes)
+        for fit, k in zip(fits, sizes):  # what the explain step reads predicts once for all
+            fit.model.predict = functools.partial(shared.predict, k)
     for X in Xt_evals:
         for fit, p in zip(fits, forest_prefix_predictions(forest, X, sizes)):
             fit.predictions.append(p)
     return fits
+
+
+class _SharedPredictions:
+    """Every size's predictions of rows from one pass over the largest forest's trees
+    (`forest_prefix_predictions`, bit for bit each size's own predict), kept per distinct
+    rows: reading a size group (permutation importance shuffles the same rows for every
+    size) then walks the trees once instead of once per size."""
+
+    def __init__(self, forest, sizes: list[int]):
+        self.forest, self.sizes = forest, sorted(set(sizes))
+        self.seen: dict[tuple, dict[int, np.ndarray]] = {}
+
+    def predict(self, k: int, X) -> np.ndarray:
+        X = np.ascontiguousarray(X)
+        key = (X.shape, X.dtype.str, hashlib.blake2b(X.view(np.uint8)).digest())
+        if key not in self.seen:
+            preds = forest_prefix_predictions(self.forest, X, self.sizes)
+            self.seen[key] = dict(zip(self.sizes, preds))
+        return self.seen[key][k].copy()
 
 
 def first_trees(forest, k: int):
