@@ -104,6 +104,7 @@ class SweepResult:
     n_fitted: int = 0  # cells with at least one fold or refit computed by this sweep
     explain_seconds: float = 0.0  # of `seconds`, the explain step's share
     explain_refits: int = 0  # fits the explain step made (parts the sweep's fits lacked)
+    permutation_rows: int | None = None  # test rows each column's shuffles drew
 
 
 def check_spec(spec: Spec, *, lift_limits: bool = False
@@ -522,7 +523,8 @@ def run_sweep(spec: Spec, *, store: Store | None = None, jobs: int | None = None
         return SweepResult(sweep_id, str(store.path), status, len(prep.cells), counts["fold"],
                            counts["test"], counts["failed"], (ended - started_at).total_seconds(),
                            n_reused=len(reused), n_fitted=len(prep.cells) - len(reused),
-                           explain_seconds=explain_seconds, explain_refits=explained.refits)
+                           explain_seconds=explain_seconds, explain_refits=explained.refits,
+                           permutation_rows=explained.permutation_rows)
 
 
 def _ended(started_at: datetime, start: float) -> datetime:
