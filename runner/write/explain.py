@@ -1,12 +1,15 @@
-"""The explain step: refit a sweep's chosen cells on the documented folds and on all training
-rows, and store what the fits show, so plots and reports are built from the store alone.
+"""The explain step: store what a sweep's chosen cells show when fitted on the documented
+folds and on all training rows, so plots and reports are built from the store alone. What
+the sweep's own fits already read (`read_fold`, `read_refit`: cells fitted as their own
+model) is taken as it is; only the rest is refitted here, with the same results.
 
 For every chosen cell (by default each model's best and one-SE picks; the spec's
 `explain.cells` can ask for all cells or none) it writes:
 
 - `importances`: one row per original column and method, from the refit on all training
   rows. `permutation` (every family): scikit-learn's `permutation_importance` on the test
-  split, shuffling one original column at a time through the whole pipeline, scored with the
+  split, shuffling one original column at a time through the whole pipeline on
+  `explain.permutation.rows` test rows drawn for each column (`max_samples`), scored with the
   sweep's first metric; value = mean loss of score over the shuffles (for rmse: how much the
   test RMSE rises), spread = sd over the shuffles. `impurity` (trees, forests): the fitted
   model's impurity-based importances (shares of the total squared-error reduction, summing
