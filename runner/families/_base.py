@@ -38,6 +38,12 @@ class CellFit:
     error_kind: str | None = None
     error: str | None = None
     how: str = PLAIN  # "plain", or the path evaluator that scored it ("tree_path", ...)
+    reading: dict | None = None  # what `read` took from the fitted model (see fit_each)
+    model: object = None  # a group hook's exact model of this cell, until it is read
+
+
+Read = Callable[[object, object], dict]
+"""(fitted pipeline, fitting rows) -> what the explain step keeps of one cell's fit."""
 
 
 def tree_preprocessor(numeric: list[str], categorical: list[str]) -> ColumnTransformer:
@@ -94,10 +100,23 @@ def predict(estimator, X, task: str):
     return estimator.predict_proba(X) if task == "classification" else estimator.predict(X)
 
 
+def _read(read: Read | None, result: CellFit, pipeline, X_fit) -> None:
+    """Keep `read`'s reading of a fitted cell; a reading that fails is left out (the
+    explain step then refits that cell and meets the error itself)."""
+    if read is None:
+        return
+    try:
+        result.reading = read(pipeline, X_fit)
+    except Exception:
+        result.reading = None
+
+
 def fit_each(make_estimator: Callable, cells: list[dict], X_fit, y_fit, X_evals, *, seed: int,
              numeric: list[str], categorical: list[str],
-             leaves: Callable | None = None, task: str = "regression") -> list[CellFit]:
-    """Fit every cell separately on the same rows and predict each evaluation set."""
+             leaves: Callable | None = None, task: str = "regression",
+             read: Read | None = None) -> list[CellFit]:
+    """Fit every cell separately on the same rows and predict each evaluation set; with
+    `read`, also keep its reading of each fitted pipeline (`CellFit.reading`)."""
     out = []
     for params in cells:
         result = CellFit()
@@ -116,6 +135,8 @@ def fit_each(make_estimator: Callable, cells: list[dict], X_fit, y_fit, X_evals,
         except Exception as exc:  # a failed fit is data: recorded, the sweep goes on
             result.fit_seconds = time.perf_counter() - start
             _record_error(result, exc)
+        else:
+            _read(read, result, est, X_fit)
         out.append(result)
     return out
 
@@ -161,7 +182,9 @@ def work_units(cells: Sequence[dict], path_params: Sequence[str], *, paths: bool
 
 Evaluate = Callable[..., list[CellFit]]
 """(group params, Xt_fit, y_fit, Xt_evals, seed=..., task=...) -> one CellFit per cell,
-predictions set (values, or class probabilities for classification)."""
+predictions set (values, or class probabilities for classification); `CellFit.model` set to
+the cell's own fitted model where the group's fit holds it exactly (a forest's first trees),
+so it can be read like a plain fit."""
 
 
 def fit_grouped(make_estimator: Callable, preprocessor: Callable, evaluate: Evaluate,
@@ -169,7 +192,7 @@ def fit_grouped(make_estimator: Callable, preprocessor: Callable, evaluate: Eval
                 X_fit, y_fit, X_evals, *, seed: int, numeric: list[str],
                 categorical: list[str], paths: bool = True, leaves: Callable | None = None,
                 eligible: Callable[[dict], bool] | None = None,
-                task: str = "regression") -> list[CellFit]:
+                task: str = "regression", read: Read | None = None) -> list[CellFit]:
     """Score every cell: each group of path-sharing cells from one fit, the rest one by one.
 
     `how(params)` names the path evaluator a group runs, recorded in `CellFit.how` (also
@@ -180,16 +203,19 @@ def fit_grouped(make_estimator: Callable, preprocessor: Callable, evaluate: Eval
     `fit_seconds` of a grouped cell is an equal share of its group's time: the group's share
     of the preprocessing, its one fit and the derivation of all its cells' predictions. So
     summing `fit_seconds` over cells gives the compute time spent, whichever way they ran.
-    `n_warnings` of a grouped cell counts the warnings its group's one fit raised."""
+    `n_warnings` of a grouped cell counts the warnings its group's one fit raised.
+    With `read`, every plain fit is read, and a grouped cell where the hook hands back its
+    exact model; other grouped cells have no reading (the explain step refits them)."""
     if not paths:
         return fit_each(make_estimator, cells, X_fit, y_fit, X_evals, seed=seed,
-                        numeric=numeric, categorical=categorical, leaves=leaves, task=task)
+                        numeric=numeric, categorical=categorical, leaves=leaves, task=task,
+                        read=read)
     together, alone = path_groups(cells, path_params, eligible)
     out: list[CellFit | None] = [None] * len(cells)
     if alone:
         plain = fit_each(make_estimator, [cells[i] for i in alone], X_fit, y_fit, X_evals,
                          seed=seed, numeric=numeric, categorical=categorical, leaves=leaves,
-                         task=task)
+                         task=task, read=read)
         for i, fit in zip(alone, plain):
             out[i] = fit
     if together:
@@ -208,6 +234,9 @@ def fit_grouped(make_estimator: Callable, preprocessor: Callable, evaluate: Eval
                                    Xt_evals, seed, task)
             for i, fit in zip(members, fits):
                 fit.how = how(group[0])
+                if fit.model is not None and fit.error is None:
+                    _read(read, fit, Pipeline([("prep", prep), ("model", fit.model)]), X_fit)
+                fit.model = None  # the fitted model leaves no task
                 out[i] = fit
     return out  # type: ignore[return-value]
 

@@ -9,6 +9,12 @@ mean of the trees' class probabilities, as the classifier's predict_proba averag
 
 from __future__ import annotations
 
+import copy
+import functools
+import hashlib
+
+import numpy as np
+
 from sklearn.ensemble import RandomForestClassifier, RandomForestRegressor
 from sklearn.pipeline import Pipeline
 
@@ -52,24 +58,59 @@ def _how(params: dict) -> str:
 
 def _prefix_path(group: list[dict], Xt_fit, y_fit, Xt_evals, *, seed: int,
                  task: str = "regression") -> list[CellFit]:
-    """Every forest size of the group from one fit of the largest."""
+    """Every forest size of the group from one fit of the largest; each cell also gets its
+    own forest (`CellFit.model`): the first k trees, as a k-tree fit with this seed grows."""
     sizes = [int(params.get("n_estimators", 100)) for params in group]
     forest = _forest(group[0], seed=seed, n_estimators=max(sizes), task=task).fit(Xt_fit,
                                                                                   y_fit)
-    fits = [CellFit() for _ in group]
+    fits = [CellFit(model=first_trees(forest, k)) for k in sizes]
+    if task != "classification" and len(set(sizes)) > 1:
+        shared = _SharedPredictions(forest, sizes)
+        for fit, k in zip(fits, sizes):  # what the explain step reads predicts once for all
+            fit.model.predict = functools.partial(shared.predict, k)
     for X in Xt_evals:
         for fit, p in zip(fits, forest_prefix_predictions(forest, X, sizes)):
             fit.predictions.append(p)
     return fits
 
 
+class _SharedPredictions:
+    """Every size's predictions of rows from one pass over the largest forest's trees
+    (`forest_prefix_predictions`, bit for bit each size's own predict), kept per distinct
+    rows: reading a size group (permutation importance shuffles the same rows for every
+    size) then walks the trees once instead of once per size."""
+
+    def __init__(self, forest, sizes: list[int]):
+        self.forest, self.sizes = forest, sorted(set(sizes))
+        self.seen: dict[tuple, dict[int, np.ndarray]] = {}
+
+    def predict(self, k: int, X) -> np.ndarray:
+        X = np.ascontiguousarray(X)
+        key = (X.shape, X.dtype.str, hashlib.blake2b(X.view(np.uint8)).digest())
+        if key not in self.seen:
+            preds = forest_prefix_predictions(self.forest, X, self.sizes)
+            self.seen[key] = dict(zip(self.sizes, preds))
+        return self.seen[key][k].copy()
+
+
+def first_trees(forest, k: int):
+    """The forest of `forest`'s first k trees: a k-tree forest fitted with the same seed on
+    the same rows, since the trees' seeds are drawn in order."""
+    if k == len(forest.estimators_):
+        return forest
+    smaller = copy.copy(forest)
+    smaller.estimators_ = forest.estimators_[:k]
+    smaller.n_estimators = k
+    return smaller
+
+
 def fit_cells(cells, X_fit, y_fit, X_evals, *, seed, numeric, categorical, paths=True,
-              task="regression"):
+              task="regression", read=None):
     """Score every cell on the fitting rows: size grids from one forest, or (with
     `paths=False`, or a lone size) one fit per cell."""
     return fit_grouped(make_estimator, tree_preprocessor, _prefix_path, _how, PATH_PARAMS,
                        cells, X_fit, y_fit, X_evals, seed=seed, numeric=numeric,
-                       categorical=categorical, paths=paths, task=task)
+                       categorical=categorical, paths=paths, task=task, read=read)
 
 
 def fit_units(cells, *, paths=True):

@@ -104,14 +104,14 @@ def _alpha_path(group: list[dict], Xt_fit, y_fit, Xt_evals, *, seed: int,
 
 
 def fit_cells(cells, X_fit, y_fit, X_evals, *, seed, numeric, categorical, paths=True,
-              task="regression"):
+              task="regression", read=None):
     """Score every cell on the fitting rows: alpha grids from one SVD or path per penalty and
     l1_ratio, or (with `paths=False`, least squares, a lone alpha, or classes: logistic
     regression has no exact one-fit route here) one fit per cell."""
     return fit_grouped(make_estimator, linear_preprocessor, _alpha_path, _how, PATH_PARAMS,
                        cells, X_fit, y_fit, X_evals, seed=seed, numeric=numeric,
                        categorical=categorical, paths=paths and task == "regression",
-                       eligible=_penalised, task=task)
+                       eligible=_penalised, task=task, read=read)
 
 
 def fit_units(cells, *, paths=True):

@@ -104,12 +104,13 @@ def _pruning_path(group: list[dict], Xt_fit, y_fit, Xt_evals, *, seed: int,
 
 
 def fit_cells(cells, X_fit, y_fit, X_evals, *, seed, numeric, categorical, paths=True,
-              task="regression"):
+              task="regression", read=None):
     """Score every cell on the fitting rows: alpha grids from one unpruned fit, or (with
     `paths=False`, or a lone alpha) one fit per cell."""
     return fit_grouped(make_estimator, tree_preprocessor, _pruning_path, _how, PATH_PARAMS,
                        cells, X_fit, y_fit, X_evals, seed=seed, numeric=numeric,
-                       categorical=categorical, paths=paths, leaves=_leaves, task=task)
+                       categorical=categorical, paths=paths, leaves=_leaves, task=task,
+                       read=read)
 
 
 def fit_units(cells, *, paths=True):

@@ -18,6 +18,7 @@ share of its group's time (see `families._base.fit_grouped`)."""
 from __future__ import annotations
 
 import contextlib
+import functools
 import getpass
 import json
 import math
@@ -37,7 +38,7 @@ import pandas as pd
 from .. import __version__
 from .budget import check_limits, check_plan_memory, data_limit_bytes, plan_size
 from ..errors import FoldwiseError
-from .explain import explain_sweep
+from .explain import explain_sweep, keyed, read_fold, read_refit
 from .executors import DaskExecutor, LocalExecutor, make_executor
 from ..families import load_family
 from .grid import Cell
@@ -101,6 +102,9 @@ class SweepResult:
     seconds: float
     n_reused: int = 0  # cells whose every row was copied from earlier sweeps
     n_fitted: int = 0  # cells with at least one fold or refit computed by this sweep
+    explain_seconds: float = 0.0  # of `seconds`, the explain step's share
+    explain_refits: int = 0  # fits the explain step made (parts the sweep's fits lacked)
+    permutation_rows: int | None = None  # test rows each column's shuffles drew
 
 
 def check_spec(spec: Spec, *, lift_limits: bool = False
@@ -175,14 +179,18 @@ def _versions() -> dict:
 
 def _run_task(family: str, cells: list[tuple[str, dict]], X_fit, y_fit, X_eval, y_eval, *,
               seed: int, repeat: int, fold: int, metrics: list[str], numeric, categorical,
-              paths: bool = True, task: str = "regression", classes: list | None = None):
-    """Fit some of a model's cells on one fold (or the refit) and return their score rows."""
+              paths: bool = True, task: str = "regression", classes: list | None = None,
+              explain: dict | None = None):
+    """Fit some of a model's cells on one fold (or the refit) and return their score rows,
+    failures and, with `explain`, what the explain step keeps of each fit (`_reader`)."""
     from sklearn import config_context
 
     module = load_family(family)
+    read = _reader(family, explain, X_eval, y_eval, task, classes)
     fits = module.fit_cells([p for _, p in cells], X_fit, y_fit, [X_eval], seed=seed,
-                            numeric=numeric, categorical=categorical, paths=paths, task=task)
-    scores, failures = [], []
+                            numeric=numeric, categorical=categorical, paths=paths, task=task,
+                            read=read)
+    scores, failures, readings = [], [], []
     good = []
     for (cid, _), fit in zip(cells, fits):
         if fit.error is None and task == "classification" and \
@@ -195,6 +203,11 @@ def _run_task(family: str, cells: list[tuple[str, dict]], X_fit, y_fit, X_eval, 
                              "kind": fit.error_kind, "message": fit.error})
         else:
             good.append((cid, fit))
+            if fit.reading is not None:
+                key = {"cell_id": cid} if fold == REFIT else {"cell_id": cid, "repeat": repeat,
+                                                               "fold": fold}
+                readings.append(((cid, None if fold == REFIT else (repeat, fold)),
+                                 keyed(fit.reading, **key)))
     if good:
         # The metric arguments are ours and valid: skip scikit-learn's parameter checks
         # (only the argument validation is skipped; values are computed as always).
@@ -208,7 +221,20 @@ def _run_task(family: str, cells: list[tuple[str, dict]], X_fit, y_fit, X_eval, 
                                "n_valid": len(y_eval), "seed": seed,
                                "n_leaves": fit.n_leaves, "how": fit.how,
                                "n_warnings": fit.n_warnings})
-    return scores, failures
+    return scores, failures, readings
+
+
+def _reader(family: str, explain: dict | None, X_test, y_test, task: str, classes):
+    """The explain step's reading of a fitted cell, or None: a fold's own importances and
+    tree shape, or the refit's permutation importances, test predictions and the rest."""
+    if explain is None:
+        return None
+    if explain["kind"] == "fold":
+        return functools.partial(read_fold, family)
+    settings = {k: v for k, v in explain.items() if k != "kind"}
+    return lambda est, X_train: read_refit(family, est, X_train, X_test=X_test,
+                                           y_test=y_test, task=task, classes=classes,
+                                           **settings)
 
 
 def _score(good: list, y_eval, metrics: list[str], task: str, classes) -> dict[str, list]:
@@ -284,13 +310,43 @@ def _plan_tasks(prep: Prepared, *, paths: bool = True, n_workers: int = 1,
     return tasks
 
 
+_READINGS_CAP = 4_000_000
+"""The most numbers the sweep keeps in memory for the explain step, per kind (the folds'
+importances, the refits' test predictions); a sweep larger than that leaves those readings
+to the explain step's own refits of the chosen cells."""
+
+
+def _readings_plan(prep: Prepared) -> tuple[bool, bool]:
+    """Whether the fold tasks and the refit tasks read their fits for the explain step.
+
+    The folds' readings (own importances, a tree's shape) cost little next to the fits
+    and spare the explain step every fold refit; the refit's readings add a permutation
+    importance per cell the sweep fits exactly, about the cost of one more refit of it
+    for a forest, to spare the refit of the chosen ones. Neither is kept when the spec
+    explains no cell, nor beyond `_READINGS_CAP` numbers (decided by arithmetic)."""
+    if prep.spec.explain.cells == "none":
+        return False, False
+    n_cells, n_features = len(prep.cells), len(prep.frame.features)
+    folds = n_cells * len(prep.plan.folds) * (n_features + 4) <= _READINGS_CAP
+    refit = n_cells * (prep.plan.n_test + 3 * n_features) <= _READINGS_CAP
+    return folds, refit
+
+
 def _shared_data(prep: Prepared, *, paths: bool) -> dict:
-    """What every task reads: the training and test rows and the settings of every fit."""
-    frame = prep.frame
+    """What every task reads: the training and test rows, the settings of every fit and
+    what the fold and refit tasks read for the explain step (`_readings_plan`)."""
+    frame, spec = prep.frame, prep.spec
+    folds, refit = _readings_plan(prep)
+    perm = spec.explain.permutation
     return dict(**prep.split, refit_seed=refit_seed(prep.plan.seed),
-                common=dict(metrics=prep.spec.metrics, numeric=frame.numeric,
+                common=dict(metrics=spec.metrics, numeric=frame.numeric,
                             categorical=frame.categorical, paths=paths, task=frame.task,
-                            classes=frame.classes))
+                            classes=frame.classes),
+                explain_fold={"kind": "fold"} if folds else None,
+                explain_refit=dict(kind="refit", test_rows=prep.plan.test_rows,
+                                   metric=spec.metrics[0], repeats=perm.repeats,
+                                   perm_seed=perm.seed, perm_rows=perm.rows)
+                if refit else None)
 
 
 def _task_call(data: dict, task: _Task) -> tuple[tuple, dict]:
@@ -299,9 +355,11 @@ def _task_call(data: dict, task: _Task) -> tuple[tuple, dict]:
     if f is not None:
         return ((task.family, task.cells, X_train.iloc[f.fit], y_train[f.fit],
                  X_train.iloc[f.valid], y_train[f.valid]),
-                dict(seed=f.seed, repeat=f.repeat, fold=f.fold, **data["common"]))
+                dict(seed=f.seed, repeat=f.repeat, fold=f.fold, **data["common"],
+                     explain=data["explain_fold"]))
     return ((task.family, task.cells, X_train, y_train, data["X_test"], data["y_test"]),
-            dict(seed=data["refit_seed"], repeat=REFIT, fold=REFIT, **data["common"]))
+            dict(seed=data["refit_seed"], repeat=REFIT, fold=REFIT, **data["common"],
+                 explain=data["explain_refit"]))
 
 
 def _new_sweep_id() -> str:
@@ -402,6 +460,7 @@ def run_sweep(spec: Spec, *, store: Store | None = None, jobs: int | None = None
         counts = {"fold": copied[0], "test": copied[1], "failed": 0}
         why: Counter = Counter()  # (error kind, first line of its message) -> fits
         buffer: list = []
+        readings: dict = {}  # (cell id, fold key) -> explain rows read from the fits
         last_flush = time.monotonic()
 
         def flush():
@@ -409,7 +468,8 @@ def run_sweep(spec: Spec, *, store: Store | None = None, jobs: int | None = None
             if not buffer:
                 return
             fold_rows, test_rows, fail_rows = [], [], []
-            for scores, failures in buffer:
+            for scores, failures, read in buffer:
+                readings.update(read)
                 for row in scores:
                     row["sweep_id"] = sweep_id
                     (test_rows if row["repeat"] == REFIT else fold_rows).append(row)
@@ -444,8 +504,11 @@ def run_sweep(spec: Spec, *, store: Store | None = None, jobs: int | None = None
             flush()
             if counts["fold"] == 0 and counts["failed"]:
                 raise SweepFailed(_all_failed(sweep_id, counts["failed"], why, store.path))
-            explain_sweep(spec, store, sweep_id, prepared=prep, jobs=n_jobs, reuse=not fresh,
-                          executor=executor, before_refits=hold.close if quick else None)
+            explain_start = time.perf_counter()
+            explained = explain_sweep(spec, store, sweep_id, prepared=prep, jobs=n_jobs,
+                                      reuse=not fresh, executor=executor, readings=readings,
+                                      before_refits=hold.close if quick else None)
+            explain_seconds = time.perf_counter() - explain_start
         except KeyboardInterrupt:
             status = "interrupted"
             flush()
@@ -459,7 +522,9 @@ def run_sweep(spec: Spec, *, store: Store | None = None, jobs: int | None = None
         store.finish_sweep(sweep_id, status, ended)
         return SweepResult(sweep_id, str(store.path), status, len(prep.cells), counts["fold"],
                            counts["test"], counts["failed"], (ended - started_at).total_seconds(),
-                           n_reused=len(reused), n_fitted=len(prep.cells) - len(reused))
+                           n_reused=len(reused), n_fitted=len(prep.cells) - len(reused),
+                           explain_seconds=explain_seconds, explain_refits=explained.refits,
+                           permutation_rows=explained.permutation_rows)
 
 
 def _ended(started_at: datetime, start: float) -> datetime:

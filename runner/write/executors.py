@@ -53,9 +53,66 @@ def watch_parent(parent: int, interval: float = PARENT_CHECK_SECONDS) -> None:
     threading.Thread(target=watch, name="foldwise-watch-parent", daemon=True).start()
 
 
+SHARE_BYTES = 8 * 2 ** 20
+"""Shared data of at least this size reach local workers through a memory-mapped file
+instead of inside every task."""
+
+
+def _data_bytes(data: dict) -> int:
+    """The bytes of the row tables in a task's shared data."""
+    total = 0
+    for value in data.values():
+        if hasattr(value, "memory_usage"):
+            total += int(value.memory_usage(index=False, deep=False).sum())
+        elif hasattr(value, "nbytes"):
+            total += int(value.nbytes)
+    return total
+
+
+class _SharedFile:
+    """The shared data written once to a file that every local worker maps (joblib's
+    memory mapping: numeric columns are read from the page cache, not copied into each
+    worker), and removed when the tasks are done."""
+
+    def __init__(self, data: dict):
+        import tempfile
+
+        import joblib
+
+        self.folder = tempfile.mkdtemp(prefix="foldwise-shared-")
+        self.path = os.path.join(self.folder, "data.joblib")
+        joblib.dump(data, self.path)
+
+    def close(self) -> None:
+        import shutil
+
+        shutil.rmtree(self.folder, ignore_errors=True)
+
+
+_MAPPED: dict[str, dict] = {}
+
+
+def _mapped(path: str) -> dict:
+    """The shared data of `path`, mapped once per worker process (the latest file only)."""
+    if path not in _MAPPED:
+        import joblib
+
+        _MAPPED.clear()
+        _MAPPED[path] = joblib.load(path, mmap_mode="r")
+    return _MAPPED[path]
+
+
+def _on_local_worker(work: Callable, unpack: Unpack, path: str, item):
+    """Run one task on a local worker: its rows are cut here from the mapped data."""
+    args, kwargs = unpack(_mapped(path), item)
+    return work(*args, **kwargs)
+
+
 class LocalExecutor:
     """joblib worker processes on this machine (`jobs`: -1 = every core), each of which
-    exits when this process is gone (`watch_parent`)."""
+    exits when this process is gone (`watch_parent`). Shared data of `SHARE_BYTES` or more
+    are written once to a file the workers memory-map, and each worker cuts its tasks' rows
+    from it; smaller data travel inside each task, cut here."""
 
     name = "local"
 
@@ -78,12 +135,22 @@ class LocalExecutor:
         """Each item's result, in the order the tasks finish."""
         from joblib import Parallel, delayed, parallel_config
 
-        calls = (unpack(data, item) for item in items)
-        with parallel_config(backend="loky", initializer=watch_parent,
-                             initargs=(os.getpid(),)):
-            results = Parallel(n_jobs=self.jobs, return_as="generator_unordered")(
-                delayed(work)(*args, **kw) for args, kw in calls)
-        yield from results
+        shared = None
+        if self.n_workers > 1 and _data_bytes(data) >= SHARE_BYTES:
+            shared = _SharedFile(data)
+            run, calls = _on_local_worker, (((work, unpack, shared.path, item), {})
+                                            for item in items)
+        else:
+            run, calls = work, (unpack(data, item) for item in items)
+        try:
+            with parallel_config(backend="loky", initializer=watch_parent,
+                                 initargs=(os.getpid(),)):
+                results = Parallel(n_jobs=self.jobs, return_as="generator_unordered")(
+                    delayed(run)(*args, **kw) for args, kw in calls)
+            yield from results
+        finally:
+            if shared is not None:
+                shared.close()
 
 
 def _on_worker(work: Callable, unpack: Unpack, data: dict, item):

@@ -1,12 +1,15 @@
-"""The explain step: refit a sweep's chosen cells on the documented folds and on all training
-rows, and store what the fits show, so plots and reports are built from the store alone.
+"""The explain step: store what a sweep's chosen cells show when fitted on the documented
+folds and on all training rows, so plots and reports are built from the store alone. What
+the sweep's own fits already read (`read_fold`, `read_refit`: cells fitted as their own
+model) is taken as it is; only the rest is refitted here, with the same results.
 
 For every chosen cell (by default each model's best and one-SE picks; the spec's
 `explain.cells` can ask for all cells or none) it writes:
 
 - `importances`: one row per original column and method, from the refit on all training
   rows. `permutation` (every family): scikit-learn's `permutation_importance` on the test
-  split, shuffling one original column at a time through the whole pipeline, scored with the
+  split, shuffling one original column at a time through the whole pipeline on
+  `explain.permutation.rows` test rows drawn for each column (`max_samples`), scored with the
   sweep's first metric; value = mean loss of score over the shuffles (for rmse: how much the
   test RMSE rises), spread = sd over the shuffles. `impurity` (trees, forests): the fitted
   model's impurity-based importances (shares of the total squared-error reduction, summing
@@ -47,10 +50,12 @@ from ..store import Store
 __all__ = ["explain_sweep", "ExplainResult", "chosen_cells", "permutation_rows"]
 
 
-EXPLAIN_VERSION = "3"
+EXPLAIN_VERSION = "4"
 """Bumped whenever a change here would change stored explain rows; stops their reuse.
 2: class targets (probability predictions) and the signed coefficients of linear cells.
-3: the refit's size (leaves, non-zero coefficients) is stored in `explained.n_terms`."""
+3: the refit's size (leaves, non-zero coefficients) is stored in `explained.n_terms`.
+4: permutation importance draws `explain.permutation.rows` test rows (default 5000), so a
+   test split larger than that gives other numbers than before."""
 
 
 @dataclass
@@ -61,18 +66,71 @@ class ExplainResult:
     reused: int = 0
     rows: dict = field(default_factory=dict)
     problems: list = field(default_factory=list)
+    refits: int = 0  # fits made here: cells whose readings the sweep's fits did not give
+    permutation_rows: int | None = None  # test rows each permutation drew
 
 
 def permutation_rows(pipeline, X_test, y_test, *, metric: str, repeats: int,
-                     seed: int, classes=()) -> dict[str, tuple[float, float]]:
-    """Per original column, (mean, sd) of the score lost when the column is shuffled."""
+                     seed: int, rows: int | None = None,
+                     classes=()) -> dict[str, tuple[float, float]]:
+    """Per original column, (mean, sd) of the score lost when the column is shuffled, on
+    `rows` test rows drawn anew for each column (scikit-learn's `max_samples`; all of
+    them when the split holds no more)."""
     from sklearn.inspection import permutation_importance
 
     scoring = METRICS[metric].scorer_for(classes)
     result = permutation_importance(pipeline, X_test, y_test, scoring=scoring,
-                                    n_repeats=repeats, random_state=seed, n_jobs=1)
+                                    n_repeats=repeats, random_state=seed, n_jobs=1,
+                                    max_samples=permutation_sample(rows, len(X_test)))
     return {str(col): (float(m), float(s)) for col, m, s in
             zip(X_test.columns, result.importances_mean, result.importances_std)}
+
+
+def permutation_sample(rows: int | None, n_test: int) -> int:
+    """The test rows each permutation draws: the spec's `explain.permutation.rows`, or
+    every test row when the split holds no more."""
+    return n_test if rows is None else min(int(rows), n_test)
+
+
+# -- readings: what the explain step keeps of one fitted cell ------------------------------
+def read_fold(family: str, est, X_fit) -> dict[str, list]:
+    """One cell fitted on one fold's fitting rows: its own importances (impurity or
+    coefficient) and, for one tree, its shape; rows without their cell and fold keys."""
+    fam = FAMILIES[family]
+    values = fam.estimators.own_importance(est, X_fit, list(X_fit.columns))
+    rows = {"fold_importances": [{"feature": f, "method": fam.importance, "value": v}
+                                 for f, v in values.items()]}
+    if fam.one_tree:
+        rows["tree_folds"] = [fam.estimators.tree_shape(est)]
+    return rows
+
+
+def read_refit(family: str, est, X_train, *, X_test, y_test, test_rows, metric: str,
+               repeats: int, perm_seed: int, perm_rows: int | None, task: str = "regression",
+               classes=()) -> dict[str, list]:
+    """One cell fitted on all training rows: permutation and own importances, the test
+    predictions, a tree's nodes, a linear model's coefficients and the model's size; rows
+    without their cell key."""
+    fam = FAMILIES[family]
+    perm = permutation_rows(est, X_test, y_test, metric=metric, repeats=repeats,
+                            seed=perm_seed, rows=perm_rows, classes=classes)
+    own = fam.estimators.own_importance(est, X_train, list(X_train.columns))
+    size = getattr(fam.estimators, "model_size", None)
+    imp = [{"feature": f, "method": "permutation", "value": m, "spread": sd}
+           for f, (m, sd) in perm.items()]
+    imp += [{"feature": f, "method": fam.importance, "value": v} for f, v in own.items()]
+    return {"importances": imp,
+            "test_predictions": _prediction_rows(est, X_test, y_test, test_rows, task),
+            "tree_nodes": fam.estimators.tree_node_rows(est) if fam.one_tree else [],
+            "coefficients": fam.estimators.coefficient_rows(est) if fam.coefficients else [],
+            "explained": [{"n_terms": size(est) if size is not None else None}]}
+
+
+def keyed(rows: dict[str, list], **key) -> dict[str, list]:
+    """A reading's rows with their keys (cell, and repeat and fold for a fold's rows);
+    `explained` carries no key (it is the cell's mark)."""
+    return {t: [r if t == "explained" else {**key, **r} for r in table_rows]
+            for t, table_rows in rows.items()}
 
 
 # -- the tasks -----------------------------------------------------------------------------
@@ -101,51 +159,29 @@ def _explain_task(kind: str, *args, **kwargs):
 def _fold_task(family, cell_id, params, X_fit, y_fit, *, seed, repeat, fold, numeric,
                categorical, task="regression", classes=()):
     """One chosen cell refitted on one fold's fitting rows: importances and tree shape."""
-    fam = FAMILIES[family]
-    features = list(X_fit.columns)
     try:
         est = _fit(family, params, X_fit, y_fit, seed=seed, numeric=numeric,
                    categorical=categorical, task=task)
-        values = fam.estimators.own_importance(est, X_fit, features)
+        rows = read_fold(family, est, X_fit)
     except Exception as exc:  # recorded and reported; the sweep's scores stand
         return cell_id, {}, f"{cell_id} fold ({repeat}, {fold}): {type(exc).__name__}: {exc}"
-    key = {"cell_id": cell_id, "repeat": repeat, "fold": fold}
-    rows = {"fold_importances": [{**key, "feature": f, "method": fam.importance, "value": v}
-                                 for f, v in values.items()]}
-    if fam.one_tree:
-        rows["tree_folds"] = [{**key, **fam.estimators.tree_shape(est)}]
-    return cell_id, rows, None
+    return cell_id, keyed(rows, cell_id=cell_id, repeat=repeat, fold=fold), None
 
 
 def _refit_task(family, cell_id, params, X_train, y_train, X_test, y_test, test_rows, *,
-                seed, metric, repeats, perm_seed, numeric, categorical, task="regression",
-                classes=()):
+                seed, metric, repeats, perm_seed, perm_rows=None, numeric, categorical,
+                task="regression", classes=()):
     """One chosen cell refitted on all training rows: importances, nodes, test predictions."""
-    features = list(X_train.columns)
     try:
         est = _fit(family, params, X_train, y_train, seed=seed, numeric=numeric,
                    categorical=categorical, task=task)
-        perm = permutation_rows(est, X_test, y_test, metric=metric, repeats=repeats,
-                                seed=perm_seed, classes=classes)
-        fam = FAMILIES[family]
-        own = fam.estimators.own_importance(est, X_train, features)
-        predictions = _prediction_rows(est, X_test, y_test, test_rows, task)
-        nodes = fam.estimators.tree_node_rows(est) if fam.one_tree else []
-        coefs = fam.estimators.coefficient_rows(est) if fam.coefficients else []
-        size = getattr(fam.estimators, "model_size", None)
-        n_terms = size(est) if size is not None else None
+        rows = read_refit(family, est, X_train, X_test=X_test, y_test=y_test,
+                          test_rows=test_rows, metric=metric, repeats=repeats,
+                          perm_seed=perm_seed, perm_rows=perm_rows, task=task,
+                          classes=classes)
     except Exception as exc:
         return cell_id, {}, f"{cell_id} refit: {type(exc).__name__}: {exc}"
-    imp = [{"cell_id": cell_id, "feature": f, "method": "permutation", "value": m, "spread": s}
-           for f, (m, s) in perm.items()]
-    imp += [{"cell_id": cell_id, "feature": f, "method": fam.importance, "value": v}
-            for f, v in own.items()]
-    rows = {"importances": imp,
-            "test_predictions": [{"cell_id": cell_id, **p} for p in predictions],
-            "tree_nodes": [{"cell_id": cell_id, **n} for n in nodes],
-            "coefficients": [{"cell_id": cell_id, **c} for c in coefs],
-            "explained": [{"n_terms": n_terms}]}
-    return cell_id, rows, None
+    return cell_id, keyed(rows, cell_id=cell_id), None
 
 
 def _prediction_rows(est, X_test, y_test, test_rows, task: str) -> list[dict]:
@@ -190,10 +226,13 @@ def _spreads(imp: pd.DataFrame, folds: pd.DataFrame) -> pd.DataFrame:
     return imp.drop(columns="_sd")
 
 
-def _settings(spec) -> str:
-    """What besides the cell decides its explain rows; equal settings allow reuse."""
+def _settings(spec, n_test: int) -> str:
+    """What besides the cell decides its explain rows; equal settings allow reuse. It is
+    stored with each explained cell (`explained.settings`), and says among other things how
+    many test rows each permutation drew (`permutation_rows`)."""
     perm = spec.explain.permutation
     return json.dumps({"metric": spec.metrics[0], "repeats": perm.repeats, "seed": perm.seed,
+                       "permutation_rows": permutation_sample(perm.rows, n_test),
                        "version": EXPLAIN_VERSION}, sort_keys=True)
 
 
@@ -201,7 +240,8 @@ def explain_sweep(spec, store: Store, sweep_id: str, *, prepared=None, jobs: int
                   cells: str | None = None, reuse: bool = True,
                   progress: Callable[[int, int], None] | None = None,
                   executor=None,
-                  before_refits: Callable[[], None] | None = None) -> ExplainResult:
+                  before_refits: Callable[[], None] | None = None,
+                  readings: dict | None = None) -> ExplainResult:
     """Refit the sweep's chosen cells per fold and on all training rows; store what they show.
 
     `cells` overrides the spec's `explain.cells`; `prepared` reuses `prepare(spec)`.
@@ -211,7 +251,12 @@ def explain_sweep(spec, store: Store, sweep_id: str, *, prepared=None, jobs: int
     its refit and fold refits are back, so a sweep stopped during this step keeps every
     cell it finished. The refits run on `executor` (the sweep's: local processes or a Dask
     cluster), else on local processes. `before_refits` is called once, before the first
-    refit is sent (the engine lets go of a store connection it held for copying)."""
+    refit is sent (the engine lets go of a store connection it held for copying).
+
+    `readings` holds what the sweep's own fits already read (`read_fold`, `read_refit`),
+    keyed (cell id, (repeat, fold)) or (cell id, None) for the refit; only the parts
+    missing there are refitted, so a cell the sweep fitted exactly is explained without
+    a single fit."""
     which = cells or spec.explain.cells
     chosen = chosen_cells(store, sweep_id, which)
     result = ExplainResult()
@@ -222,7 +267,10 @@ def explain_sweep(spec, store: Store, sweep_id: str, *, prepared=None, jobs: int
     chosen = chosen[~chosen["cell_id"].isin(done["cell_id"])]  # explaining twice adds nothing
     if chosen.empty:
         return result
-    settings = _settings(spec)
+    n_test = int(store.query("select n_test from sweeps where sweep_id = ?",
+                             [sweep_id])["n_test"].iloc[0])
+    settings = _settings(spec, n_test)
+    result.permutation_rows = permutation_sample(spec.explain.permutation.rows, n_test)
     if reuse:
         copied = copy_explained(store, sweep_id, chosen["cell_id"].tolist(), settings)
         result.reused = len(copied)
@@ -235,20 +283,37 @@ def explain_sweep(spec, store: Store, sweep_id: str, *, prepared=None, jobs: int
     perm = spec.explain.permutation
     data = dict(**prepared.split, test_rows=plan.test_rows,
                 refit=dict(seed=refit_seed(plan.seed), metric=spec.metrics[0],
-                           repeats=perm.repeats, perm_seed=perm.seed),
+                           repeats=perm.repeats, perm_seed=perm.seed, perm_rows=perm.rows),
                 common=dict(numeric=frame.numeric, categorical=frame.categorical,
                             task=frame.task, classes=list(frame.classes)))
+    readings = readings or {}
     tasks, pending = [], {}
+    per_cell: dict[str, dict[str, list]] = {}
+    ready = []
     for c in chosen.itertuples(index=False):
         params = json.loads(c.params) if isinstance(c.params, str) else dict(c.params)
-        cell = [(c.family, c.cell_id, params, None), *((c.family, c.cell_id, params, f)
-                                                       for f in plan.folds)]
-        tasks.append((-get_family(c.family).explain_cost, cell))
-        pending[c.cell_id] = len(cell)
+        cell = []
+        for f in (None, *plan.folds):
+            got = readings.get((c.cell_id, None if f is None else (f.repeat, f.fold)))
+            if got is None:
+                cell.append((c.family, c.cell_id, params, f))
+                continue
+            bucket = per_cell.setdefault(c.cell_id, {})
+            for table, table_rows in got.items():
+                bucket.setdefault(table, []).extend(table_rows)
+        if cell:
+            tasks.append((-get_family(c.family).explain_cost * len(cell), cell))
+            pending[c.cell_id] = len(cell)
+        else:
+            ready.append(c.cell_id)
+    for cell_id in ready:  # read whole from the sweep's own fits: nothing to refit
+        _store_cell(store, sweep_id, cell_id, per_cell.pop(cell_id), settings, result)
     # the costliest cells first, so workers finish together; a cell's tasks side by side,
     # so cells finish (and are stored) one after another rather than all at the end
     tasks = [t for _, cell in sorted(tasks, key=lambda pair: pair[0]) for t in cell]
-    per_cell: dict[str, dict[str, list]] = {}
+    result.refits = len(tasks)
+    if not tasks:
+        return result
     failed: set[str] = set()
     done = 0
     if progress:

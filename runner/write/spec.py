@@ -281,6 +281,9 @@ class PermutationPlan(_Strict):
     repeats: int = Field(5, ge=1, description="shuffles per column")
     seed: int = Field(0, ge=0, le=MAX_SEED, description="random_state of the shuffles "
                       "(0 ... 2**32 - 1)")
+    rows: int = Field(5000, ge=100, le=1_000_000, description="test rows drawn for each "
+                      "column's shuffles (scikit-learn's max_samples; 100 ... 1000000, "
+                      "default 5000); a test split of no more rows is used whole")
 
 
 class ExplainPlan(_Strict):
