@@ -189,6 +189,9 @@ def run(spec_file, store_path, jobs, force_jobs, quiet, paths, fresh, cluster, l
                f"{reuse_text(result.n_cells, result.n_reused)}; "
                f"{result.n_fold_rows} fold-score rows, {result.n_test_rows} test-score rows "
                f"-> {result.store_path}")
+    if result.permutation_rows:
+        click.echo(f"permutation importance shuffled each column over "
+                   f"{result.permutation_rows:,} test rows (at most explain.permutation.rows)")
     if result.n_failed_fits:
         click.echo(f"warning: {result.n_failed_fits} fits failed; see "
                    "`foldwise sql \"select * from failures\"`.", err=True)

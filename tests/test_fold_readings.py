@@ -15,6 +15,7 @@ from sklearn.inspection import permutation_importance
 
 from runner.families import load_family
 from runner.families._readers import output_sources
+from runner.read.queries import importance_table
 from runner.store import Store
 from runner.write import engine
 from runner.write.engine import _run_task, prepare, run_sweep
@@ -151,6 +152,8 @@ def test_permutation_draws_the_asked_rows_as_scikit_learn_does(tmp_path, diabete
     settings = store.query("select distinct settings from explained where sweep_id = ?",
                            [result.sweep_id])["settings"]
     assert [json.loads(s)["permutation_rows"] for s in settings] == [150]
+    assert result.permutation_rows == 150
+    assert importance_table(store, result.sweep_id).permutation_rows == 150
 
 
 def test_a_test_split_smaller_than_rows_is_used_whole(tmp_path, diabetes_csv):
@@ -159,6 +162,7 @@ def test_a_test_split_smaller_than_rows_is_used_whole(tmp_path, diabetes_csv):
     result = run_sweep(spec, jobs=1)
     settings = Store(result.store_path).query("select settings from explained")["settings"]
     assert json.loads(settings.iloc[0])["permutation_rows"] == 111  # 25 % of 442 rows
+    assert importance_table(Store(result.store_path)).permutation_rows == 111
 
 
 @pytest.mark.parametrize("rows", [99, 1_000_001, "many"])

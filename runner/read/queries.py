@@ -605,7 +605,19 @@ def importance_table(store: Store, sweep_id: str | None = None, *,
     df["rank"] = (df.groupby(["cell_id", "method"])["value"]
                   .rank(ascending=False, method="min").astype(int))
     df = df.sort_values(["model_row", "complexity_rank", "method", "rank", "feature"])
-    return Importances(facts, df.drop(columns="model_row").reset_index(drop=True))
+    return Importances(facts, df.drop(columns="model_row").reset_index(drop=True),
+                       _permutation_rows(store, facts.sweep_id))
+
+
+def _permutation_rows(store: Store, sweep_id: str) -> int | None:
+    """The most test rows any of the sweep's permutations drew (explained.settings)."""
+    drawn = []
+    for text in store.query("select settings from explained where sweep_id = ?",
+                            [sweep_id])["settings"]:
+        value = json.loads(text).get("permutation_rows") if isinstance(text, str) else None
+        if isinstance(value, int) and not isinstance(value, bool):
+            drawn.append(value)
+    return max(drawn, default=None)
 
 
 def prediction_table(store: Store, sweep_id: str | None = None) -> pd.DataFrame:

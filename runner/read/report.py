@@ -148,7 +148,9 @@ def report_context(store: Store, sweep_id: str | None = None, *, se: str = "plai
         "compare_rule": pairs.rule,
         "complexity": complexity,
         "importance": {k: _html(v) for k, v in importance_matrix(imp, rule_picks.table).items()},
-        "methods": {k: v.format(metric=metric_label(metric)) for k, v in METHODS.items()},
+        "methods": {k: v.format(metric=metric_label(metric), drawn=(
+            f" over {imp.permutation_rows:,} test rows" if imp.permutation_rows else ""))
+            for k, v in METHODS.items()},
         "stability": _html(columns_view(stab, STABILITY_COLUMNS)) if len(stab) else None,
         "tree_folds": _html(columns_view(trees, TREE_FOLD_COLUMNS)) if len(trees) else None,
         "figures": figures, "cautions": CAUTIONS, "neutrals": NEUTRALS,

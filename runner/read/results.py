@@ -167,6 +167,7 @@ class Importances:
 
     facts: SweepFacts
     table: pd.DataFrame
+    permutation_rows: int | None = None  # test rows each permutation drew, as stored
 
 
 @dataclass(frozen=True)

@@ -494,8 +494,8 @@ def plan_sentence(record: dict) -> str:
 
 # -- the report's own tables -----------------------------------------------------------------
 METHODS = {
-    "permutation": "rise in the test {metric} when one column is shuffled (mean over shuffles; "
-                   "spread = sd over shuffles)",
+    "permutation": "rise in the test {metric} when one column is shuffled{drawn} (mean over "
+                   "shuffles; spread = sd over shuffles)",
     "impurity": "share of the tree's squared-error reduction made by splits on the column "
                 "(sums to 1; spread = sd over fold refits)",
     "coefficient": "SD of the column's contribution to the prediction, target units: "
