@@ -581,7 +581,8 @@ def remove(sweep_ids, store_path, labels, name, status, older_than, dry_run, yes
     Rows a later sweep reused are its own copies, so removing the sweep that first computed
     them leaves every other sweep whole. A sweep still running is never removed.
     """
-    from .read.queries import process_alive, sweep_rows, sweeps as read_sweeps
+    from .read.past_queries import sweep_rows
+    from .read.queries import process_alive, sweeps as read_sweeps
     from .read.past_views import removal_view
     from .store.tidy import check_rights, remove_sweeps
 
@@ -787,7 +788,7 @@ def models(store_path, sweep_id, fmt):
       foldwise models
       foldwise models --sweep 20261202 --format csv
     """
-    from .read.queries import built_models
+    from .read.explained import built_models
     from .read.model_views import models_view
 
     df = built_models(_open_store(store_path), sweep_id)
@@ -857,7 +858,7 @@ def coefficients(store_path, sweep_id, model_id, fmt):
       foldwise coefficients
       foldwise coefficients --model-id model-20261202-101010-ab12 --format csv
     """
-    from .read.queries import coefficient_table
+    from .read.explained import coefficient_table
     from .read.model_views import coefficients_view
 
     result = coefficient_table(_open_store(store_path), sweep_id, model_id=model_id)
