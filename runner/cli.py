@@ -1,18 +1,19 @@
 """The `foldwise` command: thin click commands over the library. Each opens the store,
 makes one library call and prints the result; library errors become one readable paragraph
-and the error's exit code (2 for spec, data and usage errors)."""
+and the error's exit code (2 for spec, data and usage errors). Here: the `main` group and
+the commands of a sweep; the record and built-model commands are in `runner/commands/`."""
 
 from __future__ import annotations
 
 import json
-import sys
 
 import click
 
+from .commands import models as _models, record as _record
+from .commands.options import (_RULES, _ProgressBar, _format_option, _lift_option, _open_store,
+                               _se_option, _show, _store_option, _sweep_option)
 from .errors import FoldwiseError
-from .output import FORMATS, emit
-
-STORE_ENV = "FOLDWISE_STORE"
+from .output import emit
 
 
 class _Group(click.Group):
@@ -39,24 +40,6 @@ class _Group(click.Group):
             ctx.exit(130)
 
 
-def _store_option(f):
-    return click.option("--store", "store_path", type=str, envvar=STORE_ENV, default=None,
-                        help="DuckDB store file, or a team store's postgresql://USER@HOST/DB "
-                             f"[default: results/foldwise.duckdb, or ${STORE_ENV}].")(f)
-
-
-def _format_option(f):
-    return click.option("--format", "fmt", type=click.Choice(FORMATS), default="table",
-                        show_default=True, help="Output as a table, CSV or JSON.")(f)
-
-
-def _open_store(store_path):
-    from .store import DEFAULT_STORE, Store
-
-    return Store(store_path or DEFAULT_STORE,
-                 on_wait=lambda msg: click.echo(msg, err=True))
-
-
 @click.group(cls=_Group, context_settings={"help_option_names": ["-h", "--help"]})
 @click.version_option(package_name="foldwise", prog_name="foldwise")
 def main():
@@ -70,12 +53,6 @@ def main():
       foldwise run specs/greenhouse.yaml
       foldwise summary
     """
-
-
-def _lift_option(f):
-    return click.option("--lift-limits", is_flag=True,
-                        help="Ignore the spec's `limits` (cells, folds, fits, data size); "
-                             "for plans you know the machine can take.")(f)
 
 
 @main.command()
@@ -199,41 +176,6 @@ def run(spec_file, store_path, jobs, force_jobs, quiet, paths, fresh, cluster, l
         _print_summary(store, result.sweep_id, "table")
 
 
-class _ProgressBar:
-    """A rich progress bar on stderr, shown from the first task on (not while validating)."""
-
-    def __init__(self, title: str):
-        self.title = title
-        self._bar = None
-
-    def __call__(self, done: int, total: int) -> None:
-        if self._bar is None:
-            from rich.console import Console
-            from rich.progress import (BarColumn, MofNCompleteColumn, Progress, TextColumn,
-                                       TimeElapsedColumn, TimeRemainingColumn)
-
-            self._bar = Progress(TextColumn(f"[bold]{self.title}"), BarColumn(),
-                                 MofNCompleteColumn(), TextColumn("tasks"), TimeElapsedColumn(),
-                                 TimeRemainingColumn(), transient=True,
-                                 console=Console(file=sys.stderr))
-            self._bar.start()
-            self._task = self._bar.add_task("sweep", total=total)
-        self._bar.update(self._task, completed=done, total=total)
-
-    def close(self) -> None:
-        if self._bar is not None:
-            self._bar.stop()
-
-
-def _show(result, view, fmt) -> None:
-    """Print a result: its view as a table, or its exact table as CSV or JSON; remarks go
-    to stderr, so that CSV and JSON stay clean."""
-    emit(result.table, fmt, view=view)
-    for note in (view.notes if fmt == "table" else
-                 view.preface + view.caveats + view.notes):
-        click.echo(note, err=True)
-
-
 def _print_summary(store, sweep_id, fmt):
     from .read.queries import summary as read_summary
     from .read.views import summary_view
@@ -256,80 +198,6 @@ def summary(store_path, sweep_id, fmt):
     _print_summary(_open_store(store_path), sweep_id, fmt)
 
 
-_STATUSES = ("finished", "failed", "interrupted", "running")
-
-
-def _selection_options(f):
-    """--label, --name, --status and --older-than: which sweeps a command means."""
-    for option in reversed([
-            click.option("--label", "labels", multiple=True, metavar="KEY[=VALUE]",
-                         help="Only sweeps with this label (any value if no =VALUE); "
-                              "repeat: all must hold."),
-            click.option("--name", default=None, help="Only sweeps of this spec name."),
-            click.option("--status", type=click.Choice(_STATUSES), default=None,
-                         help="Only sweeps that ended so (a dead running sweep is "
-                              "interrupted)."),
-            click.option("--older-than", metavar="AGE", default=None,
-                         help="Only sweeps started longer ago than AGE: 12h, 30d, 6w.")]):
-        f = option(f)
-    return f
-
-
-def _selection(ids=(), labels=(), name=None, status=None, older_than=None):
-    from .store.labels import Selection
-
-    return Selection.of(ids=ids, labels=labels, name=name, status=status,
-                        older_than=older_than)
-
-
-@main.command()
-@_store_option
-@_selection_options
-@_format_option
-def sweeps(store_path, labels, name, status, older_than, fmt):
-    """List the sweeps in the store, newest first, with their labels and notes.
-
-    \b
-      foldwise sweeps
-      foldwise sweeps --label purpose=baseline --name greenhouse-yield
-      foldwise sweeps --status interrupted --older-than 30d
-    """
-    from .read.queries import sweeps as read_sweeps
-    from .read.past_views import sweeps_view
-
-    result = read_sweeps(_open_store(store_path), _selection((), labels, name, status,
-                                                             older_than))
-    _show(result, sweeps_view(result), fmt)
-
-
-@main.command()
-@click.argument("labels", nargs=-1, metavar="[KEY=VALUE]...")
-@_store_option
-@click.option("--sweep", "sweep_id", default=None,
-              help="Sweep id or unique prefix [default: latest].")
-@click.option("--drop", multiple=True, metavar="KEY", help="Remove this label; repeatable.")
-@click.option("--note", default=None, help="Replace the sweep's note ('' clears it).")
-@_format_option
-def label(labels, store_path, sweep_id, drop, note, fmt):
-    """Add or change a sweep's labels and note (all at once); with none given, show them.
-
-    \b
-      foldwise label purpose=baseline data=2026-11
-      foldwise label --sweep 20261202 --drop purpose --note "grid too coarse; see the next"
-      foldwise label --sweep 20261202
-    """
-    from .read.queries import sweeps as read_sweeps
-    from .read.past_views import sweeps_view
-    from .store.labels import Selection, parse_labels, set_labels
-
-    store = _open_store(store_path)
-    sid = store.resolve_sweep(sweep_id)
-    if labels or drop or note is not None:
-        set_labels(store, sid, parse_labels(labels), drop=drop, note=note)
-    result = read_sweeps(store, Selection(ids=(sid,)))
-    _show(result, sweeps_view(result, f"sweep {sid}"), fmt)
-
-
 @main.command()
 @click.argument("query")
 @_store_option
@@ -350,89 +218,6 @@ def sql(query, store_path, fmt, allow_files):
       foldwise sql "select * from cell_summary join read_csv('notes.csv') using (model)" --allow-files
     """
     emit(_open_store(store_path).user_query(query, allow_files=allow_files), fmt)
-
-
-# -- moving results between stores ---------------------------------------------------------
-def _sweeps_option(f):
-    return click.option("--sweep", "sweep_ids", multiple=True, metavar="ID",
-                        help="Only this sweep (id or unique prefix); repeatable.")(f)
-
-
-@main.command()
-@click.argument("other")
-@_store_option
-@_sweeps_option
-@_selection_options
-def merge(other, store_path, sweep_ids, labels, name, status, older_than):
-    """Copy every sweep of another store into this one, skipping sweeps it already holds.
-
-    OTHER is a store file, a team store's postgresql:// URL, or a folder written by
-    `foldwise export`. Each sweep comes whole (cells, fold and test scores, explain rows),
-    all in one transaction; sweeps still running there are left for a later merge.
-
-    \b
-      foldwise merge ~/laptop-results.duckdb --store postgresql://ana@db.internal/results
-      foldwise merge shared/exports/2026-12
-      foldwise merge ~/laptop-results.duckdb --label purpose=baseline
-
-    --sweep, --label, --name, --status and --older-than choose among OTHER's sweeps.
-    """
-    from .store.transfer import merge_store
-
-    store = _open_store(store_path)
-    result = merge_store(store, other, _selection(sweep_ids, labels, name, status, older_than))
-    copied = {t: n for t, n in result.rows.items() if n}
-    click.echo(f"merged {len(result.new_sweeps)} sweep(s) from {other} into {store.path}"
-               + (": " + ", ".join(f"{n} {t}" for t, n in copied.items()) if copied else "")
-               + ".")
-    if result.present:
-        click.echo(f"skipped {len(result.present)} sweep(s) already in this store.")
-    if result.running:
-        click.echo(f"left out {len(result.running)} sweep(s) still marked running there "
-                   f"({', '.join(result.running)}); merge again once they finish.", err=True)
-
-
-@main.command()
-@click.argument("folder", type=click.Path(file_okay=False))
-@click.option("--format", "fmt", type=click.Choice(["parquet", "csv"]), default="parquet",
-              show_default=True, help="One file per table in this format.")
-@_store_option
-@_sweeps_option
-@_selection_options
-def export(folder, fmt, store_path, sweep_ids, labels, name, status, older_than):
-    """Write every table of the store into FOLDER, one file per table, with a manifest;
-    `foldwise merge FOLDER` reads it back into any store. --sweep, --label, --name,
-    --status and --older-than write only the sweeps they name.
-
-    \b
-      foldwise export shared/exports/2026-12
-      foldwise export out/ --format csv
-      foldwise export shared/baseline --label purpose=baseline
-    """
-    from .store.transfer import export_store
-
-    store = _open_store(store_path)
-    ids = [store.resolve_sweep(s) for s in sweep_ids]
-    counts = export_store(store, folder, fmt, _selection(ids, labels, name, status,
-                                                         older_than))
-    click.echo(f"exported {sum(counts.values())} rows in {len(counts)} tables to {folder} "
-               f"({fmt}).")
-
-
-# -- picks, comparisons and the complexity table -------------------------------------------
-_RULES = ("best", "one_se")
-_SE_KINDS = ("plain", "corrected")
-
-
-def _sweep_option(f):
-    return click.option("--sweep", "sweep_id", default=None,
-                        help="Sweep id or unique prefix [default: latest].")(f)
-
-
-def _se_option(f):
-    return click.option("--se", type=click.Choice(_SE_KINDS), default="plain", show_default=True,
-                        help="SE for the one-SE rule: plain = sd/sqrt(k·r); corrected = "
-                             "sqrt((1/(k·r) + n_valid/n_train)·sd²).")(f)
 
 
 @main.command()
@@ -504,116 +289,11 @@ def path(model, store_path, sweep_id, metric, se, fmt):
     _show(result, complexity_view(result), fmt)
 
 
-# -- the record of past sweeps --------------------------------------------------------------
-@main.command()
-@click.argument("sweep_a", required=False)
-@click.argument("sweep_b", required=False)
-@_store_option
-@_se_option
-@_format_option
-def diff(sweep_a, sweep_b, store_path, se, fmt):
-    """Show what changed between two sweeps: spec text, data, plan, versions, labels, and
-    per model the picked cell and its scores, paired fold by fold when the folds are the
-    same rows.
-
-    With no sweep given, the latest sweep against the one of its spec name before it; with
-    one, that sweep against its predecessor; with two, the change from A to B.
-
-    \b
-      foldwise diff
-      foldwise diff 20261202-0931
-      foldwise diff 20261101 20261202 --format csv
-    """
-    from .read.past import diff_sweeps
-    from .read.past_views import diff_view
-
-    result = diff_sweeps(_open_store(store_path), sweep_a, sweep_b, se=se)
-    _show(result, diff_view(result), fmt)
-
-
-@main.command()
-@click.option("--model", default=None, help="The model label to follow.")
-@click.option("--family", default=None,
-              help="Follow every model of this family instead (linear, pruned_tree, forest).")
-@click.option("--name", default=None,
-              help="The spec name whose sweeps to read [default: the latest sweep's].")
-@click.option("--rule", type=click.Choice(_RULES), default=None,
-              help="Pick rule in every sweep [default: each sweep's own].")
-@click.option("--metric", default=None,
-              help="Pick and show by this metric [default: the latest sweep's first].")
-@_store_option
-@_se_option
-@_format_option
-def history(model, family, name, rule, metric, store_path, se, fmt):
-    """Follow one model's pick across every sweep of a spec, oldest first: the picked cell,
-    CV mean ± SE and test score, and where the data, spec or pick changed.
-    `foldwise plot history --model M` draws it.
-
-    \b
-      foldwise history --model tree
-      foldwise history --family linear --name greenhouse-yield --format csv
-    """
-    from .read.past import model_history
-    from .read.past_views import history_view
-
-    if model is None and family is None:
-        raise click.UsageError("give --model LABEL or --family FAMILY.")
-    result = model_history(_open_store(store_path), model, name=name, family=family,
-                           rule=rule, se=se, metric=metric)
-    _show(result, history_view(result), fmt)
-
-
-@main.command()
-@click.argument("sweep_ids", nargs=-1, metavar="[SWEEP]...")
-@_store_option
-@_selection_options
-@click.option("--dry-run", is_flag=True, help="Show what would be removed and stop.")
-@click.option("--yes", "-y", is_flag=True, help="Remove without asking (for scripts).")
-def remove(sweep_ids, store_path, labels, name, status, older_than, dry_run, yes):
-    """Remove sweeps and every row they hold, all in one transaction: the sweeps named, or
-    those every filter given matches. Shows them first and asks before removing.
-
-    \b
-      foldwise remove 20261202-0931
-      foldwise remove --status interrupted --dry-run
-      foldwise remove --label purpose=scratch --older-than 30d --yes
-
-    Rows a later sweep reused are its own copies, so removing the sweep that first computed
-    them leaves every other sweep whole. A sweep still running is never removed.
-    """
-    from .read.queries import process_alive, sweep_rows, sweeps as read_sweeps
-    from .read.past_views import removal_view
-    from .store.tidy import check_rights, remove_sweeps
-
-    chosen = _selection(sweep_ids, labels, name, status, older_than)
-    if chosen.empty:
-        raise click.UsageError("name the sweeps to remove, or give --label, --name, --status "
-                               "or --older-than; `foldwise sweeps` lists them.")
-    store = _open_store(store_path)
-    check_rights(store)
-    if sweep_ids:
-        chosen = _selection([store.resolve_sweep(x) for x in sweep_ids], labels, name,
-                            status, older_than)
-    found = read_sweeps(store, chosen)
-    if found.table.empty:
-        click.echo(f"no sweep matches {chosen.describe()}; nothing removed.")
-        return
-    ids = found.table["sweep_id"].tolist()
-    emit(found.table, "table", view=removal_view(found, sweep_rows(store, ids)))
-    if dry_run:
-        click.echo("dry run: nothing removed.")
-        return
-    if not yes and not click.confirm(f"Remove {len(ids)} sweep(s)?", default=False, err=True):
-        click.echo("nothing removed.")
-        return
-    removed = remove_sweeps(store, ids, alive=process_alive)
-    click.echo(f"removed {len(ids)} sweep(s) and {sum(removed.values())} rows from "
-               f"{store.path}.")
-
-
 # -- figures and the report ----------------------------------------------------------------
 _PLOT_KINDS = ("complexity", "models", "importance", "predictions", "tree", "calibration",
                "roc", "history")
+
+
 _IMPORTANCE_METHODS = ("permutation", "impurity", "coefficient")
 
 
@@ -688,182 +368,6 @@ def report(store_path, sweep_id, out_path, se):
     click.echo(f"{path} ({path.stat().st_size / 1024:.0f} KiB)")
 
 
-# -- built models ----------------------------------------------------------------------------
-@main.command()
-@_store_option
-@_sweep_option
-@click.option("--model", default=None, help="The model label whose pick to build [default: "
-              "the sweep's only model].")
-@click.option("--rule", type=click.Choice(_RULES), default=None,
-              help="Which of the model's picks [default: the spec's `pick`].")
-@click.option("--cell", default=None, help="Build this cell (id or unique prefix) instead "
-              "of a pick.")
-@click.option("--all-rows", is_flag=True, help="Fit on every row, training and test (the "
-              "card says no held-out score describes the model) [default: training rows].")
-@click.option("--data", "data_path", type=click.Path(dir_okay=False), default=None,
-              help="Where the sweep's data file is now [default: where the sweep read it].")
-@click.option("--accept-data", is_flag=True, help="Build even if the data's SHA-256 differs "
-              "from the sweep's (the card records both).")
-@click.option("--out", type=click.Path(dir_okay=False), default=None,
-              help="The .skops file to write; its card goes beside it "
-                   "[default: results/models/<model id>.skops].")
-@_lift_option
-def build(store_path, sweep_id, model, rule, cell, all_rows, data_path, accept_data, out,
-          lift_limits):
-    """Fit a sweep's picked cell as one model and keep it: a .skops file, its card, and a
-    row of the store's models table.
-
-    \b
-      foldwise build --model tree
-      foldwise build --model forest --rule best --out models/forest.skops
-      foldwise build --cell 3f9a2c --all-rows
-    """
-    from .model.build import build_model
-    from .read.model_views import built_sentences
-
-    built = build_model(_open_store(store_path), sweep_id=sweep_id, model=model, rule=rule,
-                        cell=cell, all_rows=all_rows, data=data_path, accept_data=accept_data,
-                        out=out, lift_limits=lift_limits)
-    for line in built_sentences(built):
-        click.echo(line, err=line.startswith("note:"))
-
-
-@main.command()
-@click.argument("model_ref", metavar="MODEL")
-@click.argument("data_file")
-@click.option("--out", required=True, help="The predictions file to write (.csv or .parquet).")
-@click.option("--keep", multiple=True, metavar="COLUMN",
-              help="An input column to copy to the output (e.g. an id); repeat for more.")
-@click.option("--overwrite", is_flag=True, help="Replace --out if it exists.")
-@click.option("--unseen", type=click.Choice(["refuse", "allow"]), default="refuse",
-              show_default=True, help="Categories the model never saw: refuse the file, or "
-              "predict them as the model's pipeline does (counted and reported).")
-@click.option("--interval", type=click.FloatRange(0, 1, min_open=True, max_open=True),
-              default=None, metavar="LEVEL", help="Add lower and upper columns: a split-"
-              "conformal prediction interval at this level (e.g. 0.9) from the model's "
-              "residuals on the sweep's test rows.")
-@click.option("--chunk-rows", type=click.IntRange(min=1), default=100_000, show_default=True,
-              help="Rows read and predicted at a time.")
-@click.option("--quiet", "-q", is_flag=True, help="No progress bar.")
-@_store_option
-def predict(model_ref, data_file, out, keep, overwrite, unseen, interval, chunk_rows, quiet,
-            store_path):
-    """Predict the rows of a CSV or Parquet file with a built model.
-
-    MODEL is a .skops file (its card beside it) or a model id from `foldwise models`. The
-    file's columns are checked against the model's card; nothing is written on an error.
-
-    \b
-      foldwise predict results/models/model-20261202-101010-ab12.skops new.csv --out pred.csv
-      foldwise predict model-20261202-101010-ab12 new.parquet --out pred.parquet --keep bay_id
-    """
-    from .model.keep import load_model
-    from .model.predict import predict_file
-    from .read.model_views import prediction_sentences
-
-    model = load_model(model_ref, _open_store(store_path))
-    for note in model.notes:
-        click.echo(note, err=True)
-    bar = None if quiet or not sys.stderr.isatty() else _ProgressBar("predicting")
-    try:
-        result = predict_file(model, data_file, out, keep=keep, chunk_rows=chunk_rows,
-                              overwrite=overwrite, unseen=unseen, interval=interval,
-                              progress=bar)
-    finally:
-        if bar is not None:
-            bar.close()
-    for line in prediction_sentences(result):
-        click.echo(line, err=line.startswith("note:"))
-
-
-@main.command()
-@_store_option
-@_sweep_option
-@_format_option
-def models(store_path, sweep_id, fmt):
-    """List the built models the store keeps, newest first.
-
-    \b
-      foldwise models
-      foldwise models --sweep 20261202 --format csv
-    """
-    from .read.queries import built_models
-    from .read.model_views import models_view
-
-    df = built_models(_open_store(store_path), sweep_id)
-    _show(_Plain(df), models_view(df), fmt)
-
-
-class _Plain:
-    """A bare table in the shape `_show` takes."""
-
-    def __init__(self, table):
-        self.table = table
-
-
-@main.command()
-@click.argument("model_ref", metavar="MODEL")
-@_store_option
-@click.option("--format", "fmt", type=click.Choice(["table", "json"]), default="table",
-              show_default=True, help="Readable, or the card's JSON as stored.")
-def card(model_ref, store_path, fmt):
-    """Show a built model's card: where it came from, its inputs, scores and versions.
-
-    MODEL is a .skops file or a model id. Reads the card only; loads no model.
-
-    \b
-      foldwise card model-20261202-101010-ab12
-      foldwise card results/models/tree.skops --format json
-    """
-    from .model.keep import read_model
-    from .read.model_views import card_view
-
-    _, the_card, _ = read_model(model_ref, _open_store(store_path))
-    if fmt == "json":
-        click.echo(json.dumps(the_card, indent=2))
-    else:
-        view = card_view(the_card)
-        emit(view.table, "table", view=view)
-
-
-@main.command()
-@click.argument("model_id")
-@_store_option
-@click.option("--out", type=click.Path(dir_okay=False), default=None,
-              help="The .skops file to write; the card goes beside it "
-                   "[default: results/models/<model id>.skops].")
-def fetch(model_id, store_path, out):
-    """Write a stored model's artefact and card to files, after checking its SHA-256.
-
-    \b
-      foldwise fetch model-20261202-101010-ab12 --out models/tree.skops
-    """
-    from .model.keep import fetch_model
-
-    artefact, card_file = fetch_model(_open_store(store_path), model_id, out)
-    click.echo(f"{artefact} and {card_file}")
-
-
-@main.command()
-@_store_option
-@_sweep_option
-@click.option("--model-id", default=None, help="A built model's coefficients instead of the "
-              "sweep's explained linear cells.")
-@_format_option
-def coefficients(store_path, sweep_id, model_id, fmt):
-    """Show signed coefficients of linear models: in the data's units and per SD.
-
-    \b
-      foldwise coefficients
-      foldwise coefficients --model-id model-20261202-101010-ab12 --format csv
-    """
-    from .read.queries import coefficient_table
-    from .read.model_views import coefficients_view
-
-    result = coefficient_table(_open_store(store_path), sweep_id, model_id=model_id)
-    _show(result, coefficients_view(result), fmt)
-
-
 @main.command()
 def schema():
     """Print the JSON Schema of a spec, for editors that check YAML.
@@ -874,6 +378,10 @@ def schema():
     from .write.spec import spec_json_schema
 
     click.echo(json.dumps(spec_json_schema(), indent=2))
+
+
+for _command in (*_record.COMMANDS, *_models.COMMANDS):
+    main.add_command(_command)
 
 
 if __name__ == "__main__":  # pragma: no cover

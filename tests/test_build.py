@@ -256,7 +256,7 @@ def test_signed_coefficients_reproduce_the_stored_test_predictions(demo_built):
     # indicators for the categories) gives the explain step's stored test predictions.
     folder, store, sweep_id, built = demo_built
     cell_id = built["ridge"].card["cell"]["cell_id"]
-    from runner.read.queries import coefficient_table
+    from runner.read.explained import coefficient_table
 
     coefs = coefficient_table(store, sweep_id).table
     coefs = coefs[coefs["cell_id"] == cell_id]

@@ -15,7 +15,7 @@ from sklearn.inspection import permutation_importance
 
 from runner.families import load_family
 from runner.families._readers import output_sources
-from runner.read.queries import importance_table
+from runner.read.explained import importance_table
 from runner.store import Store
 from runner.write import engine
 from runner.write.engine import _run_task, prepare, run_sweep

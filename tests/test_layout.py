@@ -97,7 +97,8 @@ def test_the_cycle_finder_finds_a_cycle():
     assert _cycle({"a": {"b"}, "b": set()}) is None
 
 
-READ_SIDE = ["runner.store", "runner.read.queries", "runner.read.results", "runner.read.views",
+READ_SIDE = ["runner.store", "runner.read.queries", "runner.read.explained",
+             "runner.read.past_queries", "runner.read.results", "runner.read.views",
              "runner.read.model_views", "runner.read.past_views",
              "runner.read.plots", "runner.read.report"]
 

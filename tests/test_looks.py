@@ -11,9 +11,10 @@ from pathlib import Path
 import matplotlib.colors as mcolors
 import pytest
 
+from runner.read.explained import tree_node_table
 from runner.read.plots import (NEUTRALS, PALETTE, complexity_figure, importance_figure,
                                panel_grid, predictions_figure, tree_figure)
-from runner.read.queries import complexity_table, picks, tree_node_table
+from runner.read.queries import complexity_table, picks
 from runner.read.report import render_report
 from runner.read.views import complexity_view, decimals_for
 

@@ -11,7 +11,7 @@ import pandas as pd
 import pytest
 from scipy.stats import spearmanr
 
-from runner.read.queries import stability_table
+from runner.read.explained import stability_table
 from runner.read.stability import (NO_SPLIT, jaccard, leaves_spread, mean_pairwise_jaccard,
                               mean_pairwise_spearman, root_agreement, spearman,
 )

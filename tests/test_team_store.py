@@ -313,7 +313,7 @@ def test_a_model_is_built_listed_and_loaded_on_a_server(pg, demo_built, tmp_path
 
     from runner.model.build import build_model
     from runner.model.keep import load_model
-    from runner.read.queries import built_models
+    from runner.read.explained import built_models
 
     folder, file_store, _, built = demo_built
     server = Store(pg.create_database("team_models"))

@@ -59,7 +59,8 @@ class BuiltModel:
 def _choose_cell(store: Store, sweep_id: str, *, model: str | None, rule: str | None,
                  cell: str | None, default_rule: str) -> tuple[dict, str]:
     """The cell to build and the rule that chose it ('best', 'one_se' or 'cell')."""
-    from ..read.queries import cell_record, model_order, picks
+    from ..read.explained import cell_record
+    from ..read.queries import model_order, picks
 
     if cell is not None:
         if rule is not None:
@@ -88,7 +89,8 @@ def _choose_cell(store: Store, sweep_id: str, *, model: str | None, rule: str | 
 
 def _check_finished(store: Store, sweep_id: str, row: dict) -> pd.DataFrame:
     """The cell's scores; refuses a cell with a failed fit, a missing fold or no refit."""
-    from ..read.queries import cell_scores, cell_stats
+    from ..read.explained import cell_scores
+    from ..read.queries import cell_stats
 
     stats = cell_stats(store, sweep_id, model=row["model"]).table
     mine = stats[stats["cell_id"] == row["cell_id"]]

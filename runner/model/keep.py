@@ -73,7 +73,7 @@ def read_model(source: str | Path, store=None) -> tuple[bytes, dict, str]:
     if store is None:
         raise ModelError(f"{source} is neither a model file nor, without a store, a model "
                          "id.")
-    from ..read.queries import model_record
+    from ..read.explained import model_record
 
     row = model_record(store, str(source))
     where = f"model {row['model_id']} of store {store.path}"

@@ -14,7 +14,7 @@ import pandas as pd
 from ..errors import QueryError
 from .plots import (INK, MUTED, PALETTE, _figure, _headline, _nothing_stored, _picked,
                     _style, model_colours)
-from .queries import prediction_table
+from .explained import prediction_table
 from ..store import Store
 from .views import number, rule_label
 

@@ -1,13 +1,14 @@
 """The record of past sweeps, read: what changed between two sweeps (`diff_sweeps`) and how
 one model's pick moved across every sweep of a spec (`model_history`).
 
-The SQL is in `queries.py` and the rules on plain numbers in `picks.py` (best, one-SE) and
-`compare.py` (the corrected resampled t-test); this module joins them and decides one
-thing of its own: when two sweeps' fold scores may be paired. They may when both sweeps
-scored the same data file (same SHA-256) under the same plan (test split, k, repeats and
-seed), since only then is fold (repeat, fold) the same rows in both. The plan is recorded
-with every sweep since schema version 3; for older sweeps, a cell id that both sweeps hold
-proves it, as a cell id hashes the data, the plan and the evaluation version."""
+The SQL is in `past_queries.py` and `queries.py`, and the rules on plain numbers in
+`picks.py` (best, one-SE) and `compare.py` (the corrected resampled t-test); this module
+joins them and decides one thing of its own: when two sweeps' fold scores may be paired.
+They may when both sweeps scored the same data file (same SHA-256) under the same plan (test
+split, k, repeats and seed), since only then is fold (repeat, fold) the same rows in both.
+The plan is recorded with every sweep since schema version 3; for older sweeps, a cell id
+that both sweeps hold proves it, as a cell id hashes the data, the plan and the evaluation
+version."""
 
 from __future__ import annotations
 
@@ -20,8 +21,9 @@ import pandas as pd
 from ..errors import QueryError
 from .compare import holm, t_from_moments
 from .picks import RULES, best_index, check_rule, check_se, one_se_index
-from .queries import (history_cells, paired_changes, picks, previous_sweep, shared_cells,
-                      sweep_facts, sweep_labels, sweep_records, sweep_status_of, varying_params)
+from .past_queries import (history_cells, paired_changes, previous_sweep, shared_cells,
+                           sweep_records, sweep_status_of)
+from .queries import picks, sweep_facts, sweep_labels, varying_params
 from .results import ModelHistory, SweepDiff
 from ..store import Store
 

@@ -24,8 +24,8 @@ from ..families import get_family
 from .filenames import inside, safe_component
 from ..metrics import get_metric, metric_label
 from .picks import check_rule
-from .queries import (complexity_table, importance_table, model_order, picked_fold_scores,
-                      picks, prediction_table, sweep_facts, tree_node_table)
+from .explained import importance_table, prediction_table, tree_node_table
+from .queries import complexity_table, model_order, picked_fold_scores, picks, sweep_facts
 from .results import ComplexityTable, Picks
 from ..store import Store
 from .views import number, params_text, rule_label

@@ -1,7 +1,7 @@
 """The results of reading a sweep: small frozen objects, each a table plus the facts that
 say what the table is (which sweep, metric, direction, rule, kind of standard error, models
-without a pick). Built only by `queries.py`; turned into display tables and sentences only
-by `views.py`, for the CLI and the report alike."""
+without a pick). Built only by `queries.py` and `explained.py`; turned into display tables
+and sentences only by `views.py`, for the CLI and the report alike."""
 
 from __future__ import annotations
 

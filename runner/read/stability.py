@@ -1,7 +1,7 @@
 """Stability of the chosen cells across folds: how much a fitted model changes when its
 training rows are redrawn. Pure functions state each number on plain inputs; `summarise`
 applies them to a sweep's per-fold tree shapes and importances (read by
-`queries.stability_table`).
+`explained.stability_table`).
 
 Per cell, over its k·r fold refits:
 - root share: the share of folds whose tree splits first on the most common root column;

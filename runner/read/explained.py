@@ -1,0 +1,192 @@
+"""What the explain step stored and the models built from a sweep, read: importances,
+test predictions, tree shapes, stability, coefficients, and the cells and models `build`
+and `predict` look up. Split from `queries.py`, which keeps the sweep-level reads."""
+
+from __future__ import annotations
+
+import json
+
+import pandas as pd
+
+from ..errors import ModelError
+from .queries import picks, sweep_facts
+from .results import Coefficients, Importances, Stability
+from ..store import Store
+
+__all__ = ["importance_table", "prediction_table", "tree_node_table", "tree_fold_table",
+           "stability_table", "cell_record", "cell_scores", "built_models", "model_record",
+           "coefficient_table"]
+
+
+# -- what the explain step stored ------------------------------------------------------------
+def _pick_marks(store: Store, sweep_id: str) -> pd.DataFrame:
+    p = picks(store, sweep_id).table
+    if p.empty:
+        return pd.DataFrame(columns=["cell_id", "picked"])
+    return (p.groupby("cell_id", sort=False)["rule"].agg(lambda r: " ".join(sorted(r)))
+            .rename("picked").reset_index())
+
+
+def importance_table(store: Store, sweep_id: str | None = None, *,
+                     method: str | None = None) -> Importances:
+    """Every stored importance of a sweep, with model, picks and rank (1 = most important)."""
+    facts = sweep_facts(store, sweep_id)
+    df = store.query("""
+        select c.model, c.family, i.cell_id, c.params, c.complexity_rank, i.method, i.feature,
+               i.value, i.spread, min(c.position) over (partition by c.model) as model_row
+        from importances i join cells c on c.sweep_id = i.sweep_id and c.cell_id = i.cell_id
+        where i.sweep_id = ? and (?::varchar is null or i.method = ?)""",
+                     [facts.sweep_id, method, method])
+    df = df.merge(_pick_marks(store, facts.sweep_id), on="cell_id", how="left")
+    df["picked"] = df["picked"].fillna("")
+    df["rank"] = (df.groupby(["cell_id", "method"])["value"]
+                  .rank(ascending=False, method="min").astype(int))
+    df = df.sort_values(["model_row", "complexity_rank", "method", "rank", "feature"])
+    return Importances(facts, df.drop(columns="model_row").reset_index(drop=True),
+                       _permutation_rows(store, facts.sweep_id))
+
+
+def _permutation_rows(store: Store, sweep_id: str) -> int | None:
+    """The most test rows any of the sweep's permutations drew (explained.settings)."""
+    drawn = []
+    for text in store.query("select settings from explained where sweep_id = ?",
+                            [sweep_id])["settings"]:
+        value = json.loads(text).get("permutation_rows") if isinstance(text, str) else None
+        if isinstance(value, int) and not isinstance(value, bool):
+            drawn.append(value)
+    return max(drawn, default=None)
+
+
+def prediction_table(store: Store, sweep_id: str | None = None) -> pd.DataFrame:
+    """The stored test-split predictions of a sweep's explained cells, with model and picks."""
+    sweep_id = store.resolve_sweep(sweep_id)
+    df = store.query("""
+        select c.model, c.family, p.cell_id, p."row", p.observed, p.predicted,
+               p.observed_class, p.predicted_class, p.probabilities,
+               min(c.position) over (partition by c.model) as model_row
+        from test_predictions p
+        join cells c on c.sweep_id = p.sweep_id and c.cell_id = p.cell_id
+        where p.sweep_id = ? order by model_row, p.cell_id, p."row" """, [sweep_id])
+    df = df.merge(_pick_marks(store, sweep_id), on="cell_id", how="left")
+    df["picked"] = df["picked"].fillna("")
+    return df.drop(columns="model_row")
+
+
+def tree_node_table(store: Store, sweep_id: str, cell_id: str) -> pd.DataFrame:
+    """The stored nodes of one cell's refit tree, in node order."""
+    return store.query("select * exclude (sweep_id) from tree_nodes where sweep_id = ? and "
+                       "cell_id = ? order by node", [sweep_id, cell_id])
+
+
+def tree_fold_table(store: Store, sweep_id: str | None = None) -> pd.DataFrame:
+    """Each explained tree's shape per fold: leaves, depth, root split, used columns."""
+    sweep_id = store.resolve_sweep(sweep_id)
+    return store.query("""
+        select c.model, t.cell_id, t."repeat", t.fold, t.n_leaves, t.depth, t.root_feature,
+               t.root_threshold, t.root_rule, t.features_used
+        from tree_folds t join cells c on c.sweep_id = t.sweep_id and c.cell_id = t.cell_id
+        where t.sweep_id = ? order by c.position, t."repeat", t.fold""", [sweep_id])
+
+
+def stability_table(store: Store, sweep_id: str | None = None) -> Stability:
+    """One row per explained cell: rank agreement of per-fold importances for every family,
+    and for single trees the root share, Jaccard similarity of used columns and leaf spread
+    (the numbers are defined in `stability.py`)."""
+    from .stability import summarise
+
+    facts = sweep_facts(store, sweep_id)
+    imp = store.query("""
+        select c.model, c.family, f.cell_id, f."repeat", f.fold, f.method, f.feature, f.value,
+               c.position as cell_row
+        from fold_importances f
+        join cells c on c.sweep_id = f.sweep_id and c.cell_id = f.cell_id
+        where f.sweep_id = ?""", [facts.sweep_id])
+    marks = _pick_marks(store, facts.sweep_id).set_index("cell_id")["picked"].to_dict()
+    return Stability(facts, summarise(imp, tree_fold_table(store, facts.sweep_id), marks))
+
+
+# -- built models ----------------------------------------------------------------------------
+def cell_record(store: Store, sweep_id: str, cell: str) -> dict:
+    """One cell of a sweep by its id or a unique prefix of it."""
+    df = store.query("select cell_id, model, family, params, complexity_rank from cells "
+                     "where sweep_id = ? and starts_with(cell_id, ?) order by position",
+                     [sweep_id, cell])
+    if len(df) == 1:
+        return df.iloc[0].to_dict()
+    if df.empty:
+        raise ModelError(f"no cell '{cell}' in sweep {sweep_id}; `foldwise path --model "
+                         "LABEL --format csv` lists a model's cell ids.")
+    raise ModelError(f"cell id prefix '{cell}' matches {len(df)} cells of sweep {sweep_id}; "
+                     "give more characters.")
+
+
+def cell_scores(store: Store, sweep_id: str, cell_id: str) -> pd.DataFrame:
+    """A cell's CV mean, SE and folds per metric of the sweep, with its test score."""
+    df = store.query("""
+        select s.metric, s.mean, s.se, s.n, t.value as test
+        from cell_summary s
+        left join test_scores t
+          on t.sweep_id = s.sweep_id and t.cell_id = s.cell_id and t.metric = s.metric
+        where s.sweep_id = ? and s.cell_id = ?""", [sweep_id, cell_id])
+    order = {m: i for i, m in enumerate(sweep_facts(store, sweep_id).metrics)}
+    return df.sort_values("metric", key=lambda c: c.map(order)).reset_index(drop=True)
+
+
+def built_models(store: Store, sweep_id: str | None = None) -> pd.DataFrame:
+    """The store's built models, newest first (of one sweep if `sweep_id`)."""
+    if sweep_id is not None:
+        sweep_id = store.resolve_sweep(sweep_id)
+    return store.query("""
+        select model_id, sweep_id, model, family, rule, cell_id, rows_used, n_rows,
+               created_at, user_name, artefact_bytes, artefact_sha256
+        from models where ?::varchar is null or sweep_id = ?
+        order by created_at desc, model_id desc""", [sweep_id, sweep_id])
+
+
+def _model_id(store: Store, model_id: str) -> tuple[str, str, str]:
+    """(model id, sweep id, rule) of the one built model whose id starts with `model_id`."""
+    ids = store.query("select model_id, sweep_id, rule from models "
+                      "where starts_with(model_id, ?)", [model_id])
+    if ids.empty:
+        raise ModelError(f"no built model '{model_id}' in store {store.path}; "
+                         "`foldwise models` lists them.")
+    if len(ids) > 1:
+        raise ModelError(f"model id prefix '{model_id}' matches {len(ids)} models; give "
+                         "more characters.")
+    return tuple(str(v) for v in ids.iloc[0])
+
+
+def model_record(store: Store, model_id: str) -> dict:
+    """One built model's row, artefact bytes included, by its id or a unique prefix."""
+    row = store.query("select * from models where model_id = ?",
+                      [_model_id(store, model_id)[0]]).iloc[0].to_dict()
+    row["artefact"] = bytes(row["artefact"]) if row["artefact"] is not None else b""
+    return row
+
+
+def coefficient_table(store: Store, sweep_id: str | None = None, *,
+                      model_id: str | None = None) -> Coefficients:
+    """Signed coefficients: of one built model (`model_id`), or of a sweep's explained
+    linear cells, with model, picks and whether each term is the intercept."""
+    if model_id is not None:
+        model_id, sweep_id, rule = _model_id(store, model_id)
+        df = store.query("""
+            select m.model, m.cell_id, c.class_label, c.term, c.feature, c.level,
+                   c.coefficient, c.standardised, c.mean, c.scale
+            from model_coefficients c join models m using (model_id)
+            where c.model_id = ? order by c.class_label nulls first, c.position""",
+                         [model_id])
+        df.insert(2, "picked", rule)
+        return Coefficients(sweep_id, model_id, df)
+    sweep_id = store.resolve_sweep(sweep_id)
+    df = store.query("""
+        select c.model, k.cell_id, k.class_label, k.term, k.feature, k.level,
+               k.coefficient, k.standardised, k.mean, k.scale
+        from coefficients k join cells c on c.sweep_id = k.sweep_id and c.cell_id = k.cell_id
+        where k.sweep_id = ? order by c.position, k.class_label nulls first, k.position""",
+                    [sweep_id])
+    df = df.merge(_pick_marks(store, sweep_id), on="cell_id", how="left")
+    df["picked"] = df["picked"].fillna("")
+    df = df[["model", "cell_id", "picked", *[c for c in df.columns
+                                             if c not in ("model", "cell_id", "picked")]]]
+    return Coefficients(sweep_id, None, df.reset_index(drop=True))
