@@ -46,7 +46,7 @@ def _foreign(path: Path, sql: str) -> Path:
 @pytest.mark.parametrize("tables", [
     "create table invoices (id integer, total decimal(10, 2)); "
     "insert into invoices values (1, 19.99), (2, 5.00)",
-    "create table sweeps (id integer, broom varchar); insert into sweeps values (1, 'birch')",
+    "create table sweeps (id integer, route varchar); insert into sweeps values (1, 'north quay')",
 ], ids=["invoices", "own sweeps table"])
 def test_a_database_that_is_not_a_store_is_never_written(tmp_path, diabetes_csv, tables):
     spec = write_spec(tmp_path, MODELS)
