@@ -236,19 +236,9 @@ def fit_grouped(make_estimator: Callable, preprocessor: Callable, evaluate: Eval
                 fit.how = how(group[0])
                 if fit.model is not None and fit.error is None:
                     _read(read, fit, Pipeline([("prep", prep), ("model", fit.model)]), X_fit)
+                fit.model = None  # the fitted model leaves no task
                 out[i] = fit
-            for fit in fits:
-                _let_go(fit)
     return out  # type: ignore[return-value]
-
-
-def _let_go(fit: CellFit) -> None:
-    """Drop a group member's fitted model once the group is read, with any predict that a
-    size group shares: it refers back to the largest model, a cycle that would keep every
-    task's forest in the worker until the garbage collector runs."""
-    if fit.model is not None:
-        vars(fit.model).pop("predict", None)
-    fit.model = None  # the fitted model leaves no task
 
 
 def _evaluate_group(evaluate: Evaluate, group: list[dict], prep_error, prep_seconds: float,

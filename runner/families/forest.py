@@ -65,7 +65,7 @@ def _prefix_path(group: list[dict], Xt_fit, y_fit, Xt_evals, *, seed: int,
                                                                                   y_fit)
     fits = [CellFit(model=first_trees(forest, k)) for k in sizes]
     if task != "classification" and len(set(sizes)) > 1:
-        shared = _SharedPredictions(forest, sizes)
+        shared = _SharedPredictions(copy.copy(forest), sizes)
         for fit, k in zip(fits, sizes):  # what the explain step reads predicts once for all
             fit.model.predict = functools.partial(shared.predict, k)
     for X in Xt_evals:
@@ -78,7 +78,9 @@ class _SharedPredictions:
     """Every size's predictions of rows from one pass over the largest forest's trees
     (`forest_prefix_predictions`, bit for bit each size's own predict), kept per distinct
     rows: reading a size group (permutation importance shuffles the same rows for every
-    size) then walks the trees once instead of once per size."""
+    size) then walks the trees once instead of once per size. It holds a copy of the
+    forest whose predict is not overridden, so no reference cycle keeps the forest alive
+    past its task."""
 
     def __init__(self, forest, sizes: list[int]):
         self.forest, self.sizes = forest, sorted(set(sizes))
