@@ -71,8 +71,7 @@ class ExplainResult:
 
 
 def permutation_rows(pipeline, X_test, y_test, *, metric: str, repeats: int,
-                     seed: int, rows: int | None = None,
-                     classes=()) -> dict[str, tuple[float, float]]:
+                     seed: int, rows: int, classes=()) -> dict[str, tuple[float, float]]:
     """Per original column, (mean, sd) of the score lost when the column is shuffled, on
     `rows` test rows drawn anew for each column (scikit-learn's `max_samples`; all of
     them when the split holds no more)."""
@@ -86,10 +85,10 @@ def permutation_rows(pipeline, X_test, y_test, *, metric: str, repeats: int,
             zip(X_test.columns, result.importances_mean, result.importances_std)}
 
 
-def permutation_sample(rows: int | None, n_test: int) -> int:
+def permutation_sample(rows: int, n_test: int) -> int:
     """The test rows each permutation draws: the spec's `explain.permutation.rows`, or
     every test row when the split holds no more."""
-    return n_test if rows is None else min(int(rows), n_test)
+    return min(int(rows), n_test)
 
 
 # -- readings: what the explain step keeps of one fitted cell ------------------------------
@@ -106,7 +105,7 @@ def read_fold(family: str, est, X_fit) -> dict[str, list]:
 
 
 def read_refit(family: str, est, X_train, *, X_test, y_test, test_rows, metric: str,
-               repeats: int, perm_seed: int, perm_rows: int | None, task: str = "regression",
+               repeats: int, perm_seed: int, perm_rows: int, task: str = "regression",
                classes=()) -> dict[str, list]:
     """One cell fitted on all training rows: permutation and own importances, the test
     predictions, a tree's nodes, a linear model's coefficients and the model's size; rows
@@ -169,7 +168,7 @@ def _fold_task(family, cell_id, params, X_fit, y_fit, *, seed, repeat, fold, num
 
 
 def _refit_task(family, cell_id, params, X_train, y_train, X_test, y_test, test_rows, *,
-                seed, metric, repeats, perm_seed, perm_rows=None, numeric, categorical,
+                seed, metric, repeats, perm_seed, perm_rows, numeric, categorical,
                 task="regression", classes=()):
     """One chosen cell refitted on all training rows: importances, nodes, test predictions."""
     try:
