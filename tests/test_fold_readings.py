@@ -165,6 +165,22 @@ def test_a_test_split_smaller_than_rows_is_used_whole(tmp_path, diabetes_csv):
     assert importance_table(Store(result.store_path)).permutation_rows == 111
 
 
+@pytest.mark.parametrize("settings", ["[1, 2]", '{"permutation_rows": "many"}',
+                                      '{"permutation_rows": true}'])
+def test_stored_settings_that_are_not_a_count_give_no_count(tmp_path, diabetes_csv, settings):
+    """explained.settings is text from a store someone else may have written: it is parsed,
+    never trusted, and a value that is not a count is left out rather than failing the read."""
+    import duckdb
+
+    spec = spec_from(tmp_path, "ols: {family: linear, grid: {penalty: none}}",
+                     explain="picked")
+    path = run_sweep(spec, jobs=1).store_path
+    with duckdb.connect(str(path)) as con:
+        con.execute("update explained set settings = ?", [settings])
+    read = importance_table(Store(path))
+    assert read.permutation_rows is None and len(read.table) > 0
+
+
 @pytest.mark.parametrize("rows", [99, 1_000_001, "many"])
 def test_permutation_rows_are_bounded(rows):
     from runner.errors import SpecError

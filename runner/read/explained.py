@@ -4,12 +4,10 @@ and `predict` look up. Split from `queries.py`, which keeps the sweep-level read
 
 from __future__ import annotations
 
-import json
-
 import pandas as pd
 
 from ..errors import ModelError
-from .queries import picks, sweep_facts
+from .queries import json_object, picks, sweep_facts
 from .results import Coefficients, Importances, Stability
 from ..store import Store
 
@@ -51,7 +49,7 @@ def _permutation_rows(store: Store, sweep_id: str) -> int | None:
     drawn = []
     for text in store.query("select settings from explained where sweep_id = ?",
                             [sweep_id])["settings"]:
-        value = json.loads(text).get("permutation_rows") if isinstance(text, str) else None
+        value = json_object(text).get("permutation_rows")
         if isinstance(value, int) and not isinstance(value, bool):
             drawn.append(value)
     return max(drawn, default=None)

@@ -23,7 +23,7 @@ from .compare import holm, t_from_moments
 from .picks import RULES, best_index, check_rule, check_se, one_se_index
 from .past_queries import (history_cells, paired_changes, previous_sweep, shared_cells,
                            sweep_records, sweep_status_of)
-from .queries import picks, sweep_facts, sweep_labels, varying_params
+from .queries import json_object, picks, sweep_facts, sweep_labels, varying_params
 from .results import ModelHistory, SweepDiff
 from ..store import Store
 
@@ -72,7 +72,7 @@ def _diff(store: Store, sweep_a: str | None, sweep_b: str | None, se: str) -> Sw
         for model, names in varying_params(store, sid).items():
             varying[model] = sorted({*varying.get(model, []), *names})
     return SweepDiff(ra, rb, _spec_diff(ra, rb), data_same, plan_same,
-                     _changed(_json(ra["versions"]), _json(rb["versions"])),
+                     _changed(json_object(ra["versions"]), json_object(rb["versions"])),
                      _changed(ra["labels"], rb["labels"]), metric, fb.better_of(), se,
                      paired, why, shared, table, varying)
 
@@ -94,14 +94,6 @@ def _the_two(store: Store, sweep_a: str | None, sweep_b: str | None) -> tuple[st
     return a, b
 
 
-def _json(text) -> dict:
-    try:
-        value = json.loads(text) if isinstance(text, str) else {}
-    except ValueError:
-        return {}
-    return value if isinstance(value, dict) else {}
-
-
 def _changed(a: dict, b: dict) -> dict:
     return {k: (a.get(k), b.get(k)) for k in sorted({*a, *b}) if a.get(k) != b.get(k)}
 
@@ -121,7 +113,7 @@ def _spec_diff(ra: dict, rb: dict) -> tuple[str, ...]:
 
 def _plan_same(ra: dict, rb: dict, shared: int) -> bool | None:
     if ra["plan"] is not None and rb["plan"] is not None:
-        return _json(ra["plan"]) == _json(rb["plan"])
+        return json_object(ra["plan"]) == json_object(rb["plan"])
     return True if shared else None
 
 

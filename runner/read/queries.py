@@ -28,7 +28,7 @@ from ..store.labels import Selection
 __all__ = ["sweeps", "sweep_facts", "summary", "cell_stats", "picks", "complexity_table",
            "compare", "model_order", "picked_fold_scores", "varying_params", "sweep_record",
            "sweep_status", "coverage", "process_alive", "sweep_labels", "unchanged_sweep",
-           "findings"]
+           "findings", "json_object"]
 
 
 def _one_connection(read):
@@ -135,6 +135,16 @@ def sweep_facts(store: Store, sweep_id: str | None = None) -> SweepFacts:
                       rule=str(row["pick_rule"] or "best"),
                       task=str(row["task"]) if isinstance(row["task"], str) else "regression",
                       classes=_classes(row["classes"]), scheme=str(row["scheme"]))
+
+
+def json_object(text) -> dict:
+    """A JSON object stored as text (from the store: checked, never evaluated); {} when the
+    text is missing, malformed or not an object."""
+    try:
+        value = json.loads(text) if isinstance(text, str) else {}
+    except ValueError:
+        return {}
+    return value if isinstance(value, dict) else {}
 
 
 def _classes(text) -> tuple:
