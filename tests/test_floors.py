@@ -24,8 +24,6 @@ FEATURES = [  # (distribution, the version that brought it, file, text that uses
     ("scikit-learn", "1.4", "runner/metrics.py", '"root_mean_squared_error"'),
     # Parallel(return_as="generator_unordered"): new in joblib 1.4
     ("joblib", "1.4", "runner/write/executors.py", 'return_as="generator_unordered"'),
-    # parallel_config(initializer=...): passed to the workers from joblib 1.5
-    ("joblib", "1.5", "runner/write/executors.py", "initializer=watch_parent"),
     # CliRunner results with .stderr apart from .stdout by default: click 8.2
     ("click", "8.2", "tests/test_picks.py", "run.stderr"),
     # DecisionTreeRegressor's missing-value routing (tree_.missing_go_to_left): 1.3

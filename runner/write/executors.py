@@ -8,8 +8,11 @@ from the data in this process as the task is sent; on a cluster the data travel 
 worker once (scattered) and each worker cuts its own task's rows.
 
 Workers never outlive the process that started them: a local worker watches its parent
-and exits when it is gone (even after a `kill -9`, which no exit handler sees), and Dask's
-own local workers already do the same."""
+from its first task on and exits when it is gone (even after a `kill -9`, which no exit
+handler sees), and Dask's own local workers already do the same. The watch starts with
+the task, not as a pool initializer, so that the local workers are joblib's reusable pool
+with default settings: a sweep after another sweep, or after any scikit-learn code run
+with the same n_jobs in this process, finds its workers already started."""
 
 from __future__ import annotations
 
@@ -39,7 +42,7 @@ PARENT_CHECK_SECONDS = 0.2
 
 
 def watch_parent(parent: int, interval: float = PARENT_CHECK_SECONDS) -> None:
-    """Worker initializer: end this process once `parent` is no longer its parent.
+    """In a worker: end this process once `parent` is no longer its parent.
 
     A process whose parent dies is handed to another (init or a subreaper), so its parent
     id changes; a daemon thread notices within `interval` seconds, even while the worker
@@ -102,6 +105,18 @@ def _mapped(path: str) -> dict:
     return _MAPPED[path]
 
 
+_WATCHED: list[int] = []
+
+
+def _watched(parent: int, work: Callable, *args, **kwargs):
+    """Run one task, first making sure that this worker watches `parent` (once per worker;
+    never in `parent` itself, where joblib runs the tasks of a one-worker sweep)."""
+    if os.getpid() != parent and parent not in _WATCHED:
+        watch_parent(parent)
+        _WATCHED.append(parent)
+    return work(*args, **kwargs)
+
+
 def _on_local_worker(work: Callable, unpack: Unpack, path: str, item):
     """Run one task on a local worker: its rows are cut here from the mapped data."""
     args, kwargs = unpack(_mapped(path), item)
@@ -110,7 +125,7 @@ def _on_local_worker(work: Callable, unpack: Unpack, path: str, item):
 
 class LocalExecutor:
     """joblib worker processes on this machine (`jobs`: -1 = every core), each of which
-    exits when this process is gone (`watch_parent`). Shared data of `SHARE_BYTES` or more
+    exits when this process is gone (`watch_parent`, from its first task on). Shared data of `SHARE_BYTES` or more
     are written once to a file the workers memory-map, and each worker cuts its tasks' rows
     from it; smaller data travel inside each task, cut here."""
 
@@ -133,7 +148,7 @@ class LocalExecutor:
 
     def results(self, work: Callable, data: dict, items: Iterable, unpack: Unpack) -> Iterator:
         """Each item's result, in the order the tasks finish."""
-        from joblib import Parallel, delayed, parallel_config
+        from joblib import Parallel, delayed
 
         shared = None
         if self.n_workers > 1 and _data_bytes(data) >= SHARE_BYTES:
@@ -142,11 +157,11 @@ class LocalExecutor:
                                             for item in items)
         else:
             run, calls = work, (unpack(data, item) for item in items)
+        parent = os.getpid()
         try:
-            with parallel_config(backend="loky", initializer=watch_parent,
-                                 initargs=(os.getpid(),)):
-                results = Parallel(n_jobs=self.jobs, return_as="generator_unordered")(
-                    delayed(run)(*args, **kw) for args, kw in calls)
+            results = Parallel(n_jobs=self.jobs, backend="loky",
+                               return_as="generator_unordered")(
+                delayed(_watched)(parent, run, *args, **kw) for args, kw in calls)
             yield from results
         finally:
             if shared is not None:
