@@ -3,13 +3,14 @@
 import numpy as np
 import pytest
 from sklearn.datasets import make_friedman1
-from sklearn.ensemble import RandomForestRegressor
+from sklearn.ensemble import RandomForestClassifier, RandomForestRegressor
 from sklearn.linear_model import ElasticNet, Lasso, Ridge
 from sklearn.tree import DecisionTreeRegressor
 
 from runner.families.paths import (
     _steps_for,
     elastic_net_path_coefs,
+    forest_prefix_in_batches,
     forest_prefix_predictions,
     pruned_tree_predictions,
     pruning_alphas,
@@ -170,6 +171,52 @@ def test_forest_prefix_matches_smaller_forests(params):
             n_estimators=k, random_state=3, n_jobs=1, min_samples_leaf=2, **params
         ).fit(X_tr, y_tr)
         assert np.array_equal(p, ref.predict(X_ev)), k
+
+
+@pytest.mark.parametrize("params", FOREST_CASES)
+def test_forest_grown_in_batches_matches_smaller_forests(params):
+    """Predictions for two evaluation sets and impurity importances of every size, from a
+    forest grown 3 trees at a time (sizes falling inside, at the end of and across
+    batches); reference: scikit-learn's own RandomForestRegressor with n_estimators=k,
+    compared bit for bit, missing values included."""
+    X, y = _friedman(n=500)
+    X = _with_missing(X, frac=0.05)
+    X_tr, y_tr, X_ev = X[:350], y[:350], X[350:]
+    sizes = [10, 5, 20, 5, 1, 3, 7]
+    forest = RandomForestRegressor(n_estimators=20, random_state=3, n_jobs=1,
+                                   min_samples_leaf=2, **params)
+    (on_eval, on_fit), importances = forest_prefix_in_batches(forest, X_tr, y_tr,
+                                                              [X_ev, X_tr], sizes, batch=3)
+    assert all(tree is None for tree in forest.estimators_)  # every batch was let go
+    for i, k in enumerate(sizes):
+        ref = RandomForestRegressor(n_estimators=k, random_state=3, n_jobs=1,
+                                    min_samples_leaf=2, **params).fit(X_tr, y_tr)
+        assert np.array_equal(on_eval[i], ref.predict(X_ev)), k
+        assert np.array_equal(on_fit[i], ref.predict(X_tr)), k
+        assert np.array_equal(importances[i], ref.feature_importances_), k
+
+
+def test_classifier_grown_in_batches_matches_smaller_forests_without_extra_warnings():
+    """Class probabilities and importances as scikit-learn's RandomForestClassifier with
+    n_estimators=k gives them (bit for bit), with per-tree class weights; the warm
+    start's caution on class weights is not passed on (the rows never change)."""
+    import warnings
+
+    X, y = _friedman(n=600)
+    labels = np.digitize(y, np.quantile(y, [0.5, 0.85]))
+    X_tr, y_tr, X_ev = X[:450], labels[:450], X[450:]
+    common = dict(random_state=5, n_jobs=1, class_weight="balanced_subsample")
+    sizes = [4, 9, 16]
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        (probabilities,), importances = forest_prefix_in_batches(
+            RandomForestClassifier(n_estimators=16, **common), X_tr, y_tr, [X_ev], sizes,
+            batch=5)
+    assert caught == []
+    for i, k in enumerate(sizes):
+        ref = RandomForestClassifier(n_estimators=k, **common).fit(X_tr, y_tr)
+        assert np.array_equal(probabilities[i], ref.predict_proba(X_ev)), k
+        assert np.array_equal(importances[i], ref.feature_importances_), k
 
 
 def test_forest_prefix_rejects_out_of_range_sizes():

@@ -21,7 +21,8 @@ from sklearn.pipeline import Pipeline
 from sklearn.preprocessing import OneHotEncoder, OrdinalEncoder, StandardScaler
 
 __all__ = ["CellFit", "tree_preprocessor", "linear_preprocessor", "fit_each", "fit_grouped",
-           "predict", "path_groups", "work_units", "prediction_columns", "PLAIN"]
+           "predict", "path_groups", "work_units", "prediction_columns", "needs_whole_model",
+           "PLAIN"]
 
 PLAIN = "plain"
 """`CellFit.how` of a cell fitted on its own."""
@@ -43,7 +44,15 @@ class CellFit:
 
 
 Read = Callable[[object, object], dict]
-"""(fitted pipeline, fitting rows) -> what the explain step keeps of one cell's fit."""
+"""(fitted pipeline, fitting rows) -> what the explain step keeps of one cell's fit. A
+reader whose attribute `whole_model` is False reads only the model's own importances
+(`feature_importances_` or coefficients), so a family may hand it a stand-in that holds
+just those and let the fitted parts go as it works."""
+
+
+def needs_whole_model(read: Read | None) -> bool:
+    """Whether `read` reads more of a fitted model than its own importances."""
+    return read is not None and getattr(read, "whole_model", True)
 
 
 def tree_preprocessor(numeric: list[str], categorical: list[str]) -> ColumnTransformer:

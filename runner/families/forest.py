@@ -5,7 +5,10 @@ A grid over `n_estimators` is scored from one forest per combination of the othe
 parameters: the largest forest is fitted once and its first k trees are the k-tree forest
 with the same random_state (the trees' seeds are drawn in order), so their running mean
 gives every smaller forest's predictions bit for bit (`paths.py`); for classes the running
-mean of the trees' class probabilities, as the classifier's predict_proba averages them."""
+mean of the trees' class probabilities, as the classifier's predict_proba averages them.
+Unless the whole forest is read afterwards (a refit the explain step reads), the forest
+is grown a few trees at a time and each batch let go once read, so a task holds a few
+trees rather than the forest: on a large fold the forest is most of a worker's memory."""
 
 from __future__ import annotations
 
@@ -19,9 +22,9 @@ from sklearn.ensemble import RandomForestClassifier, RandomForestRegressor
 from sklearn.pipeline import Pipeline
 
 from ._readers import impurity_importance as own_importance
-from ._base import (CellFit, fit_grouped, prediction_columns, tree_preprocessor,
-                    work_units)
-from .paths import forest_prefix_predictions
+from ._base import (CellFit, fit_grouped, needs_whole_model, prediction_columns,
+                    tree_preprocessor, work_units)
+from .paths import forest_prefix_in_batches, forest_prefix_predictions
 
 __all__ = ["make_estimator", "fit_cells", "fit_units", "own_importance", "prediction_columns",
            "PATH_PARAMS"]
@@ -74,6 +77,29 @@ def _prefix_path(group: list[dict], Xt_fit, y_fit, Xt_evals, *, seed: int,
     return fits
 
 
+def _batched_path(group: list[dict], Xt_fit, y_fit, Xt_evals, *, seed: int,
+                  task: str = "regression") -> list[CellFit]:
+    """Every forest size of the group from one forest grown a batch of trees at a time
+    (`forest_prefix_in_batches`); each cell's model is a stand-in holding its own
+    importances, all that a reader that does not need the whole model reads."""
+    sizes = [int(params.get("n_estimators", 100)) for params in group]
+    forest = _forest(group[0], seed=seed, n_estimators=max(sizes), task=task)
+    predictions, importances = forest_prefix_in_batches(forest, Xt_fit, y_fit, Xt_evals,
+                                                        sizes)
+    return [CellFit(predictions=[p[i] for p in predictions],
+                    model=ForestImportances(importances[i]))
+            for i in range(len(sizes))]
+
+
+class ForestImportances:
+    """What a forest grown batch by batch keeps of one size once its trees are gone: the
+    impurity importances of its first k trees, as the forest's own property gives them."""
+
+    def __init__(self, importances: np.ndarray):
+        self.feature_importances_ = importances
+        self.n_features_in_ = len(importances)
+
+
 class _SharedPredictions:
     """Every size's predictions of rows from one pass over the largest forest's trees
     (`forest_prefix_predictions`, bit for bit each size's own predict), kept per distinct
@@ -108,9 +134,11 @@ def first_trees(forest, k: int):
 
 def fit_cells(cells, X_fit, y_fit, X_evals, *, seed, numeric, categorical, paths=True,
               task="regression", read=None):
-    """Score every cell on the fitting rows: size grids from one forest, or (with
-    `paths=False`, or a lone size) one fit per cell."""
-    return fit_grouped(make_estimator, tree_preprocessor, _prefix_path, _how, PATH_PARAMS,
+    """Score every cell on the fitting rows: size grids from one forest (grown in batches
+    unless `read` needs the whole forest), or (with `paths=False`, or a lone size) one fit
+    per cell."""
+    path = _prefix_path if needs_whole_model(read) else _batched_path
+    return fit_grouped(make_estimator, tree_preprocessor, path, _how, PATH_PARAMS,
                        cells, X_fit, y_fit, X_evals, seed=seed, numeric=numeric,
                        categorical=categorical, paths=paths, task=task, read=read)
 

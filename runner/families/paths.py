@@ -7,12 +7,15 @@ grid value, while fitting (or decomposing) only once:
   unpruned tree in rounds of many prunings, bit-for-bit equal to refits with
   ``ccp_alpha``; one ``apply`` per evaluation set, then one gather per alpha;
 * random forests: running prefix means over the fitted trees, bit-for-bit equal
-  to forests with fewer ``n_estimators``;
+  to forests with fewer ``n_estimators``; also grown a batch of trees at a time and
+  each batch let go once read, so that a fold holds a few trees, not the forest;
 * ridge: one SVD of the centred design shared by all ``alpha`` values;
 * lasso / elastic net: one coordinate-descent path per ``l1_ratio``.
 
 Only numpy and scikit-learn are imported; the functions are pure.
 """
+
+import warnings
 
 import numpy as np
 from sklearn.linear_model import enet_path
@@ -286,6 +289,69 @@ def forest_prefix_predictions(forest, X, sizes):
         if k in wanted:
             out[wanted[k]] = running / k
     return out
+
+
+def forest_prefix_in_batches(forest, X, y, X_evals, sizes, *, batch=8):
+    """Each size's predictions for every evaluation set and its impurity importances, as
+    forests with the first ``sizes[i]`` trees give them, growing ``forest`` (unfitted;
+    its ``n_estimators`` the largest size) ``batch`` trees at a time.
+
+    A warm-started forest draws the seeds a one-shot fit would, so the trees are the same;
+    each batch is read (predictions added in tree order, importances kept per tree) and
+    then let go, so at most ``batch`` trees are held at once. Returns (predictions: one
+    array of shape (len(sizes), n_rows[, n_classes]) per evaluation set, importances:
+    array of shape (len(sizes), n_features))."""
+    sizes = np.asarray(sizes).reshape(-1)
+    n_trees = int(forest.n_estimators)
+    if sizes.size == 0 or sizes.min() < 1 or sizes.max() > n_trees:
+        raise ValueError(f"sizes must lie in [1, {n_trees}]")
+    # The trees read float32, as the forest's own fit and predict cast them.
+    X = check_array(X, dtype=np.float32, ensure_all_finite=False)
+    X_evals = [check_array(Xe, dtype=np.float32, ensure_all_finite=False) for Xe in X_evals]
+    wanted = {}
+    for i, k in enumerate(sizes.tolist()):
+        wanted.setdefault(int(k), []).append(i)
+    outs, running, per_tree = None, None, []
+    forest.set_params(warm_start=True)
+    grown = 0
+    while grown < int(sizes.max()):
+        forest.set_params(n_estimators=min(grown + batch, n_trees))
+        with warnings.catch_warnings():
+            # A one-shot fit warns once: later batches' fit-level warnings are repeats.
+            # The warm start's own caution on class weights does not apply to the same rows.
+            warnings.filterwarnings("ignore", message=".*not recommended for warm_start")
+            if grown:
+                warnings.simplefilter("ignore")
+            forest.fit(X, y)
+        classes = getattr(forest, "classes_", None)
+        if outs is None:
+            shapes = [(Xe.shape[0],) if classes is None else (Xe.shape[0], len(classes))
+                      for Xe in X_evals]
+            outs = [np.empty((sizes.size, *shape), dtype=np.float64) for shape in shapes]
+            running = [np.zeros(shape, dtype=np.float64) for shape in shapes]
+        for k in range(grown + 1, len(forest.estimators_) + 1):
+            tree = forest.estimators_[k - 1]
+            for Xe, total, out in zip(X_evals, running, outs):
+                total += tree.predict(Xe) if classes is None else tree.predict_proba(Xe)
+                if k in wanted:
+                    out[wanted[k]] = total / k
+            per_tree.append(tree.feature_importances_ if tree.tree_.node_count > 1 else None)
+            forest.estimators_[k - 1] = None  # read: let the tree go
+        grown = len(forest.estimators_)
+    importances = np.empty((sizes.size, forest.n_features_in_), dtype=np.float64)
+    for i, k in enumerate(sizes.tolist()):
+        importances[i] = _mean_importances(per_tree[:k], forest.n_features_in_)
+    return outs, importances
+
+
+def _mean_importances(per_tree, n_features):
+    """A forest's impurity importances from its trees', as the forest's own property
+    computes them: the mean over trees of more than one node, normalised to sum 1."""
+    chosen = [v for v in per_tree if v is not None]
+    if not chosen:
+        return np.zeros(n_features, dtype=np.float64)
+    mean = np.mean(chosen, axis=0, dtype=np.float64)
+    return mean / np.sum(mean)
 
 
 # --------------------------------------------------------------------------

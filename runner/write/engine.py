@@ -38,7 +38,7 @@ import pandas as pd
 from .. import __version__
 from .budget import check_limits, check_plan_memory, data_limit_bytes, plan_size
 from ..errors import FoldwiseError
-from .explain import explain_sweep, keyed, read_fold, read_refit
+from .explain import explain_sweep, fold_reader, keyed, read_refit
 from .executors import DaskExecutor, LocalExecutor, make_executor
 from ..families import load_family
 from .grid import Cell
@@ -230,7 +230,7 @@ def _reader(family: str, explain: dict | None, X_test, y_test, task: str, classe
     if explain is None:
         return None
     if explain["kind"] == "fold":
-        return functools.partial(read_fold, family)
+        return fold_reader(family)
     settings = {k: v for k, v in explain.items() if k != "kind"}
     return lambda est, X_train: read_refit(family, est, X_train, X_test=X_test,
                                            y_test=y_test, task=task, classes=classes,

@@ -33,6 +33,8 @@ sweep did, so a refit predicts what the sweep scored."""
 
 from __future__ import annotations
 
+import functools
+
 import json
 from dataclasses import dataclass, field
 from typing import Callable
@@ -102,6 +104,15 @@ def read_fold(family: str, est, X_fit) -> dict[str, list]:
     if fam.one_tree:
         rows["tree_folds"] = [fam.estimators.tree_shape(est)]
     return rows
+
+
+def fold_reader(family: str):
+    """`read_fold` for one family, marked as reading no more than the model's own
+    importances where that is so (every family but a single tree, whose shape it reads):
+    the family may then let the fitted parts go as it works (`needs_whole_model`)."""
+    reader = functools.partial(read_fold, family)
+    reader.whole_model = FAMILIES[family].one_tree
+    return reader
 
 
 def read_refit(family: str, est, X_train, *, X_test, y_test, test_rows, metric: str,
