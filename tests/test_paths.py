@@ -219,6 +219,25 @@ def test_classifier_grown_in_batches_matches_smaller_forests_without_extra_warni
         assert np.array_equal(importances[i], ref.feature_importances_), k
 
 
+def test_trees_per_batch_grows_a_small_forest_at_once_and_a_large_fold_tree_by_tree():
+    """A pickled fully grown tree on 20 000 rows takes about 91 bytes per row (measured
+    with scikit-learn 1.9), so the 64 MiB batch holds ~670 such trees, and one tree of a
+    10^6-row fold (~91 MB) is a batch on its own."""
+    import pickle
+
+    from runner.families.forest import BATCH_BYTES, trees_per_batch
+
+    X, y = _friedman(n=20_000)
+    tree = RandomForestRegressor(n_estimators=1, random_state=0).fit(X, y).estimators_[0]
+    per_row = len(pickle.dumps(tree)) / len(y)
+    assert 60 < per_row <= 100  # the rough size trees_per_batch assumes covers it
+    assert trees_per_batch(20_000) * 20_000 * per_row <= BATCH_BYTES
+    assert trees_per_batch(1_600) >= 400
+    assert trees_per_batch(1_000_000) == 1
+    assert trees_per_batch(100_000) == 6  # 64 MiB / (100 B x 10^5 rows)
+    assert trees_per_batch(100_000, min_samples_leaf=5) == 33  # leaves of 5: a fifth
+
+
 def test_forest_prefix_rejects_out_of_range_sizes():
     X, y = _friedman(n=100)
     forest = RandomForestRegressor(n_estimators=3, random_state=0).fit(X, y)

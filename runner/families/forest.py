@@ -84,11 +84,29 @@ def _batched_path(group: list[dict], Xt_fit, y_fit, Xt_evals, *, seed: int,
     importances, all that a reader that does not need the whole model reads."""
     sizes = [int(params.get("n_estimators", 100)) for params in group]
     forest = _forest(group[0], seed=seed, n_estimators=max(sizes), task=task)
-    predictions, importances = forest_prefix_in_batches(forest, Xt_fit, y_fit, Xt_evals,
-                                                        sizes)
+    predictions, importances = forest_prefix_in_batches(
+        forest, Xt_fit, y_fit, Xt_evals, sizes,
+        batch=trees_per_batch(len(y_fit), group[0].get("min_samples_leaf", 1)))
     return [CellFit(predictions=[p[i] for p in predictions],
                     model=ForestImportances(importances[i]))
             for i in range(len(sizes))]
+
+
+BATCH_BYTES = 64 * 2 ** 20
+"""About how much of a task's memory the trees of one batch may take."""
+
+_TREE_BYTES_PER_ROW = 100
+"""A fully grown tree's size per fitting row, roughly: about 1.3 nodes per row for the
+bootstrap's distinct rows, at 64 bytes a node plus its value (measured, common forests)."""
+
+
+def trees_per_batch(n_rows: int, min_samples_leaf=1) -> int:
+    """How many trees to grow at once so that they take about `BATCH_BYTES`: all of a
+    small forest at once (no cost for batching), one at a time on very large folds. A leaf
+    size given as a fraction of the rows is read as one row."""
+    leaf = min_samples_leaf if isinstance(min_samples_leaf, int) and min_samples_leaf > 1 else 1
+    per_tree = max(1, _TREE_BYTES_PER_ROW * n_rows // leaf)
+    return max(1, BATCH_BYTES // per_tree)
 
 
 class ForestImportances:
