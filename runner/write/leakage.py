@@ -269,11 +269,13 @@ def _group_keys(spec, frame, plan: Plan) -> list[Finding]:
         if col == spec.test.column:
             continue
         s = _column(frame, col)
+        text = col in frame.categorical or not pd.api.types.is_numeric_dtype(s)
+        if not (id_like(col) or text):
+            continue  # a measurement: counting its values would decide nothing
         n, n_values = int(s.notna().sum()), s.nunique()
         if n_values < max(MIN_GROUPS, spec.folds.k) or n < 2 * n_values:
             continue
-        text = col in frame.categorical or not pd.api.types.is_numeric_dtype(s)
-        if not (id_like(col) or (text and n_values >= GROUP_LEVELS)):
+        if not (id_like(col) or n_values >= GROUP_LEVELS):
             continue
         codes = pd.factorize(s)[0][plan.train_rows]
         split: set = set()
