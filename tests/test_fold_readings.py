@@ -227,36 +227,3 @@ def test_local_workers_read_mapped_data_and_score_the_same(tmp_path, diabetes_cs
                             [s]) for s in (one.sweep_id, two.sweep_id))
         assert len(a) > 0
         pd.testing.assert_frame_equal(a, b, check_exact=True, obj=table)
-
-
-def test_a_forest_size_group_frees_its_forest_when_the_task_ends(monkeypatch):
-    """A size group's shared predictions refer back to the largest forest; once the cells
-    are scored nothing may keep it alive but the garbage collector (a worker would then
-    hold every task's forest and be restarted by its pool for the memory)."""
-    import gc
-    import weakref
-
-    from sklearn.datasets import make_friedman1
-
-    from runner.families import forest as forest_family
-
-    made = []
-    build = forest_family._forest
-
-    def recorded(*args, **kwargs):
-        model = build(*args, **kwargs)
-        made.append(weakref.ref(model))
-        return model
-
-    monkeypatch.setattr(forest_family, "_forest", recorded)
-    X, y = make_friedman1(n_samples=300, n_features=5, random_state=0)
-    X = pd.DataFrame(X, columns=[f"x{i}" for i in range(5)])
-    cells = [{"n_estimators": k, "max_features": 1.0} for k in (5, 10, 20)]
-    gc.disable()
-    try:
-        fits = forest_family.fit_cells(cells, X[:200], y[:200], [X[200:]], seed=3,
-                                       numeric=list(X.columns), categorical=[])
-        assert len(made) == 1 and all(fit.error is None for fit in fits)
-        assert made[0]() is None  # freed by reference counting alone
-    finally:
-        gc.enable()

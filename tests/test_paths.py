@@ -11,7 +11,6 @@ from runner.families.paths import (
     _steps_for,
     elastic_net_path_coefs,
     forest_prefix_in_batches,
-    forest_prefix_predictions,
     pruned_tree_predictions,
     pruning_alphas,
     ridge_path_coefs,
@@ -156,24 +155,6 @@ FOREST_CASES = [
 
 
 @pytest.mark.parametrize("params", FOREST_CASES)
-def test_forest_prefix_matches_smaller_forests(params):
-    X, y = _friedman(n=500)
-    X_tr, y_tr, X_ev = X[:350], y[:350], X[350:]
-    forest = RandomForestRegressor(
-        n_estimators=20, random_state=3, n_jobs=1, min_samples_leaf=2, **params
-    ).fit(X_tr, y_tr)
-    sizes = [10, 5, 20, 5]
-    preds = forest_prefix_predictions(forest, X_ev, sizes)
-    assert preds.shape == (4, X_ev.shape[0])
-    for k, p in zip(sizes, preds):
-        # reference: scikit-learn's own RandomForestRegressor with n_estimators=k
-        ref = RandomForestRegressor(
-            n_estimators=k, random_state=3, n_jobs=1, min_samples_leaf=2, **params
-        ).fit(X_tr, y_tr)
-        assert np.array_equal(p, ref.predict(X_ev)), k
-
-
-@pytest.mark.parametrize("params", FOREST_CASES)
 def test_forest_grown_in_batches_matches_smaller_forests(params):
     """Predictions for two evaluation sets and impurity importances of every size, from a
     forest grown 3 trees at a time (sizes falling inside, at the end of and across
@@ -238,11 +219,11 @@ def test_trees_per_batch_grows_a_small_forest_at_once_and_a_large_fold_tree_by_t
     assert trees_per_batch(100_000, min_samples_leaf=5) == 33  # leaves of 5: a fifth
 
 
-def test_forest_prefix_rejects_out_of_range_sizes():
+def test_forest_grown_in_batches_rejects_out_of_range_sizes():
     X, y = _friedman(n=100)
-    forest = RandomForestRegressor(n_estimators=3, random_state=0).fit(X, y)
     with pytest.raises(ValueError):
-        forest_prefix_predictions(forest, X, [4])
+        forest_prefix_in_batches(RandomForestRegressor(n_estimators=3, random_state=0), X, y,
+                                 [X], [4])
 
 
 def _linear_data(seed=0):

@@ -20,6 +20,8 @@ from sklearn.impute import SimpleImputer
 from sklearn.pipeline import Pipeline
 from sklearn.preprocessing import OneHotEncoder, OrdinalEncoder, StandardScaler
 
+from ._replay import answered, questions
+
 __all__ = ["CellFit", "tree_preprocessor", "linear_preprocessor", "fit_each", "fit_grouped",
            "predict", "path_groups", "work_units", "prediction_columns", "needs_whole_model",
            "PLAIN"]
@@ -237,14 +239,27 @@ def fit_grouped(make_estimator: Callable, preprocessor: Callable, evaluate: Eval
         except Exception as exc:  # the same failure a Pipeline of any of these cells meets
             prep_error = exc
         prep_share = (time.perf_counter() - start) / len(together)
+        # A hook whose models are let go as they are built (`lets_go`) hands back stand-ins
+        # that hold the own importances only; a reader that needs more is answered from
+        # predictions of the rows it asks for, made while the model was built (`_replay`).
+        replay = getattr(evaluate, "lets_go", False) and needs_whole_model(read)
         for members in together:
             group = [cells[i] for i in members]
+            asked = questions(read, prep, X_fit, y_fit, Xt_fit.shape[1], task) \
+                if replay and prep_error is None else None
             fits = _evaluate_group(evaluate, group, prep_error, prep_share, Xt_fit, y_fit,
-                                   Xt_evals, seed, task)
+                                   [*(Xt_evals or []), *(asked or [])], seed, task)
             for i, fit in zip(members, fits):
                 fit.how = how(group[0])
-                if fit.model is not None and fit.error is None:
-                    _read(read, fit, Pipeline([("prep", prep), ("model", fit.model)]), X_fit)
+                model = fit.model
+                if asked is not None and model is not None:
+                    model = answered(asked, fit.predictions[len(Xt_evals):],
+                                     model.feature_importances_,
+                                     getattr(model, "classes_", None))
+                    del fit.predictions[len(Xt_evals):]
+                if model is not None and fit.error is None and (asked is not None or
+                                                                not replay):
+                    _read(read, fit, Pipeline([("prep", prep), ("model", model)]), X_fit)
                 fit.model = None  # the fitted model leaves no task
                 out[i] = fit
     return out  # type: ignore[return-value]

@@ -6,15 +6,12 @@ parameters: the largest forest is fitted once and its first k trees are the k-tr
 with the same random_state (the trees' seeds are drawn in order), so their running mean
 gives every smaller forest's predictions bit for bit (`paths.py`); for classes the running
 mean of the trees' class probabilities, as the classifier's predict_proba averages them.
-Unless the whole forest is read afterwards (a refit the explain step reads), the forest
-is grown a few trees at a time and each batch let go once read, so a task holds a few
-trees rather than the forest: on a large fold the forest is most of a worker's memory."""
+The forest is grown a few trees at a time and each batch let go once read, so a task holds
+a few trees rather than the forest (on a large fold the forest is most of a worker's
+memory); what the explain step reads of a refit is answered from predictions made of the
+rows it asks for while the forest grew (`_replay.py`)."""
 
 from __future__ import annotations
-
-import copy
-import functools
-import hashlib
 
 import numpy as np
 
@@ -22,9 +19,8 @@ from sklearn.ensemble import RandomForestClassifier, RandomForestRegressor
 from sklearn.pipeline import Pipeline
 
 from ._readers import impurity_importance as own_importance
-from ._base import (CellFit, fit_grouped, needs_whole_model, prediction_columns,
-                    tree_preprocessor, work_units)
-from .paths import forest_prefix_in_batches, forest_prefix_predictions
+from ._base import CellFit, fit_grouped, prediction_columns, tree_preprocessor, work_units
+from .paths import forest_prefix_in_batches
 
 __all__ = ["make_estimator", "fit_cells", "fit_units", "own_importance", "prediction_columns",
            "PATH_PARAMS"]
@@ -59,39 +55,6 @@ def _how(params: dict) -> str:
     return "forest_prefix"
 
 
-def _prefix_path(group: list[dict], Xt_fit, y_fit, Xt_evals, *, seed: int,
-                 task: str = "regression") -> list[CellFit]:
-    """Every forest size of the group from one fit of the largest; each cell also gets its
-    own forest (`CellFit.model`): the first k trees, as a k-tree fit with this seed grows."""
-    sizes = [int(params.get("n_estimators", 100)) for params in group]
-    forest = _forest(group[0], seed=seed, n_estimators=max(sizes), task=task).fit(Xt_fit,
-                                                                                  y_fit)
-    fits = [CellFit(model=first_trees(forest, k)) for k in sizes]
-    if task != "classification" and len(set(sizes)) > 1:
-        shared = _SharedPredictions(copy.copy(forest), sizes)
-        for fit, k in zip(fits, sizes):  # what the explain step reads predicts once for all
-            fit.model.predict = functools.partial(shared.predict, k)
-    for X in Xt_evals:
-        for fit, p in zip(fits, forest_prefix_predictions(forest, X, sizes)):
-            fit.predictions.append(p)
-    return fits
-
-
-def _batched_path(group: list[dict], Xt_fit, y_fit, Xt_evals, *, seed: int,
-                  task: str = "regression") -> list[CellFit]:
-    """Every forest size of the group from one forest grown a batch of trees at a time
-    (`forest_prefix_in_batches`); each cell's model is a stand-in holding its own
-    importances, all that a reader that does not need the whole model reads."""
-    sizes = [int(params.get("n_estimators", 100)) for params in group]
-    forest = _forest(group[0], seed=seed, n_estimators=max(sizes), task=task)
-    predictions, importances = forest_prefix_in_batches(
-        forest, Xt_fit, y_fit, Xt_evals, sizes,
-        batch=trees_per_batch(len(y_fit), group[0].get("min_samples_leaf", 1)))
-    return [CellFit(predictions=[p[i] for p in predictions],
-                    model=ForestImportances(importances[i]))
-            for i in range(len(sizes))]
-
-
 BATCH_BYTES = 64 * 2 ** 20
 """About how much of a task's memory the trees of one batch may take."""
 
@@ -113,50 +76,37 @@ class ForestImportances:
     """What a forest grown batch by batch keeps of one size once its trees are gone: the
     impurity importances of its first k trees, as the forest's own property gives them."""
 
-    def __init__(self, importances: np.ndarray):
+    def __init__(self, importances: np.ndarray, classes=None):
         self.feature_importances_ = importances
         self.n_features_in_ = len(importances)
+        if classes is not None:
+            self.classes_ = classes
 
 
-class _SharedPredictions:
-    """Every size's predictions of rows from one pass over the largest forest's trees
-    (`forest_prefix_predictions`, bit for bit each size's own predict), kept per distinct
-    rows: reading a size group (permutation importance shuffles the same rows for every
-    size) then walks the trees once instead of once per size. It holds a copy of the
-    forest whose predict is not overridden, so no reference cycle keeps the forest alive
-    past its task."""
-
-    def __init__(self, forest, sizes: list[int]):
-        self.forest, self.sizes = forest, sorted(set(sizes))
-        self.seen: dict[tuple, dict[int, np.ndarray]] = {}
-
-    def predict(self, k: int, X) -> np.ndarray:
-        X = np.ascontiguousarray(X)
-        key = (X.shape, X.dtype.str, hashlib.blake2b(X.view(np.uint8)).digest())
-        if key not in self.seen:
-            preds = forest_prefix_predictions(self.forest, X, self.sizes)
-            self.seen[key] = dict(zip(self.sizes, preds))
-        return self.seen[key][k].copy()
+def _batched_path(group: list[dict], Xt_fit, y_fit, Xt_evals, *, seed: int,
+                  task: str = "regression") -> list[CellFit]:
+    """Every forest size of the group from one forest grown a batch of trees at a time
+    (`forest_prefix_in_batches`); each cell's model is a stand-in that holds its own
+    importances: a reader that needs more is answered by replay (`fit_grouped`)."""
+    sizes = [int(params.get("n_estimators", 100)) for params in group]
+    forest = _forest(group[0], seed=seed, n_estimators=max(sizes), task=task)
+    predictions, importances = forest_prefix_in_batches(
+        forest, Xt_fit, y_fit, Xt_evals, sizes,
+        batch=trees_per_batch(len(y_fit), group[0].get("min_samples_leaf", 1)))
+    classes = getattr(forest, "classes_", None)
+    return [CellFit(predictions=[p[i] for p in predictions],
+                    model=ForestImportances(importances[i], classes))
+            for i in range(len(sizes))]
 
 
-def first_trees(forest, k: int):
-    """The forest of `forest`'s first k trees: a k-tree forest fitted with the same seed on
-    the same rows, since the trees' seeds are drawn in order."""
-    if k == len(forest.estimators_):
-        return forest
-    smaller = copy.copy(forest)
-    smaller.estimators_ = forest.estimators_[:k]
-    smaller.n_estimators = k
-    return smaller
+_batched_path.lets_go = True  # its models are stand-ins holding the own importances
 
 
 def fit_cells(cells, X_fit, y_fit, X_evals, *, seed, numeric, categorical, paths=True,
               task="regression", read=None):
-    """Score every cell on the fitting rows: size grids from one forest (grown in batches
-    unless `read` needs the whole forest), or (with `paths=False`, or a lone size) one fit
-    per cell."""
-    path = _prefix_path if needs_whole_model(read) else _batched_path
-    return fit_grouped(make_estimator, tree_preprocessor, path, _how, PATH_PARAMS,
+    """Score every cell on the fitting rows: size grids from one forest grown in batches,
+    or (with `paths=False`, or a lone size) one fit per cell."""
+    return fit_grouped(make_estimator, tree_preprocessor, _batched_path, _how, PATH_PARAMS,
                        cells, X_fit, y_fit, X_evals, seed=seed, numeric=numeric,
                        categorical=categorical, paths=paths, task=task, read=read)
 

@@ -6,9 +6,9 @@ grid value, while fitting (or decomposing) only once:
 * regression trees: weakest-link (cost-complexity) pruning replayed on the
   unpruned tree in rounds of many prunings, bit-for-bit equal to refits with
   ``ccp_alpha``; one ``apply`` per evaluation set, then one gather per alpha;
-* random forests: running prefix means over the fitted trees, bit-for-bit equal
-  to forests with fewer ``n_estimators``; also grown a batch of trees at a time and
-  each batch let go once read, so that a fold holds a few trees, not the forest;
+* random forests: running prefix means over the trees, bit-for-bit equal to forests
+  with fewer ``n_estimators``, the forest grown a batch of trees at a time and each
+  batch let go once read, so that a task holds a few trees, not the forest;
 * ridge: one SVD of the centred design shared by all ``alpha`` values;
 * lasso / elastic net: one coordinate-descent path per ``l1_ratio``.
 
@@ -260,35 +260,6 @@ def pruned_tree_predictions(tree, X, alphas):
 # --------------------------------------------------------------------------
 # Random forests: prefix means over the fitted trees
 # --------------------------------------------------------------------------
-
-
-def forest_prefix_predictions(forest, X, sizes):
-    """Predictions (class probabilities for a classifier) of forests with the first
-    ``sizes[i]`` trees, from one fitted forest."""
-    check_is_fitted(forest, "estimators_")
-    if forest.n_outputs_ != 1:
-        raise ValueError("only single-output forests are supported")
-    sizes = np.asarray(sizes).reshape(-1)
-    n_trees = len(forest.estimators_)
-    if sizes.size == 0 or sizes.min() < 1 or sizes.max() > n_trees:
-        raise ValueError(f"sizes must lie in [1, {n_trees}]")
-    # Cast once to the trees' float32, as the forest's own predict does.
-    X = check_array(X, dtype=np.float32, accept_sparse="csr", ensure_all_finite=False)
-
-    classes = getattr(forest, "classes_", None)
-    shape = (X.shape[0],) if classes is None else (X.shape[0], len(classes))
-    out = np.empty((sizes.size, *shape), dtype=np.float64)
-    wanted = {}
-    for i, k in enumerate(sizes.tolist()):
-        wanted.setdefault(int(k), []).append(i)
-    # Same arithmetic as the library: zeros, += each tree in order, /= count (for a
-    # classifier the trees' class probabilities, as its predict_proba sums them).
-    running = np.zeros(shape, dtype=np.float64)
-    for k, est in enumerate(forest.estimators_[: int(sizes.max())], start=1):
-        running += est.predict(X) if classes is None else est.predict_proba(X)
-        if k in wanted:
-            out[wanted[k]] = running / k
-    return out
 
 
 def forest_prefix_in_batches(forest, X, y, X_evals, sizes, *, batch=8):

@@ -18,7 +18,6 @@ share of its group's time (see `families._base.fit_grouped`)."""
 from __future__ import annotations
 
 import contextlib
-import functools
 import getpass
 import json
 import math
