@@ -133,9 +133,12 @@ def test_sigkill_then_rerun_completes_exactly(folder, kill_after_rows):
     proc.wait()
     landed = _fold_rows(store_path) if store_path.exists() else 0
     store = Store(store_path)
+    # The sweep may have recorded its end and been killed while exiting (a busy machine).
+    ended = store.query("select status from sweeps").status.tolist() == ["finished"] \
+        if store_path.exists() else False
     result = run_sweep(spec_from(folder, MODELS), store=store, jobs=1)
     status = store.query("select sweep_id, status from sweeps order by started_at")
-    first = "finished" if finished_first else "interrupted"
+    first = "finished" if finished_first or ended else "interrupted"
     assert status.status.tolist() == [first, "finished"], landed
     got = store.query("""select cell_id, "repeat", fold, metric, count(*) n from fold_scores
                          where sweep_id = ? group by all""", [result.sweep_id])
