@@ -56,9 +56,11 @@ def watch_parent(parent: int, interval: float = PARENT_CHECK_SECONDS) -> None:
     threading.Thread(target=watch, name="foldwise-watch-parent", daemon=True).start()
 
 
-SHARE_BYTES = 8 * 2 ** 20
-"""Shared data of at least this size reach local workers through a memory-mapped file
-instead of inside every task."""
+SHARE_BYTES = 2 ** 20
+"""Shared data of at least this size reach local workers through one memory-mapped file
+instead of inside every task. It is joblib's own size for mapping a task's arguments:
+above it joblib would write each task's rows to a file of their own (and remove them all
+when the tasks end), where one file of all the rows serves every task."""
 
 
 def _data_bytes(data: dict) -> int:
@@ -125,9 +127,9 @@ def _on_local_worker(work: Callable, unpack: Unpack, path: str, item):
 
 class LocalExecutor:
     """joblib worker processes on this machine (`jobs`: -1 = every core), each of which
-    exits when this process is gone (`watch_parent`, from its first task on). Shared data of `SHARE_BYTES` or more
-    are written once to a file the workers memory-map, and each worker cuts its tasks' rows
-    from it; smaller data travel inside each task, cut here."""
+    exits when this process is gone (`watch_parent`, from its first task on). Shared data
+    of `SHARE_BYTES` or more are written once to a file the workers memory-map, and each
+    worker cuts its tasks' rows from it; smaller data travel inside each task, cut here."""
 
     name = "local"
 
