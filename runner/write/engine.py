@@ -38,7 +38,7 @@ from .. import __version__
 from .budget import check_limits, check_plan_memory, data_limit_bytes, plan_size
 from ..errors import FoldwiseError
 from .explain import explain_sweep, fold_reader, keyed, read_refit
-from .executors import DaskExecutor, LocalExecutor, make_executor
+from .executors import DaskExecutor, LocalExecutor, give_back_freed_memory, make_executor
 from ..families import load_family
 from .grid import Cell
 from ..metrics import METRICS
@@ -493,6 +493,9 @@ def run_sweep(spec: Spec, *, store: Store | None = None, jobs: int | None = None
             if progress:
                 progress(0, total)
             data = _shared_data(prep, paths=paths) if tasks else {}
+            if tasks:
+                prep.keep_split_only()
+                give_back_freed_memory()
             for result in executor.results(_run_task, data, tasks, _task_call):
                 buffer.append(result)
                 done += 1

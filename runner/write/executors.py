@@ -26,7 +26,7 @@ from typing import Any, Callable, Iterable, Iterator
 from ..errors import FoldwiseError
 
 __all__ = ["LocalExecutor", "DaskExecutor", "make_executor", "ClusterError",
-           "package_versions", "watch_parent"]
+           "package_versions", "watch_parent", "give_back_freed_memory"]
 
 Unpack = Callable[[dict, Any], tuple[tuple, dict]]
 
@@ -107,16 +107,49 @@ def _mapped(path: str) -> dict:
     return _MAPPED[path]
 
 
+def _glibc_trim() -> Callable[[], Any] | None:
+    """glibc's `malloc_trim`, or None where the C library is not glibc."""
+    import ctypes
+    import ctypes.util
+
+    try:
+        return ctypes.CDLL(ctypes.util.find_library("c") or "libc.so.6").malloc_trim
+    except (OSError, AttributeError):
+        return None
+
+
+_TRIM = _glibc_trim() if os.name == "posix" else None
+
+
+TRIM_AFTER_SECONDS = 1.0
+"""A worker gives back freed memory after a task of at least this long: the pages of a fit
+on many rows are worth the walk over the heap (tens of ms), a quick task's are not."""
+
+
+def give_back_freed_memory() -> None:
+    """Return to the system the heap pages that freed objects left behind. glibc keeps
+    them for reuse; after a fit on many rows a long-lived process holds tens to hundreds
+    of MiB that nothing uses, and the next task's peak comes on top of them."""
+    if _TRIM is not None:
+        _TRIM(0)
+
+
 _WATCHED: list[int] = []
 
 
 def _watched(parent: int, work: Callable, *args, **kwargs):
     """Run one task, first making sure that this worker watches `parent` (once per worker;
-    never in `parent` itself, where joblib runs the tasks of a one-worker sweep)."""
+    never in `parent` itself, where joblib runs the tasks of a one-worker sweep), and give
+    back what a long task freed before the next one starts."""
     if os.getpid() != parent and parent not in _WATCHED:
         watch_parent(parent)
         _WATCHED.append(parent)
-    return work(*args, **kwargs)
+    start = time.perf_counter()
+    try:
+        return work(*args, **kwargs)
+    finally:
+        if time.perf_counter() - start >= TRIM_AFTER_SECONDS:
+            give_back_freed_memory()
 
 
 def _on_local_worker(work: Callable, unpack: Unpack, path: str, item):

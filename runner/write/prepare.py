@@ -28,6 +28,7 @@ class Prepared:
         self.identity = plan_identity(spec, frame.task)
         self._plan: Plan | None = None
         self._split: dict | None = None
+        self._split_only = False
 
     @property
     def plan(self) -> Plan:
@@ -40,12 +41,27 @@ class Prepared:
         """The training and test rows (X_train, y_train, X_test, y_test), cut once and
         shared by the sweep's tasks and the explain step's (a cluster receives them once)."""
         if self._split is None:
-            frame, plan = self.frame, self.plan
-            self._split = dict(X_train=frame.X.iloc[plan.train_rows],
+            frame, plan, X = self.frame, self.plan, self._full_table()
+            self._split = dict(X_train=X.iloc[plan.train_rows],
                                y_train=frame.y[plan.train_rows],
-                               X_test=frame.X.iloc[plan.test_rows],
+                               X_test=X.iloc[plan.test_rows],
                                y_test=frame.y[plan.test_rows])
         return self._split
+
+    def keep_split_only(self) -> None:
+        """Let the frame's full table go once the split is cut, so that a sweep holds its
+        rows once (a 10^6-row table is 160 MiB): the frame keeps its columns and types but
+        no rows, and whatever would read them again (the leakage checks, the grid's pruning
+        paths) is refused."""
+        self.split  # noqa: B018 - cut it first, from the full table
+        self.frame.X = self.frame.X.iloc[:0].copy()  # a slice would keep the rows alive
+        self._split_only = True
+
+    def _full_table(self):
+        if self._split_only:
+            raise RuntimeError("this Prepared kept only its split (keep_split_only); "
+                               "the full table is gone")
+        return self.frame.X
 
     @property
     def checks_key(self) -> str:
@@ -54,6 +70,7 @@ class Prepared:
 
     def findings(self):
         """The leakage checks' findings on this data and plan, as rows (builds the plan)."""
+        self._full_table()
         return findings_frame(run_checks(self.spec, self.frame, self.plan))
 
     def fold_keys(self) -> list[tuple[int, int]]:
@@ -68,7 +85,7 @@ def _path_resolver(prep: Prepared):
     def resolve(label: str, combo: dict):
         family = FAMILIES[prep.spec.models[label].family].estimators
         frame, plan = prep.frame, prep.plan
-        X = frame.X.iloc[plan.train_rows]
+        X = prep._full_table().iloc[plan.train_rows]
         y = frame.y[plan.train_rows]
         return family.pruning_path_alphas(combo, X, y, seed=refit_seed(plan.seed),
                                           numeric=frame.numeric, categorical=frame.categorical,
