@@ -187,8 +187,10 @@ def test_rerun_copies_explain_rows_instead_of_refitting(tmp_path, diabetes_csv):
     store = Store(tmp_path / "store.duckdb")
     first = run_sweep(spec, store=store, jobs=1)
     again = run_sweep(spec, store=store, jobs=1)
-    marks = store.query("select sweep_id, coalesce(reused_from, '') as source from explained "
-                        "order by sweep_id")
+    # in the order the sweeps ran (two sweeps of one second have ids in no set order)
+    marks = store.query("select e.sweep_id, coalesce(e.reused_from, '') as source "
+                        "from explained e join sweeps s using (sweep_id) "
+                        "order by s.started_at, e.cell_id")
     assert len(marks) == 4  # best and one-SE picks of both sweeps (ridge: 2 cells)
     assert marks["source"].tolist() == ["", "", first.sweep_id, first.sweep_id]
     rows = store.query("select sweep_id, cell_id, feature, method, value, spread "

@@ -136,11 +136,37 @@ def read_refit(family: str, est, X_train, *, X_test, y_test, test_rows, metric: 
             "explained": [{"n_terms": size(est) if size is not None else None}]}
 
 
-def keyed(rows: dict[str, list], **key) -> dict[str, list]:
+def keyed(rows: dict, **key) -> dict:
     """A reading's rows with their keys (cell, and repeat and fold for a fold's rows);
-    `explained` carries no key (it is the cell's mark)."""
-    return {t: [r if t == "explained" else {**key, **r} for r in table_rows]
-            for t, table_rows in rows.items()}
+    `explained` carries no key (it is the cell's mark). A table is a list of row dicts or,
+    for the many rows of test predictions, a DataFrame."""
+    def with_key(table, table_rows):
+        if table == "explained":
+            return table_rows
+        if isinstance(table_rows, pd.DataFrame):
+            return table_rows.assign(**key)
+        return [{**key, **r} for r in table_rows]
+
+    return {t: with_key(t, table_rows) for t, table_rows in rows.items()}
+
+
+def gather(bucket: dict[str, list], reading: dict) -> None:
+    """Add one reading's tables to a cell's `bucket`: row dicts one by one, a DataFrame
+    whole (`table_frame` puts them together)."""
+    for table, table_rows in reading.items():
+        got = bucket.setdefault(table, [])
+        if isinstance(table_rows, pd.DataFrame):
+            got.append(table_rows)
+        else:
+            got.extend(table_rows)
+
+
+def table_frame(items: list) -> pd.DataFrame:
+    """One table of a cell's bucket as a DataFrame: its row dicts and its frames, stacked."""
+    frames = [i for i in items if isinstance(i, pd.DataFrame)]
+    rows = [i for i in items if not isinstance(i, pd.DataFrame)]
+    parts = ([pd.DataFrame(rows)] if rows else []) + frames
+    return parts[0] if len(parts) == 1 else pd.concat(parts, ignore_index=True)
 
 
 # -- the tasks -----------------------------------------------------------------------------
@@ -194,18 +220,21 @@ def _refit_task(family, cell_id, params, X_train, y_train, X_test, y_test, test_
     return cell_id, keyed(rows, cell_id=cell_id), None
 
 
-def _prediction_rows(est, X_test, y_test, test_rows, task: str) -> list[dict]:
-    """The refit's test predictions: observed and predicted values; for classes the
-    observed and most probable class and the probability of every class (classes_ order)."""
+def _prediction_rows(est, X_test, y_test, test_rows, task: str) -> pd.DataFrame:
+    """The refit's test predictions, one row per test row, held by column (a row per Python
+    dict would take some 70 MB in the parent per cell of 200 000 test rows): observed and
+    predicted values; for classes the observed and most probable class and the probability
+    of every class (classes_ order)."""
+    rows = np.asarray(test_rows, dtype=np.int64)
     if task != "classification":
-        return [{"row": int(r), "observed": float(o), "predicted": float(p)}
-                for r, o, p in zip(test_rows, y_test, est.predict(X_test))]
+        return pd.DataFrame({"row": rows, "observed": np.asarray(y_test, dtype=np.float64),
+                             "predicted": np.asarray(est.predict(X_test), dtype=np.float64)})
     proba = est.predict_proba(X_test)
     classes = est.classes_
     best = classes[np.argmax(proba, axis=1)]
-    return [{"row": int(r), "observed_class": str(o), "predicted_class": str(b),
-             "probabilities": [float(x) for x in p]}
-            for r, o, b, p in zip(test_rows, y_test, best, proba)]
+    return pd.DataFrame({"row": rows, "observed_class": [str(o) for o in y_test],
+                         "predicted_class": [str(b) for b in best],
+                         "probabilities": np.asarray(proba, dtype=np.float64).tolist()})
 
 
 # -- the step ------------------------------------------------------------------------------
@@ -308,9 +337,7 @@ def explain_sweep(spec, store: Store, sweep_id: str, *, prepared=None, jobs: int
             if got is None:
                 cell.append((c.family, c.cell_id, params, f))
                 continue
-            bucket = per_cell.setdefault(c.cell_id, {})
-            for table, table_rows in got.items():
-                bucket.setdefault(table, []).extend(table_rows)
+            gather(per_cell.setdefault(c.cell_id, {}), got)
         if cell:
             tasks.append((-get_family(c.family).explain_cost * len(cell), cell))
             pending[c.cell_id] = len(cell)
@@ -343,9 +370,7 @@ def explain_sweep(spec, store: Store, sweep_id: str, *, prepared=None, jobs: int
             result.problems.append(problem)
             failed.add(cell_id)
         else:
-            bucket = per_cell.setdefault(cell_id, {})
-            for table, table_rows in rows.items():
-                bucket.setdefault(table, []).extend(table_rows)
+            gather(per_cell.setdefault(cell_id, {}), rows)
         if not pending[cell_id]:  # the cell's refit and fold refits are all back
             tables = per_cell.pop(cell_id, {})
             if cell_id not in failed:  # a cell is stored whole or not at all
@@ -361,8 +386,8 @@ def _store_cell(store: Store, sweep_id: str, cell_id: str, tables: dict[str, lis
             "reused_from": None, "n_terms": None}
     for row in tables.pop("explained", []):  # the refit's size
         mark.update(row)
-    dfs = {t: pd.DataFrame(rows).assign(sweep_id=sweep_id) for t, rows in tables.items()
-           if rows}
+    dfs = {t: table_frame(items).assign(sweep_id=sweep_id) for t, items in tables.items()
+           if items}
     dfs["explained"] = pd.DataFrame([mark]).astype({"n_terms": "Int64"})
     if "importances" in dfs:
         dfs["importances"] = _spreads(dfs["importances"], dfs.get("fold_importances",
