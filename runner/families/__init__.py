@@ -154,6 +154,11 @@ class Family:
         return tuple(key)
 
 
+TREE_INPUT = "runner.families._base.as_tree_input"
+"""The function a tree or forest pipeline casts its columns with; a saved pipeline holds it
+by name (`model/artefact.py` trusts it for those families)."""
+
+
 def _params(*items: Param) -> dict[str, Param]:
     return {p.name: p for p in items}
 
@@ -242,7 +247,7 @@ FAMILIES: dict[str, Family] = {
         readable_size=READABLE_LEAVES, size_word="leaves",
         unseen_category="treated as a missing value, which the tree routes as it learned to",
         saved_types=("sklearn.tree.DecisionTreeRegressor", "sklearn.tree.DecisionTreeClassifier",
-                     "sklearn.tree._tree.Tree"),
+                     "sklearn.tree._tree.Tree", TREE_INPUT),
     ),
     "forest": Family(
         name="forest",
@@ -271,7 +276,7 @@ FAMILIES: dict[str, Family] = {
         saved_types=("sklearn.ensemble.RandomForestRegressor",
                      "sklearn.ensemble.RandomForestClassifier",
                      "sklearn.tree.DecisionTreeRegressor", "sklearn.tree.DecisionTreeClassifier",
-                     "sklearn.tree._tree.Tree"),
+                     "sklearn.tree._tree.Tree", TREE_INPUT),
     ),
 }
 

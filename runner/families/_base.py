@@ -18,7 +18,8 @@ import numpy as np
 from sklearn.compose import ColumnTransformer
 from sklearn.impute import SimpleImputer
 from sklearn.pipeline import Pipeline
-from sklearn.preprocessing import OneHotEncoder, OrdinalEncoder, StandardScaler
+from sklearn.preprocessing import (FunctionTransformer, OneHotEncoder, OrdinalEncoder,
+                                   StandardScaler)
 
 from ._replay import answered, questions
 
@@ -57,13 +58,24 @@ def needs_whole_model(read: Read | None) -> bool:
     return read is not None and getattr(read, "whole_model", True)
 
 
+def as_tree_input(X) -> np.ndarray:
+    """Columns as scikit-learn's trees read them: float32, the type a tree casts its input
+    to before fitting or predicting (so every split and prediction stays the same). Cast
+    here, column blocks are stacked in float32: no float64 copy of the rows is made. A value
+    beyond float32's range becomes infinite, which the tree then refuses, as it always did."""
+    with np.errstate(over="ignore"):
+        return np.asarray(X, dtype=np.float32)
+
+
 def tree_preprocessor(numeric: list[str], categorical: list[str]) -> ColumnTransformer:
-    """Numeric columns as they are (NaN kept: trees route it); categories as ordinal codes."""
-    parts = [("num", "passthrough", list(numeric))]
+    """Numeric columns as they are (NaN kept: trees route it); categories as ordinal codes;
+    both as float32 (`as_tree_input`)."""
+    parts = [("num", FunctionTransformer(as_tree_input, feature_names_out="one-to-one"),
+              list(numeric))]
     if categorical:
         parts.append(("cat", OrdinalEncoder(handle_unknown="use_encoded_value",
-                                            unknown_value=np.nan,
-                                            encoded_missing_value=np.nan), list(categorical)))
+                                            unknown_value=np.nan, encoded_missing_value=np.nan,
+                                            dtype=np.float32), list(categorical)))
     return ColumnTransformer(parts, remainder="drop", sparse_threshold=0.0)
 
 
