@@ -16,7 +16,7 @@ from runner.write import executors
 from runner.write.engine import run_sweep
 from runner.write.prepare import _path_resolver, prepare
 
-from .helpers import diabetes_frame, spec_from
+from .helpers import spec_from
 
 MODELS = """
 ridge: {family: linear, grid: {penalty: l2, alpha: [0.1, 10.0]}}
@@ -32,9 +32,8 @@ def _root(array: np.ndarray) -> np.ndarray:
 
 
 @pytest.fixture
-def folder(tmp_path):
-    diabetes_frame().to_csv(tmp_path / "diabetes.csv", index=False)
-    return tmp_path
+def folder(diabetes_csv):
+    return diabetes_csv.parent
 
 
 def test_keeping_only_the_split_keeps_the_same_rows_and_refuses_the_full_table(folder):
