@@ -91,9 +91,14 @@ def test_pruned_tree_matches_refits(name, params, xf, yf):
         assert k == ref.get_n_leaves(), (name, a)
 
 
-def test_weakest_link_rounds_match_the_library_on_a_large_tree():
+@pytest.mark.parametrize("leaf_block", [8192, 97])
+def test_weakest_link_rounds_match_the_library_on_a_large_tree(leaf_block, monkeypatch):
     """Thousands of leaves: the rounds replay many prunings at once, so the order of every
-    pruning, the running branch risks and ties must all come out as in the library."""
+    pruning, the running branch risks and ties must all come out as in the library; also
+    when the leaves' risks are summed in many blocks (`_LEAF_BLOCK`)."""
+    from runner.families import paths
+
+    monkeypatch.setattr(paths, "_LEAF_BLOCK", leaf_block)
     X, y = _friedman(n=6000, p=10, seed=4)
     X_tr, y_tr, X_ev = X[:5000], np.round(y[:5000], 1), X[5000:]  # rounding makes ties
     tree = DecisionTreeRegressor(random_state=3).fit(X_tr, y_tr)

@@ -48,15 +48,19 @@ def _parents(t):
 
 
 def _ancestors(parent):
-    """Strict ancestors of every node, nearest first: an (n, depth) matrix padded with -1."""
+    """Strict ancestors of every node, nearest first: an (n, depth) matrix padded with -1,
+    filled column by column (no second copy of it is made)."""
     step = np.append(parent, -1).astype(np.int32 if parent.size < 2**31 - 1 else np.intp)
-    cols = [step[:-1]]
-    while True:
-        up = step[cols[-1]]  # the appended -1 answers -1
-        if up.max(initial=-1) < 0:
-            break
-        cols.append(up)
-    return np.stack(cols, axis=1)
+    depth = 0
+    column = step[:-1]
+    while column.max(initial=-1) >= 0:  # how many columns: the depth of the deepest leaf
+        depth += 1
+        column = step[column]  # the appended -1 answers -1
+    anc = np.empty((parent.size, max(depth, 1)), dtype=step.dtype)
+    anc[:, 0] = step[:-1]
+    for j in range(1, depth):
+        anc[:, j] = step[anc[:, j - 1]]
+    return anc
 
 
 def _initial_risks(t, anc):
@@ -66,22 +70,36 @@ def _initial_risks(t, anc):
     w = t.weighted_n_node_samples
     r_node = w * t.impurity / w[0]
     leaves = np.flatnonzero(t.children_left == _LEAF)
-    up = anc[leaves]
-    real = up >= 0
-    pair_anc = up[real]  # row by row: leaf ids increase
-    r_branch = np.bincount(pair_anc, weights=np.repeat(r_node[leaves], real.sum(axis=1)),
-                           minlength=n)
+    r_branch = np.zeros(n)
+    n_leaves = np.zeros(n, dtype=np.intp)
+    # Leaves a block at a time, in increasing id: np.add.at adds in order as one pass
+    # would, and the (leaf, ancestor) pairs of only one block are held at once.
+    for block in range(0, leaves.size, _LEAF_BLOCK):
+        some = leaves[block:block + _LEAF_BLOCK]
+        up = anc[some]
+        real = up >= 0
+        pair_anc = up[real]  # row by row: leaf ids increase
+        np.add.at(r_branch, pair_anc, np.repeat(r_node[some], real.sum(axis=1)))
+        np.add.at(n_leaves, pair_anc, 1)
     r_branch[leaves] = r_node[leaves]
-    n_leaves = np.bincount(pair_anc, minlength=n)
     return r_node, r_branch, n_leaves
+
+
+_LEAF_BLOCK = 8192
+"""Leaves per block when a tree's risks are summed over each leaf's ancestors."""
 
 
 def _preorder_spans(t, anc):
     """Each node's subtree as a half-open span [start, stop) of preorder positions."""
     n = t.node_count
     left, right = t.children_left, t.children_right
-    size = np.bincount(anc[anc >= 0], minlength=n) + 1
-    depth = (anc >= 0).sum(axis=1)
+    size = np.ones(n, dtype=np.intp)
+    depth = np.zeros(n, dtype=np.intp)
+    for level in range(anc.shape[1]):  # one ancestor level at a time: no (n, depth) mask
+        up = anc[:, level]
+        real = up >= 0
+        size += np.bincount(up[real], minlength=n)
+        depth += real
     start = np.zeros(n, dtype=np.intp)
     internal = np.flatnonzero(left != _LEAF)
     for d in range(int(depth.max(initial=0)) + 1):
@@ -215,6 +233,12 @@ def _replay(tree):
     return replay
 
 
+def forget_replay() -> None:
+    """Let go of the last tree's replay (its ancestor matrix is some 60 MB on a tree of
+    250 000 nodes), once every evaluation set of that tree has been read."""
+    _last_replay[0] = (None, None)
+
+
 def _leaf_owners(t, anc, pruned, steps):
     """For every leaf and each number of prunings in `steps`, the node it falls into in the
     pruned tree: its topmost ancestor pruned by then (an ancestor is pruned after every
@@ -222,13 +246,16 @@ def _leaf_owners(t, anc, pruned, steps):
     leaves = np.flatnonzero(t.children_left == _LEAF)
     step_of = np.full(t.node_count + 1, -1, dtype=np.intp)  # index -1: the padding
     step_of[pruned] = np.arange(pruned.size)
-    up_step = step_of[anc[leaves]]
-    row, col = np.nonzero(up_step >= 0)
-    when = up_step[row, col]
-    # Column i holds the latest pruning step among those done within steps[i] prunings.
-    first = np.searchsorted(steps, when, side="right")
+    # Column i holds the latest pruning step among those done within steps[i] prunings;
+    # one ancestor level at a time, so no (leaf, pruned ancestor) pair list is built.
     latest = np.full((leaves.size, steps.size + 1), -1, dtype=np.intp)
-    np.maximum.at(latest, (row, first), when)
+    rows = np.arange(leaves.size)
+    for level in range(anc.shape[1]):
+        when = step_of[anc[leaves, level]]
+        got = np.flatnonzero(when >= 0)
+        when = when[got]
+        first = np.searchsorted(steps, when, side="right")
+        latest[rows[got], first] = np.maximum(latest[rows[got], first], when)
     latest = np.maximum.accumulate(latest[:, :-1], axis=1)
     topmost = np.append(pruned, 0)[latest]  # index -1: no pruning yet, masked below
     owners = np.where(latest >= 0, topmost, leaves[:, None])
