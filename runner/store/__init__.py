@@ -109,7 +109,11 @@ class Store:
         """Hold one read-write connection for a burst of small operations, then let go.
 
         Other processes wait meanwhile, so keep it to quick work such as a rerun that only
-        copies stored rows; each operation still commits on its own."""
+        copies stored rows; each operation still commits on its own. Inside a session (or
+        a `reading`), it is that session."""
+        if self._held is not None:
+            yield self
+            return
         with self._connect(read_only=False) as con:
             self._held = con
             try:

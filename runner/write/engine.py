@@ -431,14 +431,13 @@ def run_sweep(spec: Spec, *, store: Store | None = None, jobs: int | None = None
                 make_executor(cluster, n_jobs))
         store.ensure_schema()
         host = socket.gethostname()
-        store.mark_interrupted(host, process_alive)
         sweep_id = _new_sweep_id()
         n_train, n_test = plan_counts(spec, prep.frame)
         cells_df = pd.DataFrame([{"sweep_id": sweep_id, "cell_id": c.cell_id, "model": c.model,
                                   "family": c.family, "params": c.params_json,
                                   "complexity_rank": c.complexity_rank, "position": i}
                                  for i, c in enumerate(prep.cells)])
-        store.begin_sweep({
+        record = {
             "sweep_id": sweep_id, "name": spec.name,
             "spec_path": str(spec.source) if spec.source else None, "spec_text": spec.text,
             "spec_sha256": spec.sha256, "data_path": str(prep.frame.source),
@@ -449,9 +448,12 @@ def run_sweep(spec: Spec, *, store: Store | None = None, jobs: int | None = None
             "classes": json.dumps([_label(c) for c in prep.frame.classes]),
             "started_at": started_at, "finished_at": None, "status": "running",
             "versions": _versions(), "host": host, "user_name": _user(), "pid": os.getpid(),
-            "note": note or None},
-            cells_df, {m: METRICS[m].better for m in spec.metrics}, labels, findings)
-        done, reused, copied = copy_scores(store, sweep_id, prep, found)
+            "note": note or None}
+        with store.session():  # the sweep's first writes share one connection
+            store.mark_interrupted(host, process_alive)
+            store.begin_sweep(record, cells_df, {m: METRICS[m].better for m in spec.metrics},
+                              labels, findings)
+            done, reused, copied = copy_scores(store, sweep_id, prep, found)
 
         tasks = [] if len(reused) == len(prep.cells) else _plan_tasks(
             prep, paths=paths, n_workers=executor.n_workers, done=done)
