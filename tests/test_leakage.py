@@ -138,6 +138,18 @@ def test_features_that_give_the_target_away(tmp_path):
     assert r < 0.99 and "one split R² = 0.99" in hits["switch"].message
 
 
+def test_threads_weigh_the_columns_to_the_same_findings(tmp_path):
+    df = diabetes_frame()
+    df["copy"] = df["progression"] * 2.0 + 1.0
+    df["band"] = np.where(df["progression"] > df["progression"].median(), "upper", "lower")
+    df.loc[::7, "bmi"] = np.nan
+    spec, alone = _findings(tmp_path, df)
+    frame = load_frame(spec)
+    shared = run_checks(spec, frame, make_plan(spec, frame), threads=3)
+    assert {f.column for f in alone if f.kind == "target_proxy"} == {"copy"}
+    assert shared == alone  # same findings, same values, same order
+
+
 def test_best_split_equals_a_depth_one_tree():
     # reference: scikit-learn's DecisionTreeRegressor(max_depth=1), R² on its own rows
     df = diabetes_frame()

@@ -87,6 +87,14 @@ def resolve_jobs(requested: int | None, *, force: bool = False) -> tuple[int, st
                    f"here; starting {cores} (--force-jobs starts {requested} anyway).")
 
 
+def _local_threads(n_jobs: int) -> int:
+    """Threads this process may use while no worker runs: the sweep's workers, at most the
+    cores here."""
+    from joblib import cpu_count
+
+    return max(1, min(cpu_count() if n_jobs == -1 else n_jobs, cpu_count()))
+
+
 @dataclass
 class SweepResult:
     """What a finished (or interrupted) sweep wrote."""
@@ -412,15 +420,15 @@ def run_sweep(spec: Spec, *, store: Store | None = None, jobs: int | None = None
         versions_changed = version_note(store, prep, found)
         if versions_changed:
             on_message(versions_changed)
+    n_jobs, capped = resolve_jobs(jobs or spec.jobs, force=force_jobs or bool(cluster))
     findings = find_findings(store, prep.checks_key) if quick else None
     if findings is None:  # builds and checks the plan before anything is written
-        findings = prep.findings()
+        findings = prep.findings(threads=_local_threads(n_jobs))
     refuse(findings, f"spec {spec.source or spec.name}")
     if on_message:
         for line in finding_lines(findings):
             on_message(line)
     hold = contextlib.ExitStack()
-    n_jobs, capped = resolve_jobs(jobs or spec.jobs, force=force_jobs or bool(cluster))
     if capped and on_message and executor is None:
         on_message(capped)
     if quick:  # only copying to do: one connection for it all, instead of dozens

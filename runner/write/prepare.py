@@ -68,10 +68,11 @@ class Prepared:
         """What this sweep's leakage findings depend on (see `leakage.checks_key`)."""
         return checks_key(self.spec, self.frame, self.identity)
 
-    def findings(self):
-        """The leakage checks' findings on this data and plan, as rows (builds the plan)."""
+    def findings(self, *, threads: int = 1):
+        """The leakage checks' findings on this data and plan, as rows (builds the plan);
+        `threads` of this process may share the work (`leakage.run_checks`)."""
         self._full_table()
-        return findings_frame(run_checks(self.spec, self.frame, self.plan))
+        return findings_frame(run_checks(self.spec, self.frame, self.plan, threads=threads))
 
     def fold_keys(self) -> list[tuple[int, int]]:
         """(repeat, fold) of every validation fold, then the refit's."""
