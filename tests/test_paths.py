@@ -117,6 +117,35 @@ def test_weakest_link_rounds_match_the_library_on_a_large_tree(leaf_block, monke
         assert k == ref.get_n_leaves(), a
 
 
+def test_a_tree_replay_is_shared_by_evaluation_sets_and_goes_with_its_tree(monkeypatch):
+    import gc
+    import weakref
+
+    from runner.families import paths
+
+    rounds = []
+    real = paths._weakest_link_rounds
+    monkeypatch.setattr(paths, "_weakest_link_rounds",
+                        lambda t, anc: rounds.append(t) or real(t, anc))
+    X, y = _friedman(n=800, p=6, seed=2)
+    tree = DecisionTreeRegressor(random_state=0).fit(X[:600], y[:600])
+    alphas = [0.0, 0.01, 0.1]
+    first, _ = pruned_tree_predictions(tree, X[600:700], alphas)
+    second, _ = pruned_tree_predictions(tree, X[700:], alphas)
+    assert len(rounds) == 1  # one replay for both evaluation sets
+    # reference: scikit-learn's own ccp_alpha refit, on the second set
+    ref = DecisionTreeRegressor(random_state=0, ccp_alpha=0.1).fit(X[:600], y[:600])
+    assert np.array_equal(second[2], ref.predict(X[700:]))
+    tree.fit(X[200:], y[200:])  # a new tree: a new replay
+    pruned_tree_predictions(tree, X[:100], alphas)
+    assert len(rounds) == 2
+    held = weakref.ref(tree._foldwise_replay[1][3])  # the ancestor matrix
+    rounds.clear()
+    del tree
+    gc.collect()
+    assert held() is None  # nothing outlives the tree
+
+
 def test_pruned_tree_zero_alpha_is_unpruned_and_constant_target():
     X, y = _friedman(n=200)
     tree = DecisionTreeRegressor(random_state=0).fit(X, y)

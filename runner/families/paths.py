@@ -47,19 +47,14 @@ def _parents(t):
     return parent
 
 
-def _ancestors(parent):
+def _ancestors(parent, depth: int):
     """Strict ancestors of every node, nearest first: an (n, depth) matrix padded with -1,
-    filled column by column (no second copy of it is made)."""
+    `depth` the tree's (its deepest leaf has that many ancestors), filled column by column."""
     step = np.append(parent, -1).astype(np.int32 if parent.size < 2**31 - 1 else np.intp)
-    depth = 0
-    column = step[:-1]
-    while column.max(initial=-1) >= 0:  # how many columns: the depth of the deepest leaf
-        depth += 1
-        column = step[column]  # the appended -1 answers -1
     anc = np.empty((parent.size, max(depth, 1)), dtype=step.dtype)
     anc[:, 0] = step[:-1]
     for j in range(1, depth):
-        anc[:, j] = step[anc[:, j - 1]]
+        anc[:, j] = step[anc[:, j - 1]]  # the appended -1 answers -1
     return anc
 
 
@@ -218,25 +213,17 @@ def _node_outputs(tree):
     return proba / normalizer
 
 
-_last_replay: list = [(None, None)]  # [(the tree_ replayed last, its replay)], swapped whole
-
-
 def _replay(tree):
     """(effective alphas, pruned node ids, leaves each pruning removes, ancestor matrix) of
-    a fitted tree. The last tree's replay is kept, so several evaluation sets share it."""
+    a fitted tree. It is kept on the estimator while its tree is the same, so several
+    evaluation sets share one replay, and it goes when the tree goes."""
     t = tree.tree_
-    kept, replay = _last_replay[0]
-    if kept is not t:
-        anc = _ancestors(_parents(t))
-        replay = (*_weakest_link_rounds(t, anc), anc)
-        _last_replay[0] = (t, replay)
-    return replay
-
-
-def forget_replay() -> None:
-    """Let go of the last tree's replay (its ancestor matrix is some 60 MB on a tree of
-    250 000 nodes), once every evaluation set of that tree has been read."""
-    _last_replay[0] = (None, None)
+    kept = getattr(tree, "_foldwise_replay", None)
+    if kept is None or kept[0] is not t:
+        anc = _ancestors(_parents(t), int(t.max_depth))
+        kept = (t, (*_weakest_link_rounds(t, anc), anc))
+        tree._foldwise_replay = kept
+    return kept[1]
 
 
 def _leaf_owners(t, anc, pruned, steps):
@@ -249,13 +236,12 @@ def _leaf_owners(t, anc, pruned, steps):
     # Column i holds the latest pruning step among those done within steps[i] prunings;
     # one ancestor level at a time, so no (leaf, pruned ancestor) pair list is built.
     latest = np.full((leaves.size, steps.size + 1), -1, dtype=np.intp)
-    rows = np.arange(leaves.size)
     for level in range(anc.shape[1]):
         when = step_of[anc[leaves, level]]
-        got = np.flatnonzero(when >= 0)
+        got = np.flatnonzero(when >= 0)  # leaf positions with a pruned ancestor here
         when = when[got]
         first = np.searchsorted(steps, when, side="right")
-        latest[rows[got], first] = np.maximum(latest[rows[got], first], when)
+        latest[got, first] = np.maximum(latest[got, first], when)
     latest = np.maximum.accumulate(latest[:, :-1], axis=1)
     topmost = np.append(pruned, 0)[latest]  # index -1: no pruning yet, masked below
     owners = np.where(latest >= 0, topmost, leaves[:, None])

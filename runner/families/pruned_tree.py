@@ -21,7 +21,7 @@ from ._readers import impurity_importance as own_importance
 from ._readers import tree_node_rows, tree_shape
 from ._base import (CellFit, fit_grouped, prediction_columns, tree_preprocessor,
                     work_units)
-from .paths import forget_replay, pruned_tree_predictions, pruning_alphas
+from .paths import pruned_tree_predictions, pruning_alphas
 
 __all__ = ["make_estimator", "fit_cells", "fit_units", "own_importance", "prediction_columns",
            "tree_shape", "tree_node_rows", "resolve_alpha", "pruning_path_alphas", "model_size",
@@ -92,15 +92,12 @@ def _pruning_path(group: list[dict], Xt_fit, y_fit, Xt_evals, *, seed: int,
     alphas = [resolve_alpha(params, y_fit, task) for params in group]
     fits = [CellFit() for _ in group]
     leaves = None
-    try:
-        for X in Xt_evals:
-            preds, leaves = pruned_tree_predictions(tree, X, alphas)
-            for fit, p in zip(fits, preds):
-                fit.predictions.append(p)
-        if leaves is None:  # no evaluation set: leaf counts alone
-            _, leaves = pruned_tree_predictions(tree, Xt_fit[:1], alphas)
-    finally:
-        forget_replay()
+    for X in Xt_evals:
+        preds, leaves = pruned_tree_predictions(tree, X, alphas)
+        for fit, p in zip(fits, preds):
+            fit.predictions.append(p)
+    if leaves is None:  # no evaluation set: leaf counts alone
+        _, leaves = pruned_tree_predictions(tree, Xt_fit[:1], alphas)
     for fit, k in zip(fits, leaves):
         fit.n_leaves = float(k)
     return fits
@@ -131,7 +128,4 @@ def pruning_path_alphas(params: dict, X, y, *, seed: int, numeric, categorical,
     """The cost-complexity pruning path (effective alphas) of the unpruned tree on these rows."""
     prep = tree_preprocessor(numeric, categorical)
     Xt = prep.fit_transform(X, y)
-    try:
-        return pruning_alphas(_tree(params, seed=seed, ccp_alpha=0.0, task=task).fit(Xt, y))
-    finally:
-        forget_replay()
+    return pruning_alphas(_tree(params, seed=seed, ccp_alpha=0.0, task=task).fit(Xt, y))

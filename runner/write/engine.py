@@ -90,9 +90,9 @@ def resolve_jobs(requested: int | None, *, force: bool = False) -> tuple[int, st
 def _local_threads(n_jobs: int) -> int:
     """Threads this process may use while no worker runs: the sweep's workers, at most the
     cores here."""
-    from joblib import cpu_count
+    from joblib import cpu_count, effective_n_jobs
 
-    return max(1, min(cpu_count() if n_jobs == -1 else n_jobs, cpu_count()))
+    return min(effective_n_jobs(n_jobs), cpu_count())
 
 
 @dataclass

@@ -130,7 +130,7 @@ def read_refit(family: str, est, X_train, *, X_test, y_test, test_rows, metric: 
            for f, (m, sd) in perm.items()]
     imp += [{"feature": f, "method": fam.importance, "value": v} for f, v in own.items()]
     return {"importances": imp,
-            "test_predictions": _prediction_rows(est, X_test, y_test, test_rows, task),
+            "test_predictions": _prediction_frame(est, X_test, y_test, test_rows, task),
             "tree_nodes": fam.estimators.tree_node_rows(est) if fam.one_tree else [],
             "coefficients": fam.estimators.coefficient_rows(est) if fam.coefficients else [],
             "explained": [{"n_terms": size(est) if size is not None else None}]}
@@ -220,7 +220,7 @@ def _refit_task(family, cell_id, params, X_train, y_train, X_test, y_test, test_
     return cell_id, keyed(rows, cell_id=cell_id), None
 
 
-def _prediction_rows(est, X_test, y_test, test_rows, task: str) -> pd.DataFrame:
+def _prediction_frame(est, X_test, y_test, test_rows, task: str) -> pd.DataFrame:
     """The refit's test predictions, one row per test row, held by column (a row per Python
     dict would take some 70 MB in the parent per cell of 200 000 test rows): observed and
     predicted values; for classes the observed and most probable class and the probability
