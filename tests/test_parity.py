@@ -4,6 +4,7 @@ documented folds and seeds (reference: scikit-learn 1.9 `cross_validate`, `sklea
 from __future__ import annotations
 
 import json
+import warnings
 
 import numpy as np
 import pandas as pd
@@ -161,3 +162,49 @@ def test_mixed_columns_parity(tmp_path, diabetes_mixed_csv):
         ("model", DecisionTreeRegressor(ccp_alpha=20.0, random_state=s))])
     ref, test = _reference(tree, X, y)
     _assert_cell(folds, tests, "tree", lambda p: True, ref, test)
+
+
+@pytest.mark.parametrize("n_rows", [1, 2, 7, 1000, 1001])
+@pytest.mark.parametrize("keep_empty", [False, True])
+def test_median_imputer_equals_simple_imputer(n_rows, keep_empty):
+    """The linear families' faster median imputer gives scikit-learn's SimpleImputer(
+    strategy="median") statistics and filled rows bit for bit (reference: scikit-learn 1.9
+    `SimpleImputer`), on columns with no, some and only missing values, ties, values whose
+    sum overflows, and an even or odd count of present values."""
+    from runner.families._base import MedianImputer
+
+    rng = np.random.default_rng(n_rows)
+    X = np.column_stack([
+        rng.normal(size=n_rows),                                   # nothing missing
+        np.where(rng.random(n_rows) < 0.3, np.nan, rng.normal(size=n_rows)),
+        np.full(n_rows, np.nan),                                   # every value missing
+        rng.integers(0, 3, n_rows).astype(float),                  # ties
+        np.where(rng.random(n_rows) < 0.2, np.nan, rng.exponential(size=n_rows)),
+        np.where(np.arange(n_rows) % 3 == 0, np.nan,
+                 rng.choice([-1.0, 1.0], n_rows) * rng.uniform(1.0e308, 1.7e308, n_rows)),
+    ])
+    fitted = []
+    for kind in (SimpleImputer, MedianImputer):  # the warnings count towards a fit's n_warnings
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always")
+            model = kind(strategy="median", keep_empty_features=keep_empty).fit(X)
+        fitted.append((model, sorted(w.category.__name__ for w in caught)))
+    (ref, ref_warned), (mine, warned) = fitted
+    assert warned == ref_warned
+    np.testing.assert_array_equal(mine.statistics_, ref.statistics_)
+    new = np.where(rng.random(X.shape) < 0.5, np.nan, 1.0)
+    np.testing.assert_array_equal(mine.transform(new), ref.transform(new))
+    assert mine.get_feature_names_out().tolist() == ref.get_feature_names_out().tolist()
+
+
+def test_median_imputer_leaves_other_types_to_simple_imputer():
+    """float32 rows and markers other than NaN take SimpleImputer's own route (reference:
+    scikit-learn 1.9 `SimpleImputer`): same statistics, same type."""
+    from runner.families._base import MedianImputer
+
+    X32 = np.array([[1.0, np.nan], [3.0, 2.0], [2.0, np.nan], [8.0, 5.0]], dtype=np.float32)
+    for kwargs, X in [({}, X32), ({"missing_values": -1.0}, np.where(np.isnan(X32), -1, X32))]:
+        ref = SimpleImputer(strategy="median", **kwargs).fit(X)
+        mine = MedianImputer(strategy="median", **kwargs).fit(X)
+        assert mine.statistics_.dtype == ref.statistics_.dtype
+        np.testing.assert_array_equal(mine.statistics_, ref.statistics_)

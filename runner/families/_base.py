@@ -23,9 +23,9 @@ from sklearn.preprocessing import (FunctionTransformer, OneHotEncoder, OrdinalEn
 
 from ._replay import answered, questions
 
-__all__ = ["CellFit", "tree_preprocessor", "linear_preprocessor", "fit_each", "fit_grouped",
-           "predict", "path_groups", "work_units", "prediction_columns", "needs_whole_model",
-           "PLAIN"]
+__all__ = ["CellFit", "MedianImputer", "tree_preprocessor", "linear_preprocessor", "fit_each",
+           "fit_grouped", "predict", "path_groups", "work_units", "prediction_columns",
+           "needs_whole_model", "PLAIN"]
 
 PLAIN = "plain"
 """`CellFit.how` of a cell fitted on its own."""
@@ -79,11 +79,40 @@ def tree_preprocessor(numeric: list[str], categorical: list[str]) -> ColumnTrans
     return ColumnTransformer(parts, remainder="drop", sparse_threshold=0.0)
 
 
+class MedianImputer(SimpleImputer):
+    """scikit-learn's imputer with strategy "median", fitted faster: each float64 column's
+    two middle values are found by partition instead of by sorting a masked copy of every
+    column, then halved the way SimpleImputer does ((low + high) / 2, so a sum beyond
+    float64's range is infinite there too). The statistics are the same numbers (tested
+    against SimpleImputer); any other strategy, marker or type is SimpleImputer's own."""
+
+    def _dense_fit(self, X, strategy, missing_values, fill_value):
+        if strategy != "median" or not _is_nan(missing_values) or X.dtype != np.float64:
+            return super()._dense_fit(X, strategy, missing_values, fill_value)
+        missing = np.isnan(X)
+        self._fit_indicator(missing)
+        lows, highs = np.full(X.shape[1], np.nan), np.full(X.shape[1], np.nan)
+        for j in range(X.shape[1]):
+            present = X[~missing[:, j], j] if missing[:, j].any() else X[:, j]
+            if len(present):
+                high = len(present) // 2
+                low = high if len(present) % 2 else high - 1
+                middle = np.partition(present, sorted({low, high}))
+                lows[j], highs[j] = middle[low], middle[high]
+        medians = (lows + highs) / 2  # one array sum: one overflow warning, as scikit-learn's
+        medians[np.isnan(lows)] = 0.0 if self.keep_empty_features else np.nan
+        return medians
+
+
+def _is_nan(value) -> bool:
+    return isinstance(value, float) and np.isnan(value)
+
+
 def linear_preprocessor(numeric: list[str], categorical: list[str]) -> ColumnTransformer:
     """Median-impute and standardise numbers; impute the mode and one-hot encode categories."""
     parts = []
     if numeric:
-        parts.append(("num", Pipeline([("impute", SimpleImputer(strategy="median")),
+        parts.append(("num", Pipeline([("impute", MedianImputer(strategy="median")),
                                        ("scale", StandardScaler())]), list(numeric)))
     if categorical:
         parts.append(("cat", Pipeline([

@@ -35,7 +35,7 @@ FORMAT = "skops"
 SHARED_TYPES = ("sklearn.pipeline.Pipeline", "sklearn.compose.ColumnTransformer",
                 "sklearn.impute.SimpleImputer", "sklearn.preprocessing.StandardScaler",
                 "sklearn.preprocessing.OneHotEncoder", "sklearn.preprocessing.OrdinalEncoder",
-                "sklearn.preprocessing.FunctionTransformer")
+                "sklearn.preprocessing.FunctionTransformer", "runner.families._base.MedianImputer")
 """The preprocessing every family's pipeline is built from (`families/_base.py`)."""
 
 _BUILTINS = {"dict", "list", "tuple", "str", "int", "float", "bool", "slice", "NoneType"}
