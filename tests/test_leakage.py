@@ -205,7 +205,8 @@ def test_group_keys_under_row_folds(tmp_path):
                 if f.kind == "group_key" and f.column == "patient_id"]
 
 
-def test_a_test_column_breaking_a_time_plan_is_an_error_unless_allowed(tmp_path):
+@pytest.mark.parametrize("jobs", [1, 2])  # 2: the refusal stops fits already running
+def test_a_test_column_breaking_a_time_plan_is_an_error_unless_allowed(tmp_path, jobs):
     df = diabetes_frame()
     df["day"] = np.arange(len(df))
     df["holdout"] = np.arange(len(df)) % 5 == 0  # test rows spread over the whole period
@@ -222,10 +223,10 @@ def test_a_test_column_breaking_a_time_plan_is_an_error_unless_allowed(tmp_path)
     result = CliRunner().invoke(main, ["check", str(path)])
     assert result.exit_code == 2 and "do not come after every training row" in result.output
     with pytest.raises(DataError, match="split_overlap to checks.allow"):
-        run_sweep(spec, jobs=1)
+        run_sweep(spec, jobs=jobs)
     assert not (tmp_path / "store.duckdb").exists()
     path.write_text(text + "checks: {allow: [split_overlap]}\n")
-    result = CliRunner().invoke(main, ["run", str(path), "--jobs", "1", "--quiet"])
+    result = CliRunner().invoke(main, ["run", str(path), "--jobs", str(jobs), "--quiet"])
     assert result.exit_code == 0, result.output
     assert "error (allowed) (split_overlap): 89 of 89 test rows" in result.output
     stored = Store(tmp_path / "store.duckdb").query("select severity, allowed from findings")

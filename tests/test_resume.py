@@ -66,6 +66,33 @@ def test_changing_one_grid_value_fits_only_new_cells(folder):
     pd.testing.assert_frame_equal(_scores(store, result.sweep_id), _scores(store, fresh.sweep_id))
 
 
+def test_a_source_sweep_removed_before_its_rows_are_copied_is_fitted_again(folder,
+                                                                          monkeypatch):
+    """The fits start before the earlier rows are copied; whatever a removal in between
+    takes away is fitted after them, with the same scores as a fresh sweep's."""
+    import runner.write.engine as engine
+    from runner.store.tidy import remove_sweeps
+
+    store = Store(folder / "store.duckdb")
+    first = run_sweep(spec_from(folder, MODELS), store=store, jobs=2)
+    changed = spec_from(folder, MODELS.replace("[0.1, 1.0, 10.0]", "[0.1, 1.0, 30.0]"))
+    copy = engine.copy_scores
+
+    def removed_first(store_, sweep_id, prep, found):
+        remove_sweeps(store_, [first.sweep_id])
+        return copy(store_, sweep_id, prep, found)
+
+    monkeypatch.setattr(engine, "copy_scores", removed_first)
+    totals: list = []
+    result = run_sweep(changed, store=store, jobs=2,
+                       progress=lambda done, total: totals.append(total))
+    assert (result.n_reused, result.n_fitted) == (0, N_CELLS)
+    assert totals[0] > 0 and result.n_fold_rows == N_CELLS * K * R * N_METRICS
+    monkeypatch.undo()
+    fresh = run_sweep(changed, store=store, jobs=1, fresh=True)
+    pd.testing.assert_frame_equal(_scores(store, result.sweep_id), _scores(store, fresh.sweep_id))
+
+
 def test_an_upgrade_of_a_scoring_package_stops_reuse_and_run_says_so(folder, monkeypatch):
     # The same spec and data after "upgrading" scikit-learn: every cell id changes, nothing
     # is copied, and the run says which versions differ.

@@ -19,6 +19,7 @@ from __future__ import annotations
 
 import contextlib
 import getpass
+import itertools
 import json
 import math
 import os
@@ -38,7 +39,8 @@ from .. import __version__
 from .budget import check_limits, check_plan_memory, data_limit_bytes, plan_size
 from ..errors import FoldwiseError
 from .explain import explain_sweep, fold_reader, keyed, read_refit
-from .executors import DaskExecutor, LocalExecutor, give_back_freed_memory, make_executor
+from .executors import (DaskExecutor, LocalExecutor, Running, give_back_freed_memory,
+                        make_executor)
 from ..families import load_family
 from .grid import Cell
 from ..metrics import METRICS
@@ -47,7 +49,8 @@ from ..read.queries import process_alive, unchanged_sweep
 from ..read.views import finding_lines, plan_sentence
 from .leakage import refuse
 from .resampling import REFIT, Fold, plan_counts, refit_seed, resolve_scheme
-from .reuse import all_found, copy_scores, find_findings, find_scores, version_note
+from .reuse import (all_found, copy_scores, find_findings, find_scores, found_keys,
+                    version_note)
 from .spec import Spec
 from ..store import DEFAULT_STORE, Store
 from ..store.labels import check_labels, check_note
@@ -421,22 +424,31 @@ def run_sweep(spec: Spec, *, store: Store | None = None, jobs: int | None = None
         if versions_changed:
             on_message(versions_changed)
     n_jobs, capped = resolve_jobs(jobs or spec.jobs, force=force_jobs or bool(cluster))
-    findings = find_findings(store, prep.checks_key) if quick else None
-    if findings is None:  # builds and checks the plan before anything is written
-        findings = prep.findings(threads=_local_threads(n_jobs))
-    refuse(findings, f"spec {spec.source or spec.name}")
-    if on_message:
-        for line in finding_lines(findings):
-            on_message(line)
     hold = contextlib.ExitStack()
-    if capped and on_message and executor is None:
-        on_message(capped)
-    if quick:  # only copying to do: one connection for it all, instead of dozens
-        hold.enter_context(store.session())
     with hold:
+        if capped and on_message and executor is None:
+            on_message(capped)
         if executor is None:  # reach the cluster before anything is written; none if quick
             executor = LocalExecutor(n_jobs) if quick else hold.enter_context(
                 make_executor(cluster, n_jobs))
+        # The fits start now and run while this process checks the data and opens the
+        # sweep; nothing of theirs is written until the checks have passed (a refusal
+        # stops them). What the copy below fails to bring is fitted after them.
+        expected = found_keys(found)
+        tasks = [] if quick else _plan_tasks(prep, paths=paths, n_workers=executor.n_workers,
+                                             done=expected)
+        data = _shared_data(prep, paths=paths) if tasks else {}
+        running = hold.enter_context(contextlib.closing(executor.results(
+            _run_task, data, tasks, _task_call) if tasks else Running(iter(()))))
+        findings = find_findings(store, prep.checks_key) if quick else None
+        if findings is None:  # builds and checks the plan before anything is written
+            findings = prep.findings(threads=_local_threads(n_jobs))
+        refuse(findings, f"spec {spec.source or spec.name}")
+        if on_message:
+            for line in finding_lines(findings):
+                on_message(line)
+        if quick:  # only copying to do: one connection for it all, instead of dozens
+            hold.enter_context(store.session())
         store.ensure_schema()
         host = socket.gethostname()
         sweep_id = _new_sweep_id()
@@ -462,10 +474,10 @@ def run_sweep(spec: Spec, *, store: Store | None = None, jobs: int | None = None
             store.begin_sweep(record, cells_df, {m: METRICS[m].better for m in spec.metrics},
                               labels, findings)
             done, reused, copied = copy_scores(store, sweep_id, prep, found)
-
-        tasks = [] if len(reused) == len(prep.cells) else _plan_tasks(
-            prep, paths=paths, n_workers=executor.n_workers, done=done)
-        total = len(tasks)
+        missed = expected - done  # sources removed since they were found: fit those too
+        later = _plan_tasks(prep, paths=paths, n_workers=executor.n_workers,
+                            done=prep.all_keys() - missed) if missed else []
+        total = len(tasks) + len(later)
         counts = {"fold": copied[0], "test": copied[1], "failed": 0}
         why: Counter = Counter()  # (error kind, first line of its message) -> fits
         buffer: list = []
@@ -488,7 +500,8 @@ def run_sweep(spec: Spec, *, store: Store | None = None, jobs: int | None = None
                     why[(row["kind"], str(row["message"]).strip().split("\n")[0][:200])] += 1
             test_df = pd.DataFrame(test_rows)
             if len(test_df):
-                test_df = test_df.rename(columns={"n_valid": "n_test"}).drop(columns=["repeat", "fold"])
+                test_df = test_df.rename(columns={"n_valid": "n_test"}).drop(
+                    columns=["repeat", "fold"])
             store.write_batch({"fold_scores": pd.DataFrame(fold_rows), "test_scores": test_df,
                                "failures": pd.DataFrame(fail_rows)})
             counts["fold"] += len(fold_rows)
@@ -502,11 +515,14 @@ def run_sweep(spec: Spec, *, store: Store | None = None, jobs: int | None = None
             done = 0
             if progress:
                 progress(0, total)
-            data = _shared_data(prep, paths=paths) if tasks else {}
-            if tasks:
+            if later:
+                data = data or _shared_data(prep, paths=paths)
+                running = itertools.chain(running, hold.enter_context(contextlib.closing(
+                    executor.results(_run_task, data, later, _task_call))))
+            if tasks or later:
                 prep.keep_split_only()
                 give_back_freed_memory()
-            for result in executor.results(_run_task, data, tasks, _task_call):
+            for result in running:
                 buffer.append(result)
                 done += 1
                 if progress:

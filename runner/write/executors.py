@@ -25,7 +25,7 @@ from typing import Any, Callable, Iterable, Iterator
 
 from ..errors import FoldwiseError
 
-__all__ = ["LocalExecutor", "DaskExecutor", "make_executor", "ClusterError",
+__all__ = ["LocalExecutor", "DaskExecutor", "Running", "make_executor", "ClusterError",
            "package_versions", "watch_parent", "give_back_freed_memory"]
 
 Unpack = Callable[[dict, Any], tuple[tuple, dict]]
@@ -158,6 +158,45 @@ def _on_local_worker(work: Callable, unpack: Unpack, path: str, item):
     return work(*args, **kwargs)
 
 
+class Running:
+    """The results of tasks already started, in the order they finish. `close()` stops the
+    tasks still running and lets go of what they shared; it is called when the last result
+    is taken, and should be called (`contextlib.closing`) by a caller that stops early or
+    never asks at all."""
+
+    def __init__(self, results: Iterator, on_close: Callable[[], Any] | None = None):
+        self._results, self._on_close = results, on_close
+
+    def __iter__(self) -> "Running":
+        return self
+
+    def __next__(self):
+        try:
+            return next(self._results)
+        except BaseException:
+            self.close()
+            raise
+
+    def close(self) -> None:
+        results, on_close = self._results, self._on_close
+        self._results, self._on_close = iter(()), None
+        try:
+            if hasattr(results, "close"):
+                with warnings.catch_warnings():  # joblib counts the tasks it stops: we meant to
+                    warnings.filterwarnings("ignore", "[0-9]+ tasks which were still being",
+                                            UserWarning)
+                    results.close()
+        finally:
+            if on_close is not None:
+                on_close()
+
+    def __del__(self):
+        try:
+            self.close()
+        except Exception:  # at interpreter exit the modules it needs may be gone
+            pass
+
+
 class LocalExecutor:
     """joblib worker processes on this machine (`jobs`: -1 = every core), each of which
     exits when this process is gone (`watch_parent`, from its first task on). Shared data
@@ -181,8 +220,10 @@ class LocalExecutor:
     def __exit__(self, *exc) -> None:
         return None
 
-    def results(self, work: Callable, data: dict, items: Iterable, unpack: Unpack) -> Iterator:
-        """Each item's result, in the order the tasks finish."""
+    def results(self, work: Callable, data: dict, items: Iterable, unpack: Unpack
+                ) -> "Running":
+        """Each item's result, in the order the tasks finish. The first tasks are sent at
+        once, so the workers are busy while the caller does its own work before asking."""
         from joblib import Parallel, delayed
 
         shared = None
@@ -197,10 +238,11 @@ class LocalExecutor:
             results = Parallel(n_jobs=self.jobs, backend="loky",
                                return_as="generator_unordered")(
                 delayed(_watched)(parent, run, *args, **kw) for args, kw in calls)
-            yield from results
-        finally:
+        except BaseException:
             if shared is not None:
                 shared.close()
+            raise
+        return Running(results, shared.close if shared is not None else None)
 
 
 def _on_worker(work: Callable, unpack: Unpack, data: dict, item):
@@ -297,24 +339,26 @@ class DaskExecutor:
             self._cluster.close()
         self.client = self._cluster = None
 
-    def results(self, work: Callable, data: dict, items: Iterable, unpack: Unpack) -> Iterator:
-        """Each item's result as its task finishes; unfinished tasks are cancelled if the
-        caller stops early (Ctrl-C)."""
+    def results(self, work: Callable, data: dict, items: Iterable, unpack: Unpack
+                ) -> "Running":
+        """Each item's result as its task finishes; every task is submitted at once, and
+        unfinished tasks are cancelled if the caller stops early (Ctrl-C)."""
         from distributed import as_completed
 
         items = list(items)
         if not items:
-            return
+            return Running(iter(()))
         shared = self._scattered(data)
         futures = [self.client.submit(_on_worker, work, unpack, shared, item, pure=False,
                                       retries=self.retries) for item in items]
-        try:
+
+        def finished():
             for future in as_completed(futures):
                 result = future.result()
                 future.release()
                 yield result
-        finally:
-            self.client.cancel(futures)
+
+        return Running(finished(), lambda: self.client.cancel(futures))
 
     def _scattered(self, data: dict) -> dict:
         """`data` with its row tables replaced by futures of copies on every worker. A table

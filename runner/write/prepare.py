@@ -79,6 +79,10 @@ class Prepared:
         k, r = self.spec.folds.k, self.spec.folds.repeats
         return [(i, j) for i in range(r) for j in range(k)] + [(REFIT, REFIT)]
 
+    def all_keys(self) -> frozenset:
+        """(cell_id, repeat, fold) of every cell's every fold and refit."""
+        return frozenset((c.cell_id, *key) for c in self.cells for key in self.fold_keys())
+
 
 def _path_resolver(prep: Prepared):
     """The data path of one combination of a model's other parameters, on the training

@@ -14,8 +14,8 @@ from .grid import SCORE_PACKAGES, cell_id, score_versions
 from .leakage import FINDING_COLUMNS, ordered
 from .resampling import REFIT, plan_identity
 
-__all__ = ["EXPLAIN_TABLES", "find_scores", "all_found", "copy_scores", "copy_explained",
-           "version_note", "find_findings"]
+__all__ = ["EXPLAIN_TABLES", "find_scores", "found_keys", "all_found", "copy_scores",
+           "copy_explained", "version_note", "find_findings"]
 
 EXPLAIN_TABLES = ("importances", "fold_importances", "tree_folds", "tree_nodes",
                   "test_predictions", "coefficients")
@@ -35,6 +35,11 @@ def all_found(prep, found) -> bool:
     if found is None:
         return False
     return all((c.cell_id, *key) in _keys(found) for c in prep.cells for key in prep.fold_keys())
+
+
+def found_keys(found) -> frozenset:
+    """The (cell_id, repeat, fold) keys that `find_scores` found (refit = (-1, -1))."""
+    return frozenset(_keys(found)) if found is not None else frozenset()
 
 
 def _keys(found) -> set:
