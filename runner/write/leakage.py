@@ -116,14 +116,17 @@ def _id_columns(frame) -> list[Finding]:
     out = []
     for col in frame.features:
         s = frame.X[col].dropna()
-        n, distinct = len(s), s.nunique()
-        if n < MIN_ROWS or distinct / n < ID_SHARE:
+        n = len(s)
+        if n < MIN_ROWS:
             continue
-        if col in frame.numeric:
-            v = s.to_numpy(dtype=float)
-            serial = v.max() - v.min() + 1 <= 1.5 * distinct
-            if not (np.all(v == np.round(v)) and (serial or id_like(col))):
-                continue  # measurements are distinct per row too; only whole-number ids count
+        v = s.to_numpy(dtype=float) if col in frame.numeric else None
+        if v is not None and not np.all(v == np.round(v)):
+            continue  # measurements are distinct per row too; only whole-number ids count
+        distinct = s.nunique()
+        if distinct / n < ID_SHARE:
+            continue
+        if v is not None and not (v.max() - v.min() + 1 <= 1.5 * distinct or id_like(col)):
+            continue  # whole numbers, but neither a serial run nor named like an id
         out.append(Finding("id_column", col, distinct / n, (
             f"feature '{col}' has {distinct:,} distinct values in {n:,} rows "
             f"({distinct / n:.0%}): it looks like an identifier, which can only help a model "
