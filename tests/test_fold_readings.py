@@ -227,3 +227,42 @@ def test_local_workers_read_mapped_data_and_score_the_same(tmp_path, diabetes_cs
                             [s]) for s in (one.sweep_id, two.sweep_id))
         assert len(a) > 0
         pd.testing.assert_frame_equal(a, b, check_exact=True, obj=table)
+
+
+def _row_total(scale, i, X, y):
+    return scale * (float(X.iloc[i].sum()) + float(y[i]))
+
+
+def _row_call(data, i):
+    return (data["scale"], i, data["X"], data["y"]), {}
+
+
+def test_tables_shared_once_serve_every_call_and_this_process(monkeypatch):
+    # Source: the same sums computed here with numpy on the original tables.
+    import os
+
+    from runner.write import executors
+
+    monkeypatch.setattr(executors, "SHARE_BYTES", 0)  # every table goes through a file
+    written = []
+    plain = executors._SharedFile.__init__
+
+    def counted(self, data):
+        written.append(sorted(data))
+        plain(self, data)
+
+    monkeypatch.setattr(executors._SharedFile, "__init__", counted)
+    X = pd.DataFrame(np.arange(60.0).reshape(20, 3), columns=["a", "b", "c"])
+    y = np.linspace(0.0, 1.0, 20)
+    with executors.LocalExecutor(2) as executor:
+        shared = executor.share({"X": X, "y": y})
+        assert isinstance(shared["y"], np.memmap)  # this process maps them too
+        pd.testing.assert_frame_equal(shared["X"], X)
+        for scale in (1.0, 2.0):
+            got = sorted(executor.results(_row_total, {**shared, "scale": scale}, [0, 7, 19],
+                                          _row_call))
+            assert got == sorted(scale * (X.iloc[i].sum() + y[i]) for i in (0, 7, 19))
+        folders = [f.folder for f in executor._files]
+        assert all(os.path.exists(f) for f in folders)
+    assert written == [["X", "y"], ["scale"], ["scale"]]  # the tables once, each call's rest
+    assert not any(os.path.exists(f) for f in folders)  # gone with the executor

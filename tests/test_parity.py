@@ -164,6 +164,7 @@ def test_mixed_columns_parity(tmp_path, diabetes_mixed_csv):
     _assert_cell(folds, tests, "tree", lambda p: True, ref, test)
 
 
+@pytest.mark.filterwarnings("ignore:Skipping features without any observed values")
 @pytest.mark.parametrize("n_rows", [1, 2, 7, 1000, 1001])
 @pytest.mark.parametrize("keep_empty", [False, True])
 def test_median_imputer_equals_simple_imputer(n_rows, keep_empty):

@@ -437,6 +437,8 @@ def run_sweep(spec: Spec, *, store: Store | None = None, jobs: int | None = None
         expected = found_keys(found)
         tasks = [] if quick else _plan_tasks(prep, paths=paths, n_workers=executor.n_workers,
                                              done=expected)
+        if tasks:  # from here this process holds the rows as its workers do: once, mapped
+            prep.use_split(executor.share(prep.split))
         data = _shared_data(prep, paths=paths) if tasks else {}
         running = hold.enter_context(contextlib.closing(executor.results(
             _run_task, data, tasks, _task_call) if tasks else Running(iter(()))))

@@ -98,13 +98,22 @@ _MAPPED: dict[str, dict] = {}
 
 
 def _mapped(path: str) -> dict:
-    """The shared data of `path`, mapped once per worker process (the latest file only)."""
+    """The shared data of `path`, mapped once per process; files since removed are let go
+    (a sweep's shared rows and one call's own file may be in use side by side)."""
     if path not in _MAPPED:
         import joblib
 
-        _MAPPED.clear()
+        for gone in [p for p in _MAPPED if not os.path.exists(p)]:
+            del _MAPPED[gone]
         _MAPPED[path] = joblib.load(path, mmap_mode="r")
     return _MAPPED[path]
+
+
+class _Ref:
+    """Where a worker finds one shared table: the file it was written to, and its key."""
+
+    def __init__(self, path: str, key: str):
+        self.path, self.key = path, key
 
 
 def _glibc_trim() -> Callable[[], Any] | None:
@@ -152,9 +161,11 @@ def _watched(parent: int, work: Callable, *args, **kwargs):
             give_back_freed_memory()
 
 
-def _on_local_worker(work: Callable, unpack: Unpack, path: str, item):
-    """Run one task on a local worker: its rows are cut here from the mapped data."""
-    args, kwargs = unpack(_mapped(path), item)
+def _on_local_worker(work: Callable, unpack: Unpack, path: str, refs: dict, item):
+    """Run one task on a local worker: its rows are cut here from the mapped data (the
+    call's own file, and the tables shared once for every call, `refs`)."""
+    data = {**_mapped(path), **{k: _mapped(r.path)[r.key] for k, r in refs.items()}}
+    args, kwargs = unpack(data, item)
     return work(*args, **kwargs)
 
 
@@ -201,12 +212,16 @@ class LocalExecutor:
     """joblib worker processes on this machine (`jobs`: -1 = every core), each of which
     exits when this process is gone (`watch_parent`, from its first task on). Shared data
     of `SHARE_BYTES` or more are written once to a file the workers memory-map, and each
-    worker cuts its tasks' rows from it; smaller data travel inside each task, cut here."""
+    worker cuts its tasks' rows from it; smaller data travel inside each task, cut here.
+    Tables given to `share` are written once for all calls, and this process maps them
+    too."""
 
     name = "local"
 
     def __init__(self, jobs: int = -1):
         self.jobs = jobs
+        self._shared: dict[int, tuple[object, _Ref]] = {}  # id(mapped table) -> it, where
+        self._files: list[_SharedFile] = []
 
     @property
     def n_workers(self) -> int:
@@ -218,7 +233,36 @@ class LocalExecutor:
         return self
 
     def __exit__(self, *exc) -> None:
-        return None
+        self._shared.clear()
+        for file in self._files:
+            file.close()
+        self._files.clear()
+
+    def share(self, tables: dict) -> dict:
+        """`tables` written once to a file that every worker maps, returned as mapped from
+        that file, so that this process can let its own copy go and hold the rows once
+        with its workers. Passed to `results` (in this call's data or a later one's), a
+        returned table is not written again. Tables too small to be worth a file, or with
+        a single worker, come back as they are. The file goes when the executor closes."""
+        if self.n_workers <= 1 or _data_bytes(tables) < SHARE_BYTES:
+            return tables
+        import joblib
+
+        file = _SharedFile(tables)
+        self._files.append(file)
+        mapped = joblib.load(file.path, mmap_mode="r")
+        for key, table in mapped.items():
+            self._shared[id(table)] = (table, _Ref(file.path, key))
+        return mapped
+
+    def _refs(self, data: dict) -> dict:
+        """The entries of `data` that are tables returned by `share`, as references."""
+        refs = {}
+        for key, value in data.items():
+            known = self._shared.get(id(value))
+            if known is not None and known[0] is value:
+                refs[key] = known[1]
+        return refs
 
     def results(self, work: Callable, data: dict, items: Iterable, unpack: Unpack
                 ) -> "Running":
@@ -227,9 +271,11 @@ class LocalExecutor:
         from joblib import Parallel, delayed
 
         shared = None
-        if self.n_workers > 1 and _data_bytes(data) >= SHARE_BYTES:
-            shared = _SharedFile(data)
-            run, calls = _on_local_worker, (((work, unpack, shared.path, item), {})
+        refs = self._refs(data) if self.n_workers > 1 else {}
+        rest = {k: v for k, v in data.items() if k not in refs}
+        if refs or (self.n_workers > 1 and _data_bytes(rest) >= SHARE_BYTES):
+            shared = _SharedFile(rest)
+            run, calls = _on_local_worker, (((work, unpack, shared.path, refs, item), {})
                                             for item in items)
         else:
             run, calls = work, (unpack(data, item) for item in items)
@@ -359,6 +405,10 @@ class DaskExecutor:
                 yield result
 
         return Running(finished(), lambda: self.client.cancel(futures))
+
+    def share(self, tables: dict) -> dict:
+        """`tables` as they are: `results` sends a table to the workers once anyway."""
+        return tables
 
     def _scattered(self, data: dict) -> dict:
         """`data` with its row tables replaced by futures of copies on every worker. A table

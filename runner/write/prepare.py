@@ -48,6 +48,12 @@ class Prepared:
                                y_test=frame.y[plan.test_rows])
         return self._split
 
+    def use_split(self, split: dict) -> None:
+        """Hold these tables as the split from now on: the same rows, kept elsewhere (an
+        executor's shared file), so that the copy cut here can go."""
+        assert split.keys() == self.split.keys()
+        self._split = split
+
     def keep_split_only(self) -> None:
         """Let the frame's full table go once the split is cut, so that a sweep holds its
         rows once (a 10^6-row table is 160 MiB): the frame keeps its columns and types but
