@@ -28,6 +28,8 @@ from .schema import (DEFAULT_STORE, SCHEMA_VERSION, TABLE_SQL, TABLES, UPGRADE_C
 
 __all__ = ["Store", "SCHEMA_VERSION", "DEFAULT_STORE", "TABLES", "VIEW_SQL", "Notices"]
 
+_ONE_THREAD = {"threads": 1}
+"""The settings of a connection to a file that writes a few rows (see `Store._connect`)."""
 _CONFLICT_WORDS = ("could not serialize", "deadlock detected", "concurrent update")
 
 
@@ -68,12 +70,17 @@ class Store:
     # -- connections -------------------------------------------------------------------
     @contextmanager
     def _connect(self, *, read_only: bool, config: dict | None = None,
-                 writing: bool | None = None) -> Iterator[duckdb.DuckDBPyConnection]:
+                 writing: bool | None = None, small: bool = False
+                 ) -> Iterator[duckdb.DuckDBPyConnection]:
         """A short-lived connection; `writing` (default: not read_only) says whether it
-        serves a write, which waits for a busy file however long it takes."""
+        serves a write, which waits for a busy file however long it takes. A `small` one
+        (a few rows to write) opens a file with one thread: DuckDB starts and stops its
+        threads with each connection, which costs more than such a write."""
         if self._held is not None and not config:
             yield self._held
             return
+        if small and not config and not self.location.shared:
+            config = _ONE_THREAD
         con = self.patiently(lambda: self.location.connect(read_only=read_only, config=config),
                              writing=not read_only if writing is None else writing)
         if self.location.shared:
@@ -285,14 +292,15 @@ class Store:
                          f"or use a role that has them. Nothing was {changed}.")
 
     # -- writing ---------------------------------------------------------------------------
-    def _transaction(self, work: Callable, *, what: str):
-        """Run `work(con)` in one transaction and return its result.
+    def _transaction(self, work: Callable, *, what: str, small: bool = False):
+        """Run `work(con)` in one transaction and return its result (`small`: see
+        `_connect`).
 
         On a server, a transaction that PostgreSQL aborts because a concurrent one touched
         the same rows (a serialization failure or deadlock) is run again, a few times."""
         attempts = 8 if self.location.shared else 1
         for attempt in range(attempts):
-            with self._connect(read_only=False) as con:
+            with self._connect(read_only=False, small=small) as con:
                 con.execute("begin")
                 try:
                     result = work(con)
@@ -324,7 +332,7 @@ class Store:
                 con.execute(f"insert into {table} by name select * from {name}")
                 con.unregister(name)
 
-        self._transaction(work, what="writing")
+        self._transaction(work, what="writing", small=True)
 
     def begin_sweep(self, sweep: dict, cells: pd.DataFrame, metrics: dict[str, str],
                     labels: dict[str, str] | None = None,
@@ -355,7 +363,7 @@ class Store:
                 con.register("_findings", findings.assign(sweep_id=row["sweep_id"]))
                 con.execute("insert into findings by name select * from _findings")
 
-        self._transaction(work, what="recording the sweep")
+        self._transaction(work, what="recording the sweep", small=True)
 
     def finish_sweep(self, sweep_id: str, status: str, at: datetime | None = None) -> None:
         """Mark a sweep finished, failed or interrupted, with the time (`at`, by the clock
@@ -363,11 +371,12 @@ class Store:
         if at is None:
             self._transaction(lambda con: con.execute(
                 "update sweeps set status = ?, finished_at = current_timestamp::timestamp "
-                "where sweep_id = ?", [status, sweep_id]), what="finishing the sweep")
+                "where sweep_id = ?", [status, sweep_id]), what="finishing the sweep",
+                small=True)
             return
         self._transaction(lambda con: con.execute(
             "update sweeps set status = ?, finished_at = ? where sweep_id = ?",
-            [status, at, sweep_id]), what="finishing the sweep")
+            [status, at, sweep_id]), what="finishing the sweep", small=True)
 
     def mark_interrupted(self, host: str, alive: Callable[[int], bool]) -> list[str]:
         """Mark this host's 'running' sweeps whose process is gone as 'interrupted'.
@@ -381,7 +390,7 @@ class Store:
                 con.execute("update sweeps set status = 'interrupted' where sweep_id = ?", [sid])
             return dead
 
-        return self._transaction(work, what="marking interrupted sweeps")
+        return self._transaction(work, what="marking interrupted sweeps", small=True)
 
     def finished_rows(self, cell_ids: list[str], metrics: list[str]
                       ) -> tuple[pd.DataFrame, pd.DataFrame]:
