@@ -158,14 +158,15 @@ class Store:
         one win and the others look again on a fresh connection, which then sees them."""
         self.check_writable()
         if not self.location.shared and self.location.exists():
-            with self._connect(read_only=True, writing=True) as con:  # changes no byte
+            # read-only first: a file that is no foldwise store is refused unchanged
+            with self._connect(read_only=True, writing=True, small=True) as con:
                 if self._schema_version(con) is None:
                     self._refuse_foreign(con)
         attempts = 20 if self.location.shared else 1
         for attempt in range(attempts):
             if self.location.shared:
                 self.location.forget_catalog()
-            with self._connect(read_only=False) as con:
+            with self._connect(read_only=False, small=True) as con:
                 found = self._schema_version(con)
                 if found is None:
                     self._refuse_foreign(con)
