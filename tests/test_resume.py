@@ -69,7 +69,8 @@ def test_changing_one_grid_value_fits_only_new_cells(folder):
 def test_a_source_sweep_removed_before_its_rows_are_copied_is_fitted_again(folder,
                                                                           monkeypatch):
     """The fits start before the earlier rows are copied; whatever a removal in between
-    takes away is fitted after them, with the same scores as a fresh sweep's."""
+    takes away is fitted after them, with the same scores as a fresh sweep's (a fresh
+    sweep's scores equal scikit-learn's own: tests/test_parity.py)."""
     import runner.write.engine as engine
     from runner.store.tidy import remove_sweeps
 

@@ -91,8 +91,8 @@ def resolve_jobs(requested: int | None, *, force: bool = False) -> tuple[int, st
 
 
 def _local_threads(n_jobs: int) -> int:
-    """Threads this process may use while no worker runs: the sweep's workers, at most the
-    cores here."""
+    """Threads for this process's leakage checks: as many as the sweep's workers, at most the
+    cores here (the first fits run meanwhile, so the cores are shared)."""
     from joblib import cpu_count, effective_n_jobs
 
     return min(effective_n_jobs(n_jobs), cpu_count())

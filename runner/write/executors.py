@@ -194,8 +194,9 @@ class Running:
         try:
             if hasattr(results, "close"):
                 with warnings.catch_warnings():  # joblib counts the tasks it stops: we meant to
-                    warnings.filterwarnings("ignore", "[0-9]+ tasks which were still being",
-                                            UserWarning)
+                    warnings.filterwarnings(  # both of joblib's wordings
+                        "ignore", "[0-9]+ tasks (which were still being|have been succ)",
+                        UserWarning)
                     results.close()
         finally:
             if on_close is not None:

@@ -32,9 +32,7 @@ def find_scores(store: Store, prep, *, fresh: bool):
 
 def all_found(prep, found) -> bool:
     """True if every cell's every fold and refit is already stored."""
-    if found is None:
-        return False
-    return all((c.cell_id, *key) in _keys(found) for c in prep.cells for key in prep.fold_keys())
+    return found is not None and prep.all_keys() <= found_keys(found)
 
 
 def found_keys(found) -> frozenset:
