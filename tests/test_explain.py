@@ -320,3 +320,56 @@ def test_sigkill_during_explain_keeps_finished_cells_whole_and_the_rerun_reuses_
     got, want = _explain_rows(store, again.sweep_id), _explain_rows(clean, reference.sweep_id)
     for table in want:  # every explain table but `explained` (reused_from differs)
         pd.testing.assert_frame_equal(got[table], want[table], check_exact=True, obj=table)
+
+
+@pytest.mark.parametrize("family", ["forest", "pruned_tree", "linear"])
+@pytest.mark.parametrize("task", ["regression", "classification"])
+@pytest.mark.parametrize("extra", [False, True])
+def test_permutation_rows_equal_scikit_learn_through_the_whole_pipeline(family, task, extra):
+    # Source: sklearn.inspection.permutation_importance on the whole fitted pipeline, same
+    # rows, scorer, repeats, seed and max_samples: every number equal. A tree's pipeline is
+    # shuffled on rows transformed once; the columns here come in another order than the
+    # preprocessor's, and one category level and gaps appear in the test rows only. With
+    # `extra`, the rows hold a column that is not a feature: shuffled through the whole
+    # pipeline (its importance is the baseline on all rows minus the score on the drawn ones).
+    from sklearn.datasets import make_friedman1
+
+    from runner.metrics import METRICS
+    from runner.write.explain import permutation_rows
+
+    X, y = make_friedman1(n_samples=300, n_features=5, noise=0.5, random_state=3)
+    frame = pd.DataFrame(X[:, :4], columns=["a", "b", "c", "d"])
+    frame.loc[::19, "b"] = np.nan
+    frame.insert(0, "site", np.array(["north", "south", "east"])[np.arange(300) % 3])
+    frame.loc[250::4, "site"] = "west"
+    frame.loc[260::9, "site"] = None
+    if extra:
+        frame["batch_note"] = np.arange(300) % 7
+    if task == "classification":
+        y = np.where(y > np.median(y), "high", "low")
+    classes = sorted(set(y)) if task == "classification" else ()
+    metric = "log_loss" if task == "classification" else "rmse"
+    X_fit, y_fit, X_test, y_test = frame[:220], y[:220], frame[220:], y[220:]
+    params = {"forest": {"n_estimators": 8}, "pruned_tree": {},
+              "linear": {"penalty": "l2", "alpha": 1.0}}[family]
+    est = load_family(family).make_estimator(params, seed=2, y_fit=y_fit,
+                                             numeric=["a", "b", "c", "d"],
+                                             categorical=["site"], task=task)
+    est.fit(X_fit, y_fit)
+    ref = permutation_importance(est, X_test, y_test, scoring=METRICS[metric].scorer_for(classes),
+                                 n_repeats=4, random_state=9, n_jobs=1, max_samples=50)
+    transforms = []
+    prep = est.named_steps["prep"]
+    transform = prep.transform
+    prep.transform = lambda rows: transforms.append(len(rows)) or transform(rows)
+    got = permutation_rows(est, X_test, y_test, metric=metric, repeats=4, seed=9, rows=50,
+                           classes=classes)
+    assert list(got) == list(X_test.columns)
+    assert [got[c] for c in X_test.columns] == [
+        (float(m), float(s)) for m, s in zip(ref.importances_mean, ref.importances_std)]
+    assert got["site"][0] != 0.0
+    # A tree's or forest's rows are transformed once; a linear pipeline's (one-hot levels
+    # are several columns), or rows with an extra column, once for the unshuffled rows and
+    # once per shuffle (4 per column).
+    once = family != "linear" and not extra
+    assert transforms == [len(X_test)] + ([] if once else [50] * 4 * X_test.shape[1])

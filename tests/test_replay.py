@@ -132,3 +132,64 @@ def test_stand_ins_answer_scikit_learn_as_a_fitted_model_would():
     assert np.array_equal(pipe.predict(X_test), np.arange(len(X_test)))
     with pytest.raises(LookupError):
         pipe.predict(X_test)  # asked once only
+
+
+def _with_category(X):
+    """The rows plus a categorical column (a level only the later rows have, and gaps), so
+    the ordinal codes travel through the replay as well."""
+    levels = np.array(["clay", "loam", "sand", "peat"])
+    kind = pd.Series(levels[np.arange(len(X)) % 3], index=X.index, dtype=object)
+    kind.iloc[200:] = levels[np.arange(len(X) - 200) % 4]  # 'peat': test rows only
+    kind.iloc[::23] = None
+    return X.assign(soil=kind)
+
+
+@pytest.mark.parametrize("task, metric", [("regression", "rmse"),
+                                          ("classification", "log_loss")])
+def test_a_lone_forest_is_read_from_stacked_predictions(monkeypatch, task, metric):
+    # Source: the same reader run on scikit-learn's own RandomForestRegressor /
+    # RandomForestClassifier fitted on the same rows and seed (permutation_importance,
+    # feature_importances_, predict/predict_proba): every number equal.
+    X_fit, y_fit, X_test, y_test = _data(task)
+    both = _with_category(pd.concat([X_fit, X_test]))
+    X_fit, X_test = both[:240], both[240:]
+    numeric, categorical = [f"x{i}" for i in range(5)], ["soil"]
+    read = _reader(task, X_test, y_test, metric)
+    params = {"n_estimators": 12, "max_features": 0.6, "min_samples_leaf": 2}
+    whole = forest_family.make_estimator(params, seed=4, numeric=numeric,
+                                         categorical=categorical, task=task).fit(X_fit, y_fit)
+    expected = read(whole, X_fit)
+
+    kind = type(whole.named_steps["model"])
+    method = "predict_proba" if task == "classification" else "predict"
+    calls = []
+    original = getattr(kind, method)
+
+    def counted(self, X):
+        calls.append(len(X))
+        return original(self, X)
+
+    monkeypatch.setattr(kind, method, counted)
+    (fit,) = forest_family.fit_cells([params], X_fit, y_fit, [X_test], seed=4,
+                                     numeric=numeric, categorical=categorical, task=task,
+                                     read=read)
+    assert fit.error is None and fit.how == "plain"
+    assert_same_reading(fit.reading, expected)
+    # The scored rows, then every row the reader asked for in one stacked call: the test
+    # rows for the predictions, and 3 shuffles x 6 columns of 70 drawn rows plus the
+    # unshuffled test rows for the permutation importance.
+    assert calls == [len(X_test), len(X_test) * 2 + 3 * 6 * 70]
+
+
+def test_stacked_row_sets_are_cut_back_into_their_sets():
+    from runner.families._replay import stacked
+
+    sets = [np.full((n, 2), n, dtype=np.float32) for n in (3, 5, 20, 2, 4)]
+    blocks, cut = stacked(sets, rows=10)
+    assert [len(b) for b in blocks] == [8, 20, 6]  # a set larger than a block stands alone
+    for predicted in ([b[:, 0] * 2.0 for b in blocks],  # one value per row, or
+                      [np.repeat(b[:, :1], 3, axis=1) for b in blocks]):  # one per class
+        got = cut(predicted)
+        assert [len(g) for g in got] == [3, 5, 20, 2, 4]
+        assert all(np.all(g == (2.0 if g.ndim == 1 else 1.0) * len(g)) for g in got)
+    assert stacked([])[0] == [] and stacked([])[1]([]) == []

@@ -21,7 +21,7 @@ from sklearn.pipeline import Pipeline
 from sklearn.preprocessing import (FunctionTransformer, OneHotEncoder, OrdinalEncoder,
                                    StandardScaler)
 
-from ._replay import answered, questions
+from ._replay import answered, questions, stacked
 
 __all__ = ["CellFit", "MedianImputer", "tree_preprocessor", "linear_preprocessor", "fit_each",
            "fit_grouped", "predict", "path_groups", "work_units", "prediction_columns",
@@ -166,9 +166,11 @@ def _read(read: Read | None, result: CellFit, pipeline, X_fit) -> None:
 def fit_each(make_estimator: Callable, cells: list[dict], X_fit, y_fit, X_evals, *, seed: int,
              numeric: list[str], categorical: list[str],
              leaves: Callable | None = None, task: str = "regression",
-             read: Read | None = None) -> list[CellFit]:
+             read: Read | None = None, replay: bool = False) -> list[CellFit]:
     """Fit every cell separately on the same rows and predict each evaluation set; with
-    `read`, also keep its reading of each fitted pipeline (`CellFit.reading`)."""
+    `read`, also keep its reading of each fitted pipeline (`CellFit.reading`). With
+    `replay` (a model that predicts each row on its own), the rows the reader asks for are
+    predicted in a few stacked calls and its reading answered from them (`_replayed`)."""
     out = []
     for params in cells:
         result = CellFit()
@@ -188,9 +190,25 @@ def fit_each(make_estimator: Callable, cells: list[dict], X_fit, y_fit, X_evals,
             result.fit_seconds = time.perf_counter() - start
             _record_error(result, exc)
         else:
-            _read(read, result, est, X_fit)
+            replayed = _replayed(read, est, X_fit, y_fit, task) \
+                if replay and needs_whole_model(read) else None
+            _read(read, result, replayed or est, X_fit)
         out.append(result)
     return out
+
+
+def _replayed(read: Read, pipeline, X_fit, y_fit, task: str):
+    """`pipeline` with its model replaced by a stand-in that answers the rows `read` asks
+    for from stacked predictions of them all (`_replay.py`), or None when the reader's
+    questions cannot be recorded (it then reads the pipeline itself)."""
+    prep, model = pipeline.named_steps["prep"], pipeline.named_steps["model"]
+    asked = questions(read, prep, X_fit, y_fit, model.n_features_in_, task)
+    if asked is None:
+        return None
+    blocks, cut = stacked(asked)
+    stand_in = answered(asked, cut([predict(model, block, task) for block in blocks]),
+                        model.feature_importances_, getattr(model, "classes_", None))
+    return Pipeline([("prep", prep), ("model", stand_in)])
 
 
 def path_groups(cells: Sequence[dict], path_params: Sequence[str],
@@ -244,8 +262,10 @@ def fit_grouped(make_estimator: Callable, preprocessor: Callable, evaluate: Eval
                 X_fit, y_fit, X_evals, *, seed: int, numeric: list[str],
                 categorical: list[str], paths: bool = True, leaves: Callable | None = None,
                 eligible: Callable[[dict], bool] | None = None,
-                task: str = "regression", read: Read | None = None) -> list[CellFit]:
-    """Score every cell: each group of path-sharing cells from one fit, the rest one by one.
+                task: str = "regression", read: Read | None = None,
+                replay: bool = False) -> list[CellFit]:
+    """Score every cell: each group of path-sharing cells from one fit, the rest one by one
+    (`fit_each`, with `replay` where the family's reader can be answered by replay).
 
     `how(params)` names the path evaluator a group runs, recorded in `CellFit.how` (also
     when the group's fit fails). The preprocessor is fitted once per call (it depends on no
@@ -261,13 +281,13 @@ def fit_grouped(make_estimator: Callable, preprocessor: Callable, evaluate: Eval
     if not paths:
         return fit_each(make_estimator, cells, X_fit, y_fit, X_evals, seed=seed,
                         numeric=numeric, categorical=categorical, leaves=leaves, task=task,
-                        read=read)
+                        read=read, replay=replay)
     together, alone = path_groups(cells, path_params, eligible)
     out: list[CellFit | None] = [None] * len(cells)
     if alone:
         plain = fit_each(make_estimator, [cells[i] for i in alone], X_fit, y_fit, X_evals,
                          seed=seed, numeric=numeric, categorical=categorical, leaves=leaves,
-                         task=task, read=read)
+                         task=task, read=read, replay=replay)
         for i, fit in zip(alone, plain):
             out[i] = fit
     if together:
@@ -288,13 +308,14 @@ def fit_grouped(make_estimator: Callable, preprocessor: Callable, evaluate: Eval
             group = [cells[i] for i in members]
             asked = questions(read, prep, X_fit, y_fit, Xt_fit.shape[1], task) \
                 if replay and prep_error is None else None
+            blocks, cut = stacked(asked or [])
             fits = _evaluate_group(evaluate, group, prep_error, prep_share, Xt_fit, y_fit,
-                                   [*(Xt_evals or []), *(asked or [])], seed, task)
+                                   [*(Xt_evals or []), *blocks], seed, task)
             for i, fit in zip(members, fits):
                 fit.how = how(group[0])
                 model = fit.model
                 if asked is not None and model is not None:
-                    model = answered(asked, fit.predictions[len(Xt_evals):],
+                    model = answered(asked, cut(fit.predictions[len(Xt_evals):]),
                                      model.feature_importances_,
                                      getattr(model, "classes_", None))
                     del fit.predictions[len(Xt_evals):]

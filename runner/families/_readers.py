@@ -6,7 +6,7 @@ from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["output_sources", "coefficient_importance", "impurity_importance", "tree_shape",
+__all__ = ["output_sources", "column_sources", "coefficient_importance", "impurity_importance", "tree_shape",
            "tree_node_rows"]
 
 
@@ -25,6 +25,26 @@ def output_sources(prep) -> list[str]:
         else:
             sources.extend(str(c) for c in transformer.get_feature_names_out(columns))
     return sources
+
+
+def column_sources(prep) -> list[str] | None:
+    """`output_sources` of a fitted tree preprocessor, whose every output is one input
+    column mapped value by value (a cast, a category's code): shuffling an input column's
+    rows shuffles its output column's rows the same way. None for any other step."""
+    from sklearn.compose import ColumnTransformer
+    from sklearn.preprocessing import FunctionTransformer, OrdinalEncoder
+
+    from ._base import as_tree_input
+
+    if not isinstance(prep, ColumnTransformer) or not hasattr(prep, "transformers_"):
+        return None
+    for name, part, columns in prep.transformers_:
+        if part == "drop" or len(columns) == 0:
+            continue
+        if not (isinstance(part, OrdinalEncoder) or (isinstance(part, FunctionTransformer)
+                                                     and part.func is as_tree_input)):
+            return None
+    return output_sources(prep)
 
 
 def _by_source(values, sources: list[str], features: list[str]) -> dict[str, float]:

@@ -18,10 +18,14 @@ from sklearn.base import BaseEstimator, ClassifierMixin, RegressorMixin
 from sklearn.pipeline import Pipeline
 from sklearn.utils.validation import check_array
 
-__all__ = ["questions", "answered", "RECORD_BYTES", "Unasked"]
+__all__ = ["questions", "answered", "stacked", "RECORD_BYTES", "STACK_ROWS", "Unasked"]
 
 RECORD_BYTES = 256 * 2 ** 20
 """The most memory the recorded rows of one reading may take (float32)."""
+
+
+STACK_ROWS = 2 ** 16
+"""The most rows of recorded row sets put together for one call of a model's predict."""
 
 
 class Unasked(LookupError):
@@ -73,7 +77,7 @@ class _Recorder(_StandIn):
 
     def _answer(self, X) -> np.ndarray:
         rows = _rows(X)
-        self.asked.append(rows)
+        self.asked.append(rows.copy() if rows is X else rows)  # a reader may reuse its X
         if not hasattr(self, "classes_"):
             return np.zeros(len(rows))
         return np.full((len(rows), len(self.classes_)), 1.0 / len(self.classes_))
@@ -140,3 +144,27 @@ def answered(asked: list, answers: list, importances, classes=None) -> _StandIn:
     importances (and classes)."""
     kind = _ClassifierAnswerer if classes is not None else _RegressorAnswerer
     return _stand_in(kind, classes, importances, asked=asked, answers=answers, next=0)
+
+
+def stacked(sets: list, rows: int = STACK_ROWS):
+    """(blocks, cut): consecutive row sets put together in blocks of at most `rows` rows (a
+    larger set is a block of its own), and `cut`, which turns one prediction per block into
+    one per set. A tree or a forest predicts each row on its own, so a row's prediction is
+    the same number in a block as in its set, and a few calls replace one per set."""
+    groups: list[list] = []
+    count = 0
+    for rows_set in sets:
+        if not groups or count + len(rows_set) > rows:
+            groups.append([])
+            count = 0
+        groups[-1].append(rows_set)
+        count += len(rows_set)
+    blocks = [group[0] if len(group) == 1 else np.concatenate(group) for group in groups]
+
+    def cut(predictions: list) -> list:
+        out = []
+        for group, predicted in zip(groups, predictions):
+            out.extend(np.split(predicted, np.cumsum([len(g) for g in group])[:-1]))
+        return out
+
+    return blocks, cut

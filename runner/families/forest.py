@@ -105,10 +105,12 @@ _batched_path.lets_go = True  # its models are stand-ins holding the own importa
 def fit_cells(cells, X_fit, y_fit, X_evals, *, seed, numeric, categorical, paths=True,
               task="regression", read=None):
     """Score every cell on the fitting rows: size grids from one forest grown in batches,
-    or (with `paths=False`, or a lone size) one fit per cell."""
+    or (with `paths=False`, or a lone size) one fit per cell. A forest predicts each row on
+    its own, so what a reader asks of a whole forest is answered by replay too."""
     return fit_grouped(make_estimator, tree_preprocessor, _batched_path, _how, PATH_PARAMS,
                        cells, X_fit, y_fit, X_evals, seed=seed, numeric=numeric,
-                       categorical=categorical, paths=paths, task=task, read=read)
+                       categorical=categorical, paths=paths, task=task, read=read,
+                       replay=True)
 
 
 def fit_units(cells, *, paths=True):
