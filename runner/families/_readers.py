@@ -5,8 +5,15 @@ tree's shape and nodes. Each family's estimator module offers the readers that f
 from __future__ import annotations
 
 import numpy as np
+from sklearn.base import BaseEstimator, ClassifierMixin, RegressorMixin, is_classifier
+from sklearn.compose import ColumnTransformer
+from sklearn.impute import SimpleImputer
+from sklearn.pipeline import Pipeline
+from sklearn.preprocessing import FunctionTransformer, OneHotEncoder, OrdinalEncoder, StandardScaler
 
-__all__ = ["output_sources", "column_sources", "coefficient_importance", "impurity_importance", "tree_shape",
+from ._base import as_tree_input
+
+__all__ = ["output_sources", "shuffled_by_index", "coefficient_importance", "impurity_importance", "tree_shape",
            "tree_node_rows"]
 
 
@@ -27,24 +34,85 @@ def output_sources(prep) -> list[str]:
     return sources
 
 
-def column_sources(prep) -> list[str] | None:
-    """`output_sources` of a fitted tree preprocessor, whose every output is one input
-    column mapped value by value (a cast, a category's code): shuffling an input column's
-    rows shuffles its output column's rows the same way. None for any other step."""
-    from sklearn.compose import ColumnTransformer
-    from sklearn.preprocessing import FunctionTransformer, OrdinalEncoder
+def shuffled_by_index(pipeline, X):
+    """(stand-in, index rows) on which `permutation_importance` gives the numbers it gives
+    on (pipeline, X), or None when the pipeline is not of that kind.
 
-    from ._base import as_tree_input
-
-    if not isinstance(prep, ColumnTransformer) or not hasattr(prep, "transformers_"):
+    Every step of our preprocessors maps one column value by value (imputing, scaling, a
+    category's code or its one-hot levels), so the transformed rows of an input column
+    shuffled are that column's transformed rows taken in the shuffled order. The rows are
+    transformed once; the index rows hold, per input column, which row each of its values
+    comes from (0 ... n-1 to begin with); the stand-in puts the model's input together
+    from them, laid out as the preprocessor lays it out, and asks the model. Shuffling and
+    drawing rows of the index rows is then the same as doing it to the rows themselves."""
+    steps = getattr(pipeline, "named_steps", {})
+    prep, model = steps.get("prep"), steps.get("model")
+    if len(steps) != 2 or not isinstance(prep, ColumnTransformer) or \
+            not hasattr(prep, "transformers_") or not all(
+                _value_by_value(part) for _, part, columns in prep.transformers_
+                if part != "drop" and len(columns)):
         return None
-    for name, part, columns in prep.transformers_:
-        if part == "drop" or len(columns) == 0:
-            continue
-        if not (isinstance(part, OrdinalEncoder) or (isinstance(part, FunctionTransformer)
-                                                     and part.func is as_tree_input)):
-            return None
-    return output_sources(prep)
+    rows = prep.transform(X)
+    names = [str(c) for c in X.columns]
+    sources = np.asarray(output_sources(prep), dtype=object)
+    blocks = [np.flatnonzero(sources == name) for name in names]
+    if not isinstance(rows, np.ndarray) or rows.ndim != 2 or \
+            sum(len(b) for b in blocks) != rows.shape[1] or len(sources) != rows.shape[1]:
+        return None
+    kind = _ByIndexClassifier if is_classifier(model) else _ByIndexRegressor
+    stand_in = kind()
+    stand_in.model, stand_in.rows, stand_in.blocks = model, rows, blocks
+    if hasattr(model, "classes_"):
+        stand_in.classes_ = model.classes_
+    index = np.repeat(np.arange(len(X))[:, None], len(names), axis=1)
+    return stand_in, index
+
+
+def _value_by_value(part) -> bool:
+    """Whether a fitted preprocessing part maps each of its columns value by value into
+    output columns of its own (the parts our families' preprocessors are made of)."""
+    if isinstance(part, Pipeline):
+        return all(_value_by_value(step) for _, step in part.steps)
+    if isinstance(part, FunctionTransformer):
+        return part.func is as_tree_input
+    if isinstance(part, SimpleImputer):
+        return not part.add_indicator
+    if isinstance(part, OneHotEncoder):
+        return not part.sparse_output
+    return isinstance(part, (OrdinalEncoder, StandardScaler))
+
+
+class _ByIndex(BaseEstimator):
+    """A fitted model read through index rows (`shuffled_by_index`)."""
+
+    def __init__(self):
+        pass
+
+    def fit(self, X, y=None):
+        raise TypeError("reads a fitted model through index rows; it cannot be fitted")
+
+    def __sklearn_is_fitted__(self) -> bool:
+        return True
+
+    def _rows(self, index) -> np.ndarray:
+        index = np.asarray(index)
+        out = np.empty((len(index), self.rows.shape[1]), dtype=self.rows.dtype)
+        for j, columns in enumerate(self.blocks):
+            if len(columns):
+                out[:, columns] = self.rows[np.ix_(index[:, j], columns)]
+        return out
+
+    def predict(self, index):
+        return self.model.predict(self._rows(index))
+
+
+class _ByIndexRegressor(RegressorMixin, _ByIndex):
+    pass
+
+
+class _ByIndexClassifier(ClassifierMixin, _ByIndex):
+    def predict_proba(self, index):
+        return self.model.predict_proba(self._rows(index))
 
 
 def _by_source(values, sources: list[str], features: list[str]) -> dict[str, float]:

@@ -10,8 +10,8 @@ For every chosen cell (by default each model's best and one-SE picks; the spec's
   rows. `permutation` (every family): scikit-learn's `permutation_importance` on the test
   split, shuffling one original column at a time through the whole pipeline on
   `explain.permutation.rows` test rows drawn for each column (`max_samples`), scored with the
-  sweep's first metric (a tree's or forest's test rows are transformed once and their
-  columns shuffled there, which gives the same numbers); value = mean loss of score over the shuffles (for rmse: how much the
+  sweep's first metric (the test rows are transformed once and shuffled there, column by
+  column, which gives the same numbers: `shuffled_by_index`); value = mean loss of score over the shuffles (for rmse: how much the
   test RMSE rises), spread = sd over the shuffles. `impurity` (trees, forests): the fitted
   model's impurity-based importances (shares of the total squared-error reduction, summing
   to 1). `coefficient` (linear): the standard deviation over the fitting rows of the
@@ -80,30 +80,15 @@ def permutation_rows(pipeline, X_test, y_test, *, metric: str, repeats: int,
     them when the split holds no more)."""
     from sklearn.inspection import permutation_importance
 
-    model, X, sources = _value_by_value(pipeline, X_test)
+    from ..families._readers import shuffled_by_index
+
+    model, X = shuffled_by_index(pipeline, X_test) or (pipeline, X_test)
     scoring = METRICS[metric].scorer_for(classes)
     result = permutation_importance(model, X, y_test, scoring=scoring,
                                     n_repeats=repeats, random_state=seed, n_jobs=1,
                                     max_samples=permutation_sample(rows, len(X_test)))
-    found = {str(col): (float(m), float(s)) for col, m, s in
-             zip(sources, result.importances_mean, result.importances_std)}
-    return {str(col): found[str(col)] for col in X_test.columns}
-
-
-def _value_by_value(pipeline, X_test):
-    """(model, rows, source column of each row column) for `permutation_importance`. A
-    pipeline whose preprocessor maps each column value by value (`column_sources`) is
-    taken apart: its model shuffles the transformed test rows, transformed once instead of
-    once per shuffle, and gives the same predictions, so the same numbers (each column's
-    shuffles are drawn from the same seed whatever its position). Anything else, or rows
-    with a column the preprocessor drops, is shuffled through whole."""
-    from ..families._readers import column_sources
-
-    steps = getattr(pipeline, "named_steps", {})
-    sources = column_sources(steps.get("prep")) if len(steps) == 2 else None
-    if sources is None or sorted(sources) != sorted(map(str, X_test.columns)):
-        return pipeline, X_test, list(X_test.columns)
-    return steps["model"], steps["prep"].transform(X_test), sources
+    return {str(col): (float(m), float(s)) for col, m, s in
+            zip(X_test.columns, result.importances_mean, result.importances_std)}
 
 
 def permutation_sample(rows: int, n_test: int) -> int:
