@@ -65,6 +65,7 @@ class Store:
             else Notices(on_wait)
         self._held = None  # the connection `session()` holds, if any
         self._schema_checked = False
+        self._schema_ensured = False  # ensure_schema found (or made) this foldwise's tables
         self._privileges_checked = False
 
     # -- connections -------------------------------------------------------------------
@@ -155,7 +156,11 @@ class Store:
         it), and on a server a role that may not write sweeps.
 
         On a server several first sweeps may race to create the tables; PostgreSQL lets
-        one win and the others look again on a fresh connection, which then sees them."""
+        one win and the others look again on a fresh connection, which then sees them.
+        Once it has succeeded, a Store does not look again (a sweep and its explain step
+        ask in turn)."""
+        if self._schema_ensured:
+            return
         self.check_writable()
         if not self.location.shared and self.location.exists():
             # read-only first: a file that is no foldwise store is refused unchanged
@@ -177,9 +182,11 @@ class Store:
                                      "store.")
                 if found == SCHEMA_VERSION:
                     self._check_privileges(con)
+                    self._schema_ensured = True
                     return
                 try:
                     self._create_schema(con, found)
+                    self._schema_ensured = True
                     return
                 except duckdb.Error as exc:
                     con.execute("rollback")

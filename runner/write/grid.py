@@ -3,6 +3,8 @@ complexity rank (0 = simplest) that the one-standard-error rule follows."""
 
 from __future__ import annotations
 
+import functools
+
 import hashlib
 import itertools
 import json
@@ -84,8 +86,8 @@ rerun after an upgrade computes its scores anew rather than copying the old ones
 Dask workers must have the same ones as this machine (write/executors.py)."""
 
 
-def score_versions() -> dict[str, str]:
-    """The installed versions of SCORE_PACKAGES ('missing' for one not installed)."""
+@functools.cache
+def _installed_versions() -> tuple[tuple[str, str], ...]:
     from importlib.metadata import PackageNotFoundError, version
 
     found = {}
@@ -94,7 +96,14 @@ def score_versions() -> dict[str, str]:
             found[name] = version(name)
         except PackageNotFoundError:
             found[name] = "missing"
-    return found
+    return tuple(found.items())
+
+
+def score_versions() -> dict[str, str]:
+    """The installed versions of SCORE_PACKAGES ('missing' for one not installed), read
+    once per process: the modules it has loaded compute its scores, whatever is installed
+    later (reading the packages' metadata costs some 5 ms each)."""
+    return dict(_installed_versions())
 
 
 def cell_id(family: str, params: dict, data_sha256: str, plan_identity: dict, *,
