@@ -185,8 +185,12 @@ def test_stacked_row_sets_are_cut_back_into_their_sets():
     from runner.families._replay import stacked
 
     sets = [np.full((n, 2), n, dtype=np.float32) for n in (3, 5, 20, 2, 4)]
+    originals = [s.copy() for s in sets]
     blocks, cut = stacked(sets, rows=10)
     assert [len(b) for b in blocks] == [8, 20, 6]  # a set larger than a block stands alone
+    # each set is now its view of its block: the same rows, held once
+    assert all(np.array_equal(s, o) for s, o in zip(sets, originals))
+    assert [np.shares_memory(s, blocks[b]) for s, b in zip(sets, [0, 0, 1, 2, 2])] == [True] * 5
     for predicted in ([b[:, 0] * 2.0 for b in blocks],  # one value per row, or
                       [np.repeat(b[:, :1], 3, axis=1) for b in blocks]):  # one per class
         got = cut(predicted)

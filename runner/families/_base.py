@@ -190,24 +190,29 @@ def fit_each(make_estimator: Callable, cells: list[dict], X_fit, y_fit, X_evals,
             result.fit_seconds = time.perf_counter() - start
             _record_error(result, exc)
         else:
-            replayed = _replayed(read, est, X_fit, y_fit, task) \
-                if replay and needs_whole_model(read) else None
-            _read(read, result, replayed or est, X_fit)
+            _read(read, result, _replayed(read, est, X_fit, y_fit, task) if replay else est,
+                  X_fit)
         out.append(result)
     return out
 
 
-def _replayed(read: Read, pipeline, X_fit, y_fit, task: str):
+def _replayed(read: Read | None, pipeline, X_fit, y_fit, task: str):
     """`pipeline` with its model replaced by a stand-in that answers the rows `read` asks
-    for from stacked predictions of them all (`_replay.py`), or None when the reader's
-    questions cannot be recorded (it then reads the pipeline itself)."""
+    for from stacked predictions of them all (`_replay.py`); the pipeline itself when the
+    reader reads no predictions, or its questions cannot be recorded or answered."""
+    if not needs_whole_model(read):
+        return pipeline
     prep, model = pipeline.named_steps["prep"], pipeline.named_steps["model"]
     asked = questions(read, prep, X_fit, y_fit, model.n_features_in_, task)
     if asked is None:
-        return None
+        return pipeline
     blocks, cut = stacked(asked)
-    stand_in = answered(asked, cut([predict(model, block, task) for block in blocks]),
-                        model.feature_importances_, getattr(model, "classes_", None))
+    try:
+        answers = cut([predict(model, block, task) for block in blocks])
+    except Exception:  # the reader meets the same trouble on the pipeline, and says so
+        return pipeline
+    stand_in = answered(asked, answers, model.feature_importances_,
+                        getattr(model, "classes_", None))
     return Pipeline([("prep", prep), ("model", stand_in)])
 
 

@@ -9,12 +9,13 @@ from sklearn.base import BaseEstimator, ClassifierMixin, RegressorMixin, is_clas
 from sklearn.compose import ColumnTransformer
 from sklearn.impute import SimpleImputer
 from sklearn.pipeline import Pipeline
-from sklearn.preprocessing import FunctionTransformer, OneHotEncoder, OrdinalEncoder, StandardScaler
+from sklearn.preprocessing import (FunctionTransformer, OneHotEncoder, OrdinalEncoder,
+                                   StandardScaler)
 
 from ._base import as_tree_input
 
-__all__ = ["output_sources", "shuffled_by_index", "coefficient_importance", "impurity_importance", "tree_shape",
-           "tree_node_rows"]
+__all__ = ["output_sources", "shuffled_by_index", "coefficient_importance",
+           "impurity_importance", "tree_shape", "tree_node_rows"]
 
 
 def output_sources(prep) -> list[str]:
@@ -64,7 +65,9 @@ def shuffled_by_index(pipeline, X):
     stand_in.model, stand_in.rows, stand_in.blocks = model, rows, blocks
     if hasattr(model, "classes_"):
         stand_in.classes_ = model.classes_
-    index = np.repeat(np.arange(len(X))[:, None], len(names), axis=1)
+    small = len(X) < np.iinfo(np.int32).max
+    index = np.repeat(np.arange(len(X), dtype=np.int32 if small else np.intp)[:, None],
+                      len(names), axis=1)
     return stand_in, index
 
 

@@ -148,23 +148,28 @@ def answered(asked: list, answers: list, importances, classes=None) -> _StandIn:
 
 def stacked(sets: list, rows: int = STACK_ROWS):
     """(blocks, cut): consecutive row sets put together in blocks of at most `rows` rows (a
-    larger set is a block of its own), and `cut`, which turns one prediction per block into
-    one per set. A tree or a forest predicts each row on its own, so a row's prediction is
-    the same number in a block as in its set, and a few calls replace one per set."""
-    groups: list[list] = []
+    larger set is a block of its own), and `cut`, which turns one array per block (its
+    predictions) into one per set. Each entry of `sets` is replaced by its view of its
+    block as the blocks are built, so the rows are held once. A tree or a forest predicts
+    each row on its own, so a row's prediction is the same number in a block as in its
+    set, and a few calls replace one per set."""
+    groups: list[list[int]] = []
     count = 0
-    for rows_set in sets:
+    for i, rows_set in enumerate(sets):
         if not groups or count + len(rows_set) > rows:
             groups.append([])
             count = 0
-        groups[-1].append(rows_set)
+        groups[-1].append(i)
         count += len(rows_set)
-    blocks = [group[0] if len(group) == 1 else np.concatenate(group) for group in groups]
+    offsets = [np.cumsum([len(sets[i]) for i in group])[:-1] for group in groups]
+    blocks = []
+    for group, at in zip(groups, offsets):
+        blocks.append(np.concatenate([sets[i] for i in group]) if len(group) > 1
+                      else sets[group[0]])
+        for i, view in zip(group, np.split(blocks[-1], at)):
+            sets[i] = view
 
-    def cut(predictions: list) -> list:
-        out = []
-        for group, predicted in zip(groups, predictions):
-            out.extend(np.split(predicted, np.cumsum([len(g) for g in group])[:-1]))
-        return out
+    def cut(arrays: list) -> list:
+        return [piece for at, array in zip(offsets, arrays) for piece in np.split(array, at)]
 
     return blocks, cut

@@ -11,8 +11,9 @@ For every chosen cell (by default each model's best and one-SE picks; the spec's
   split, shuffling one original column at a time through the whole pipeline on
   `explain.permutation.rows` test rows drawn for each column (`max_samples`), scored with the
   sweep's first metric (the test rows are transformed once and shuffled there, column by
-  column, which gives the same numbers: `shuffled_by_index`); value = mean loss of score over the shuffles (for rmse: how much the
-  test RMSE rises), spread = sd over the shuffles. `impurity` (trees, forests): the fitted
+  column, which gives the same numbers: `shuffled_by_index`); value = mean loss of score
+  over the shuffles (for rmse: how much the test RMSE rises), spread = sd over the
+  shuffles. `impurity` (trees, forests): the fitted
   model's impurity-based importances (shares of the total squared-error reduction, summing
   to 1). `coefficient` (linear): the standard deviation over the fitting rows of the
   column's contribution to the prediction, in target units; for a numeric column that is

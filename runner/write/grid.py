@@ -4,7 +4,6 @@ complexity rank (0 = simplest) that the one-standard-error rule follows."""
 from __future__ import annotations
 
 import functools
-
 import hashlib
 import itertools
 import json
