@@ -235,8 +235,14 @@ N_FEATURES, N_FOLDS = 10, 6
 
 SWEEP_SCRIPT = """
 import sys
-from runner.write import engine
+import time
+from runner.write import engine, explain
 engine._READINGS_CAP = 0  # the sweep reads nothing: the explain step refits every cell
+store_cell = explain._store_cell
+def store_and_pause(*args, **kwargs):  # the kill lands between two stored cells
+    store_cell(*args, **kwargs)
+    time.sleep(1.0)
+explain._store_cell = store_and_pause
 from runner.write.engine import run_sweep
 from runner.write.spec import load_spec
 from runner.store import Store
