@@ -67,7 +67,7 @@ def test_fold_readings_equal_scikit_learn_refits_exactly(tmp_path, diabetes_csv)
         got = dict(readings)
         for cell_id, params in cells:
             key = (cell_id, (fold.repeat, fold.fold))
-            if model in ("ridge", "paths"):  # a path's fit is not the cell's own model: the explain step refits
+            if model == "ridge":  # a path's fit is not the cell's own model: the explain step refits
                 assert key not in got
                 continue
             est = load_family(family).make_estimator(
@@ -83,9 +83,13 @@ def test_fold_readings_equal_scikit_learn_refits_exactly(tmp_path, diabetes_csv)
                 tree = est.named_steps["model"]
                 assert shape["n_leaves"] == tree.get_n_leaves()
                 assert shape["depth"] == tree.get_depth()
-            checked.add((family, params.get("n_estimators")))
-    # both forest sizes come from one fit of 9 trees, and both read exactly
-    assert {("forest", 4), ("forest", 9), ("linear", None), ("pruned_tree", None)} <= checked
+            checked.add((family, params.get("n_estimators"), model == "paths"))
+    # both forest sizes come from one fit of 9 trees, and both read exactly; so do both
+    # fractions of the `paths` tree, pruned from one unpruned fit
+    assert {("forest", 4, False), ("forest", 9, False), ("linear", None, False),
+            ("pruned_tree", None, False), ("pruned_tree", None, True)} <= checked
+    assert sum(1 for c in checked if c[2]) == 1 and len(
+        [c for c in prep.cells if c.model == "paths"]) == 2
 
 
 def _explain_rows(store, sweep_id):
@@ -106,7 +110,7 @@ def test_a_sweep_explained_from_readings_stores_what_refits_store(tmp_path, diab
     monkeypatch.setattr(engine, "_READINGS_CAP", 0)
     refit = run_sweep(spec, store=store, jobs=1, fresh=True)
     n_cells, n_folds = 9, 6
-    grouped = 4  # ridge's two alphas and the `paths` tree's two fractions
+    grouped = 2  # ridge's two alphas (the `paths` tree's fractions are pruned exactly)
     assert refit.explain_refits == n_cells * (n_folds + 1)
     assert read.explain_refits == grouped * (n_folds + 1)
     assert read.explain_seconds > 0

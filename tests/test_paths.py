@@ -1,16 +1,19 @@
 """Tests for runner.families.paths: whole-grid evaluators against separate refits."""
 
+import pickle
+
 import numpy as np
 import pytest
 from sklearn.datasets import make_friedman1
 from sklearn.ensemble import RandomForestClassifier, RandomForestRegressor
 from sklearn.linear_model import ElasticNet, Lasso, Ridge
-from sklearn.tree import DecisionTreeRegressor
+from sklearn.tree import DecisionTreeClassifier, DecisionTreeRegressor
 
 from runner.families.paths import (
     _steps_for,
     elastic_net_path_coefs,
     forest_prefix_in_batches,
+    pruned_tree,
     pruned_tree_predictions,
     pruning_alphas,
     ridge_path_coefs,
@@ -89,6 +92,31 @@ def test_pruned_tree_matches_refits(name, params, xf, yf):
         ref = DecisionTreeRegressor(**params, ccp_alpha=a).fit(X_tr, y_tr)
         assert np.array_equal(p, ref.predict(X_all)), (name, a)
         assert k == ref.get_n_leaves(), (name, a)
+        # the estimator built from the unpruned tree is the refit itself, byte for byte
+        assert pickle.dumps(pruned_tree(tree, a)) == pickle.dumps(ref), (name, a)
+    assert pickle.dumps(tree) != pickle.dumps(pruned_tree(tree, path[-1]))
+
+
+CLASS_CASES = [
+    {"random_state": 0, "min_samples_leaf": 2},
+    {"random_state": 3, "criterion": "entropy", "class_weight": "balanced",
+     "max_features": 0.6},
+]
+
+
+@pytest.mark.parametrize("params", CLASS_CASES)
+def test_a_pruned_classification_tree_is_the_refit_itself(params):
+    X, y = _friedman(n=900)
+    X = _with_missing(X, 0.05)
+    labels = np.digitize(y, np.quantile(y, [0.3, 0.7]))  # three classes
+    tree = DecisionTreeClassifier(**params).fit(X, labels)
+    path = tree.cost_complexity_pruning_path(X, labels).ccp_alphas
+    for a in _alpha_grid(path, n_pick=12):
+        # reference: scikit-learn's own DecisionTreeClassifier refitted with ccp_alpha
+        ref = DecisionTreeClassifier(**params, ccp_alpha=a).fit(X, labels)
+        got = pruned_tree(tree, a)
+        assert pickle.dumps(got) == pickle.dumps(ref), a
+        assert np.array_equal(got.predict_proba(X), ref.predict_proba(X))
 
 
 @pytest.mark.parametrize("leaf_block", [8192, 97])
@@ -179,6 +207,10 @@ def test_pruned_tree_rejects_bad_input():
     tree = DecisionTreeRegressor(random_state=0).fit(X, y)
     with pytest.raises(ValueError):
         pruned_tree_predictions(tree, X, [-1.0])
+    with pytest.raises(ValueError):
+        pruned_tree(pruned, 0.1)
+    with pytest.raises(ValueError):
+        pruned_tree(tree, float("nan"))
 
 
 FOREST_CASES = [

@@ -44,6 +44,7 @@ class CellFit:
     how: str = PLAIN  # "plain", or the path evaluator that scored it ("tree_path", ...)
     reading: dict | None = None  # what `read` took from the fitted model (see fit_each)
     model: object = None  # a group hook's exact model of this cell, until it is read
+    make_model: Callable[[], object] | None = None  # builds that model when it is read
 
 
 Read = Callable[[object, object], dict]
@@ -259,7 +260,8 @@ Evaluate = Callable[..., list[CellFit]]
 """(group params, Xt_fit, y_fit, Xt_evals, seed=..., task=...) -> one CellFit per cell,
 predictions set (values, or class probabilities for classification); `CellFit.model` set to
 the cell's own fitted model where the group's fit holds it exactly (a forest's first trees),
-so it can be read like a plain fit."""
+or `CellFit.make_model` to build it on demand (a pruned tree from the unpruned one), so it
+can be read like a plain fit; built only to be read, one at a time."""
 
 
 def fit_grouped(make_estimator: Callable, preprocessor: Callable, evaluate: Evaluate,
@@ -281,8 +283,9 @@ def fit_grouped(make_estimator: Callable, preprocessor: Callable, evaluate: Eval
     of the preprocessing, its one fit and the derivation of all its cells' predictions. So
     summing `fit_seconds` over cells gives the compute time spent, whichever way they ran.
     `n_warnings` of a grouped cell counts the warnings its group's one fit raised.
-    With `read`, every plain fit is read, and a grouped cell where the hook hands back its
-    exact model; other grouped cells have no reading (the explain step refits them)."""
+    With `read`, every plain fit is read, and a grouped cell where the hook hands back or
+    builds its exact model (a forest's first trees, a pruned tree); other grouped cells (a
+    linear path's) have no reading (the explain step refits them)."""
     if not paths:
         return fit_each(make_estimator, cells, X_fit, y_fit, X_evals, seed=seed,
                         numeric=numeric, categorical=categorical, leaves=leaves, task=task,
@@ -318,7 +321,9 @@ def fit_grouped(make_estimator: Callable, preprocessor: Callable, evaluate: Eval
                                    [*(Xt_evals or []), *blocks], seed, task)
             for i, fit in zip(members, fits):
                 fit.how = how(group[0])
-                model = fit.model
+                model = fit.model if fit.model is not None or read is None else \
+                    _made(fit.make_model)
+                fit.make_model = None
                 if asked is not None and model is not None:
                     model = answered(asked, cut(fit.predictions[len(Xt_evals):]),
                                      model.feature_importances_,
@@ -330,6 +335,17 @@ def fit_grouped(make_estimator: Callable, preprocessor: Callable, evaluate: Eval
                 fit.model = None  # the fitted model leaves no task
                 out[i] = fit
     return out  # type: ignore[return-value]
+
+
+def _made(make_model: Callable[[], object] | None):
+    """The model `make_model` builds, or None when there is none or it cannot be built (the
+    explain step then refits the cell and meets the trouble itself)."""
+    if make_model is None:
+        return None
+    try:
+        return make_model()
+    except Exception:
+        return None
 
 
 def _evaluate_group(evaluate: Evaluate, group: list[dict], prep_error, prep_seconds: float,

@@ -15,6 +15,7 @@ grid value, while fitting (or decomposing) only once:
 Only numpy and scikit-learn are imported; the functions are pure.
 """
 
+import copy
 import warnings
 
 import numpy as np
@@ -268,6 +269,37 @@ def pruned_tree_predictions(tree, X, alphas):
         if alphas.size else np.empty((0, row_leaf.size, *value.shape[1:]))
     removed = np.concatenate([[0], np.cumsum(drops)])
     return preds.astype(np.float64, copy=False), leaves.size - removed[steps]
+
+
+def pruned_tree(tree, alpha: float):
+    """The estimator a refit with ``ccp_alpha=alpha`` gives, built from the unpruned
+    ``tree``: the same growth (same seed, same rows) with the replayed sequence's subtrees
+    made leaves, copied node by node in the library's own order
+    (``_build_pruned_tree_py``), so its nodes, values, importances and predictions are
+    those of the refit. None where this scikit-learn has no such builder."""
+    _check_unpruned(tree)
+    if not float(alpha) >= 0.0:
+        raise ValueError("ccp_alpha must be non-negative")
+    try:
+        from sklearn.tree._tree import Tree, _build_pruned_tree_py
+    except ImportError:  # a private builder: without it the caller refits
+        return None
+    out = copy.copy(tree)
+    out.__dict__.pop("_foldwise_replay", None)
+    out.ccp_alpha = alpha  # as given, as a refit keeps it
+    if float(alpha) == 0.0:  # the library does not prune then
+        return out
+    t = tree.tree_
+    seq, pruned, _, anc = _replay(tree)
+    steps = _steps_for(seq, np.array([float(alpha)]))
+    _, owners = _leaf_owners(t, anc, pruned, steps)
+    kept_leaves = np.zeros(t.node_count, dtype=np.uint8)
+    kept_leaves[owners[:, 0]] = 1
+    n_classes = np.atleast_1d(tree.n_classes_) if hasattr(tree, "classes_") else \
+        np.array([1] * tree.n_outputs_, dtype=np.intp)
+    out.tree_ = Tree(tree.n_features_in_, n_classes, tree.n_outputs_)
+    _build_pruned_tree_py(out.tree_, t, kept_leaves)
+    return out
 
 
 # --------------------------------------------------------------------------

@@ -13,6 +13,8 @@ pruned tree, bit for bit the tree a refit with that ccp_alpha grows (`paths.py`)
 
 from __future__ import annotations
 
+import functools
+
 import numpy as np
 from sklearn.pipeline import Pipeline
 from sklearn.tree import DecisionTreeClassifier, DecisionTreeRegressor
@@ -21,7 +23,7 @@ from ._readers import impurity_importance as own_importance
 from ._readers import tree_node_rows, tree_shape
 from ._base import (CellFit, fit_grouped, prediction_columns, tree_preprocessor,
                     work_units)
-from .paths import pruned_tree_predictions, pruning_alphas
+from .paths import pruned_tree, pruned_tree_predictions, pruning_alphas
 
 __all__ = ["make_estimator", "fit_cells", "fit_units", "own_importance", "prediction_columns",
            "tree_shape", "tree_node_rows", "resolve_alpha", "pruning_path_alphas", "model_size",
@@ -87,7 +89,8 @@ def _how(params: dict) -> str:
 
 def _pruning_path(group: list[dict], Xt_fit, y_fit, Xt_evals, *, seed: int,
                   task: str = "regression") -> list[CellFit]:
-    """Every cell of the group from one unpruned tree (same other params, same seed)."""
+    """Every cell of the group from one unpruned tree (same other params, same seed); each
+    cell's own pruned tree is built from it only if it is read (`pruned_tree`)."""
     tree = _tree(group[0], seed=seed, ccp_alpha=0.0, task=task).fit(Xt_fit, y_fit)
     alphas = [resolve_alpha(params, y_fit, task) for params in group]
     fits = [CellFit() for _ in group]
@@ -98,8 +101,9 @@ def _pruning_path(group: list[dict], Xt_fit, y_fit, Xt_evals, *, seed: int,
             fit.predictions.append(p)
     if leaves is None:  # no evaluation set: leaf counts alone
         _, leaves = pruned_tree_predictions(tree, Xt_fit[:1], alphas)
-    for fit, k in zip(fits, leaves):
+    for fit, k, alpha in zip(fits, leaves, alphas):
         fit.n_leaves = float(k)
+        fit.make_model = functools.partial(pruned_tree, tree, alpha)
     return fits
 
 
