@@ -36,7 +36,7 @@ def _reader(task, X_test, y_test, metric):
 
     def read(est, X_train):
         return read_refit("forest", est, X_train, X_test=X_test, y_test=y_test,
-                          test_rows=np.arange(len(y_test)), metric=metric, repeats=3,
+                          metric=metric, repeats=3,
                           perm_seed=11, perm_rows=70, task=task, classes=classes)
     return read
 

@@ -271,12 +271,33 @@ def pruned_tree_predictions(tree, X, alphas):
     return preds.astype(np.float64, copy=False), leaves.size - removed[steps]
 
 
-def pruned_tree(tree, alpha: float):
+def pruned_tree_leaves(tree, alphas) -> list[np.ndarray]:
+    """For each ``ccp_alpha``, the node ids (of the unpruned ``tree``) that are the leaves
+    of the tree a refit with it grows: what `pruned_tree` needs, without the replay."""
+    _check_unpruned(tree)
+    alphas = np.asarray(alphas, dtype=np.float64).reshape(-1)
+    if np.any(~(alphas >= 0.0)):
+        raise ValueError("ccp_alpha values must be non-negative")
+    seq, pruned, _, anc = _replay(tree)
+    steps = _steps_for(seq, alphas)
+    distinct, column = np.unique(steps, return_inverse=True)
+    _, owners = _leaf_owners(tree.tree_, anc, pruned, distinct)
+    kept = [np.unique(owners[:, c]).astype(np.int32) for c in range(distinct.size)]
+    return [kept[c] for c in column.tolist()]
+
+
+def forget_replay(tree) -> None:
+    """Let go of the replay kept on ``tree`` (its ancestor matrix is the largest part)."""
+    tree.__dict__.pop("_foldwise_replay", None)
+
+
+def pruned_tree(tree, alpha: float, leaves: np.ndarray | None = None):
     """The estimator a refit with ``ccp_alpha=alpha`` gives, built from the unpruned
     ``tree``: the same growth (same seed, same rows) with the replayed sequence's subtrees
     made leaves, copied node by node in the library's own order
     (``_build_pruned_tree_py``), so its nodes, values, importances and predictions are
-    those of the refit. None where this scikit-learn has no such builder."""
+    those of the refit. ``leaves``: the pruned tree's leaves if known (`pruned_tree_leaves`).
+    None where this scikit-learn has no such builder."""
     _check_unpruned(tree)
     if not float(alpha) >= 0.0:
         raise ValueError("ccp_alpha must be non-negative")
@@ -285,16 +306,15 @@ def pruned_tree(tree, alpha: float):
     except ImportError:  # a private builder: without it the caller refits
         return None
     out = copy.copy(tree)
-    out.__dict__.pop("_foldwise_replay", None)
+    forget_replay(out)
     out.ccp_alpha = alpha  # as given, as a refit keeps it
     if float(alpha) == 0.0:  # the library does not prune then
         return out
     t = tree.tree_
-    seq, pruned, _, anc = _replay(tree)
-    steps = _steps_for(seq, np.array([float(alpha)]))
-    _, owners = _leaf_owners(t, anc, pruned, steps)
+    if leaves is None:
+        (leaves,) = pruned_tree_leaves(tree, [float(alpha)])
     kept_leaves = np.zeros(t.node_count, dtype=np.uint8)
-    kept_leaves[owners[:, 0]] = 1
+    kept_leaves[leaves] = 1
     n_classes = np.atleast_1d(tree.n_classes_) if hasattr(tree, "classes_") else \
         np.array([1] * tree.n_outputs_, dtype=np.intp)
     out.tree_ = Tree(tree.n_features_in_, n_classes, tree.n_outputs_)

@@ -23,7 +23,8 @@ from ._readers import impurity_importance as own_importance
 from ._readers import tree_node_rows, tree_shape
 from ._base import (CellFit, fit_grouped, prediction_columns, tree_preprocessor,
                     work_units)
-from .paths import pruned_tree, pruned_tree_predictions, pruning_alphas
+from .paths import (forget_replay, pruned_tree, pruned_tree_leaves, pruned_tree_predictions,
+                    pruning_alphas)
 
 __all__ = ["make_estimator", "fit_cells", "fit_units", "own_importance", "prediction_columns",
            "tree_shape", "tree_node_rows", "resolve_alpha", "pruning_path_alphas", "model_size",
@@ -101,9 +102,11 @@ def _pruning_path(group: list[dict], Xt_fit, y_fit, Xt_evals, *, seed: int,
             fit.predictions.append(p)
     if leaves is None:  # no evaluation set: leaf counts alone
         _, leaves = pruned_tree_predictions(tree, Xt_fit[:1], alphas)
-    for fit, k, alpha in zip(fits, leaves, alphas):
+    kept = pruned_tree_leaves(tree, alphas)
+    forget_replay(tree)  # a cell's tree is built from its leaves alone
+    for fit, k, alpha, cell_leaves in zip(fits, leaves, alphas, kept):
         fit.n_leaves = float(k)
-        fit.make_model = functools.partial(pruned_tree, tree, alpha)
+        fit.make_model = functools.partial(pruned_tree, tree, alpha, cell_leaves)
     return fits
 
 

@@ -353,8 +353,7 @@ def _shared_data(prep: Prepared, *, paths: bool) -> dict:
                             categorical=frame.categorical, paths=paths, task=frame.task,
                             classes=frame.classes),
                 explain_fold={"kind": "fold"} if folds else None,
-                explain_refit=dict(kind="refit", test_rows=prep.plan.test_rows,
-                                   metric=spec.metrics[0], repeats=perm.repeats,
+                explain_refit=dict(kind="refit", metric=spec.metrics[0], repeats=perm.repeats,
                                    perm_seed=perm.seed, perm_rows=perm.rows)
                 if refit else None)
 

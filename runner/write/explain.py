@@ -120,7 +120,7 @@ def fold_reader(family: str):
     return reader
 
 
-def read_refit(family: str, est, X_train, *, X_test, y_test, test_rows, metric: str,
+def read_refit(family: str, est, X_train, *, X_test, y_test, metric: str,
                repeats: int, perm_seed: int, perm_rows: int, task: str = "regression",
                classes=()) -> dict[str, list]:
     """One cell fitted on all training rows: permutation and own importances, the test
@@ -135,7 +135,7 @@ def read_refit(family: str, est, X_train, *, X_test, y_test, test_rows, metric: 
            for f, (m, sd) in perm.items()]
     imp += [{"feature": f, "method": fam.importance, "value": v} for f, v in own.items()]
     return {"importances": imp,
-            "test_predictions": _prediction_frame(est, X_test, y_test, test_rows, task),
+            "test_predictions": _prediction_frame(est, X_test, task),
             "tree_nodes": fam.estimators.tree_node_rows(est) if fam.one_tree else [],
             "coefficients": fam.estimators.coefficient_rows(est) if fam.coefficients else [],
             "explained": [{"n_terms": size(est) if size is not None else None}]}
@@ -186,7 +186,7 @@ def _explain_call(data: dict, task) -> tuple[tuple, dict]:
     family, cell_id, params, f = task
     if f is None:
         return (("refit", family, cell_id, params, data["X_train"], data["y_train"],
-                 data["X_test"], data["y_test"], data["test_rows"]),
+                 data["X_test"], data["y_test"]),
                 dict(**data["refit"], **data["common"]))
     return (("fold", family, cell_id, params, data["X_train"].iloc[f.fit],
              data["y_train"][f.fit]),
@@ -209,7 +209,7 @@ def _fold_task(family, cell_id, params, X_fit, y_fit, *, seed, repeat, fold, num
     return cell_id, keyed(rows, cell_id=cell_id, repeat=repeat, fold=fold), None
 
 
-def _refit_task(family, cell_id, params, X_train, y_train, X_test, y_test, test_rows, *,
+def _refit_task(family, cell_id, params, X_train, y_train, X_test, y_test, *,
                 seed, metric, repeats, perm_seed, perm_rows, numeric, categorical,
                 task="regression", classes=()):
     """One chosen cell refitted on all training rows: importances, nodes, test predictions."""
@@ -217,7 +217,7 @@ def _refit_task(family, cell_id, params, X_train, y_train, X_test, y_test, test_
         est = _fit(family, params, X_train, y_train, seed=seed, numeric=numeric,
                    categorical=categorical, task=task)
         rows = read_refit(family, est, X_train, X_test=X_test, y_test=y_test,
-                          test_rows=test_rows, metric=metric, repeats=repeats,
+                          metric=metric, repeats=repeats,
                           perm_seed=perm_seed, perm_rows=perm_rows, task=task,
                           classes=classes)
     except Exception as exc:
@@ -225,21 +225,30 @@ def _refit_task(family, cell_id, params, X_train, y_train, X_test, y_test, test_
     return cell_id, keyed(rows, cell_id=cell_id), None
 
 
-def _prediction_frame(est, X_test, y_test, test_rows, task: str) -> pd.DataFrame:
-    """The refit's test predictions, one row per test row, held by column (a row per Python
-    dict would take some 70 MB in the parent per cell of 200 000 test rows): observed and
-    predicted values; for classes the observed and most probable class and the probability
-    of every class (classes_ order)."""
-    rows = np.asarray(test_rows, dtype=np.int64)
+def _prediction_frame(est, X_test, task: str) -> pd.DataFrame:
+    """The refit's predictions of the test rows, in their order, held by column (a row per
+    Python dict would take some 70 MB per cell of 200 000 test rows): the predicted value;
+    for classes the most probable class and the probability of every class (classes_
+    order). The rows and observed values, the same for every cell, are added when the
+    cell is stored (`with_observed`)."""
     if task != "classification":
-        return pd.DataFrame({"row": rows, "observed": np.asarray(y_test, dtype=np.float64),
-                             "predicted": np.asarray(est.predict(X_test), dtype=np.float64)})
+        return pd.DataFrame({"predicted": np.asarray(est.predict(X_test), dtype=np.float64)})
     proba = est.predict_proba(X_test)
-    classes = est.classes_
-    best = classes[np.argmax(proba, axis=1)]
-    return pd.DataFrame({"row": rows, "observed_class": [str(o) for o in y_test],
-                         "predicted_class": [str(b) for b in best],
+    best = est.classes_[np.argmax(proba, axis=1)]
+    return pd.DataFrame({"predicted_class": [str(b) for b in best],
                          "probabilities": np.asarray(proba, dtype=np.float64).tolist()})
+
+
+def with_observed(frame: pd.DataFrame, test_rows, y_test, task: str) -> pd.DataFrame:
+    """One cell's test predictions as stored: each test row's number and observed value
+    (or class) first, then the predictions."""
+    rows = np.asarray(test_rows, dtype=np.int64)
+    observed = {"observed": np.asarray(y_test, dtype=np.float64)} if task != "classification" \
+        else {"observed_class": [str(o) for o in y_test]}
+    if len(frame) != len(rows):
+        raise ValueError(f"{len(frame)} test predictions for {len(rows)} test rows")
+    return pd.concat([pd.DataFrame({"row": rows, **observed}),
+                      frame.reset_index(drop=True)], axis=1)
 
 
 # -- the step ------------------------------------------------------------------------------
@@ -325,12 +334,17 @@ def explain_sweep(spec, store: Store, sweep_id: str, *, prepared=None, jobs: int
         prepared = prepare(spec)
     frame, plan = prepared.frame, prepared.plan
     perm = spec.explain.permutation
-    data = dict(**prepared.split, test_rows=plan.test_rows,
+    data = dict(**prepared.split,
                 refit=dict(seed=refit_seed(plan.seed), metric=spec.metrics[0],
                            repeats=perm.repeats, perm_seed=perm.seed, perm_rows=perm.rows),
                 common=dict(numeric=frame.numeric, categorical=frame.categorical,
                             task=frame.task, classes=list(frame.classes)))
     readings = readings or {}
+
+    def observed(predictions: pd.DataFrame) -> pd.DataFrame:
+        return with_observed(predictions, plan.test_rows, prepared.split["y_test"],
+                             frame.task)
+
     tasks, pending = [], {}
     per_cell: dict[str, dict[str, list]] = {}
     ready = []
@@ -349,7 +363,8 @@ def explain_sweep(spec, store: Store, sweep_id: str, *, prepared=None, jobs: int
         else:
             ready.append(c.cell_id)
     for cell_id in ready:  # read whole from the sweep's own fits: nothing to refit
-        _store_cell(store, sweep_id, cell_id, per_cell.pop(cell_id), settings, result)
+        _store_cell(store, sweep_id, cell_id, per_cell.pop(cell_id), settings, result,
+                    observed)
     # the costliest cells first, so workers finish together; a cell's tasks side by side,
     # so cells finish (and are stored) one after another rather than all at the end
     tasks = [t for _, cell in sorted(tasks, key=lambda pair: pair[0]) for t in cell]
@@ -379,14 +394,16 @@ def explain_sweep(spec, store: Store, sweep_id: str, *, prepared=None, jobs: int
         if not pending[cell_id]:  # the cell's refit and fold refits are all back
             tables = per_cell.pop(cell_id, {})
             if cell_id not in failed:  # a cell is stored whole or not at all
-                _store_cell(store, sweep_id, cell_id, tables, settings, result)
+                _store_cell(store, sweep_id, cell_id, tables, settings, result, observed)
     return result
 
 
 def _store_cell(store: Store, sweep_id: str, cell_id: str, tables: dict[str, list],
-                settings: str, result: ExplainResult) -> None:
+                settings: str, result: ExplainResult,
+                observed: Callable[[pd.DataFrame], pd.DataFrame]) -> None:
     """Write one explained cell's rows and its `explained` mark in one transaction, so a
-    sweep stopped at any moment keeps every cell it finished, each of them whole."""
+    sweep stopped at any moment keeps every cell it finished, each of them whole;
+    `observed` puts the test rows and observed values beside its test predictions."""
     mark = {"sweep_id": sweep_id, "cell_id": cell_id, "settings": settings,
             "reused_from": None, "n_terms": None}
     for row in tables.pop("explained", []):  # the refit's size
@@ -394,6 +411,8 @@ def _store_cell(store: Store, sweep_id: str, cell_id: str, tables: dict[str, lis
     dfs = {t: table_frame(items).assign(sweep_id=sweep_id) for t, items in tables.items()
            if items}
     dfs["explained"] = pd.DataFrame([mark]).astype({"n_terms": "Int64"})
+    if "test_predictions" in dfs:
+        dfs["test_predictions"] = observed(dfs["test_predictions"])
     if "importances" in dfs:
         dfs["importances"] = _spreads(dfs["importances"], dfs.get("fold_importances",
                                                                   pd.DataFrame()))
