@@ -102,12 +102,25 @@ def _pruning_path(group: list[dict], Xt_fit, y_fit, Xt_evals, *, seed: int,
             fit.predictions.append(p)
     if leaves is None:  # no evaluation set: leaf counts alone
         _, leaves = pruned_tree_predictions(tree, Xt_fit[:1], alphas)
-    kept = pruned_tree_leaves(tree, alphas)
-    forget_replay(tree)  # a cell's tree is built from its leaves alone
-    for fit, k, alpha, cell_leaves in zip(fits, leaves, alphas, kept):
+    trees = _PrunedTrees(tree, alphas)
+    for i, (fit, k) in enumerate(zip(fits, leaves)):
         fit.n_leaves = float(k)
-        fit.make_model = functools.partial(pruned_tree, tree, alpha, cell_leaves)
+        fit.make_model = functools.partial(trees.build, i)
     return fits
+
+
+class _PrunedTrees:
+    """The cells' own pruned trees of one path group, built only if read: the first asks
+    every cell's leaves from the replay at once, which is then let go."""
+
+    def __init__(self, tree, alphas: list[float]):
+        self.tree, self.alphas, self.leaves = tree, alphas, None
+
+    def build(self, i: int):
+        if self.leaves is None:
+            self.leaves = pruned_tree_leaves(self.tree, self.alphas)
+            forget_replay(self.tree)  # a cell's tree is built from its leaves alone
+        return pruned_tree(self.tree, self.alphas[i], self.leaves[i])
 
 
 def fit_cells(cells, X_fit, y_fit, X_evals, *, seed, numeric, categorical, paths=True,
