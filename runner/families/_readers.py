@@ -98,12 +98,17 @@ class _ByIndex(BaseEstimator):
         return True
 
     def _rows(self, index) -> np.ndarray:
-        index = np.asarray(index)
-        out = np.empty((len(index), self.rows.shape[1]), dtype=self.rows.dtype)
-        for j, columns in enumerate(self.blocks):
-            if len(columns):
-                out[:, columns] = self.rows[np.ix_(index[:, j], columns)]
-        return out
+        """The model's input for these index rows: output column c of the transformed rows
+        taken from the row its source column's index names, all columns in one gather."""
+        if getattr(self, "_source", None) is None:
+            source = np.empty(self.rows.shape[1], dtype=np.intp)
+            for j, columns in enumerate(self.blocks):
+                source[columns] = j
+            self._source = source
+            self._columns = np.arange(self.rows.shape[1])
+        # row-major as the model's own input: a linear model's sums depend on the layout
+        return np.ascontiguousarray(self.rows[np.asarray(index)[:, self._source],
+                                              self._columns])
 
     def predict(self, index):
         return self.model.predict(self._rows(index))
