@@ -433,3 +433,15 @@ def test_a_server_store_of_schema_version_2_is_upgraded(pg, tmp_path, diabetes_c
                    name).strip() == str(SCHEMA_VERSION)
     assert pg.psql(f"select scheme from sweeps where sweep_id = '{again.sweep_id}'",
                    name).strip() == "rows"
+
+
+def test_a_metric_added_by_two_sweeps_at_once_is_run_again_other_duplicates_are_not():
+    # The server's words when two sweeps starting together both add a metric's direction
+    # (seen once in CI): the transaction is run again, and its `insert or ignore` then
+    # finds the other's row. A duplicate sweep or cell is an error, not a race.
+    from runner.store import _is_conflict
+
+    race = ('Failed to copy data: ERROR:  duplicate key value violates unique constraint '
+            '"metrics_pkey"')
+    assert _is_conflict(RuntimeError(race))
+    assert not _is_conflict(RuntimeError(race.replace("metrics_pkey", "sweeps_pkey")))

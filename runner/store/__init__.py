@@ -30,7 +30,10 @@ __all__ = ["Store", "SCHEMA_VERSION", "DEFAULT_STORE", "TABLES", "VIEW_SQL", "No
 
 _ONE_THREAD = {"threads": 1}
 """The settings of a connection to a file that writes a few rows (see `Store._connect`)."""
-_CONFLICT_WORDS = ("could not serialize", "deadlock detected", "concurrent update")
+_CONFLICT_WORDS = ("could not serialize", "deadlock detected", "concurrent update",
+                   # two sweeps starting together both add a metric's direction; the
+                   # second's `insert or ignore` sees the first's row once it runs again
+                   'violates unique constraint "metrics_pkey"')
 
 
 def _is_conflict(exc: Exception) -> bool:
