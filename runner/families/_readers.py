@@ -62,7 +62,10 @@ def shuffled_by_index(pipeline, X):
         return None
     kind = _ByIndexClassifier if is_classifier(model) else _ByIndexRegressor
     stand_in = kind()
-    stand_in.model, stand_in.rows, stand_in.blocks = model, rows, blocks
+    stand_in.model, stand_in.rows = model, rows
+    stand_in.source = np.empty(rows.shape[1], dtype=np.intp)  # output column -> source
+    for j, columns in enumerate(blocks):
+        stand_in.source[columns] = j
     if hasattr(model, "classes_"):
         stand_in.classes_ = model.classes_
     small = len(X) < np.iinfo(np.int32).max
@@ -100,15 +103,9 @@ class _ByIndex(BaseEstimator):
     def _rows(self, index) -> np.ndarray:
         """The model's input for these index rows: output column c of the transformed rows
         taken from the row its source column's index names, all columns in one gather."""
-        if getattr(self, "_source", None) is None:
-            source = np.empty(self.rows.shape[1], dtype=np.intp)
-            for j, columns in enumerate(self.blocks):
-                source[columns] = j
-            self._source = source
-            self._columns = np.arange(self.rows.shape[1])
         # row-major as the model's own input: a linear model's sums depend on the layout
-        return np.ascontiguousarray(self.rows[np.asarray(index)[:, self._source],
-                                              self._columns])
+        return np.ascontiguousarray(self.rows[np.asarray(index)[:, self.source],
+                                              np.arange(self.rows.shape[1])])
 
     def predict(self, index):
         return self.model.predict(self._rows(index))

@@ -252,15 +252,8 @@ def _leaf_owners(t, anc, pruned, steps):
 def pruned_tree_predictions(tree, X, alphas):
     """Predictions (values, or class probabilities of a classification tree) and leaf counts
     of refits with each ``ccp_alpha``, from one unpruned tree."""
-    _check_unpruned(tree)
-    alphas = np.asarray(alphas, dtype=np.float64).reshape(-1)
-    if np.any(~(alphas >= 0.0)):
-        raise ValueError("ccp_alpha values must be non-negative")
+    alphas, steps, drops, column, leaves, owners = _owners_for(tree, alphas)
     t = tree.tree_
-    seq, pruned, drops, anc = _replay(tree)
-    steps = _steps_for(seq, alphas)
-    distinct, column = np.unique(steps, return_inverse=True)
-    leaves, owners = _leaf_owners(t, anc, pruned, distinct)
     slot = np.empty(t.node_count, dtype=np.intp)
     slot[leaves] = np.arange(leaves.size)
     row_leaf = slot[tree.apply(X)]  # the estimator's own routing (dtype, NaN handling)
@@ -274,16 +267,24 @@ def pruned_tree_predictions(tree, X, alphas):
 def pruned_tree_leaves(tree, alphas) -> list[np.ndarray]:
     """For each ``ccp_alpha``, the node ids (of the unpruned ``tree``) that are the leaves
     of the tree a refit with it grows: what `pruned_tree` needs, without the replay."""
+    _, _, _, column, _, owners = _owners_for(tree, alphas)
+    kept = [np.unique(owners[:, c]).astype(np.int32) for c in range(owners.shape[1])]
+    return [kept[c] for c in column.tolist()]
+
+
+def _owners_for(tree, alphas):
+    """(alphas as an array, each alpha's pruning steps, leaves each pruning removes, each
+    alpha's column in `owners`, the unpruned leaves, and `_leaf_owners` for the distinct
+    step counts) of an unpruned tree, after checking the tree and the alphas."""
     _check_unpruned(tree)
     alphas = np.asarray(alphas, dtype=np.float64).reshape(-1)
     if np.any(~(alphas >= 0.0)):
         raise ValueError("ccp_alpha values must be non-negative")
-    seq, pruned, _, anc = _replay(tree)
+    seq, pruned, drops, anc = _replay(tree)
     steps = _steps_for(seq, alphas)
     distinct, column = np.unique(steps, return_inverse=True)
-    _, owners = _leaf_owners(tree.tree_, anc, pruned, distinct)
-    kept = [np.unique(owners[:, c]).astype(np.int32) for c in range(distinct.size)]
-    return [kept[c] for c in column.tolist()]
+    leaves, owners = _leaf_owners(tree.tree_, anc, pruned, distinct)
+    return alphas, steps, drops, column, leaves, owners
 
 
 def forget_replay(tree) -> None:
