@@ -69,7 +69,8 @@ def _width(out) -> int:
 
 def emit(df: pd.DataFrame, fmt: str, *, view: View | None = None, title: str | None = None,
          file=None) -> None:
-    """Print `df` as csv/json exactly, or `view` (default: df itself) as a table."""
+    """Print `df` as csv/json exactly, or `view` (default: df itself) as a table; with a
+    view, the table format never reads `df` (it may be None)."""
     out = file or sys.stdout
     if fmt == "csv":
         df.to_csv(out, index=False)
@@ -77,16 +78,19 @@ def emit(df: pd.DataFrame, fmt: str, *, view: View | None = None, title: str | N
     if fmt == "json":
         out.write(json.dumps(_jsonable(df), indent=2) + "\n")
         return
-    import pandas as pd
     from rich.console import Console
     from rich.table import Table
     from rich.text import Text
 
     from .read.views import number
 
-    shown = view.table if view is not None else df
-    right = set(view.numeric) if view is not None else {
-        c for c in shown.columns if pd.api.types.is_numeric_dtype(shown[c])}
+    if view is not None:
+        shown, right = view.table, set(view.numeric)
+    else:
+        import pandas as pd
+
+        shown = df
+        right = {c for c in shown.columns if pd.api.types.is_numeric_dtype(shown[c])}
     table = Table(title=view.title if view is not None else title, show_lines=False,
                   header_style="bold")
     for col in shown.columns:

@@ -7,6 +7,7 @@ from __future__ import annotations
 import itertools
 import json
 import math
+import os
 import shutil
 import socket
 
@@ -125,6 +126,30 @@ def test_sweeps_filters_by_label_name_status_and_age(store, base):
     out = invoke("sweeps", "--label", "purpose=tuned", "--format", "json", "--store", store.path)
     (row,) = json.loads(out.output)
     assert row["sweep_id"] == second and row["labels"] == {"purpose": "tuned"}
+
+
+def test_listing_sweeps_leaves_pandas_unloaded_and_shows_every_sweep(base, tmp_path):
+    """`foldwise sweeps` answers from plain rows: a fresh process lists both sweeps with their
+    labels and note, and never imports pandas (a third of its start-up otherwise)."""
+    import subprocess
+    import sys
+
+    _, store, first, second = base
+    code = ("import sys; from runner.cli import main\n"
+            "try:\n    main(['sweeps', '--store', sys.argv[1]])\n"
+            "except SystemExit as done:\n    assert not done.code, done.code\n"
+            "print('pandas loaded:', 'pandas' in sys.modules)")
+    out = subprocess.run([sys.executable, "-c", code, str(store.path)], capture_output=True,
+                         text=True, env={**os.environ, "COLUMNS": "250"}, check=True).stdout
+    assert out.rstrip().endswith("pandas loaded: False")
+    lines = [line for line in out.splitlines() if first in line or second in line]
+    assert [second in lines[0], first in lines[1]] == [True, True]
+    assert "purpose=tuned" in lines[0] and "first grid" in lines[1]
+    assert "data=2026-11, purpose=baseline" in lines[1]
+    listed = sweeps(store)
+    assert listed.table["sweep_id"].tolist() == [second, first]
+    assert [r["labels"] for r in listed.records()] == [
+        '{"purpose": "tuned"}', '{"data": "2026-11", "purpose": "baseline"}']
 
 
 def test_an_unchanged_rerun_with_if_changed_records_nothing(store, base):

@@ -66,8 +66,9 @@ class _ProgressBar:
 
 def _show(result, view, fmt) -> None:
     """Print a result: its view as a table, or its exact table as CSV or JSON; remarks go
-    to stderr, so that CSV and JSON stay clean."""
-    emit(result.table, fmt, view=view)
+    to stderr, so that CSV and JSON stay clean. A table shows only the view, so the exact
+    table (which may be built on demand) is not asked for."""
+    emit(None if fmt == "table" else result.table, fmt, view=view)
     for note in (view.notes if fmt == "table" else
                  view.preface + view.caveats + view.notes):
         click.echo(note, err=True)

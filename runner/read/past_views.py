@@ -5,14 +5,13 @@ The rules of numbers and labels are those of `views.py`."""
 from __future__ import annotations
 
 import json
-
-import pandas as pd
+from datetime import datetime
 
 from .compare import APPROXIMATE_NOTE
 from ..families import get_family
 from ..metrics import metric_label
 from .results import ModelHistory, SweepDiff, SweepList
-from .views import (CLEAR_P, TIME_MEANING, View, cell_text, count_text, cv_head, decimals_for,
+from .views import (CLEAR_P, TIME_MEANING, TextTable, View, cell_text, count_text, cv_head, decimals_for,
                     fixed, is_missing, mean_se, number, p_text, params_text, rule_label,
                     test_head)
 
@@ -42,30 +41,40 @@ def labels_text(labels) -> str:
 
 
 def _when(value) -> str:
-    return "" if is_missing(value) or value is pd.NaT else f"{pd.Timestamp(value):%Y-%m-%d %H:%M}"
+    """A stored time to the minute; '' when there is none (None, NaN or NaT)."""
+    if is_missing(value) or value != value:
+        return ""
+    when = value if hasattr(value, "strftime") else datetime.fromisoformat(str(value))
+    return f"{when:%Y-%m-%d %H:%M}"
+
+
+SWEEP_COLUMNS = ("sweep", "spec", "status", "started", "seconds", "rows (train / test)",
+                 "folds", "cells", "fold rows", "data", "labels", "note")
+
+
+def _or_dash(value) -> str:
+    return "—" if is_missing(value) else str(value)
 
 
 def sweeps_view(result: SweepList, title: str | None = None) -> View:
     """One line per sweep: id, spec name, status, start, rows, folds, size, labels, note."""
-    df = result.table
-    shown = pd.DataFrame({
-        "sweep": df["sweep_id"], "spec": df["name"].map(plain_text), "status": df["status"],
-        "started": df["started_at"].map(_when), "seconds": df["seconds"].map(number),
-        "rows (train / test)": [f"{a} / {b}" for a, b in zip(df["n_train"], df["n_test"])],
-        "folds": [f"{k} × {r}" for k, r in zip(df["k"], df["repeats"])],
-        "cells": df["cells"].map(number), "fold rows": df["fold_rows"].map(number),
-        "data": df["data"], "labels": df["labels"].map(labels_text),
-        "note": df["note"].map(lambda n: plain_text(n, 60))})
+    rows = result.records()
+    shown = TextTable(SWEEP_COLUMNS, tuple((
+        r["sweep_id"], plain_text(r["name"]), r["status"], _when(r["started_at"]),
+        number(r["seconds"]), f"{_or_dash(r['n_train'])} / {_or_dash(r['n_test'])}",
+        f"{r['k']} × {r['repeats']}", number(r["cells"]), number(r["fold_rows"]),
+        r["data"] or "", labels_text(r["labels"]), plain_text(r["note"], 60))
+        for r in rows))
     sentences = (f"seconds: {TIME_MEANING}.",)
     if title is None:
-        title = (f"sweeps, newest first ({len(df)})" if result.selection == "every sweep" else
-                 f"sweeps with {plain_text(result.selection)}, newest first ({len(df)})")
+        title = (f"sweeps, newest first ({len(rows)})" if result.selection == "every sweep" else
+                 f"sweeps with {plain_text(result.selection)}, newest first ({len(rows)})")
     return View(title, shown, ("seconds", "cells", "fold rows"), sentences)
 
 
 def removal_view(result: SweepList, rows: dict[str, int], *, done: bool = False) -> View:
     """The sweeps a removal takes (or took), and the rows per table that go with them."""
-    n = len(result.table)
+    n = len(result.rows)
     verb = "removed" if done else "would remove"
     held = ", ".join(f"{number(v)} {t}" for t, v in rows.items() if v) or "no rows"
     view = sweeps_view(result, f"{verb} {count_text(n, 'sweep', 'sweeps')} "
@@ -81,6 +90,8 @@ def _side(params, keep, leaves=None) -> str:
 def diff_view(result: SweepDiff) -> View:
     """What changed from sweep A to sweep B: the spec diff, data, plan, versions and labels
     above; per model each sweep's picked cell, CV mean ± SE, paired change and test score."""
+    import pandas as pd
+
     a, b, df = result.a, result.b, result.table
     m = result.metric
     lines = [f"A = sweep {a['sweep_id']} ({_when(a['started_at'])}, {a['status']}); "
@@ -178,6 +189,8 @@ def _diff_sentence(r, label: str, better: str, paired: bool) -> str:
 def history_view(result: ModelHistory) -> View:
     """Per sweep (oldest first) and model: the picked cell, CV mean ± SE, test score, and
     marks where the data, the spec or the pick changed."""
+    import pandas as pd
+
     df, m = result.table, result.metric
     several = len(result.models) > 1
     shown = pd.DataFrame({"sweep": df["sweep_id"], "started": df["started_at"].map(_when),

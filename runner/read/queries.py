@@ -13,8 +13,7 @@ import functools
 import json
 import os
 import socket
-
-import pandas as pd
+from typing import TYPE_CHECKING
 
 from .compare import holm, t_from_moments
 from ..errors import QueryError
@@ -24,6 +23,9 @@ from .results import (CellStats, Comparison, ComplexityTable, Findings, Picks, S
                       SweepFacts, SweepList)
 from ..store import Store
 from ..store.labels import Selection
+
+if TYPE_CHECKING:  # imported where a frame is built: `foldwise sweeps` starts without it
+    import pandas as pd
 
 __all__ = ["sweeps", "sweep_facts", "summary", "cell_stats", "picks", "complexity_table",
            "compare", "model_order", "picked_fold_scores", "varying_params", "sweep_record",
@@ -52,31 +54,39 @@ def sweeps(store: Store, selection: Selection | None = None) -> SweepList:
     'interrupted' (the next `foldwise run` also records it so)."""
     selection = selection or Selection()
     where, params = selection.where("s", running_as_interrupted=True)
-    df = store.query(f"""
+    columns, rows = store.rows(f"""
         select s.sweep_id, s.name, s.status, s.started_at,
                round(epoch(s.finished_at - s.started_at), 1) as seconds,
                s.n_train, s.n_test, coalesce(s.scheme, 'rows') as scheme, s.k, s.repeats,
                (select count(*) from cells c where c.sweep_id = s.sweep_id) as cells,
                (select count(*) from fold_scores f where f.sweep_id = s.sweep_id) as fold_rows,
-               s.data_sha256[1:12] as data, s.note, s.host, s.pid
+               s.data_sha256[1:12] as data, s.note, s.host, s.pid,
+               (select list(l.key order by l.key) from sweep_labels l
+                where l.sweep_id = s.sweep_id) as label_keys,
+               (select list(l.value order by l.key) from sweep_labels l
+                where l.sweep_id = s.sweep_id) as label_values
         from sweeps s where {where} order by s.started_at desc, s.sweep_id desc""", params)
-    dead = df["status"].eq("running") & ~df.apply(_alive_here, axis=1) if len(df) else []
-    df.loc[dead, "status"] = "interrupted"
+    listed = [dict(zip(columns, row)) for row in rows]
+    for row in listed:
+        if row["status"] == "running" and not _alive_here(row):
+            row["status"] = "interrupted"
+        row["labels"] = json.dumps(dict(zip(row["label_keys"] or [], row["label_values"] or [])),
+                                   sort_keys=True)
     if selection.status:
-        df = df[df["status"] == selection.status]
-    labels = sweep_labels(store, df["sweep_id"].tolist())
-    df.insert(df.columns.get_loc("note"), "labels",
-              [json.dumps(labels.get(s, {}), sort_keys=True) for s in df["sweep_id"]])
-    return SweepList(selection.describe(), df.drop(columns=["host", "pid"]).reset_index(drop=True))
+        listed = [row for row in listed if row["status"] == selection.status]
+    shown = [c for c in columns if c not in ("host", "pid", "label_keys", "label_values")]
+    shown.insert(shown.index("note"), "labels")
+    return SweepList(selection.describe(), tuple(shown),
+                     tuple(tuple(row[c] for c in shown) for row in listed))
 
 
 def sweep_labels(store: Store, sweep_ids: list[str]) -> dict[str, dict[str, str]]:
     """The labels of these sweeps: sweep id -> {key: value}."""
-    rows = store.query("select sweep_id, key, value from sweep_labels where "
-                       "list_contains(?::varchar[], sweep_id) order by sweep_id, key",
-                       [list(sweep_ids)])
+    _, rows = store.rows("select sweep_id, key, value from sweep_labels where "
+                         "list_contains(?::varchar[], sweep_id) order by sweep_id, key",
+                         [list(sweep_ids)])
     out: dict[str, dict[str, str]] = {}
-    for sid, key, value in rows.itertuples(index=False):
+    for sid, key, value in rows:
         out.setdefault(sid, {})[key] = value
     return out
 
@@ -374,6 +384,8 @@ def picks(store: Store, sweep_id: str | None = None, *, rule: str | None = None,
 
 def _edges(store: Store, sweep_id: str, picked: pd.DataFrame) -> pd.DataFrame:
     """Each picked cell's parameters on the edge of its model's grid (`picks.grid_edges`)."""
+    import pandas as pd
+
     cells = store.query("select model, params from cells where sweep_id = ?", [sweep_id])
     grids: dict[str, list[dict]] = {}
     for model, params in zip(cells["model"], cells["params"]):
@@ -412,6 +424,8 @@ def summary(store: Store, sweep_id: str | None = None, *,
 
     One row per model in spec order; columns `cv_<metric>`, `se_<metric>`, `test_<metric>`,
     plus `rule` and `failed_cells` (cells with a failed fit: never picked, see picks)."""
+    import pandas as pd
+
     check_rule(rule)
     facts = sweep_facts(store, sweep_id)
     rule = rule or facts.rule
@@ -483,6 +497,8 @@ def complexity_table(store: Store, model: str, sweep_id: str | None = None, *,
     n, mean_leaves, test, within_one_se, pick ('best', 'one_se', 'best one_se' or ''),
     excluded (why a cell cannot be picked). Marks follow the sweep's first metric;
     `metric` chooses which metric's scores are shown."""
+    import pandas as pd
+
     stats = cell_stats(store, sweep_id, se=se, model=model, metric=metric)
     table = stats.table
     params = [json.loads(p) for p in table["params"]]
@@ -551,6 +567,8 @@ def compare(store: Store, sweep_id: str | None = None, *, rule: str | None = Non
     uses; the comparison itself always uses the corrected variance. Differences are a − b on
     `metric` (default: the sweep's first metric); `p_holm` adjusts every pair's p for the
     number of pairs compared (Holm 1979)."""
+    import pandas as pd
+
     check_rule(rule)
     check_se(se)
     facts = sweep_facts(store, sweep_id)

@@ -5,13 +5,22 @@ and sentences only by `views.py`, for the CLI and the report alike."""
 
 from __future__ import annotations
 
+import functools
 from dataclasses import dataclass, field
+from typing import TYPE_CHECKING
 
-import pandas as pd
+if TYPE_CHECKING:  # imported where a table is built: the sweep listing starts without it
+    import pandas as pd
 
 __all__ = ["SweepFacts", "Coverage", "Summary", "CellStats", "Picks", "ComplexityTable",
            "Comparison", "Importances", "Stability", "Coefficients", "SweepList", "SweepDiff",
            "ModelHistory", "Findings"]
+
+
+def _no_rows() -> pd.DataFrame:
+    import pandas as pd
+
+    return pd.DataFrame()
 
 
 @dataclass(frozen=True)
@@ -72,7 +81,7 @@ class Summary:
     table: pd.DataFrame
     coverage: Coverage
     varying: dict = field(default_factory=dict)  # model -> the params its grid varies
-    edges: pd.DataFrame = field(default_factory=pd.DataFrame)  # picks on a grid's edge
+    edges: pd.DataFrame = field(default_factory=_no_rows)  # picks on a grid's edge
 
     @property
     def unpicked(self) -> tuple[str, ...]:
@@ -107,7 +116,7 @@ class Picks:
     table: pd.DataFrame
     coverage: Coverage
     varying: dict = field(default_factory=dict)  # model -> the params its grid varies
-    edges: pd.DataFrame = field(default_factory=pd.DataFrame)
+    edges: pd.DataFrame = field(default_factory=_no_rows)
 
     @property
     def unpicked(self) -> tuple[str, ...]:
@@ -191,10 +200,29 @@ class Coefficients:
 @dataclass(frozen=True)
 class SweepList:
     """One row per sweep (newest first) with its size, status, labels (JSON text) and note;
-    `selection` says in words which sweeps were asked for."""
+    `selection` says in words which sweeps were asked for. The rows are plain Python values
+    (`columns` names them); `table` is the same as a DataFrame, made when first asked for."""
 
     selection: str
-    table: pd.DataFrame
+    columns: tuple[str, ...]
+    rows: tuple[tuple, ...]
+
+    @functools.cached_property
+    def table(self) -> pd.DataFrame:
+        import pandas as pd
+
+        frame = pd.DataFrame.from_records(list(self.rows), columns=list(self.columns))
+        for i, col in enumerate(self.columns):  # whole numbers with gaps stay whole
+            values = [row[i] for row in self.rows]
+            present = [v for v in values if v is not None]
+            if len(present) < len(values) and present and all(
+                    isinstance(v, int) and not isinstance(v, bool) for v in present):
+                frame[col] = pd.array(values, dtype="Int64")
+        return frame
+
+    def records(self) -> list[dict]:
+        """One dict per sweep, column -> value."""
+        return [dict(zip(self.columns, row)) for row in self.rows]
 
 
 @dataclass(frozen=True)

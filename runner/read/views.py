@@ -7,15 +7,17 @@ from __future__ import annotations
 import json
 import math
 from dataclasses import dataclass
-
-import pandas as pd
+from typing import TYPE_CHECKING
 
 from .compare import APPROXIMATE_NOTE
 from ..families import get_family
 from ..metrics import metric_label
 from .results import Comparison, ComplexityTable, Coverage, Findings, Picks, Summary
 
-__all__ = ["View", "number", "mean_se", "params_text", "p_text", "value_text", "rule_label",
+if TYPE_CHECKING:  # imported where a frame is built: `foldwise sweeps` starts without it
+    import pandas as pd
+
+__all__ = ["View", "TextTable", "number", "mean_se", "params_text", "p_text", "value_text", "rule_label",
            "cell_text", "pair_sentence", "pair_sentences", "summary_view", "picks_view",
            "compare_view", "complexity_view", "coverage_notes",
            "stability_sentences", "columns_view", "importance_matrix", "METHODS",
@@ -25,12 +27,27 @@ __all__ = ["View", "number", "mean_se", "params_text", "p_text", "value_text", "
 
 
 @dataclass(frozen=True)
+class TextTable:
+    """Columns of text as plain tuples, for a view that must not wait for pandas to load
+    (the sweep listing); shown as a DataFrame of text would be."""
+
+    columns: tuple[str, ...]
+    rows: tuple[tuple[str, ...], ...]
+
+    def __len__(self) -> int:
+        return len(self.rows)
+
+    def itertuples(self, index: bool = False):
+        return iter(self.rows)
+
+
+@dataclass(frozen=True)
 class View:
     """A table ready to show: a title, columns of text, which columns hold numbers (they are
     right-aligned) and the sentences that go with it."""
 
     title: str
-    table: pd.DataFrame
+    table: pd.DataFrame | TextTable
     numeric: tuple[str, ...] = ()
     sentences: tuple[str, ...] = ()  # printed under the table
     caveats: tuple[str, ...] = ()  # under the table too; on stderr beside CSV or JSON
@@ -296,6 +313,8 @@ def test_head(metric: str) -> str:
 def summary_view(result: Summary) -> View:
     """Per model: the picked cell (the params its grid varies), CV mean ± SE and test score
     of every metric."""
+    import pandas as pd
+
     df, facts = result.table, result.facts
     shown = pd.DataFrame({"model": df["model"], "family": df["family"],
                           "cells": df["cells"].map(number) if len(df) else []})
@@ -320,6 +339,8 @@ def summary_view(result: Summary) -> View:
 
 def picks_view(result: Picks) -> View:
     """Per model, each rule's cell side by side: cell, rank, CV mean ± SE, test score."""
+    import pandas as pd
+
     facts, df = result.facts, result.table
     m = facts.metric
     both = len(result.rules) > 1
@@ -351,6 +372,8 @@ def picks_view(result: Picks) -> View:
 
 def compare_view(result: Comparison) -> View:
     """Every pair of picked cells: mean difference ± corrected SE, t, p, folds won, test."""
+    import pandas as pd
+
     df, m = result.table, result.metric
     shown = pd.DataFrame({
         "pair (a − b)": [f"{a} − {b}" for a, b in zip(df["model_a"], df["model_b"])],
@@ -392,6 +415,8 @@ def complexity_view(result: ComplexityTable) -> View:
     """One model's cells simplest first: each cell's standing (picks, within one SE of the
     best, or why it cannot be picked), rank, the params shown, mean leaves, CV mean ± SE,
     its distance from the best in metric units and in the best cell's SEs, and test score."""
+    import pandas as pd
+
     df, m, facts = result.table, result.metric, result.facts
     sign = 1.0 if facts.better_of(m) == "lower" else -1.0
     best = df[df["pick"].str.split().map(lambda r: "best" in r)]
@@ -453,6 +478,8 @@ def finding_lines(findings: pd.DataFrame | Findings) -> tuple[str, ...]:
 
 def findings_view(findings: pd.DataFrame | Findings) -> View:
     """The leakage checks' findings as a table: severity, check, column and what it means."""
+    import pandas as pd
+
     findings = findings.table if isinstance(findings, Findings) else findings
     n = len(findings)
     title = (f"leakage checks: {count_text(n, 'finding', 'findings')}" if n else
@@ -524,6 +551,8 @@ def stability_sentences(stab: pd.DataFrame) -> list[str]:
 
 def columns_view(df: pd.DataFrame, columns: dict[str, str]) -> pd.DataFrame:
     """Chosen columns of a table, renamed, every value as text (numbers to 4 digits)."""
+    import pandas as pd
+
     out = pd.DataFrame({head: [number(v) if isinstance(v, float) else
                                ("" if v is None else str(v)) for v in df[col]]
                         for col, head in columns.items()})
@@ -542,6 +571,8 @@ TREE_FOLD_COLUMNS = {"model": "model", "repeat": "repeat", "fold": "fold",
 
 def importance_matrix(importances, cells: pd.DataFrame) -> dict[str, pd.DataFrame]:
     """Per method: columns down, models across, value ± spread of each given cell."""
+    import pandas as pd
+
     out = {}
     imp = importances.table
     imp = imp[imp["cell_id"].isin(cells["cell_id"])]

@@ -16,10 +16,12 @@ import time
 from contextlib import contextmanager
 from datetime import datetime
 from pathlib import Path
-from typing import Callable, Iterator
+from typing import TYPE_CHECKING, Callable, Iterator
 
 import duckdb
-import pandas as pd
+
+if TYPE_CHECKING:  # pandas is imported where rows become frames: a listing starts faster
+    import pandas as pd
 
 from ..errors import StoreError
 from .locations import FileLocation, ServerLocation, locate
@@ -351,6 +353,8 @@ class Store:
         """Record a new sweep (status 'running'), its cells, the metric directions, its
         labels (checked by `labels.check_labels` first) and the findings of its leakage
         checks, in one transaction."""
+        import pandas as pd
+
         row = dict(sweep)
         row["versions"] = json.dumps(row.get("versions", {}), sort_keys=True)
         if isinstance(row.get("plan"), dict):
@@ -409,6 +413,8 @@ class Store:
 
         Returns (folds, tests): one row per (cell_id, repeat, fold) and per cell_id with the
         sweep_id of one earlier sweep that stored every asked metric for it."""
+        import pandas as pd
+
         if not cell_ids or not self._has_schema():
             empty = pd.DataFrame(columns=["cell_id", "repeat", "fold", "sweep_id"])
             return empty, pd.DataFrame(columns=["cell_id", "sweep_id"])
@@ -499,6 +505,16 @@ class Store:
         self._check_version()
         with self._connect(read_only=True) as con:
             return con.execute(sql, params or []).df()
+
+    def rows(self, sql: str, params: list | None = None) -> tuple[list[str], list[tuple]]:
+        """Run a read-only query of foldwise's own and return its column names and rows as
+        Python values, without pandas (for the listings that must start fast). DuckDB loads
+        pandas to bind any Python parameter, so a listing without `params` never loads it."""
+        self._require()
+        self._check_version()
+        with self._connect(read_only=True) as con:
+            cursor = con.execute(sql, params or [])
+            return [d[0] for d in cursor.description], cursor.fetchall()
 
     def _check_version(self) -> None:
         """Refuse a database that is not a foldwise store, or one from a newer foldwise;

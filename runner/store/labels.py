@@ -13,8 +13,6 @@ import re
 from dataclasses import dataclass
 from datetime import datetime, timedelta
 
-import pandas as pd
-
 from ..errors import StoreError
 
 __all__ = ["Selection", "parse_label", "parse_labels", "check_labels", "check_key", "check_note",
@@ -201,6 +199,8 @@ def set_labels(store, sweep_id: str, labels: dict[str, str] | None = None, *,
                              needs="`label` needs INSERT and DELETE on sweep_labels and "
                                    "UPDATE on sweeps", grant="foldwise_writer",
                              changed="changed")
+    import pandas as pd
+
     rows = pd.DataFrame({"sweep_id": sweep_id, "key": list(labels), "value": list(labels.values())},
                         columns=["sweep_id", "key", "value"])
 
