@@ -206,11 +206,15 @@ def best_split_r2(x: np.ndarray, y: np.ndarray, *, categorical: bool = False) ->
         order = np.argsort(sums / counts, kind="stable")
         left_sum, left_n = np.cumsum(sums[order])[:-1], np.cumsum(counts[order])[:-1]
     else:
-        order = np.argsort(x, kind="stable")
+        order = np.argsort(x)  # the stable sort's order when no value repeats, twice as fast
         xs = x[order]
+        distinct = xs[1:] > xs[:-1]  # a split can only fall between different values
+        if not distinct.all():  # repeats: their rows in file order, so the sums are the same
+            order = np.argsort(x, kind="stable")
+            xs = x[order]
+            distinct = xs[1:] > xs[:-1]
         left_sum = np.cumsum(yc[order])[:-1]
         left_n = np.arange(1, len(y), dtype=float)
-        distinct = xs[1:] > xs[:-1]  # a split can only fall between different values
         left_sum, left_n = left_sum[distinct], left_n[distinct]
     if len(left_sum) == 0:
         return 0.0
@@ -228,25 +232,30 @@ def _numeric_targets(frame, rows) -> list[np.ndarray]:
     return [(y == c).astype(float) for c in classes]
 
 
-def _proxy_strength(s: pd.Series, numeric: bool, yy: np.ndarray) -> tuple[float, float]:
+def _proxy_strength(x: np.ndarray, numeric: bool, yy: np.ndarray) -> tuple[float, float]:
     """(|Pearson r|, best single split R²) of one feature's present values against yy."""
     if numeric:
-        x = s.to_numpy(dtype=float)
         with np.errstate(all="ignore"):
             r = float(np.corrcoef(x, yy)[0, 1]) if np.ptp(x) > 0 and np.ptp(yy) > 0 else 0.0
         return abs(r), best_split_r2(x, yy)
-    return 0.0, best_split_r2(s.to_numpy(), yy, categorical=True)
+    return 0.0, best_split_r2(x, yy, categorical=True)
 
 
 def _column_strength(frame, plan: Plan, targets: list[np.ndarray], col
                      ) -> tuple[float, float] | None:
     """(|r|, one split R²) of one feature against the strongest of `targets` on the
     training rows, or None when it has too few values to judge."""
-    s = frame.X[col].iloc[plan.train_rows]
-    present = s.notna().to_numpy()
+    numeric = col in frame.numeric
+    if numeric:  # a float column's values as they are, then the training rows
+        x = frame.X[col].to_numpy(dtype=float, na_value=np.nan)[plan.train_rows]
+        present = ~np.isnan(x)
+    else:
+        s = frame.X[col].iloc[plan.train_rows]
+        x, present = s.to_numpy(), s.notna().to_numpy()
     if present.sum() < MIN_ROWS:
         return None
-    return max((_proxy_strength(s[present], col in frame.numeric, y[present])
+    x = x if present.all() else x[present]
+    return max((_proxy_strength(x, numeric, y if present.all() else y[present])
                 for y in targets), key=lambda rs: max(rs))
 
 
