@@ -16,6 +16,7 @@ from runner.families.paths import (
     pruned_tree,
     pruned_tree_predictions,
     pruning_alphas,
+    ridge_model,
     ridge_path_coefs,
 )
 
@@ -310,6 +311,22 @@ def test_ridge_matches_svd_solver():
         np.testing.assert_allclose(p, ref_p, rtol=1e-12, atol=1e-12 * np.abs(ref_p).max())
         np.testing.assert_allclose(c, ref.coef_, rtol=1e-12, atol=1e-12 * np.abs(ref.coef_).max())
         assert abs(b - ref.intercept_) <= 1e-12 * abs(ref.intercept_)
+
+
+def test_ridge_model_from_the_path_is_the_refit_byte_for_byte():
+    # Source: scikit-learn's own Ridge(alpha, solver="svd").fit on the same rows; its pickle
+    # (every fitted number, attribute and their order) equals the one built from the path.
+    import pickle
+
+    rng = np.random.default_rng(4)
+    for n, p in [(400, 10), (37, 3), (1200, 25), (12, 1)]:
+        X = rng.standard_normal((n, p)) * rng.uniform(0.1, 20.0, p) + rng.uniform(-5, 5, p)
+        y = X @ rng.standard_normal(p) + rng.standard_normal(n) * 3.0
+        alphas = [0.0, 1e-3, 0.7, 25.0, 1e5]
+        coefs, intercepts = ridge_path_coefs(X, y, alphas)
+        for a, c, b in zip(alphas, coefs, intercepts):
+            ref = Ridge(alpha=a, solver="svd").fit(X, y)
+            assert pickle.dumps(ridge_model(a, c, b)) == pickle.dumps(ref), (n, p, a)
 
 
 @pytest.mark.parametrize("l1_ratio", [1.0, 0.5])

@@ -284,8 +284,9 @@ def fit_grouped(make_estimator: Callable, preprocessor: Callable, evaluate: Eval
     summing `fit_seconds` over cells gives the compute time spent, whichever way they ran.
     `n_warnings` of a grouped cell counts the warnings its group's one fit raised.
     With `read`, every plain fit is read, and a grouped cell where the hook hands back or
-    builds its exact model (a forest's first trees, a pruned tree); other grouped cells (a
-    linear path's) have no reading (the explain step refits them)."""
+    builds its exact model (a forest's first trees, a pruned tree, a ridge alpha); other
+    grouped cells (a lasso or elastic-net path's) have no reading (the explain step refits
+    them)."""
     if not paths:
         return fit_each(make_estimator, cells, X_fit, y_fit, X_evals, seed=seed,
                         numeric=numeric, categorical=categorical, leaves=leaves, task=task,

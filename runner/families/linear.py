@@ -4,11 +4,14 @@ standardisation of numbers and one-hot encoding of categories, all fitted on the
 rows only.
 
 A grid over `alpha` is scored without one fit per cell: ridge from one SVD of the centred
-design per fold (the arithmetic of Ridge(solver="svd"), equal to ~1e-12), lasso and elastic
+design per fold (the arithmetic of Ridge(solver="svd"), step for step: each alpha's model is
+that fit's, so the explain step reads it instead of refitting), lasso and elastic
 net from one warm-started coordinate-descent path per fold and l1_ratio, with Lasso's and
 ElasticNet's default tol and max_iter (equal within that solver tolerance)."""
 
 from __future__ import annotations
+
+import functools
 
 import numpy as np
 from sklearn.linear_model import ElasticNet, Lasso, LinearRegression, Ridge
@@ -17,7 +20,7 @@ from sklearn.pipeline import Pipeline
 from ._readers import coefficient_importance as own_importance
 from ._base import (CellFit, fit_grouped, linear_preprocessor, prediction_columns,
                     work_units)
-from .paths import elastic_net_path_coefs, ridge_path_coefs
+from .paths import elastic_net_path_coefs, ridge_model, ridge_path_coefs
 
 __all__ = ["make_estimator", "fit_cells", "fit_units", "own_importance", "prediction_columns",
            "original_scale_coefficients", "coefficient_rows", "model_size", "INTERCEPT",
@@ -100,6 +103,9 @@ def _alpha_path(group: list[dict], Xt_fit, y_fit, Xt_evals, *, seed: int,
         preds = np.asarray(X, dtype=np.float64) @ coefs.T + intercepts
         for fit, p in zip(fits, preds.T):
             fit.predictions.append(np.ascontiguousarray(p))
+    if penalty == "l2":  # the path did each alpha's own Ridge(solver="svd") fit: read that
+        for fit, params, coef, intercept in zip(fits, group, coefs, intercepts):
+            fit.make_model = functools.partial(ridge_model, params["alpha"], coef, intercept)
     return fits
 
 

@@ -16,10 +16,11 @@ Only numpy and scikit-learn are imported; the functions are pure.
 """
 
 import copy
+import functools
 import warnings
 
 import numpy as np
-from sklearn.linear_model import enet_path
+from sklearn.linear_model import Ridge, enet_path
 from sklearn.utils.validation import check_array, check_is_fitted
 
 _LEAF = -1  # scikit-learn's marker for "no child" in tree_.children_left/right
@@ -431,6 +432,37 @@ def ridge_path_coefs(X_train, y_train, alphas):
         coefs[i] = (Vt.T @ (d * UTy))[:, 0]
     intercepts = np.array([y_offset - X_offset @ c for c in coefs])
     return coefs, intercepts
+
+
+_RIDGE_DATA_FREE = ("n_iter_", "solver_")
+"""What a fitted Ridge(solver="svd") holds besides its coefficients, intercept and width:
+values that do not depend on the data (taken from a tiny fit, so each version's own)."""
+
+
+@functools.cache
+def _ridge_fitted() -> tuple[tuple[str, ...], dict]:
+    """The names a Ridge(solver="svd") fit adds, in the order it adds them, and the
+    data-free values among them, from a fit on three rows."""
+    toy = Ridge(solver="svd").fit(np.array([[0.0], [1.0], [2.0]]), np.array([0.0, 1.0, 3.0]))
+    added = tuple(k for k in vars(toy) if k not in Ridge().get_params())
+    return added, {k: getattr(toy, k) for k in added if k in _RIDGE_DATA_FREE}
+
+
+def ridge_model(alpha, coef: np.ndarray, intercept) -> Ridge:
+    """The Ridge(alpha, solver="svd") that a fit on the path's rows gives, from the path's
+    coefficients and intercept: `ridge_path_coefs` does that fit's arithmetic step for step,
+    so they are its numbers (tests/test_paths.py compares the pickles). Refuses (ValueError)
+    when this scikit-learn's Ridge holds something else, so that the cell is refitted."""
+    added, data_free = _ridge_fitted()
+    values = {"n_features_in_": coef.shape[0], "coef_": np.array(coef, dtype=np.float64),
+              "intercept_": np.float64(intercept), **data_free}
+    unknown = set(added) - set(values)
+    if unknown:
+        raise ValueError(f"Ridge holds {sorted(unknown)} after a fit; refit instead")
+    model = Ridge(alpha=alpha, solver="svd")
+    for key in added:
+        setattr(model, key, values[key])
+    return model
 
 
 def elastic_net_path_coefs(
