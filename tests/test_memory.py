@@ -20,8 +20,9 @@ from .helpers import spec_from
 
 MODELS = """
 ridge: {family: linear, grid: {penalty: l2, alpha: [0.1, 10.0]}}
+lasso: {family: linear, grid: {penalty: l1, alpha: [0.5, 5.0]}}
 tree: {family: pruned_tree, grid: {ccp_fraction: {log: [0.001, 0.1], n: 3}}}
-"""
+"""  # the lasso path's picks are refitted by the explain step; the rest is read
 
 
 def _root(array: np.ndarray) -> np.ndarray:
