@@ -305,6 +305,32 @@ def test_reading_a_team_store_being_created_says_so(pg, file_copy):
     assert Store(url).user_query("select count(*) as n from sweeps").n[0] == 3
 
 
+def test_a_store_created_by_another_sweep_while_this_one_looks_is_not_foreign(pg,
+                                                                             monkeypatch):
+    """Two first sweeps race: this process takes the (empty) table list, the other commits
+    its tables, then this one looks up two of them by name. Its list then holds only those
+    two; it must still find foldwise_meta and join the store, not call it foreign (a race
+    seen on a busy machine: "holds 2 table(s) (cells, fold_scores) and no foldwise_meta")."""
+    import runner.store as store_module
+
+    url = pg.create_database("team_created_meanwhile")
+    summary_view = store_module._summary_view
+
+    def other_sweep_commits_meanwhile(con):
+        assert store._tables_here(con) == []
+        subprocess.run([sys.executable, "-c", "import sys; from runner.store import Store; "
+                        "Store(sys.argv[1]).ensure_schema()", url], check=True, env=pg.env())
+        monkeypatch.setattr(store_module, "_summary_view", summary_view)
+        summary_view(con)  # binds cells and fold_scores by name
+
+    store = Store(url)
+    monkeypatch.setattr(store_module, "_summary_view", other_sweep_commits_meanwhile)
+    store.ensure_schema()
+    assert store.holds_tables()
+    assert pg.psql("select value from foldwise_meta", "team_created_meanwhile") == \
+        str(store_module.SCHEMA_VERSION)
+
+
 def test_a_model_is_built_listed_and_loaded_on_a_server(pg, demo_built, tmp_path):
     """A model built into a team store and one merged there from a file both come back
     from the server (its artefact as PostgreSQL bytea), SHA-256 checked, and predict what

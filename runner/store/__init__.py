@@ -223,14 +223,16 @@ class Store:
         return StoreError(f"cannot create the tables of store {self.path}: {first}")
 
     def _schema_version(self, con) -> int | None:
-        has = con.execute("select count(*) from information_schema.tables "
-                          "where table_name = 'foldwise_meta' and table_catalog = "
-                          "current_database() and table_schema = current_schema()"
-                          ).fetchone()[0]
-        if not has:
+        """The store's schema version; None when there is no foldwise_meta table.
+
+        Asked by name, not from the table list: on a server the list a connection holds can
+        be one taken before another sweep's tables were committed, with only the tables this
+        connection has since looked up by name added to it."""
+        try:
+            row = con.execute("select value from foldwise_meta where key = 'schema_version'"
+                              ).fetchone()
+        except duckdb.CatalogException:
             return None
-        row = con.execute("select value from foldwise_meta where key = 'schema_version'"
-                          ).fetchone()
         if row is None:
             return None
         try:
