@@ -61,20 +61,18 @@ def sweeps(store: Store, selection: Selection | None = None) -> SweepList:
                (select count(*) from cells c where c.sweep_id = s.sweep_id) as cells,
                (select count(*) from fold_scores f where f.sweep_id = s.sweep_id) as fold_rows,
                s.data_sha256[1:12] as data, s.note, s.host, s.pid,
-               (select list(l.key order by l.key) from sweep_labels l
-                where l.sweep_id = s.sweep_id) as label_keys,
-               (select list(l.value order by l.key) from sweep_labels l
-                where l.sweep_id = s.sweep_id) as label_values
+               (select list({{'key': l.key, 'value': l.value}} order by l.key)
+                from sweep_labels l where l.sweep_id = s.sweep_id) as label_pairs
         from sweeps s where {where} order by s.started_at desc, s.sweep_id desc""", params)
     listed = [dict(zip(columns, row)) for row in rows]
     for row in listed:
         if row["status"] == "running" and not _alive_here(row):
             row["status"] = "interrupted"
-        row["labels"] = json.dumps(dict(zip(row["label_keys"] or [], row["label_values"] or [])),
-                                   sort_keys=True)
+        row["labels"] = json.dumps({pair["key"]: pair["value"]
+                                    for pair in row["label_pairs"] or []}, sort_keys=True)
     if selection.status:
         listed = [row for row in listed if row["status"] == selection.status]
-    shown = [c for c in columns if c not in ("host", "pid", "label_keys", "label_values")]
+    shown = [c for c in columns if c not in ("host", "pid", "label_pairs")]
     shown.insert(shown.index("note"), "labels")
     return SweepList(selection.describe(), tuple(shown),
                      tuple(tuple(row[c] for c in shown) for row in listed))
