@@ -1,5 +1,5 @@
 """`python -m runner` runs the foldwise command."""
 
-from .cli import main
+from .cli import command_line
 
-main(prog_name="foldwise")
+command_line()
