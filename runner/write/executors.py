@@ -16,6 +16,8 @@ with the same n_jobs in this process, finds its workers already started."""
 
 from __future__ import annotations
 
+import atexit
+import gc
 import logging
 import os
 import threading
@@ -152,6 +154,9 @@ def _watched(parent: int, work: Callable, *args, **kwargs):
     back what a long task freed before the next one starts."""
     if os.getpid() != parent and parent not in _WATCHED:
         watch_parent(parent)
+        # The parent's exit waits for its workers' own: keep theirs quick, as the
+        # command's (runner/cli.py, command_line).
+        atexit.register(gc.freeze)
         _WATCHED.append(parent)
     start = time.perf_counter()
     try:
