@@ -20,7 +20,6 @@ import sys
 import time
 from pathlib import Path
 
-import numpy as np
 from sklearn.datasets import make_friedman1
 from sklearn.ensemble import RandomForestRegressor
 from sklearn.impute import SimpleImputer
