@@ -386,10 +386,6 @@ for _command in (*_record.COMMANDS, *_models.COMMANDS):
     main.add_command(_command)
 
 
-if __name__ == "__main__":  # pragma: no cover
-    main()
-
-
 def command_line() -> None:
     """The `foldwise` console command: `main`, with a quick exit.
 
@@ -400,3 +396,7 @@ def command_line() -> None:
     still run."""
     atexit.register(gc.freeze)
     main(prog_name="foldwise")
+
+
+if __name__ == "__main__":  # pragma: no cover
+    command_line()

@@ -5,6 +5,8 @@ from __future__ import annotations
 import json
 import subprocess
 import sys
+from pathlib import Path
+
 import numpy as np
 import pandas as pd
 import pytest
@@ -132,3 +134,25 @@ def test_python_dash_m_runs():
     out = subprocess.run([sys.executable, "-m", "runner", "--version"], capture_output=True,
                          text=True)
     assert out.returncode == 0 and "foldwise" in out.stdout
+
+
+def test_the_console_command_exits_with_its_objects_frozen_and_its_code():
+    """`command_line` (the installed `foldwise` and `python -m runner`) freezes what is alive
+    out of the collector at exit, after the command's own work and output; a bad spec still
+    exits 2 with its message."""
+    pyproject = (Path(__file__).parents[1] / "pyproject.toml").read_text()
+    assert '\nfoldwise = "runner.cli:command_line"\n' in pyproject
+    code = ("import atexit, gc, sys\n"
+            "atexit.register(lambda: print('frozen at exit:', gc.get_freeze_count() > 0))\n"
+            "from runner.cli import command_line\n"
+            "sys.argv = ['foldwise', *sys.argv[1:]]\n"
+            "command_line()")
+    out = subprocess.run([sys.executable, "-c", code, "--version"], capture_output=True,
+                         text=True)
+    assert out.returncode == 0
+    version, frozen = out.stdout.splitlines()
+    assert version.startswith("foldwise, version ") and frozen == "frozen at exit: True"
+    out = subprocess.run([sys.executable, "-c", code, "check", "no-such-spec.yaml"],
+                         capture_output=True, text=True)
+    assert out.returncode == 2 and out.stderr.startswith("Error: ")
+    assert out.stdout.splitlines() == ["frozen at exit: True"]
