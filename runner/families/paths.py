@@ -86,23 +86,21 @@ _LEAF_BLOCK = 8192
 """Leaves per block when a tree's risks are summed over each leaf's ancestors."""
 
 
-def _preorder_spans(t, anc):
-    """Each node's subtree as a half-open span [start, stop) of preorder positions."""
-    n = t.node_count
+def _preorder_spans(t, leaves_below):
+    """Each node's subtree as a half-open span [start, stop) of preorder positions.
+
+    Every split has two children, so a subtree of L leaves holds 2L - 1 nodes
+    (`leaves_below`: 0 for a leaf, as `_initial_risks` counts them); the starts are set a
+    level at a time from the root down."""
     left, right = t.children_left, t.children_right
-    size = np.ones(n, dtype=np.intp)
-    depth = np.zeros(n, dtype=np.intp)
-    for level in range(anc.shape[1]):  # one ancestor level at a time: no (n, depth) mask
-        up = anc[:, level]
-        real = up >= 0
-        size += np.bincount(up[real], minlength=n)
-        depth += real
-    start = np.zeros(n, dtype=np.intp)
-    internal = np.flatnonzero(left != _LEAF)
-    for d in range(int(depth.max(initial=0)) + 1):
-        lvl = internal[depth[internal] == d]
-        start[left[lvl]] = start[lvl] + 1
-        start[right[lvl]] = start[lvl] + 1 + size[left[lvl]]
+    size = np.where(left == _LEAF, 1, 2 * leaves_below - 1)
+    start = np.zeros(t.node_count, dtype=np.intp)
+    level = np.zeros(1, dtype=np.intp)
+    while level.size:
+        level = level[left[level] != _LEAF]
+        start[left[level]] = start[level] + 1
+        start[right[level]] = start[level] + 1 + size[left[level]]
+        level = np.concatenate((left[level], right[level]))
     return start, start + size
 
 
@@ -133,9 +131,10 @@ def _weakest_link_rounds(t, anc):
     score = np.full(n + 1, np.inf)
     internal = np.flatnonzero(t.children_left != _LEAF)
     score[internal] = (r_node[internal] - r_branch[internal]) / (n_leaves[internal] - 1)
+    low = _lowered(score, r_node, r_branch)  # each alpha less its slack, kept up to date
     far = np.iinfo(np.intp).max
     pos = np.full(n + 1, far, dtype=np.intp)
-    start, stop = _preorder_spans(t, anc)
+    start, stop = _preorder_spans(t, n_leaves[:n])
     cand = internal[np.argsort(start[internal], kind="stable")]  # candidates in preorder
     alphas, pruned, drops = [], [], []
     window = 1024
@@ -158,7 +157,7 @@ def _weakest_link_rounds(t, anc):
         keep = np.flatnonzero(~(up_pos[:cut] < rank[:cut]).any(axis=1))
         pos[nodes] = far
         up = up[keep]
-        lowest = (score[up] - _SLACK * (np.abs(r_node[up]) + np.abs(r_branch[up]))).min(axis=1)
+        lowest = low[up].min(axis=1)
         late = np.flatnonzero(s[keep][1:] >= np.minimum.accumulate(lowest)[:-1])
         if late.size:
             keep, up = keep[: late[0] + 1], up[: late[0] + 1]
@@ -174,6 +173,8 @@ def _weakest_link_rounds(t, anc):
         changed = flat  # repeats write the same value
         score[changed] = (r_node[changed] - r_branch[changed]) / (n_leaves[changed] - 1)
         score[P] = np.inf
+        low[changed] = _lowered(score[changed], r_node[changed], r_branch[changed])
+        low[P] = np.inf
         alphas.append(s[keep])
         pruned.append(P)
         drops.append(drop)
@@ -186,6 +187,11 @@ def _weakest_link_rounds(t, anc):
     if not alphas:
         return np.empty(0), np.empty(0, dtype=np.intp), np.empty(0, dtype=np.intp)
     return np.concatenate(alphas), np.concatenate(pruned), np.concatenate(drops)
+
+
+def _lowered(score, r_node, r_branch):
+    """Alphas less their `_SLACK` margin, element by element."""
+    return score - _SLACK * (np.abs(r_node) + np.abs(r_branch))
 
 
 def pruning_alphas(tree):
