@@ -71,6 +71,7 @@ class Store:
         self._held = None  # the connection `session()` holds, if any
         self._schema_checked = False
         self._schema_ensured = False  # ensure_schema found (or made) this foldwise's tables
+        self._looked = False  # an existing file was found to be no foreign database
         self._privileges_checked = False
 
     # -- connections -------------------------------------------------------------------
@@ -118,18 +119,28 @@ class Store:
                 delay = min(delay * 1.5, 0.5)
 
     @contextmanager
-    def session(self) -> Iterator["Store"]:
+    def session(self, *, schema: bool = False) -> Iterator["Store"]:
         """Hold one read-write connection for a burst of small operations, then let go.
 
         Other processes wait meanwhile, so keep it to quick work such as a rerun that only
         copies stored rows; each operation still commits on its own. Inside a session (or
-        a `reading`), it is that session."""
+        a `reading`), it is that session. With `schema`, the tables are made sure of first
+        (`ensure_schema`): on a file, through the held connection once a look that cannot
+        write has found no foreign database there; on a server, before it, since racing
+        first sweeps each look again on a fresh connection."""
+        if schema and (self._held is not None or self.location.shared):
+            self.ensure_schema()
         if self._held is not None:
             yield self
             return
+        if schema and not self._schema_ensured:
+            self.check_writable()
+            self._refuse_foreign_unchanged()
         with self._connect(read_only=False) as con:
             self._held = con
             try:
+                if schema:
+                    self.ensure_schema()
                 yield self
             finally:
                 self._held = None
@@ -167,11 +178,7 @@ class Store:
         if self._schema_ensured:
             return
         self.check_writable()
-        if not self.location.shared and self.location.exists():
-            # read-only first: a file that is no foldwise store is refused unchanged
-            with self._connect(read_only=True, writing=True, small=True) as con:
-                if self._schema_version(con) is None:
-                    self._refuse_foreign(con)
+        self._refuse_foreign_unchanged()
         attempts = 20 if self.location.shared else 1
         for attempt in range(attempts):
             if self.location.shared:
@@ -198,6 +205,16 @@ class Store:
                     if "permission denied" in str(exc) or attempt + 1 == attempts:
                         raise self._creation_error(exc) from None
             time.sleep(0.1 + 0.1 * attempt)
+
+    def _refuse_foreign_unchanged(self) -> None:
+        """On a file that exists, look through a read-only connection first, so that a file
+        that is no foldwise store is refused unchanged (once per Store)."""
+        if self._looked or self.location.shared or not self.location.exists():
+            return
+        with self._connect(read_only=True, writing=True, small=True) as con:
+            if self._schema_version(con) is None:
+                self._refuse_foreign(con)
+        self._looked = True
 
     def _create_schema(self, con, found: int | None) -> None:
         con.execute("begin")

@@ -449,8 +449,7 @@ def run_sweep(spec: Spec, *, store: Store | None = None, jobs: int | None = None
             for line in finding_lines(findings):
                 on_message(line)
         if quick:  # only copying to do: one connection for it all, instead of dozens
-            hold.enter_context(store.session())
-        store.ensure_schema()
+            hold.enter_context(store.session(schema=True))
         host = socket.gethostname()
         sweep_id = _new_sweep_id()
         n_train, n_test = plan_counts(spec, prep.frame)
@@ -470,7 +469,7 @@ def run_sweep(spec: Spec, *, store: Store | None = None, jobs: int | None = None
             "started_at": started_at, "finished_at": None, "status": "running",
             "versions": _versions(), "host": host, "user_name": _user(), "pid": os.getpid(),
             "note": note or None}
-        with store.session():  # the sweep's first writes share one connection
+        with store.session(schema=True):  # the tables and the sweep's first writes
             store.mark_interrupted(host, process_alive)
             store.begin_sweep(record, cells_df, {m: METRICS[m].better for m in spec.metrics},
                               labels, findings)
@@ -512,6 +511,9 @@ def run_sweep(spec: Spec, *, store: Store | None = None, jobs: int | None = None
             last_flush = time.monotonic()
 
         status = "finished"
+        # The last batch, the explain step's reads and writes and the sweep's end share one
+        # connection, let go before the explain step sends any refit.
+        tail = hold.enter_context(contextlib.ExitStack())
         try:
             done = 0
             if progress:
@@ -530,13 +532,14 @@ def run_sweep(spec: Spec, *, store: Store | None = None, jobs: int | None = None
                     progress(done, total)
                 if time.monotonic() - last_flush >= batch_seconds or len(buffer) >= 50:
                     flush()
+            tail.enter_context(store.session())
             flush()
             if counts["fold"] == 0 and counts["failed"]:
                 raise SweepFailed(_all_failed(sweep_id, counts["failed"], why, store.path))
             explain_start = time.perf_counter()
             explained = explain_sweep(spec, store, sweep_id, prepared=prep, jobs=n_jobs,
                                       reuse=not fresh, executor=executor, readings=readings,
-                                      before_refits=hold.close if quick else None)
+                                      before_refits=hold.close if quick else tail.close)
             explain_seconds = time.perf_counter() - explain_start
         except KeyboardInterrupt:
             status = "interrupted"
