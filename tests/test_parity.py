@@ -198,6 +198,46 @@ def test_median_imputer_equals_simple_imputer(n_rows, keep_empty):
     assert mine.get_feature_names_out().tolist() == ref.get_feature_names_out().tolist()
 
 
+@pytest.mark.parametrize("n_rows", [1, 2, 1000, 1001])
+def test_median_imputer_finds_medians_of_complete_rows_only_when_asked(n_rows, monkeypatch):
+    """Fitted on rows that miss nothing, the imputer passes complete rows through without
+    finding a median, and gives scikit-learn's SimpleImputer(strategy="median") numbers
+    (reference: scikit-learn 1.9 `SimpleImputer`) once a row misses a value, once
+    `statistics_` is read, and after a pickle, which holds the medians and not the rows."""
+    import pickle
+
+    from runner.families import _base
+
+    found, real = [], _base._medians
+    monkeypatch.setattr(_base, "_medians", lambda *a: found.append(1) or real(*a))
+    rng = np.random.default_rng(n_rows)
+    X = np.column_stack([rng.normal(size=n_rows), rng.integers(0, 3, n_rows).astype(float),
+                         rng.exponential(size=n_rows)])
+    ref = SimpleImputer(strategy="median").fit(X)
+    complete = rng.normal(size=(5, 3))
+    for ask in ("gap", "statistics", "pickle"):
+        mine = _base.MedianImputer(strategy="median").fit(X)
+        np.testing.assert_array_equal(mine.transform(complete), ref.transform(complete))
+        assert found == []
+        if ask == "gap":
+            gaps = complete.copy()
+            gaps[[0, 3], [1, 2]] = np.nan
+            np.testing.assert_array_equal(mine.transform(gaps), ref.transform(gaps))
+        elif ask == "statistics":
+            np.testing.assert_array_equal(mine.statistics_, ref.statistics_)
+        else:
+            state = pickle.loads(pickle.dumps(mine)).__dict__
+            assert not any(isinstance(v, _base._Later) for v in state.values())
+            np.testing.assert_array_equal(state["_statistics"], ref.statistics_)
+        assert found == [1]
+        np.testing.assert_array_equal(mine.statistics_, ref.statistics_)
+        assert found == [1]  # found once, then kept
+        found.clear()
+    monkeypatch.setattr(_base, "LATER_BYTES", X.nbytes - 1)  # rows too large to keep
+    _base.MedianImputer(strategy="median").fit(X)
+    assert found == [1]
+
+
 def test_median_imputer_leaves_other_types_to_simple_imputer():
     """float32 rows and markers other than NaN take SimpleImputer's own route (reference:
     scikit-learn 1.9 `SimpleImputer`): same statistics, same type."""

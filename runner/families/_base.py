@@ -15,11 +15,13 @@ from dataclasses import dataclass, field
 from typing import Callable, Sequence
 
 import numpy as np
+import scipy.sparse as sp
 from sklearn.compose import ColumnTransformer
 from sklearn.impute import SimpleImputer
 from sklearn.pipeline import Pipeline
 from sklearn.preprocessing import (FunctionTransformer, OneHotEncoder, OrdinalEncoder,
                                    StandardScaler)
+from sklearn.utils.validation import check_is_fitted
 
 from ._replay import answered, questions, stacked
 
@@ -80,29 +82,94 @@ def tree_preprocessor(numeric: list[str], categorical: list[str]) -> ColumnTrans
     return ColumnTransformer(parts, remainder="drop", sparse_threshold=0.0)
 
 
+LATER_BYTES = 2 ** 25
+"""Fitting rows of at most this size, missing nothing, are kept by `MedianImputer` until
+their medians are first asked for; larger ones have them found at once, so that a large
+fit holds no second copy of its rows."""
+
+
 class MedianImputer(SimpleImputer):
     """scikit-learn's imputer with strategy "median", fitted faster: each float64 column's
     two middle values are found by partition instead of by sorting a masked copy of every
     column, then halved the way SimpleImputer does ((low + high) / 2, so a sum beyond
     float64's range is infinite there too). The statistics are the same numbers (tested
-    against SimpleImputer); any other strategy, marker or type is SimpleImputer's own."""
+    against SimpleImputer); any other strategy, marker or type is SimpleImputer's own.
+
+    When the fitting rows miss nothing (and take at most `LATER_BYTES`), the medians are
+    found when first asked for (`statistics_`, a row with a missing value, a copy or a
+    pickle): rows that miss nothing pass through unchanged without them, which is what
+    most fold fits of complete data ever do."""
 
     def _dense_fit(self, X, strategy, missing_values, fill_value):
         if strategy != "median" or not _is_nan(missing_values) or X.dtype != np.float64:
             return super()._dense_fit(X, strategy, missing_values, fill_value)
         missing = np.isnan(X)
         self._fit_indicator(missing)
-        lows, highs = np.full(X.shape[1], np.nan), np.full(X.shape[1], np.nan)
-        for j in range(X.shape[1]):
-            present = X[~missing[:, j], j] if missing[:, j].any() else X[:, j]
-            if len(present):
-                high = len(present) // 2
-                low = high if len(present) % 2 else high - 1
-                middle = np.partition(present, sorted({low, high}))
-                lows[j], highs[j] = middle[low], middle[high]
-        medians = (lows + highs) / 2  # one array sum: one overflow warning, as scikit-learn's
-        medians[np.isnan(lows)] = 0.0 if self.keep_empty_features else np.nan
-        return medians
+        if self.copy and not self.add_indicator and X.nbytes <= LATER_BYTES \
+                and not missing.any():
+            return _Later(X)  # `X` is the imputer's own validated copy
+        return _medians(X, missing, self.keep_empty_features)
+
+    @property
+    def statistics_(self):
+        value = self.__dict__.get("_statistics")
+        if value is None:
+            raise AttributeError("statistics_")
+        if isinstance(value, _Later):
+            value = self.__dict__["_statistics"] = _medians(value.rows, None, False)
+        return value
+
+    @statistics_.setter
+    def statistics_(self, value):
+        self.__dict__["_statistics"] = value
+
+    def transform(self, X):
+        later = self.__dict__.get("_statistics")
+        if not isinstance(later, _Later) or sp.issparse(X):
+            return super().transform(X)
+        check_is_fitted(self)
+        rows = self._validate_input(X, in_fit=False)
+        if rows.shape[1] != later.rows.shape[1]:
+            return super().transform(X)  # SimpleImputer's own refusal
+        if rows.dtype.kind == "f" and np.isnan(rows).any():
+            return super().transform(X)
+        return rows  # every column has a median and nothing is missing: nothing to fill
+
+    def __getstate__(self):
+        if isinstance(self.__dict__.get("_statistics"), _Later):
+            self.statistics_  # noqa: B018  (a pickle holds the medians, never the rows)
+        return super().__getstate__()
+
+    def __setstate__(self, state):
+        if "statistics_" in state:  # pickled before the medians could wait
+            state = {**state, "_statistics": state["statistics_"]}
+            del state["statistics_"]
+        super().__setstate__(state)
+
+
+class _Later:
+    """Fitting rows whose medians are not found yet."""
+
+    __slots__ = ("rows",)
+
+    def __init__(self, rows: np.ndarray):
+        self.rows = rows
+
+
+def _medians(X: np.ndarray, missing: np.ndarray | None, keep_empty: bool) -> np.ndarray:
+    """Each column's median over its present values, as SimpleImputer finds it."""
+    lows, highs = np.full(X.shape[1], np.nan), np.full(X.shape[1], np.nan)
+    for j in range(X.shape[1]):
+        present = X[~missing[:, j], j] if missing is not None and missing[:, j].any() \
+            else X[:, j]
+        if len(present):
+            high = len(present) // 2
+            low = high if len(present) % 2 else high - 1
+            middle = np.partition(present, sorted({low, high}))
+            lows[j], highs[j] = middle[low], middle[high]
+    medians = (lows + highs) / 2  # one array sum: one overflow warning, as scikit-learn's
+    medians[np.isnan(lows)] = 0.0 if keep_empty else np.nan
+    return medians
 
 
 def _is_nan(value) -> bool:
