@@ -440,3 +440,23 @@ def test_the_fewest_times_named_for_time_folds_are_what_the_splitter_needs(k, ga
         assert (problem is None) == (n == fewest), (n, problem)
         if problem:
             assert f"need at least {fewest}" in problem
+
+
+@pytest.mark.parametrize("suffix", [".csv", ".parquet"])
+def test_the_data_fingerprint_is_the_sha256_of_the_bytes_read(tmp_path, suffix):
+    """A file of several read chunks (over 2 MiB) is hashed beside its parse: the stored
+    fingerprint equals hashlib's SHA-256 of the file's bytes (reference: Python's hashlib)
+    and the table equals pandas' own reading of the same file (reference: pandas)."""
+    import hashlib
+
+    from runner.write.data import _read
+
+    rng = np.random.default_rng(5)
+    df = pd.DataFrame(rng.normal(size=(40_000, 4)), columns=["a", "b", "c", "y"])
+    path = tmp_path / f"data{suffix}"
+    df.to_csv(path, index=False) if suffix == ".csv" else df.to_parquet(path)
+    assert path.stat().st_size > 2 * 2**20 or suffix == ".parquet"
+    table, sha = _read(path, "data file", None)
+    assert sha == hashlib.sha256(path.read_bytes()).hexdigest()
+    plain = pd.read_csv(path) if suffix == ".csv" else pd.read_parquet(path)
+    pd.testing.assert_frame_equal(table, plain)

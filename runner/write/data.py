@@ -11,6 +11,7 @@ import io
 import os
 import re
 import stat
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -83,6 +84,17 @@ def _sha256(fh) -> str:
     return digest.hexdigest()
 
 
+def _sha256_at(fd: int) -> str:
+    """SHA-256 of an open file's bytes, read by offset: the file's position stays where
+    another reader of the same open file has it, so a parser can read it meanwhile."""
+    digest = hashlib.sha256()
+    offset = 0
+    while chunk := os.pread(fd, 1 << 20, offset):
+        digest.update(chunk)
+        offset += len(chunk)
+    return digest.hexdigest()
+
+
 def _csv_header(fh) -> list[str]:
     text = io.TextIOWrapper(fh, encoding="utf-8", newline="")
     try:
@@ -119,7 +131,12 @@ def _read(path: Path, role: str, max_bytes: int | None) -> tuple[pd.DataFrame, s
         if kind is None:
             raise DataError(f"{role} {path} has extension '{path.suffix}'; foldwise reads .csv "
                             "and .parquet files. Convert it or rename it if it is one of those.")
-        sha = _sha256(fh)
+        hashing = None
+        if hasattr(os, "pread"):  # hashed on a second core while the table is parsed
+            hashing = ThreadPoolExecutor(1, thread_name_prefix="foldwise-sha256")
+            sha = hashing.submit(_sha256_at, fh.fileno())
+        else:
+            sha = _sha256(fh)
         try:
             if kind == "csv":
                 _check_header(_csv_header(fh), role, path)
@@ -139,6 +156,11 @@ def _read(path: Path, role: str, max_bytes: int | None) -> tuple[pd.DataFrame, s
             raise DataError(f"{role} {path} cannot be read as {kind.upper()}: {first}. Check "
                             "that the file is complete and of the type its extension "
                             "says.") from None
+        finally:
+            if hashing is not None:  # done with the file before it is closed
+                hashing.shutdown()
+    if hashing is not None:
+        sha = sha.result()
     if df.columns.duplicated().any():
         dupes = sorted(set(df.columns[df.columns.duplicated()]))
         raise DataError(f"{role} {path} has duplicate column names: {', '.join(map(str, dupes))}. "
