@@ -33,7 +33,7 @@ sys.path.insert(0, str(Path(__file__).resolve().parent))
 from _bench import (JOBS, K, REPEATS, SCORING, Case, grid_scores, interleaved,  # noqa: E402
                     max_difference, median, print_table, warm_workers)
 
-from runner.write.engine import _run_task  # noqa: E402
+from runner.write.tasks import run_task  # noqa: E402
 from runner.families import load_family  # noqa: E402
 from runner.write.resampling import refit_seed  # noqa: E402
 
@@ -155,9 +155,9 @@ def tree_path_share(case: Case, runs: int) -> tuple[float, float, float]:
     task, fit = [], []
     for _ in range(runs):
         start = time.perf_counter()
-        _run_task("pruned_tree", cells, X_fit, y_fit, X_val, y_val, seed=fold.seed, repeat=0,
-                  fold=0, metrics=["rmse", "mae", "r2"], numeric=list(case.X_train.columns),
-                  categorical=[], paths=True)
+        run_task("pruned_tree", cells, X_fit, y_fit, X_val, y_val, seed=fold.seed, repeat=0,
+                 fold=0, metrics=["rmse", "mae", "r2"], numeric=list(case.X_train.columns),
+                 categorical=[], paths=True)
         task.append(time.perf_counter() - start)
         start = time.perf_counter()
         module.make_estimator({"ccp_alpha": 0.0}, seed=fold.seed, y_fit=y_fit,

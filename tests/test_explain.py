@@ -341,7 +341,7 @@ def test_permutation_rows_equal_scikit_learn_through_the_whole_pipeline(family, 
     from sklearn.datasets import make_friedman1
 
     from runner.metrics import METRICS
-    from runner.write.explain import permutation_rows
+    from runner.write.readings import permutation_rows
 
     X, y = make_friedman1(n_samples=300, n_features=5, noise=0.5, random_state=3)
     frame = pd.DataFrame(X[:, :4], columns=["a", "b", "c", "d"])

@@ -18,7 +18,8 @@ from runner.families._readers import output_sources
 from runner.read.explained import importance_table
 from runner.store import Store
 from runner.write import engine
-from runner.write.engine import _run_task, prepare, run_sweep
+from runner.write.engine import prepare, run_sweep
+from runner.write.tasks import Task, run_task, task_call
 from runner.write.resampling import REFIT, refit_seed
 
 from runner.write.spec import parse_spec
@@ -59,7 +60,7 @@ def test_fold_readings_equal_scikit_learn_refits_exactly(tmp_path, diabetes_csv)
     for model in ("ols", "ridge", "tree", "paths", "forest"):  # one task per model, as swept
         family = next(c.family for c in prep.cells if c.model == model)
         cells = [(c.cell_id, c.params) for c in prep.cells if c.model == model]
-        _, _, readings = _run_task(
+        _, _, readings = run_task(
             family, cells, X_fit, y_fit, X_train.iloc[fold.valid], y_train[fold.valid],
             seed=fold.seed, repeat=fold.repeat, fold=fold.fold, metrics=["rmse"],
             numeric=prep.frame.numeric, categorical=prep.frame.categorical,
@@ -201,9 +202,9 @@ def test_refit_readings_are_keyed_for_the_explain_step(tmp_path, diabetes_csv):
                      explain="picked")
     prep = prepare(spec)
     data = engine._shared_data(prep, paths=True)
-    task = engine._Task("linear", [(prep.cells[0].cell_id, prep.cells[0].params)], None, 1.0)
-    args, kwargs = engine._task_call(data, task)
-    _, _, readings = _run_task(*args, **kwargs)
+    task = Task("linear", [(prep.cells[0].cell_id, prep.cells[0].params)], None, 1.0)
+    args, kwargs = task_call(data, task)
+    _, _, readings = run_task(*args, **kwargs)
     ((key, rows),) = readings
     assert key == (prep.cells[0].cell_id, None) and kwargs["repeat"] == REFIT
     assert len(rows["test_predictions"]) == prep.plan.n_test

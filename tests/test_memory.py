@@ -100,3 +100,45 @@ def test_a_worker_gives_back_freed_memory_after_a_long_task_only(monkeypatch):
     with pytest.raises(ValueError):
         executors._watched(parent, fails)
     assert trims == [0, 0]  # a long task that raised freed its memory too
+
+
+def test_local_workers_load_neither_the_store_nor_the_spec_model(folder, tmp_path):
+    """A sweep's local workers (its fits, and the explain step's refits) import what fitting
+    needs and not DuckDB, pydantic or foldwise's store: each worker holds less memory and
+    starts its first task sooner. Run in a fresh interpreter, whose workers are new."""
+    import json
+    import subprocess
+    import sys
+
+    from .helpers import write_spec
+
+    spec = write_spec(folder, MODELS, explain="picked", name="workers.yaml")
+    script = f"""
+import json
+
+from runner.store import Store
+from runner.write.engine import run_sweep
+from runner.write.executors import LocalExecutor
+from runner.write.spec import load_spec
+
+result = run_sweep(load_spec({str(spec)!r}), store=Store({str(tmp_path / 'w.duckdb')!r}),
+                   jobs=2, force_jobs=True)
+assert result.explain_refits > 0, result
+
+def loaded():
+    import sys
+    names = ("duckdb", "pydantic", "yaml", "runner.store", "runner.write.spec",
+             "runner.write.engine", "runner.write.explain", "runner.write.tasks",
+             "runner.write.readings")
+    return sorted(name for name in names if name in sys.modules)
+
+with LocalExecutor(2) as workers:
+    print(json.dumps(sorted(set(map(tuple, workers.results(
+        loaded, {{}}, range(8), lambda data, item: ((), {{}})))))))
+"""
+    out = subprocess.run([sys.executable, "-c", script], capture_output=True, text=True,
+                         timeout=300)
+    assert out.returncode == 0, out.stderr[-2000:]
+    seen = [tuple(s) for s in json.loads(out.stdout.strip().splitlines()[-1])]
+    assert ("runner.write.readings", "runner.write.tasks") in seen, seen  # a worker that fitted
+    assert all(set(s) <= {"runner.write.readings", "runner.write.tasks"} for s in seen), seen

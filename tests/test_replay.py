@@ -17,7 +17,7 @@ from sklearn.pipeline import Pipeline
 
 from runner.families import forest as forest_family
 from runner.families._base import tree_preprocessor
-from runner.write.explain import read_refit
+from runner.write.readings import read_refit
 
 SIZES = (4, 9, 13)
 

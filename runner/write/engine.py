@@ -32,13 +32,12 @@ from dataclasses import dataclass
 from datetime import datetime
 from typing import Callable
 
-import numpy as np
 import pandas as pd
 
 from .. import __version__
 from .budget import check_limits, check_plan_memory, data_limit_bytes, plan_size
 from ..errors import FoldwiseError
-from .explain import explain_sweep, fold_reader, keyed, read_refit
+from .explain import explain_sweep
 from .executors import (DaskExecutor, LocalExecutor, Running, give_back_freed_memory,
                         make_executor)
 from ..families import load_family
@@ -48,10 +47,11 @@ from .prepare import Prepared, load_checked, prepare
 from ..read.queries import process_alive, unchanged_sweep
 from ..read.views import finding_lines, plan_sentence
 from .leakage import refuse
-from .resampling import REFIT, Fold, plan_counts, refit_seed, resolve_scheme
+from .resampling import REFIT, plan_counts, refit_seed, resolve_scheme
 from .reuse import (all_found, copy_scores, find_findings, find_scores, found_keys,
                     version_note)
 from .spec import Spec
+from .tasks import Task, run_task, task_call
 from ..store import DEFAULT_STORE, Store
 from ..store.labels import check_labels, check_note
 
@@ -187,88 +187,6 @@ def _versions() -> dict:
             "duckdb": duckdb.__version__, "foldwise": __version__}
 
 
-def _run_task(family: str, cells: list[tuple[str, dict]], X_fit, y_fit, X_eval, y_eval, *,
-              seed: int, repeat: int, fold: int, metrics: list[str], numeric, categorical,
-              paths: bool = True, task: str = "regression", classes: list | None = None,
-              explain: dict | None = None):
-    """Fit some of a model's cells on one fold (or the refit) and return their score rows,
-    failures and, with `explain`, what the explain step keeps of each fit (`_reader`)."""
-    from sklearn import config_context
-
-    module = load_family(family)
-    read = _reader(family, explain, X_eval, y_eval, task, classes)
-    fits = module.fit_cells([p for _, p in cells], X_fit, y_fit, [X_eval], seed=seed,
-                            numeric=numeric, categorical=categorical, paths=paths, task=task,
-                            read=read)
-    scores, failures, readings = [], [], []
-    good = []
-    for (cid, _), fit in zip(cells, fits):
-        if fit.error is None and task == "classification" and \
-                np.shape(fit.predictions[0])[1] != len(classes):
-            fit.error_kind, fit.error = "MissingClass", (
-                "a class is missing from this fold's fitting rows, so the model gives no "
-                "probability for it")
-        if fit.error is not None:
-            failures.append({"cell_id": cid, "repeat": repeat, "fold": fold,
-                             "kind": fit.error_kind, "message": fit.error})
-        else:
-            good.append((cid, fit))
-            if fit.reading is not None:
-                key = {"cell_id": cid} if fold == REFIT else {"cell_id": cid, "repeat": repeat,
-                                                               "fold": fold}
-                readings.append(((cid, None if fold == REFIT else (repeat, fold)),
-                                 keyed(fit.reading, **key)))
-    if good:
-        # The metric arguments are ours and valid: skip scikit-learn's parameter checks
-        # (only the argument validation is skipped; values are computed as always).
-        with config_context(skip_parameter_validation=True):
-            values = _score(good, y_eval, metrics, task, classes)
-        for j, (cid, fit) in enumerate(good):
-            for metric in metrics:
-                scores.append({"cell_id": cid, "repeat": repeat, "fold": fold,
-                               "metric": metric, "value": values[metric][j],
-                               "fit_seconds": fit.fit_seconds, "n_train": len(y_fit),
-                               "n_valid": len(y_eval), "seed": seed,
-                               "n_leaves": fit.n_leaves, "how": fit.how,
-                               "n_warnings": fit.n_warnings})
-    return scores, failures, readings
-
-
-def _reader(family: str, explain: dict | None, X_test, y_test, task: str, classes):
-    """The explain step's reading of a fitted cell, or None: a fold's own importances and
-    tree shape, or the refit's permutation importances, test predictions and the rest."""
-    if explain is None:
-        return None
-    if explain["kind"] == "fold":
-        return fold_reader(family)
-    settings = {k: v for k, v in explain.items() if k != "kind"}
-    return lambda est, X_train: read_refit(family, est, X_train, X_test=X_test,
-                                           y_test=y_test, task=task, classes=classes,
-                                           **settings)
-
-
-def _score(good: list, y_eval, metrics: list[str], task: str, classes) -> dict[str, list]:
-    """Every metric of every good cell's predictions: for numbers all cells in one call per
-    metric; for classes cell by cell, from the class probabilities."""
-    if task == "classification":
-        return {m: [METRICS[m].score_classes(y_eval, fit.predictions[0], classes)
-                    for _, fit in good] for m in metrics}
-    P = np.empty((len(y_eval), len(good)), dtype=np.float64, order="F")
-    for j, (_, fit) in enumerate(good):
-        P[:, j] = fit.predictions[0]
-    return {m: METRICS[m].score_columns(y_eval, P) for m in metrics}
-
-
-@dataclass(frozen=True)
-class _Task:
-    """Some cells of one model on one fold (or the refit: fold None), with a rough cost."""
-
-    family: str
-    cells: list[tuple[str, dict]]
-    fold: Fold | None
-    cost: float
-
-
 _TASKS_PER_WORKER = 8
 """Cut tasks so that the sweep has at least about this many per worker (when it can)."""
 
@@ -285,7 +203,7 @@ def _pack(units: list[tuple[list[int], float]], pieces: int) -> list[tuple[float
 
 
 def _plan_tasks(prep: Prepared, *, paths: bool = True, n_workers: int = 1,
-                done: frozenset = frozenset()) -> list[_Task]:
+                done: frozenset = frozenset()) -> list[Task]:
     """One task per (model, repeat, fold) plus one refit per model, largest first.
 
     A (model, fold) whose share of the work is large next to what each worker should get
@@ -314,7 +232,7 @@ def _plan_tasks(prep: Prepared, *, paths: bool = True, n_workers: int = 1,
     for family, cells, units, fold, cost, rows in base:
         pieces = min(len(units), max(1, math.ceil(cost / target - 1e-9))) if target > 0 else 1
         for unit_cost, chunk in _pack(units, pieces):
-            tasks.append(_Task(family, [(cells[i].cell_id, cells[i].params) for i in chunk],
+            tasks.append(Task(family, [(cells[i].cell_id, cells[i].params) for i in chunk],
                                fold, unit_cost * rows))
     tasks.sort(key=lambda t: -t.cost)  # stable: equal costs keep spec and fold order
     return tasks
@@ -356,19 +274,6 @@ def _shared_data(prep: Prepared, *, paths: bool) -> dict:
                 explain_refit=dict(kind="refit", metric=spec.metrics[0], repeats=perm.repeats,
                                    perm_seed=perm.seed, perm_rows=perm.rows)
                 if refit else None)
-
-
-def _task_call(data: dict, task: _Task) -> tuple[tuple, dict]:
-    """`_run_task` arguments for one task: its fold's rows cut from the shared data."""
-    X_train, y_train, f = data["X_train"], data["y_train"], task.fold
-    if f is not None:
-        return ((task.family, task.cells, X_train.iloc[f.fit], y_train[f.fit],
-                 X_train.iloc[f.valid], y_train[f.valid]),
-                dict(seed=f.seed, repeat=f.repeat, fold=f.fold, **data["common"],
-                     explain=data["explain_fold"]))
-    return ((task.family, task.cells, X_train, y_train, data["X_test"], data["y_test"]),
-            dict(seed=data["refit_seed"], repeat=REFIT, fold=REFIT, **data["common"],
-                 explain=data["explain_refit"]))
 
 
 def _new_sweep_id() -> str:
@@ -440,7 +345,7 @@ def run_sweep(spec: Spec, *, store: Store | None = None, jobs: int | None = None
             prep.use_split(executor.share(prep.split))
         data = _shared_data(prep, paths=paths) if tasks else {}
         running = hold.enter_context(contextlib.closing(executor.results(
-            _run_task, data, tasks, _task_call) if tasks else Running(iter(()))))
+            run_task, data, tasks, task_call) if tasks else Running(iter(()))))
         findings = find_findings(store, prep.checks_key) if quick else None
         if findings is None:  # builds and checks the plan before anything is written
             findings = prep.findings(threads=_local_threads(n_jobs))
@@ -521,7 +426,7 @@ def run_sweep(spec: Spec, *, store: Store | None = None, jobs: int | None = None
             if later:
                 data = data or _shared_data(prep, paths=paths)
                 running = itertools.chain(running, hold.enter_context(contextlib.closing(
-                    executor.results(_run_task, data, later, _task_call))))
+                    executor.results(run_task, data, later, task_call))))
             if tasks or later:
                 prep.keep_split_only()
                 give_back_freed_memory()

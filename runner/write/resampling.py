@@ -31,7 +31,6 @@ from typing import Callable, Iterable
 import numpy as np
 
 from ..errors import DataError
-from .spec import implied_scheme
 
 __all__ = ["Plan", "Fold", "Scheme", "Holdout", "SCHEMES", "HOLDOUTS", "make_plan",
            "fold_seed", "refit_seed", "REFIT", "plan_identity", "plan_counts",
@@ -175,6 +174,8 @@ SCHEMES = {s.name: s for s in (
 
 def resolve_scheme(spec) -> Scheme:
     """The fold scheme a spec asks for (written, or implied by folds.groups / folds.order)."""
+    from .spec import implied_scheme  # here: workers unpickle folds without the spec model
+
     return SCHEMES[implied_scheme(spec.folds)]
 
 
