@@ -200,8 +200,8 @@ def test_median_imputer_equals_simple_imputer(n_rows, keep_empty):
 
 @pytest.mark.parametrize("n_rows", [1, 2, 1000, 1001])
 def test_median_imputer_finds_medians_of_complete_rows_only_when_asked(n_rows, monkeypatch):
-    """Fitted on rows that miss nothing, the imputer passes complete rows through without
-    finding a median, and gives scikit-learn's SimpleImputer(strategy="median") numbers
+    """Fitted on rows that miss nothing, the imputer passes complete rows through (and
+    returns its fitting rows from fit_transform) without finding a median, and gives scikit-learn's SimpleImputer(strategy="median") numbers
     (reference: scikit-learn 1.9 `SimpleImputer`) once a row misses a value, once
     `statistics_` is read, and after a pickle, which holds the medians and not the rows."""
     import pickle
@@ -214,6 +214,12 @@ def test_median_imputer_finds_medians_of_complete_rows_only_when_asked(n_rows, m
     X = np.column_stack([rng.normal(size=n_rows), rng.integers(0, 3, n_rows).astype(float),
                          rng.exponential(size=n_rows)])
     ref = SimpleImputer(strategy="median").fit(X)
+    for rows in (X, np.asfortranarray(X)):  # fitted and filled in one call, either layout
+        both = [kind(strategy="median").fit_transform(rows)
+                for kind in (SimpleImputer, _base.MedianImputer)]
+        np.testing.assert_array_equal(*both)
+        assert both[0].flags.f_contiguous == both[1].flags.f_contiguous
+    assert found == []
     complete = rng.normal(size=(5, 3))
     for ask in ("gap", "statistics", "pickle"):
         mine = _base.MedianImputer(strategy="median").fit(X)
