@@ -208,8 +208,10 @@ class Store:
 
     def _refuse_foreign_unchanged(self) -> None:
         """On a file that exists, look through a read-only connection first, so that a file
-        that is no foldwise store is refused unchanged (once per Store)."""
-        if self._looked or self.location.shared or not self.location.exists():
+        that is no foldwise store is refused unchanged (once per Store). Inside a session
+        the file is open for writing already, and the schema check refuses it instead."""
+        if self._looked or self._held is not None or self.location.shared \
+                or not self.location.exists():
             return
         with self._connect(read_only=True, writing=True, small=True) as con:
             if self._schema_version(con) is None:
