@@ -201,9 +201,10 @@ def test_median_imputer_equals_simple_imputer(n_rows, keep_empty):
 @pytest.mark.parametrize("n_rows", [1, 2, 1000, 1001])
 def test_median_imputer_finds_medians_of_complete_rows_only_when_asked(n_rows, monkeypatch):
     """Fitted on rows that miss nothing, the imputer passes complete rows through (and
-    returns its fitting rows from fit_transform) without finding a median, and gives scikit-learn's SimpleImputer(strategy="median") numbers
-    (reference: scikit-learn 1.9 `SimpleImputer`) once a row misses a value, once
-    `statistics_` is read, and after a pickle, which holds the medians and not the rows."""
+    returns its fitting rows from fit_transform) without finding a median, and gives
+    scikit-learn's SimpleImputer(strategy="median") numbers (reference: scikit-learn 1.9
+    `SimpleImputer`) once a row misses a value, once `statistics_` is read, and after a
+    pickle, which holds the medians and not the rows."""
     import pickle
 
     from runner.families import _base

@@ -173,3 +173,29 @@ def test_a_run_meeting_a_reader_finishes_and_says_busy_once(tmp_path, diabetes_c
     assert out.stderr.count("is busy") == 1, out.stderr
     statuses = Store(path).query("select status from sweeps").status.tolist()
     assert statuses == ["finished", "finished"]
+
+
+@pytest.mark.parametrize("existing", [False, True])
+def test_a_sweep_opens_its_store_file_twice(tmp_path, diabetes_csv, monkeypatch, existing):
+    """A sweep with the explain step off and its results in one batch opens the file twice
+    for writing: its tables and first writes, then its last batch and its end (another
+    process can open the file between them and while the fits run). An existing store is
+    first looked at once through a read-only connection (refused unchanged if foreign)."""
+    from runner.store.locations import FileLocation
+    from runner.write.engine import run_sweep
+    from runner.write.spec import load_spec
+
+    spec = load_spec(write_spec(diabetes_csv.parent, "ridge: {family: linear, grid: "
+                                "{penalty: l2, alpha: [0.1, 1.0, 10.0]}}"))
+    store = tmp_path / "s.duckdb"
+    if existing:
+        run_sweep(spec, store=Store(store), jobs=1, fresh=True)
+    opened = []
+    real = FileLocation.connect
+    monkeypatch.setattr(FileLocation, "connect", lambda self, *, read_only, config=None: (
+        opened.append(read_only) or real(self, read_only=read_only, config=config)))
+    result = run_sweep(spec, store=Store(store), jobs=1, fresh=True, batch_seconds=3600)
+    folds = spec.folds.k * spec.folds.repeats
+    assert result.status == "finished" and result.n_fold_rows == 3 * folds * len(spec.metrics)
+    assert opened.count(False) == 2
+    assert opened.count(True) == (1 if existing else 0), opened

@@ -21,7 +21,6 @@ from sklearn.impute import SimpleImputer
 from sklearn.pipeline import Pipeline
 from sklearn.preprocessing import (FunctionTransformer, OneHotEncoder, OrdinalEncoder,
                                    StandardScaler)
-from sklearn.utils.validation import check_is_fitted
 
 from ._replay import answered, questions, stacked
 
@@ -116,7 +115,8 @@ class MedianImputer(SimpleImputer):
         if value is None:
             raise AttributeError("statistics_")
         if isinstance(value, _Later):
-            value = self.__dict__["_statistics"] = _medians(value.rows, None, False)
+            value = self.__dict__["_statistics"] = _medians(value.rows, None,
+                                                            self.keep_empty_features)
         return value
 
     @statistics_.setter
@@ -134,14 +134,10 @@ class MedianImputer(SimpleImputer):
         return self.transform(X)
 
     def transform(self, X):
-        later = self.__dict__.get("_statistics")
-        if not isinstance(later, _Later) or sp.issparse(X):
+        if not isinstance(self.__dict__.get("_statistics"), _Later) or sp.issparse(X):
             return super().transform(X)
-        check_is_fitted(self)
-        rows = self._validate_input(X, in_fit=False)
-        if rows.shape[1] != later.rows.shape[1]:
-            return super().transform(X)  # SimpleImputer's own refusal
-        if rows.dtype.kind == "f" and np.isnan(rows).any():
+        rows = self._validate_input(X, in_fit=False)  # refuses a wrong width, as before
+        if np.isnan(rows).any():
             return super().transform(X)
         return rows  # every column has a median and nothing is missing: nothing to fill
 

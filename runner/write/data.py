@@ -131,12 +131,10 @@ def _read(path: Path, role: str, max_bytes: int | None) -> tuple[pd.DataFrame, s
         if kind is None:
             raise DataError(f"{role} {path} has extension '{path.suffix}'; foldwise reads .csv "
                             "and .parquet files. Convert it or rename it if it is one of those.")
-        hashing = None
-        if hasattr(os, "pread"):  # hashed on a second core while the table is parsed
-            hashing = ThreadPoolExecutor(1, thread_name_prefix="foldwise-sha256")
-            sha = hashing.submit(_sha256_at, fh.fileno())
-        else:
-            sha = _sha256(fh)
+        # hashed on a second core while the table is parsed, where reads by offset exist
+        hashing = ThreadPoolExecutor(1, thread_name_prefix="foldwise-sha256") \
+            if hasattr(os, "pread") else None
+        hashed = hashing.submit(_sha256_at, fh.fileno()) if hashing is not None else None
         try:
             if kind == "csv":
                 _check_header(_csv_header(fh), role, path)
@@ -159,8 +157,7 @@ def _read(path: Path, role: str, max_bytes: int | None) -> tuple[pd.DataFrame, s
         finally:
             if hashing is not None:  # done with the file before it is closed
                 hashing.shutdown()
-    if hashing is not None:
-        sha = sha.result()
+        sha = hashed.result() if hashed is not None else _sha256(fh)
     if df.columns.duplicated().any():
         dupes = sorted(set(df.columns[df.columns.duplicated()]))
         raise DataError(f"{role} {path} has duplicate column names: {', '.join(map(str, dupes))}. "

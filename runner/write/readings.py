@@ -97,7 +97,7 @@ def keyed(rows: dict, **key) -> dict:
     return {t: with_key(t, table_rows) for t, table_rows in rows.items()}
 
 
-# -- the tasks -----------------------------------------------------------------------------
+# -- the explain step's refit tasks ------------------------------------------------------
 def _fit(family: str, params: dict, X, y, *, seed: int, numeric, categorical, task):
     # the sweep has counted this fit's warnings already
     return FAMILIES[family].fit_pipeline(params, X, y, seed=seed, numeric=numeric,
