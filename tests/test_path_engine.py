@@ -245,6 +245,28 @@ def test_a_failing_group_fails_every_cell_as_plain_fits_do():
     assert [f.how for f in grouped] == ["tree_path", "tree_path"]
 
 
+
+def test_only_the_last_alpha_group_centres_the_rows_in_place():
+    # Three path groups share one transformed design; the last may centre it in place
+    # (`takes_scratch`). Each group's numbers equal those of the group fitted on its own,
+    # bit for bit, and the caller's rows are left as they were.
+    rng = np.random.default_rng(3)
+    X = pd.DataFrame(rng.normal(size=(300, 5)) * 3 + 1, columns=list("abcde"))
+    y = X.to_numpy() @ np.array([1.0, -2.0, 0.5, 0.0, 3.0]) + rng.normal(size=300)
+    kept = X.copy()
+    cells = [{"penalty": "l2", "alpha": a} for a in (0.1, 10.0)] + \
+        [{"penalty": "l1", "alpha": a} for a in (0.01, 0.1)] + \
+        [{"penalty": "elasticnet", "l1_ratio": 0.5, "alpha": a} for a in (0.01, 0.1)]
+    module = load_family("linear")
+    kw = dict(seed=0, numeric=list("abcde"), categorical=[])
+    together = module.fit_cells(cells, X, y, [X], paths=True, **kw)
+    pd.testing.assert_frame_equal(X, kept)
+    for start in (0, 2, 4):
+        alone = module.fit_cells(cells[start:start + 2], X, y, [X], paths=True, **kw)
+        for a, b in zip(together[start:start + 2], alone):
+            assert np.array_equal(a.predictions[0], b.predictions[0])
+    assert [f.how for f in together] == ["ridge_svd"] * 2 + ["enet_path"] * 4
+
 # -- task planning -------------------------------------------------------------------------
 
 @pytest.mark.parametrize("paths", [True, False])

@@ -386,13 +386,18 @@ def fit_grouped(make_estimator: Callable, preprocessor: Callable, evaluate: Eval
         # that hold the own importances only; a reader that needs more is answered from
         # predictions of the rows it asks for, made while the model was built (`_replay`).
         replay = getattr(evaluate, "lets_go", False) and needs_whole_model(read)
-        for members in together:
+        # The transformed fitting rows are this call's own array (the preprocessor stacks
+        # its parts into a new one): an evaluator that `takes_scratch` may overwrite them in
+        # the last group, which reads them last, instead of working on a copy.
+        scratch = getattr(evaluate, "takes_scratch", False) and Xt_fit is not X_fit
+        for n, members in enumerate(together):
             group = [cells[i] for i in members]
             asked = questions(read, prep, X_fit, y_fit, Xt_fit.shape[1], task) \
                 if replay and prep_error is None else None
             blocks, cut = stacked(asked or [])
             fits = _evaluate_group(evaluate, group, prep_error, prep_share, Xt_fit, y_fit,
-                                   [*(Xt_evals or []), *blocks], seed, task)
+                                   [*(Xt_evals or []), *blocks], seed, task,
+                                   scratch=scratch and n == len(together) - 1)
             for i, fit in zip(members, fits):
                 fit.how = how(group[0])
                 model = fit.model if fit.model is not None or read is None else \
@@ -423,7 +428,8 @@ def _made(make_model: Callable[[], object] | None):
 
 
 def _evaluate_group(evaluate: Evaluate, group: list[dict], prep_error, prep_seconds: float,
-                    Xt_fit, y_fit, Xt_evals, seed: int, task: str) -> list[CellFit]:
+                    Xt_fit, y_fit, Xt_evals, seed: int, task: str, *,
+                    scratch: bool = False) -> list[CellFit]:
     start = time.perf_counter()
     n_warnings = 0
     try:
@@ -431,7 +437,8 @@ def _evaluate_group(evaluate: Evaluate, group: list[dict], prep_error, prep_seco
             raise prep_error
         with warnings.catch_warnings(record=True) as caught:
             warnings.simplefilter("always")
-            fits = evaluate(group, Xt_fit, y_fit, Xt_evals, seed=seed, task=task)
+            own = {"scratch": True} if scratch else {}
+            fits = evaluate(group, Xt_fit, y_fit, Xt_evals, seed=seed, task=task, **own)
         n_warnings = _count_warnings(caught)
     except Exception as exc:  # the group's one fit failed: every cell of it is recorded failed
         fits = [CellFit() for _ in group]

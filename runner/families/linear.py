@@ -88,16 +88,18 @@ def _how(params: dict) -> str:
 
 
 def _alpha_path(group: list[dict], Xt_fit, y_fit, Xt_evals, *, seed: int,
-                task: str = "regression") -> list[CellFit]:
-    """Every alpha of the group (one penalty, one l1_ratio) from one decomposition or path."""
+                task: str = "regression", scratch: bool = False) -> list[CellFit]:
+    """Every alpha of the group (one penalty, one l1_ratio) from one decomposition or path;
+    a `scratch` Xt_fit is centred in place (the last group of a task reads it last)."""
     alphas = np.array([params["alpha"] for params in group], dtype=np.float64)
     penalty = group[0]["penalty"]
     if penalty == "l2":
-        coefs, intercepts = ridge_path_coefs(Xt_fit, y_fit, alphas)
+        coefs, intercepts = ridge_path_coefs(Xt_fit, y_fit, alphas, scratch=scratch)
     else:
         l1_ratio = 1.0 if penalty == "l1" else float(group[0]["l1_ratio"])
         coefs, intercepts = elastic_net_path_coefs(Xt_fit, y_fit, alphas, l1_ratio=l1_ratio,
-                                                   tol=_CD_TOL, max_iter=_CD_MAX_ITER)
+                                                   tol=_CD_TOL, max_iter=_CD_MAX_ITER,
+                                                   scratch=scratch)
     fits = [CellFit() for _ in group]
     for X in Xt_evals:
         preds = np.asarray(X, dtype=np.float64) @ coefs.T + intercepts
@@ -107,6 +109,9 @@ def _alpha_path(group: list[dict], Xt_fit, y_fit, Xt_evals, *, seed: int,
         for fit, params, coef, intercept in zip(fits, group, coefs, intercepts):
             fit.make_model = functools.partial(ridge_model, params["alpha"], coef, intercept)
     return fits
+
+
+_alpha_path.takes_scratch = True  # may centre the fitting rows in place (fit_grouped)
 
 
 def fit_cells(cells, X_fit, y_fit, X_evals, *, seed, numeric, categorical, paths=True,

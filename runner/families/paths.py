@@ -403,15 +403,22 @@ def _mean_importances(per_tree, n_features):
 # --------------------------------------------------------------------------
 
 
-def _centre(X, y):
-    """Centre X and y the way linear models with ``fit_intercept=True`` do."""
+def _centre(X, y, *, order: str = "K", scratch: bool = False):
+    """Centre X and y the way linear models with ``fit_intercept=True`` do: the column means
+    of X as given, subtracted from a copy of X in `order`, or from X itself when the caller
+    gives it as `scratch` (its own, never read again) and it is already so laid out. The
+    numbers are the same either way; a scratch X spares one copy of the design."""
     X = np.asarray(X, dtype=np.float64)
     y = np.asarray(y, dtype=np.float64)
     if X.ndim != 2 or y.ndim != 1 or X.shape[0] != y.shape[0]:
         raise ValueError("expected X of shape (n, p) and y of shape (n,)")
     X_offset = np.average(X, axis=0)
     y_offset = np.average(y, axis=0)
-    return X - X_offset, y - y_offset, X_offset, y_offset
+    laid_out = X.flags.f_contiguous if order == "F" else (
+        X.flags.c_contiguous or X.flags.f_contiguous)
+    Xc = X if scratch and laid_out and X.flags.writeable else np.array(X, order=order)
+    Xc -= X_offset
+    return Xc, y - y_offset, X_offset, y_offset
 
 
 def _penalties(alphas):
@@ -422,10 +429,11 @@ def _penalties(alphas):
     return alphas
 
 
-def ridge_path_coefs(X_train, y_train, alphas):
-    """Ridge coefficients and intercepts for every alpha from one SVD of the centred design."""
+def ridge_path_coefs(X_train, y_train, alphas, *, scratch: bool = False):
+    """Ridge coefficients and intercepts for every alpha from one SVD of the centred design;
+    with `scratch`, X_train is centred in place (`_centre`)."""
     alphas = _penalties(alphas)
-    Xc, yc, X_offset, y_offset = _centre(X_train, y_train)
+    Xc, yc, X_offset, y_offset = _centre(X_train, y_train, scratch=scratch)
     # Same steps as Ridge(solver="svd"): small singular values are dropped.
     U, s, Vt = np.linalg.svd(Xc, full_matrices=False)
     keep = s > 1e-15
@@ -472,20 +480,23 @@ def ridge_model(alpha, coef: np.ndarray, intercept) -> Ridge:
 
 
 def elastic_net_path_coefs(
-    X_train, y_train, alphas, *, l1_ratio=1.0, tol=1e-4, max_iter=1000
+    X_train, y_train, alphas, *, l1_ratio=1.0, tol=1e-4, max_iter=1000, scratch: bool = False
 ):
-    """Elastic-net coefficients and intercepts for every alpha from one descending path."""
+    """Elastic-net coefficients and intercepts for every alpha from one descending path;
+    with `scratch`, X_train is centred in place if it is in Fortran order (`_centre`). The
+    path reads the centred copy without copying it again (it is ours and left unchanged)."""
     alphas = _penalties(alphas)
-    Xc, yc, X_offset, y_offset = _centre(X_train, y_train)
+    Xc, yc, X_offset, y_offset = _centre(X_train, y_train, order="F", scratch=scratch)
     # The path runs from the largest alpha down with warm starts; solve each
     # distinct alpha once and map back to the caller's order.
     uniq, inverse = np.unique(alphas, return_inverse=True)
     _, path_coefs, _ = enet_path(
-        np.asfortranarray(Xc),
+        Xc,
         yc,
         l1_ratio=l1_ratio,
         alphas=uniq[::-1],
         precompute="auto",
+        copy_X=False,
         tol=tol,
         max_iter=max_iter,
     )
