@@ -100,6 +100,32 @@ def test_coefficient_importance_equals_pipeline_coefficients(explained):
     np.testing.assert_allclose(got.loc[sd.index, "spread"], sd, rtol=1e-12)
 
 
+
+def test_coefficient_importance_transforms_the_rows_only_for_categories(monkeypatch):
+    # Source: the fitted pipeline's own coef_: on numbers alone each column's importance is
+    # |w_j| and the fitting rows are not transformed; a category's needs them, once.
+    from runner.families._readers import coefficient_importance
+
+    rng = np.random.default_rng(2)
+    X = pd.DataFrame(rng.normal(size=(200, 3)), columns=["a", "b", "c"])
+    y = X.to_numpy() @ np.array([2.0, -1.0, 0.5]) + rng.normal(size=200)
+    family = load_family("linear")
+    calls = []
+    for categorical in ([], ["kind"]):
+        data = X.assign(kind=rng.choice(["p", "q", "r"], 200)) if categorical else X
+        est = family.make_estimator({"penalty": "l2", "alpha": 1.0}, seed=0, y_fit=y,
+                                    numeric=["a", "b", "c"], categorical=categorical).fit(data, y)
+        prep = est.named_steps["prep"]
+        monkeypatch.setattr(prep, "transform", lambda rows, _t=prep.transform: (
+            calls.append(len(rows)), _t(rows))[1])
+        got = coefficient_importance(est, data, list(data.columns))
+        coefs = est.named_steps["model"].coef_
+        assert [got[c] for c in "abc"] == [abs(w) for w in coefs[:3]]
+        assert calls == ([200] if categorical else [])
+        if categorical:
+            Xt = prep.transform(data)
+            assert got["kind"] == pytest.approx(np.std(Xt[:, 3:] @ coefs[3:]), rel=1e-12)
+
 def test_impurity_importance_equals_feature_importances(explained):
     # Source: the fitted tree's and forest's feature_importances_, one column per feature
     # (ordinal-coded categories), summed back to the original columns.

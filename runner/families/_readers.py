@@ -130,15 +130,16 @@ def _by_source(values, sources: list[str], features: list[str]) -> dict[str, flo
 def coefficient_importance(pipeline, X_fit, features: list[str]) -> dict[str, float]:
     """Per original column, the SD over the fitting rows of its part of the linear prediction
     (for classes: of the log-odds; with three or more classes the mean of that SD over the
-    classes' linear scores)."""
+    classes' linear scores). Only a category's indicators need the rows themselves: on
+    numbers alone the fitting rows are not transformed at all."""
     prep, model = pipeline.named_steps["prep"], pipeline.named_steps["model"]
     coefs = np.atleast_2d(np.asarray(model.coef_, dtype=float))
     sources = output_sources(prep)
-    Xt = np.asarray(prep.transform(X_fit), dtype=float)
     numeric = set()
     for name, _, columns in prep.transformers_:
         if name == "num":
             numeric.update(columns)
+    Xt = None
     out = {f: 0.0 for f in features}
     for col in features:
         idx = [i for i, s in enumerate(sources) if s == col]
@@ -147,6 +148,8 @@ def coefficient_importance(pipeline, X_fit, features: list[str]) -> dict[str, fl
         if col in numeric:  # one standardised column: SD of w*z is |w|
             out[col] = float(np.mean(np.abs(coefs[:, idx[0]])))
         else:
+            if Xt is None:
+                Xt = np.asarray(prep.transform(X_fit), dtype=float)
             out[col] = float(np.mean([np.std(Xt[:, idx] @ row[idx]) for row in coefs]))
     return out
 
