@@ -150,6 +150,25 @@ def test_threads_weigh_the_columns_to_the_same_findings(tmp_path):
     assert shared == alone  # same findings, same values, same order
 
 
+
+@pytest.mark.parametrize("cores,jobs,local_workers,expected", [
+    (2, 2, 2, 1),   # both cores fitting: the checks take this thread only
+    (8, 3, 3, 5),   # the cores the workers leave idle
+    (8, -1, 8, 1),
+    (8, 3, 0, 3),   # fits elsewhere (a cluster) or none: as many as the workers
+    (2, 4, 0, 2),
+])
+def test_checks_beside_local_fits_take_the_idle_cores(monkeypatch, cores, jobs,
+                                                       local_workers, expected):
+    import joblib
+
+    from runner.write.engine import _check_threads
+
+    monkeypatch.setattr(joblib, "cpu_count", lambda *a, **k: cores)
+    monkeypatch.setattr(joblib, "effective_n_jobs",
+                        lambda n: cores if n == -1 else n)
+    assert _check_threads(jobs, local_workers) == expected
+
 def test_best_split_equals_a_depth_one_tree():
     # reference: scikit-learn's DecisionTreeRegressor(max_depth=1), R² on its own rows
     df = diabetes_frame()
