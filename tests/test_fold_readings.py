@@ -208,6 +208,10 @@ def test_refit_readings_are_keyed_for_the_explain_step(tmp_path, diabetes_csv):
     ((key, rows),) = readings
     assert key == (prep.cells[0].cell_id, None) and kwargs["repeat"] == REFIT
     assert len(rows["test_predictions"]) == prep.plan.n_test
+    # the predictions wait by column, without a column repeating the cell's id (the explain
+    # step adds it as it stores them: tests/test_explain.py matches them to their scores)
+    assert list(rows["test_predictions"].columns) == ["predicted"]
+    assert {r["cell_id"] for r in rows["importances"]} == {prep.cells[0].cell_id}
     assert rows["explained"] == [{"n_terms": len(prep.frame.features)}]
 
 

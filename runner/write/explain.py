@@ -261,8 +261,8 @@ def _store_cell(store: Store, sweep_id: str, cell_id: str, tables: dict[str, lis
             "reused_from": None, "n_terms": None}
     for row in tables.pop("explained", []):  # the refit's size
         mark.update(row)
-    dfs = {t: table_frame(items).assign(sweep_id=sweep_id) for t, items in tables.items()
-           if items}
+    dfs = {t: table_frame(items).assign(sweep_id=sweep_id, cell_id=cell_id)
+           for t, items in tables.items() if items}
     dfs["explained"] = pd.DataFrame([mark]).astype({"n_terms": "Int64"})
     if "test_predictions" in dfs:
         dfs["test_predictions"] = observed(dfs["test_predictions"])
