@@ -35,7 +35,6 @@ sweep did, so a refit predicts what the sweep scored."""
 
 from __future__ import annotations
 
-
 import json
 from dataclasses import dataclass, field
 from typing import Callable
