@@ -3,11 +3,11 @@
 foldwise runs end to end through `run_sweep` (CSV load, plan, joblib tasks, scoring, the
 refit of every cell with test scores, DuckDB writes); the plain way is GridSearchCV with
 the same pipeline (the column transformer foldwise builds: median imputer and standard
-scaler on the numeric columns) and estimator (Ridge(solver="svd"), as foldwise's per-cell
-fits use),
+scaler on the numeric columns) and estimator (Ridge(solver="cholesky"), as foldwise's
+per-cell fits use),
 the same grid and RepeatedKFold folds, the same n_jobs, three metrics and refit=True.
 `--no-paths` (every cell fitted on its own) is the overhead proper; with paths the 200
-alphas come from one SVD per fold. Medians of interleaved runs, and their ratios.
+alphas come from one Gram matrix per fold. Medians of interleaved runs, and their ratios.
 
 Run: python benchmarks/overhead.py [--runs 3]
 """
@@ -50,7 +50,7 @@ def main(argv=None):
                         ("scale", StandardScaler())])
     prep = ColumnTransformer([("num", numeric, list(case.X_train.columns))],
                              remainder="drop", sparse_threshold=0.0)
-    pipe = Pipeline([("prep", prep), ("model", Ridge(solver="svd"))])
+    pipe = Pipeline([("prep", prep), ("model", Ridge(solver="cholesky"))])
     last = {}
 
     def plain():

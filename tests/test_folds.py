@@ -181,7 +181,7 @@ def test_scores_equal_cross_validate_on_the_recipe(sweeps, scheme, model):
                             and json_extract(c.params, '$.{cell}')::double = ?
                           order by 1, 2""", [sid, model, value])
     # the cells were scored through their path (one fit per fold for the whole grid)
-    assert set(got["how"]) == {{"ridge": "ridge_svd", "tree": "tree_path"}[model]}
+    assert set(got["how"]) == {{"ridge": "ridge_gram", "tree": "tree_path"}[model]}
     assert len(got) == len(ref)
     for row, (rep, f, score, n_fit, n_valid) in zip(got.itertuples(index=False), ref):
         assert (row.repeat, row.fold, row.n_train, row.n_valid) == (rep, f, n_fit, n_valid)

@@ -27,7 +27,7 @@ def _linear_predictions(coefs, intercepts, X_eval):
 
 
 def ridge_path_predictions(X_train, y_train, X_eval, alphas):
-    return _linear_predictions(*ridge_path_coefs(X_train, y_train, alphas), X_eval)
+    return _linear_predictions(*ridge_path_coefs(X_train, y_train, alphas)[:2], X_eval)
 
 
 def elastic_net_path_predictions(X_train, y_train, X_eval, alphas, **kw):
@@ -299,34 +299,68 @@ def _linear_data(seed=0):
     return X[:400], y[:400], X[400:]
 
 
-def test_ridge_matches_svd_solver():
+@pytest.mark.parametrize("layout", ["C", "F"])
+def test_ridge_path_is_ridge_defaults_to_the_last_bit(layout):
+    # Source: scikit-learn's own Ridge(alpha) with its default solver ("auto", which is
+    # Cholesky on dense rows) and Ridge(alpha, solver="cholesky"), fitted one alpha at a
+    # time on the same rows in the same memory layout: coefficients, intercepts and
+    # predictions equal bit for bit.
     X_tr, y_tr, X_ev = _linear_data()
+    X_tr = np.array(X_tr, order=layout)
     alphas = np.logspace(-3, 3, 10)
     preds = ridge_path_predictions(X_tr, y_tr, X_ev, alphas)
-    coefs, intercepts = ridge_path_coefs(X_tr, y_tr, alphas)
+    coefs, intercepts, solvers = ridge_path_coefs(X_tr, y_tr, alphas)
+    assert solvers == ["cholesky"] * len(alphas)
     for a, p, c, b in zip(alphas, preds, coefs, intercepts):
-        # reference: scikit-learn's own Ridge(solver="svd")
-        ref = Ridge(alpha=a, solver="svd").fit(X_tr, y_tr)
-        ref_p = ref.predict(X_ev)
-        np.testing.assert_allclose(p, ref_p, rtol=1e-12, atol=1e-12 * np.abs(ref_p).max())
-        np.testing.assert_allclose(c, ref.coef_, rtol=1e-12, atol=1e-12 * np.abs(ref.coef_).max())
-        assert abs(b - ref.intercept_) <= 1e-12 * abs(ref.intercept_)
+        for ref in (Ridge(alpha=a).fit(X_tr, y_tr), Ridge(alpha=a, solver="cholesky").fit(
+                X_tr, y_tr)):
+            assert ref.solver_ == "cholesky"
+            assert np.array_equal(c, ref.coef_) and b == ref.intercept_, a
+            assert np.array_equal(p, ref.predict(X_ev)), a
 
 
 def test_ridge_model_from_the_path_is_the_refit_byte_for_byte():
-    # Source: scikit-learn's own Ridge(alpha, solver="svd").fit on the same rows; its pickle
-    # (every fitted number, attribute and their order) equals the one built from the path.
-    import pickle
-
+    # Source: scikit-learn's own Ridge(alpha, solver="cholesky").fit on the same rows; its
+    # pickle (every fitted number, attribute and their order) equals the one built from the
+    # path. (12, 1) includes alpha 0: least squares through the same solve.
     rng = np.random.default_rng(4)
     for n, p in [(400, 10), (37, 3), (1200, 25), (12, 1)]:
         X = rng.standard_normal((n, p)) * rng.uniform(0.1, 20.0, p) + rng.uniform(-5, 5, p)
         y = X @ rng.standard_normal(p) + rng.standard_normal(n) * 3.0
         alphas = [0.0, 1e-3, 0.7, 25.0, 1e5]
-        coefs, intercepts = ridge_path_coefs(X, y, alphas)
-        for a, c, b in zip(alphas, coefs, intercepts):
-            ref = Ridge(alpha=a, solver="svd").fit(X, y)
-            assert pickle.dumps(ridge_model(a, c, b)) == pickle.dumps(ref), (n, p, a)
+        coefs, intercepts, solvers = ridge_path_coefs(X, y, alphas)
+        for a, c, b, solver in zip(alphas, coefs, intercepts, solvers):
+            ref = Ridge(alpha=a, solver="cholesky").fit(X, y)
+            assert pickle.dumps(ridge_model(a, c, b, solver)) == pickle.dumps(ref), (n, p, a)
+
+
+def test_ridge_on_a_singular_matrix_takes_the_svd_route_as_the_fit_does():
+    # Source: scikit-learn's own Ridge(alpha, solver="cholesky"), which falls back to its SVD
+    # solver when the Cholesky factorisation fails (solver_ says "svd"). Two equal columns
+    # make XᵀX singular; an alpha far below its rounding leaves it singular, a larger one
+    # does not. Pickles equal, so the solver each alpha took is the fit's own.
+    x = np.arange(1.0, 9.0)[:, None]
+    X = np.hstack([x, x, (np.arange(8.0) % 3)[:, None]])
+    y = np.arange(8.0) ** 1.5
+    alphas = [1e-300, 1e-10, 1e-20, 2.0]
+    coefs, intercepts, solvers = ridge_path_coefs(X, y, alphas)
+    assert solvers == ["svd", "cholesky", "svd", "cholesky"]
+    for a, c, b, solver in zip(alphas, coefs, intercepts, solvers):
+        ref = Ridge(alpha=a, solver="cholesky").fit(X, y)
+        assert ref.solver_ == solver
+        assert pickle.dumps(ridge_model(a, c, b, solver)) == pickle.dumps(ref), a
+
+
+def test_ridge_with_more_columns_than_rows_is_each_alpha_fit():
+    # Source: scikit-learn's own Ridge(alpha, solver="cholesky"), which solves the dual
+    # problem when columns outnumber rows; the path hands each alpha to that fit.
+    rng = np.random.default_rng(5)
+    X, y = rng.standard_normal((15, 40)), rng.standard_normal(15)
+    alphas = [0.01, 1.0, 30.0]
+    coefs, intercepts, solvers = ridge_path_coefs(X, y, alphas)
+    for a, c, b, solver in zip(alphas, coefs, intercepts, solvers):
+        ref = Ridge(alpha=a, solver="cholesky").fit(X, y)
+        assert pickle.dumps(ridge_model(a, c, b, solver)) == pickle.dumps(ref), a
 
 
 def _traced_peak(work) -> int:
@@ -344,7 +378,7 @@ def _traced_peak(work) -> int:
 
 
 def test_ridge_on_scratch_rows_is_the_same_fit_with_one_copy_less():
-    # Source: scikit-learn's own Ridge(alpha, solver="svd").fit on the same rows (pickles
+    # Source: scikit-learn's own Ridge(alpha, solver="cholesky").fit on the same rows (pickles
     # equal). Centring the caller's scratch rows in place instead of a copy changes no bit,
     # leaves other callers' rows alone, and spares one copy of the design at the peak.
     rng = np.random.default_rng(8)
@@ -355,12 +389,12 @@ def test_ridge_on_scratch_rows_is_the_same_fit_with_one_copy_less():
     plain = ridge_path_coefs(X, y, alphas)
     assert np.array_equal(X, kept)
     scratch = kept.copy()
-    coefs, intercepts = ridge_path_coefs(scratch, y, alphas, scratch=True)
+    coefs, intercepts, solvers = ridge_path_coefs(scratch, y, alphas, scratch=True)
     assert np.array_equal(coefs, plain[0]) and np.array_equal(intercepts, plain[1])
     assert np.array_equal(scratch, kept - kept.mean(axis=0))  # the rows were the scratch
-    for a, c, b in zip(alphas, coefs, intercepts):
-        ref = Ridge(alpha=a, solver="svd").fit(kept, y)
-        assert pickle.dumps(ridge_model(a, c, b)) == pickle.dumps(ref), a
+    for a, c, b, solver in zip(alphas, coefs, intercepts, solvers):
+        ref = Ridge(alpha=a, solver="cholesky").fit(kept, y)
+        assert pickle.dumps(ridge_model(a, c, b, solver)) == pickle.dumps(ref), a
     copied = _traced_peak(lambda: ridge_path_coefs(X, y, alphas))
     in_place = _traced_peak(lambda: ridge_path_coefs(X.copy(), y, alphas, scratch=True))
     # in_place counts the scratch copy made for it: the same peak means one copy less

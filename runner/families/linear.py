@@ -3,9 +3,10 @@ logistic regression with the same penalties for classes, after median imputation
 standardisation of numbers and one-hot encoding of categories, all fitted on the fitting
 rows only.
 
-A grid over `alpha` is scored without one fit per cell: ridge from one SVD of the centred
-design per fold (the arithmetic of Ridge(solver="svd"), step for step: each alpha's model is
-that fit's, so the explain step reads it instead of refitting), lasso and elastic
+A grid over `alpha` is scored without one fit per cell: ridge from one Gram matrix of the
+centred design per fold and a small Cholesky solve per alpha (the arithmetic of
+Ridge(solver="cholesky"), which `Ridge()` runs on dense rows, step for step: each alpha's
+model is that fit's, so the explain step reads it instead of refitting), lasso and elastic
 net from one warm-started coordinate-descent path per fold and l1_ratio, with Lasso's and
 ElasticNet's default tol and max_iter (equal within that solver tolerance)."""
 
@@ -39,7 +40,7 @@ def _regressor(params: dict):
     if penalty == "none":
         return LinearRegression()
     if penalty == "l2":
-        return Ridge(alpha=params["alpha"], solver="svd")
+        return Ridge(alpha=params["alpha"], solver="cholesky")
     if penalty == "l1":
         return Lasso(alpha=params["alpha"], tol=_CD_TOL, max_iter=_CD_MAX_ITER)
     return ElasticNet(alpha=params["alpha"], l1_ratio=params["l1_ratio"], tol=_CD_TOL,
@@ -84,7 +85,7 @@ def _penalised(params: dict) -> bool:
 
 
 def _how(params: dict) -> str:
-    return "ridge_svd" if params["penalty"] == "l2" else "enet_path"
+    return "ridge_gram" if params["penalty"] == "l2" else "enet_path"
 
 
 def _alpha_path(group: list[dict], Xt_fit, y_fit, Xt_evals, *, seed: int,
@@ -94,20 +95,22 @@ def _alpha_path(group: list[dict], Xt_fit, y_fit, Xt_evals, *, seed: int,
     alphas = np.array([params["alpha"] for params in group], dtype=np.float64)
     penalty = group[0]["penalty"]
     if penalty == "l2":
-        coefs, intercepts = ridge_path_coefs(Xt_fit, y_fit, alphas, scratch=scratch)
+        coefs, intercepts, solvers = ridge_path_coefs(Xt_fit, y_fit, alphas, scratch=scratch)
     else:
         l1_ratio = 1.0 if penalty == "l1" else float(group[0]["l1_ratio"])
         coefs, intercepts = elastic_net_path_coefs(Xt_fit, y_fit, alphas, l1_ratio=l1_ratio,
                                                    tol=_CD_TOL, max_iter=_CD_MAX_ITER,
                                                    scratch=scratch)
     fits = [CellFit() for _ in group]
-    for X in Xt_evals:
-        preds = np.asarray(X, dtype=np.float64) @ coefs.T + intercepts
-        for fit, p in zip(fits, preds.T):
-            fit.predictions.append(np.ascontiguousarray(p))
-    if penalty == "l2":  # the path did each alpha's own Ridge(solver="svd") fit: read that
-        for fit, params, coef, intercept in zip(fits, group, coefs, intercepts):
-            fit.make_model = functools.partial(ridge_model, params["alpha"], coef, intercept)
+    for X in Xt_evals:  # one product per alpha, as each alpha's own model predicts
+        X = np.asarray(X, dtype=np.float64)
+        for fit, coef, intercept in zip(fits, coefs, intercepts):
+            fit.predictions.append(X @ coef + intercept)
+    if penalty == "l2":  # the path did each alpha's own Ridge(solver="cholesky") fit: read it
+        for fit, params, coef, intercept, solver in zip(fits, group, coefs, intercepts,
+                                                         solvers):
+            fit.make_model = functools.partial(ridge_model, params["alpha"], coef, intercept,
+                                               solver)
     return fits
 
 
@@ -116,8 +119,8 @@ _alpha_path.takes_scratch = True  # may centre the fitting rows in place (fit_gr
 
 def fit_cells(cells, X_fit, y_fit, X_evals, *, seed, numeric, categorical, paths=True,
               task="regression", read=None):
-    """Score every cell on the fitting rows: alpha grids from one SVD or path per penalty and
-    l1_ratio, or (with `paths=False`, least squares, a lone alpha, or classes: logistic
+    """Score every cell on the fitting rows: alpha grids from one Gram matrix or path per
+    penalty and l1_ratio, or (with `paths=False`, least squares, a lone alpha, or classes: logistic
     regression has no exact one-fit route here) one fit per cell."""
     return fit_grouped(make_estimator, linear_preprocessor, _alpha_path, _how, PATH_PARAMS,
                        cells, X_fit, y_fit, X_evals, seed=seed, numeric=numeric,

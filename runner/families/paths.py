@@ -9,7 +9,9 @@ grid value, while fitting (or decomposing) only once:
 * random forests: running prefix means over the trees, bit-for-bit equal to forests
   with fewer ``n_estimators``, the forest grown a batch of trees at a time and each
   batch let go once read, so that a task holds a few trees, not the forest;
-* ridge: one SVD of the centred design shared by all ``alpha`` values;
+* ridge: one Gram matrix of the centred design shared by all ``alpha`` values, then one
+  small Cholesky solve per alpha (the arithmetic of ``Ridge(solver="cholesky")``, which
+  is what ``Ridge()`` runs on dense rows);
 * lasso / elastic net: one coordinate-descent path per ``l1_ratio``.
 
 Only numpy and scikit-learn are imported; the functions are pure.
@@ -20,6 +22,7 @@ import functools
 import warnings
 
 import numpy as np
+from scipy import linalg
 from sklearn.linear_model import Ridge, enet_path
 from sklearn.utils.validation import check_array, check_is_fitted
 
@@ -399,7 +402,7 @@ def _mean_importances(per_tree, n_features):
 
 
 # --------------------------------------------------------------------------
-# Linear models: ridge via one SVD, lasso / elastic net via one path
+# Linear models: ridge via one Gram matrix, lasso / elastic net via one path
 # --------------------------------------------------------------------------
 
 
@@ -430,50 +433,81 @@ def _penalties(alphas):
 
 
 def ridge_path_coefs(X_train, y_train, alphas, *, scratch: bool = False):
-    """Ridge coefficients and intercepts for every alpha from one SVD of the centred design;
-    with `scratch`, X_train is centred in place (`_centre`)."""
+    """Ridge coefficients, intercepts and solver names for every alpha, step for step as
+    `Ridge(alpha, solver="cholesky")` fits them: from one Gram matrix XᵀX of the centred
+    design, a p × p Cholesky solve per alpha; an alpha whose matrix the solve finds singular
+    takes the SVD route, as that fit does. With more columns than rows the fit solves the
+    dual problem, so each alpha is that fit itself. With `scratch`, X_train is centred in
+    place (`_centre`)."""
     alphas = _penalties(alphas)
+    n, p = np.shape(X_train)
+    if p > n:
+        fits = [Ridge(alpha=a, solver="cholesky").fit(X_train, y_train) for a in alphas]
+        return (np.array([f.coef_ for f in fits]), np.array([f.intercept_ for f in fits]),
+                [f.solver_ for f in fits])
     Xc, yc, X_offset, y_offset = _centre(X_train, y_train, scratch=scratch)
-    # Same steps as Ridge(solver="svd"): small singular values are dropped.
+    gram, Xy = Xc.T @ Xc, Xc.T @ yc[:, None]
+    coefs = np.empty((alphas.size, p), dtype=np.float64)
+    solvers, svd = [], None
+    for i, a in enumerate(alphas):
+        lhs = gram.copy()
+        lhs.flat[:: p + 1] += a
+        try:
+            coefs[i] = linalg.solve(lhs, Xy, assume_a="pos", overwrite_a=True).T[0]
+            solvers.append("cholesky")
+        except linalg.LinAlgError:
+            svd = svd or _svd_parts(Xc, yc)
+            coefs[i] = _svd_coef(*svd, a)
+            solvers.append("svd")
+    intercepts = np.array([y_offset - X_offset @ c for c in coefs])
+    return coefs, intercepts, solvers
+
+
+def _svd_parts(Xc, yc):
+    """What Ridge(solver="svd") computes once from the centred design (singular values
+    at or below 1e-15 dropped, as it drops them): the route a Cholesky fit takes when its
+    matrix is singular."""
     U, s, Vt = np.linalg.svd(Xc, full_matrices=False)
     keep = s > 1e-15
-    s_nnz = s[keep][:, None]
-    UTy = U.T @ yc[:, None]
-    coefs = np.empty((alphas.size, Xc.shape[1]), dtype=np.float64)
-    for i, a in enumerate(alphas):
-        d = np.zeros((s.size, 1), dtype=np.float64)
-        d[keep] = s_nnz / (s_nnz**2 + np.array([a]))
-        coefs[i] = (Vt.T @ (d * UTy))[:, 0]
-    intercepts = np.array([y_offset - X_offset @ c for c in coefs])
-    return coefs, intercepts
+    return s, keep, s[keep][:, None], U.T @ yc[:, None], Vt
 
 
-_RIDGE_DATA_FREE = ("n_iter_", "solver_")
-"""What a fitted Ridge(solver="svd") holds besides its coefficients, intercept and width:
-values that do not depend on the data (taken from a tiny fit, so each version's own)."""
+def _svd_coef(s, keep, s_nnz, UTy, Vt, alpha) -> np.ndarray:
+    """One alpha's coefficients from `_svd_parts`, by Ridge(solver="svd")'s steps."""
+    d = np.zeros((s.size, 1), dtype=np.float64)
+    d[keep] = s_nnz / (s_nnz**2 + np.array([alpha]))
+    return (Vt.T @ (d * UTy))[:, 0]
+
+
+_RIDGE_DATA_FREE = ("n_iter_",)
+"""What a fitted Ridge(solver="cholesky") holds besides its coefficients, intercept, width
+and solver: values that do not depend on the data (taken from a tiny fit, so each
+version's own)."""
 
 
 @functools.cache
 def _ridge_fitted() -> tuple[tuple[str, ...], dict]:
-    """The names a Ridge(solver="svd") fit adds, in the order it adds them, and the
+    """The names a Ridge(solver="cholesky") fit adds, in the order it adds them, and the
     data-free values among them, from a fit on three rows."""
-    toy = Ridge(solver="svd").fit(np.array([[0.0], [1.0], [2.0]]), np.array([0.0, 1.0, 3.0]))
+    toy = Ridge(solver="cholesky").fit(np.array([[0.0], [1.0], [2.0]]),
+                                       np.array([0.0, 1.0, 3.0]))
     added = tuple(k for k in vars(toy) if k not in Ridge().get_params())
     return added, {k: getattr(toy, k) for k in added if k in _RIDGE_DATA_FREE}
 
 
-def ridge_model(alpha, coef: np.ndarray, intercept) -> Ridge:
-    """The Ridge(alpha, solver="svd") that a fit on the path's rows gives, from the path's
-    coefficients and intercept: `ridge_path_coefs` does that fit's arithmetic step for step,
-    so they are its numbers (tests/test_paths.py compares the pickles). Refuses (ValueError)
-    when this scikit-learn's Ridge holds something else, so that the cell is refitted."""
+def ridge_model(alpha, coef: np.ndarray, intercept, solver: str = "cholesky") -> Ridge:
+    """The Ridge(alpha, solver="cholesky") that a fit on the path's rows gives, from the
+    path's coefficients, intercept and solver (`ridge_path_coefs` does that fit's arithmetic
+    step for step, so they are its numbers: tests/test_paths.py compares the pickles).
+    Refuses (ValueError) when this scikit-learn's Ridge holds something else, so that the
+    cell is refitted."""
     added, data_free = _ridge_fitted()
     values = {"n_features_in_": coef.shape[0], "coef_": np.array(coef, dtype=np.float64),
-              "intercept_": np.float64(intercept), **data_free}
+              "intercept_": np.float64(intercept), "solver_": solver, **data_free}
     unknown = set(added) - set(values)
     if unknown:
         raise ValueError(f"Ridge holds {sorted(unknown)} after a fit; refit instead")
-    model = Ridge(alpha=alpha, solver="svd")
+    model = Ridge(alpha=alpha, solver="cholesky")
     for key in added:
         setattr(model, key, values[key])
     return model

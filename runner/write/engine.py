@@ -12,7 +12,7 @@ path parameter (a tree's pruning strength, a forest's size, a linear model's alp
 cells that share every other parameter are scored from one fit (`families/paths.py`), with
 the same results as one fit per cell; otherwise, or with `paths=False`, each cell is fitted
 on its own. Every score row records the route in `how` ("plain", "tree_path",
-"forest_prefix", "ridge_svd", "enet_path"). A grouped cell's `fit_seconds` is an equal
+"forest_prefix", "ridge_gram", "enet_path"). A grouped cell's `fit_seconds` is an equal
 share of its group's time (see `families._base.fit_grouped`)."""
 
 from __future__ import annotations

@@ -19,11 +19,14 @@ __all__ = ["Cell", "expand_model", "expand_spec", "cell_id", "EVAL_VERSION", "ra
            "spread_along_path", "count_model", "ModelCount", "range_size", "same_value",
            "SCORE_PACKAGES", "score_versions"]
 
-EVAL_VERSION = "2"
+EVAL_VERSION = "3"
 """Bumped whenever a change to foldwise would change any stored score; enters every cell id.
 2: numeric columns listed as categorical are coded in numeric order (they were text order);
 {path: N} gives one set of alphas per model (it was one per combination); cell ids hold
-the versions of the packages that change scores."""
+the versions of the packages that change scores.
+3: ridge is Ridge(solver="cholesky"), the solver `Ridge()` runs on dense rows (it was
+solver="svd"): the scores a user's own `Ridge()` gives, to the last bit; the last bits of
+ridge scores changed."""
 
 
 @dataclass(frozen=True)
