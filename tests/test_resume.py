@@ -94,6 +94,37 @@ def test_a_source_sweep_removed_before_its_rows_are_copied_is_fitted_again(folde
     pd.testing.assert_frame_equal(_scores(store, result.sweep_id), _scores(store, fresh.sweep_id))
 
 
+def test_a_new_evaluation_version_stops_reuse_and_run_says_so(folder, monkeypatch):
+    # A store written by a foldwise whose evaluation version was 2, before sweeps recorded
+    # it: this foldwise's cell ids differ, nothing is copied, and the run says why.
+    import duckdb
+
+    from runner.write import grid
+
+    spec = spec_from(folder, MODELS)
+    store = Store(folder / "store.duckdb")
+    monkeypatch.setattr(grid, "EVAL_VERSION", "2")
+    first = run_sweep(spec, store=store, jobs=1)
+    monkeypatch.undo()
+    with duckdb.connect(str(folder / "store.duckdb")) as con:  # as an older foldwise wrote it
+        con.execute("update sweeps set versions = json_object('scikit-learn', "
+                    "versions->>'scikit-learn', 'numpy', versions->>'numpy', 'scipy', "
+                    "versions->>'scipy', 'pandas', versions->>'pandas') where sweep_id = ?",
+                    [first.sweep_id])
+    said: list[str] = []
+    again = run_sweep(spec, store=store, jobs=1, on_message=said.append)
+    assert (again.n_reused, again.n_fitted) == (0, N_CELLS)
+    assert said == [f"note: {N_CELLS} cells were not reused: earlier sweeps of the same data "
+                    f"and plan scored them with foldwise's evaluation version 2 (here "
+                    f"{grid.EVAL_VERSION}). Versions that can change a score are part of "
+                    "each cell's identity, so these are fitted again."]
+    versions = store.query("select versions::varchar v from sweeps where sweep_id = ?",
+                           [again.sweep_id]).v[0]
+    assert json.loads(versions)["evaluation"] == grid.EVAL_VERSION == "3"
+    third = run_sweep(spec, store=store, jobs=1, on_message=said.append)
+    assert third.n_reused == N_CELLS and len(said) == 1
+
+
 def test_an_upgrade_of_a_scoring_package_stops_reuse_and_run_says_so(folder, monkeypatch):
     # The same spec and data after "upgrading" scikit-learn: every cell id changes, nothing
     # is copied, and the run says which versions differ.

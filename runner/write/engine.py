@@ -183,13 +183,13 @@ def store_path(spec: Spec, override=None):
 
 def _versions() -> dict:
     """What a sweep records of its software: every package whose version enters a cell id,
-    with Python, DuckDB and foldwise."""
+    with Python, DuckDB, foldwise and its evaluation version (which enters the ids too)."""
     import duckdb
 
-    from .grid import score_versions
+    from .grid import EVAL_VERSION, EVALUATION, score_versions
 
     return {"python": platform.python_version(), **score_versions(),
-            "duckdb": duckdb.__version__, "foldwise": __version__}
+            "duckdb": duckdb.__version__, "foldwise": __version__, EVALUATION: EVAL_VERSION}
 
 
 _TASKS_PER_WORKER = 8

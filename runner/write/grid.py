@@ -15,9 +15,9 @@ import numpy as np
 from ..families import FAMILIES
 from .spec import LinearRange, LogRange, ModelSpec, PathRange
 
-__all__ = ["Cell", "expand_model", "expand_spec", "cell_id", "EVAL_VERSION", "range_values",
-           "spread_along_path", "count_model", "ModelCount", "range_size", "same_value",
-           "SCORE_PACKAGES", "score_versions"]
+__all__ = ["Cell", "expand_model", "expand_spec", "cell_id", "EVAL_VERSION", "EVALUATION",
+           "range_values", "spread_along_path", "count_model", "ModelCount", "range_size",
+           "same_value", "SCORE_PACKAGES", "score_versions"]
 
 EVAL_VERSION = "3"
 """Bumped whenever a change to foldwise would change any stored score; enters every cell id.
@@ -27,6 +27,9 @@ the versions of the packages that change scores.
 3: ridge is Ridge(solver="cholesky"), the solver `Ridge()` runs on dense rows (it was
 solver="svd"): the scores a user's own `Ridge()` gives, to the last bit; the last bits of
 ridge scores changed."""
+
+EVALUATION = "evaluation"
+"""The key of the evaluation version in a sweep's recorded versions (`sweeps.versions`)."""
 
 
 @dataclass(frozen=True)
@@ -109,13 +112,15 @@ def score_versions() -> dict[str, str]:
 
 
 def cell_id(family: str, params: dict, data_sha256: str, plan_identity: dict, *,
-            model: str = "", versions: dict | None = None) -> str:
-    """A stable hash of (model label, family, params, data, plan, evaluation version and
-    the versions of the packages that can change a score).
+            model: str = "", versions: dict | None = None,
+            evaluation: str | None = None) -> str:
+    """A stable hash of (model label, family, params, data, plan, evaluation version (this
+    foldwise's unless given) and the versions of the packages that can change a score).
 
     The label is part of it so two models that share a grid point stay two cells."""
     payload = json.dumps({"model": model, "family": family, "params": params,
-                          "data": data_sha256, "plan": plan_identity, "eval": EVAL_VERSION,
+                          "data": data_sha256, "plan": plan_identity,
+                          "eval": evaluation or EVAL_VERSION,
                           "versions": versions or {}}, sort_keys=True)
     return hashlib.sha256(payload.encode()).hexdigest()[:16]
 

@@ -10,7 +10,7 @@ import json
 import pandas as pd
 
 from ..store import Store
-from .grid import SCORE_PACKAGES, cell_id, score_versions
+from .grid import EVAL_VERSION, EVALUATION, SCORE_PACKAGES, cell_id, score_versions
 from .leakage import FINDING_COLUMNS, ordered
 from .resampling import REFIT, plan_identity
 
@@ -112,8 +112,9 @@ def copy_explained(store: Store, sweep_id: str, cell_ids: list[str], settings: s
 
 def version_note(store: Store, prep, found) -> str | None:
     """A sentence if cells found nothing to reuse only because earlier sweeps of the same
-    data and plan scored them with other versions of the packages that change scores: each
-    such cell's id, computed with an earlier sweep's versions, is in the store."""
+    data and plan scored them with other versions of the packages that change scores, or
+    under another evaluation version of foldwise: each such cell's id, computed with an
+    earlier sweep's versions, is in the store."""
     have = set() if found is None else set(found[0].cell_id) | set(found[1].cell_id)
     missing = [c for c in prep.cells if c.cell_id not in have]
     if not missing or not store.holds_tables():
@@ -121,16 +122,18 @@ def version_note(store: Store, prep, found) -> str | None:
     sweeps = store.query("select sweep_id, versions::varchar as versions from sweeps "
                          "where data_sha256 = ? order by started_at desc",
                          [prep.frame.sha256])
-    ours, plan = score_versions(), plan_identity(prep.spec, prep.frame.task)
+    ours = {**score_versions(), EVALUATION: EVAL_VERSION}
+    plan = plan_identity(prep.spec, prep.frame.task)
     seen, hits = set(), []
     for stored in sweeps["versions"]:
-        theirs = {k: v for k, v in json.loads(stored or "{}").items() if k in SCORE_PACKAGES}
-        key = json.dumps(theirs, sort_keys=True)
-        if theirs == ours or key in seen or set(theirs) != set(SCORE_PACKAGES):
+        theirs = _score_versions_of(stored)
+        if theirs is None or theirs == ours or json.dumps(theirs, sort_keys=True) in seen:
             continue
-        seen.add(key)
+        seen.add(json.dumps(theirs, sort_keys=True))
+        packages = {k: theirs[k] for k in SCORE_PACKAGES}
         ids = {cell_id(c.family, c.params, prep.frame.sha256, plan, model=c.model,
-                       versions=theirs): c.cell_id for c in missing}
+                       versions=packages, evaluation=theirs[EVALUATION]): c.cell_id
+               for c in missing}
         found_ids = store.query("select distinct cell_id from fold_scores where "
                                 "list_contains(?::varchar[], cell_id)", [list(ids)])
         cells = {ids[i] for i in found_ids["cell_id"]} - {c for _, c, _ in hits}
@@ -140,12 +143,33 @@ def version_note(store: Store, prep, found) -> str | None:
         return None
     n = len(set().union(*(cells for _, cells, _ in hits)))
     theirs = hits[0][0]
-    changed = ", ".join(f"{k} {theirs[k]} (here {ours[k]})" for k in SCORE_PACKAGES
-                        if theirs[k] != ours[k])
+    changed = [f"{k} {theirs[k]} (here {ours[k]})" for k in SCORE_PACKAGES
+               if theirs[k] != ours[k]]
+    if theirs[EVALUATION] != ours[EVALUATION]:
+        changed.append(f"foldwise's evaluation version {theirs[EVALUATION]} (here "
+                       f"{ours[EVALUATION]})")
     return (f"note: {n} cell{'s were' if n != 1 else ' was'} not reused: earlier sweeps of "
-            f"the same data and plan scored {'them' if n != 1 else 'it'} with {changed}. "
-            "Versions that can change a score are part of each cell's identity, so "
-            f"{'these are' if n != 1 else 'it is'} fitted again.")
+            f"the same data and plan scored {'them' if n != 1 else 'it'} with "
+            f"{', '.join(changed)}. Versions that can change a score are part of each "
+            f"cell's identity, so {'these are' if n != 1 else 'it is'} fitted again.")
+
+
+def _score_versions_of(stored: str | None) -> dict | None:
+    """From a sweep's recorded versions (a store's text: untrusted), the versions that enter
+    a cell id, or None if the sweep did not record them all. A sweep from before the
+    evaluation version was recorded was scored under version 2 (the first to record the
+    packages)."""
+    try:
+        recorded = json.loads(stored or "{}")
+    except ValueError:
+        return None
+    if not isinstance(recorded, dict):
+        return None
+    theirs = {k: recorded.get(k) for k in SCORE_PACKAGES}
+    theirs[EVALUATION] = recorded.get(EVALUATION, "2")
+    if not all(isinstance(v, str) and 0 < len(v) <= 40 for v in theirs.values()):
+        return None
+    return theirs
 
 
 def find_findings(store: Store, key: str) -> pd.DataFrame | None:
