@@ -246,6 +246,25 @@ def test_a_failing_group_fails_every_cell_as_plain_fits_do():
     assert [f.how for f in grouped] == ["tree_path", "tree_path"]
 
 
+def test_a_ridge_path_counts_each_alpha_s_warnings_as_its_own_fit_does():
+    # Reference: the same cells fitted one by one (scikit-learn's Ridge(solver="cholesky")
+    # in foldwise's pipeline): only the tiny alpha's solve warns of an ill-conditioned
+    # matrix (two nearly equal columns), so only its row counts a warning either way.
+    rng = np.random.default_rng(0)
+    x = rng.normal(size=200)
+    X = pd.DataFrame({"a": x, "b": 3 * x + 1e-9 * rng.normal(size=200),
+                      "c": rng.normal(size=200)})
+    y = x + rng.normal(size=200)
+    cells = [{"penalty": "l2", "alpha": a} for a in (1e-14, 1e-9, 1e-3, 1.0)]
+    module = load_family("linear")
+    kw = dict(seed=0, numeric=list("abc"), categorical=[])
+    grouped = module.fit_cells(cells, X, y, [X], paths=True, **kw)
+    alone = module.fit_cells(cells, X, y, [X], paths=False, **kw)
+    assert [f.how for f in grouped] == ["ridge_gram"] * 4
+    assert [f.n_warnings for f in grouped] == [f.n_warnings for f in alone] == [1, 0, 0, 0]
+    for a, b in zip(grouped, alone):
+        assert np.array_equal(a.predictions[0], b.predictions[0])
+
 
 def test_only_the_last_alpha_group_centres_the_rows_in_place():
     # Three path groups share one transformed design; the last may centre it in place

@@ -309,7 +309,7 @@ def test_ridge_path_is_ridge_defaults_to_the_last_bit(layout):
     X_tr = np.array(X_tr, order=layout)
     alphas = np.logspace(-3, 3, 10)
     preds = ridge_path_predictions(X_tr, y_tr, X_ev, alphas)
-    coefs, intercepts, solvers = ridge_path_coefs(X_tr, y_tr, alphas)
+    coefs, intercepts, solvers, _ = ridge_path_coefs(X_tr, y_tr, alphas)
     assert solvers == ["cholesky"] * len(alphas)
     for a, p, c, b in zip(alphas, preds, coefs, intercepts):
         for ref in (Ridge(alpha=a).fit(X_tr, y_tr), Ridge(alpha=a, solver="cholesky").fit(
@@ -328,7 +328,7 @@ def test_ridge_model_from_the_path_is_the_refit_byte_for_byte():
         X = rng.standard_normal((n, p)) * rng.uniform(0.1, 20.0, p) + rng.uniform(-5, 5, p)
         y = X @ rng.standard_normal(p) + rng.standard_normal(n) * 3.0
         alphas = [0.0, 1e-3, 0.7, 25.0, 1e5]
-        coefs, intercepts, solvers = ridge_path_coefs(X, y, alphas)
+        coefs, intercepts, solvers, _ = ridge_path_coefs(X, y, alphas)
         for a, c, b, solver in zip(alphas, coefs, intercepts, solvers):
             ref = Ridge(alpha=a, solver="cholesky").fit(X, y)
             assert pickle.dumps(ridge_model(a, c, b, solver)) == pickle.dumps(ref), (n, p, a)
@@ -343,12 +343,44 @@ def test_ridge_on_a_singular_matrix_takes_the_svd_route_as_the_fit_does():
     X = np.hstack([x, x, (np.arange(8.0) % 3)[:, None]])
     y = np.arange(8.0) ** 1.5
     alphas = [1e-300, 1e-10, 1e-20, 2.0]
-    coefs, intercepts, solvers = ridge_path_coefs(X, y, alphas)
+    coefs, intercepts, solvers, _ = ridge_path_coefs(X, y, alphas)
     assert solvers == ["svd", "cholesky", "svd", "cholesky"]
     for a, c, b, solver in zip(alphas, coefs, intercepts, solvers):
         ref = Ridge(alpha=a, solver="cholesky").fit(X, y)
         assert ref.solver_ == solver
         assert pickle.dumps(ridge_model(a, c, b, solver)) == pickle.dumps(ref), a
+
+
+def test_ridge_path_warnings_belong_to_the_alpha_that_raised_them():
+    # Source: scikit-learn's own Ridge(alpha, solver="cholesky") fitted alone on the same
+    # rows, whose solve warns of an ill-conditioned matrix for the tiny alpha only (two
+    # nearly equal columns); the path gives each alpha the warnings of its own solve, and
+    # lets none escape to the caller.
+    import warnings
+
+    import pandas as pd
+
+    from runner.families._base import linear_preprocessor
+
+    rng = np.random.default_rng(0)
+    x = rng.normal(size=200)
+    frame = pd.DataFrame({"a": x, "b": 3 * x + 1e-9 * rng.normal(size=200),
+                          "c": rng.normal(size=200)})
+    y = x + rng.normal(size=200)
+    X = linear_preprocessor(list("abc"), []).fit_transform(frame)  # the rows a path gets
+    alphas = [1e-14, 1e-9, 1e-3, 1.0]
+    alone = []
+    for a in alphas:
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always")
+            Ridge(alpha=a, solver="cholesky").fit(X, y)
+        alone.append([w.category for w in caught])
+    assert alone[0] and not any(alone[1:])  # the case holds on this scikit-learn
+    with warnings.catch_warnings(record=True) as escaped:
+        warnings.simplefilter("always")
+        path = ridge_path_coefs(X, y, alphas)
+    assert escaped == []
+    assert [[w.category for w in caught] for caught in path.warned] == alone
 
 
 def test_ridge_with_more_columns_than_rows_is_each_alpha_fit():
@@ -357,7 +389,7 @@ def test_ridge_with_more_columns_than_rows_is_each_alpha_fit():
     rng = np.random.default_rng(5)
     X, y = rng.standard_normal((15, 40)), rng.standard_normal(15)
     alphas = [0.01, 1.0, 30.0]
-    coefs, intercepts, solvers = ridge_path_coefs(X, y, alphas)
+    coefs, intercepts, solvers, _ = ridge_path_coefs(X, y, alphas)
     for a, c, b, solver in zip(alphas, coefs, intercepts, solvers):
         ref = Ridge(alpha=a, solver="cholesky").fit(X, y)
         assert pickle.dumps(ridge_model(a, c, b, solver)) == pickle.dumps(ref), a
@@ -389,7 +421,7 @@ def test_ridge_on_scratch_rows_is_the_same_fit_with_one_copy_less():
     plain = ridge_path_coefs(X, y, alphas)
     assert np.array_equal(X, kept)
     scratch = kept.copy()
-    coefs, intercepts, solvers = ridge_path_coefs(scratch, y, alphas, scratch=True)
+    coefs, intercepts, solvers, _ = ridge_path_coefs(scratch, y, alphas, scratch=True)
     assert np.array_equal(coefs, plain[0]) and np.array_equal(intercepts, plain[1])
     assert np.array_equal(scratch, kept - kept.mean(axis=0))  # the rows were the scratch
     for a, c, b, solver in zip(alphas, coefs, intercepts, solvers):

@@ -210,7 +210,8 @@ def prediction_columns(pipeline, X) -> dict[str, np.ndarray]:
     return out
 
 
-def _count_warnings(caught) -> int:
+def count_warnings(caught) -> int:
+    """The warnings that count against a fit: all but deprecation notices."""
     return sum(1 for w in caught if not issubclass(w.category, (DeprecationWarning, FutureWarning)))
 
 
@@ -257,7 +258,7 @@ def fit_each(make_estimator: Callable, cells: list[dict], X_fit, y_fit, X_evals,
                 est.fit(X_fit, y_fit)
                 result.fit_seconds = time.perf_counter() - start
                 result.predictions = [predict(est, X, task) for X in X_evals]
-            result.n_warnings = _count_warnings(caught)
+            result.n_warnings = count_warnings(caught)
             if leaves is not None:
                 result.n_leaves = leaves(est)
         except Exception as exc:  # a failed fit is data: recorded, the sweep goes on
@@ -355,7 +356,8 @@ def fit_grouped(make_estimator: Callable, preprocessor: Callable, evaluate: Eval
     `fit_seconds` of a grouped cell is an equal share of its group's time: the group's share
     of the preprocessing, its one fit and the derivation of all its cells' predictions. So
     summing `fit_seconds` over cells gives the compute time spent, whichever way they ran.
-    `n_warnings` of a grouped cell counts the warnings its group's one fit raised.
+    `n_warnings` of a grouped cell counts the warnings its group's one fit raised, plus
+    those of its own part when the evaluator can tell them apart (a ridge alpha's solve).
     With `read`, every plain fit is read, and a grouped cell where the hook hands back or
     builds its exact model (a forest's first trees, a pruned tree, a ridge alpha); other
     grouped cells (a lasso or elastic-net path's) have no reading (the explain step refits
@@ -439,7 +441,7 @@ def _evaluate_group(evaluate: Evaluate, group: list[dict], prep_error, prep_seco
             warnings.simplefilter("always")
             own = {"scratch": True} if scratch else {}
             fits = evaluate(group, Xt_fit, y_fit, Xt_evals, seed=seed, task=task, **own)
-        n_warnings = _count_warnings(caught)
+        n_warnings = count_warnings(caught)
     except Exception as exc:  # the group's one fit failed: every cell of it is recorded failed
         fits = [CellFit() for _ in group]
         for fit in fits:
@@ -447,5 +449,5 @@ def _evaluate_group(evaluate: Evaluate, group: list[dict], prep_error, prep_seco
     share = (prep_seconds + time.perf_counter() - start) / len(group)
     for fit in fits:
         fit.fit_seconds = share
-        fit.n_warnings = n_warnings
+        fit.n_warnings += n_warnings  # the group's shared work, beside a cell's own
     return fits

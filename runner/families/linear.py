@@ -19,8 +19,8 @@ from sklearn.linear_model import ElasticNet, Lasso, LinearRegression, Ridge
 from sklearn.pipeline import Pipeline
 
 from ._readers import coefficient_importance as own_importance
-from ._base import (CellFit, fit_grouped, linear_preprocessor, prediction_columns,
-                    work_units)
+from ._base import (CellFit, count_warnings, fit_grouped, linear_preprocessor,
+                    prediction_columns, work_units)
 from .paths import elastic_net_path_coefs, ridge_model, ridge_path_coefs
 
 __all__ = ["make_estimator", "fit_cells", "fit_units", "own_importance", "prediction_columns",
@@ -95,7 +95,8 @@ def _alpha_path(group: list[dict], Xt_fit, y_fit, Xt_evals, *, seed: int,
     alphas = np.array([params["alpha"] for params in group], dtype=np.float64)
     penalty = group[0]["penalty"]
     if penalty == "l2":
-        coefs, intercepts, solvers = ridge_path_coefs(Xt_fit, y_fit, alphas, scratch=scratch)
+        coefs, intercepts, solvers, warned = ridge_path_coefs(Xt_fit, y_fit, alphas,
+                                                              scratch=scratch)
     else:
         l1_ratio = 1.0 if penalty == "l1" else float(group[0]["l1_ratio"])
         coefs, intercepts = elastic_net_path_coefs(Xt_fit, y_fit, alphas, l1_ratio=l1_ratio,
@@ -107,10 +108,11 @@ def _alpha_path(group: list[dict], Xt_fit, y_fit, Xt_evals, *, seed: int,
         for fit, coef, intercept in zip(fits, coefs, intercepts):
             fit.predictions.append(X @ coef + intercept)
     if penalty == "l2":  # the path did each alpha's own Ridge(solver="cholesky") fit: read it
-        for fit, params, coef, intercept, solver in zip(fits, group, coefs, intercepts,
-                                                         solvers):
+        for fit, params, coef, intercept, solver, caught in zip(fits, group, coefs,
+                                                                 intercepts, solvers, warned):
             fit.make_model = functools.partial(ridge_model, params["alpha"], coef, intercept,
                                                solver)
+            fit.n_warnings = count_warnings(caught)
     return fits
 
 

@@ -20,6 +20,7 @@ Only numpy and scikit-learn are imported; the functions are pure.
 import copy
 import functools
 import warnings
+from typing import NamedTuple
 
 import numpy as np
 from scipy import linalg
@@ -432,35 +433,55 @@ def _penalties(alphas):
     return alphas
 
 
-def ridge_path_coefs(X_train, y_train, alphas, *, scratch: bool = False):
-    """Ridge coefficients, intercepts and solver names for every alpha, step for step as
-    `Ridge(alpha, solver="cholesky")` fits them: from one Gram matrix XᵀX of the centred
-    design, a p × p Cholesky solve per alpha; an alpha whose matrix the solve finds singular
-    takes the SVD route, as that fit does. With more columns than rows the fit solves the
-    dual problem, so each alpha is that fit itself. With `scratch`, X_train is centred in
-    place (`_centre`)."""
+class RidgePath(NamedTuple):
+    """Every alpha's Ridge(solver="cholesky") fit from one Gram matrix: coefficients (one row
+    per alpha), intercepts, the solver each fit ended with ("cholesky", or "svd" where its
+    matrix was singular) and the warnings each alpha's own solve raised."""
+
+    coefs: np.ndarray
+    intercepts: np.ndarray
+    solvers: list[str]
+    warned: list[list[warnings.WarningMessage]]
+
+
+def ridge_path_coefs(X_train, y_train, alphas, *, scratch: bool = False) -> RidgePath:
+    """Ridge for every alpha, step for step as `Ridge(alpha, solver="cholesky")` fits it:
+    from one Gram matrix XᵀX of the centred design, a p × p Cholesky solve per alpha; an
+    alpha whose matrix the solve finds singular takes the SVD route, as that fit does. With
+    more columns than rows the fit solves the dual problem, so each alpha is that fit
+    itself. Each alpha's warnings are its own (a fit of that alpha alone raises them), and
+    none escapes. With `scratch`, X_train is centred in place (`_centre`)."""
     alphas = _penalties(alphas)
     n, p = np.shape(X_train)
     if p > n:
-        fits = [Ridge(alpha=a, solver="cholesky").fit(X_train, y_train) for a in alphas]
-        return (np.array([f.coef_ for f in fits]), np.array([f.intercept_ for f in fits]),
-                [f.solver_ for f in fits])
+        fits, warned = [], []
+        for a in alphas:
+            with warnings.catch_warnings(record=True) as caught:
+                warnings.simplefilter("always")
+                fits.append(Ridge(alpha=a, solver="cholesky").fit(X_train, y_train))
+            warned.append(caught)
+        return RidgePath(np.array([f.coef_ for f in fits]),
+                         np.array([f.intercept_ for f in fits]), [f.solver_ for f in fits],
+                         warned)
     Xc, yc, X_offset, y_offset = _centre(X_train, y_train, scratch=scratch)
     gram, Xy = Xc.T @ Xc, Xc.T @ yc[:, None]
     coefs = np.empty((alphas.size, p), dtype=np.float64)
-    solvers, svd = [], None
+    solvers, warned, svd = [], [], None
     for i, a in enumerate(alphas):
         lhs = gram.copy()
         lhs.flat[:: p + 1] += a
-        try:
-            coefs[i] = linalg.solve(lhs, Xy, assume_a="pos", overwrite_a=True).T[0]
-            solvers.append("cholesky")
-        except linalg.LinAlgError:
-            svd = svd or _svd_parts(Xc, yc)
-            coefs[i] = _svd_coef(*svd, a)
-            solvers.append("svd")
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always")
+            try:
+                coefs[i] = linalg.solve(lhs, Xy, assume_a="pos", overwrite_a=True).T[0]
+                solvers.append("cholesky")
+            except linalg.LinAlgError:
+                svd = svd or _svd_parts(Xc, yc)
+                coefs[i] = _svd_coef(*svd, a)
+                solvers.append("svd")
+        warned.append(caught)
     intercepts = np.array([y_offset - X_offset @ c for c in coefs])
-    return coefs, intercepts, solvers
+    return RidgePath(coefs, intercepts, solvers, warned)
 
 
 def _svd_parts(Xc, yc):
