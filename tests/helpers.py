@@ -110,3 +110,14 @@ def documented_time_plan(order: np.ndarray, *, test_fraction: float, k: int, gap
         folds.append((0, fold, np.flatnonzero(np.isin(ordered, train_times[fit_t])),
                       np.flatnonzero(np.isin(ordered, train_times[valid_t]))))
     return train_rows, test_rows, folds
+
+
+def nearly_collinear_frame(n: int = 200, seed: int = 0):
+    """Invented rows where column b is 3 x column a up to 1e-9 noise, and c is unrelated: a
+    ridge solve with a tiny alpha on them (after foldwise's standardisation) warns of an
+    ill-conditioned matrix, a larger alpha does not. Returns (frame, y)."""
+    rng = np.random.default_rng(seed)
+    x = rng.normal(size=n)
+    frame = pd.DataFrame({"a": x, "b": 3 * x + 1e-9 * rng.normal(size=n),
+                          "c": rng.normal(size=n)})
+    return frame, x + rng.normal(size=n)

@@ -14,7 +14,7 @@ from runner.families import load_family
 from runner.families._base import path_groups
 from runner.store import Store
 
-from .helpers import spec_from
+from .helpers import nearly_collinear_frame, spec_from
 
 # Every family with a grid that varies a path parameter, plus cells that must stay plain.
 MODELS = """
@@ -250,11 +250,7 @@ def test_a_ridge_path_counts_each_alpha_s_warnings_as_its_own_fit_does():
     # Reference: the same cells fitted one by one (scikit-learn's Ridge(solver="cholesky")
     # in foldwise's pipeline): only the tiny alpha's solve warns of an ill-conditioned
     # matrix (two nearly equal columns), so only its row counts a warning either way.
-    rng = np.random.default_rng(0)
-    x = rng.normal(size=200)
-    X = pd.DataFrame({"a": x, "b": 3 * x + 1e-9 * rng.normal(size=200),
-                      "c": rng.normal(size=200)})
-    y = x + rng.normal(size=200)
+    X, y = nearly_collinear_frame()
     cells = [{"penalty": "l2", "alpha": a} for a in (1e-14, 1e-9, 1e-3, 1.0)]
     module = load_family("linear")
     kw = dict(seed=0, numeric=list("abc"), categorical=[])

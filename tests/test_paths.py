@@ -358,15 +358,11 @@ def test_ridge_path_warnings_belong_to_the_alpha_that_raised_them():
     # lets none escape to the caller.
     import warnings
 
-    import pandas as pd
-
     from runner.families._base import linear_preprocessor
 
-    rng = np.random.default_rng(0)
-    x = rng.normal(size=200)
-    frame = pd.DataFrame({"a": x, "b": 3 * x + 1e-9 * rng.normal(size=200),
-                          "c": rng.normal(size=200)})
-    y = x + rng.normal(size=200)
+    from .helpers import nearly_collinear_frame
+
+    frame, y = nearly_collinear_frame()
     X = linear_preprocessor(list("abc"), []).fit_transform(frame)  # the rows a path gets
     alphas = [1e-14, 1e-9, 1e-3, 1.0]
     alone = []
