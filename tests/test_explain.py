@@ -114,7 +114,8 @@ def test_coefficient_importance_transforms_the_rows_only_for_categories(monkeypa
     for categorical in ([], ["kind"]):
         data = X.assign(kind=rng.choice(["p", "q", "r"], 200)) if categorical else X
         est = family.make_estimator({"penalty": "l2", "alpha": 1.0}, seed=0, y_fit=y,
-                                    numeric=["a", "b", "c"], categorical=categorical).fit(data, y)
+                                    numeric=["a", "b", "c"], categorical=categorical)
+        est.fit(data, y)
         prep = est.named_steps["prep"]
         monkeypatch.setattr(prep, "transform", lambda rows, _t=prep.transform: (
             calls.append(len(rows)), _t(rows))[1])

@@ -66,7 +66,8 @@ def test_warnings_are_counted(tmp_path, diabetes_csv, monkeypatch):
             return super().fit(X, y, sample_weight)
 
     original = linear._regressor
-    monkeypatch.setattr(linear, "_regressor", lambda params: Warns(alpha=13.0, solver="cholesky")
+    monkeypatch.setattr(linear, "_regressor",
+                        lambda params: Warns(alpha=13.0, solver="cholesky")
                         if params.get("alpha") == 13.0 else original(params))
     store = Store(tmp_path / "store.duckdb")
     run_sweep(spec_from(tmp_path, MODELS.replace("shaky", "other")), store=store, jobs=1)

@@ -128,14 +128,14 @@ def test_a_new_evaluation_version_stops_reuse_and_run_says_so(folder, monkeypatc
 def test_an_upgrade_of_a_scoring_package_stops_reuse_and_run_says_so(folder, monkeypatch):
     # The same spec and data after "upgrading" scikit-learn: every cell id changes, nothing
     # is copied, and the run says which versions differ.
-    from runner.write import grid, prepare, reuse
+    from runner.write import grid, prepare
 
     spec = spec_from(folder, MODELS)
     store = Store(folder / "store.duckdb")
     first = run_sweep(spec, store=store, jobs=1)
     real = grid.score_versions()
     upgraded = dict(real, **{"scikit-learn": "99.0"})
-    for module in (grid, prepare, reuse):
+    for module in (grid, prepare):
         monkeypatch.setattr(module, "score_versions", lambda: upgraded)
     said: list[str] = []
     again = run_sweep(spec, store=store, jobs=1, on_message=said.append)

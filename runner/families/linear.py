@@ -122,8 +122,8 @@ _alpha_path.takes_scratch = True  # may centre the fitting rows in place (fit_gr
 def fit_cells(cells, X_fit, y_fit, X_evals, *, seed, numeric, categorical, paths=True,
               task="regression", read=None):
     """Score every cell on the fitting rows: alpha grids from one Gram matrix or path per
-    penalty and l1_ratio, or (with `paths=False`, least squares, a lone alpha, or classes: logistic
-    regression has no exact one-fit route here) one fit per cell."""
+    penalty and l1_ratio, or (with `paths=False`, least squares, a lone alpha, or classes:
+    logistic regression has no exact one-fit route here) one fit per cell."""
     return fit_grouped(make_estimator, linear_preprocessor, _alpha_path, _how, PATH_PARAMS,
                        cells, X_fit, y_fit, X_evals, seed=seed, numeric=numeric,
                        categorical=categorical, paths=paths and task == "regression",

@@ -182,14 +182,14 @@ def store_path(spec: Spec, override=None):
 
 
 def _versions() -> dict:
-    """What a sweep records of its software: every package whose version enters a cell id,
-    with Python, DuckDB, foldwise and its evaluation version (which enters the ids too)."""
+    """What a sweep records of its software: every version that enters a cell id, with
+    Python, DuckDB and foldwise."""
     import duckdb
 
-    from .grid import EVAL_VERSION, EVALUATION, score_versions
+    from .grid import identity_versions
 
-    return {"python": platform.python_version(), **score_versions(),
-            "duckdb": duckdb.__version__, "foldwise": __version__, EVALUATION: EVAL_VERSION}
+    return {"python": platform.python_version(), **identity_versions(),
+            "duckdb": duckdb.__version__, "foldwise": __version__}
 
 
 _TASKS_PER_WORKER = 8

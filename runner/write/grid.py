@@ -17,7 +17,7 @@ from .spec import LinearRange, LogRange, ModelSpec, PathRange
 
 __all__ = ["Cell", "expand_model", "expand_spec", "cell_id", "EVAL_VERSION", "EVALUATION",
            "range_values", "spread_along_path", "count_model", "ModelCount", "range_size",
-           "same_value", "SCORE_PACKAGES", "score_versions"]
+           "same_value", "SCORE_PACKAGES", "score_versions", "identity_versions"]
 
 EVAL_VERSION = "3"
 """Bumped whenever a change to foldwise would change any stored score; enters every cell id.
@@ -109,6 +109,12 @@ def score_versions() -> dict[str, str]:
     once per process: the modules it has loaded compute its scores, whatever is installed
     later (reading the packages' metadata costs some 5 ms each)."""
     return dict(_installed_versions())
+
+
+def identity_versions() -> dict[str, str]:
+    """Every version that enters a cell id, as a sweep records them: the scoring packages'
+    and foldwise's evaluation version."""
+    return {**score_versions(), EVALUATION: EVAL_VERSION}
 
 
 def cell_id(family: str, params: dict, data_sha256: str, plan_identity: dict, *,

@@ -10,7 +10,7 @@ import json
 import pandas as pd
 
 from ..store import Store
-from .grid import EVAL_VERSION, EVALUATION, SCORE_PACKAGES, cell_id, score_versions
+from .grid import EVALUATION, SCORE_PACKAGES, cell_id, identity_versions
 from .leakage import FINDING_COLUMNS, ordered
 from .resampling import REFIT, plan_identity
 
@@ -122,14 +122,14 @@ def version_note(store: Store, prep, found) -> str | None:
     sweeps = store.query("select sweep_id, versions::varchar as versions from sweeps "
                          "where data_sha256 = ? order by started_at desc",
                          [prep.frame.sha256])
-    ours = {**score_versions(), EVALUATION: EVAL_VERSION}
-    plan = plan_identity(prep.spec, prep.frame.task)
+    ours, plan = identity_versions(), plan_identity(prep.spec, prep.frame.task)
     seen, hits = set(), []
     for stored in sweeps["versions"]:
-        theirs = _score_versions_of(stored)
-        if theirs is None or theirs == ours or json.dumps(theirs, sort_keys=True) in seen:
+        theirs = _identity_versions_of(stored)
+        key = json.dumps(theirs, sort_keys=True)
+        if theirs is None or theirs == ours or key in seen:
             continue
-        seen.add(json.dumps(theirs, sort_keys=True))
+        seen.add(key)
         packages = {k: theirs[k] for k in SCORE_PACKAGES}
         ids = {cell_id(c.family, c.params, prep.frame.sha256, plan, model=c.model,
                        versions=packages, evaluation=theirs[EVALUATION]): c.cell_id
@@ -154,7 +154,7 @@ def version_note(store: Store, prep, found) -> str | None:
             f"cell's identity, so {'these are' if n != 1 else 'it is'} fitted again.")
 
 
-def _score_versions_of(stored: str | None) -> dict | None:
+def _identity_versions_of(stored: str | None) -> dict | None:
     """From a sweep's recorded versions (a store's text: untrusted), the versions that enter
     a cell id, or None if the sweep did not record them all. A sweep from before the
     evaluation version was recorded was scored under version 2 (the first to record the
