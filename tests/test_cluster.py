@@ -139,6 +139,19 @@ def test_workers_with_other_package_versions_are_refused():
             pass
 
 
+def test_workers_under_another_evaluation_version_are_refused():
+    """A release that changes how foldwise computes a score bumps its evaluation version,
+    not always its package number: a worker that computes under another one (here: this
+    machine claims version 2) is refused before anything runs, by name."""
+    from runner.write.executors import ClusterError, package_versions
+
+    claimed = {**package_versions(), "evaluation": "2"}
+    with pytest.raises(ClusterError, match=r"has foldwise's evaluation version 3, this "
+                                           r"machine 2; its scores would differ"):
+        with DaskExecutor("local:1", versions=claimed):
+            pass
+
+
 def test_grouped_and_time_plans_on_a_cluster_equal_the_local_run(folder):
     """Fold schemes reach the workers as fold positions like any plan: a grouped and a
     time-ordered sweep (invented clinic and day columns) give the local run's scores."""

@@ -140,9 +140,10 @@ def test_id_changes_with_any_param_change(a, b):
 
 def test_the_worker_check_and_the_cell_id_share_one_list_of_packages():
     from runner.write.executors import package_versions
-    from runner.write.grid import SCORE_PACKAGES, score_versions
+    from runner.write.grid import SCORE_PACKAGES, identity_versions, score_versions
 
     assert package_versions() == {"foldwise": package_versions()["foldwise"],
-                                  **score_versions()}
+                                  **identity_versions()}
+    assert identity_versions() == {**score_versions(), "evaluation": "3"}
     assert set(score_versions()) == set(SCORE_PACKAGES) == {"scikit-learn", "numpy", "scipy",
                                                            "pandas"}

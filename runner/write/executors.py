@@ -368,6 +368,8 @@ class DaskExecutor:
     def _check_workers(self) -> None:
         """Refuse workers whose foldwise or numerical packages differ from this machine's:
         their scores would not be the same as a local run's."""
+        from .grid import EVALUATION, SCORE_PACKAGES
+
         ours = self.versions or package_versions()
         try:
             theirs = self.client.run(package_versions)
@@ -378,10 +380,13 @@ class DaskExecutor:
         for worker, versions in sorted(theirs.items()):
             for package, version in ours.items():
                 if versions.get(package) != version:
+                    what = ("foldwise's evaluation version" if package == EVALUATION
+                            else package)
                     raise ClusterError(
-                        f"worker {worker} has {package} {versions.get(package)}, this machine "
-                        f"{version}; its scores would differ from a local run's. Install the "
-                        f"same versions of {', '.join(ours)} on every worker.")
+                        f"worker {worker} has {what} {versions.get(package, 'unknown')}, "
+                        f"this machine {version}; its scores would differ from a local "
+                        f"run's. Install the same foldwise and the same versions of "
+                        f"{', '.join(SCORE_PACKAGES)} on every worker.")
 
     def __exit__(self, *exc) -> None:
         self._sent.clear()
@@ -432,16 +437,17 @@ class DaskExecutor:
 
 def package_versions() -> dict[str, str]:
     """The versions that decide a score, as installed where this runs: foldwise's own and
-    those of the packages that enter every cell id (`grid.SCORE_PACKAGES`)."""
+    every version that enters a cell id (`grid.identity_versions`: the scoring packages'
+    and foldwise's evaluation version, which a release can change without a new number)."""
     from importlib.metadata import PackageNotFoundError, version
 
-    from .grid import score_versions
+    from .grid import identity_versions
 
     try:
         own = version("foldwise")
     except PackageNotFoundError:
         own = "missing"
-    return {"foldwise": own, **score_versions()}
+    return {"foldwise": own, **identity_versions()}
 
 
 def _local_workers(address: str) -> int:
