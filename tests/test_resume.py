@@ -16,6 +16,7 @@ import pandas as pd
 import pytest
 
 from runner.write.engine import run_sweep
+from runner.write.spec import parse_spec
 from runner.store import Store
 
 from .helpers import diabetes_frame, spec_from, write_spec
@@ -95,15 +96,17 @@ def test_a_source_sweep_removed_before_its_rows_are_copied_is_fitted_again(folde
 
 
 def test_a_new_evaluation_version_stops_reuse_and_run_says_so(folder, monkeypatch):
-    # A store written by a foldwise whose evaluation version was 2, before sweeps recorded
-    # it: this foldwise's cell ids differ, nothing is copied, and the run says why.
+    # A store written by a foldwise whose evaluation version was 2 and whose cell ids left
+    # out the problem (scheme 1), before sweeps recorded either: this foldwise's cell ids
+    # differ, nothing is copied, and the run says why.
     import duckdb
 
-    from runner.write import grid
+    from runner.write import grid, prepare
 
     spec = spec_from(folder, MODELS)
     store = Store(folder / "store.duckdb")
     monkeypatch.setattr(grid, "EVAL_VERSION", "2")
+    monkeypatch.setattr(prepare, "problem_identity", lambda frame, infinite: None)
     first = run_sweep(spec, store=store, jobs=1)
     monkeypatch.undo()
     with duckdb.connect(str(folder / "store.duckdb")) as con:  # as an older foldwise wrote it
@@ -115,14 +118,43 @@ def test_a_new_evaluation_version_stops_reuse_and_run_says_so(folder, monkeypatc
     again = run_sweep(spec, store=store, jobs=1, on_message=said.append)
     assert (again.n_reused, again.n_fitted) == (0, N_CELLS)
     assert said == [f"note: {N_CELLS} cells were not reused: earlier sweeps of the same data "
-                    f"and plan scored them with foldwise's evaluation version 2 (here "
-                    f"{grid.EVAL_VERSION}). Versions that can change a score are part of "
-                    "each cell's identity, so these are fitted again."]
+                    f"file and plan were stored with foldwise's evaluation version 2 (here "
+                    f"{grid.EVAL_VERSION}), foldwise's cell identity version 1 (here 2). Each "
+                    "cell's identity holds these versions, so these are fitted again."]
     versions = store.query("select versions::varchar v from sweeps where sweep_id = ?",
                            [again.sweep_id]).v[0]
     assert json.loads(versions)["evaluation"] == grid.EVAL_VERSION == "3"
+    assert json.loads(versions)["cells"] == grid.CELL_SCHEME == "2"
     third = run_sweep(spec, store=store, jobs=1, on_message=said.append)
     assert third.n_reused == N_CELLS and len(said) == 1
+
+
+@pytest.mark.parametrize("change, lines", [
+    ("target", "target: bp\n  drop: [progression]"),
+    ("drop", "target: progression\n  drop: [s5, s6]"),
+    ("categorical", "target: progression\n  categorical: [s1_band]"),
+    ("infinite", "target: progression\n  infinite: missing")])
+def test_another_target_or_other_features_on_the_same_file_are_other_cells(folder, change,
+                                                                         lines):
+    # The same file, plan and grid, but another problem: nothing is copied, and the scores
+    # are those a fresh store gets for the changed spec.
+    df = diabetes_frame()
+    df["s1_band"] = (df.s1 // 40).astype(int)
+    df.to_csv(folder / "diabetes.csv", index=False)
+    models = "ridge: {family: linear, grid: {penalty: l2, alpha: [0.1, 10.0]}}"
+    store = Store(folder / "store.duckdb")
+    first = run_sweep(spec_from(folder, models), store=store, jobs=1)
+    path = write_spec(folder, models)
+    path.write_text(path.read_text().replace("target: progression", lines))
+    changed = parse_spec(path.read_text(), source=path)
+    again = run_sweep(changed, store=store, jobs=1)
+    assert (again.n_reused, again.n_fitted) == (0, 2)
+    fresh = run_sweep(changed, store=Store(folder / "fresh.duckdb"), jobs=1)
+    ours = _scores(store, again.sweep_id)
+    pd.testing.assert_frame_equal(ours, _scores(Store(folder / "fresh.duckdb"), fresh.sweep_id))
+    before = _scores(store, first.sweep_id)
+    # no infinite value in the file: reading them otherwise changes no score
+    assert before.value.equals(ours.value) == (change == "infinite")
 
 
 def test_an_upgrade_of_a_scoring_package_stops_reuse_and_run_says_so(folder, monkeypatch):
@@ -141,9 +173,9 @@ def test_an_upgrade_of_a_scoring_package_stops_reuse_and_run_says_so(folder, mon
     again = run_sweep(spec, store=store, jobs=1, on_message=said.append)
     assert (again.n_reused, again.n_fitted) == (0, N_CELLS)
     assert said == [f"note: {N_CELLS} cells were not reused: earlier sweeps of the same data "
-                    f"and plan scored them with scikit-learn {real['scikit-learn']} (here "
-                    "99.0). Versions that can change a score are part of each cell's "
-                    "identity, so these are fitted again."]
+                    f"file and plan were stored with scikit-learn {real['scikit-learn']} (here "
+                    "99.0). Each cell's identity holds these versions, so these are fitted "
+                    "again."]
     ids = store.query("select sweep_id, count(*) n from cells c where exists (select 1 from "
                       "cells d where d.cell_id = c.cell_id and d.sweep_id <> c.sweep_id) "
                       "group by sweep_id")

@@ -190,6 +190,15 @@ class Frame:
         return list(self.X.columns)
 
 
+def problem_identity(frame: Frame, infinite: str) -> dict:
+    """What the models learn from the file: the target, the task, the feature columns in
+    order with their roles, and how infinite values were read. Part of every cell id, so
+    that another target or other features on the same file are other cells."""
+    return {"target": frame.target, "task": frame.task, "numeric": list(frame.numeric),
+            "categorical": list(frame.categorical), "features": frame.features,
+            "infinite": infinite}
+
+
 def _need_columns(df: pd.DataFrame, names, what: str, path: Path) -> None:
     for name in names:
         if name not in df.columns:

@@ -368,7 +368,7 @@ class DaskExecutor:
     def _check_workers(self) -> None:
         """Refuse workers whose foldwise or numerical packages differ from this machine's:
         their scores would not be the same as a local run's."""
-        from .grid import EVALUATION, SCORE_PACKAGES
+        from .grid import SCORE_PACKAGES, VERSION_NAMES
 
         ours = self.versions or package_versions()
         try:
@@ -380,8 +380,7 @@ class DaskExecutor:
         for worker, versions in sorted(theirs.items()):
             for package, version in ours.items():
                 if versions.get(package) != version:
-                    what = ("foldwise's evaluation version" if package == EVALUATION
-                            else package)
+                    what = VERSION_NAMES.get(package, package)
                     raise ClusterError(
                         f"worker {worker} has {what} {versions.get(package, 'unknown')}, "
                         f"this machine {version}; its scores would differ from a local "

@@ -16,6 +16,7 @@ from ..families import FAMILIES
 from .spec import LinearRange, LogRange, ModelSpec, PathRange
 
 __all__ = ["Cell", "expand_model", "expand_spec", "cell_id", "EVAL_VERSION", "EVALUATION",
+           "CELL_SCHEME", "CELLS", "VERSION_NAMES",
            "range_values", "spread_along_path", "count_model", "ModelCount", "range_size",
            "same_value", "SCORE_PACKAGES", "score_versions", "identity_versions"]
 
@@ -30,6 +31,19 @@ ridge scores changed."""
 
 EVALUATION = "evaluation"
 """The key of the evaluation version in a sweep's recorded versions (`sweeps.versions`)."""
+
+CELL_SCHEME = "2"
+"""What a cell id holds besides the grid point, data file, plan and versions.
+2: the problem: the target, the task, the feature columns in order with their roles and
+how infinite values are read. Under 1 the same grid on the same file with another target
+or other features had the same ids, and a rerun reused those scores as its own."""
+
+CELLS = "cells"
+"""The key of the cell id scheme in a sweep's recorded versions; a sweep without it: 1."""
+
+VERSION_NAMES = {EVALUATION: "foldwise's evaluation version",
+                 CELLS: "foldwise's cell identity version"}
+"""How messages name foldwise's own entries among a sweep's versions."""
 
 
 @dataclass(frozen=True)
@@ -112,22 +126,26 @@ def score_versions() -> dict[str, str]:
 
 
 def identity_versions() -> dict[str, str]:
-    """Every version that enters a cell id, as a sweep records them: the scoring packages'
-    and foldwise's evaluation version."""
-    return {**score_versions(), EVALUATION: EVAL_VERSION}
+    """Every version that enters a cell id, as a sweep records them: the scoring packages',
+    foldwise's evaluation version and its cell id scheme."""
+    return {**score_versions(), EVALUATION: EVAL_VERSION, CELLS: CELL_SCHEME}
 
 
 def cell_id(family: str, params: dict, data_sha256: str, plan_identity: dict, *,
             model: str = "", versions: dict | None = None,
-            evaluation: str | None = None) -> str:
-    """A stable hash of (model label, family, params, data, plan, evaluation version (this
+            evaluation: str | None = None, problem: dict | None = None) -> str:
+    """A stable hash of (model label, family, params, data, plan, the problem (target,
+    task, features and their roles; see CELL_SCHEME), evaluation version (this
     foldwise's unless given) and the versions of the packages that can change a score).
+    Without `problem`, the id of cell id scheme 1.
 
     The label is part of it so two models that share a grid point stay two cells."""
-    payload = json.dumps({"model": model, "family": family, "params": params,
-                          "data": data_sha256, "plan": plan_identity,
-                          "eval": evaluation or EVAL_VERSION,
-                          "versions": versions or {}}, sort_keys=True)
+    body = {"model": model, "family": family, "params": params, "data": data_sha256,
+            "plan": plan_identity, "eval": evaluation or EVAL_VERSION,
+            "versions": versions or {}}
+    if problem is not None:
+        body["problem"] = problem
+    payload = json.dumps(body, sort_keys=True)
     return hashlib.sha256(payload.encode()).hexdigest()[:16]
 
 
@@ -138,7 +156,7 @@ PathResolver = Callable[[str, dict], list]
 def expand_model(label: str, model: ModelSpec, *, data_sha256: str, plan_identity: dict,
                  resolve_path: PathResolver | None = None,
                  n_features: int | None = None, task: str = "regression",
-                 versions: dict | None = None) -> list[Cell]:
+                 versions: dict | None = None, problem: dict | None = None) -> list[Cell]:
     """All cells of one model, ranked simplest first, without duplicates.
 
     A {path: N} grid gives every combination of the other parameters the same N values,
@@ -172,7 +190,7 @@ def expand_model(label: str, model: ModelSpec, *, data_sha256: str, plan_identit
                                     json.dumps(p, sort_keys=True)))
     return [Cell(label, model.family, p,
                  cell_id(model.family, p, data_sha256, plan_identity, model=label,
-                         versions=versions), i)
+                         versions=versions, problem=problem), i)
             for i, p in enumerate(ordered)]
 
 
@@ -256,11 +274,12 @@ def count_model(model: ModelSpec) -> ModelCount:
 def expand_spec(spec, *, data_sha256: str, plan_identity: dict,
                 resolve_path: PathResolver | None = None,
                 n_features: int | None = None, task: str = "regression",
-                versions: dict | None = None) -> list[Cell]:
+                versions: dict | None = None, problem: dict | None = None) -> list[Cell]:
     """Every cell of every model in the spec, models in spec order."""
     cells = []
     for label, model in spec.models.items():
         cells.extend(expand_model(label, model, data_sha256=data_sha256,
                                   plan_identity=plan_identity, resolve_path=resolve_path,
-                                  n_features=n_features, task=task, versions=versions))
+                                  n_features=n_features, task=task, versions=versions,
+                                  problem=problem))
     return cells

@@ -5,7 +5,7 @@ the explain step start from it."""
 from __future__ import annotations
 
 from .budget import check_limits, check_plan_memory, data_limit_bytes
-from .data import Frame, load_frame
+from .data import Frame, load_frame, problem_identity
 from ..errors import DataError
 from ..families import FAMILIES
 from .grid import Cell, expand_spec, score_versions
@@ -26,6 +26,7 @@ class Prepared:
     def __init__(self, spec: Spec, frame: Frame, cells: list[Cell] | None = None):
         self.spec, self.frame, self.cells = spec, frame, cells or []
         self.identity = plan_identity(spec, frame.task)
+        self.problem = problem_identity(frame, spec.data.infinite)
         self._plan: Plan | None = None
         self._split: dict | None = None
         self._split_only = False
@@ -138,5 +139,5 @@ def prepare(spec: Spec, *, lift_limits: bool = False, paths: bool = True) -> Pre
                              plan_identity=prep.identity,
                              resolve_path=_path_resolver(prep),
                              n_features=len(prep.frame.features), task=prep.frame.task,
-                             versions=score_versions())
+                             versions=score_versions(), problem=prep.problem)
     return prep

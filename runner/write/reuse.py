@@ -10,7 +10,7 @@ import json
 import pandas as pd
 
 from ..store import Store
-from .grid import EVALUATION, SCORE_PACKAGES, cell_id, identity_versions
+from .grid import CELLS, EVALUATION, SCORE_PACKAGES, VERSION_NAMES, cell_id, identity_versions
 from .leakage import FINDING_COLUMNS, ordered
 from .resampling import REFIT, plan_identity
 
@@ -113,8 +113,8 @@ def copy_explained(store: Store, sweep_id: str, cell_ids: list[str], settings: s
 def version_note(store: Store, prep, found) -> str | None:
     """A sentence if cells found nothing to reuse only because earlier sweeps of the same
     data and plan scored them with other versions of the packages that change scores, or
-    under another evaluation version of foldwise: each such cell's id, computed with an
-    earlier sweep's versions, is in the store."""
+    under another evaluation version or cell id scheme of foldwise: each such cell's id,
+    computed with an earlier sweep's versions, is in the store."""
     have = set() if found is None else set(found[0].cell_id) | set(found[1].cell_id)
     missing = [c for c in prep.cells if c.cell_id not in have]
     if not missing or not store.holds_tables():
@@ -131,8 +131,10 @@ def version_note(store: Store, prep, found) -> str | None:
             continue
         seen.add(key)
         packages = {k: theirs[k] for k in SCORE_PACKAGES}
+        problem = None if theirs[CELLS] == "1" else prep.problem
         ids = {cell_id(c.family, c.params, prep.frame.sha256, plan, model=c.model,
-                       versions=packages, evaluation=theirs[EVALUATION]): c.cell_id
+                       versions=packages, evaluation=theirs[EVALUATION],
+                       problem=problem): c.cell_id
                for c in missing}
         found_ids = store.query("select distinct cell_id from fold_scores where "
                                 "list_contains(?::varchar[], cell_id)", [list(ids)])
@@ -145,20 +147,19 @@ def version_note(store: Store, prep, found) -> str | None:
     theirs = hits[0][0]
     changed = [f"{k} {theirs[k]} (here {ours[k]})" for k in SCORE_PACKAGES
                if theirs[k] != ours[k]]
-    if theirs[EVALUATION] != ours[EVALUATION]:
-        changed.append(f"foldwise's evaluation version {theirs[EVALUATION]} (here "
-                       f"{ours[EVALUATION]})")
+    changed += [f"{name} {theirs[k]} (here {ours[k]})" for k, name in VERSION_NAMES.items()
+                if theirs[k] != ours[k]]
     return (f"note: {n} cell{'s were' if n != 1 else ' was'} not reused: earlier sweeps of "
-            f"the same data and plan scored {'them' if n != 1 else 'it'} with "
-            f"{', '.join(changed)}. Versions that can change a score are part of each "
-            f"cell's identity, so {'these are' if n != 1 else 'it is'} fitted again.")
+            f"the same data file and plan were stored with {', '.join(changed)}. Each "
+            f"cell's identity holds these versions, so {'these are' if n != 1 else 'it is'} "
+            "fitted again.")
 
 
 def _identity_versions_of(stored: str | None) -> dict | None:
     """From a sweep's recorded versions (a store's text: untrusted), the versions that enter
     a cell id, or None if the sweep did not record them all. A sweep from before the
     evaluation version was recorded was scored under version 2 (the first to record the
-    packages)."""
+    packages); one from before the cell id scheme was recorded used scheme 1."""
     try:
         recorded = json.loads(stored or "{}")
     except ValueError:
@@ -167,6 +168,7 @@ def _identity_versions_of(stored: str | None) -> dict | None:
         return None
     theirs = {k: recorded.get(k) for k in SCORE_PACKAGES}
     theirs[EVALUATION] = recorded.get(EVALUATION, "2")
+    theirs[CELLS] = recorded.get(CELLS, "1")
     if not all(isinstance(v, str) and 0 < len(v) <= 40 for v in theirs.values()):
         return None
     return theirs
