@@ -409,3 +409,63 @@ def test_a_feature_that_gives_a_class_away_is_found(tmp_path):
     proxies = findings[findings["kind"] == "target_proxy"]
     assert proxies["column_name"].tolist() == ["copy"]
     assert proxies["value"].iloc[0] == pytest.approx(1.0)
+
+
+def test_a_score_undefined_on_some_folds_is_named_and_its_se_counts_defined_folds(tmp_path):
+    # One class only in 4 of 40 sites, folds by site: most validation folds hold a single
+    # class, where scikit-learn's roc_auc_score is undefined (it raises); the store keeps
+    # NULL there. SE over the defined folds is the sample sd / sqrt(their count)
+    # (the standard error of a mean, recomputed with numpy).
+    from runner.read.queries import coverage, sweep_facts
+    from runner.read.views import coverage_notes
+
+    rng = np.random.default_rng(5)
+    site = np.repeat(np.arange(40), 8)
+    y = np.where((site < 4) & (rng.random(len(site)) < 0.5), "pos", "neg")
+    df = pd.DataFrame({"site": site, "x": rng.normal(size=len(site)) + (y == "pos"),
+                       "w": rng.normal(size=len(site)), "y": y})
+    df.to_csv(tmp_path / "sites.csv", index=False)
+    path = tmp_path / "spec.yaml"
+    path.write_text("""
+name: sites
+data: {path: sites.csv, target: y, drop: [site]}
+test: {fraction: 0.2, seed: 1}
+folds: {k: 5, repeats: 1, seed: 7, groups: site}
+metrics: [roc_auc, log_loss]
+store: store.duckdb
+explain: {cells: none}
+models:
+  logit: {family: linear, grid: {penalty: l2, alpha: [0.001, 0.1]}}
+""")
+    spec = parse_spec(path.read_text(), source=path)
+    store = Store(tmp_path / "store.duckdb")
+    result = run_sweep(spec, store=store, jobs=1)
+    rows = store.query("select cell_id, value from fold_scores where sweep_id = ? and "
+                       "metric = 'roc_auc'", [result.sweep_id])
+    undefined = rows.value.isna().groupby(rows.cell_id).sum()
+    assert (undefined > 0).all() and (undefined < 5).all()
+    view = store.query("select cell_id, se, n from cell_summary where sweep_id = ? and "
+                       "metric = 'roc_auc'", [result.sweep_id]).set_index("cell_id")
+    for cell, values in rows.dropna().groupby("cell_id").value:
+        assert view.n[cell] == len(values) == 5 - undefined[cell]
+        assert view.se[cell] == pytest.approx(np.std(values, ddof=1) / np.sqrt(len(values)),
+                                              rel=1e-12)
+    facts = sweep_facts(store, result.sweep_id)
+    notes = coverage_notes(coverage(store, facts), result.sweep_id, 5)
+    assert notes[-1].startswith("note: model 'logit' has no cell to pick: of its 2 cells, 2 have a "
+                                "score undefined on some folds. A metric such as ROC AUC is "
+                                "undefined on a fold whose validation rows hold a single "
+                                "class")
+    # a store whose view was made before (its SE and n counted every fold row) gets the
+    # view made again the next time it is opened for writing
+    import duckdb
+
+    with duckdb.connect(str(tmp_path / "store.duckdb")) as con:
+        con.execute("create or replace view cell_summary as select f.sweep_id, f.cell_id, "
+                    "f.metric, stddev_samp(f.value) / sqrt(count(*)) as se, count(*) as n "
+                    "from fold_scores f group by all")
+    assert run_sweep(spec, store=Store(tmp_path / "store.duckdb"), jobs=1).n_reused == 2
+    renewed = Store(tmp_path / "store.duckdb").query(
+        "select cell_id, n from cell_summary where sweep_id = ? and metric = 'roc_auc'",
+        [result.sweep_id]).set_index("cell_id")
+    assert (renewed.n == view.n[renewed.index]).all()

@@ -99,6 +99,7 @@ def _check_finished(store: Store, sweep_id: str, row: dict) -> pd.DataFrame:
         detail = {"failed fits": "some of its fits failed (see the failures table)",
                   "incomplete": "not every fold of it is scored yet (the sweep is running "
                                 "or was interrupted)",
+                  "undefined score": "its score is undefined on some folds",
                   "non-finite score": "its mean score is not finite"}.get(why, why)
         raise ModelError(f"cell {row['cell_id']} of model '{row['model']}' cannot be built: "
                          f"{detail}. Build a finished cell, e.g. the model's pick "

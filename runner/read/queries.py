@@ -258,7 +258,8 @@ _CELLS_SQL = """
     plan as (select k * repeats as n_folds from sweeps where sweep_id = $1),
     stats as (
         select c.model, c.family, c.cell_id, c.params, c.complexity_rank,
-               min(c.position) as cell_row, count(f.value) as n, avg(f.value) as mean,
+               min(c.position) as cell_row, count(f.value) as n, count(f.fold) as n_rows,
+               avg(f.value) as mean,
                stddev_samp(f.value) as sd, avg(f.n_valid::double / f.n_train) as valid_ratio,
                avg(f.n_leaves) as mean_leaves
         from cells c
@@ -275,6 +276,7 @@ _CELLS_SQL = """
                case when exists (select 1 from failures x
                                  where x.sweep_id = $1 and x.cell_id = s.cell_id)
                     then 'failed fits'
+                    when s.n < s.n_rows then 'undefined score'
                     when s.n < p.n_folds then 'incomplete'
                     when not isfinite(s.mean) then 'non-finite score'
                end as excluded,
@@ -408,6 +410,7 @@ def coverage(store: Store, facts: SweepFacts, *, model: str | None = None):
                count(*) filter (where excluded is null) as complete,
                count(*) filter (where excluded = 'failed fits') as failed,
                count(*) filter (where excluded = 'incomplete') as unfinished,
+               count(*) filter (where excluded = 'undefined score') as undefined,
                count(*) filter (where excluded = 'non-finite score') as non_finite
         from judged group by model order by min(model_row)""",
                          [facts.sweep_id, facts.metric, "plain", model, TOLERANCE])

@@ -63,7 +63,7 @@ class Coverage:
     (every fold scored, no failed fit, a finite mean), failed, unfinished or non-finite."""
 
     status: str  # 'running', 'finished', 'failed' or 'interrupted'
-    table: pd.DataFrame  # model, cells, complete, failed, unfinished, non_finite
+    table: pd.DataFrame  # model, cells, complete, failed, unfinished, undefined, non_finite
 
     @property
     def unpicked(self) -> tuple[str, ...]:

@@ -264,11 +264,18 @@ def coverage_notes(coverage: Coverage, sweep_id: str, n_folds: int) -> tuple[str
             parts.append(count_text(r.failed, "has a failed fit", "have a failed fit"))
         if r.unfinished:
             parts.append(count_text(r.unfinished, *unfinished))
+        if r.undefined:
+            parts.append(count_text(r.undefined, "has a score undefined on some folds",
+                                    "have a score undefined on some folds"))
         if r.non_finite:
             parts.append(count_text(r.non_finite, "has a non-finite mean score",
                                 "have a non-finite mean score"))
         text = (f"model '{r.model}' has no cell to pick{' yet' if status == 'running' else ''}"
                 f": of its {count_text(r.cells, 'cell', 'cells')}, {' and '.join(parts)}.")
+        if r.undefined:
+            text += (" A metric such as ROC AUC is undefined on a fold whose validation rows "
+                     "hold a single class; choose folds that give every fold each class "
+                     "(fewer folds, or other groups) or pick by another metric.")
         if r.failed:
             text += (f" `foldwise sql \"select * from failures where sweep_id = '{sweep_id}'\"` "
                      "shows the errors.")

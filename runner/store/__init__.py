@@ -194,6 +194,8 @@ class Store:
                                      "store.")
                 if found == SCHEMA_VERSION:
                     self._check_privileges(con)
+                    if not self.location.shared:
+                        _renew_summary_view(con)
                     self._schema_ensured = True
                     return
                 try:
@@ -604,6 +606,15 @@ class Store:
                              "`foldwise sweeps` lists them.")
         raise StoreError(f"sweep id prefix '{sweep_id}' matches {len(df)} sweeps; give more "
                          "characters.")
+
+
+def _renew_summary_view(con) -> None:
+    """A file store's summary view made before its SE and n counted only defined scores
+    (they counted every fold row, NULL for a metric undefined on a fold) is made again."""
+    stored = con.execute("select sql from duckdb_views() where view_name = 'cell_summary' "
+                         "and not temporary").fetchone()
+    if stored is None or 'count(f."value") AS n' not in stored[0]:
+        con.execute(VIEW_SQL)
 
 
 def _summary_view(con) -> None:

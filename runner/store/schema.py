@@ -107,7 +107,7 @@ VIEW_SQL = """
 create or replace view cell_summary as
 select f.sweep_id, f.cell_id, c.model, c.family, c.params, c.complexity_rank, f.metric,
        avg(f.value) as mean, stddev_samp(f.value) as sd,
-       stddev_samp(f.value) / sqrt(count(*)) as se, count(*) as n,
+       stddev_samp(f.value) / sqrt(count(f.value)) as se, count(f.value) as n,
        avg(f.n_leaves) as mean_leaves, sum(f.fit_seconds) as fit_seconds
 from fold_scores f join cells c using (sweep_id, cell_id)
 group by all;
