@@ -232,3 +232,32 @@ def test_two_test_rows_are_enough(tmp_path, diabetes_csv):
     spec = spec.model_copy(update={"test": spec.test.model_copy(update={"fraction": 2 / 442})})
     spec._source = tmp_path / "spec.yaml"
     assert make_plan(spec, load_frame(spec)).n_test == 2
+
+
+def test_a_logistic_grid_counts_one_fit_per_cell_and_the_fits_limit_holds(tmp_path):
+    # Logistic regression has no one-fit route for an alpha grid: 30 alphas on 3 x 2 folds
+    # and a refit are 30 x 7 = 210 fits, which a limit of 50 refuses once the class target
+    # is read; the count equals the engine's work units on each fold.
+    from .helpers import diabetes_frame
+
+    df = diabetes_frame()
+    df["band"] = np.where(df.progression > df.progression.median(), "high", "low")
+    df.drop(columns="progression").to_csv(tmp_path / "bands.csv", index=False)
+    models = "logit: {family: linear, grid: {penalty: l2, alpha: {log: [1.0e-5, 1], n: 30}}}"
+    path = write_spec(tmp_path, models, data="bands.csv", extra="limits: {fits: 50}\n")
+    path.write_text(path.read_text().replace("target: progression", "target: band")
+                    .replace("metrics: [rmse, mae, r2]", "metrics: [log_loss]"))
+    spec = load_spec(path)
+    assert plan_size(spec).fits == 7  # before the data are read: counted as for regression
+    size = plan_size(spec, "classification")
+    assert (size.models[0].fits_per_fold, size.fits) == (30, 210)
+    with pytest.raises(SpecError, match=r"210 fits .*more than the limit of 50"):
+        prepare(spec)
+    out = invoke("check", path)
+    assert out.exit_code == 2 and "210 fits" in out.output and "Traceback" not in out.output
+    # on two workers each fold's 30 separate fits can be cut into several tasks; a path
+    # group would be one indivisible task per fold (and the refit)
+    from runner.write.engine import _plan_tasks
+
+    tasks = _plan_tasks(prepare(load_spec(path), lift_limits=True), n_workers=2)
+    assert sum(len(t.cells) for t in tasks) == 210 and len(tasks) > 7

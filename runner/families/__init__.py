@@ -65,6 +65,7 @@ class Family:
     complexity_order: tuple[str, ...]
     description: str = ""
     path_params: tuple[str, ...] = field(default=())
+    path_tasks: tuple[str, ...] = ("regression", "classification")  # where one fit sweeps them
     importance: str = "impurity"  # the fitted model's own importance: impurity/coefficient
     one_tree: bool = False  # the fitted model is one tree: leaves, shape and nodes are kept
     readable_size: int | None = None  # the largest fitted model a person reads whole
@@ -214,6 +215,7 @@ FAMILIES: dict[str, Family] = {
         ),
         complexity_order=("penalty", "alpha"),
         path_params=("alpha",),
+        path_tasks=("regression",),  # logistic regression has no exact one-fit route here
         importance="coefficient", plural="linear models", tidy=_tidy_linear,
         readable_size=READABLE_COEFFICIENTS, size_word="non-zero coefficients",
         coefficients=True,

@@ -18,6 +18,7 @@ import numpy as np
 from sklearn.linear_model import ElasticNet, Lasso, LinearRegression, Ridge
 from sklearn.pipeline import Pipeline
 
+from . import FAMILIES
 from ._readers import coefficient_importance as own_importance
 from ._base import (CellFit, count_warnings, fit_grouped, linear_preprocessor,
                     prediction_columns, work_units)
@@ -126,7 +127,8 @@ def fit_cells(cells, X_fit, y_fit, X_evals, *, seed, numeric, categorical, paths
     logistic regression has no exact one-fit route here) one fit per cell."""
     return fit_grouped(make_estimator, linear_preprocessor, _alpha_path, _how, PATH_PARAMS,
                        cells, X_fit, y_fit, X_evals, seed=seed, numeric=numeric,
-                       categorical=categorical, paths=paths and task == "regression",
+                       categorical=categorical,
+                       paths=paths and task in FAMILIES["linear"].path_tasks,
                        eligible=_penalised, task=task, read=read)
 
 

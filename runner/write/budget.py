@@ -90,21 +90,24 @@ def _size_text(n: float) -> str:
     return ""
 
 
-def plan_size(spec) -> PlanSize:
-    """Cells per model, folds and metrics of a spec, without expanding any grid."""
+def plan_size(spec, task: str | None = None) -> PlanSize:
+    """Cells per model, folds and metrics of a spec, without expanding any grid; for
+    `task` (default: the spec's, if it states one; else as for regression)."""
     models = []
     for label, m in spec.models.items():
-        count = count_model(m)
+        count = count_model(m, task or spec.task)
         models.append(ModelSize(label, m.family, count.cells, count.fits_per_fold,
                                 count.bound))
     metrics = spec.metrics or max(TASK_DEFAULTS.values(), key=len)  # task not known yet
     return PlanSize(tuple(models), spec.folds.k * spec.folds.repeats, len(metrics))
 
 
-def check_limits(spec, *, lifted: bool = False, paths: bool = True) -> PlanSize:
+def check_limits(spec, *, lifted: bool = False, paths: bool = True,
+                 task: str | None = None) -> PlanSize:
     """The plan's size, or a SpecError if it passes a limit (unless `lifted`); `paths=False`
-    (every cell fitted on its own) holds the fits of that way to the fits limit."""
-    size = plan_size(spec)
+    (every cell fitted on its own) holds the fits of that way to the fits limit. Checked
+    before the data are read, and again for their `task` once it is known."""
+    size = plan_size(spec, task)
     if lifted:
         return size
     limits = spec.limits

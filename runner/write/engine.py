@@ -35,12 +35,12 @@ from typing import Callable
 import pandas as pd
 
 from .. import __version__
-from .budget import check_limits, check_plan_memory, data_limit_bytes, plan_size
+from .budget import check_limits, check_plan_memory, data_limit_bytes
 from ..errors import FoldwiseError
 from .explain import explain_sweep
 from .executors import (DaskExecutor, LocalExecutor, Running, give_back_freed_memory,
                         make_executor)
-from ..families import load_family
+from ..families import FAMILIES, load_family
 from .grid import Cell
 from ..metrics import METRICS
 from .prepare import Prepared, load_checked, prepare
@@ -131,7 +131,8 @@ def check_spec(spec: Spec, *, lift_limits: bool = False
     size = check_limits(spec, lifted=lift_limits)
     frame = load_checked(spec, max_bytes=data_limit_bytes(spec, lifted=lift_limits))
     check_plan_memory(spec, plan_counts(spec, frame)[0], lifted=lift_limits)
-    size = plan_size(spec)  # the task is known now, and with it the metrics
+    # the task is known now, and with it the metrics and which grids one fit sweeps
+    size = check_limits(spec, lifted=lift_limits, task=frame.task)
     prep = Prepared(spec, frame)
     plan = prep.plan
     findings = prep.findings()
@@ -227,7 +228,9 @@ def _plan_tasks(prep: Prepared, *, paths: bool = True, n_workers: int = 1,
             cells = [c for c in all_cells if (c.cell_id, *key) not in done]
             if not cells:
                 continue
-            units = load_family(family).fit_units([c.params for c in cells], paths=paths)
+            units = load_family(family).fit_units(
+                [c.params for c in cells],
+                paths=paths and prep.frame.task in FAMILIES[family].path_tasks)
             per_row = sum(cost for _, cost in units)
             rows = len(fold.fit) if fold is not None else plan.n_train
             base.append((family, cells, units, fold, per_row * rows, rows))

@@ -237,15 +237,17 @@ def _first_value(value, kind: str):
     return value[0]
 
 
-def count_model(model: ModelSpec) -> ModelCount:
-    """Cells and fits per fold of one model, before any data are read.
+def count_model(model: ModelSpec, task: str | None = None) -> ModelCount:
+    """Cells and fits per fold of one model, before any data are read; for `task` (None:
+    as for regression), since a family's path fits may serve one task only.
 
     Combinations of the values of the parameters that are not path parameters are
     canonicalised (defaults filled, what cannot matter dropped), so duplicates count once;
     each is one fit per fold, scoring every path value of it at once when the path
     parameter matters to it (e.g. not for least squares, which has no alpha)."""
     fam = FAMILIES[model.family]
-    path_name = next((n for n in model.grid if n in fam.path_params), None)
+    path_name = (next((n for n in model.grid if n in fam.path_params), None)
+                 if (task or "regression") in fam.path_tasks else None)
     path_count = 1 if path_name is None else _value_count(model.grid[path_name],
                                                           fam.params[path_name].kind)
     other = {n: v for n, v in model.grid.items() if n != path_name}

@@ -134,6 +134,7 @@ def prepare(spec: Spec, *, lift_limits: bool = False, paths: bool = True) -> Pre
     check_limits(spec, lifted=lift_limits, paths=paths)
     prep = Prepared(spec, load_checked(spec, max_bytes=data_limit_bytes(spec,
                                                                          lifted=lift_limits)))
+    check_limits(spec, lifted=lift_limits, paths=paths, task=prep.frame.task)
     check_plan_memory(spec, plan_counts(spec, prep.frame)[0], lifted=lift_limits)
     prep.cells = expand_spec(spec, data_sha256=prep.frame.sha256,
                              plan_identity=prep.identity,
