@@ -144,6 +144,6 @@ def test_the_worker_check_and_the_cell_id_share_one_list_of_packages():
 
     assert package_versions() == {"foldwise": package_versions()["foldwise"],
                                   **identity_versions()}
-    assert identity_versions() == {**score_versions(), "evaluation": "3", "cells": "2"}
+    assert identity_versions() == {**score_versions(), "evaluation": "4", "cells": "2"}
     assert set(score_versions()) == set(SCORE_PACKAGES) == {"scikit-learn", "numpy", "scipy",
                                                            "pandas"}

@@ -112,12 +112,16 @@ def test_a_pruned_classification_tree_is_the_refit_itself(params):
     labels = np.digitize(y, np.quantile(y, [0.3, 0.7]))  # three classes
     tree = DecisionTreeClassifier(**params).fit(X, labels)
     path = tree.cost_complexity_pruning_path(X, labels).ccp_alphas
-    for a in _alpha_grid(path, n_pick=12):
+    grid = _alpha_grid(path, n_pick=12)
+    probabilities, _ = pruned_tree_predictions(tree, X, grid)
+    for a, proba in zip(grid, probabilities):
         # reference: scikit-learn's own DecisionTreeClassifier refitted with ccp_alpha
         ref = DecisionTreeClassifier(**params, ccp_alpha=a).fit(X, labels)
         got = pruned_tree(tree, a)
         assert pickle.dumps(got) == pickle.dumps(ref), a
         assert np.array_equal(got.predict_proba(X), ref.predict_proba(X))
+        # the path's probabilities, read off the unpruned tree: the refit's bit for bit
+        assert np.array_equal(proba, ref.predict_proba(X)), a
 
 
 @pytest.mark.parametrize("leaf_block", [8192, 97])

@@ -123,7 +123,7 @@ def test_a_new_evaluation_version_stops_reuse_and_run_says_so(folder, monkeypatc
                     "cell's identity holds these versions, so these are fitted again."]
     versions = store.query("select versions::varchar v from sweeps where sweep_id = ?",
                            [again.sweep_id]).v[0]
-    assert json.loads(versions)["evaluation"] == grid.EVAL_VERSION == "3"
+    assert json.loads(versions)["evaluation"] == grid.EVAL_VERSION == "4"
     assert json.loads(versions)["cells"] == grid.CELL_SCHEME == "2"
     third = run_sweep(spec, store=store, jobs=1, on_message=said.append)
     assert third.n_reused == N_CELLS and len(said) == 1

@@ -215,14 +215,13 @@ def _steps_for(seq, alphas):
 
 def _node_outputs(tree):
     """What each node predicts: its mean for a regression tree; for a classification tree
-    its class probabilities, normalised exactly as `predict_proba` normalises a leaf's."""
+    its class probabilities as stored, which `predict_proba` returns for a leaf unchanged
+    (scikit-learn >= 1.6 stores class fractions; dividing them by their sum again moves
+    the last bit where class weights make that sum round off 1)."""
     t = tree.tree_
     if not hasattr(tree, "classes_"):
         return t.value[:, 0, 0]
-    proba = t.value[:, 0, :].copy()
-    normalizer = proba.sum(axis=1)[:, None]
-    normalizer[normalizer == 0.0] = 1.0
-    return proba / normalizer
+    return t.value[:, 0, :]
 
 
 def _replay(tree):

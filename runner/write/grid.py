@@ -20,14 +20,18 @@ __all__ = ["Cell", "expand_model", "expand_spec", "cell_id", "EVAL_VERSION", "EV
            "range_values", "spread_along_path", "count_model", "ModelCount", "range_size",
            "same_value", "SCORE_PACKAGES", "score_versions", "identity_versions"]
 
-EVAL_VERSION = "3"
+EVAL_VERSION = "4"
 """Bumped whenever a change to foldwise would change any stored score; enters every cell id.
 2: numeric columns listed as categorical are coded in numeric order (they were text order);
 {path: N} gives one set of alphas per model (it was one per combination); cell ids hold
 the versions of the packages that change scores.
 3: ridge is Ridge(solver="cholesky"), the solver `Ridge()` runs on dense rows (it was
 solver="svd"): the scores a user's own `Ridge()` gives, to the last bit; the last bits of
-ridge scores changed."""
+ridge scores changed.
+4: a pruned classification tree's path reads each node's class fractions as stored, as
+`predict_proba` returns them (it divided them by their sum again): path scores of class
+trees equal one fit per cell bit for bit; their last bits changed, and with them the
+order of tied probabilities in ROC AUC."""
 
 EVALUATION = "evaluation"
 """The key of the evaluation version in a sweep's recorded versions (`sweeps.versions`)."""
