@@ -460,3 +460,41 @@ def test_the_data_fingerprint_is_the_sha256_of_the_bytes_read(tmp_path, suffix):
     assert sha == hashlib.sha256(path.read_bytes()).hexdigest()
     plain = pd.read_csv(path) if suffix == ".csv" else pd.read_parquet(path)
     pd.testing.assert_frame_equal(table, plain)
+
+
+@pytest.mark.parametrize("scheme", ["time", "groups"])
+def test_folds_whose_fitting_rows_lack_a_class_are_refused_before_any_fit(tmp_path, scheme):
+    # 'late' occurs only from day 15 on (and only at site 0): the first time-ordered folds
+    # fit on days before it, and the site fold that validates on site 0 fits without it.
+    # Every fit of such a fold would fail; `check` says so first.
+    from click.testing import CliRunner
+
+    from runner.cli import main
+
+    rng = np.random.default_rng(2)
+    day = np.repeat(np.arange(60), 4)
+    site = np.tile(np.arange(4), 60) + 4 * (np.arange(240) % 8 >= 4)
+    late = (day >= 15) & (site == 0) if scheme == "groups" else day >= 15
+    y = np.where(late & (rng.random(240) < 0.6), "late", "early")
+    pd.DataFrame({"day": day, "site": site, "held": site == 7,
+                  "x": rng.normal(size=240) + (y == "late"),
+                  "y": y}).sample(frac=1, random_state=0).to_csv(tmp_path / "d.csv",
+                                                                 index=False)
+    folds, test = (("{k: 4, order: day, gap: 2}", "{fraction: 0.2}") if scheme == "time"
+                   else ("{k: 7, repeats: 1, seed: 3, groups: site}", "{column: held}"))
+    (tmp_path / "spec.yaml").write_text(f"""
+name: lacking
+data: {{path: d.csv, target: y, drop: [day, site]}}
+test: {test}
+folds: {folds}
+metrics: [log_loss, accuracy]
+store: store.duckdb
+models:
+  tree: {{family: pruned_tree, grid: {{ccp_alpha: [0.0, 0.01]}}}}
+""")
+    out = CliRunner().invoke(main, ["check", str(tmp_path / "spec.yaml")])
+    assert out.exit_code == 2, out.output
+    assert "Traceback" not in out.output
+    assert f"of the {scheme} folds" in out.output
+    assert "hold no row of class 'late' of target 'y'" in " ".join(out.output.split())
+    assert not (tmp_path / "store.duckdb").exists()

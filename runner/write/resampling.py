@@ -406,8 +406,35 @@ def make_plan(spec, frame) -> Plan:
     for i, (fit, valid) in enumerate(scheme.split(cut)):
         rep, f = divmod(i, k)
         folds.append(Fold(rep, f, fit, valid, fold_seed(seed, rep, f)))
+    if frame.task == "classification":
+        _check_classes_fitted(frame, train_rows, folds, scheme.name, column)
     return Plan(train_rows, test_rows, tuple(folds), k, r, seed, _test_form(spec), scheme.name,
                 plan_identity(spec, frame.task), stratified)
+
+
+_LACKING_ADVICE = {
+    "time": "The first folds fit on the earliest rows only: lower folds.k (or folds.gap) so "
+            "that they reach the first rows of every class, or start the data where every "
+            "class has occurred.",
+    "groups": "The class lies in too few groups to be on both sides of every fold: lower "
+              "folds.k, or choose groups that each class spreads over.",
+}
+
+
+def _check_classes_fitted(frame, train_rows, folds, scheme: str, column) -> None:
+    """Every fold's fitting rows must hold every class: a model fitted without one gives it
+    no probability, so every fit of that fold would fail. Known from the plan alone."""
+    y = frame.y[train_rows]
+    for fold in folds:
+        present = set(np.unique(y[fold.fit]).tolist())
+        missing = [c for c in frame.classes if c not in present]
+        if missing:
+            where = f" (by '{column}')" if column else ""
+            raise DataError(
+                f"fold {fold.fold} of repeat {fold.repeat} of the {scheme} folds{where} fits "
+                f"on rows of {frame.source} that hold no row of class {missing[0]!r} of "
+                f"target '{frame.target}', so no model fitted there can give it a "
+                f"probability. {_LACKING_ADVICE.get(scheme, 'Lower folds.k.')}")
 
 
 def _check_classes_trained(frame, train_rows) -> None:
@@ -416,5 +443,6 @@ def _check_classes_trained(frame, train_rows) -> None:
     missing = [c for c in frame.classes if c not in present]
     if missing:
         raise DataError(f"class {missing[0]!r} of target '{frame.target}' has no training rows "
-                        "(all its rows are test rows); no model can learn it. Move some of "
-                        "its rows into training, or change the test split.")
+                        "(its rows are all test rows, or in the gap before them); no model "
+                        "can learn it. Move some of its rows into training, or change the "
+                        "test split.")
