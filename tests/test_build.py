@@ -132,6 +132,19 @@ def test_build_refuses_data_whose_hash_differs_unless_accepted(demo_built, tmp_p
     assert model.card["data"]["sweep_sha256"] == sweep_sha
 
 
+def test_data_given_as_a_relative_path_is_read_from_the_current_folder(demo_built, tmp_path,
+                                                                        monkeypatch):
+    folder, store, sweep_id, _ = demo_built
+    moved = tmp_path / "moved"
+    moved.mkdir()
+    (moved / "rows.csv").write_bytes((folder / "greenhouse.csv").read_bytes())
+    monkeypatch.chdir(tmp_path)
+    model = build_model(store, model="ridge", data="moved/rows.csv",
+                        out=tmp_path / "moved.skops")
+    assert model.card["data"]["sha256"] == store.query(
+        "select data_sha256 from sweeps where sweep_id = ?", [sweep_id]).data_sha256[0]
+
+
 def test_build_refuses_failed_and_unfinished_cells(tmp_path):
     path = tmp_path / "s.duckdb"
     write_sweep(path, {"ridge": [[1.0, 2.0, 3.0, 4.0], [1.5, 2.0, 3.0, 4.0],

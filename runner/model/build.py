@@ -123,7 +123,9 @@ def _sweep_spec(record: dict, data: str | Path | None):
     except SpecError as exc:
         raise ModelError(f"the spec stored with sweep {record['sweep_id']} does not validate "
                          f"in this foldwise, so the sweep cannot be rebuilt: {exc}") from None
-    path = Path(data) if data is not None else Path(str(record["data_path"]))
+    # --data is the user's own path: from where they stand, not from the spec's folder
+    path = (Path(data).expanduser().absolute() if data is not None
+            else Path(str(record["data_path"])))
     return spec.model_copy(update={"data": spec.data.model_copy(update={"path": str(path)})})
 
 
