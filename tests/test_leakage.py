@@ -224,6 +224,34 @@ def test_group_keys_under_row_folds(tmp_path):
                 if f.kind == "group_key" and f.column == "patient_id"]
 
 
+def test_a_test_split_by_other_groups_than_the_folds_is_an_overlap(tmp_path):
+    # Folds by plant, test split by batch, and batches cut across plants: the held-out
+    # batches' plants also have training rows, so the test score is not on new plants.
+    df = diabetes_frame()
+    df["plant"] = np.arange(len(df)) // 6
+    df["batch"] = np.arange(len(df)) % 10
+    df.to_csv(tmp_path / "plants.csv", index=False)
+    path = write_spec(tmp_path, RIDGE, data="plants.csv")
+    text = path.read_text().replace("  seed: 3\n", "  seed: 3\n  groups: batch\n")
+    text = text.replace("  seed: 17\n", "  seed: 17\n  groups: plant\n")
+    path.write_text(text)
+    spec = load_spec(path)
+    frame = load_frame(spec)
+    plan = make_plan(spec, frame)
+    tested = np.unique(df.plant.to_numpy()[plan.test_rows])
+    shared = np.intersect1d(tested, df.plant.to_numpy()[plan.train_rows])
+    hits = [f for f in run_checks(spec, frame, plan) if f.kind == "split_overlap"]
+    assert len(shared) > 0 and [(h.column, h.value) for h in hits] == [("plant", len(shared))]
+    assert "(test.groups batch)" in hits[0].message
+    assert "Leave test.groups unset" in hits[0].message
+    # the same groups on both: whole plants held out, silent
+    path.write_text(text.replace("  groups: batch\n", "  groups: plant\n"))
+    spec = load_spec(path)
+    frame = load_frame(spec)
+    assert not [f for f in run_checks(spec, frame, make_plan(spec, frame))
+                if f.kind == "split_overlap"]
+
+
 @pytest.mark.parametrize("jobs", [1, 2])  # 2: the refusal stops fits already running
 def test_a_test_column_breaking_a_time_plan_is_an_error_unless_allowed(tmp_path, jobs):
     df = diabetes_frame()

@@ -34,8 +34,8 @@ KINDS = {k.name: k for k in (
     Kind("group_key", WARNING, "under row-wise folds, a column that looks like a group key "
          "(an id-like name, or text with hundreds of levels; ten values or more, several "
          "rows each) has rows on both sides of a fold: set folds.groups to it"),
-    Kind("split_overlap", ERROR, "a test file or column that breaks the plan's promise: "
-         "groups shared with the training rows (grouped plans), or test rows not after "
+    Kind("split_overlap", ERROR, "a test file, column or test.groups that breaks the plan's "
+         "promise: groups shared with the training rows (grouped plans), or test rows not after "
          "every training row (time-ordered plans)"),
 )}
 """Every kind a leakage check can report, by name (the names `checks.allow` takes)."""

@@ -334,9 +334,14 @@ def _group_keys(spec, frame, plan: Plan) -> list[Finding]:
 
 # -- a given test split against the plan's promise ---------------------------------------------------
 def _split_overlap(spec, frame, plan: Plan) -> list[Finding]:
-    if spec.test.fraction is not None or plan.scheme not in ("groups", "time"):
+    other_groups = (spec.test.fraction is not None and spec.test.groups is not None
+                    and spec.test.groups != spec.folds.groups)
+    if plan.scheme not in ("groups", "time") or (
+            spec.test.fraction is not None and not (plan.scheme == "groups" and other_groups)):
         return []
-    form = f"test.file {spec.test.file}" if spec.test.file else f"test.column {spec.test.column}"
+    form = (f"test.groups {spec.test.groups}" if other_groups else
+            f"test.file {spec.test.file}" if spec.test.file else
+            f"test.column {spec.test.column}")
     if plan.scheme == "groups":
         col = spec.folds.groups
         values = frame.plan_values[col]
@@ -344,11 +349,14 @@ def _split_overlap(spec, frame, plan: Plan) -> list[Finding]:
         shared = np.intersect1d(tested, values[plan.train_rows])
         if not len(shared):
             return []
+        fix = ("Leave test.groups unset (the test split then holds out whole groups of "
+               "folds.groups)" if other_groups else
+               "Use test.fraction (it holds out whole groups), move those rows to one side")
         return [Finding("split_overlap", col, float(len(shared)), (
             f"the test rows ({form}) share {len(shared):,} of their {len(tested):,} groups of "
             f"'{col}' with the training rows, so the test split does not score new groups as "
-            "the grouped folds do. Use test.fraction (it holds out whole groups), move those "
-            "rows to one side, or add split_overlap to checks.allow to run anyway."))]
+            f"the grouped folds do. {fix}, or add split_overlap to checks.allow to run "
+            "anyway."))]
     col = spec.folds.order
     values = frame.plan_values[col]
     last = values[plan.train_rows].max()
