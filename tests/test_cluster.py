@@ -146,8 +146,11 @@ def test_workers_under_another_evaluation_version_are_refused():
     from runner.write.executors import ClusterError, package_versions
 
     claimed = {**package_versions(), "evaluation": "2"}
-    with pytest.raises(ClusterError, match=r"has foldwise's evaluation version 3, this "
-                                           r"machine 2; its scores would differ"):
+    from runner.write.grid import EVAL_VERSION
+
+    with pytest.raises(ClusterError, match=rf"has foldwise's evaluation version "
+                                           rf"{EVAL_VERSION}, this machine 2; its scores "
+                                           r"would differ"):
         with DaskExecutor("local:1", versions=claimed):
             pass
 
