@@ -37,3 +37,9 @@ class ModelError(FoldwiseError, ValueError):
     """A built model cannot be made, found, trusted or loaded as asked."""
 
     exit_code = 2
+
+
+class OutputError(FoldwiseError, ValueError):
+    """A place to write a result (--out) that cannot or must not be written."""
+
+    exit_code = 2

@@ -117,3 +117,33 @@ def test_report_of_a_sweep_without_explain_rows(tmp_path):
     html = render_report(store)
     assert "Figure not available" in html and "No importances are stored" in html
     assert "a (a linear model) has the best cross-validated RMSE" in html
+
+
+def test_report_out_replaces_only_an_earlier_report(explained, report_file, tmp_path):
+    # The store itself, a spec or any other file named as --out is refused (exit 2, the
+    # file unchanged); an earlier report is replaced whole; a folder part that is a file
+    # gives a message, not a traceback.
+    _, store, sid = explained
+    before = store.path.read_bytes()
+    out = CliRunner().invoke(main, ["report", "--store", str(store.path), "--sweep", sid,
+                                    "--out", str(store.path)])
+    assert out.exit_code == 2 and "is not a foldwise report" in out.output
+    assert "Traceback" not in out.output and store.path.read_bytes() == before
+    spec = tmp_path / "spec.yaml"
+    spec.write_text("name: mine\n")
+    out = CliRunner().invoke(main, ["report", "--store", str(store.path), "--sweep", sid,
+                                    "--out", str(spec)])
+    assert out.exit_code == 2 and spec.read_text() == "name: mine\n"
+    again = tmp_path / "again.html"
+    shutil.copy(report_file, again)
+    old = os.umask(0o022)
+    try:
+        write_report(store, again, sid)
+    finally:
+        os.umask(old)
+    assert again.read_text() == render_report(store, sid)
+    assert oct(again.stat().st_mode & 0o777) == oct(0o644)
+    out = CliRunner().invoke(main, ["report", "--store", str(store.path), "--sweep", sid,
+                                    "--out", str(spec / "r.html")])
+    assert out.exit_code == 2 and "a part of its folder is a file" in out.output
+    assert not [p for p in tmp_path.iterdir() if p.name.startswith(".report-")]

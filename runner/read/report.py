@@ -11,7 +11,7 @@ from pathlib import Path
 
 import pandas as pd
 
-from ..errors import FoldwiseError
+from ..errors import FoldwiseError, OutputError
 from .filenames import inside, safe_component
 from ..metrics import get_metric, metric_label
 from .class_figures import calibration_figure, roc_figure
@@ -177,10 +177,50 @@ def report_path(sweep_id: str, folder: str | Path = "results") -> Path:
     return inside(folder, f"report-{safe_component(sweep_id)}.html")
 
 
+REPORT_MARK = b"<title>foldwise report: "
+"""What the head of a page this module wrote holds: only such a page is replaced."""
+
+
 def write_report(store: Store, out: str | Path, sweep_id: str | None = None, *,
                  se: str = "plain") -> Path:
-    """Write the report to `out` (folders created); return the path."""
+    """Write the report to `out` (folders created); return the path. An existing `out` is
+    replaced only if it is an earlier report, and the page appears whole or not at all."""
+    import os
+    import tempfile
+
     out = Path(out)
-    out.parent.mkdir(parents=True, exist_ok=True)
-    out.write_text(render_report(store, sweep_id, se=se), encoding="utf-8")
+    _check_report_out(out)
+    try:
+        out.parent.mkdir(parents=True, exist_ok=True)
+    except (FileExistsError, NotADirectoryError):
+        raise OutputError(f"report {out} cannot be written: a part of its folder is a "
+                          "file. Name another place with --out.") from None
+    page = render_report(store, sweep_id, se=se)
+    fd, tmp = tempfile.mkstemp(prefix=".report-", suffix=".tmp", dir=out.parent)
+    try:
+        with os.fdopen(fd, "w", encoding="utf-8") as f:
+            f.write(page)
+        mask = os.umask(0)
+        os.umask(mask)
+        os.chmod(tmp, 0o666 & ~mask)
+        os.replace(tmp, out)
+    except BaseException:
+        Path(tmp).unlink(missing_ok=True)
+        raise
     return out
+
+
+def _check_report_out(out: Path) -> None:
+    """Refuse to replace anything but an earlier report: a store, a spec or a data file
+    named by mistake would be lost."""
+    if not out.exists():
+        return
+    if out.is_dir():
+        raise OutputError(f"report {out} is a folder; name a file with --out, e.g. "
+                          f"{out / 'report.html'}.")
+    with open(out, "rb") as f:
+        head = f.read(4096)
+    if REPORT_MARK not in head:
+        raise OutputError(f"{out} exists and is not a foldwise report, so it is not "
+                          "replaced (a report replaces only an earlier report). Name a new "
+                          "file with --out.")
