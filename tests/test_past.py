@@ -413,3 +413,19 @@ def test_a_store_of_schema_version_2_is_merged_and_diffed(base, tmp_path):
     assert _rows(target, "sweep_labels").empty
     diff = diff_sweeps(target)
     assert diff.plan_same is True and diff.paired and diff.shared_cells == 5
+
+
+def test_diff_of_sweeps_that_do_not_share_every_model(base, tmp_path):
+    # B drops the tree: the diff still prints, the tree's B side a dash, and ridge (in both,
+    # on the same folds) keeps its paired change.
+    folder = base[0]
+    store = Store(tmp_path / "s.duckdb")
+    shutil.copy(base[1].path, store.path)
+    only_ridge = CHANGED.split("\n")[1]
+    dropped = run_sweep(spec_from(folder, only_ridge, name="b.yaml"), store=store, jobs=1)
+    out = invoke("diff", base[3], dropped.sweep_id, "--store", store.path)
+    assert out.exit_code == 0, out.output
+    tree_line = next(line for line in out.output.splitlines() if line.startswith("│ tree"))
+    assert "—" in tree_line
+    diff = diff_sweeps(store, base[3], dropped.sweep_id).table.set_index("model")
+    assert diff["mean_diff"]["ridge"] == pytest.approx(0.0, abs=1e-12)

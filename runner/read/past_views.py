@@ -84,7 +84,9 @@ def removal_view(result: SweepList, rows: dict[str, int], *, done: bool = False)
 
 
 def _side(params, keep, leaves=None) -> str:
-    return "—" if params is None else cell_text(params, keep, leaves)
+    """A sweep's picked cell, or a dash where the model is not in that sweep (None, or the
+    NaN an outer join leaves)."""
+    return "—" if params is None or params != params else cell_text(params, keep, leaves)
 
 
 def diff_view(result: SweepDiff) -> View:
