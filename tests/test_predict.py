@@ -308,3 +308,38 @@ def test_other_spellings_of_a_seen_number_or_boolean_category_are_that_category(
     assert got.tolist()[:6] == ["1", "2.5", "True", "True", "TWO", "3"]
     assert got.isna().tolist()[6]
     assert tally.unseen == {"code": {"rows": 2, "examples": ["TWO", "3"]}}
+
+
+@pytest.mark.parametrize("family_model", ["ridge", "tree"])
+def test_a_numeric_column_listed_as_categorical_predicts_as_the_pipeline_does(tmp_path,
+                                                                            family_model):
+    # 'sex' holds the numbers 1 and 2 and is listed in data.categorical: the fitted encoder
+    # holds the levels 1.0 and 2.0, and the file's values must reach it as those numbers.
+    # Reference: the loaded scikit-learn pipeline's own predict on the rows as typed for
+    # fitting (numbers).
+    from runner.model.build import build_model
+    from runner.store import Store
+    from runner.write.engine import run_sweep
+
+    from runner.write.spec import load_spec
+
+    from .helpers import diabetes_frame, write_spec
+
+    df = diabetes_frame()
+    df.iloc[:400].to_csv(tmp_path / "diabetes.csv", index=False)
+    df.iloc[400:].drop(columns="progression").to_csv(tmp_path / "new.csv", index=False)
+    models = {"ridge": "ridge: {family: linear, grid: {penalty: l2, alpha: [1.0]}}",
+              "tree": "tree: {family: pruned_tree, grid: {ccp_alpha: [0.0, 30.0]}}"}
+    path = write_spec(tmp_path, models[family_model])
+    path.write_text(path.read_text().replace("target: progression",
+                                             "target: progression\n  categorical: [sex]"))
+    spec = load_spec(path)
+    store = Store(tmp_path / "store.duckdb")
+    run_sweep(spec, store=store, jobs=1)
+    built = build_model(store, model=family_model, out=tmp_path / "m.skops")
+    model = load_model(built.artefact)
+    predict_file(model, tmp_path / "new.csv", tmp_path / "p.csv")
+    got = pd.read_csv(tmp_path / "p.csv")["predicted"].to_numpy()
+    rows = df.iloc[400:].drop(columns="progression")[[f["name"] for f in
+                                                      model.card["features"]]]
+    assert np.array_equal(got, model.pipeline.predict(rows))

@@ -256,8 +256,24 @@ def _categorical(s: pd.Series, feature: dict, lookup: dict[str, str], tally: _Ta
     return text
 
 
+def _numeric_level_columns(pipeline) -> set[str]:
+    """The categorical columns whose fitted encoder holds numbers as levels (a numeric
+    column listed in data.categorical): their values must reach it as numbers, since the
+    text '2015.0' is not the level 2015.0 and would be taken for an unseen one."""
+    prep = dict(pipeline.steps).get("prep")
+    named = getattr(prep, "named_transformers_", {})
+    encoder = named.get("cat") if hasattr(named, "get") else None
+    if encoder is None:
+        return set()
+    columns = next((cols for name, _, cols in prep.transformers_ if name == "cat"), [])
+    if hasattr(encoder, "steps"):
+        encoder = encoder.steps[-1][1]
+    return {str(col) for col, levels in zip(columns, getattr(encoder, "categories_", []))
+            if np.asarray(levels).dtype.kind in "fiub"}
+
+
 def _features(df: pd.DataFrame, card: dict, lookups: dict, kind: str, first: int,
-              path: Path, tally: _Tally) -> pd.DataFrame:
+              path: Path, tally: _Tally, numeric_levels: set = frozenset()) -> pd.DataFrame:
     infinite = card.get("data", {}).get("infinite", "refuse")
     out = {}
     for f in card["features"]:
@@ -266,6 +282,9 @@ def _features(df: pd.DataFrame, card: dict, lookups: dict, kind: str, first: int
             out[f["name"]] = _numeric(s, f["name"], kind, first, path, infinite)
         else:
             out[f["name"]] = _categorical(s, f, lookups[f["name"]], tally)
+            if f["name"] in numeric_levels:
+                number = pd.to_numeric(out[f["name"]], errors="coerce")
+                out[f["name"]] = number.where(number.notna(), out[f["name"]])
         tally.missing[f["name"]] += int(pd.isna(out[f["name"]]).sum())
     return pd.DataFrame(out, index=df.index)
 
@@ -409,6 +428,7 @@ def predict_file(model: LoadedModel, data: str | Path, out: str | Path, *,
                   _parquet_chunks(pf, data, usecols, chunk_rows))
         lookups = {f["name"]: _level_lookup(f["categories"]) for f in features
                    if f["type"] == "categorical"}
+        numeric_levels = _numeric_level_columns(model.pipeline)
         tally = _Tally(features)
         writer = _Output(out)
         n_chunks = 0
@@ -416,7 +436,7 @@ def predict_file(model: LoadedModel, data: str | Path, out: str | Path, *,
             for first, df in chunks:
                 if df.empty:
                     continue
-                X = _features(df, card, lookups, kind, first, data, tally)
+                X = _features(df, card, lookups, kind, first, data, tally, numeric_levels)
                 if tally.unseen and unseen == "refuse":
                     _refuse_unseen(tally.unseen, data, family.unseen_category)
                 with warnings.catch_warnings():  # unseen categories are counted above
