@@ -231,6 +231,54 @@ def test_an_artefact_holding_types_no_foldwise_pipeline_holds_is_refused(demo_bu
     assert "never holds" in str(err.value)
 
 
+def test_an_artefact_holding_a_bound_method_is_refused_before_anything_is_built(demo_built,
+                                                                                tmp_path):
+    # The tree pipeline's function step edited to call a bound method (skops' MethodNode;
+    # here "<path>".format, where a crafted file could name ndarray.tofile and write any
+    # file), card SHA-256 made to match: the method's owner type (str) is one a pipeline
+    # may hold, so the gate must refuse the method itself, before skops builds anything.
+    import hashlib
+    import io
+    import zipfile
+
+    _, _, _, built = demo_built
+    with zipfile.ZipFile(built["tree"].artefact) as zf:
+        files = {name: zf.read(name) for name in zf.namelist()}
+    schema = json.loads(files["schema.json"])
+    stack, replaced = [schema], 0
+    while stack:
+        node = stack.pop()
+        if isinstance(node, dict):
+            for key, value in node.items():
+                if isinstance(value, dict) and value.get("__loader__") == "FunctionNode":
+                    node[key] = {"__class__": "str", "__module__": "builtins",
+                                 "__loader__": "MethodNode", "__id__": 1,
+                                 "content": {"func": "format", "obj": {
+                                     "__class__": "str", "__module__": "builtins",
+                                     "__loader__": "JsonNode", "is_json": True,
+                                     "content": json.dumps(str(tmp_path / "written")),
+                                     "__id__": 2}}}
+                    replaced += 1
+                else:
+                    stack.append(value)
+        elif isinstance(node, list):
+            stack.extend(node)
+    assert replaced >= 1
+    files["schema.json"] = json.dumps(schema).encode()
+    buffer = io.BytesIO()
+    with zipfile.ZipFile(buffer, "w") as zf:
+        for name, content in files.items():
+            zf.writestr(name, content)
+    blob = buffer.getvalue()
+    card = dict(built["tree"].card)
+    card["artefact"] = {**card["artefact"], "sha256": hashlib.sha256(blob).hexdigest()}
+    (tmp_path / "crafted.skops").write_bytes(blob)
+    card_path_for(tmp_path / "crafted.skops").write_text(json.dumps(card))
+    with pytest.raises(ModelError, match="never holds: .*a method of builtins.str"):
+        load_model(tmp_path / "crafted.skops")
+    assert not (tmp_path / "written").exists()
+
+
 def test_loading_says_when_versions_differ(demo_built, tmp_path):
     _, _, _, built = demo_built
     shutil.copy(built["tree"].artefact, tmp_path / "v.skops")
