@@ -38,6 +38,26 @@ def _findings(folder: Path, df: pd.DataFrame, *, extra: str = "", models: str = 
     return spec, run_checks(spec, frame, make_plan(spec, frame))
 
 
+def _edited_spec(folder: Path, df: pd.DataFrame, csv: str, *edits: tuple[str, str]
+                 ) -> tuple[Path, str]:
+    """(path, text) of the small spec on `df` (written as `csv`), each (old, new) of
+    `edits` replaced in its text."""
+    df.to_csv(folder / csv, index=False)
+    path = write_spec(folder, RIDGE, data=csv)
+    text = path.read_text()
+    for old, new in edits:
+        text = text.replace(old, new)
+    path.write_text(text)
+    return path, text
+
+
+def _planned(path: Path):
+    """(spec, frame, plan) of the spec file at `path`."""
+    spec = load_spec(path)
+    frame = load_frame(spec)
+    return spec, frame, make_plan(spec, frame)
+
+
 def _kinds(findings) -> list[tuple[str, str | None]]:
     return sorted((f.kind, f.column) for f in findings)
 
@@ -230,14 +250,10 @@ def test_a_test_split_by_other_groups_than_the_folds_is_an_overlap(tmp_path):
     df = diabetes_frame()
     df["plant"] = np.arange(len(df)) // 6
     df["batch"] = np.arange(len(df)) % 10
-    df.to_csv(tmp_path / "plants.csv", index=False)
-    path = write_spec(tmp_path, RIDGE, data="plants.csv")
-    text = path.read_text().replace("  seed: 3\n", "  seed: 3\n  groups: batch\n")
-    text = text.replace("  seed: 17\n", "  seed: 17\n  groups: plant\n")
-    path.write_text(text)
-    spec = load_spec(path)
-    frame = load_frame(spec)
-    plan = make_plan(spec, frame)
+    path, text = _edited_spec(tmp_path, df, "plants.csv",
+                              ("  seed: 3\n", "  seed: 3\n  groups: batch\n"),
+                              ("  seed: 17\n", "  seed: 17\n  groups: plant\n"))
+    spec, frame, plan = _planned(path)
     tested = np.unique(df.plant.to_numpy()[plan.test_rows])
     shared = np.intersect1d(tested, df.plant.to_numpy()[plan.train_rows])
     hits = [f for f in run_checks(spec, frame, plan) if f.kind == "split_overlap"]
@@ -246,10 +262,7 @@ def test_a_test_split_by_other_groups_than_the_folds_is_an_overlap(tmp_path):
     assert "Leave test.groups unset" in hits[0].message
     # the same groups on both: whole plants held out, silent
     path.write_text(text.replace("  groups: batch\n", "  groups: plant\n"))
-    spec = load_spec(path)
-    frame = load_frame(spec)
-    assert not [f for f in run_checks(spec, frame, make_plan(spec, frame))
-                if f.kind == "split_overlap"]
+    assert not [f for f in run_checks(*_planned(path)) if f.kind == "split_overlap"]
 
 
 @pytest.mark.parametrize("jobs", [1, 2])  # 2: the refusal stops fits already running
@@ -257,14 +270,11 @@ def test_a_test_column_breaking_a_time_plan_is_an_error_unless_allowed(tmp_path,
     df = diabetes_frame()
     df["day"] = np.arange(len(df))
     df["holdout"] = np.arange(len(df)) % 5 == 0  # test rows spread over the whole period
-    df.to_csv(tmp_path / "days.csv", index=False)
-    path = write_spec(tmp_path, RIDGE, data="days.csv")
-    text = path.read_text().replace("  fraction: 0.25\n  seed: 3\n", "  column: holdout\n")
-    text = text.replace("  k: 3\n  repeats: 2\n", "  k: 3\n  order: day\n")
-    path.write_text(text)
-    spec = load_spec(path)
-    frame = load_frame(spec)
-    (hit,) = run_checks(spec, frame, make_plan(spec, frame))
+    path, text = _edited_spec(tmp_path, df, "days.csv",
+                              ("  fraction: 0.25\n  seed: 3\n", "  column: holdout\n"),
+                              ("  k: 3\n  repeats: 2\n", "  k: 3\n  order: day\n"))
+    spec, frame, plan = _planned(path)
+    (hit,) = run_checks(spec, frame, plan)
     assert (hit.kind, hit.severity, hit.refused, hit.value) == ("split_overlap", "error", True,
                                                                89.0)
     result = CliRunner().invoke(main, ["check", str(path)])
