@@ -292,6 +292,12 @@ def test_history_figure_marks_where_the_data_and_the_spec_changed(varied, tmp_pa
     result = model_history(store, "ridge")
     assert result.table["data_changed"].tolist() == [False, False, False, True]
     assert result.table["spec_changed"].tolist() == [False, True, True, True]
+    # "pick changed" means another grid point, not another cell id (a new plan or new
+    # data give the same grid point a new id)
+    params = [json.dumps(json.loads(p), sort_keys=True) for p in result.table["params"]]
+    assert result.table["pick_changed"].tolist() == [False] + [
+        a != b for a, b in zip(params, params[1:])]
+    assert result.table["cell_id"].nunique() == 4
     fig = history_figure(store, model="ridge")
     marks = [line.get_gid() for line in fig.axes[0].get_lines() if line.get_gid()]
     assert marks == ["spec_changed", "spec_changed", "data_changed"]

@@ -225,8 +225,11 @@ def _history(store: Store, model, name, family, rule, se, metric) -> ModelHistor
                        data_changed=prev is not None and prev["data_sha256"] != here["data_sha256"],
                        spec_changed=prev is not None and prev["spec_sha256"] != here["spec_sha256"],
                        labels=json.dumps(labels.get(sid, {}), sort_keys=True))
-            row["pick_changed"] = (model_here in before and row["cell_id"] != before[model_here])
-            before[model_here] = row["cell_id"]
+            # the same grid point picked again is no change, though a new plan or new data
+            # give it another cell id
+            picked = _params_key(row["params"])
+            row["pick_changed"] = model_here in before and picked != before[model_here]
+            before[model_here] = picked
             rows.append(row)
     columns = ["sweep_id", "started_at", "status", "model", "family", "rule", "cell_id",
                "params", "complexity_rank", "n", "mean", "se", "test", "data", "data_changed",
@@ -278,3 +281,11 @@ def _se(r, kind: str) -> float:
     if kind == "corrected":
         return math.sqrt(corrected_variance(float(r.sd) ** 2, int(r.n), float(r.valid_ratio)))
     return float(r.sd) / math.sqrt(int(r.n))
+
+
+def _params_key(params) -> str | None:
+    """A picked cell's parameters as one comparable text (None: nothing picked)."""
+    if params is None or params != params:
+        return None
+    return json.dumps(json.loads(params) if isinstance(params, str) else params,
+                      sort_keys=True)
