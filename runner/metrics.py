@@ -116,11 +116,18 @@ def _brier(y, p, classes):
 
 
 def _roc_auc(y, p, classes):
+    """ROC AUC; NaN (stored NULL, and named by the picks' notes) where the rows hold one
+    class, without scikit-learn's warning on every such fold."""
+    import warnings
+
+    from sklearn.exceptions import UndefinedMetricWarning
     from sklearn.metrics import roc_auc_score
 
-    if len(classes) == 2:
-        return roc_auc_score(y, p[:, 1])
-    return roc_auc_score(y, p, multi_class="ovr", average="macro", labels=list(classes))
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", UndefinedMetricWarning)
+        if len(classes) == 2:
+            return roc_auc_score(y, p[:, 1])
+        return roc_auc_score(y, p, multi_class="ovr", average="macro", labels=list(classes))
 
 
 def _most_probable(p, classes):

@@ -439,7 +439,14 @@ models:
 """)
     spec = parse_spec(path.read_text(), source=path)
     store = Store(tmp_path / "store.duckdb")
-    result = run_sweep(spec, store=store, jobs=1)
+    import warnings
+
+    from sklearn.exceptions import UndefinedMetricWarning
+
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        result = run_sweep(spec, store=store, jobs=1)
+    assert not [w for w in caught if issubclass(w.category, UndefinedMetricWarning)]
     rows = store.query("select cell_id, value from fold_scores where sweep_id = ? and "
                        "metric = 'roc_auc'", [result.sweep_id])
     undefined = rows.value.isna().groupby(rows.cell_id).sum()
