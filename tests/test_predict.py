@@ -343,3 +343,20 @@ def test_a_numeric_column_listed_as_categorical_predicts_as_the_pipeline_does(tm
     rows = df.iloc[400:].drop(columns="progression")[[f["name"] for f in
                                                       model.card["features"]]]
     assert np.array_equal(got, model.pipeline.predict(rows))
+
+
+def test_a_kept_column_empty_through_the_first_chunk_is_written_to_parquet(rows, demo_built,
+                                                                          tmp_path):
+    # 'note' is empty in rows 0-29 and set in row 30: with chunks of 10 rows the first
+    # chunk gives Arrow no type for it; the file still holds every row, the note in place.
+    df, _ = rows
+    df = df.copy()
+    df["note"] = None
+    df.loc[30, "note"] = "checked"
+    (tmp_path / "in.csv").write_text(_csv(df))
+    model = load_model(demo_built[3]["tree"].artefact)
+    predict_file(model, tmp_path / "in.csv", tmp_path / "p.parquet", keep=["note"],
+                 chunk_rows=10)
+    out = pd.read_parquet(tmp_path / "p.parquet")
+    assert len(out) == 40 and out["note"].isna().sum() == 39
+    assert out.loc[30, "note"] == "checked"

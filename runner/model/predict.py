@@ -314,7 +314,11 @@ class _Output:
 
         table = pa.Table.from_pandas(df, preserve_index=False)
         if self._writer is None:
-            self._writer = pq.ParquetWriter(self.tmp, table.schema)
+            # a column empty through the first chunk has no type yet: text, which any
+            # later chunk's values can be cast to
+            schema = pa.schema([f.with_type(pa.string()) if pa.types.is_null(f.type) else f
+                                for f in table.schema])
+            self._writer = pq.ParquetWriter(self.tmp, schema)
         self._writer.write_table(table.cast(self._writer.schema))
 
     def _close(self) -> None:
