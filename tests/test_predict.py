@@ -360,3 +360,25 @@ def test_a_kept_column_empty_through_the_first_chunk_is_written_to_parquet(rows,
     out = pd.read_parquet(tmp_path / "p.parquet")
     assert len(out) == 40 and out["note"].isna().sum() == 39
     assert out.loc[30, "note"] == "checked"
+
+
+def test_handed_on_files_take_the_umask_mode(rows, demo_built, tmp_path):
+    # predictions, a model file and its card are readable by the team under umask 022
+    # (0o644), as files written with open() would be, not private (0o600) temporaries
+    import os
+    import stat
+
+    from runner.model.build import build_model
+
+    df, _ = rows
+    (tmp_path / "in.csv").write_text(_csv(df))
+    _, store, _, built = demo_built
+    old = os.umask(0o022)
+    try:
+        predict_file(load_model(built["tree"].artefact), tmp_path / "in.csv",
+                     tmp_path / "p.csv")
+        model = build_model(store, model="ridge", out=tmp_path / "m.skops")
+    finally:
+        os.umask(old)
+    for path in (tmp_path / "p.csv", model.artefact, model.card_file):
+        assert stat.S_IMODE(path.stat().st_mode) == 0o644, path

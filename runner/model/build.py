@@ -27,6 +27,7 @@ import pandas as pd
 from ..errors import DataError, ModelError, SpecError
 from ..families import FAMILIES
 from ..metrics import METRICS
+from ..read.filenames import new_file_mode
 from ..store import Store
 from .artefact import FORMAT, dump_pipeline, sha256_of
 from .card import CARD_FORMAT, CARD_VERSION, card_json, card_path_for, conformal_scores, \
@@ -360,6 +361,7 @@ def _stage_files(artefact: Path, blob: bytes, card: dict) -> list[tuple[Path, Pa
     try:
         for target, data in zip(targets, (blob, card_json(card).encode())):
             fd, tmp = tempfile.mkstemp(prefix=".building-", dir=target.parent)
+            os.fchmod(fd, new_file_mode())
             with os.fdopen(fd, "wb") as fh:
                 fh.write(data)
             staged.append((Path(tmp), target))

@@ -295,7 +295,10 @@ class _Output:
 
     def __init__(self, out: Path):
         self.out, self.kind = out, _KINDS[out.suffix.lower()]
+        from ..read.filenames import new_file_mode
+
         fd, tmp = tempfile.mkstemp(prefix=".predicting-", suffix=out.suffix, dir=out.parent)
+        os.fchmod(fd, new_file_mode())
         os.close(fd)
         self.tmp = Path(tmp)
         self._writer = None

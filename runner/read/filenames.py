@@ -114,3 +114,14 @@ def inside(folder: str | Path, name: str) -> Path:
                          f"{root} (a link there points elsewhere). Remove the link or choose "
                          "another folder.")
     return path
+
+
+def new_file_mode() -> int:
+    """The mode a file created by `open` gets under this process's umask (0o666 less it):
+    files written through a private temporary file take it before they are moved into
+    place, so a team can read what was handed on."""
+    import os
+
+    mask = os.umask(0)
+    os.umask(mask)
+    return 0o666 & ~mask

@@ -12,7 +12,7 @@ from pathlib import Path
 import pandas as pd
 
 from ..errors import FoldwiseError, OutputError
-from .filenames import inside, safe_component
+from .filenames import inside, new_file_mode, safe_component
 from ..metrics import get_metric, metric_label
 from .class_figures import calibration_figure, roc_figure
 from .plots import (NEUTRALS, complexity_figure, figure_svg, importance_figure,
@@ -200,9 +200,7 @@ def write_report(store: Store, out: str | Path, sweep_id: str | None = None, *,
     try:
         with os.fdopen(fd, "w", encoding="utf-8") as f:
             f.write(page)
-        mask = os.umask(0)
-        os.umask(mask)
-        os.chmod(tmp, 0o666 & ~mask)
+        os.chmod(tmp, new_file_mode())
         os.replace(tmp, out)
     except BaseException:
         Path(tmp).unlink(missing_ok=True)
