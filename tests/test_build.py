@@ -371,3 +371,11 @@ def test_a_model_built_after_a_merge_arrives_with_the_next_merge(demo_built, tmp
     assert again.new_sweeps == [] and again.new_models == [later.model_id]
     assert again.rows["models"] == 1
     assert load_model(later.model_id, target).card == later.card
+
+
+def test_build_out_under_a_file_is_refused_in_words(demo_built, tmp_path):
+    _, store, _, _ = demo_built
+    (tmp_path / "plain.txt").write_text("x")
+    with pytest.raises(ModelError, match="a part of its folder is a file"):
+        build_model(store, model="ridge", out=tmp_path / "plain.txt" / "m.skops")
+    assert (tmp_path / "plain.txt").read_text() == "x"

@@ -356,7 +356,11 @@ def _stage_files(artefact: Path, blob: bytes, card: dict) -> list[tuple[Path, Pa
         if t.exists():
             raise ModelError(f"{t} already exists; foldwise does not overwrite a model's "
                              "files. Choose another --out, or remove it first.")
-    artefact.parent.mkdir(parents=True, exist_ok=True)
+    try:
+        artefact.parent.mkdir(parents=True, exist_ok=True)
+    except (FileExistsError, NotADirectoryError):
+        raise ModelError(f"{artefact} cannot be written: a part of its folder is a file. "
+                         "Choose another --out.") from None
     staged = []
     try:
         for target, data in zip(targets, (blob, card_json(card).encode())):
