@@ -45,7 +45,7 @@ class _Group(click.Group):
 @click.group(cls=_Group, context_settings={"help_option_names": ["-h", "--help"]})
 @click.version_option(package_name="foldwise", prog_name="foldwise")
 def main():
-    """Tune and compare regression models by repeated cross-validation.
+    """Tune and compare models for a numeric or class target by repeated cross-validation.
 
     Write one YAML spec; `foldwise run` scores every grid cell on identical folds and on the
     test split and keeps every fold score in a DuckDB store; the other commands query it.

@@ -53,9 +53,9 @@ class DataSpec(_Strict):
     @model_validator(mode="after")
     def _roles_do_not_clash(self):
         if self.target in self.categorical:
-            raise ValueError(f"the target '{self.target}' is listed in categorical; foldwise "
-                             "fits regression models, so the target must be a numeric column. "
-                             "Remove it from data.categorical")
+            raise ValueError(f"the target '{self.target}' is listed in categorical, which names "
+                             "feature columns. Remove it from data.categorical; to treat a "
+                             "numeric target as classes, set `task: classification`")
         both = [c for c in self.categorical if c in self.drop]
         if both:
             raise ValueError(f"column(s) {', '.join(map(repr, both))} are listed in both drop and "
