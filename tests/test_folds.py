@@ -419,27 +419,37 @@ def test_dates_as_text_order_rows_as_their_day_numbers_do(tmp_path):
         assert np.array_equal(a.fit, b.fit) and np.array_equal(a.valid, b.valid)
 
 
-@pytest.mark.parametrize("k, gap", [(2, 0), (3, 2), (3, 3), (3, 4), (4, 9), (5, 1)])
-def test_the_fewest_times_named_for_time_folds_are_what_the_splitter_needs(k, gap):
-    # reference: TimeSeriesSplit itself, which raises on fewer samples than it can cut
+@pytest.mark.parametrize("k, gap", [(2, 0), (3, 2), (3, 3), (3, 4), (4, 9), (5, 1), (2, 5)])
+def test_time_folds_are_refused_exactly_when_the_splitter_cannot_cut_and_the_counts_named_work(
+        k, gap):
+    # reference: scikit-learn's TimeSeriesSplit itself, which raises on counts it cannot cut;
+    # those counts do not come in order (k=3, gap=3 cuts 7 values but not 8 or 9)
+    import re
+
     from sklearn.model_selection import TimeSeriesSplit
 
     from runner.write.resampling import Cut, SCHEMES
 
-    def cuts(n):
+    def cuts(n, gap=gap):
         try:
-            list(TimeSeriesSplit(n_splits=k, gap=gap).split(np.arange(n)))
-            return True
+            splits = list(TimeSeriesSplit(n_splits=k, gap=gap).split(np.arange(n)))
         except ValueError:
             return False
+        return all(len(fit) and len(valid) for fit, valid in splits)
 
-    fewest = next(n for n in range(1, 500) if cuts(n))
     scheme = SCHEMES["time"]
-    for n in (fewest - 1, fewest):
+    for n in range(1, gap * (k + 1) + 3 * (k + 1)):
         problem = scheme.problem(Cut(np.zeros(n), np.arange(n), k, 1, 0, gap), "day")
-        assert (problem is None) == (n == fewest), (n, problem)
-        if problem:
-            assert f"need at least {fewest}" in problem
+        assert (problem is None) == cuts(n), (n, problem)
+        if problem is None:
+            continue
+        assert f"hold {n} distinct value(s) of column 'day' (folds.order)" in problem
+        always = int(re.search(r"Any count of (\d+) or more values works", problem)[1])
+        assert all(cuts(m) for m in range(always, always + 3 * (k + 1))), (n, problem)
+        assert not cuts(always - 1) or always == k + 1
+        smaller_gap = re.search(r"a gap of at most (\d+) works", problem)
+        if smaller_gap:
+            assert cuts(n, int(smaller_gap[1])) and not cuts(n, int(smaller_gap[1]) + 1)
 
 
 @pytest.mark.parametrize("suffix", [".csv", ".parquet"])

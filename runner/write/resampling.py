@@ -137,17 +137,30 @@ def _enough_groups(cut: Cut, column: str | None) -> str | None:
     return _enough_rows(cut, column)
 
 
+def _times_that_always_cut(k: int, gap: int) -> int:
+    """The fewest distinct values from which every larger count also cuts into k time-ordered
+    folds with this gap. TimeSeriesSplit gives each fold T // (k + 1) values and needs
+    T > gap + k x that; the largest T failing it is gap x (k + 1), so counts do not pass in
+    order below it."""
+    return max(k + 1, gap * (k + 1) + 1)
+
+
 def _enough_times(cut: Cut, column: str | None) -> str | None:
-    n_times = len(np.unique(cut.values))
-    per_fold = n_times // (cut.k + 1)
-    if per_fold < 1 or n_times - cut.gap - per_fold * cut.k <= 0:
-        # the fewest values T with T // (k + 1) >= 1 and T - gap - (T // (k + 1)) * k > 0,
-        # TimeSeriesSplit's own conditions
-        k, gap = cut.k, cut.gap
-        need = k + 1 + gap if gap <= k else (gap + 1 - k) * (k + 1) + k
-        return (f"the training rows hold {n_times} distinct value(s) of column '{column}' "
-                f"(folds.order); {cut.k} time-ordered folds with gap {cut.gap} need at least "
-                f"{need}. Lower `folds.k` or `folds.gap`, or order by a finer column")
+    n_times, k, gap = len(np.unique(cut.values)), cut.k, cut.gap
+    per_fold = n_times // (k + 1)
+    start = (f"the training rows hold {n_times} distinct value(s) of column '{column}' "
+             f"(folds.order), ")
+    always = (f"Any count of {_times_that_always_cut(k, gap)} or more values works with "
+              f"{k} folds and gap {gap}")
+    if per_fold < 1:
+        return (f"{start}too few for {k} time-ordered folds: they need one value per fold and "
+                f"one to fit on. {always}. Lower `folds.k`, or order by a finer column")
+    if n_times - gap - per_fold * k <= 0:
+        return (f"{start}so each of the {k} time-ordered folds validates on {n_times} // "
+                f"{k + 1} = {per_fold} of them; the {k} folds ({per_fold * k} values) and the "
+                f"gap of {gap} leave the first fold nothing to fit on. With these {n_times} "
+                f"values a gap of at most {n_times - per_fold * k - 1} works. {always}. Lower "
+                "`folds.gap` or `folds.k`, or order by a finer column")
     return None
 
 
