@@ -478,9 +478,41 @@ def _plan_values(s: pd.Series, role: str, column: str, path: Path, rows: _Rows) 
         if when.dt.tz is not None:
             when = when.dt.tz_convert("UTC").dt.tz_localize(None)
     except (ValueError, TypeError, OverflowError):
-        sample = ", ".join(repr(v) for v in s.astype(str).unique()[:3])
-        raise DataError(f"column '{column}' of {path}, named by `folds.order`, holds text "
-                        f"that is not ISO 8601 dates (values such as {sample}); the time "
-                        "order needs numbers or dates written as YYYY-MM-DD (with a time "
-                        "if needed).") from None
+        raise DataError(_order_text_problem(s.astype(str), column, path, rows)) from None
     return when.to_numpy(dtype="datetime64[ns]")
+
+
+def _order_text_problem(texts: pd.Series, column: str, path: Path, rows: _Rows) -> str:
+    """Why a folds.order column of text is not one run of dates: its first value that is no
+    ISO 8601 date, else its first value whose time zone offset differs from the first's."""
+    named = f"column '{column}' of {path}, named by `folds.order`,"
+    bad = np.flatnonzero(pd.isna(pd.to_datetime(texts, format="ISO8601", utc=True,
+                                                 errors="coerce")))
+    if len(bad):
+        i = int(bad[0])
+        return (f"{named} holds {texts.iat[i]!r} at {rows(i)}, which is neither a number nor "
+                f"an ISO 8601 date ({len(bad)} such row(s)); the time order needs numbers or "
+                "dates written as YYYY-MM-DD (with a time if needed). Fix or remove those rows.")
+    values = pd.unique(texts)
+    first = pd.Timestamp(values[0]).utcoffset()
+    other = next((v for v in values[1:] if pd.Timestamp(v).utcoffset() != first), None)
+    if other is None:
+        return (f"{named} holds text pandas cannot read as one run of ISO 8601 dates; the "
+                "time order needs numbers or dates written as YYYY-MM-DD (with a time if "
+                "needed).")
+    i, j = 0, int(np.flatnonzero(texts.to_numpy() == other)[0])
+    second = pd.Timestamp(other).utcoffset()
+    cause = (" (local times across a daylight-saving change do this)"
+             if first is not None and second is not None else "")
+    return (f"{named} mixes time zone offsets: {texts.iat[i]!r} at {rows(i)} has "
+            f"{_offset_words(first)}, {other!r} at {rows(j)} has {_offset_words(second)}"
+            f"{cause}. Write every value with one offset, for example all in UTC (ending in "
+            "Z), or every value without one.")
+
+
+def _offset_words(offset) -> str:
+    if offset is None:
+        return "no offset"
+    minutes = int(offset.total_seconds() // 60)
+    sign = "-" if minutes < 0 else "+"
+    return f"offset {sign}{abs(minutes) // 60:02d}:{abs(minutes) % 60:02d}"
