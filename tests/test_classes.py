@@ -476,3 +476,24 @@ models:
         "select cell_id, n from cell_summary where sweep_id = ? and metric = 'roc_auc'",
         [result.sweep_id]).set_index("cell_id")
     assert (renewed.n == view.n[renewed.index]).all()
+
+
+def test_a_fold_fitting_without_a_class_names_the_class_and_the_fold():
+    # The plan refuses such folds before any fit; a worker handed one anyway says which
+    # class its fitting rows lack and which fold it is, rather than 'a class is missing'.
+    from runner.write.tasks import run_task
+
+    rng = np.random.default_rng(3)
+    X = pd.DataFrame({"x": rng.normal(size=30), "w": rng.normal(size=30)})
+    y_fit = np.array(["a", "b"] * 10)
+    y_eval = np.array(["a", "b", "c"] * 3 + ["a"])
+    scores, failures, _ = run_task(
+        "linear", [("c1", {"penalty": "l2", "alpha": 0.01})], X.iloc[:20], y_fit,
+        X.iloc[20:], y_eval, seed=1, repeat=1, fold=2, metrics=["log_loss"],
+        numeric=["x", "w"], categorical=[], task="classification", classes=["a", "b", "c"])
+    assert scores == []
+    (failure,) = failures
+    assert (failure["kind"], failure["repeat"], failure["fold"]) == ("MissingClass", 1, 2)
+    assert failure["message"] == ("the fitting rows of fold 2 of repeat 1 hold no row of "
+                                  "class 'c', so the model fitted there gives no probability "
+                                  "for it")

@@ -34,9 +34,8 @@ def run_task(family: str, cells: list[tuple[str, dict]], X_fit, y_fit, X_eval, y
     for (cid, _), fit in zip(cells, fits):
         if fit.error is None and task == "classification" and \
                 np.shape(fit.predictions[0])[1] != len(classes):
-            fit.error_kind, fit.error = "MissingClass", (
-                "a class is missing from this fold's fitting rows, so the model gives no "
-                "probability for it")
+            fit.error_kind, fit.error = "MissingClass", _missing_class(
+                y_fit, classes, repeat, fold, np.shape(fit.predictions[0])[1])
         if fit.error is not None:
             failures.append({"cell_id": cid, "repeat": repeat, "fold": fold,
                              "kind": fit.error_kind, "message": fit.error})
@@ -61,6 +60,19 @@ def run_task(family: str, cells: list[tuple[str, dict]], X_fit, y_fit, X_eval, y
                                "n_leaves": fit.n_leaves, "how": fit.how,
                                "n_warnings": fit.n_warnings})
     return scores, failures, readings
+
+
+def _missing_class(y_fit, classes, repeat: int, fold: int, n_given: int) -> str:
+    """Which classes the fitting rows of this fold (or the refit) lack, in words."""
+    where = ("the refit's training rows" if fold == REFIT
+             else f"the fitting rows of fold {fold} of repeat {repeat}")
+    present = set(np.unique(y_fit).tolist())
+    missing = [repr(c) for c in classes if c not in present]
+    if not missing:
+        return (f"the model fitted on {where} gives probabilities for {n_given} classes, "
+                f"not the target's {len(classes)}")
+    return (f"{where} hold no row of class {', '.join(missing)}, so the model fitted there "
+            "gives no probability for it")
 
 
 def _reader(family: str, explain: dict | None, X_test, y_test, task: str, classes):
