@@ -81,7 +81,9 @@ REFUSED = [
     ("folds: {order: day, repeats: 3}\nmodels:\n  m: {family: linear}\n",
      ["repeats must be 1 (got repeats=3)"]),
     ("folds: {groups: y}\nmodels:\n  m: {family: linear}\n",
-     ["folds.groups names the target 'y'"]),
+     ["line 4, folds.groups: it names the target 'y'"]),
+    ("folds:\n  k: 3\n  order: y\nmodels:\n  m: {family: linear}\n",
+     ["line 6, folds.order: it names the target 'y'"]),
     ("checks: {allow: [id_colum]}\nmodels:\n  m: {family: linear}\n",
      ["checks.allow", "unknown check 'id_colum'", "Did you mean 'id_column'"]),
     ("models: {}\n", ["models"]),
@@ -107,7 +109,7 @@ def test_refused_specs_name_the_field(extra, words):
      "models: {m: {family: linear}}\n", ["exactly one of fraction, file or column"]),
     ("name: t\ndata: {path: d.csv, target: y}\ntest: {fraction: 0.2, groups: site}\n"
      "folds: {order: day}\nmodels: {m: {family: linear}}\n",
-     ["test.groups does not go with time-ordered folds"]),
+     ["line 3, test.groups: it does not go with time-ordered folds"]),
 ])
 def test_refused_documents(text, words):
     with pytest.raises(SpecError) as info:

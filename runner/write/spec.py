@@ -33,6 +33,15 @@ MAX_RANGE_N = 1_000_000
 """Most values one {log: ..., n: N} or {linear: ..., n: N} range, or {path: N}, may ask for."""
 
 
+class _FieldProblem(ValueError):
+    """A cross-field check's complaint about one field, so the message gives that field's
+    line rather than the line of the section whose validator found it."""
+
+    def __init__(self, field: str, message: str):
+        super().__init__(message)
+        self.loc = tuple(field.split("."))
+
+
 class _Strict(BaseModel):
     model_config = ConfigDict(extra="forbid")
 
@@ -356,14 +365,15 @@ class Spec(_Strict):
     def _plan_columns(self):
         scheme = implied_scheme(self.folds)
         if scheme == "time" and self.test.groups is not None:
-            raise ValueError("test.groups does not go with time-ordered folds: their test "
-                             "split is the last fraction in folds.order; remove test.groups")
+            raise _FieldProblem("test.groups", "it does not go with time-ordered "
+                                "folds: their test split is the last fraction in "
+                                "folds.order; remove test.groups")
         for field, column in (("folds.groups", self.folds.groups),
                               ("folds.order", self.folds.order),
                               ("test.groups", self.test.groups)):
             if column is not None and column == self.data.target:
-                raise ValueError(f"{field} names the target '{column}'; name the column "
-                                 "that holds the groups or the time order instead")
+                raise _FieldProblem(field, f"it names the target '{column}'; name the "
+                                    "column that holds the groups or the time order instead")
         return self
 
     @field_validator("store")
@@ -468,6 +478,9 @@ def _describe(exc: ValidationError, lines: dict[tuple, int], where: str) -> str:
         loc = tuple(x for x in err["loc"] if not (isinstance(x, str) and (
             x.startswith(("list[", "LogRange", "LinearRange", "PathRange", "function-"))
             or x in ("bool", "int", "float", "str", "none"))))
+        cause = err.get("ctx", {}).get("error")
+        if isinstance(cause, _FieldProblem):
+            loc += cause.loc
         field = ".".join(str(x) for x in loc) or "(top level)"
         line = None
         for n in range(len(loc), -1, -1):
