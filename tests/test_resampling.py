@@ -83,3 +83,67 @@ def test_too_few_rows_for_folds(tmp_path, diabetes_csv):
     spec.folds.k = 5
     with pytest.raises(DataError, match="training rows for 5 folds"):
         make_plan(spec, load_frame(spec))
+
+
+@pytest.mark.parametrize("counts, fraction", [
+    ((20, 19, 1), 0.2), ((20, 19, 1), 0.5), ((20, 18, 2), 0.05), ((20, 18, 2), 0.95),
+    ((20, 18, 2), 0.2), ((3, 3, 3), 0.3), ((3, 3, 3), 0.7), ((2, 2), 0.5), ((50, 2), 0.01)])
+def test_a_stratified_test_split_is_refused_exactly_when_scikit_learn_cannot_make_it(
+        counts, fraction):
+    # reference: scikit-learn's train_test_split(stratify=y), which raises on classes it
+    # cannot split; a fraction the message offers must split
+    import re
+
+    from sklearn.model_selection import train_test_split
+
+    from runner.write.resampling import _strata_problem
+
+    y = np.repeat(np.arange(len(counts)), counts)
+
+    def splits(f):
+        try:
+            train_test_split(np.arange(len(y)), test_size=f, random_state=0, stratify=y)
+            return True
+        except ValueError:
+            return False
+
+    problem = _strata_problem(y, fraction, 3)
+    assert (problem is None) == splits(fraction), problem
+    if problem and min(counts) < 2:
+        assert "class 2 has a single row" in problem and "whatever the fraction" in problem
+        assert "Drop that class's rows or merge it into a similar class" in problem
+        assert "test.fraction`" not in problem
+    elif problem:
+        bound = float(re.search(r"Set `test.fraction` to at (?:least|most) ([\d.]+)",
+                                problem)[1])
+        assert splits(bound)
+
+
+def test_a_class_of_one_row_with_a_test_fraction_is_refused_with_what_works(tmp_path):
+    from click.testing import CliRunner
+
+    from runner.cli import main
+
+    rng = np.random.default_rng(0)
+    y = np.array(["a", "b"] * 20, dtype=object)
+    y[5] = "rare"
+    pd.DataFrame({"x": rng.normal(size=40), "y": y}).to_csv(tmp_path / "c.csv", index=False)
+    (tmp_path / "spec.yaml").write_text("""
+name: rare
+data: {path: c.csv, target: y}
+test: {fraction: 0.2}
+folds: {k: 2}
+metrics: [log_loss]
+store: store.duckdb
+models:
+  logit: {family: linear, grid: {penalty: l2, alpha: [1.0]}}
+""")
+    for command in ("check", "run"):
+        out = CliRunner().invoke(main, [command, str(tmp_path / "spec.yaml")])
+        message = " ".join(out.output.split())
+        assert out.exit_code == 2 and "Traceback" not in out.output, out.output
+        assert f"test split cannot be made from {tmp_path / 'c.csv'} (target 'y')" in message
+        assert "class 'rare' has a single row" in message
+        assert "Drop that class's rows or merge it into a similar class" in message
+        assert "the stratified folds need 2 of them among the training rows" in message
+        assert not (tmp_path / "store.duckdb").exists()

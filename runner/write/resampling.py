@@ -386,12 +386,39 @@ def plan_counts(spec, frame) -> tuple[int, int]:
     return holdout.count(n, spec.test.fraction, spec.test.seed, values, spec.folds.gap)
 
 
+def _strata_problem(y: np.ndarray, fraction: float, k: int) -> str | None:
+    """Why train_test_split(stratify=y) cannot split these classes, in words: it needs two
+    rows of every class and, on each side, at least one row per class."""
+    labels, counts = np.unique(y, return_counts=True)
+    single = [repr(c) for c, m in zip(labels.tolist(), counts.tolist()) if m < 2]
+    if single:
+        return (f"class {', '.join(single)} has a single row; a stratified test split "
+                "(test.fraction with a class target) needs two rows of every class, one on "
+                "each side, whatever the fraction. Drop that class's rows or merge it into a "
+                "similar class, or supply more rows of it: the stratified folds need "
+                f"{k} of them among the training rows")
+    n, c = len(y), len(labels)
+    n_test = math.ceil(fraction * n)
+    if n_test < c or n - n_test < c:
+        side, bound = (("test", f"at least {math.ceil(c / n * 1e4) / 1e4:g}") if n_test < c
+                       else ("training", f"at most {math.floor((n - c) / n * 1e4) / 1e4:g}"))
+        return (f"test.fraction {fraction:g} of {n} rows leaves {min(n_test, n - n_test)} "
+                f"{side} row(s) for {c} classes, and a stratified split needs one row of "
+                f"every class on each side. Set `test.fraction` to {bound}")
+    return None
+
+
 def _split_test(spec, frame) -> tuple[np.ndarray, np.ndarray]:
     n = len(frame.y)
     if spec.test.fraction is None:
         return np.flatnonzero(~frame.test_mask), np.flatnonzero(frame.test_mask)
     holdout, values = _holdout_values(spec, frame)
     strata = frame.y if frame.task == "classification" and holdout.name == "rows" else None
+    problem = None if strata is None else _strata_problem(strata, spec.test.fraction,
+                                                         spec.folds.k)
+    if problem:
+        raise DataError(f"the test split cannot be made from {frame.source} (target "
+                        f"'{frame.target}'): {problem}.")
     return holdout.rows(n, spec.test.fraction, spec.test.seed, values, spec.folds.gap,
                         strata=strata)
 
