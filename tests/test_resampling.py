@@ -147,3 +147,21 @@ models:
         assert "Drop that class's rows or merge it into a similar class" in message
         assert "the stratified folds need 2 of them among the training rows" in message
         assert not (tmp_path / "store.duckdb").exists()
+
+
+@pytest.mark.parametrize("rare, k, advice", [(1, 2, "Drop or merge rare classes"),
+                                             (3, 5, "Lower `folds.k` to at most 3, merge")])
+def test_too_few_rows_of_a_class_for_stratified_folds_gets_advice_that_works(rare, k, advice):
+    # reference: scikit-learn's StratifiedKFold, which cannot put a class in every fold
+    # with fewer rows than folds (k=2 is the fewest folds, so one row cannot be helped)
+    from sklearn.model_selection import StratifiedKFold
+
+    from runner.write.resampling import SCHEMES, Cut
+
+    y = np.repeat([0, 1], [20, rare])
+    problem = SCHEMES["rows"].problem(Cut(y, None, k, 1, 0, stratify=True), None)
+    assert f"class 1 has {rare} training row(s), fewer than the {k} folds" in problem
+    assert advice in problem
+    if rare >= 2:
+        folds = StratifiedKFold(n_splits=rare).split(np.zeros(len(y)), y)
+        assert all((y[fit] == 1).any() and (y[valid] == 1).any() for fit, valid in folds)

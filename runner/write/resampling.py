@@ -117,9 +117,10 @@ def _enough_rows(cut: Cut, column: str | None) -> str | None:
         few = [(c, n) for c, n in zip(labels.tolist(), counts.tolist()) if n < cut.k]
         if few:
             c, n = few[0]
+            lower = f"Lower `folds.k` to at most {n}, merge" if n >= 2 else "Drop or merge"
             return (f"class {c!r} has {n} training row(s), fewer than the {cut.k} folds: "
-                    "stratified folds need one in each. Lower `folds.k`, merge rare "
-                    "classes, or supply more rows")
+                    f"stratified folds need one in each. {lower} rare classes, or supply "
+                    "more rows")
     return None
 
 
