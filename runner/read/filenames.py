@@ -6,18 +6,25 @@ names that Windows reserves, or run to any length. `safe_component` turns any te
 one file-name component that is none of those; `safe_names` does so for a set of texts
 with no two results equal, even on a case-insensitive file system; `inside` joins a
 component to a folder and refuses a result that resolves outside it (a symlink planted
-in the folder, say). Only the standard library is used, so the CLI stays light."""
+in the folder, say). Every file foldwise writes passes the writing helpers below:
+`check_folder`, `make_folder` and `check_replaceable` refuse in one paragraph
+(OutputError), and `write_whole` writes a set of files through temporaries, all moved into
+place or none. Only the standard library is used, so the CLI stays light."""
 
 from __future__ import annotations
 
 import hashlib
+import os
+import tempfile
 import unicodedata
 from pathlib import Path
-from typing import Iterable
+from typing import Iterable, Sequence
 
-from ..errors import QueryError
+from ..errors import OutputError, QueryError
 
-__all__ = ["safe_component", "safe_names", "inside", "MAX_BYTES", "WINDOWS_RESERVED"]
+__all__ = ["safe_component", "safe_names", "inside", "MAX_BYTES", "WINDOWS_RESERVED",
+           "new_file_mode", "file_in_path", "check_folder", "make_folder", "check_replaceable", "stage_files",
+           "move_into_place", "discard_staged", "write_whole"]
 
 MAX_BYTES = 80
 """Longest component in UTF-8 bytes, hash suffix included; far below the usual 255-byte
@@ -120,8 +127,92 @@ def new_file_mode() -> int:
     """The mode a file created by `open` gets under this process's umask (0o666 less it):
     files written through a private temporary file take it before they are moved into
     place, so a team can read what was handed on."""
-    import os
-
     mask = os.umask(0)
     os.umask(mask)
     return 0o666 & ~mask
+
+
+def file_in_path(path: str | Path) -> Path | None:
+    """The first part of `path`'s folders (from the top) that exists and is not a folder."""
+    for part in reversed(Path(path).parents):
+        if part.exists() and not part.is_dir():
+            return part
+    return None
+
+
+def check_folder(folder: str | Path, what: str, hint: str) -> None:
+    """Refuse a folder path one of whose parts is a file, before anything is made: an
+    OutputError '<what> cannot be written: ... <hint>' that names that file."""
+    folder = Path(folder)
+    part = folder if folder.exists() and not folder.is_dir() else file_in_path(folder)
+    if part is not None:
+        raise OutputError(f"{what} cannot be written: a part of its folder is a file "
+                          f"({part}). {hint}")
+
+
+def make_folder(folder: str | Path, what: str, hint: str) -> None:
+    """Create `folder` and its parents, refused as `check_folder` refuses."""
+    check_folder(folder, what, hint)
+    try:
+        Path(folder).mkdir(parents=True, exist_ok=True)
+    except (FileExistsError, NotADirectoryError):  # a file put there since the check
+        check_folder(folder, what, hint)
+        raise
+
+
+def check_replaceable(path: str | Path, mark: bytes, kind: str, hint: str) -> None:
+    """Refuse to replace `path` unless it is absent or an earlier `kind` foldwise wrote
+    (`mark` in its first 4 KiB): a store, a spec or a data file named by mistake would be
+    lost."""
+    path = Path(path)
+    if not path.exists():
+        return
+    if path.is_dir():
+        raise OutputError(f"{kind} {path} is a folder, not a file. {hint}")
+    with open(path, "rb") as f:
+        head = f.read(4096)
+    if mark not in head:
+        raise OutputError(f"{path} exists and is not a foldwise {kind}, so it is not "
+                          f"replaced (foldwise replaces only an earlier {kind} it wrote). "
+                          f"{hint}")
+
+
+def stage_files(files: Sequence[tuple[Path, bytes]], prefix: str) -> list[tuple[Path, Path]]:
+    """Each (path, bytes) written to a temporary file beside its path, with the umask's
+    mode; (temporary, path) pairs for `move_into_place`. None is left if one fails."""
+    staged: list[tuple[Path, Path]] = []
+    try:
+        for target, data in files:
+            fd, tmp = tempfile.mkstemp(prefix=prefix, suffix=".tmp", dir=target.parent)
+            staged.append((Path(tmp), target))
+            with os.fdopen(fd, "wb") as fh:
+                os.fchmod(fh.fileno(), new_file_mode())
+                fh.write(data)
+    except BaseException:
+        discard_staged(staged)
+        raise
+    return staged
+
+
+def move_into_place(staged: Sequence[tuple[Path, Path]]) -> list[Path]:
+    """Rename each staged temporary file onto its path; the paths."""
+    for tmp, target in staged:
+        os.replace(tmp, target)
+    return [target for _, target in staged]
+
+
+def discard_staged(staged: Sequence[tuple[Path, Path]]) -> None:
+    """Remove the temporary files of `stage_files` that are still there."""
+    for tmp, _ in staged:
+        tmp.unlink(missing_ok=True)
+
+
+def write_whole(files: Sequence[tuple[Path, bytes]], prefix: str) -> list[Path]:
+    """Write every (path, bytes): all are staged first, so an error leaves every path as
+    it was and no temporary file behind."""
+    staged = stage_files(files, prefix)
+    try:
+        return move_into_place(staged)
+    except BaseException:
+        discard_staged(staged)
+        raise

@@ -11,8 +11,9 @@ from pathlib import Path
 
 import pandas as pd
 
-from ..errors import FoldwiseError, OutputError
-from .filenames import inside, new_file_mode, safe_component
+from ..errors import FoldwiseError
+from .filenames import (check_replaceable, inside, make_folder, safe_component,
+                        write_whole)
 from ..metrics import get_metric, metric_label
 from .class_figures import calibration_figure, roc_figure
 from .plots import (NEUTRALS, complexity_figure, figure_svg, importance_figure,
@@ -185,40 +186,11 @@ def write_report(store: Store, out: str | Path, sweep_id: str | None = None, *,
                  se: str = "plain") -> Path:
     """Write the report to `out` (folders created); return the path. An existing `out` is
     replaced only if it is an earlier report, and the page appears whole or not at all."""
-    import os
-    import tempfile
-
     out = Path(out)
-    _check_report_out(out)
-    try:
-        out.parent.mkdir(parents=True, exist_ok=True)
-    except (FileExistsError, NotADirectoryError):
-        raise OutputError(f"report {out} cannot be written: a part of its folder is a "
-                          "file. Name another place with --out.") from None
+    check_replaceable(out, REPORT_MARK, "report",
+                      f"Name a new file with --out, e.g. {out / 'report.html'}."
+                      if out.is_dir() else "Name a new file with --out.")
+    make_folder(out.parent, f"report {out}", "Name another place with --out.")
     page = render_report(store, sweep_id, se=se)
-    fd, tmp = tempfile.mkstemp(prefix=".report-", suffix=".tmp", dir=out.parent)
-    try:
-        with os.fdopen(fd, "w", encoding="utf-8") as f:
-            f.write(page)
-        os.chmod(tmp, new_file_mode())
-        os.replace(tmp, out)
-    except BaseException:
-        Path(tmp).unlink(missing_ok=True)
-        raise
+    write_whole([(out, page.encode("utf-8"))], ".report-")
     return out
-
-
-def _check_report_out(out: Path) -> None:
-    """Refuse to replace anything but an earlier report: a store, a spec or a data file
-    named by mistake would be lost."""
-    if not out.exists():
-        return
-    if out.is_dir():
-        raise OutputError(f"report {out} is a folder; name a file with --out, e.g. "
-                          f"{out / 'report.html'}.")
-    with open(out, "rb") as f:
-        head = f.read(4096)
-    if REPORT_MARK not in head:
-        raise OutputError(f"{out} exists and is not a foldwise report, so it is not "
-                          "replaced (a report replaces only an earlier report). Name a new "
-                          "file with --out.")
