@@ -382,3 +382,26 @@ def test_handed_on_files_take_the_umask_mode(rows, demo_built, tmp_path):
         os.umask(old)
     for path in (tmp_path / "p.csv", model.artefact, model.card_file):
         assert stat.S_IMODE(path.stat().st_mode) == 0o644, path
+
+
+def test_an_out_that_is_a_folder_or_lies_under_a_file_is_refused_in_words(rows, demo_built,
+                                                                          tmp_path):
+    # A folder named as --out is not "already there" (--overwrite cannot help), and a
+    # folder part that is a file does exist: each is said as it is, exit 2, nothing written.
+    df, _ = rows
+    (tmp_path / "in.csv").write_text(_csv(df))
+    model = str(demo_built[3]["tree"].artefact)
+    run = lambda out, *a: CliRunner().invoke(main, ["predict", model, str(tmp_path / "in.csv"),
+                                                    "--out", str(out), "-q", *a])
+    (tmp_path / "preds.csv").mkdir()
+    for extra in ((), ("--overwrite",)):
+        out = run(tmp_path / "preds.csv", *extra)
+        assert out.exit_code == 2, out.output
+        assert "is a folder, not a file" in out.output and "--overwrite" not in out.output
+        assert "Traceback" not in out.output and list((tmp_path / "preds.csv").iterdir()) == []
+    (tmp_path / "plain.txt").write_text("x")
+    out = run(tmp_path / "plain.txt" / "p.csv")
+    assert out.exit_code == 2 and "a part of its folder is a file" in out.output
+    assert str(tmp_path / "plain.txt") in out.output and "does not exist" not in out.output
+    assert (tmp_path / "plain.txt").read_text() == "x"
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["in.csv", "plain.txt", "preds.csv"]

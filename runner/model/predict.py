@@ -32,7 +32,8 @@ from typing import Callable
 import numpy as np
 import pandas as pd
 
-from ..errors import DataError, ModelError
+from ..errors import DataError, ModelError, OutputError
+from ..read.filenames import check_folder, new_file_mode
 from .card import interval_halfwidth
 from .keep import LoadedModel
 
@@ -295,8 +296,6 @@ class _Output:
 
     def __init__(self, out: Path):
         self.out, self.kind = out, _KINDS[out.suffix.lower()]
-        from ..read.filenames import new_file_mode
-
         fd, tmp = tempfile.mkstemp(prefix=".predicting-", suffix=out.suffix, dir=out.parent)
         os.fchmod(fd, new_file_mode())
         os.close(fd)
@@ -351,15 +350,19 @@ def _refuse_unseen(found: dict, path: Path, handling: str) -> None:
 
 
 def _check_out(out: Path, data: Path, overwrite: bool) -> None:
+    if out.is_dir():
+        raise OutputError(f"output {out} is a folder, not a file; name a file with --out, "
+                          f"e.g. {out / 'predictions.csv'}.")
     if out.suffix.lower() not in _KINDS:
-        raise DataError(f"output {out} must end in .csv or .parquet.")
+        raise OutputError(f"output {out} must end in .csv or .parquet.")
+    check_folder(out.parent, f"output {out}", "Name a file in a folder with --out.")
     if out.exists() and out.resolve() == data.resolve():
-        raise DataError(f"output {out} is the input file itself; name another file.")
-    if out.exists() and (out.is_dir() or not overwrite):
-        raise DataError(f"output {out} already exists; name a new file, or pass --overwrite "
-                        "to replace it.")
+        raise OutputError(f"output {out} is the input file itself; name another file.")
+    if out.exists() and not overwrite:
+        raise OutputError(f"output {out} already exists; name a new file, or pass "
+                          "--overwrite to replace it.")
     if not out.parent.is_dir():
-        raise DataError(f"the folder of output {out} does not exist; create it first.")
+        raise OutputError(f"the folder of output {out} does not exist; create it first.")
 
 
 def _columns_plan(card: dict, columns: list[str], keep: list[str], path: Path,
