@@ -82,3 +82,48 @@ def test_plot_command_writes_files_and_prints_paths(explained, tmp_path):
     out = CliRunner().invoke(main, ["plot", "models", "--model", "tree", "--store",
                                     str(store.path)])
     assert out.exit_code == 2 and "--model is only for the complexity, tree and history" in out.output
+
+
+def _plot(store, out_dir, *args):
+    return CliRunner().invoke(main, ["plot", *args, "--store", str(store.path), "--out-dir",
+                                     str(out_dir)])
+
+
+def test_plot_replaces_only_its_own_images_and_all_or_none(explained, tmp_path, monkeypatch):
+    # An earlier figure is replaced; a file foldwise did not draw (the store, say) is
+    # refused before any figure is written, so the figures of one call are all new or
+    # all as they were; a folder part that is a file is said in words. Exit 2 each time.
+    import runner.read.figures as figures
+
+    _, store, sid = explained
+    first = _plot(store, tmp_path, "complexity", "--image", "png")
+    assert first.exit_code == 0, first.output
+    again = _plot(store, tmp_path, "complexity", "--image", "png")
+    assert again.exit_code == 0 and again.output == first.output
+    ridge = tmp_path / f"{sid}-complexity-ridge.png"
+    forest = tmp_path / f"{sid}-complexity-forest.png"
+    older = ridge.read_bytes()[:80] + b"an earlier figure"
+    ridge.write_bytes(older)
+    forest.write_bytes(store.path.read_bytes())
+    out = _plot(store, tmp_path, "complexity", "--image", "png")
+    assert out.exit_code == 2 and "Traceback" not in out.output
+    assert f"{forest} exists and is not a foldwise image, so it is not replaced" in out.output
+    assert ridge.read_bytes() == older and forest.read_bytes() == store.path.read_bytes()
+    forest.unlink()
+    calls = []
+
+    def failing(*args, **kwargs):
+        calls.append(args)
+        if len(calls) == 2:
+            raise RuntimeError("drawing failed")
+        return make_figure(*args, **kwargs)
+
+    monkeypatch.setattr(figures, "make_figure", failing)
+    with pytest.raises(RuntimeError, match="drawing failed"):
+        figures.write_plots("complexity", store, tmp_path, sid, formats=("png",))
+    assert ridge.read_bytes() == older and not forest.exists()
+    (tmp_path / "plain.txt").write_text("x")
+    out = _plot(store, tmp_path / "plain.txt" / "plots", "models")
+    assert out.exit_code == 2 and "a part of its folder is a file" in out.output
+    assert (tmp_path / "plain.txt").read_text() == "x"
+    assert not [p for p in tmp_path.iterdir() if p.name.startswith(".figure-")]

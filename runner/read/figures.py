@@ -9,8 +9,9 @@ from ..errors import QueryError
 from ..store import Store
 from .class_figures import calibration_figure, roc_figure
 from .filenames import safe_component, safe_names
-from .plots import (complexity_figure, history_figure, importance_figure, models_figure,
-                    predictions_figure, save_figure, tree_figure)
+from .plots import (complexity_figure, figure_bytes, history_figure, image_paths,
+                    importance_figure, models_figure, predictions_figure, tree_figure,
+                    write_images)
 from .queries import model_order, sweep_facts
 
 __all__ = ["KINDS", "make_figure", "write_plots"]
@@ -41,7 +42,9 @@ def write_plots(kind: str, store: Store, out_dir: str | Path, sweep_id: str | No
     The sweep id and model labels come from the store, which others may have written, so
     each becomes a safe file-name component (runner/filenames.py) and every file must
     resolve inside `out_dir`. Labels are named from all of the sweep's models at once,
-    so a model's file name is the same whether or not `model` is given."""
+    so a model's file name is the same whether or not `model` is given. Every file is
+    checked before any figure is drawn, and all are drawn before any is written: an
+    earlier image is replaced only with the whole new set."""
     if kind not in KINDS:
         raise QueryError(f"unknown plot kind {kind!r}; kinds: {', '.join(KINDS)}.")
     sid = store.resolve_sweep(sweep_id)
@@ -62,8 +65,9 @@ def write_plots(kind: str, store: Store, out_dir: str | Path, sweep_id: str | No
     else:
         jobs = [(dict(rule=rule), kind)]
     folder = Path(out_dir)
-    paths: list[Path] = []
-    for options, name in jobs:
-        fig = make_figure(kind, store, sid, **options)
-        paths += save_figure(fig, folder / f"{safe_component(sid)}-{name}", formats)
-    return paths
+    targets = [image_paths(folder / f"{safe_component(sid)}-{name}", formats)
+               for _, name in jobs]
+    files: list[tuple[Path, bytes]] = []
+    for (options, _), paths in zip(jobs, targets):
+        files += figure_bytes(make_figure(kind, store, sid, **options), paths)
+    return write_images(files)

@@ -21,7 +21,8 @@ import pandas as pd
 
 from ..errors import QueryError
 from ..families import get_family
-from .filenames import inside, safe_component
+from .filenames import (check_folder, check_replaceable, inside, make_folder,
+                        safe_component, write_whole)
 from ..metrics import get_metric, metric_label
 from .picks import check_rule
 from .explained import importance_table, prediction_table, tree_node_table
@@ -32,7 +33,7 @@ from .views import number, params_text, rule_label
 
 __all__ = ["PALETTE", "NEUTRALS", "complexity_figure", "models_figure", "importance_figure",
            "predictions_figure", "tree_figure", "history_figure", "save_figure", "figure_svg",
-           "model_colours"]
+           "model_colours", "IMAGE_MARKS", "image_paths", "figure_bytes", "write_images"]
 
 PALETTE = ["#0072B2", "#E69F00", "#009E73", "#CC79A7", "#56B4E9", "#D55E00", "#F0E442",
            "#000000"]
@@ -606,23 +607,60 @@ def history_figure(store: Store, sweep_id: str | None = None, *, model: str | No
 
 
 # -- files ---------------------------------------------------------------------------------
-def save_figure(fig, stem: Path, formats=("png", "svg"), *, dpi: int = 150) -> list[Path]:
-    """Write the figure as `stem.<format>` for each format (the format is appended, so a
-    dot in the stem stays); return the paths. Each file must resolve inside stem's folder."""
+IMAGE_MARKS = {"png": b"tEXtSoftware\x00foldwise figure",
+               "svg": b"<dc:title>foldwise figure</dc:title>"}
+"""What an image file this module wrote holds near its start, by format (PNG's Software
+text, SVG's creator): only such a file is replaced."""
+
+
+def image_paths(stem: Path, formats=("png", "svg")) -> list[Path]:
+    """`stem.<format>` for each format (the format is appended, so a dot in the stem stays),
+    each checked before anything is drawn: inside stem's folder, no file in the folder's
+    path, and new or an earlier foldwise image of its format."""
     stem = Path(stem)
-    stem.parent.mkdir(parents=True, exist_ok=True)
+    hint = "Remove or rename it, or name another folder with --out-dir."
+    check_folder(stem.parent, f"image {stem}.*", hint)
     paths = []
-    with _style():
-        for fmt in formats:
-            path = inside(stem.parent, f"{stem.name}.{fmt}")
-            fig.savefig(path, format=fmt, dpi=dpi, metadata=_metadata(fmt))
-            paths.append(path)
+    for fmt in formats:
+        if fmt not in IMAGE_MARKS:
+            raise QueryError(f"unknown image format {fmt!r}; formats: "
+                             f"{', '.join(IMAGE_MARKS)}.")
+        path = inside(stem.parent, f"{stem.name}.{fmt}")
+        check_replaceable(path, IMAGE_MARKS[fmt], "image", hint)
+        paths.append(path)
     return paths
 
 
+def figure_bytes(fig, paths: list[Path], *, dpi: int = 150) -> list[tuple[Path, bytes]]:
+    """(path, the figure drawn in the path's format) for each path; nothing is written."""
+    files = []
+    with _style():
+        for path in paths:
+            fmt = path.suffix[1:]
+            buffer = io.BytesIO()
+            fig.savefig(buffer, format=fmt, dpi=dpi, metadata=_metadata(fmt))
+            files.append((path, buffer.getvalue()))
+    return files
+
+
+def write_images(files: list[tuple[Path, bytes]]) -> list[Path]:
+    """Write drawn images (`figure_bytes`), folders created, all whole or none."""
+    for folder in dict.fromkeys(path.parent for path, _ in files):
+        make_folder(folder, f"images in {folder}", "Name another folder with --out-dir.")
+    return write_whole(files, ".figure-")
+
+
+def save_figure(fig, stem: Path, formats=("png", "svg"), *, dpi: int = 150) -> list[Path]:
+    """Write the figure as `stem.<format>` for each format (`image_paths`), all files whole
+    or none; return the paths."""
+    return write_images(figure_bytes(fig, image_paths(stem, formats), dpi=dpi))
+
+
 def _metadata(fmt: str) -> dict:
-    """No creation dates in files, so the same store gives the same bytes."""
-    return {"Date": None} if fmt == "svg" else {"Software": None} if fmt == "png" else {}
+    """No creation dates in files, so the same store gives the same bytes; the mark that
+    says foldwise wrote them."""
+    return {"Date": None, "Creator": "foldwise figure"} if fmt == "svg" else \
+        {"Software": "foldwise figure"}
 
 
 def figure_svg(fig, *, salt: str = "fig") -> str:
