@@ -9,7 +9,9 @@ import sys
 import duckdb
 import pandas as pd
 import pytest
+from click.testing import CliRunner
 
+from runner.cli import main
 from runner.errors import StoreError
 from runner.store import TABLES, Store
 from runner.store.schema import SCHEMA_VERSION, UPGRADE_COLUMNS
@@ -49,6 +51,18 @@ def test_cli_export_and_merge_round_trip(explained, tmp_path):
     assert out.returncode == 0 and "merged 1 sweep(s)" in out.stdout, out.stderr
     again = run("export", str(tmp_path / "csv"), "--format", "csv", "--store", str(store.path))
     assert again.returncode == 2 and "already holds an export" in again.stderr
+
+
+def test_export_into_a_path_through_a_file_is_refused_in_words(explained, tmp_path):
+    _, store, _ = explained
+    (tmp_path / "plain.txt").write_text("x")
+    out = CliRunner().invoke(main, ["export", str(tmp_path / "plain.txt" / "exports"),
+                                    "--store", str(store.path)])
+    assert out.exit_code == 2 and "Traceback" not in out.output, out.output
+    assert "a part of its folder is a file" in out.output
+    assert str(tmp_path / "plain.txt") in out.output
+    assert (tmp_path / "plain.txt").read_text() == "x"
+    assert [p.name for p in tmp_path.iterdir()] == ["plain.txt"]
 
 
 def test_merge_leaves_out_running_sweeps_and_refuses_itself(explained, tmp_path):

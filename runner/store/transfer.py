@@ -18,6 +18,7 @@ import duckdb
 import pandas as pd
 
 from ..errors import StoreError
+from ..read.filenames import make_folder
 from . import Store
 from .labels import Selection, resolve_ids
 from .schema import MODEL_TABLES, SCHEMA_VERSION, SINCE, TABLES
@@ -64,7 +65,7 @@ def export_store(store: Store, folder: str | Path, fmt: str = "parquet",
     if clash:
         raise StoreError(f"{folder} already holds an export ({clash[0]}); choose an empty or "
                          "new folder, so no earlier export is overwritten.")
-    folder.mkdir(parents=True, exist_ok=True)
+    make_folder(folder, f"export {folder}", "Give a folder whose path holds folders only.")
     staging = Path(tempfile.mkdtemp(prefix=".export-", dir=folder))
     options = "format parquet" if fmt == "parquet" else "format csv, header true"
     counts = {}
