@@ -15,7 +15,7 @@ import pytest
 from click.testing import CliRunner
 
 from runner.cli import main
-from runner.errors import DataError, ModelError
+from runner.errors import DataError, ModelError, OutputError
 from runner.model.build import build_model
 from runner.model.card import card_path_for
 from runner.model.keep import load_model
@@ -376,6 +376,31 @@ def test_a_model_built_after_a_merge_arrives_with_the_next_merge(demo_built, tmp
 def test_build_out_under_a_file_is_refused_in_words(demo_built, tmp_path):
     _, store, _, _ = demo_built
     (tmp_path / "plain.txt").write_text("x")
-    with pytest.raises(ModelError, match="a part of its folder is a file"):
+    with pytest.raises(OutputError, match="a part of its folder is a file"):
         build_model(store, model="ridge", out=tmp_path / "plain.txt" / "m.skops")
     assert (tmp_path / "plain.txt").read_text() == "x"
+
+
+def test_a_bad_build_out_is_refused_before_anything_is_fitted(demo_built, tmp_path,
+                                                              monkeypatch):
+    # An --out under a file, already taken or not .skops is refused before the data are
+    # read and the model fitted (a forest's fit came first and was thrown away); the
+    # files there are unchanged and no temporary file is left; fetch is refused alike.
+    import runner.write.prepare as prepare
+
+    _, store, _, built = demo_built
+    monkeypatch.setattr(prepare, "load_checked", lambda *a, **k: pytest.fail("data read"))
+    (tmp_path / "plain.txt").write_text("x")
+    (tmp_path / "taken.skops").write_bytes(b"someone's model")
+    for out, words in [(tmp_path / "plain.txt" / "m.skops", "a part of its folder is a file"),
+                       (tmp_path / "taken.skops", "already exists"),
+                       (tmp_path / "m.pkl", "must end in .skops")]:
+        with pytest.raises(OutputError, match=words):
+            build_model(store, model="forest", out=out)
+    assert (tmp_path / "plain.txt").read_text() == "x"
+    assert (tmp_path / "taken.skops").read_bytes() == b"someone's model"
+    fetched = CliRunner().invoke(main, ["fetch", built["tree"].model_id, "--store",
+                                        str(store.path), "--out",
+                                        str(tmp_path / "plain.txt" / "t.skops")])
+    assert fetched.exit_code == 2 and "a part of its folder is a file" in fetched.output
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["plain.txt", "taken.skops"]

@@ -13,10 +13,8 @@ from __future__ import annotations
 import getpass
 import hashlib
 import json
-import os
 import secrets
 import socket
-import tempfile
 from dataclasses import dataclass, field
 from datetime import datetime
 from pathlib import Path
@@ -24,10 +22,11 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from ..errors import DataError, ModelError, SpecError
+from ..errors import DataError, ModelError, OutputError, SpecError
 from ..families import FAMILIES
 from ..metrics import METRICS
-from ..read.filenames import new_file_mode
+from ..read.filenames import (check_folder, discard_staged, make_folder, move_into_place,
+                              stage_files, write_whole)
 from ..store import Store
 from .artefact import FORMAT, dump_pipeline, sha256_of
 from .card import CARD_FORMAT, CARD_VERSION, card_json, card_path_for, conformal_scores, \
@@ -230,6 +229,8 @@ def build_model(store: Store, *, sweep_id: str | None = None, model: str | None 
     from ..write.resampling import make_plan, refit_seed
 
     store._require()
+    if out is not None:
+        _check_model_out(Path(out))
     with store.session():  # a dozen small reads on one connection
         facts = sweep_facts(store, sweep_id)
         sid = facts.sweep_id
@@ -313,7 +314,7 @@ def build_model(store: Store, *, sweep_id: str | None = None, model: str | None 
         coefficients = pd.DataFrame(family.estimators.coefficient_rows(pipeline))
         card["coefficients"] = coefficients.replace({np.nan: None}).to_dict("records")
     artefact = Path(out) if out is not None else MODELS_FOLDER / f"{model_id}.skops"
-    staged = _stage_files(artefact, blob, card)
+    staged = stage_files(_model_files(artefact, blob, card), ".building-")
     try:
         store.ensure_schema()
         store.write_batch({
@@ -326,10 +327,9 @@ def build_model(store: Store, *, sweep_id: str | None = None, model: str | None 
                 "artefact_bytes": len(blob)}]),
             "model_coefficients": None if coefficients is None else
             coefficients.assign(model_id=model_id)})
-        paths = _commit_files(staged)
+        paths = move_into_place(staged)
     except BaseException:
-        for tmp, _ in staged:
-            tmp.unlink(missing_ok=True)
+        discard_staged(staged)
         raise
     return BuiltModel(model_id, card, paths[0], paths[1], digest, len(blob), coefficients,
                       notes)
@@ -337,46 +337,28 @@ def build_model(store: Store, *, sweep_id: str | None = None, model: str | None 
 
 def write_model_files(artefact: Path, blob: bytes, card: dict) -> tuple[Path, Path]:
     """Write an artefact and its card beside it, both or neither, never over a file."""
-    staged = _stage_files(Path(artefact), blob, card)
-    try:
-        return _commit_files(staged)
-    except BaseException:
-        for tmp, _ in staged:
-            tmp.unlink(missing_ok=True)
-        raise
+    artefact, card_file = write_whole(_model_files(Path(artefact), blob, card), ".building-")
+    return artefact, card_file
 
 
-def _stage_files(artefact: Path, blob: bytes, card: dict) -> list[tuple[Path, Path]]:
-    """Temporary files beside their final places, after checking those are free."""
+def _check_model_out(artefact: Path) -> list[Path]:
+    """The artefact and its card's paths, after checking the artefact's name, that neither
+    file exists and that no part of their folder is a file; nothing is made."""
     if artefact.suffix != ".skops":
-        raise ModelError(f"--out {artefact} must end in .skops (the card is written beside "
-                         f"it as {card_path_for(artefact).name}).")
+        raise OutputError(f"--out {artefact} must end in .skops (the card is written beside "
+                          f"it as {card_path_for(artefact).name}).")
+    check_folder(artefact.parent, str(artefact), "Choose another --out.")
     targets = [artefact, card_path_for(artefact)]
     for t in targets:
         if t.exists():
-            raise ModelError(f"{t} already exists; foldwise does not overwrite a model's "
-                             "files. Choose another --out, or remove it first.")
-    try:
-        artefact.parent.mkdir(parents=True, exist_ok=True)
-    except (FileExistsError, NotADirectoryError):
-        raise ModelError(f"{artefact} cannot be written: a part of its folder is a file. "
-                         "Choose another --out.") from None
-    staged = []
-    try:
-        for target, data in zip(targets, (blob, card_json(card).encode())):
-            fd, tmp = tempfile.mkstemp(prefix=".building-", dir=target.parent)
-            os.fchmod(fd, new_file_mode())
-            with os.fdopen(fd, "wb") as fh:
-                fh.write(data)
-            staged.append((Path(tmp), target))
-    except BaseException:
-        for tmp, _ in staged:
-            tmp.unlink(missing_ok=True)
-        raise
-    return staged
+            raise OutputError(f"{t} already exists; foldwise does not overwrite a model's "
+                              "files. Choose another --out, or remove it first.")
+    return targets
 
 
-def _commit_files(staged: list[tuple[Path, Path]]) -> tuple[Path, Path]:
-    for tmp, target in staged:
-        os.replace(tmp, target)
-    return staged[0][1], staged[1][1]
+def _model_files(artefact: Path, blob: bytes, card: dict) -> list[tuple[Path, bytes]]:
+    """(path, bytes) of the artefact and its card, after checking those places are free;
+    their folder is made."""
+    targets = _check_model_out(artefact)
+    make_folder(artefact.parent, str(artefact), "Choose another --out.")
+    return list(zip(targets, (blob, card_json(card).encode())))
