@@ -16,8 +16,9 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from runner.cli import main
-from runner.errors import QueryError
-from runner.read.filenames import MAX_BYTES, WINDOWS_RESERVED, inside, safe_component, safe_names
+from runner.errors import OutputError, QueryError
+from runner.read.filenames import (MAX_BYTES, WINDOWS_RESERVED, check_replaceable, inside,
+                                   make_folder, safe_component, safe_names, write_whole)
 from runner.read.report import report_path
 
 from .store_builder import write_sweep
@@ -227,3 +228,22 @@ def test_report_path_is_inside_its_folder(tmp_path):
     hostile = report_path("/etc/cron.d/x", tmp_path)
     assert hostile.parent == tmp_path and hostile.name.startswith("report-_etc_cron.d_x-")
     assert os.sep not in hostile.name
+
+
+def test_written_files_are_all_new_or_all_as_they_were(tmp_path):
+    # A set of files is staged whole before any is moved into place: one that cannot be
+    # staged leaves the others as they were and no temporary file; a folder part that is a
+    # file and a file without the writer's mark are refused in words.
+    (tmp_path / "a.png").write_bytes(b"old a")
+    with pytest.raises(FileNotFoundError):
+        write_whole([(tmp_path / "a.png", b"new a"), (tmp_path / "gone" / "b.png", b"b")],
+                    ".figure-")
+    assert (tmp_path / "a.png").read_bytes() == b"old a"
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["a.png"]
+    assert write_whole([(tmp_path / "a.png", b"new a")], ".figure-") == [tmp_path / "a.png"]
+    assert (tmp_path / "a.png").read_bytes() == b"new a"
+    with pytest.raises(OutputError, match=r"a part of its folder is a file \(.*a\.png\)"):
+        make_folder(tmp_path / "a.png" / "sub", "image x", "Name another folder.")
+    with pytest.raises(OutputError, match="is not a foldwise image, so it is not replaced"):
+        check_replaceable(tmp_path / "a.png", b"foldwise figure", "image", "Remove it.")
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["a.png"]
