@@ -423,7 +423,8 @@ def test_a_store_of_schema_version_2_is_merged_and_diffed(base, tmp_path):
 
 def test_diff_of_sweeps_that_do_not_share_every_model(base, tmp_path):
     # B drops the tree: the diff still prints, the tree's B side a dash, and ridge (in both,
-    # on the same folds) keeps its paired change.
+    # on the same folds) keeps its paired change; the table, CSV and JSON say which models
+    # only one sweep holds.
     folder = base[0]
     store = Store(tmp_path / "s.duckdb")
     shutil.copy(base[1].path, store.path)
@@ -435,3 +436,16 @@ def test_diff_of_sweeps_that_do_not_share_every_model(base, tmp_path):
     assert "—" in tree_line
     diff = diff_sweeps(store, base[3], dropped.sweep_id).table.set_index("model")
     assert diff["mean_diff"]["ridge"] == pytest.approx(0.0, abs=1e-12)
+    # the dash is explained: a line names the models only one sweep holds, and so does a
+    # sentence per model and a field of every row in CSV and JSON
+    assert (f"models only in sweep A ({base[3]}), not in B, so not compared (shown with a "
+            "dash on the B side): tree") in out.output.splitlines()
+    assert "  tree: only in sweep A, not in sweep B; not compared." in out.output.splitlines()
+    assert "only in sweep B" not in out.output
+    assert diff["in_sweeps"].to_dict() == {"ridge": "both", "tree": "A only"}
+    back = invoke("diff", dropped.sweep_id, base[3], "--store", store.path, "--format", "json")
+    assert back.exit_code == 0
+    rows = json.loads(back.stdout)
+    assert {r["model"]: r["in_sweeps"] for r in rows} == {"ridge": "both", "tree": "B only"}
+    assert (f"models only in sweep B ({base[3]}), not in A, so not compared (shown with a "
+            "dash on the A side): tree") in back.stderr.splitlines()

@@ -32,7 +32,7 @@ __all__ = ["diff_sweeps", "model_history", "MAX_DIFF_TEXT"]
 MAX_DIFF_TEXT = 1_000_000
 """Spec texts longer than this (characters) are not diffed line by line, only told apart."""
 
-_DIFF_COLUMNS = ["model", "family", "cell_a", "params_a", "cell_b", "params_b", "same_cell",
+_DIFF_COLUMNS = ["model", "family", "in_sweeps", "cell_a", "params_a", "cell_b", "params_b", "same_cell",
                  "mean_a", "se_a", "test_a", "mean_b", "se_b", "test_b", "cv_change",
                  "test_change", "folds", "mean_diff", "se", "t", "df", "p_value", "p_holm",
                  "wins_a", "wins_b", "ties"]
@@ -63,8 +63,9 @@ def _diff(store: Store, sweep_a: str | None, sweep_b: str | None, se: str) -> Sw
     metric = fb.metric if fa.metric == fb.metric else None
     pa = picks(store, a, rule=fa.rule, se=se).table.set_index("model")
     pb = picks(store, b, rule=fb.rule, se=se).table.set_index("model")
-    models = list(dict.fromkeys([*_models(store, b), *_models(store, a)]))
-    table = pd.DataFrame([_model_row(m, pa, pb) for m in models], columns=_DIFF_COLUMNS)
+    in_a, in_b = _models(store, a), _models(store, b)
+    table = pd.DataFrame([_model_row(m, pa, pb, _in_sweeps(m, in_a, in_b))
+                          for m in dict.fromkeys([*in_b, *in_a])], columns=_DIFF_COLUMNS)
     if paired and metric is not None:
         table = _with_pairs(store, table, a, b, metric, fb.better_of(metric))
     varying = {}
@@ -135,8 +136,14 @@ def _models(store: Store, sweep_id: str) -> list[str]:
     return model_order(store, sweep_id)
 
 
-def _model_row(model: str, pa: pd.DataFrame, pb: pd.DataFrame) -> dict:
-    row = {"model": model}
+def _in_sweeps(model: str, in_a: list[str], in_b: list[str]) -> str:
+    """Which of the two sweeps hold this model: 'both', 'A only' or 'B only'."""
+    return "both" if model in in_a and model in in_b else ("A only" if model in in_a
+                                                            else "B only")
+
+
+def _model_row(model: str, pa: pd.DataFrame, pb: pd.DataFrame, in_sweeps: str) -> dict:
+    row = {"model": model, "in_sweeps": in_sweeps}
     for side, p in (("a", pa), ("b", pb)):
         hit = p.loc[model] if model in p.index else None
         if hit is not None:

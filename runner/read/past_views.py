@@ -125,6 +125,7 @@ def diff_view(result: SweepDiff) -> View:
                      f"B {plain_text(b['note'], 80) or '(none)'}")
     lines.append(f"folds: paired on identical folds ({result.shared_cells} shared cells)"
                  if result.paired else f"folds: {result.not_paired}")
+    lines += _one_sided_lines(df, a["sweep_id"], b["sweep_id"])
     if m is None:
         lines.append("the sweeps pick by different metrics, so their scores are not "
                      "compared; each sweep's picks are shown.")
@@ -163,10 +164,25 @@ def diff_view(result: SweepDiff) -> View:
                 preface=tuple(lines))
 
 
+def _one_sided_lines(df, sweep_a: str, sweep_b: str) -> list[str]:
+    """'models: only in sweep A (id): lasso' lines, so that a dash is not read as no change."""
+    lines = []
+    for side, sweep, other in (("A", sweep_a, "B"), ("B", sweep_b, "A")):
+        only = df.loc[df["in_sweeps"] == f"{side} only", "model"].tolist()
+        if only:
+            lines.append(f"models only in sweep {side} ({sweep}), not in {other}, so not "
+                         f"compared (shown with a dash on the {other} side): "
+                         f"{', '.join(map(plain_text, only))}")
+    return lines
+
+
 def _diff_sentence(r, label: str, better: str, paired: bool) -> str:
-    if r.cell_a is None or r.cell_b is None:
-        where = "B" if r.cell_a is None else "A"
-        return f"{r.model}: no picked cell in sweep {where} (absent, or none complete)."
+    if r.in_sweeps != "both":
+        side, other = ("A", "B") if r.in_sweeps == "A only" else ("B", "A")
+        return f"{r.model}: only in sweep {side}, not in sweep {other}; not compared."
+    if is_missing(r.cell_a) or is_missing(r.cell_b):
+        where = "A" if is_missing(r.cell_a) else "B"
+        return f"{r.model}: no picked cell in sweep {where} (none complete)."
     if paired and not is_missing(r.mean_diff):
         if r.same_cell and r.mean_diff == 0 and r.se == 0:
             return f"{r.model}: the same cell in both sweeps, with identical fold scores."
