@@ -202,7 +202,7 @@ def test_diff_shows_the_one_changed_line_same_data_and_paired_changes(store, bas
     assert list(table.index) == ["ridge", "tree"]
     tree = table.loc["tree"]  # its cells are shared: the same pick, identical fold scores
     assert tree["same_cell"] and tree["folds"] == 6 and tree["mean_diff"] == 0
-    assert tree["ties"] == 6 and tree["p_value"] == 1.0
+    assert tree["ties"] == 6 and math.isnan(tree["p_value"])  # nothing to test
     ridge = table.loc["ridge"]
     n, mean, se, p = _reference_pair(store, first, second, ridge["cell_a"], ridge["cell_b"])
     assert ridge["folds"] == n == 6
@@ -220,7 +220,8 @@ def test_diff_shows_the_one_changed_line_same_data_and_paired_changes(store, bas
     assert sum(1 for x in lines if x.startswith(("  -", "  +"))) == 4  # header pair + the line
     assert any(x.startswith("data: same") for x in lines)
     assert f"folds: paired on identical folds ({result.shared_cells} shared cells)" in lines
-    assert "tree: the same cell in both sweeps, with identical fold scores." in out.output
+    assert ("tree: the same cell, with identical fold scores in both sweeps; nothing to "
+            "test.") in out.output
 
 
 def test_diff_of_one_sweep_and_of_two_named_sweeps(store, base):
@@ -232,6 +233,49 @@ def test_diff_of_one_sweep_and_of_two_named_sweeps(store, base):
         -one.table.set_index("model")["mean_diff"]["ridge"], abs=1e-12)
     with pytest.raises(QueryError, match="first sweep of spec 'small'"):
         diff_sweeps(store, first)
+
+
+def _holm_by_hand(p_values):
+    """Holm (1979), "A simple sequentially rejective multiple test procedure", Scand. J.
+    Statist. 6, 65-70: the i-th smallest of m p-values times (m - i + 1), made
+    non-decreasing, at most 1."""
+    m = len(p_values)
+    order = sorted(range(m), key=lambda j: p_values[j])
+    adjusted, running = [0.0] * m, 0.0
+    for i, j in enumerate(order, start=1):
+        running = max(running, p_values[j] * (m - i + 1))
+        adjusted[j] = min(1.0, running)
+    return adjusted
+
+
+def test_diff_adjusts_p_over_the_models_tested_only(base, tmp_path):
+    # ridge and lasso change their picks; the tree picks the same cell with the same fold
+    # scores, so it is not tested and does not count among Holm's m hypotheses
+    folder = base[0]
+    store = Store(tmp_path / "s.duckdb")
+    lasso = "lasso: {family: linear, grid: {penalty: l1, alpha: [0.01, 0.1, 1.0]}}\n"
+    first = run_sweep(spec_from(folder, MODELS + lasso, name="h1.yaml"), store=store, jobs=1)
+    changed = (MODELS + lasso).replace("[0.1, 1.0, 10.0]", "[300.0]").replace(
+        "[0.01, 0.1, 1.0]", "[6.0]")
+    second = run_sweep(spec_from(folder, changed, name="h2.yaml"), store=store, jobs=1)
+    table = diff_sweeps(store, first.sweep_id, second.sweep_id).table.set_index("model")
+    tree = table.loc["tree"]
+    assert tree["same_cell"] and tree["ties"] == tree["folds"] == 6
+    assert tree["mean_diff"] == 0 and tree["se"] == 0
+    assert math.isnan(tree["p_value"]) and math.isnan(tree["p_holm"])
+    p = [table.loc[m, "p_value"] for m in ("ridge", "lasso")]
+    for m in ("ridge", "lasso"):
+        n, _, _, reference_p = _reference_pair(store, first.sweep_id, second.sweep_id,
+                                               table.loc[m, "cell_a"], table.loc[m, "cell_b"])
+        assert table.loc[m, "p_value"] == pytest.approx(reference_p, rel=1e-9)
+    assert max(p) * 2 < 1  # the adjustment is not capped: m = 2 and m = 3 differ
+    assert [table.loc[m, "p_holm"] for m in ("ridge", "lasso")] == pytest.approx(
+        _holm_by_hand(p), rel=1e-12)
+    out = invoke("diff", first.sweep_id, second.sweep_id, "--store", store.path)
+    assert out.exit_code == 0, out.output
+    assert "note: one test per model whose fold scores changed (2 tests;" in out.output
+    assert ("  tree: the same cell, with identical fold scores in both sweeps; nothing to "
+            "test.") in out.output.splitlines()
 
 
 @pytest.fixture(scope="module")

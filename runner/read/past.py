@@ -160,7 +160,8 @@ def _model_row(model: str, pa: pd.DataFrame, pb: pd.DataFrame, in_sweeps: str) -
 
 def _with_pairs(store: Store, table: pd.DataFrame, a: str, b: str, metric: str,
                 better: str) -> pd.DataFrame:
-    """The corrected resampled t-test of b − a per model whose cell both sweeps pick."""
+    """The corrected resampled t-test of b − a per model whose cell both sweeps pick and
+    whose fold scores differ somewhere; Holm's adjustment over those tests alone."""
     both = table.dropna(subset=["cell_a", "cell_b"])
     if both.empty:
         return table
@@ -171,12 +172,14 @@ def _with_pairs(store: Store, table: pd.DataFrame, a: str, b: str, metric: str,
         n = int(r["folds"])
         table.loc[model, ["folds", "wins_a", "wins_b", "ties"]] = [
             n, int(r["wins_a"]), int(r["wins_b"]), int(r["ties"])]
-        if n >= 2:
+        if n >= 2 and int(r["ties"]) == n:  # the same score on every fold: nothing to test
+            table.loc[model, ["mean_diff", "se"]] = [0.0, 0.0]
+        elif n >= 2:
             test = t_from_moments(float(r["mean_diff"]), float(r["var_diff"]), n,
                                   float(r["valid_ratio"]))
             table.loc[model, ["mean_diff", "se", "t", "df", "p_value"]] = [
                 test.mean, test.se, test.t, test.df, test.p]
-    tested = table["p_value"].notna()
+    tested = table["p_value"].notna()  # Holm's m: the models tested, no others
     table.loc[tested, "p_holm"] = holm(table.loc[tested, "p_value"].astype(float).tolist())
     for col in ("folds", "df", "wins_a", "wins_b", "ties"):  # counts: whole numbers or None
         table[col] = pd.Series([None if v != v else int(v) for v in table[col]],

@@ -157,9 +157,12 @@ def diff_view(result: SweepDiff) -> View:
     sentences = tuple(_diff_sentence(r, label, result.better, paired)
                       for r in df.itertuples(index=False))
     caveats = (f"note: {APPROXIMATE_NOTE}",) if paired and df["p_value"].notna().any() else ()
-    if paired and df["p_value"].notna().sum() > 1:
-        caveats += ("note: one test per model; 'Holm p' adjusts each p for all of them "
-                    f"(Holm 1979), and a change is called clear only below {CLEAR_P:g}.",)
+    tests = int(df["p_value"].notna().sum())
+    if paired and tests > 1:
+        caveats += (f"note: one test per model whose fold scores changed ({tests} tests; "
+                    "models the same on every fold, or in one sweep only, are not tested); "
+                    "'Holm p' adjusts each p for those tests (Holm 1979), and a change is "
+                    f"called clear only below {CLEAR_P:g}.",)
     return View(title, shown, tuple(numeric), sentences=sentences, caveats=caveats,
                 preface=tuple(lines))
 
@@ -184,8 +187,10 @@ def _diff_sentence(r, label: str, better: str, paired: bool) -> str:
         where = "A" if is_missing(r.cell_a) else "B"
         return f"{r.model}: no picked cell in sweep {where} (none complete)."
     if paired and not is_missing(r.mean_diff):
-        if r.same_cell and r.mean_diff == 0 and r.se == 0:
-            return f"{r.model}: the same cell in both sweeps, with identical fold scores."
+        if r.mean_diff == 0 and r.se == 0:
+            what = "the same cell" if r.same_cell else "another cell in B"
+            return (f"{r.model}: {what}, with identical fold scores in both sweeps; nothing "
+                    "to test.")
         p = r.p_holm if not is_missing(r.p_holm) else r.p_value
         b_better = (r.mean_diff < 0) == (better == "lower")
         places = decimals_for(r.se)
