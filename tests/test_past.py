@@ -329,6 +329,34 @@ def test_history_picks_what_pick_picks_in_every_sweep(store, base):
         model_history(store, "lasso")
 
 
+@pytest.fixture(scope="module")
+def defaults_picked(base, tmp_path_factory):
+    """Two sweeps of spec 'small' in a store of their own: the first scores rmse alone and
+    sweeps ridge at alpha 1.0000001, the second scores mae and rmse and sweeps ridge at
+    1.0 (the default); both sweep one tree of every default: (store, first id, second id)."""
+    folder = base[0]
+    store = Store(tmp_path_factory.mktemp("defaults") / "s.duckdb")
+    models = ("ridge: {family: linear, grid: {penalty: l2, alpha: [1.0000001]}}\n"
+              "tree: {family: pruned_tree, grid: {ccp_alpha: [0.0], min_samples_leaf: [1]}}\n")
+    ids = []
+    for name, alpha, metrics in (("e1.yaml", "1.0000001", "[rmse]"),
+                                 ("e2.yaml", "1.0", "[mae, rmse]")):
+        path = write_spec(folder, models.replace("1.0000001", alpha), name=name)
+        path.write_text(path.read_text().replace("[rmse, mae, r2]", metrics))
+        ids.append(run_sweep(load_spec(path), store=store, jobs=1).sweep_id)
+    return store, *ids
+
+
+def test_history_of_a_sweep_without_the_metric_shows_no_complete_cell(defaults_picked):
+    # the first sweep has no mae score (the latest sweep's first metric), so nothing is
+    # picked there (the command crashed with a TypeError on that row)
+    store, first, second = defaults_picked
+    out = invoke("history", "--model", "ridge", "--store", store.path)
+    assert out.exit_code == 0, out.output
+    row = next(x for x in out.output.splitlines() if first in x)
+    assert "(no complete cell)" in row
+
+
 def test_history_figure_marks_where_the_data_and_the_spec_changed(varied, tmp_path):
     from runner.read.plots import history_figure
 

@@ -222,7 +222,7 @@ def history_view(result: ModelHistory) -> View:
         shown["model"] = df["model"]
     shown["rule"] = df["rule"].map(rule_label)
     shown["picked cell"] = [
-        "(no complete cell)" if p is None else
+        "(no complete cell)" if is_missing(p) else
         params_text(p, hide=get_family(f).defaults) for p, f in zip(df["params"], df["family"])]
     shown[cv_head(m)] = [mean_se(x, e) for x, e in zip(df["mean"], df["se"])]
     shown[test_head(m)] = df["test"].map(number)
