@@ -20,6 +20,7 @@ from runner.cli import main
 from runner.errors import QueryError, StoreError
 from runner.read.past import diff_sweeps, model_history
 from runner.read.queries import picks, summary, sweeps
+from runner.read.views import params_text
 from runner.store import TABLES, Store
 from runner.store.labels import Selection, set_labels
 from runner.store.tidy import remove_sweeps
@@ -355,6 +356,33 @@ def test_history_of_a_sweep_without_the_metric_shows_no_complete_cell(defaults_p
     assert out.exit_code == 0, out.output
     row = next(x for x in out.output.splitlines() if first in x)
     assert "(no complete cell)" in row
+
+
+def test_history_shows_every_parameter_of_the_pick_and_agrees_with_pick_changed(
+        defaults_picked):
+    # a pick of every default read '(defaults)', and alpha 1.0000001 then the default 1.0
+    # read alike once rounded: every parameter is shown now, floats in full, so two rows
+    # read alike exactly when 'pick' is not marked
+    store, first, second = defaults_picked
+    shown = {}
+    for model in ("ridge", "tree"):
+        out = invoke("history", "--model", model, "--metric", "rmse", "--store", store.path)
+        assert out.exit_code == 0, out.output
+        shown[model] = [next(x for x in out.output.splitlines() if s in x)
+                        for s in (first, second)]
+    assert "alpha=1.0000001, penalty=l2" in shown["ridge"][0]
+    assert "alpha=1.0, penalty=l2" in shown["ridge"][1]
+    assert "pick" in shown["ridge"][1]
+    every = "ccp_alpha=0.0, max_depth=None, max_features=None, min_samples_leaf=1"
+    assert every in shown["tree"][0] and every in shown["tree"][1]
+    assert "pick" not in shown["tree"][1] and "(defaults)" not in "".join(shown["tree"])
+    history = model_history(store, metric="rmse")
+    texts = {(r.sweep_id, r.model): params_text(r.params, exact=True)
+             for r in history.table.itertuples(index=False)}
+    for r in history.table.itertuples(index=False):
+        if r.sweep_id == second:
+            assert r.pick_changed == (texts[first, r.model] != texts[second, r.model])
+    assert history.table["pick_changed"].tolist().count(True) == 1
 
 
 def test_history_figure_marks_where_the_data_and_the_spec_changed(varied, tmp_path):

@@ -8,7 +8,6 @@ import json
 from datetime import datetime
 
 from .compare import APPROXIMATE_NOTE
-from ..families import get_family
 from ..metrics import metric_label
 from .results import ModelHistory, SweepDiff, SweepList
 from .views import (CLEAR_P, TIME_MEANING, TextTable, View, cell_text, count_text, cv_head, decimals_for,
@@ -210,8 +209,9 @@ def _diff_sentence(r, label: str, better: str, paired: bool) -> str:
 
 
 def history_view(result: ModelHistory) -> View:
-    """Per sweep (oldest first) and model: the picked cell, CV mean ± SE, test score, and
-    marks where the data, the spec or the pick changed."""
+    """Per sweep (oldest first) and model: the picked cell with every parameter it holds
+    (defaults too, floats in full, as 'pick changed' compares them), CV mean ± SE, test
+    score, and marks where the data, the spec or the pick changed."""
     import pandas as pd
 
     df, m = result.table, result.metric
@@ -221,9 +221,8 @@ def history_view(result: ModelHistory) -> View:
     if several:
         shown["model"] = df["model"]
     shown["rule"] = df["rule"].map(rule_label)
-    shown["picked cell"] = [
-        "(no complete cell)" if is_missing(p) else
-        params_text(p, hide=get_family(f).defaults) for p, f in zip(df["params"], df["family"])]
+    shown["picked cell"] = ["(no complete cell)" if is_missing(p) else params_text(p, exact=True)
+                            for p in df["params"]]
     shown[cv_head(m)] = [mean_se(x, e) for x, e in zip(df["mean"], df["se"])]
     shown[test_head(m)] = df["test"].map(number)
     shown["data"] = [f"{d} (changed)" if c else d for d, c in zip(df["data"], df["data_changed"])]

@@ -113,10 +113,11 @@ def p_text(p) -> str:
     return "p < 0.001" if p < 0.001 else f"p ≈ {p:.2g}"
 
 
-def params_text(params, *, hide: dict | None = None) -> str:
+def params_text(params, *, hide: dict | None = None, exact: bool = False) -> str:
     """A cell's params as 'name=value, ...', keys sorted, floats to 6 significant digits
-    (always with a point, so 1.0 as a fraction never reads as the count 1); entries equal
-    to `hide` (e.g. the family defaults) are left out."""
+    (always with a point, so 1.0 as a fraction never reads as the count 1), or with `exact`
+    in full, so that two different values never read alike; entries equal to `hide` (e.g.
+    the family defaults) are left out."""
     if isinstance(params, str):
         params = json.loads(params)
     parts = []
@@ -125,7 +126,7 @@ def params_text(params, *, hide: dict | None = None) -> str:
         if hide and k in hide and hide[k] == v and type(hide[k]) is type(v):
             continue
         if isinstance(v, float):
-            v = f"{v:.6g}"
+            v = repr(v) if exact else f"{v:.6g}"
             if not any(ch in v for ch in ".en"):
                 v += ".0"
         parts.append(f"{k}={v}")
