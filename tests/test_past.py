@@ -279,6 +279,18 @@ def test_diff_adjusts_p_over_the_models_tested_only(base, tmp_path):
             "test.") in out.output.splitlines()
 
 
+def test_diff_names_the_sweep_where_a_shared_model_has_no_complete_cell(store):
+    import dataclasses
+
+    from runner.read.past_views import diff_view
+
+    result = diff_sweeps(store)
+    table = result.table.copy()
+    table.loc[table["model"] == "ridge", ["cell_a", "params_a"]] = None  # none complete in A
+    sentences = diff_view(dataclasses.replace(result, table=table)).sentences
+    assert "ridge: no picked cell in sweep A (none complete)." in sentences
+
+
 @pytest.fixture(scope="module")
 def varied(base, tmp_path_factory):
     """A file store with the base sweeps and two more of spec 'small': one on another fold
