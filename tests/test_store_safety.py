@@ -1,7 +1,8 @@
 """What the store refuses and how it waits: a database that is not a foldwise store is
 never written into, a damaged schema marker is one clear error, a writer waits for a
 reader as long as it takes (saying once who holds the file), and a reader gives up after
-its limit naming the writer."""
+its limit naming the writer. A store passed on by someone else reaches no other file
+through its views or macros."""
 
 from __future__ import annotations
 
@@ -192,10 +193,54 @@ def test_a_sweep_opens_its_store_file_twice(tmp_path, diabetes_csv, monkeypatch,
         run_sweep(spec, store=Store(store), jobs=1, fresh=True)
     opened = []
     real = FileLocation.connect
-    monkeypatch.setattr(FileLocation, "connect", lambda self, *, read_only, config=None: (
-        opened.append(read_only) or real(self, read_only=read_only, config=config)))
+    monkeypatch.setattr(FileLocation, "connect", lambda self, *, read_only, **kw: (
+        opened.append(read_only) or real(self, read_only=read_only, **kw)))
     result = run_sweep(spec, store=Store(store), jobs=1, fresh=True, batch_seconds=3600)
     folds = spec.folds.k * spec.folds.repeats
     assert result.status == "finished" and result.n_fold_rows == 3 * folds * len(spec.metrics)
     assert opened.count(False) == 2
     assert opened.count(True) == (1 if existing else 0), opened
+
+
+def _tampered(path: Path, secret: Path) -> Path:
+    """A store whose `sweeps` is a view that reads another file into every sweep's name, as
+    a store passed on by someone else might be."""
+    write_sweep(path, {"ridge": [[1.0, 2.0]]}, k=2, repeats=1)
+    with duckdb.connect(str(path)) as con:
+        con.execute("alter table sweeps rename to sweeps_kept")
+        con.execute("create view sweeps as select * replace ((select string_agg(content, '') "
+                    f"from read_text('{secret}')) as name) from sweeps_kept")
+    return path
+
+
+@pytest.mark.parametrize("args", [["sweeps"], ["summary"], ["pick"], ["compare"],
+                                  ["export", "OUT"], ["merge", "TAMPERED"],
+                                  ["history", "--model", "ridge"]],
+                         ids=lambda a: a[0])
+def test_a_store_whose_views_read_other_files_is_refused_unread(tmp_path, args):
+    secret = tmp_path / "secret.txt"
+    secret.write_text("hunter2-from-the-key-file\n")
+    tampered = _tampered(tmp_path / "tampered.duckdb", secret)
+    own = tmp_path / "own.duckdb"
+    write_sweep(own, {"ridge": [[1.0, 2.0]]}, k=2, repeats=1, sweep_id="20250101-000000-bbbb")
+    store = own if args[0] == "merge" else tampered
+    befores = {p: _digest(p) for p in (tampered, own)}
+    args = [{"OUT": tmp_path / "out", "TAMPERED": tampered}.get(a, a) for a in args]
+    out = _cli(*args, "--store", store)
+    assert "hunter2" not in out.output
+    assert out.exit_code == 2, out.output
+    assert out.output.startswith("Error: ") and out.output.count("\n") == 1, out.output
+    assert "reaches outside the store" in out.output and str(tampered) in out.output
+    assert {p: _digest(p) for p in (tampered, own)} == befores
+    assert not (tmp_path / "out").exists() or not any((tmp_path / "out").iterdir())
+
+
+def test_a_store_connection_downloads_and_loads_no_extension(tmp_path):
+    path = tmp_path / "store.duckdb"
+    write_sweep(path, {"ridge": [[1.0, 2.0]]}, k=2, repeats=1)
+    settings = Store(path).query(
+        "select current_setting('autoinstall_known_extensions') as install, "
+        "current_setting('autoload_known_extensions') as load, "
+        "current_setting('enable_external_access') as files")
+    assert settings.iloc[0].tolist() == [False, False, False]
+

@@ -77,23 +77,26 @@ class Store:
     # -- connections -------------------------------------------------------------------
     @contextmanager
     def _connect(self, *, read_only: bool, config: dict | None = None,
-                 writing: bool | None = None, small: bool = False
+                 writing: bool | None = None, small: bool = False, reach=()
                  ) -> Iterator[duckdb.DuckDBPyConnection]:
         """A short-lived connection; `writing` (default: not read_only) says whether it
         serves a write, which waits for a busy file however long it takes. A `small` one
         (a few rows to write) opens a file with one thread: DuckDB starts and stops its
-        threads with each connection, which costs more than such a write."""
-        if self._held is not None and not config:
+        threads with each connection, which costs more than such a write. On a file it
+        reaches no other file but those of `reach` (see `FileLocation.connect`)."""
+        if self._held is not None and not config and not reach:
             yield self._held
             return
         if small and not config and not self.location.shared:
             config = _ONE_THREAD
-        con = self.patiently(lambda: self.location.connect(read_only=read_only, config=config),
+        con = self.patiently(lambda: self.location.connect(read_only=read_only, config=config,
+                                                           reach=reach),
                              writing=not read_only if writing is None else writing)
         if self.location.shared:
             _summary_view(con)
         try:
-            yield con
+            with refusing_outside(self.path):
+                yield con
         finally:
             con.close()
 
@@ -606,6 +609,30 @@ class Store:
                              "`foldwise sweeps` lists them.")
         raise StoreError(f"sweep id prefix '{sweep_id}' matches {len(df)} sweeps; give more "
                          "characters.")
+
+
+def reaches_outside(exc: Exception) -> bool:
+    """The error of a query that tried a file, the network or an extension it may not."""
+    return isinstance(exc, duckdb.Error) and "disabled" in str(exc) \
+        and "configuration" in str(exc)
+
+
+@contextmanager
+def refusing_outside(path) -> Iterator[None]:
+    """Turn the error of a query that tried a file, the network or an extension its
+    connection may not reach (a view or macro of store `path`) into one paragraph."""
+    try:
+        yield
+    except duckdb.Error as exc:
+        if not reaches_outside(exc):
+            raise
+        first = str(exc).strip().splitlines()[0]
+        raise StoreError(f"store {path} holds a view or macro that reaches outside the "
+                         f"store ({first}); foldwise reads only a store's own tables, so "
+                         "nothing was read from there and nothing was written. The store may "
+                         "have been altered: ask whoever passed it on for a sound copy, or "
+                         "list its views with foldwise sql \"select view_name, sql from "
+                         "duckdb_views() where not internal\".") from None
 
 
 def _renew_summary_view(con) -> None:

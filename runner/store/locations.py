@@ -69,10 +69,25 @@ class FileLocation:
         if not self.path.exists() and not os.access(folder, os.W_OK):
             raise StoreError(f"store folder {folder} is not writable. Choose another path.")
 
-    def connect(self, *, read_only: bool, config: dict | None = None):
+    def connect(self, *, read_only: bool, config: dict | None = None, reach=()):
+        """A connection to the file that downloads and loads no extension and reaches no
+        other file nor the network, except the files and folders of `reach` (None: any),
+        so that a view or macro in a store passed on by someone else reads nothing else."""
         import duckdb
 
-        return duckdb.connect(str(self.path), read_only=read_only, config=config or {})
+        con = duckdb.connect(str(self.path), read_only=read_only,
+                             config={**_NO_DOWNLOADS, **(config or {})})
+        if reach is not None:
+            try:
+                confine(con, reach)
+            except BaseException:
+                con.close()
+                raise
+        return con
+
+    def reach(self) -> list[Path]:
+        """The files attaching this store reads: the file and its write-ahead log."""
+        return [self.path, self.path.with_name(self.path.name + ".wal")]
 
     def attach_into(self, con, alias: str, *, read_only: bool = True) -> None:
         """Open this store inside another DuckDB connection, as catalog `alias`."""
@@ -149,7 +164,7 @@ class ServerLocation:
         except duckdb.Error as exc:
             raise self.open_error(exc) from None
 
-    def connect(self, *, read_only: bool, config: dict | None = None):
+    def connect(self, *, read_only: bool, config: dict | None = None, reach=()):
         """A DuckDB connection whose default catalog is the attached PostgreSQL database.
 
         Loading the extension and attaching cost about half a second, so foldwise's own
@@ -233,6 +248,20 @@ class ServerLocation:
         else:
             hint = " Check the host, port and that the server accepts connections from here."
         return StoreError(f"cannot open team store {self.url}: {reason}.{hint}")
+
+
+def confine(con, reach=()) -> None:
+    """Turn off `con`'s access to files and the network for good, except to the files and
+    folders (with all they hold) of `reach`; its own database files stay open to it."""
+    where = {"allowed_paths": set(), "allowed_directories": set()}
+    for item in map(Path, reach):
+        kind = "allowed_directories" if item.is_dir() else "allowed_paths"
+        where[kind] |= {str(item.absolute()), str(item.resolve())}
+    for setting, names in where.items():
+        if names:
+            listed = ", ".join(f"'{_quote(n)}'" for n in sorted(names))
+            con.execute(f"set {setting} = [{listed}]")
+    con.execute("set enable_external_access = false")
 
 
 def url_problem(url: str) -> str | None:

@@ -19,7 +19,7 @@ import pandas as pd
 
 from ..errors import StoreError
 from ..read.filenames import make_folder
-from . import Store
+from . import Store, reaches_outside, refusing_outside
 from .labels import Selection, resolve_ids
 from .schema import MODEL_TABLES, SCHEMA_VERSION, SINCE, TABLES
 
@@ -71,7 +71,7 @@ def export_store(store: Store, folder: str | Path, fmt: str = "parquet",
     counts = {}
     store._check_version()  # refuses a non-store, upgrades an older one
     try:
-        with store._connect(read_only=True) as con:
+        with store._connect(read_only=True, reach=[staging]) as con:
             chosen = None
             if selection is not None and not selection.empty:
                 where, params = selection.where("s")
@@ -147,6 +147,7 @@ def merge_store(store: Store, other: str | Path,
     store.ensure_schema()
     if isinstance(other, (str, Path)) and Path(str(other)).is_dir():
         sources, attach = _export_sources(Path(str(other))), None
+        reach = [Path(str(other))]
     else:
         where = locate(other)
         if str(where) == str(store.location) or (
@@ -159,7 +160,9 @@ def merge_store(store: Store, other: str | Path,
                              "postgresql:// URL or a folder written by `foldwise export`.")
         attach = where
         sources = {t: f"_other.{t}" for t in TABLES}
-    with store._connect(read_only=False) as con, _attached(con, attach, other):
+        reach = where.reach() if where.kind == "file" else None
+    with store._connect(read_only=False, reach=reach) as con, _attached(con, attach, other), \
+            refusing_outside(other):
         if attach is not None:  # an older store lacks the tables added since
             theirs_tables = {t for (t,) in con.execute(
                 "select table_name from information_schema.tables "
@@ -196,6 +199,8 @@ def merge_store(store: Store, other: str | Path,
             con.execute("commit")
         except duckdb.Error as exc:
             con.execute("rollback")
+            if reaches_outside(exc):
+                raise
             raise StoreError(f"merging {other} into {store.path} failed, nothing was "
                              f"copied: {str(exc).splitlines()[0]}") from None
     return MergeResult({t: int(n) for t, n in rows.items()}, new, present, running, models)
