@@ -244,3 +244,14 @@ def test_a_store_connection_downloads_and_loads_no_extension(tmp_path):
         "current_setting('enable_external_access') as files")
     assert settings.iloc[0].tolist() == [False, False, False]
 
+
+def test_a_team_store_merges_no_file_a_tampered_store_reads(pg, tmp_path):
+    secret = tmp_path / "secret.txt"
+    secret.write_text("hunter2-from-the-key-file\n")
+    tampered = _tampered(tmp_path / "tampered.duckdb", secret)
+    url = pg.create_database("tampered_merge")
+    out = _cli("merge", tampered, "--store", url)
+    assert out.exit_code == 2, out.output
+    assert "hunter2" not in out.output and "reaches outside the store" in out.output
+    assert str(tampered) in out.output and out.output.count("\n") == 1, out.output
+    assert Store(url).query("select count(*) as n from sweeps").n.tolist() == [0]

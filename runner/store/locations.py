@@ -169,7 +169,17 @@ class ServerLocation:
 
         Loading the extension and attaching cost about half a second, so foldwise's own
         operations share one attached DuckDB instance per process and each gets a cursor
-        of it. A user's query never runs here (runner/sandbox.py)."""
+        of it. A user's query never runs here (runner/sandbox.py). With files to `reach`
+        (merging a store file or an export), the connection is an instance of its own
+        that reaches no other file (see `confine`), so no view of theirs reads one."""
+        if reach:
+            private = self._open()
+            try:
+                confine(private, reach)
+            except BaseException:
+                private.close()
+                raise
+            return private
         shared = self._shared_instance()
         cursor = shared.cursor()
         try:
