@@ -71,6 +71,18 @@ def test_unknown_kind_and_missing_rows_are_refused(explained, tmp_path):
         make_figure("importance", store, sid, method="gain")
 
 
+def test_plot_out_dir_under_a_file_is_refused_in_one_paragraph(explained, tmp_path):
+    _, store, _ = explained
+    (tmp_path / "notes.txt").write_text("kept\n")
+    out = CliRunner().invoke(main, ["plot", "complexity", "--store", str(store.path),
+                                    "--out-dir", str(tmp_path / "notes.txt" / "figures")],
+                             catch_exceptions=False)
+    assert out.exit_code == 2, out.output
+    assert out.output.startswith("Error: ") and out.output.count("\n") == 1, out.output
+    assert "a part of its folder is a file" in out.output, out.output
+    assert (tmp_path / "notes.txt").read_text() == "kept\n"
+
+
 def test_plot_command_writes_files_and_prints_paths(explained, tmp_path):
     _, store, sid = explained
     out = CliRunner().invoke(main, ["plot", "complexity", "--store", str(store.path),

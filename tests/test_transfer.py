@@ -169,3 +169,31 @@ def test_a_store_of_schema_version_2_is_upgraded_and_merges(explained, tmp_path)
     assert len(again.query("select * from sweeps")) == 1
     assert again.query("select value from foldwise_meta")["value"].tolist() == \
         [str(SCHEMA_VERSION)]
+
+
+def test_export_under_a_file_or_from_no_store_is_refused_leaving_no_folder(tmp_path):
+    from click.testing import CliRunner
+
+    from runner.cli import main
+
+    from .store_builder import write_sweep
+
+    store = tmp_path / "store.duckdb"
+    write_sweep(store, {"ridge": [[1.0, 2.0]]}, k=2, repeats=1)
+    (tmp_path / "notes.txt").write_text("kept\n")
+    foreign = tmp_path / "foreign.duckdb"
+    duckdb.connect(str(foreign)).execute("create table t as select 1 as a").close()
+    for folder, source, words in [
+            (tmp_path / "notes.txt" / "out", store, "a part of its folder is a file"),
+            (tmp_path / "new" / "out", foreign, "is not a foldwise store"),
+            (tmp_path / "chosen", store, "nothing was exported")]:
+        args = ["export", str(folder), "--store", str(source)]
+        if folder.name == "chosen":
+            args += ["--label", "purpose=none"]
+        out = CliRunner().invoke(main, args, catch_exceptions=False)
+        assert out.exit_code == 2, out.output
+        assert out.output.startswith("Error: ") and out.output.count("\n") == 1, out.output
+        assert words in out.output, out.output
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["foreign.duckdb", "notes.txt",
+                                                          "store.duckdb"]
+    assert (tmp_path / "notes.txt").read_text() == "kept\n"

@@ -13,6 +13,8 @@ place or none. Only the standard library is used, so the CLI stays light."""
 
 from __future__ import annotations
 
+import contextlib
+
 import hashlib
 import os
 import tempfile
@@ -150,14 +152,25 @@ def check_folder(folder: str | Path, what: str, hint: str) -> None:
                           f"({part}). {hint}")
 
 
-def make_folder(folder: str | Path, what: str, hint: str) -> None:
-    """Create `folder` and its parents, refused as `check_folder` refuses."""
+def make_folder(folder: str | Path, what: str, hint: str) -> list[Path]:
+    """Create `folder` and its parents, refused as `check_folder` refuses. Returns the
+    folders it made, deepest first, so a caller that then fails can take them away."""
     check_folder(folder, what, hint)
+    folder = Path(folder)
+    made = [p for p in (folder, *folder.parents) if not p.exists()]
     try:
-        Path(folder).mkdir(parents=True, exist_ok=True)
+        folder.mkdir(parents=True, exist_ok=True)
     except (FileExistsError, NotADirectoryError):  # a file put there since the check
         check_folder(folder, what, hint)
         raise
+    return made
+
+
+def remove_made_folders(made: Sequence[Path]) -> None:
+    """Take away the folders `make_folder` made, deepest first, where they are still empty."""
+    for empty in made:
+        with contextlib.suppress(OSError):
+            empty.rmdir()
 
 
 def check_replaceable(path: str | Path, mark: bytes, kind: str, hint: str) -> None:

@@ -18,7 +18,7 @@ import duckdb
 import pandas as pd
 
 from ..errors import StoreError
-from ..read.filenames import make_folder
+from ..read.filenames import make_folder, remove_made_folders
 from . import Store, reaches_outside, refusing_outside
 from .labels import Selection, resolve_ids
 from .schema import MODEL_TABLES, SCHEMA_VERSION, SINCE, TABLES
@@ -65,11 +65,11 @@ def export_store(store: Store, folder: str | Path, fmt: str = "parquet",
     if clash:
         raise StoreError(f"{folder} already holds an export ({clash[0]}); choose an empty or "
                          "new folder, so no earlier export is overwritten.")
-    make_folder(folder, f"export {folder}", "Give a folder whose path holds folders only.")
+    store._check_version()  # refuses a non-store, upgrades an older one
+    made = make_folder(folder, f"export {folder}", "Give a folder whose path holds folders only.")
     staging = Path(tempfile.mkdtemp(prefix=".export-", dir=folder))
     options = "format parquet" if fmt == "parquet" else "format csv, header true"
     counts = {}
-    store._check_version()  # refuses a non-store, upgrades an older one
     try:
         with store._connect(read_only=True, reach=[staging]) as con:
             chosen = None
@@ -99,8 +99,11 @@ def export_store(store: Store, folder: str | Path, fmt: str = "parquet",
         (staging / EXPORT_MANIFEST).write_text(json.dumps(manifest, indent=2) + "\n")
         for item in [*(f"{t}.{fmt}" for t in TABLES), EXPORT_MANIFEST]:
             os.replace(staging / item, folder / item)
-    finally:
+    except BaseException:
         shutil.rmtree(staging, ignore_errors=True)
+        remove_made_folders(made)
+        raise
+    shutil.rmtree(staging, ignore_errors=True)
     return counts
 
 
