@@ -82,6 +82,7 @@ def emit(df: pd.DataFrame, fmt: str, *, view: View | None = None, title: str | N
     from rich.table import Table
     from rich.text import Text
 
+    from .read.past_views import plain_text
     from .read.views import number
 
     if view is not None:
@@ -91,20 +92,21 @@ def emit(df: pd.DataFrame, fmt: str, *, view: View | None = None, title: str | N
 
         shown = df
         right = {c for c in shown.columns if pd.api.types.is_numeric_dtype(shown[c])}
-    table = Table(title=view.title if view is not None else title, show_lines=False,
+    title = view.title if view is not None else title
+    table = Table(title=Text(plain_text(title)) if title else None, show_lines=False,
                   header_style="bold")
     for col in shown.columns:
-        table.add_column(str(col), justify="right" if col in right else "left",
+        table.add_column(Text(plain_text(col)), justify="right" if col in right else "left",
                          overflow="fold")
-    for row in shown.itertuples(index=False):  # as Text: stored words are never markup
-        table.add_row(*[Text(number(v) if isinstance(v, float) else
-                             ("" if v is None else str(v))) for v in row])
+    for row in shown.itertuples(index=False):  # stored words: never markup nor control
+        table.add_row(*[Text(number(v) if isinstance(v, float) else plain_text(v))
+                        for v in row])
     if view is not None:
         for line in view.preface:
-            out.write(f"{line}\n")
+            out.write(f"{plain_text(line)}\n")
     Console(file=out, width=_width(out)).print(table)
     if view is not None:
         for line in view.sentences:
-            out.write(f"  {line}\n")
+            out.write(f"  {plain_text(line)}\n")
         for line in view.caveats:
-            out.write(f"{line}\n")
+            out.write(f"{plain_text(line)}\n")

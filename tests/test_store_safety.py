@@ -7,6 +7,7 @@ through its views or macros."""
 from __future__ import annotations
 
 import hashlib
+import json
 import subprocess
 import sys
 import textwrap
@@ -255,3 +256,26 @@ def test_a_team_store_merges_no_file_a_tampered_store_reads(pg, tmp_path):
     assert "hunter2" not in out.output and "reaches outside the store" in out.output
     assert str(tampered) in out.output and out.output.count("\n") == 1, out.output
     assert Store(url).query("select count(*) as n from sweeps").n.tolist() == [0]
+
+
+CONTROL = "\x1b[2J\x1b]0;taken\x07\r\x08"
+"""Terminal control a store passed on by someone else may hold in its words: clear the
+screen, retitle the window, ring the bell, overwrite the line."""
+
+
+@pytest.mark.parametrize("args", [["summary"], ["pick"], ["compare"], ["path", "--model", "X"],
+                                  ["sql", "select model, params from cells"], ["sweeps"],
+                                  ["history", "--model", "X"]], ids=lambda a: a[0])
+def test_stored_words_reach_the_terminal_without_control_characters(tmp_path, args):
+    path = tmp_path / "store.duckdb"
+    label = f"ri{CONTROL}dge"
+    write_sweep(path, {label: [[1.0, 2.0, 1.5, 2.5], [1.2, 2.2, 1.4, 2.4]],
+                       "tree": [[3.0, 3.5, 3.25, 3.75]]}, k=2, repeats=2)
+    with duckdb.connect(str(path)) as con:
+        con.execute("update sweeps set name = ?, note = ?, data_sha256 = 'd', spec_sha256 = 's'",
+                    [f"sp{CONTROL}ec", f"no{CONTROL}te"])
+        con.execute("update cells set params = ?", [json.dumps({f"al{CONTROL}pha": 1.0})])
+    out = _cli(*[label if a == "X" else a for a in args], "--store", path)
+    assert out.exit_code == 0, out.output
+    assert not {"\x1b", "\x07", "\r", "\x08"} & set(out.output), repr(out.output)
+    assert "taken" in out.output  # the words stay, their control characters gone

@@ -68,10 +68,12 @@ def _show(result, view, fmt) -> None:
     """Print a result: its view as a table, or its exact table as CSV or JSON; remarks go
     to stderr, so that CSV and JSON stay clean. A table shows only the view, so the exact
     table (which may be built on demand) is not asked for."""
+    from ..read.past_views import plain_text
+
     emit(None if fmt == "table" else result.table, fmt, view=view)
     for note in (view.notes if fmt == "table" else
                  view.preface + view.caveats + view.notes):
-        click.echo(note, err=True)
+        click.echo(plain_text(note), err=True)
 
 
 _STATUSES = ("finished", "failed", "interrupted", "running")
