@@ -247,3 +247,19 @@ def test_written_files_are_all_new_or_all_as_they_were(tmp_path):
     with pytest.raises(OutputError, match="is not a foldwise image, so it is not replaced"):
         check_replaceable(tmp_path / "a.png", b"foldwise figure", "image", "Remove it.")
     assert sorted(p.name for p in tmp_path.iterdir()) == ["a.png"]
+
+
+def test_an_svg_drawn_from_hostile_labels_is_well_formed_and_free_of_control_characters(tmp_path):
+    import xml.etree.ElementTree as ET
+
+    labels = ("a\0b", "bell\x07", "esc\x1b[2Jcleared", "Tree")
+    store = _planted(tmp_path / "store.duckdb", labels=labels)
+    out = CliRunner().invoke(main, ["plot", "complexity", "--store", str(store.path),
+                                    "--out-dir", str(tmp_path / "svg"), "--image", "svg"])
+    assert out.exit_code == 0, out.output
+    written = sorted((tmp_path / "svg").glob("*.svg"))
+    assert len(written) == len(labels)
+    for path in written:
+        text = path.read_text(encoding="utf-8")
+        ET.fromstring(text)  # XML 1.0 allows no control character but tab and line breaks
+        assert not any(ord(c) < 32 and c not in "\t\n\r" for c in text), path.name

@@ -634,6 +634,7 @@ def image_paths(stem: Path, formats=("png", "svg")) -> list[Path]:
 def figure_bytes(fig, paths: list[Path], *, dpi: int = 150) -> list[tuple[Path, bytes]]:
     """(path, the figure drawn in the path's format) for each path; nothing is written."""
     files = []
+    _printable(fig)
     with _style():
         for path in paths:
             fmt = path.suffix[1:]
@@ -656,6 +657,20 @@ def save_figure(fig, stem: Path, formats=("png", "svg"), *, dpi: int = 150) -> l
     return write_images(figure_bytes(fig, image_paths(stem, formats), dpi=dpi))
 
 
+_UNDRAWN = {i: " " for i in [*range(0, 32), *range(127, 160)] if chr(i) != "\n"}
+
+
+def _printable(fig) -> None:
+    """Every text of `fig` without control characters (line breaks kept): a stored label
+    holding one drew a missing glyph and made an SVG that is not well-formed XML."""
+    from matplotlib.text import Text
+
+    for text in fig.findobj(Text):
+        shown = text.get_text()
+        if shown.translate(_UNDRAWN) != shown:
+            text.set_text(shown.translate(_UNDRAWN))
+
+
 def _metadata(fmt: str) -> dict:
     """No creation dates in files, so the same store gives the same bytes; the mark that
     says foldwise wrote them."""
@@ -668,6 +683,7 @@ def figure_svg(fig, *, salt: str = "fig") -> str:
     import matplotlib
 
     buffer = io.StringIO()
+    _printable(fig)
     with _style(), matplotlib.rc_context({"svg.hashsalt": salt}):
         fig.savefig(buffer, format="svg", metadata={"Date": None})
     text = buffer.getvalue()
