@@ -279,3 +279,16 @@ def test_stored_words_reach_the_terminal_without_control_characters(tmp_path, ar
     assert out.exit_code == 0, out.output
     assert not {"\x1b", "\x07", "\r", "\x08"} & set(out.output), repr(out.output)
     assert "taken" in out.output  # the words stay, their control characters gone
+
+
+def test_a_sweep_id_prefix_is_matched_as_typed_not_as_a_pattern(tmp_path):
+    store = write_sweep(tmp_path / "store.duckdb", {"ridge": [[1.0, 2.0]]}, k=2, repeats=1,
+                        sweep_id="20260101-000000-aaaa")
+    write_sweep(tmp_path / "store.duckdb", {"ridge": [[1.0, 2.0]]}, k=2, repeats=1,
+                sweep_id="20260102-000000-bbbb")
+    assert store.resolve_sweep("20260102") == "20260102-000000-bbbb"
+    for typed in ("%", "2026010_-000000-b", "%bbbb", "_"):
+        with pytest.raises(StoreError, match="no sweep"):
+            store.resolve_sweep(typed)
+    with pytest.raises(StoreError, match="matches 2 sweeps"):
+        store.resolve_sweep("2026")

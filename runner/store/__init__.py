@@ -601,7 +601,7 @@ class Store:
         """The given sweep id (a unique prefix is enough), or the latest one."""
         if sweep_id is None:
             return self.latest_sweep_id()
-        df = self.query("select sweep_id from sweeps where sweep_id like ? || '%'", [sweep_id])
+        df = self.query("select sweep_id from sweeps where starts_with(sweep_id, ?)", [sweep_id])
         if len(df) == 1:
             return str(df.iloc[0, 0])
         if df.empty:
