@@ -11,6 +11,7 @@ import os
 import shutil
 import socket
 
+import duckdb
 import pandas as pd
 import pytest
 from click.testing import CliRunner
@@ -561,3 +562,27 @@ def test_diff_of_sweeps_that_do_not_share_every_model(base, tmp_path):
     assert {r["model"]: r["in_sweeps"] for r in rows} == {"ridge": "both", "tree": "B only"}
     assert (f"models only in sweep B ({base[3]}), not in A, so not compared (shown with a "
             "dash on the A side): tree") in back.stderr.splitlines()
+
+
+def test_a_sweep_that_recorded_no_data_hash_claims_neither_same_nor_changed_data(base, tmp_path):
+    # a store from an older foldwise or a colleague may hold NULL where the data's SHA-256
+    # belongs; history crashed on it, and diff of two such sweeps called the data the same
+    # and paired their folds
+    shutil.copy(base[1].path, tmp_path / "copy.duckdb")
+    store = Store(tmp_path / "copy.duckdb")
+    _, _, first, second = base
+    with duckdb.connect(str(store.path)) as con:
+        con.execute("update sweeps set data_sha256 = null")
+    for fmt in ("table", "csv", "json"):
+        out = invoke("history", "--model", "ridge", "--store", store.path, "--format", fmt)
+        assert out.exit_code == 0, out.output
+    text = invoke("history", "--model", "ridge", "--store", store.path).output
+    assert "unknown" in next(x for x in text.splitlines() if second in x)
+    assert "data changed" not in text
+    result = model_history(store, "ridge")
+    assert result.table["data_changed"].tolist() == [False, None]  # the first has no sweep before it
+    diff = diff_sweeps(store, first, second)
+    assert diff.data_same is None and not diff.paired
+    out = invoke("diff", first, second, "--store", store.path)
+    assert out.exit_code == 0, out.output
+    assert "data: not recorded" in out.output and "data: same" not in out.output

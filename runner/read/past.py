@@ -25,6 +25,7 @@ from .past_queries import (history_cells, paired_changes, previous_sweep, shared
                            sweep_records, sweep_status_of)
 from .queries import json_object, picks, sweep_facts, sweep_labels, varying_params
 from .results import ModelHistory, SweepDiff
+from .views import is_missing
 from ..store import Store
 
 __all__ = ["diff_sweeps", "model_history", "MAX_DIFF_TEXT"]
@@ -56,7 +57,7 @@ def _diff(store: Store, sweep_a: str | None, sweep_b: str | None, se: str) -> Sw
     records = sweep_records(store, [a, b])
     ra, rb = records[a], records[b]
     shared = shared_cells(store, a, b)
-    data_same = ra["data_sha256"] == rb["data_sha256"]
+    data_same = known_same(ra["data_sha256"], rb["data_sha256"])
     plan_same = _plan_same(ra, rb, shared)
     paired, why = _pairing(ra, rb, data_same, plan_same)
     fa, fb = sweep_facts(store, a), sweep_facts(store, b)
@@ -118,7 +119,27 @@ def _plan_same(ra: dict, rb: dict, shared: int) -> bool | None:
     return True if shared else None
 
 
-def _pairing(ra: dict, rb: dict, data_same: bool, plan_same: bool | None) -> tuple[bool, str]:
+def _hash_changed(prev, here, column: str) -> bool | None:
+    """Whether `column` changed since the sweep before; None when either recorded none."""
+    if prev is None:
+        return False
+    same = known_same(prev[column], here[column])
+    return None if same is None else not same
+
+
+def known_same(x, y) -> bool | None:
+    """Whether two stored hashes agree; None when either sweep recorded none (a store from
+    an older foldwise or a colleague), so nothing is claimed either way."""
+    if is_missing(x) or is_missing(y):
+        return None
+    return x == y
+
+
+def _pairing(ra: dict, rb: dict, data_same: bool | None,
+             plan_same: bool | None) -> tuple[bool, str]:
+    if data_same is None:
+        return False, ("not paired: the folds may differ (a sweep recorded no hash of its "
+                       "data, so it cannot be told whether the data changed)")
     if not data_same:
         return False, "not paired: the folds differ (the data changed)"
     if plan_same is False:
@@ -231,9 +252,10 @@ def _history(store: Store, model, name, family, rule, se, metric) -> ModelHistor
                 continue
             row = _history_row(group, rule or here["pick_rule"] or "best", se, better)
             row.update(sweep_id=sid, started_at=here["started_at"],
-                       status=sweep_status_of(here.to_dict()), data=here["data_sha256"][:12],
-                       data_changed=prev is not None and prev["data_sha256"] != here["data_sha256"],
-                       spec_changed=prev is not None and prev["spec_sha256"] != here["spec_sha256"],
+                       status=sweep_status_of(here.to_dict()),
+                       data=None if is_missing(here["data_sha256"]) else here["data_sha256"][:12],
+                       data_changed=_hash_changed(prev, here, "data_sha256"),
+                       spec_changed=_hash_changed(prev, here, "spec_sha256"),
                        labels=json.dumps(labels.get(sid, {}), sort_keys=True))
             # the same grid point picked again is no change, though a new plan or new data
             # give it another cell id

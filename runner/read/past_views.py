@@ -104,7 +104,12 @@ def diff_view(result: SweepDiff) -> View:
     else:
         lines.append("spec: same text")
     rows_a, rows_b = f"{a['n_train']} / {a['n_test']}", f"{b['n_train']} / {b['n_test']}"
-    if result.data_same:
+    if result.data_same is None:
+        lines.append(f"data: not recorded for sweep "
+                     f"{a['sweep_id'] if is_missing(a['data_sha256']) else b['sweep_id']} "
+                     f"(no SHA-256 stored), so it cannot be told whether it changed; training "
+                     f"/ test rows {rows_a} → {rows_b}")
+    elif result.data_same:
         lines.append(f"data: same (SHA-256 {str(b['data_sha256'])[:12]}; {rows_b} training / "
                      "test rows)")
     else:
@@ -225,8 +230,9 @@ def history_view(result: ModelHistory) -> View:
                             for p in df["params"]]
     shown[cv_head(m)] = [mean_se(x, e) for x, e in zip(df["mean"], df["se"])]
     shown[test_head(m)] = df["test"].map(number)
-    shown["data"] = [f"{d} (changed)" if c else d for d, c in zip(df["data"], df["data_changed"])]
-    shown["changed"] = [", ".join(w for w, flag in (("spec", s), ("pick", p)) if flag)
+    shown["data"] = ["unknown" if is_missing(d) else f"{d} (changed)" if c is True else d
+                     for d, c in zip(df["data"], df["data_changed"])]
+    shown["changed"] = [", ".join(w for w, flag in (("spec", s), ("pick", p)) if flag is True)
                         for s, p in zip(df["spec_changed"], df["pick_changed"])]
     shown["labels"] = df["labels"].map(labels_text)
     who = ", ".join(result.models) if several else result.models[0]
@@ -236,7 +242,7 @@ def history_view(result: ModelHistory) -> View:
              f"oldest first: picked cell ({rule}) by CV {metric_label(m)} "
              f"({result.better} is better, {result.se} SE)")
     said = []
-    changed = df.loc[df["data_changed"], "sweep_id"].drop_duplicates().tolist()
+    changed = df.loc[df["data_changed"].eq(True), "sweep_id"].drop_duplicates().tolist()
     if changed:
         said.append(f"the data changed before sweep{'s' if len(changed) > 1 else ''} "
                     f"{', '.join(changed)}.")

@@ -564,8 +564,8 @@ def history_figure(store: Store, sweep_id: str | None = None, *, model: str | No
         ax = fig.add_subplot()
         for r in firsts.itertuples(index=False):
             x = where[r.sweep_id] - 0.5
-            if r.data_changed or r.spec_changed:
-                kind = "data" if r.data_changed else "spec"
+            if r.data_changed is True or r.spec_changed is True:
+                kind = "data" if r.data_changed is True else "spec"
                 ax.axvline(x, color=MUTED if kind == "data" else FAINT, linewidth=1,
                            linestyle="--" if kind == "data" else ":", zorder=1,
                            gid=f"{kind}_changed")

@@ -238,7 +238,7 @@ class SweepDiff:
     a: dict
     b: dict
     spec_diff: tuple[str, ...]  # unified diff lines of the spec text; () when the same
-    data_same: bool
+    data_same: bool | None  # None: a sweep recorded no data hash
     plan_same: bool | None  # None: not recorded for an older sweep, and no shared cell
     versions: dict  # package -> (a, b), changed ones only
     labels: dict  # key -> (a, b), changed ones only (None where absent)
