@@ -404,3 +404,28 @@ def test_a_bad_build_out_is_refused_before_anything_is_fitted(demo_built, tmp_pa
                                         str(tmp_path / "plain.txt" / "t.skops")])
     assert fetched.exit_code == 2 and "a part of its folder is a file" in fetched.output
     assert sorted(p.name for p in tmp_path.iterdir()) == ["plain.txt", "taken.skops"]
+
+
+def test_a_stored_data_path_naming_no_data_file_is_refused_before_a_byte_is_read(
+        demo_built, tmp_path, monkeypatch):
+    # a store passed on by someone else names the file build reads: it must be a CSV or
+    # Parquet file, or nothing of it is read (not even hashed, which would tell whether a
+    # private file holds guessed bytes)
+    folder, store, sweep_id, _ = demo_built
+    shutil.copy(store.path, tmp_path / "copy.duckdb")
+    secret = tmp_path / "id_key"
+    secret.write_text("private\n")
+    with duckdb.connect(str(tmp_path / "copy.duckdb")) as con:
+        con.execute("update sweeps set data_path = ?", [str(secret)])
+    import runner.write.data as data
+
+    def read(*_):
+        raise AssertionError("a byte of the stored path was read")
+
+    monkeypatch.setattr(data, "_sha256", read)
+    monkeypatch.setattr(data, "_sha256_at", read)
+    with pytest.raises(DataError) as err:
+        build_model(Store(tmp_path / "copy.duckdb"), model="ridge", out=tmp_path / "r.skops")
+    text = str(err.value)
+    assert str(secret) in text and "--data" in text and "store" in text, text
+    assert not (tmp_path / "r.skops").exists()

@@ -140,9 +140,20 @@ def _fingerprint(spec, max_bytes: int | None) -> str:
     return sha
 
 
-def _check_data(spec, record: dict, *, accept: bool, max_bytes: int | None) -> str:
-    """Compare the data's fingerprint with the sweep's before a row is parsed."""
+def _check_data(spec, record: dict, *, accept: bool, max_bytes: int | None,
+                named_by: Path | None) -> str:
+    """Compare the data's fingerprint with the sweep's before a row is parsed. A path a
+    store names (`named_by`, not the user's --data) is untrusted: nothing but a CSV or
+    Parquet file of it is read, not even hashed."""
+    from ..write.data import data_kind
+
     path = spec.resolve(spec.data.path)
+    hint = ("Give the data file with --data." if named_by is None else
+            f"Store {named_by} names it as the data of sweep {record['sweep_id']}; give the "
+            "sweep's data file with --data.")
+    data_kind(path, "data file", hint)
+    if spec.test.file is not None:
+        data_kind(spec.resolve(spec.test.file), "test file", hint)
     if not path.exists():
         raise DataError(f"the data file of sweep {record['sweep_id']}, {path}, does not exist "
                         "here. Give its current place with --data.")
@@ -244,7 +255,8 @@ def build_model(store: Store, *, sweep_id: str | None = None, model: str | None 
                          "foldwise cannot fit. Upgrade foldwise.")
     spec = _sweep_spec(record, data)
     limit = data_limit_bytes(spec, lifted=lift_limits)
-    sha = _check_data(spec, record, accept=accept_data, max_bytes=limit)
+    sha = _check_data(spec, record, accept=accept_data, max_bytes=limit,
+                      named_by=None if data is not None else store.path)
     frame = load_checked(spec, max_bytes=limit)
     plan = make_plan(spec, frame)
     rows = np.arange(len(frame.y)) if all_rows else plan.train_rows

@@ -118,6 +118,16 @@ def _check_header(header: list[str], role: str, path: Path) -> None:
                             "(and '.' as the decimal mark).")
 
 
+def data_kind(path: Path, role: str = "data file", hint: str = "Convert it or rename it if "
+              "it is one of those.") -> str:
+    """'csv' or 'parquet' by the file's extension, or a DataError: nothing else is read."""
+    kind = _READERS.get(Path(path).suffix.lower())
+    if kind is None:
+        raise DataError(f"{role} {path} has extension '{Path(path).suffix}'; foldwise reads "
+                        f".csv and .parquet files. {hint}")
+    return kind
+
+
 def read_table(path: Path, *, role: str = "data file", max_bytes: int | None = None
                ) -> pd.DataFrame:
     """Read a CSV or Parquet file into a DataFrame, or raise a DataError saying what is wrong."""
@@ -127,10 +137,7 @@ def read_table(path: Path, *, role: str = "data file", max_bytes: int | None = N
 def _read(path: Path, role: str, max_bytes: int | None) -> tuple[pd.DataFrame, str]:
     """The table and the SHA-256 of the bytes it was read from (one open file for both)."""
     with _open_regular(path, role, max_bytes) as fh:
-        kind = _READERS.get(path.suffix.lower())
-        if kind is None:
-            raise DataError(f"{role} {path} has extension '{path.suffix}'; foldwise reads .csv "
-                            "and .parquet files. Convert it or rename it if it is one of those.")
+        kind = data_kind(path, role)
         # hashed on a second core while the table is parsed, where reads by offset exist
         hashing = ThreadPoolExecutor(1, thread_name_prefix="foldwise-sha256") \
             if hasattr(os, "pread") else None
