@@ -37,9 +37,9 @@ class _FieldProblem(ValueError):
     """A cross-field check's complaint about one field, so the message gives that field's
     line rather than the line of the section whose validator found it."""
 
-    def __init__(self, field: str, message: str):
+    def __init__(self, field: str | tuple, message: str):
         super().__init__(message)
-        self.loc = tuple(field.split("."))
+        self.loc = tuple(field.split(".")) if isinstance(field, str) else field
 
 
 class _Strict(BaseModel):
@@ -411,24 +411,35 @@ class Spec(_Strict):
     @model_validator(mode="after")
     def _fits_its_task(self):
         if self.task is not None:
-            problem = self.task_problem(self.task)
+            problem = self._task_problem_at(self.task)
             if problem:
-                raise ValueError(problem)
+                loc, why = problem
+                raise _FieldProblem(loc, why if loc[0] == "metrics" else f"it is {why}")
         return self
 
     def task_problem(self, task: str) -> str | None:
         """Why this spec's metrics or grids do not suit `task` (None if they do)."""
-        for m in self.metrics or []:
+        problem = self._task_problem_at(task)
+        if problem is None:
+            return None
+        loc, why = problem
+        return why if loc[0] == "metrics" else f"{'.'.join(loc)} is {why}"
+
+    def _task_problem_at(self, task: str) -> tuple[tuple, str] | None:
+        """The field whose metric or grid does not suit `task`, and why."""
+        for i, m in enumerate(self.metrics or []):
             if METRICS[m].task != task:
                 fits = [n for n, r in METRICS.items() if r.task == task]
-                return (f"metric '{m}' scores {METRICS[m].task}, but this sweep is {task}; "
+                return (("metrics", i),
+                        f"metric '{m}' scores {METRICS[m].task}, but this sweep is {task}; "
                         f"its metrics are {', '.join(fits)}")
         for label, model in self.models.items():
             family = FAMILIES[model.family]
             for name in model.grid:
                 if task not in family.params[name].tasks:
-                    return (f"models.{label}.grid.{name} is a {family.params[name].tasks[0]} "
-                            f"parameter of the {model.family} family, but this sweep is {task}")
+                    return (("models", label, "grid", name),
+                            f"a {family.params[name].tasks[0]} parameter of the "
+                            f"{model.family} family, but this sweep is {task}")
         return None
 
     def settle_task(self, task: str) -> None:
