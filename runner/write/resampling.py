@@ -206,10 +206,11 @@ def _rows_holdout(n, fraction, seed, values, gap, strata=None):
     try:
         test = train_test_split(np.arange(n), test_size=fraction, random_state=seed,
                                 stratify=strata)[1]
-    except ValueError as exc:  # only a stratified split can fail here
-        raise DataError(f"the test split cannot keep every class's share: {exc} Set "
-                        "`test.fraction` so that every class has a test row, or merge rare "
-                        "classes.") from None
+    except ValueError as exc:  # `_strata_problem` foresees what a stratified split refuses
+        raise DataError(f"the test split cannot keep every class's share: {exc} A stratified "
+                        "test split needs two rows of every class and, on each side, one row "
+                        "per class: drop or merge rare classes, or change `test.fraction`."
+                        ) from None
     test = np.sort(test)
     return _rest(n, test), test
 
