@@ -187,22 +187,52 @@ def make_greenhouse(n_rows: int = 3000, *, seed: int = 7) -> pd.DataFrame:
     )
 
 
-def write_greenhouse(path, n_rows: int = 3000, *, seed: int = 7) -> Path:
-    """Write :func:`make_greenhouse` output as CSV to ``path`` and return it."""
+def write_demo_csv(frame: pd.DataFrame, path) -> Path:
+    """Write a demo table as CSV to `path`, whole or not at all. An existing file is
+    replaced only if it is an earlier demo file of the same columns (its header line), so
+    a data file or a spec named by mistake is kept."""
+    from .read.filenames import check_replaceable, make_folder, write_whole
+
     out = Path(path)
-    out.parent.mkdir(parents=True, exist_ok=True)
-    make_greenhouse(n_rows, seed=seed).to_csv(out, index=False)
+    header = ",".join(frame.columns) + "\n"
+    hint = "Name a new file, or remove that one first if it is yours to lose."
+    check_replaceable(out, header.encode(), "demo data file", hint)
+    make_folder(out.parent, f"the folder of {out}", "Name a file in a folder.")
+    text = frame.to_csv(index=False, lineterminator="\n")
+    write_whole([(out, text.encode())], ".demo-")
     return out
 
 
-def _main(argv=None) -> None:
-    parser = argparse.ArgumentParser(description="Write the synthetic greenhouse yield CSV.")
+def write_greenhouse(path, n_rows: int = 3000, *, seed: int = 7) -> Path:
+    """Write :func:`make_greenhouse` output as CSV to ``path`` and return it."""
+    return write_demo_csv(make_greenhouse(n_rows, seed=seed), path)
+
+
+def demo_main(description: str, write, rows_help: str, argv=None) -> None:
+    """The command line of a demo data generator: OUT, --rows, --seed; a refusal is one
+    paragraph on stderr with exit status 2."""
+    import inspect
+    import sys
+
+    from .errors import OutputError
+
+    defaults = inspect.signature(write).parameters
+    parser = argparse.ArgumentParser(description=description)
     parser.add_argument("out", help="CSV file to write")
-    parser.add_argument("--rows", type=int, default=3000,
-                        help="number of bay-seasons (default 3000: 250 bays x 12 seasons)")
-    parser.add_argument("--seed", type=int, default=7, help="random seed (default 7)")
+    parser.add_argument("--rows", type=int, default=defaults["n_rows"].default, help=rows_help)
+    seed = defaults["seed"].default
+    parser.add_argument("--seed", type=int, default=seed, help=f"random seed (default {seed})")
     args = parser.parse_args(argv)
-    print(write_greenhouse(args.out, args.rows, seed=args.seed))
+    try:
+        print(write(args.out, args.rows, seed=args.seed))
+    except OutputError as exc:
+        print(f"Error: {exc}", file=sys.stderr)
+        sys.exit(2)
+
+
+def _main(argv=None) -> None:
+    demo_main("Write the synthetic greenhouse yield CSV.", write_greenhouse,
+              "number of bay-seasons (default 3000: 250 bays x 12 seasons)", argv)
 
 
 if __name__ == "__main__":

@@ -41,11 +41,12 @@ deterministic for a given ``seed`` (``numpy.random.default_rng``)."""
 
 from __future__ import annotations
 
-import argparse
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
+
+from .demo import demo_main, write_demo_csv
 
 __all__ = ["make_grades", "write_grades", "CULTIVARS", "TARGET"]
 
@@ -94,19 +95,12 @@ def make_grades(n_rows: int = 1500, *, seed: int = 5) -> pd.DataFrame:
 
 def write_grades(path, n_rows: int = 1500, *, seed: int = 5) -> Path:
     """Write :func:`make_grades` output as CSV to ``path`` and return it."""
-    out = Path(path)
-    out.parent.mkdir(parents=True, exist_ok=True)
-    make_grades(n_rows, seed=seed).to_csv(out, index=False)
-    return out
+    return write_demo_csv(make_grades(n_rows, seed=seed), path)
 
 
 def _main(argv=None) -> None:
-    parser = argparse.ArgumentParser(description="Write the synthetic batch grading CSV.")
-    parser.add_argument("out", help="CSV file to write")
-    parser.add_argument("--rows", type=int, default=1500, help="number of batches")
-    parser.add_argument("--seed", type=int, default=5, help="random seed (default 5)")
-    args = parser.parse_args(argv)
-    print(write_grades(args.out, args.rows, seed=args.seed))
+    demo_main("Write the synthetic batch grading CSV.", write_grades,
+              "number of batches (default 1500)", argv)
 
 
 if __name__ == "__main__":

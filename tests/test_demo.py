@@ -53,3 +53,29 @@ def test_row_folds_twin_differs_only_in_its_folds():
     assert (demo.folds.k, demo.folds.repeats, demo.folds.seed) == \
         (twin.folds.k, twin.folds.repeats, twin.folds.seed)
     assert (demo.test.fraction, demo.test.seed) == (twin.test.fraction, twin.test.seed)
+
+
+def test_the_generators_replace_only_an_earlier_demo_file(tmp_path, capsys):
+    import pytest
+
+    from runner.demo import _main as greenhouse_main
+    from runner.demo_grades import _main as grades_main
+
+    spec = tmp_path / "spec.yaml"
+    spec.write_text("name: mine\n")
+    for run in (greenhouse_main, grades_main):
+        with pytest.raises(SystemExit) as stop:
+            run([str(spec)])
+        assert stop.value.code == 2
+        err = capsys.readouterr().err
+        assert err.startswith("Error: ") and err.count("\n") == 1, err
+        assert f"{spec} exists and is not a foldwise demo data file" in err
+        assert spec.read_text() == "name: mine\n"
+    out = tmp_path / "g.csv"
+    greenhouse_main([str(out), "--rows", "24"])
+    greenhouse_main([str(out), "--rows", "36", "--seed", "3"])  # an earlier demo file: replaced
+    assert len(pd.read_csv(out)) == 36
+    with pytest.raises(SystemExit):
+        grades_main([str(out)])  # another generator's columns: kept
+    assert len(pd.read_csv(out)) == 36 and sorted(p.name for p in tmp_path.iterdir()) == [
+        "g.csv", "spec.yaml"]
