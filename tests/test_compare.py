@@ -92,7 +92,9 @@ def test_in_words():
     assert in_words("a", "b", metric="rmse", better="lower", mean_diff=-1.0, se=0.2, p=0.01,
                     wins_a=9, wins_b=1, n=10, p_holm=0.06).startswith("no clear difference")
     assert in_words("a", "b", metric="rmse", better="lower", mean_diff=0.0, se=0.0, p=1.0,
-                    wins_a=0, wins_b=0, n=4) == "a and b tie on average; a wins 0 and b wins 0 of 4 folds"
+                    wins_a=0, wins_b=0, n=4) == "a and b score the same on every one of 4 folds: nothing to test"
+    assert in_words("a", "b", metric="rmse", better="lower", mean_diff=0.0, se=0.1, p=1.0,
+                    wins_a=2, wins_b=2, n=4) == "a and b tie on average; a wins 2 and b wins 2 of 4 folds"
 
 
 # -- pairing stored fold scores -------------------------------------------------------------
@@ -197,3 +199,25 @@ def test_compare_command(three_models):
     assert "note: p-values from resampled folds are approximate" in table.stdout
     bad = runner.invoke(main, ["compare", "--store", path, "--metric", "mae"])
     assert bad.exit_code == 2 and "metric must be one of" in bad.stderr
+
+
+def test_holm_in_compare_counts_only_the_pairs_it_can_test(tmp_path):
+    # a and b score the same on every fold (their differences are all zero: no t-test), so
+    # Holm's m is the two pairs tested, a–c and b–c; Holm 1979 worked by hand for m = 2:
+    # sorted p1 ≤ p2 become 2·p1 and max(2·p1, p2)
+    a = [5.0, 5.1, 4.9, 5.0, 5.2, 4.8]
+    c = [5.3, 5.2, 5.1, 5.4, 5.2, 5.1]
+    store = write_sweep(tmp_path / "s.duckdb", {"a": [a], "b": [list(a)], "c": [c]},
+                        k=3, repeats=2)
+    df = read_compare(store).table.set_index(["model_a", "model_b"])
+    assert math.isnan(df.loc[("a", "b"), "p_value"]) and math.isnan(df.loc[("a", "b"), "p_holm"])
+    assert df.loc[("a", "b"), "ties"] == 6 and df.loc[("a", "b"), "mean_diff"] == 0.0
+    p = corrected_t_test(np.subtract(a, c), n_train=80, n_valid=20).p
+    assert df.loc[("a", "c"), "p_value"] == pytest.approx(p, rel=1e-12)
+    assert df.loc[("a", "c"), "p_holm"] == pytest.approx(min(1.0, 2 * p), rel=1e-12)
+    assert df.loc[("b", "c"), "p_holm"] == pytest.approx(min(1.0, 2 * p), rel=1e-12)
+    out = CliRunner().invoke(main, ["compare", "--store", str(store.path)])
+    assert out.exit_code == 0, out.output
+    assert "a and b score the same on every one of 6 folds: nothing to test" in out.output
+    assert "2 pairwise tests were made (1 pair with the same score on every fold had " \
+        "nothing to test)" in " ".join(out.output.split())

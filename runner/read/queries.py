@@ -10,9 +10,11 @@ fewer fold scores than k·r is never picked."""
 from __future__ import annotations
 
 import functools
+import math
 import json
 import os
 import socket
+from dataclasses import replace
 from typing import TYPE_CHECKING
 
 from .compare import holm, t_from_moments
@@ -566,8 +568,9 @@ def compare(store: Store, sweep_id: str | None = None, *, rule: str | None = Non
 
     `rule` picks each model's cell (default: the sweep's rule) and `se` is the SE that rule
     uses; the comparison itself always uses the corrected variance. Differences are a − b on
-    `metric` (default: the sweep's first metric); `p_holm` adjusts every pair's p for the
-    number of pairs compared (Holm 1979)."""
+    `metric` (default: the sweep's first metric); `p_holm` adjusts each pair's p for the
+    number of pairs tested (Holm 1979). A pair with the same score on every fold has no
+    test: no p, and it does not count among them."""
     import pandas as pd
 
     check_rule(rule)
@@ -585,6 +588,8 @@ def compare(store: Store, sweep_id: str | None = None, *, rule: str | None = Non
         for r in raw.itertuples(index=False):
             n = int(r.folds)
             test = t_from_moments(float(r.mean_diff), float(r.var_diff), n, float(r.valid_ratio))
+            if int(r.ties) == n:  # the same score on every fold: nothing to test
+                test = replace(test, t=math.nan, p=math.nan)
             rows.append({
                 "model_a": r.model_a, "model_b": r.model_b, "cell_a": r.cell_a,
                 "cell_b": r.cell_b, "metric": metric, "folds": n, "mean_diff": test.mean,

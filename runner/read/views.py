@@ -203,6 +203,9 @@ def pair_sentence(model_a: str, model_b: str, *, metric: str, better: str, mean_
     places = 3 if places is None else places
     judged = p if p_holm is None else p_holm
     p_part = p_text(p) + ("" if p_holm is None else f"; Holm-adjusted {p_text(p_holm)}")
+    if n and wins_a == wins_b == 0 and mean_diff == 0:
+        return (f"{model_a} and {model_b} score the same on every one of {n} folds: nothing "
+                "to test")
     if mean_diff == 0 or math.isnan(mean_diff):
         return (f"{model_a} and {model_b} tie on average; {model_a} wins {wins_a} and "
                 f"{model_b} wins {wins_b} of {n} folds")
@@ -400,10 +403,13 @@ def compare_view(result: Comparison) -> View:
     caveats = (f"note: {APPROXIMATE_NOTE}",) if len(df) else ()
     if len(df) and result.facts.ordered:
         caveats += (f"note: {ORDERED_FOLDS_NOTE}",)
+    tested = int(df["p_value"].notna().sum())
     if len(df) > 1:
-        caveats += (f"note: {len(df)} pairwise tests were made; 'Holm p' adjusts each p for "
-                    "all of them (Holm 1979), and a difference is called clear only when that "
-                    f"is below {CLEAR_P:g}.",)
+        untested = (f" ({count_text(len(df) - tested, 'pair', 'pairs')} with the same score "
+                    "on every fold had nothing to test)" if tested < len(df) else "")
+        caveats += (f"note: {count_text(tested, 'pairwise test was', 'pairwise tests were')} "
+                    f"made{untested}; 'Holm p' adjusts each p for all of them (Holm 1979), and "
+                    f"a difference is called clear only when that is below {CLEAR_P:g}.",)
     return View(title, shown, tuple(numeric), sentences=tuple(pair_sentences(result)),
                 caveats=caveats, notes=coverage_notes(result.coverage, result.facts.sweep_id,
                                                      result.facts.n_folds))
