@@ -133,3 +133,16 @@ def test_explain_stores_the_refit_size(explained):
         expected = (model.get_n_leaves() if r.family == "pruned_tree"
                     else np.count_nonzero(model.coef_))
         assert int(r.n_terms) == int(expected), r.model
+
+
+def test_a_second_place_with_the_same_score_on_every_fold_is_said_so(tmp_path):
+    from runner.read.queries import compare, picks
+
+    from .store_builder import write_sweep
+
+    a = [5.0, 5.1, 4.9, 5.0, 5.2, 4.8]
+    store = write_sweep(tmp_path / "s.duckdb", {"a": [a], "b": [list(a)],
+                                                "c": [[x + 1 for x in a]]}, k=3, repeats=2)
+    said = " ".join(decision(picks(store, rule="one_se"), compare(store)).sentences)
+    assert "(the same score on every fold, nothing to test)" in said, said
+    assert "not clearly separated" in said and "()" not in said and "( ," not in said

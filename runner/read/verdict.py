@@ -144,7 +144,8 @@ def decision(chosen: Picks, pairs: Comparison, importances=None) -> Decision:
         if second in gaps:
             gap, se, pv, wins, folds = gaps[second]
             clear = pv is not None and pv < CLEAR_P and gap > 0
-            p_part = p_text(pv) + (", Holm-adjusted" if several else "")
+            p_part = ("the same score on every fold, nothing to test" if not p_text(pv) else
+                      p_text(pv) + (", Holm-adjusted" if several else ""))
             said.append(f"In second place, {second} is {mean_se(gap, se)} "
                         f"{'higher' if better == 'lower' else 'lower'} in CV {name}; {lm} does "
                         f"better on {wins} of {folds} paired folds ({p_part}). " +
