@@ -586,3 +586,24 @@ def test_a_sweep_that_recorded_no_data_hash_claims_neither_same_nor_changed_data
     out = invoke("diff", first, second, "--store", store.path)
     assert out.exit_code == 0, out.output
     assert "data: not recorded" in out.output and "data: same" not in out.output
+
+
+def test_history_figure_writes_each_new_pick_so_that_no_two_picks_read_alike(varied):
+    from matplotlib.text import Annotation
+
+    from runner.read.plots import history_figure, pick_label
+
+    store = varied[0]
+    table = model_history(store, "ridge").table
+    fig = history_figure(store, model="ridge")
+    written = [t.get_text() for t in fig.axes[0].get_children() if isinstance(t, Annotation)]
+    assert len(written) == 1 + int(table["pick_changed"].sum())
+    assert all(w.startswith("→ ") for w in written[1:]) and "…" not in "".join(written)
+    # values in full, defaults kept: picks 1e-7 apart, or a default against none, differ
+    assert pick_label({"alpha": 0.1234567}) != pick_label({"alpha": 0.1234568})
+    assert pick_label({"alpha": 0.1234568}, {"alpha": 0.1234567}) == "→ alpha=0.1234568"
+    assert pick_label({"alpha": 1.0, "fit_intercept": True}, {"alpha": 1.0}) == \
+        "→ fit_intercept=True"
+    long = {f"param_{i}": 0.123456789 for i in range(6)}
+    assert pick_label(long).replace("\n", " ") == ", ".join(
+        f"param_{i}=0.123456789" for i in range(6))

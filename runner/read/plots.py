@@ -11,6 +11,7 @@ palette, which stays distinct under the common colour-vision deficiencies."""
 from __future__ import annotations
 
 import io
+import json
 import math
 import textwrap
 from contextlib import contextmanager
@@ -540,6 +541,30 @@ def tree_figure(store: Store, sweep_id: str | None = None, *, rule: str | None =
 
 
 # -- (f) a model's pick across sweeps ------------------------------------------------------
+def pick_label(params, before=None, width: int = 30) -> str:
+    """A picked cell written on the history figure: every parameter in full the first
+    time, then only those that differ from the cell written `before`, so two picks that
+    differ never read alike; wrapped between parameters, never cut."""
+    now = json.loads(params) if isinstance(params, str) else dict(params)
+    if before is None:
+        parts = params_text(now, exact=True).split(", ")
+    else:
+        old = json.loads(before) if isinstance(before, str) else dict(before)
+        changed = {k: v for k, v in now.items()
+                   if k not in old or old[k] != v or type(old[k]) is not type(v)}
+        parts = (params_text(changed, exact=True).split(", ") if changed else []) + [
+            f"{k} unset" for k in sorted(set(old) - set(now))]
+        parts = ["→ " + (parts[0] if parts else "the same grid point")] + parts[1:]
+    lines, line = [], ""
+    for part in parts:
+        if line and len(line) + 2 + len(part) > width:
+            lines.append(line + ",")
+            line = part
+        else:
+            line = f"{line}, {part}" if line else part
+    return "\n".join([*lines, line])
+
+
 def history_figure(store: Store, sweep_id: str | None = None, *, model: str | None = None,
                    name: str | None = None, rule: str | None = None, se: str = "plain"):
     """Each model's (or one model's) picked cell across the sweeps of one spec, oldest
@@ -583,12 +608,15 @@ def history_figure(store: Store, sweep_id: str | None = None, *, model: str | No
                         markerfacecolor="white", markeredgecolor=col, markeredgewidth=1.2,
                         zorder=4, label=f"{m}: test split")
             if len(result.models) == 1:
+                shown = None
                 for xi, r in zip(x, rows.itertuples(index=False)):
-                    if r.pick_changed or xi == x[0]:
-                        ax.annotate(textwrap.shorten(params_text(r.params, hide=get_family(
-                            r.family).defaults), 40, placeholder="…"), (xi, r.mean),
-                            xytext=(0, 9), textcoords="offset points", ha="center",
-                            fontsize=7, color=INK)
+                    if r.pick_changed or shown is None:
+                        ax.annotate(pick_label(r.params, shown), (xi, r.mean),
+                                    xytext=(0, 9), textcoords="offset points", ha="center",
+                                    va="bottom", fontsize=7, color=INK, zorder=5,
+                                    bbox={"boxstyle": "square,pad=0.15", "facecolor": "white",
+                                          "edgecolor": "none", "alpha": 0.85})
+                        shown = r.params
         ticks = [f"{pd.Timestamp(t):%Y-%m-%d}\n{pd.Timestamp(t):%H:%M} ·{safe_component(s)[-4:]}"
                  for t, s in zip(firsts["started_at"], firsts["sweep_id"])]
         step = max(1, math.ceil(len(sweeps) / 16))
