@@ -607,3 +607,23 @@ def test_history_figure_writes_each_new_pick_so_that_no_two_picks_read_alike(var
     long = {f"param_{i}": 0.123456789 for i in range(6)}
     assert pick_label(long).replace("\n", " ") == ", ".join(
         f"param_{i}=0.123456789" for i in range(6))
+
+
+def test_diff_names_each_picked_cell_by_every_param_on_which_the_two_differ(tmp_path):
+    from runner.read.past_views import diff_view
+
+    from .store_builder import write_sweep
+
+    path = tmp_path / "s.duckdb"
+    scores = [[1.0, 2.0, 1.5, 1.2]]
+    write_sweep(path, {"tree": scores}, k=2, repeats=2, sweep_id="20260101-000000-aaaa")
+    store = write_sweep(path, {"tree": scores}, k=2, repeats=2,
+                        sweep_id="20260102-000000-bbbb")
+    with duckdb.connect(str(path)) as con:  # one cell per grid: nothing varies in either
+        con.execute("update cells set params = ? where sweep_id = '20260101-000000-aaaa'",
+                    [json.dumps({"ccp_alpha": 0.1234567, "min_samples_leaf": 3})])
+        con.execute("update cells set params = ? where sweep_id = '20260102-000000-bbbb'",
+                    [json.dumps({"ccp_alpha": 0.1234568, "min_samples_leaf": 5})])
+    shown = diff_view(diff_sweeps(store, "20260101", "20260102")).table
+    assert shown["A cell"].tolist() == ["ccp_alpha=0.1234567, min_samples_leaf=3"]
+    assert shown["B cell"].tolist() == ["ccp_alpha=0.1234568, min_samples_leaf=5"]

@@ -10,7 +10,7 @@ from datetime import datetime
 from .compare import APPROXIMATE_NOTE
 from ..metrics import metric_label
 from .results import ModelHistory, SweepDiff, SweepList
-from .views import (CLEAR_P, TIME_MEANING, TextTable, View, cell_text, count_text, cv_head, decimals_for,
+from .views import (CLEAR_P, TIME_MEANING, TextTable, View, count_text, cv_head, decimals_for,
                     fixed, is_missing, mean_se, number, p_text, params_text, rule_label,
                     test_head)
 
@@ -82,10 +82,31 @@ def removal_view(result: SweepList, rows: dict[str, int], *, done: bool = False)
                 sentences=(f"{verb}, all in one transaction: {held}.",))
 
 
-def _side(params, keep, leaves=None) -> str:
-    """A sweep's picked cell, or a dash where the model is not in that sweep (None, or the
-    NaN an outer join leaves)."""
-    return "—" if params is None or params != params else cell_text(params, keep, leaves)
+def _sides(params_a, params_b, varying) -> tuple[str, str]:
+    """Each sweep's picked cell (a dash where the model is not in that sweep: None, or the
+    NaN an outer join leaves) by the params its grid varies and every param on which the
+    two cells differ, in full where the short forms would read alike."""
+    cells = [None if is_missing(p) else (json.loads(p) if isinstance(p, str) else dict(p))
+             for p in (params_a, params_b)]
+    keep = set(varying)
+    exact = set()
+    if cells[0] is not None and cells[1] is not None:
+        for k in {*cells[0], *cells[1]}:
+            x, y = cells[0].get(k, _ABSENT), cells[1].get(k, _ABSENT)
+            if x != y or type(x) is not type(y):
+                keep.add(k)
+                if params_text({k: x}) == params_text({k: y}):
+                    exact.add(k)
+    return tuple("—" if c is None else _cell_words(c, keep, exact) for c in cells)
+
+
+_ABSENT = object()
+
+
+def _cell_words(cell: dict, keep: set, exact: set) -> str:
+    kept = sorted(k for k in cell if k in keep)
+    return ", ".join(params_text({k: cell[k]}, exact=k in exact) for k in kept) or \
+        "(single cell)"
 
 
 def diff_view(result: SweepDiff) -> View:
@@ -135,10 +156,12 @@ def diff_view(result: SweepDiff) -> View:
                      "compared; each sweep's picks are shown.")
     label = metric_label(m or "rmse") if m else "score"
     paired = result.paired and m is not None
+    sides = [_sides(pa, pb, result.varying.get(x, []))
+             for pa, pb, x in zip(df["params_a"], df["params_b"], df["model"])]
     shown = pd.DataFrame({
         "model": df["model"],
-        "A cell": [_side(p, result.varying.get(x, [])) for p, x in zip(df["params_a"], df["model"])],
-        "B cell": [_side(p, result.varying.get(x, [])) for p, x in zip(df["params_b"], df["model"])],
+        "A cell": [a for a, _ in sides],
+        "B cell": [b for _, b in sides],
         f"A CV {label}": [mean_se(x, e) for x, e in zip(df["mean_a"], df["se_a"])],
         f"B CV {label}": [mean_se(x, e) for x, e in zip(df["mean_b"], df["se_b"])]})
     numeric = [f"A CV {label}", f"B CV {label}"]
