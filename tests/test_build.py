@@ -429,3 +429,32 @@ def test_a_stored_data_path_naming_no_data_file_is_refused_before_a_byte_is_read
     text = str(err.value)
     assert str(secret) in text and "--data" in text and "store" in text, text
     assert not (tmp_path / "r.skops").exists()
+
+
+@pytest.mark.parametrize("appears", ["artefact", "card"])
+def test_a_file_that_appears_while_a_model_is_written_is_kept(demo_built, tmp_path,
+                                                               monkeypatch, appears):
+    # someone else's file lands at --out (or its card) after the check and before the move:
+    # it is kept, no half of the new pair is left beside it, and the model stays in the store
+    import runner.model.build as build
+
+    folder, store, _, _ = demo_built
+    shutil.copy(store.path, tmp_path / "copy.duckdb")
+    copy = Store(tmp_path / "copy.duckdb")
+    out = tmp_path / "out" / "m.skops"
+    theirs = out if appears == "artefact" else card_path_for(out)
+    staged_for_real = build.stage_files
+
+    def stage_then_someone_writes(files, prefix):
+        staged = staged_for_real(files, prefix)
+        theirs.write_bytes(b"someone else's\n")
+        return staged
+
+    monkeypatch.setattr(build, "stage_files", stage_then_someone_writes)
+    with pytest.raises(OutputError) as err:
+        build_model(copy, model="ridge", out=out)
+    assert "it is kept" in str(err.value) and "foldwise fetch model-" in str(err.value)
+    assert sorted(p.name for p in out.parent.iterdir()) == [theirs.name]
+    assert theirs.read_bytes() == b"someone else's\n"
+    assert len(copy.query("select model_id from models")) == len(
+        store.query("select model_id from models")) + 1

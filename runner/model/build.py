@@ -26,7 +26,7 @@ from ..errors import DataError, ModelError, OutputError, SpecError
 from ..families import FAMILIES
 from ..metrics import METRICS
 from ..read.filenames import (check_folder, discard_staged, make_folder, move_into_place,
-                              stage_files, write_whole)
+                              stage_files)
 from ..store import Store
 from .artefact import FORMAT, dump_pipeline, sha256_of
 from .card import CARD_FORMAT, CARD_VERSION, card_json, card_path_for, conformal_scores, \
@@ -339,17 +339,35 @@ def build_model(store: Store, *, sweep_id: str | None = None, model: str | None 
                 "artefact_bytes": len(blob)}]),
             "model_coefficients": None if coefficients is None else
             coefficients.assign(model_id=model_id)})
-        paths = move_into_place(staged)
     except BaseException:
         discard_staged(staged)
         raise
-    return BuiltModel(model_id, card, paths[0], paths[1], digest, len(blob), coefficients,
+    artefact, card_file = _place(staged, f"The model is in store {store.path} as {model_id}: "
+                                 f"write its files elsewhere with `foldwise fetch {model_id} "
+                                 "--out OTHER.skops`.")
+    return BuiltModel(model_id, card, artefact, card_file, digest, len(blob), coefficients,
                       notes)
 
 
 def write_model_files(artefact: Path, blob: bytes, card: dict) -> tuple[Path, Path]:
     """Write an artefact and its card beside it, both or neither, never over a file."""
-    artefact, card_file = write_whole(_model_files(Path(artefact), blob, card), ".building-")
+    staged = stage_files(_model_files(Path(artefact), blob, card), ".building-")
+    return _place(staged, "Choose another --out.")
+
+
+def _place(staged, hint: str) -> tuple[Path, Path]:
+    """(artefact, card) moved into place from `stage_files`; a file that appeared at
+    either path since the check is kept, and nothing of this model is left there."""
+    try:
+        card_file, artefact = move_into_place(staged, keep_existing=True)
+    except FileExistsError:
+        discard_staged(staged)
+        raise OutputError(f"a file appeared at {staged[1][1]} or its card "
+                          f"{staged[0][1].name} while the model was written; it is kept. "
+                          f"{hint}") from None
+    except BaseException:
+        discard_staged(staged)
+        raise
     return artefact, card_file
 
 
@@ -369,8 +387,8 @@ def _check_model_out(artefact: Path) -> list[Path]:
 
 
 def _model_files(artefact: Path, blob: bytes, card: dict) -> list[tuple[Path, bytes]]:
-    """(path, bytes) of the artefact and its card, after checking those places are free;
-    their folder is made."""
-    targets = _check_model_out(artefact)
+    """(path, bytes) of the card and its artefact, after checking those places are free;
+    their folder is made. The card comes first, so an artefact is never without its card."""
+    artefact_file, card_file = _check_model_out(artefact)
     make_folder(artefact.parent, str(artefact), "Choose another --out.")
-    return list(zip(targets, (blob, card_json(card).encode())))
+    return [(card_file, card_json(card).encode()), (artefact_file, blob)]

@@ -207,11 +207,39 @@ def stage_files(files: Sequence[tuple[Path, bytes]], prefix: str) -> list[tuple[
     return staged
 
 
-def move_into_place(staged: Sequence[tuple[Path, Path]]) -> list[Path]:
-    """Rename each staged temporary file onto its path; the paths."""
-    for tmp, target in staged:
+def move_into_place(staged: Sequence[tuple[Path, Path]], *,
+                    keep_existing: bool = False) -> list[Path]:
+    """Rename each staged temporary file onto its path; the paths. With `keep_existing`, a
+    file that appeared at a path since it was checked is kept (FileExistsError), and the
+    paths this call already filled are emptied again."""
+    placed: list[Path] = []
+    try:
+        for tmp, target in staged:
+            if keep_existing:
+                _link_new(tmp, target)
+            else:
+                os.replace(tmp, target)
+            placed.append(target)
+    except FileExistsError:
+        for target in placed:
+            target.unlink(missing_ok=True)
+        raise
+    return placed
+
+
+def _link_new(tmp: Path, target: Path) -> None:
+    """Give `tmp`'s file the name `target` only if nothing has it (a hard link fails on an
+    existing name), where the file system has hard links; else check, then rename."""
+    try:
+        os.link(tmp, target)
+    except FileExistsError:
+        raise
+    except OSError:
+        if os.path.lexists(target):
+            raise FileExistsError(target) from None
         os.replace(tmp, target)
-    return [target for _, target in staged]
+        return
+    tmp.unlink()
 
 
 def discard_staged(staged: Sequence[tuple[Path, Path]]) -> None:
