@@ -361,12 +361,14 @@ def test_export_and_merge_carry_built_models_whole(demo_built, tmp_path, fmt):
 def test_a_model_built_after_a_merge_arrives_with_the_next_merge(demo_built, tmp_path):
     from runner.store.transfer import merge_store
 
-    _, store, _, _ = demo_built
+    folder, store, _, _ = demo_built
     source = tmp_path / "source.duckdb"
     shutil.copy(store.path, source)
     target = Store(tmp_path / "target.duckdb")
     merge_store(target, source)
-    later = build_model(Store(source), model="tree", rule="best", out=tmp_path / "l.skops")
+    # the copy's stored data path lies outside its folder: the data are named by the user
+    later = build_model(Store(source), model="tree", rule="best", out=tmp_path / "l.skops",
+                        data=folder / "greenhouse.csv")
     again = merge_store(target, source)
     assert again.new_sweeps == [] and again.new_models == [later.model_id]
     assert again.rows["models"] == 1
@@ -452,9 +454,94 @@ def test_a_file_that_appears_while_a_model_is_written_is_kept(demo_built, tmp_pa
 
     monkeypatch.setattr(build, "stage_files", stage_then_someone_writes)
     with pytest.raises(OutputError) as err:
-        build_model(copy, model="ridge", out=out)
+        build_model(copy, model="ridge", out=out, data=folder / "greenhouse.csv")
     assert "it is kept" in str(err.value) and "foldwise fetch model-" in str(err.value)
     assert sorted(p.name for p in out.parent.iterdir()) == [theirs.name]
     assert theirs.read_bytes() == b"someone else's\n"
     assert len(copy.query("select model_id from models")) == len(
         store.query("select model_id from models")) + 1
+
+
+@pytest.fixture
+def hashed(monkeypatch):
+    """Every path foldwise hashes as data, in order (the hashing itself unchanged)."""
+    import runner.write.data as data
+
+    seen, real = [], data.file_sha256
+    monkeypatch.setattr(data, "file_sha256",
+                        lambda path, **k: seen.append(str(path)) or real(path, **k))
+    return seen
+
+
+def _store_naming(demo_built, folder, data_path):
+    """A copy of the demo store in `folder` whose sweep names `data_path` as its data."""
+    _, store, sweep_id, _ = demo_built
+    folder.mkdir(exist_ok=True)
+    copy = folder / "copy.duckdb"
+    shutil.copy(store.path, copy)
+    with duckdb.connect(str(copy)) as con:
+        con.execute("update sweeps set data_path = ? where sweep_id = ?",
+                    [None if data_path is None else str(data_path), sweep_id])
+    return copy
+
+
+def test_a_stored_data_path_outside_the_allowed_folders_is_never_opened(demo_built, tmp_path,
+                                                                       monkeypatch, hashed):
+    # the store named a file and build hashed it (and printed its SHA-256 when it differed)
+    # before any check; a path a store names is now read only inside the current folder,
+    # the store's folder or the folder of --data, checked before it is opened
+    import os
+
+    folder = demo_built[0]
+    elsewhere = tmp_path / "elsewhere"
+    elsewhere.mkdir()
+    outside = elsewhere / "greenhouse.csv"
+    outside.write_bytes((folder / "greenhouse.csv").read_bytes())  # the very rows
+    here = tmp_path / "here"
+    here.mkdir()
+    monkeypatch.chdir(here)
+    link = tmp_path / "linked"
+    link.mkdir()
+    (link / "data.csv").symlink_to(outside)  # inside the store's folder, pointing out
+    for store_folder, named in [(tmp_path / "plain", outside), (link, link / "data.csv")]:
+        copy = _store_naming(demo_built, store_folder, named)
+        out = CliRunner().invoke(main, ["build", "--model", "ridge", "--store", str(copy),
+                                        "--out", str(tmp_path / "m.skops")])
+        assert out.exit_code == 2 and out.output.count("\n") == 1, out.output
+        assert out.output.startswith(f"Error: the data file sweep {demo_built[2]} names in "
+                                     f"store {copy}, {named}, lies outside the folders")
+        assert "Give the sweep's data file with --data." in out.output
+    assert hashed == [] and not list(tmp_path.glob("m*"))
+    os.mkfifo(here / "rows.csv")  # inside the current folder, but a pipe
+    copy = _store_naming(demo_built, tmp_path / "fifo", here / "rows.csv")
+    with pytest.raises(DataError, match=r"rows.csv, is not a regular file \(a folder, device, "
+                                        r"pipe or socket\)"):
+        build_model(Store(copy), model="ridge", out=tmp_path / "m.skops")
+    monkeypatch.chdir("/dev")  # a device inside the current folder
+    copy = _store_naming(demo_built, tmp_path / "device", "/dev/zero")
+    with pytest.raises(DataError, match="/dev/zero, is not a regular file"):
+        build_model(Store(copy), model="ridge", out=tmp_path / "m.skops")
+    copy = _store_naming(demo_built, tmp_path / "none", None)
+    with pytest.raises(DataError, match=f"store holds no data path for sweep {demo_built[2]}"):
+        build_model(Store(copy), model="ridge", out=tmp_path / "m.skops")
+    assert hashed == [] and not list(tmp_path.glob("m*"))
+    # the user's own --data is theirs to name: the same outside file builds
+    model = build_model(Store(copy), model="ridge", data=outside, out=tmp_path / "m.skops")
+    assert hashed == [str(outside)] and model.card["data"]["path"] == str(outside)
+    # a stored path inside the store's folder is read, from wherever foldwise runs
+    store_folder = tmp_path / "project" / "results"
+    store_folder.mkdir(parents=True)
+    inside = store_folder / "greenhouse.csv"
+    inside.write_bytes((folder / "greenhouse.csv").read_bytes())
+    copy = _store_naming(demo_built, store_folder, inside)
+    monkeypatch.chdir(tmp_path / "elsewhere")
+    model = build_model(Store(copy), model="ridge", out=tmp_path / "in.skops")
+    assert hashed[1:] == [str(inside)] and model.card["data"]["path"] == str(inside)
+    # a sweep stored without its data's SHA-256 cannot vouch for the rows (it said "was run
+    # on data with SHA-256 None")
+    with duckdb.connect(str(copy)) as con:
+        con.execute("update sweeps set data_sha256 = NULL")
+    with pytest.raises(DataError, match="store holds no SHA-256 for the data of sweep"):
+        build_model(Store(copy), model="ridge", out=tmp_path / "n.skops")
+    model = build_model(Store(copy), model="ridge", accept_data=True, out=tmp_path / "n.skops")
+    assert "not the sweep's (unknown) (--accept-data)" in model.notes[-1]

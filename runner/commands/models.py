@@ -25,7 +25,8 @@ from .options import (_RULES, _ProgressBar, _format_option, _lift_option, _open_
 @click.option("--all-rows", is_flag=True, help="Fit on every row, training and test (the "
               "card says no held-out score describes the model) [default: training rows].")
 @click.option("--data", "data_path", type=click.Path(dir_okay=False), default=None,
-              help="Where the sweep's data file is now [default: where the sweep read it].")
+              help="Where the sweep's data file is now [default: where the sweep read it, "
+                   "if inside the current folder or the store's folder].")
 @click.option("--accept-data", is_flag=True, help="Build even if the data's SHA-256 differs "
               "from the sweep's (the card records both).")
 @click.option("--out", type=click.Path(dir_okay=False), default=None,

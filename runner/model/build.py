@@ -13,8 +13,10 @@ from __future__ import annotations
 import getpass
 import hashlib
 import json
+import os
 import secrets
 import socket
+import stat
 from dataclasses import dataclass, field
 from datetime import datetime
 from pathlib import Path
@@ -117,16 +119,71 @@ def _sweep_spec(record: dict, data: str | Path | None):
     """The sweep's own spec, reading `data` (default: the data file the sweep read)."""
     from ..write.spec import parse_spec
 
-    source = Path(record["spec_path"]) if record.get("spec_path") else None
+    source = Path(str(record["spec_path"])) if _text(record.get("spec_path")) else None
     try:
         spec = parse_spec(str(record["spec_text"]), source=source)
     except SpecError as exc:
         raise ModelError(f"the spec stored with sweep {record['sweep_id']} does not validate "
                          f"in this foldwise, so the sweep cannot be rebuilt: {exc}") from None
-    # --data is the user's own path: from where they stand, not from the spec's folder
-    path = (Path(data).expanduser().absolute() if data is not None
-            else Path(str(record["data_path"])))
+    if data is not None:  # the user's own path: from where they stand, not the spec's folder
+        path = Path(data).expanduser().absolute()
+    elif _text(record["data_path"]):
+        path = Path(str(record["data_path"]))
+    else:
+        raise DataError(f"store holds no data path for sweep {record['sweep_id']}, so its "
+                        "data file is unknown. Give the sweep's data file with --data.")
     return spec.model_copy(update={"data": spec.data.model_copy(update={"path": str(path)})})
+
+
+def _text(value) -> bool:
+    """Whether a stored value is text worth using (not NULL, NaN or empty)."""
+    return isinstance(value, str) and value != ""
+
+
+def _allowed_folders(store: Store, data: str | Path | None) -> list[Path]:
+    """Where a file a stored sweep names may be read from: the folder foldwise runs in, the
+    store file's folder and the folder of the user's --data, each with what lies below."""
+    folders = [Path.cwd()]
+    if not store.location.shared:
+        folders.append(Path(store.path).absolute().parent)
+    if data is not None:
+        folders.append(Path(data).expanduser().absolute().parent)
+    return [f.resolve() for f in folders]
+
+
+def _check_stored_files(spec, record: dict, store: Store, data: str | Path | None) -> None:
+    """Refuse, before any is opened, a data or test file the stored sweep names (a store is
+    another's text) that is not a readable regular file inside the allowed folders: a
+    store must not make foldwise open a device or a pipe, or hash a file elsewhere and
+    print its SHA-256. The user's own --data is theirs to name and is not confined."""
+    from ..read.past_views import plain_text
+
+    named = [("test file", spec.resolve(spec.test.file))] if spec.test.file is not None else []
+    if data is None:
+        named.insert(0, ("data file", spec.resolve(spec.data.path)))
+    folders = _allowed_folders(store, data)
+    for role, path in named:
+        shown, sid = plain_text(str(path)), record["sweep_id"]
+        fix = ("Give the sweep's data file with --data" if role == "data file" else
+               "Run foldwise from a folder that holds it, or give the data file with --data "
+               "from the folder that holds both")
+        try:
+            real = path.resolve()
+            info = real.stat()
+        except (OSError, RuntimeError):
+            raise DataError(f"the {role} of sweep {sid}, {shown}, does not exist here. "
+                            f"{fix}.") from None
+        if not any(real.is_relative_to(f) for f in folders):
+            raise DataError(f"the {role} sweep {sid} names in store {store.path}, {shown}, "
+                            f"lies outside the folders foldwise reads a stored path from (the "
+                            f"current folder, the store's folder, the folder of --data): a "
+                            f"store is others' text, so its paths are not followed elsewhere. "
+                            f"{fix}.")
+        if not stat.S_ISREG(info.st_mode) or not os.access(real, os.R_OK):
+            what = "cannot be read" if stat.S_ISREG(info.st_mode) else \
+                "is not a regular file (a folder, device, pipe or socket)"
+            raise DataError(f"the {role} of sweep {sid}, {shown}, {what}; foldwise reads "
+                            f"CSV or Parquet files only. {fix}.")
 
 
 def _fingerprint(spec, max_bytes: int | None) -> str:
@@ -155,9 +212,14 @@ def _check_data(spec, record: dict, *, accept: bool, max_bytes: int | None,
     if spec.test.file is not None:
         data_kind(spec.resolve(spec.test.file), "test file", hint)
     if not path.exists():
-        raise DataError(f"the data file of sweep {record['sweep_id']}, {path}, does not exist "
-                        "here. Give its current place with --data.")
+        raise DataError(f"data file {path} does not exist. Give the sweep's data file with "
+                        "--data.")
     sha = _fingerprint(spec, max_bytes)
+    if not _text(record["data_sha256"]) and not accept:
+        raise DataError(f"store holds no SHA-256 for the data of sweep {record['sweep_id']}, "
+                        f"so data file {path} cannot be shown to hold the rows the sweep "
+                        "scored. Pass --accept-data to build on it anyway (the card records "
+                        "that the sweep's hash is unknown).")
     if sha != record["data_sha256"] and not accept:
         raise DataError(f"data file {path} has SHA-256 {sha}, but sweep {record['sweep_id']} "
                         f"was run on data with SHA-256 {record['data_sha256']}: these are not "
@@ -254,6 +316,7 @@ def build_model(store: Store, *, sweep_id: str | None = None, model: str | None 
         raise ModelError(f"cell {row['cell_id']} is of family '{row['family']}', which this "
                          "foldwise cannot fit. Upgrade foldwise.")
     spec = _sweep_spec(record, data)
+    _check_stored_files(spec, record, store, data)
     limit = data_limit_bytes(spec, lifted=lift_limits)
     sha = _check_data(spec, record, accept=accept_data, max_bytes=limit,
                       named_by=None if data is not None else store.path)
@@ -281,7 +344,8 @@ def build_model(store: Store, *, sweep_id: str | None = None, model: str | None 
                          "equal within its solver tolerance); the card keeps both.")
     if sha != record["data_sha256"]:
         notes.append(f"note: built on data with SHA-256 {sha[:12]}…, not the sweep's "
-                     f"{str(record['data_sha256'])[:12]}… (--accept-data); the card says so.")
+                     + (f"{record['data_sha256'][:12]}…" if _text(record["data_sha256"])
+                        else "(unknown)") + " (--accept-data); the card says so.")
     created = datetime.now()
     model_id = _new_model_id()
     estimator = pipeline.named_steps["model"]
