@@ -67,6 +67,13 @@ def store(request, base, tmp_path):
     return copy
 
 
+def _prefix(sweep_id: str, other: str) -> str:
+    """The shortest prefix of `sweep_id` that `other` does not share (ids of sweeps started
+    in the same second can share their first random characters too)."""
+    n = next(i for i in range(1, len(sweep_id) + 1) if not other.startswith(sweep_id[:i]))
+    return sweep_id[:n]
+
+
 def invoke(*args):
     return CliRunner().invoke(main, [str(a) for a in args], catch_exceptions=False)
 
@@ -93,7 +100,7 @@ def test_run_records_labels_and_note_as_rows(store, base):
 def test_label_command_adds_changes_drops_and_renotes(store, base):
     _, _, first, second = base
     out = invoke("label", "purpose=rerun", "owner=ana", "--drop", "data", "--note",
-                 "grid too coarse", "--sweep", first[:17], "--store", store.path)
+                 "grid too coarse", "--sweep", _prefix(first, second), "--store", store.path)
     assert out.exit_code == 0, out.output
     assert "owner=ana, purpose=rerun" in out.output and "grid too coarse" in out.output
     rows = store.query("select key, value from sweep_labels where sweep_id = ? order by key",
@@ -229,7 +236,7 @@ def test_diff_shows_the_one_changed_line_same_data_and_paired_changes(store, bas
 def test_diff_of_one_sweep_and_of_two_named_sweeps(store, base):
     _, _, first, second = base
     one = diff_sweeps(store, second)
-    two = diff_sweeps(store, second[:18], first[:18])  # reversed: B is the older one
+    two = diff_sweeps(store, _prefix(second, first), _prefix(first, second))  # B is older
     assert one.a["sweep_id"] == first and two.a["sweep_id"] == second
     assert two.table.set_index("model")["mean_diff"]["ridge"] == pytest.approx(
         -one.table.set_index("model")["mean_diff"]["ridge"], abs=1e-12)
@@ -508,7 +515,8 @@ def test_export_and_merge_take_only_the_chosen_sweeps(store, base, tmp_path):
         pd.testing.assert_frame_equal(_rows(target, table), _rows(store, table, second),
                                       obj=table)
     picked = Store(tmp_path / "picked.duckdb")
-    out = invoke("merge", store.path, "--sweep", first[:17], "--store", picked.path)
+    out = invoke("merge", store.path, "--sweep", _prefix(first, second), "--store",
+                 picked.path)
     assert out.exit_code == 0 and "merged 1 sweep(s)" in out.output
     assert sweeps(picked).table["sweep_id"].tolist() == [first]
     with pytest.raises(StoreError, match="no sweep of .* matches label purpose=nothing"):

@@ -292,3 +292,19 @@ def test_a_sweep_id_prefix_is_matched_as_typed_not_as_a_pattern(tmp_path):
             store.resolve_sweep(typed)
     with pytest.raises(StoreError, match="matches 2 sweeps"):
         store.resolve_sweep("2026")
+
+
+def test_an_exact_sweep_id_wins_over_longer_ids_it_begins_and_an_empty_one_names_none(tmp_path):
+    from datetime import datetime
+
+    path = tmp_path / "s.duckdb"
+    for day, sid in ((1, "run%1"), (2, "run%1-b"), (3, "run_12")):
+        store = write_sweep(path, {"m": [[1.0, 2.0]]}, k=2, repeats=1, sweep_id=sid,
+                            started_at=datetime(2026, 1, day))
+    assert store.resolve_sweep("run%1") == "run%1"
+    assert store.resolve_sweep("run%1-") == "run%1-b"
+    assert store.resolve_sweep("run_") == "run_12"
+    with pytest.raises(StoreError, match="sweep id prefix 'run' matches 3 sweeps"):
+        store.resolve_sweep("run")
+    with pytest.raises(StoreError, match="no sweep '' in store"):
+        store.resolve_sweep("")

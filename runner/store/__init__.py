@@ -601,13 +601,16 @@ class Store:
         """The given sweep id (a unique prefix is enough), or the latest one."""
         if sweep_id is None:
             return self.latest_sweep_id()
-        df = self.query("select sweep_id from sweeps where starts_with(sweep_id, ?)", [sweep_id])
-        if len(df) == 1:
-            return str(df.iloc[0, 0])
-        if df.empty:
+        found = [] if not sweep_id else [str(x) for x in self.query(
+            "select sweep_id from sweeps where starts_with(sweep_id, ?)", [sweep_id])["sweep_id"]]
+        if sweep_id in found:  # an exact id wins over longer ids that begin with it
+            return sweep_id
+        if len(found) == 1:
+            return found[0]
+        if not found:
             raise StoreError(f"no sweep '{sweep_id}' in store {self.path}; "
                              "`foldwise sweeps` lists them.")
-        raise StoreError(f"sweep id prefix '{sweep_id}' matches {len(df)} sweeps; give more "
+        raise StoreError(f"sweep id prefix '{sweep_id}' matches {len(found)} sweeps; give more "
                          "characters.")
 
 
