@@ -635,3 +635,31 @@ def test_diff_names_each_picked_cell_by_every_param_on_which_the_two_differ(tmp_
     shown = diff_view(diff_sweeps(store, "20260101", "20260102")).table
     assert shown["A cell"].tolist() == ["ccp_alpha=0.1234567, min_samples_leaf=3"]
     assert shown["B cell"].tolist() == ["ccp_alpha=0.1234568, min_samples_leaf=5"]
+
+
+def test_a_sweep_stored_without_its_fold_count_is_refused_in_words_or_picks_nothing(tmp_path):
+    # NULL k (a store from another hand): diff, summary and history crashed on int() of NA;
+    # a read of that sweep now says why it cannot, history shows no complete cell for it,
+    # and sweeps a dash
+    from datetime import datetime
+
+    from .store_builder import write_sweep
+
+    path = tmp_path / "s.duckdb"
+    for day, sid in ((1, "20260101-000000-aaaa"), (2, "20260102-000000-bbbb")):
+        write_sweep(path, {"m": [[1.0, 2.0, 3.0, 4.0], [1.5, 2.0, 3.0, 4.0]]}, k=2, repeats=2,
+                    sweep_id=sid, started_at=datetime(2026, 1, day))
+    with duckdb.connect(str(path)) as con:
+        con.execute("update sweeps set k = NULL where sweep_id = '20260101-000000-aaaa'")
+    for args in (["diff"], ["summary", "--sweep", "20260101"], ["pick", "--sweep", "20260101"]):
+        out = invoke(*args, "--store", path)
+        assert out.exit_code == 2 and "Traceback" not in out.output
+        assert out.output.startswith(
+            f"Error: sweep 20260101-000000-aaaa in store {path} has no usable fold count or "
+            "metrics recorded (k=missing, repeats=2, metrics=rmse)")
+    out = invoke("history", "--model", "m", "--store", path)
+    assert out.exit_code == 0, out.output
+    row = next(x for x in out.output.splitlines() if "20260101-000000-aaaa" in x)
+    assert "(no complete cell)" in row
+    out = invoke("sweeps", "--store", path)
+    assert "— × 2" in next(x for x in out.output.splitlines() if "20260101-000000-aaaa" in x)

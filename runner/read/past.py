@@ -286,12 +286,14 @@ def _history_row(group: pd.DataFrame, rule: str, se: str, better: str) -> dict:
     """The picked cell of one model in one sweep, by the rules of `picks.py` (the same cell
     `picks` chooses in SQL): complete cells only, simplest first."""
     rule = rule if rule in RULES else "best"
-    n_folds = int(group["n_folds"].iloc[0])
-    ok = group[~group["failed"] & (group["n"] == n_folds)
-               & group["mean"].map(lambda v: v is not None and math.isfinite(v))]
     row = {"model": group["model"].iloc[0], "family": group["family"].iloc[0], "rule": rule,
            "cell_id": None, "params": None, "complexity_rank": None, "n": None,
            "mean": math.nan, "se": math.nan, "test": math.nan}
+    if pd.isna(group["n_folds"].iloc[0]):  # a store without k or repeats: no cell is complete
+        return row
+    n_folds = int(group["n_folds"].iloc[0])
+    ok = group[~group["failed"] & (group["n"] == n_folds)
+               & group["mean"].map(lambda v: v is not None and math.isfinite(v))]
     if ok.empty:
         return row
     ok = ok.sort_values(["complexity_rank", "position"], kind="stable").reset_index(drop=True)

@@ -61,7 +61,7 @@ def sweeps_view(result: SweepList, title: str | None = None) -> View:
     shown = TextTable(SWEEP_COLUMNS, tuple((
         r["sweep_id"], plain_text(r["name"]), r["status"], _when(r["started_at"]),
         number(r["seconds"]), f"{_or_dash(r['n_train'])} / {_or_dash(r['n_test'])}",
-        f"{r['k']} × {r['repeats']}", number(r["cells"]), number(r["fold_rows"]),
+        f"{_or_dash(r['k'])} × {_or_dash(r['repeats'])}", number(r["cells"]), number(r["fold_rows"]),
         r["data"] or "", labels_text(r["labels"]), plain_text(r["note"], 60))
         for r in rows))
     sentences = (f"seconds: {TIME_MEANING}.",)

@@ -18,7 +18,7 @@ from dataclasses import replace
 from typing import TYPE_CHECKING
 
 from .compare import holm, t_from_moments
-from ..errors import QueryError
+from ..errors import QueryError, StoreError
 from ..families import get_family, nearest
 from .picks import RULES, TOLERANCE, check_rule, check_se, grid_edges
 from .results import (CellStats, Comparison, ComplexityTable, Findings, Picks, Summary,
@@ -136,6 +136,7 @@ def sweep_facts(store: Store, sweep_id: str | None = None) -> SweepFacts:
                                 classes::varchar as classes,
                                 coalesce(scheme, 'rows') as scheme
                          from sweeps where sweep_id = ?""", [sweep_id]).iloc[0]
+    _check_recorded(store, sweep_id, row)
     metrics = tuple(str(row["metrics"]).split(","))
     better = store.query("select metric, better from metrics where list_contains(?, metric)",
                          [list(metrics)])
@@ -145,6 +146,28 @@ def sweep_facts(store: Store, sweep_id: str | None = None) -> SweepFacts:
                       rule=str(row["pick_rule"] or "best"),
                       task=str(row["task"]) if isinstance(row["task"], str) else "regression",
                       classes=_classes(row["classes"]), scheme=str(row["scheme"]))
+
+
+def _count(value) -> int | None:
+    """A stored whole number of at least 1, or None (NULL, NaN, text, zero, a fraction)."""
+    try:
+        n = int(value)
+    except (TypeError, ValueError):
+        return None
+    return n if n >= 1 and n == value else None
+
+
+def _check_recorded(store: Store, sweep_id: str, row) -> None:
+    """Refuse a sweep row that lacks what every read needs (folds and metrics): a store
+    from another hand may hold NULL or nonsense there."""
+    metrics = row["metrics"] if isinstance(row["metrics"], str) and row["metrics"] else None
+    if _count(row["k"]) is None or _count(row["repeats"]) is None or metrics is None:
+        shown = ", ".join(f"{name}={'missing' if value is None else value}" for name, value in (
+            ("k", _count(row["k"])), ("repeats", _count(row["repeats"])), ("metrics", metrics)))
+        raise StoreError(f"sweep {sweep_id} in store {store.path} has no usable fold count or "
+                         f"metrics recorded ({shown}), so its scores cannot be read; the "
+                         "store was damaged or written by another program: remove the sweep "
+                         "(`foldwise remove`) or rerun its spec.")
 
 
 def json_object(text) -> dict:
