@@ -13,6 +13,7 @@ import pytest
 
 from runner.read.explained import tree_node_table
 from runner.read.plots import (NEUTRALS, PALETTE, complexity_figure, importance_figure,
+                               models_figure,
                                panel_grid, predictions_figure, tree_figure)
 from runner.read.queries import complexity_table, picks
 from runner.read.report import render_report
@@ -121,3 +122,119 @@ def test_the_old_grey_scale_is_gone_from_report_and_code(explained):
              if g in p.read_text(encoding="utf-8").lower()}
     assert not found
     assert "leader" not in page
+
+
+def _extents(fig, texts):
+    fig.canvas.draw()
+    renderer = fig.canvas.get_renderer()
+    return [t.get_window_extent(renderer) for t in texts]
+
+
+@pytest.mark.parametrize("model", ["ridge", "tree", "forest"])
+def test_complexity_names_run_into_no_other_text_nor_an_se_bar(explained, model):
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+
+    _, store, sid = explained
+    fig = complexity_figure(store, model, sid)
+    FigureCanvasAgg(fig)
+    (ax,) = fig.axes
+    (label,) = [t for t in ax.texts if t.get_text().startswith("one-SE threshold")]
+    names = [t for t in ax.texts if t is not label]
+    boxes = _extents(fig, names + [label])
+    assert names and all(box.width > 0 for box in boxes)
+    for i, a in enumerate(boxes):
+        for b in boxes[i + 1:]:
+            assert not a.overlaps(b), [t.get_text() for t in names + [label]]
+    # an unordered grid draws each cell's SE as a vertical bar: no name may sit across it
+    bars = [seg for c in ax.collections if c.get_gid() is None and hasattr(c, "get_segments")
+            for seg in c.get_segments()]
+    for seg in bars:
+        x_pixel = ax.transData.transform(seg[0])[0]
+        for box in boxes[:-1]:
+            assert not box.x0 <= x_pixel <= box.x1
+
+
+def test_legends_explain_marks_in_ink_never_in_a_models_colour(explained):
+    import matplotlib.colors as mc
+    from matplotlib.collections import Collection
+    from matplotlib.lines import Line2D
+
+    _, store, sid = explained
+    palette = {mc.to_hex(c) for c in PALETTE}
+    fig = models_figure(store, sid)
+    (legend,) = fig.legends
+    colours = set()
+    for mark in legend.findobj(lambda a: isinstance(a, (Line2D, Collection))):
+        if isinstance(mark, Collection):
+            colours |= {mc.to_hex(c) for c in mark.get_facecolor()}
+        else:
+            colours |= {mc.to_hex(mark.get_color()), mc.to_hex(mark.get_markeredgecolor())}
+    assert colours and not colours & palette, colours
+
+
+@pytest.mark.parametrize("method", ["impurity", "coefficient"])
+def test_importance_whiskers_of_a_share_or_an_sd_stop_at_zero(explained, method):
+    _, store, sid = explained
+    fig = importance_figure(store, sid, method=method)
+    lows = [seg[:, 0].min() for ax in fig.axes for c in ax.collections
+            for seg in c.get_segments()]
+    assert lows and min(lows) >= 0
+    assert all(ax.get_xlim()[0] > -0.05 * ax.get_xlim()[1] for ax in fig.axes)
+
+
+def test_a_panel_above_an_empty_slot_numbers_its_x_axis():
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.figure import Figure
+
+    from runner.read.plots import label_open_bottoms
+
+    fig = Figure(figsize=(9, 6))
+    FigureCanvasAgg(fig)
+    axes = fig.subplots(2, 3, sharex=True, sharey=True, squeeze=False).ravel()
+    for ax in axes[:5]:
+        ax.plot([0, 10], [0, 10])
+    axes[5].set_visible(False)
+    label_open_bottoms(axes, 5, 3)
+    fig.canvas.draw()
+    numbered = [any(t.get_visible() and t.get_text() for t in ax.get_xticklabels())
+                for ax in axes[:5]]
+    assert numbered == [False, False, True, True, True]
+
+
+def test_prediction_panels_give_the_test_rmse_to_four_digits(explained):
+    _, store, sid = explained
+    fig = predictions_figure(store, sid)
+    titles = [ax.get_title(loc="left") for ax in fig.axes if ax.get_visible()]
+    shown = [re.fullmatch(r"\w+: test RMSE (\S+)", t).group(1) for t in titles]
+    assert shown and all(len(s.replace(".", "").lstrip("0")) == 4 for s in shown), shown
+
+
+def test_history_legend_fits_the_figure_and_counts_sweeps_in_words(explained):
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+
+    from runner.read.plots import history_figure
+
+    _, store, sid = explained
+    fig = history_figure(store, sid)
+    FigureCanvasAgg(fig)
+    (legend,) = fig.legends
+    fig.canvas.draw()
+    box, page = legend.get_window_extent(), fig.bbox
+    assert page.x0 <= box.x0 and box.x1 <= page.x1 and page.y0 <= box.y0
+    labels = [t.get_text() for t in legend.get_texts()]
+    assert labels[:3] == ["ridge", "tree", "forest"] and "test split" in labels
+    assert " 1 sweeps" not in fig._suptitle.get_text()
+
+
+@pytest.mark.parametrize("marked_x, side", [([1.0, 2.0], 1.0), ([8.0, 9.5], 0.0),
+                                            ([3.0, 9.0], 0.0), ([0.5, 6.0], 1.0)])
+def test_the_threshold_label_goes_to_the_end_farther_from_the_picks(marked_x, side):
+    from matplotlib.figure import Figure
+
+    from runner.read.plots import _clear_side
+
+    ax = Figure().add_subplot()
+    ax.set_xlim(0, 10)
+    assert _clear_side(ax, marked_x, [0, 1], 0.0) == side
+    ax.invert_xaxis()  # a reversed axis (larger alpha simpler, drawn left) swaps the ends
+    assert _clear_side(ax, marked_x, [0, 1], 0.0) == 1.0 - side

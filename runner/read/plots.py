@@ -130,9 +130,10 @@ def _plain_log_ticks(axis, lo: float, hi: float) -> None:
         axis.set_minor_formatter(NullFormatter())
 
 
-def _mark_picks(ax, x, table, better: str) -> None:
+def _mark_picks(ax, x, table, better: str, *, beside: bool = False) -> list[int]:
     """The best cell (an ink star) and the one-SE cell (an ink ring), each named beside it
-    (lines gid 'pick_best' and 'pick_one_se')."""
+    (lines gid 'pick_best' and 'pick_one_se'); the rows of the marked cells. `beside`
+    writes the names right of the mark, clear of a vertical SE bar through it."""
     marks = {"best": ("*", 13, INK, "best"), "one_se": ("o", 11, "none", "one-SE pick")}
     placed = {}
     for rule, (marker, size, face, text) in marks.items():
@@ -148,11 +149,26 @@ def _mark_picks(ax, x, table, better: str) -> None:
     for i, texts in placed.items():
         y = float(table["mean"].iloc[i])
         down = (better == "lower") == (len(placed) == 1 or texts[0] == "best")
+        offset = (12, 0) if beside else (0, -26 if down else 20)
         ax.annotate(" and ".join(texts) + f"\n{number(y)}", (x[i], y),
-                    xytext=(0, -26 if down else 20), textcoords="offset points",
-                    ha="center", va="center", fontsize=8, color=INK, zorder=6,
-                    arrowprops={"arrowstyle": "-", "color": MUTED, "linewidth": 0.7,
-                                "shrinkA": 0, "shrinkB": 7})
+                    xytext=offset, textcoords="offset points",
+                    ha="left" if beside else "center", va="center", fontsize=8, color=INK,
+                    zorder=6, gid="pick_name",
+                    arrowprops=None if beside else {
+                        "arrowstyle": "-", "color": MUTED, "linewidth": 0.7,
+                        "shrinkA": 0, "shrinkB": 7})
+    return list(placed)
+
+
+def _clear_side(ax, x, rows: list[int], y: float) -> float:
+    """0 (left) or 1 (right): the end of the x axis farther from the marked cells, where the
+    threshold's label cannot run into their names."""
+    ax.get_xlim()  # settle autoscaling before reading positions
+    to_axes = ax.transAxes.inverted()
+    fractions = [to_axes.transform(ax.transData.transform((x[i], y)))[0] for i in rows]
+    if not fractions:
+        return 0.0
+    return 0.0 if min(fractions) >= 1 - max(fractions) else 1.0
 
 
 def complexity_figure(store: Store, model: str, sweep_id: str | None = None, *,
@@ -182,12 +198,6 @@ def complexity_figure(store: Store, model: str, sweep_id: str | None = None, *,
                        label="within one SE of the best")
             line = ax.axhline(threshold, color=colour, linewidth=1.0, zorder=2)
             line.set_gid("one_se_threshold")
-            op = "+" if better == "lower" else "−"
-            ax.annotate(f"one-SE threshold: best {op} 1 SE = {number(threshold)}",
-                        (0.0, threshold), xycoords=("axes fraction", "data"),
-                        xytext=(4, 3 if better == "lower" else -3), textcoords="offset points",
-                        ha="left", va="bottom" if better == "lower" else "top", fontsize=7.5,
-                        color=MUTED)
             inside = table["within_one_se"].to_numpy(bool)
         if ticks is None:
             ax.fill_between(x[order], (mean - err)[order], (mean + err)[order], color=colour,
@@ -205,7 +215,7 @@ def complexity_figure(store: Store, model: str, sweep_id: str | None = None, *,
             ax.plot(x, table["test"].to_numpy(float), linestyle="none", marker="x",
                     markersize=4, markeredgewidth=1.0, color=MUTED, zorder=3,
                     label="test split (not used to pick)")
-        _mark_picks(ax, x, table, better)
+        marked = _mark_picks(ax, x, table, better, beside=ticks is not None)
         if log:
             ax.set_xscale("log")
             _plain_log_ticks(ax.xaxis, float(x.min()), float(x.max()))
@@ -214,6 +224,15 @@ def complexity_figure(store: Store, model: str, sweep_id: str | None = None, *,
         if ticks is not None:
             ax.set_xticks(x, ticks, fontsize=8)
             ax.set_xlim(x.min() - 0.5, x.max() + 0.5)
+        if threshold is not None and len(best):
+            side = _clear_side(ax, x, marked, threshold)
+            op = "+" if better == "lower" else "−"
+            ax.annotate(f"one-SE threshold: best {op} 1 SE = {number(threshold)}",
+                        (side, threshold), xycoords=("axes fraction", "data"),
+                        xytext=(4 - 8 * side, 3 if better == "lower" else -3),
+                        textcoords="offset points", ha="right" if side else "left",
+                        va="bottom" if better == "lower" else "top", fontsize=7.5,
+                        color=MUTED, gid="one_se_threshold_label")
         ax.margins(y=0.2)  # room for the picks' names
         ax.set_xlabel(f"{xlabel}\n← simpler        more complex →", color=INK)
         ax.set_ylabel(get_metric(metric).axis_label(facts.target))
@@ -268,11 +287,28 @@ def models_figure(store: Store, sweep_id: str | None = None, *, rule: str | None
         ax.set_xlim(-0.6, len(models) - 0.4)
         ax.set_ylabel(get_metric(metric).axis_label(facts.target, prefix=""))
         better = facts.better_of()
+        _in_ink(fig.legend(loc="outside lower center", ncols=3))
         _headline(fig, "Which model predicts best?",
                   f"{metric_label(metric)} of each model's {rule_label(result.rules[0])} cell on the "
                   f"same {n} folds ({better} is better); grey lines join one fold's scores")
-        fig.legend(loc="outside lower center", ncols=3)
     return fig
+
+
+def _in_ink(legend) -> None:
+    """Draw a legend's marks in muted ink (a diamond's edge in ink): the legend explains the
+    kinds of mark, so none of them may wear one model's colour."""
+    from matplotlib.collections import Collection
+    from matplotlib.lines import Line2D
+
+    for mark in legend.findobj(lambda a: isinstance(a, (Line2D, Collection))):
+        if isinstance(mark, Collection):
+            mark.set_facecolor(MUTED)
+            mark.set_edgecolor(MUTED)
+        else:
+            mark.set_color(MUTED)
+            mark.set_markeredgecolor(INK if mark.get_marker() == "D" else MUTED)
+            if mark.get_marker() == "D":
+                mark.set_markerfacecolor("white")
 
 
 # -- (c) importance ------------------------------------------------------------------------
@@ -308,8 +344,8 @@ def importance_figure(store: Store, sweep_id: str | None = None, *,
         for ax, model in zip(axes, models):
             g = imp[imp["model"] == model].set_index("feature").reindex(order)
             y = np.arange(len(order))
-            spread = g["spread"].fillna(0).to_numpy()
-            ax.barh(y, g["value"].to_numpy(), xerr=spread, color=colours.get(model, PALETTE[0]),
+            value, spread = g["value"].to_numpy(), g["spread"].fillna(0).to_numpy()
+            ax.barh(y, value, xerr=_whiskers(value, spread, method), color=colours.get(model, PALETTE[0]),
                     height=0.7, error_kw={"ecolor": INK, "elinewidth": 0.8, "capsize": 1.5})
             ax.axvline(0, color=MUTED, linewidth=0.8)
             ax.set_yticks(y, order)
@@ -324,12 +360,27 @@ def importance_figure(store: Store, sweep_id: str | None = None, *,
     return fig
 
 
+def _whiskers(value, spread, method: str):
+    """± spread, except that a share of impurity reduction or an SD cannot fall below 0: the
+    whisker toward zero stops there (shuffling can lower a score, so permutation keeps ±)."""
+    if method == "permutation":
+        return spread
+    return np.vstack([np.minimum(spread, np.clip(np.nan_to_num(value), 0, None)), spread])
+
+
 # -- (d) predicted against observed --------------------------------------------------------
 def panel_grid(n: int) -> tuple[int, int]:
     """(rows, columns) of n square panels: one row up to three, then as square as it gets
     (4: 2 x 2, 5 or 6: 2 x 3, 7 to 9: 3 x 3)."""
     cols = n if n <= 3 else math.ceil(math.sqrt(n))
     return math.ceil(n / cols), cols
+
+
+def label_open_bottoms(axes, shown: int, cols: int) -> None:
+    """Numbers under every panel with no panel below it: shared x axes number only the last
+    row, so a panel above an empty slot of that row would have an unnumbered axis."""
+    for i in range(max(0, shown - cols), shown):
+        axes[i].xaxis.set_tick_params(labelbottom=True)
 
 
 def predictions_figure(store: Store, sweep_id: str | None = None, *, rule: str | None = None):
@@ -364,9 +415,10 @@ def predictions_figure(store: Store, sweep_id: str | None = None, *, rule: str |
             ax.set_ylim(lo - pad, hi + pad)
             ax.set_aspect("equal")
             ax.grid(axis="x", color=GRID)
-            ax.set_title(f"{model}: test RMSE {rmse:.3g}", loc="left", fontsize=9)
+            ax.set_title(f"{model}: test RMSE {number(rmse)}", loc="left", fontsize=9)
         for ax in axes[len(models):]:
             ax.set_visible(False)
+        label_open_bottoms(axes, len(models), cols)
         fig.supxlabel(f"observed {target}", fontsize=9)
         fig.supylabel(f"predicted {target}", fontsize=9)
         _headline(fig, "How close are the test-split predictions?",
@@ -602,22 +654,24 @@ def history_figure(store: Store, sweep_id: str | None = None, *, model: str | No
                                                                 / 2) * 0.08
             col = colours[m]
             ax.errorbar(x, rows["mean"], yerr=rows["se"], color=col, marker="o", markersize=4.5,
-                        linewidth=1.4, capsize=2.5, zorder=3, label=f"{m}: CV mean ± 1 SE")
+                        linewidth=1.4, capsize=2.5, zorder=3)
             if rows["test"].notna().any():
                 ax.plot(x, rows["test"], linestyle="none", marker="D", markersize=5,
                         markerfacecolor="white", markeredgecolor=col, markeredgewidth=1.2,
-                        zorder=4, label=f"{m}: test split")
+                        zorder=4)
             if len(result.models) == 1:
                 shown = None
                 for xi, r in zip(x, rows.itertuples(index=False)):
                     if r.pick_changed or shown is None:
-                        ax.annotate(pick_label(r.params, shown), (xi, r.mean),
-                                    xytext=(0, 9), textcoords="offset points", ha="center",
+                        top = np.nanmax([r.mean + (r.se if r.se == r.se else 0), r.test])
+                        ax.annotate(pick_label(r.params, shown), (xi, top),
+                                    xytext=(0, 6), textcoords="offset points", ha="center",
                                     va="bottom", fontsize=7, color=INK, zorder=5,
+                                    gid="pick_name",
                                     bbox={"boxstyle": "square,pad=0.15", "facecolor": "white",
                                           "edgecolor": "none", "alpha": 0.85})
                         shown = r.params
-        ticks = [f"{pd.Timestamp(t):%Y-%m-%d}\n{pd.Timestamp(t):%H:%M} ·{safe_component(s)[-4:]}"
+        ticks = [f"{pd.Timestamp(t):%Y-%m-%d}\n{pd.Timestamp(t):%H:%M} · {safe_component(s)[-4:]}"
                  for t, s in zip(firsts["started_at"], firsts["sweep_id"])]
         step = max(1, math.ceil(len(sweeps) / 16))
         ax.set_xticks(range(0, len(sweeps), step), ticks[::step], fontsize=7.5)
@@ -628,10 +682,29 @@ def history_figure(store: Store, sweep_id: str | None = None, *, model: str | No
         rule_text = "each sweep's rule" if result.rule is None else \
             f"the {rule_label(result.rule)} rule"
         _headline(fig, f"How has {who}'s pick moved across the sweeps of '{result.name}'?",
-                  f"cell picked under {rule_text} in each of {len(sweeps)} sweeps; "
+                  f"cell picked under {rule_text} in "
+                  f"{'the one sweep' if len(sweeps) == 1 else f'each of {len(sweeps)} sweeps'}; "
                   f"{metric_label(result.metric)} ({result.better} is better), {result.se} SE")
-        fig.legend(loc="outside lower center", ncols=min(4, 2 * len(result.models)))
+        handles = _history_legend(colours, result.models, table["test"].notna().any())
+        fig.legend(handles=handles, loc="outside lower center",
+                   ncols=max(1, min(len(handles), int(fig.get_figwidth() / 1.3))))
     return fig
+
+
+def _history_legend(colours: dict, models: list[str], tests: bool) -> list:
+    """One entry per model in its colour, then the two kinds of mark in ink: short enough
+    to fit under the narrowest history figure."""
+    from matplotlib.lines import Line2D
+
+    handles = [Line2D([], [], color=colours[m], marker="o", markersize=4.5, linewidth=1.4,
+                      label=m) for m in models]
+    handles.append(Line2D([], [], color=MUTED, marker="o", markersize=4.5, linestyle="none",
+                          label="CV mean, bar ± 1 SE"))
+    if tests:
+        handles.append(Line2D([], [], linestyle="none", marker="D", markersize=5,
+                              markerfacecolor="white", markeredgecolor=INK,
+                              markeredgewidth=1.2, label="test split"))
+    return handles
 
 
 # -- files ---------------------------------------------------------------------------------
