@@ -123,12 +123,15 @@ def test_compare_pairs_identical_folds(three_models):
     ratio = float(np.mean([4 / 8, 4 / 8, 3 / 9, 4 / 8, 4 / 8, 3 / 9]))
     for row, (x, y) in zip(df.itertuples(), [(A, B), (A, C), (B, C)]):
         d = np.subtract(x, y)
-        ref = t_from_moments(float(d.mean()), float(d.var(ddof=1)), 6, ratio)
+        # Nadeau & Bengio (2003): SE = sqrt((1/(k·r) + n_valid/n_train)·var(d, ddof=1)),
+        # written out here rather than taken from foldwise's own t_from_moments
+        se = math.sqrt((1 / 6 + ratio) * d.var(ddof=1))
         assert row.folds == 6 and row.df == 5
         assert row.mean_diff == pytest.approx(d.mean(), rel=1e-12)
-        assert row.se == pytest.approx(ref.se, rel=1e-12)
-        assert row.t == pytest.approx(ref.t, rel=1e-12)
-        assert row.p_value == pytest.approx(2 * stats.t.sf(abs(ref.t), 5), rel=1e-9)
+        assert row.se == pytest.approx(se, rel=1e-12)
+        assert row.t == pytest.approx(d.mean() / se, rel=1e-12)
+        # p: two-sided, Student's t on k·r − 1 = 5 df (scipy.stats.t)
+        assert row.p_value == pytest.approx(2 * stats.t.sf(abs(d.mean() / se), 5), rel=1e-9)
         assert (row.wins_a, row.wins_b, row.ties) == (int((d < 0).sum()), int((d > 0).sum()),
                                                       int((d == 0).sum()))
     first = df.iloc[0]
