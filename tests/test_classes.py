@@ -7,6 +7,7 @@ grids equal one fit per cell bit for bit; the picks, compare, figures and report
 from __future__ import annotations
 
 import json
+import re
 
 import numpy as np
 import pandas as pd
@@ -264,6 +265,15 @@ def test_figures_and_report_of_a_class_sweep(tmp_path):
         made = runner_.invoke(main, ["plot", kind, "--store", store, "--out-dir",
                                      str(tmp_path / "p"), "--image", "png"])
         assert made.exit_code == 0, (kind, made.output)
+    # every panel's number to the same three decimals, so panels compare at a glance
+    from runner.read.figures import make_figure
+
+    fig = make_figure("calibration", Store(store))
+    gaps = [ax.get_title(loc="left") for ax in fig.axes if ax.get_visible()]
+    assert len(gaps) == 2 and all(re.fullmatch(r"\w+: mean gap \d\.\d{3}", g) for g in gaps), gaps
+    areas = [t.get_text() for ax in make_figure("roc", Store(store)).axes if ax.get_legend()
+             for t in ax.get_legend().get_texts()]
+    assert len(areas) == 6 and all(re.fullmatch(r"\w+ \(area \d\.\d{3}\)", a) for a in areas), areas
     refused = runner_.invoke(main, ["plot", "predictions", "--store", store])
     assert refused.exit_code == 2 and "foldwise plot calibration" in refused.output
     report = runner_.invoke(main, ["report", "--store", store, "--out", str(tmp_path / "r.html")])

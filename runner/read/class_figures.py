@@ -13,10 +13,10 @@ import pandas as pd
 
 from ..errors import QueryError
 from .plots import (INK, MUTED, PALETTE, _figure, _headline, _nothing_stored, _picked,
-                    _style, model_colours)
+                    _style, label_open_bottoms, model_colours)
 from .explained import prediction_table
 from ..store import Store
-from .views import number, rule_label
+from .views import fixed, rule_label
 
 __all__ = ["calibration_bins", "roc_points", "calibration_figure", "roc_figure"]
 
@@ -98,12 +98,13 @@ def calibration_figure(store: Store, sweep_id: str | None = None, *, rule: str |
                        linewidth=0.6, zorder=3)
             gap = float(np.sum(bins["rows"] * (bins["accuracy"] - bins["confidence"]).abs())
                         / bins["rows"].sum())
-            ax.set_title(f"{model}: mean gap {number(gap, 2)}", loc="left", fontsize=9)
+            ax.set_title(f"{model}: mean gap {fixed(gap, 3)}", loc="left", fontsize=9)
             ax.set_xlim(0, 1.02)
             ax.set_ylim(0, 1.02)
             ax.set_aspect("equal")
         for ax in axes[len(models):]:
             ax.set_visible(False)
+        label_open_bottoms(axes, len(models), cols)
         fig.supxlabel("probability given to the predicted class (binned)", fontsize=9)
         fig.supylabel("share of those rows predicted right", fontsize=9)
         _headline(fig, "When a model is p sure, is it right that often?",
@@ -133,15 +134,16 @@ def roc_figure(store: Store, sweep_id: str | None = None, *, rule: str | None = 
                 scores = np.vstack(g["probabilities"].to_numpy())[:, k]
                 fpr, tpr, area = roc_points(scores, g["observed_class"] == str(label))
                 ax.plot(fpr, tpr, color=colours.get(model, PALETTE[0]),
-                        linewidth=1.3, label=f"{model} (area {number(area, 3)})")
+                        linewidth=1.3, label=f"{model} (area {fixed(area, 3)})")
             ax.set_title(f"class {label} against the rest" if len(classes) > 2
                          else f"class {label}", loc="left", fontsize=9)
             ax.set_aspect("equal")
             ax.legend(loc="lower right", fontsize=7, labelcolor=INK)
         for ax in axes[len(shown):]:
             ax.set_visible(False)
+        label_open_bottoms(axes, len(shown), cols)
         fig.supxlabel("share of other rows ranked above the threshold", fontsize=9)
-        fig.supylabel("share of the class's rows ranked above it", fontsize=9)
+        fig.supylabel("share of the class's rows ranked above the threshold", fontsize=9)
         _headline(fig, "How well does each model rank a class's rows above the others?",
                   f"{rule_label(result.rules[0])} cell of each model refit on all training "
                   f"rows, test split of {facts.target}; dashed: no better than chance")
