@@ -23,9 +23,9 @@ D = [0.8, 1.1, -0.2, 0.5, 0.9, 1.3, 0.1, 0.7, -0.4, 0.6]
 
 
 def test_corrected_t_test_reference():
-    # Nadeau & Bengio (2003), Machine Learning 52:239–281; Bouckaert & Frank (2004):
-    # variance (1/(k·r) + n_valid/n_train)·var(d, ddof=1), t on k·r − 1 df. k=5, r=2,
-    # n_train=80, n_valid=20: t = 0.54 / sqrt(0.35 · 0.304888…) = 81/49.
+    # Nadeau & Bengio (2003), Machine Learning 52:239–281 (citation from memory);
+    # Bouckaert & Frank (2004): variance (1/(k·r) + n_valid/n_train)·var(d, ddof=1), t on
+    # k·r − 1 df. k=5, r=2, n_train=80, n_valid=20: t = 0.54 / sqrt(0.35 · 0.304888…) = 81/49.
     test = corrected_t_test(D, n_train=80, n_valid=20)
     assert test.mean == pytest.approx(0.54, rel=1e-12)
     assert test.t == pytest.approx(81 / 49, rel=1e-12)

@@ -43,9 +43,10 @@ def summary(store, **kw):
 
 
 def test_one_se_rule_hand_worked_table():
-    # Hastie, Tibshirani & Friedman, The Elements of Statistical Learning, 2nd ed., §7.10:
-    # "choose the most parsimonious model whose error is no more than one standard error
-    # above the error of the best model". Means in complexity order, SE of the best cell.
+    # Hastie, Tibshirani & Friedman, The Elements of Statistical Learning, 2nd ed., §7.10,
+    # quoted from memory: "choose the most parsimonious model whose error is no more than one
+    # standard error above the error of the best model". Means in complexity order, SE of the
+    # best cell.
     means = [27.0, 26.0, 25.2, 25.9]
     assert best_index(means, "lower") == 2
     assert one_se_threshold(25.2, 1.157584, "lower") == pytest.approx(26.357584, abs=1e-12)
