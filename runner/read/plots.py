@@ -1,10 +1,10 @@
 """Figures of a stored sweep, as matplotlib Figures built from store queries only.
 
-Five kinds, each answering one question: `complexity` (where does one model's CV error stop
+Six kinds, each answering one question: `complexity` (where does one model's CV error stop
 improving, and which cells do the picks take?), `models` (how do the models' picked cells
 compare fold by fold?), `importance` (which columns does each model rely on?),
-`predictions` (how close are the test predictions?) and `tree` (how does the picked
-pruned tree split the rows?). Figures are made without pyplot, so no GUI backend is touched;
+`predictions` (how close are the test predictions?), `tree` (how does the picked
+pruned tree split the rows?) and `history` (how has each pick moved across sweeps?). Figures are made without pyplot, so no GUI backend is touched;
 files are written with Agg (PNG) and the SVG backend. Colours follow the Okabe–Ito
 palette, which stays distinct under the common colour-vision deficiencies."""
 
