@@ -207,7 +207,10 @@ def summary(store_path, sweep_id, fmt):
 @click.option("--allow-files", is_flag=True,
               help="Let the query read files (read_csv, read_parquet), never write one; "
                    "runs it in a process Linux Landlock confines to reading.")
-def sql(query, store_path, fmt, allow_files):
+@click.option("--answer-mb", type=click.FloatRange(0, min_open=True), default=None,
+              help="The largest answer held to print, in MiB of column data; a larger one is "
+                   "refused once that much is read [default: 256].")
+def sql(query, store_path, fmt, allow_files, answer_mb):
     """Run one read-only SQL query against the store; it cannot change anything.
 
     One SELECT (or WITH, DESCRIBE, SUMMARIZE, plain EXPLAIN). Tables: sweeps, sweep_labels,
@@ -219,7 +222,9 @@ def sql(query, store_path, fmt, allow_files):
       foldwise sql "select model, metric, avg(value) from fold_scores join cells using (sweep_id, cell_id) group by all"
       foldwise sql "select * from cell_summary join read_csv('notes.csv') using (model)" --allow-files
     """
-    emit(_open_store(store_path).user_query(query, allow_files=allow_files), fmt)
+    limit = None if answer_mb is None else max(1, int(answer_mb * 2**20))
+    emit(_open_store(store_path).user_query(query, allow_files=allow_files,
+                                            answer_bytes=limit), fmt)
 
 
 @main.command()

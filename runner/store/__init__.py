@@ -580,14 +580,16 @@ class Store:
                           "a sweep into it first (`foldwise run SPEC --store ...`), or point "
                           "--store at a foldwise store.")
 
-    def user_query(self, sql: str, *, allow_files: bool = False) -> pd.DataFrame:
+    def user_query(self, sql: str, *, allow_files: bool = False,
+                   answer_bytes: int | None = None) -> pd.DataFrame:
         """Answer one query of the user's, read-only by construction (runner/sandbox.py):
         anything that would change the store, or with `allow_files` any file, is refused or
-        cannot happen."""
-        from .sandbox import run_user_query
+        cannot happen; so is an answer past `answer_bytes` (default `sandbox.ANSWER_BYTES`)."""
+        from .sandbox import ANSWER_BYTES, run_user_query
 
         self._require()
-        return run_user_query(self, sql, allow_files=allow_files)
+        return run_user_query(self, sql, allow_files=allow_files,
+                              answer_bytes=ANSWER_BYTES if answer_bytes is None else answer_bytes)
 
     def latest_sweep_id(self) -> str:
         """The most recently started sweep."""

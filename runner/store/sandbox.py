@@ -43,6 +43,10 @@ LOCKED_SETTINGS = {
     "enable_external_access": False}
 """Settings of every instance a user's query meets; `locked` then freezes them."""
 
+ANSWER_BYTES = 256 * 2**20
+"""The most a query's answer may hold (as Arrow data) before it is refused: it is held in
+memory to be printed."""
+_BATCH_ROWS = 2048  # DuckDB's vector: the answer is checked after every one
 _BUSY = 75  # the child's exit code when a writer holds the store file
 _ANALYZE = {"analyze", "analyse"}
 _NAMED_IN_STRINGS = {"query", "query_table"}  # table functions that name tables in a string
@@ -54,19 +58,26 @@ _NO_LANDLOCK = (
     "system offers {abi}, so the query was not run. Run it without --allow-files (it can "
     "read every table of the store), or copy the file's rows into a DuckDB database of your "
     "own and query them there.")
+_TOO_LONG_TEXT = "maximum total string size"  # Arrow's, for one chunk (2,048 rows)
+_TOO_LARGE = (
+    "the query's answer holds more than {limit:g} MiB (already {rows:,} rows), more than "
+    "`foldwise sql` holds in memory to print. Narrow it with WHERE, LIMIT or an aggregate, "
+    "or write whole tables to files with `foldwise export`.")
 
 
-def run_user_query(store, sql: str, *, allow_files: bool = False):
+def run_user_query(store, sql: str, *, allow_files: bool = False,
+                   answer_bytes: int = ANSWER_BYTES):
     """Answer one query against `store` (a runner.store.Store) as a DataFrame, or raise a
-    QueryError (or StoreError) saying why not."""
+    QueryError (or StoreError) saying why not; an answer of more than `answer_bytes` (as
+    Arrow data) is refused once that much has been read."""
     inner = check_statement(sql)
     if allow_files:
-        return _in_child(store, sql, inner)
+        return _in_child(store, sql, inner, answer_bytes)
     if store.location.shared:
         with _snapshot(store, inner) as con:
-            return _answer(con, sql)
+            return _answer(con, sql, answer_bytes)
     with store._connect(read_only=True, config=LOCKED_SETTINGS) as con:
-        return _answer(con, sql)
+        return _answer(con, sql, answer_bytes)
 
 
 # -- the friendly first check --------------------------------------------------------------
@@ -173,12 +184,45 @@ def locked(con):
     return con
 
 
-def _answer(con, sql: str):
+def _answer(con, sql: str, limit: int):
     locked(con)
     try:
-        return con.execute(sql).df()
+        return _frame(_read(con.execute(sql), limit))
     except duckdb.Error as exc:
         raise _failure(exc, files=False) from None
+
+
+def _read(result, limit: int):
+    """A query's answer as an Arrow table, read a batch at a time and refused once it holds
+    more than `limit` bytes. The reader is closed even then: an open one keeps its query
+    alive, and the next connection to the same file from this process waits forever."""
+    import pyarrow as pa
+
+    with result.to_arrow_reader(_BATCH_ROWS) as reader:
+        return pa.Table.from_batches(list(_bounded(reader, limit)), schema=reader.schema)
+
+
+def _bounded(reader, limit: int, *, files: bool = False):
+    """The reader's batches, refused in one paragraph as soon as they hold more than `limit`
+    bytes together. A query that fails part-way reaches the reader as an OSError: it is
+    refused like one that fails at once, and one chunk of text past Arrow's 2 GiB like an
+    answer too large."""
+    held = rows = 0
+    batches = iter(reader)
+    while True:
+        try:
+            batch = next(batches)
+        except StopIteration:
+            return
+        except OSError as exc:
+            if _TOO_LONG_TEXT in str(exc):
+                raise QueryError(_TOO_LARGE.format(limit=limit / 2**20, rows=rows)) from None
+            raise _failure(exc, files=files) from None
+        held += batch.nbytes
+        rows += batch.num_rows
+        if held > limit:
+            raise QueryError(_TOO_LARGE.format(limit=limit / 2**20, rows=rows))
+        yield batch
 
 
 def _first_line(exc: Exception) -> str:
@@ -238,7 +282,7 @@ def _all_tables() -> set[str]:
     return {*TABLES, "foldwise_meta"}
 
 
-def _in_child(store, sql: str, inner: str):
+def _in_child(store, sql: str, inner: str, limit: int):
     """Run the query in a Landlock-confined child process and read back its result."""
     abi = landlock.abi_version()
     if abi < landlock.MIN_ABI:
@@ -252,12 +296,15 @@ def _in_child(store, sql: str, inner: str):
                 pass
         else:
             target = Path(store.location.path).resolve()
-        request = json.dumps({"store": str(target), "folder": str(folder), "query": sql})
+        request = json.dumps({"store": str(target), "folder": str(folder), "query": sql,
+                              "limit": limit})
         out = store.patiently(lambda: _spawn(request.encode(), folder), writing=False)
     finally:
         shutil.rmtree(folder, ignore_errors=True)
     if out.returncode == 0:
-        return _frame(out.stdout)
+        import pyarrow as pa
+
+        return _frame(pa.ipc.open_stream(out.stdout).read_all())
     message = out.stderr.decode(errors="replace").strip()
     if out.returncode == 2 and message and "Traceback" not in message:
         raise QueryError(message)
@@ -281,12 +328,9 @@ def _spawn(request: bytes, folder: Path):
     return out
 
 
-def _frame(data: bytes):
-    """The child's Arrow IPC result as a DataFrame, converted by DuckDB as a direct query's
-    result is, so output looks the same with or without --allow-files."""
-    import pyarrow as pa
-
-    table = pa.ipc.open_stream(data).read_all()
+def _frame(table):
+    """An answer as Arrow data turned into a DataFrame by DuckDB, as `.df()` would, so output
+    looks the same with or without --allow-files."""
     names = table.column_names  # may repeat (select 1 as a, 2 as a); Arrow scans need unique
     aliases = ", ".join(f'c{i} as "{name.replace(chr(34), chr(34) * 2)}"'
                         for i, name in enumerate(names))
@@ -340,10 +384,12 @@ def main() -> int:
     try:
         import pyarrow as pa
 
-        reader = con.execute(request["query"]).to_arrow_reader()
-        with pa.ipc.new_stream(sys.stdout.buffer, reader.schema) as stream:
-            for batch in reader:
+        with (con.execute(request["query"]).to_arrow_reader(_BATCH_ROWS) as reader,
+              pa.ipc.new_stream(sys.stdout.buffer, reader.schema) as stream):
+            for batch in _bounded(reader, int(request["limit"]), files=True):
                 stream.write_batch(batch)
+    except QueryError as exc:
+        return _refuse(str(exc))
     except duckdb.Error as exc:
         return _refuse(str(_failure(exc, files=True)))
     finally:

@@ -12,8 +12,10 @@ from __future__ import annotations
 import hashlib
 import json
 import os
+import re
 import subprocess
 import sys
+import threading
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -308,6 +310,69 @@ def test_allow_files_reads_a_file_through_the_command(request, tmp_path, where):
                           str(case.store.path)], capture_output=True, text=True,
                          env=case.extra["pg"].env() if where == "server" else None)
     assert out.returncode == 2 and "--allow-files" in out.stderr, out.stderr
+
+
+def _cli_within(seconds: float, *args):
+    """`_cli`, failing the test instead of hanging it when the command does not end."""
+    done = []
+
+    def run():
+        try:
+            done.append(_cli(*args))
+        except BaseException as exc:  # raised again here, in the test's own thread
+            done.append(exc)
+
+    worker = threading.Thread(target=run, daemon=True)
+    worker.start()
+    worker.join(seconds)
+    assert done, f"`foldwise {' '.join(map(str, args))}` still runs after {seconds:g} s"
+    if isinstance(done[0], BaseException):
+        raise done[0]
+    return done[0]
+
+
+@pytest.mark.parametrize("where", ["file", "server"])
+@pytest.mark.parametrize("flag", [[], ["--allow-files"]], ids=["plain", "allow-files"])
+def test_an_answer_too_large_to_hold_is_refused_in_one_paragraph(request, where, flag):
+    """An answer past --answer-mb (1 MiB here; 10^6 BIGINTs are 7.6 MiB) is refused once
+    that much is read, within one chunk of 2,048 rows; the next query from the same process
+    still answers (an unclosed reader made the next connection to the file wait forever)."""
+    case = request.getfixturevalue(f"{where}_case")
+    out = _cli_within(120, "sql", "select range from range(1000000)", "--store",
+                      case.store.path, *flag, "--answer-mb", 1)
+    assert out.exit_code == 2, out.output
+    assert out.output.startswith("Error: ") and out.output.count("\n") == 1, out.output
+    assert "the query's answer holds more than 1 MiB (already " in out.output
+    assert "Narrow it with WHERE, LIMIT or an aggregate" in out.output
+    rows = int(re.search(r"already ([\d,]+) rows", out.output)[1].replace(",", ""))
+    assert 2**20 // 9 < rows <= 2**20 // 8 + 2048, rows  # 8 bytes a row and a validity bit
+    out = _cli_within(120, "sql", "select count(*) as n from range(1000000)", "--store",
+                      case.store.path, *flag, "--format", "csv", "--answer-mb", 1)
+    assert out.exit_code == 0 and out.output == "n\n1000000\n", out.output
+    out = _cli_within(120, "sql", "select range from range(120000)", "--store",
+                      case.store.path, *flag, "--format", "csv", "--answer-mb", 1)
+    assert out.exit_code == 0 and out.output.count("\n") == 120001, out.output[-200:]
+    assert out.output.endswith("\n119999\n"), out.output[-200:]
+    assert case.state() == case.baseline
+
+
+@pytest.mark.parametrize("where", ["file", "server"])
+@pytest.mark.parametrize("flag", [[], ["--allow-files"]], ids=["plain", "allow-files"])
+def test_a_query_failing_part_way_is_refused_in_one_paragraph(request, where, flag):
+    """An error raised after the first chunks were read reaches foldwise through the Arrow
+    reader, not as a DuckDB error; it is refused all the same."""
+    case = request.getfixturevalue(f"{where}_case")
+    out = _cli_within(120, "sql", "select case when range = 100000 then error('stop here') "
+                      "else range end as v from range(200000)", "--store", case.store.path,
+                      *flag)
+    assert out.exit_code == 2, out.output
+    assert out.output == "Error: the query failed: Invalid Input Error: stop here\n", out.output
+    assert case.state() == case.baseline
+
+
+def test_the_answer_bound_named_in_help_is_the_one_applied():
+    out = _cli("sql", "--help")
+    assert f"[default: {sandbox.ANSWER_BYTES // 2**20}]" in " ".join(out.output.split())
 
 
 def test_allow_files_without_landlock_is_refused_in_one_paragraph(file_case, monkeypatch):
