@@ -179,7 +179,10 @@ def _names_in_tree(sql: str) -> set[str] | None:
 
 # -- running it ----------------------------------------------------------------------------
 def locked(con):
-    """Freeze a connection's settings: no statement can change them afterwards."""
+    """Freeze a connection's settings: no statement can change them afterwards. Its result
+    buffer is cut to about one chunk first: DuckDB sizes that buffer without the chunk's
+    strings, so by default a query of long strings ran gigabytes ahead of its reader."""
+    con.execute("set streaming_buffer_size = '1KB'")
     con.execute("set lock_configuration = true")
     return con
 

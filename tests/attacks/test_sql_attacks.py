@@ -370,6 +370,37 @@ def test_a_query_failing_part_way_is_refused_in_one_paragraph(request, where, fl
     assert case.state() == case.baseline
 
 
+_PEAK = """
+import json, resource, sys
+from runner.errors import QueryError
+from runner.store import Store
+store, query, files = Store(sys.argv[1]), sys.argv[2], sys.argv[3] == "files"
+who = resource.RUSAGE_CHILDREN if files else resource.RUSAGE_SELF
+store.user_query("select 1", allow_files=files)
+before = resource.getrusage(who).ru_maxrss
+try:
+    store.user_query(query, allow_files=files, answer_bytes=8 * 2**20)
+    message = None
+except QueryError as exc:
+    message = str(exc)
+print(json.dumps([message, (resource.getrusage(who).ru_maxrss - before) / 1024]))
+"""
+
+
+@pytest.mark.parametrize("flag", ["plain", "files"])
+def test_long_strings_are_not_computed_far_ahead_of_the_bound(file_case, flag):
+    """100,000 strings of 4 KiB (400 MiB) with an 8 MiB bound: the query's process grows by
+    little more than the bound. DuckDB sizes its result buffer without the strings, so by
+    default it ran about 30 chunks of 8 MiB ahead of the reader (~250 MiB measured)."""
+    out = subprocess.run([sys.executable, "-c", _PEAK, str(file_case.store.path),
+                          "select repeat('x', 4096) as s from range(100000)", flag],
+                         capture_output=True, text=True, cwd=Path(__file__).resolve().parents[2])
+    assert out.returncode == 0, out.stderr
+    message, grown_mib = json.loads(out.stdout)
+    assert message.startswith("the query's answer holds more than 8 MiB"), message
+    assert grown_mib < 100, grown_mib
+
+
 def test_the_answer_bound_named_in_help_is_the_one_applied():
     out = _cli("sql", "--help")
     assert f"[default: {sandbox.ANSWER_BYTES // 2**20}]" in " ".join(out.output.split())
