@@ -58,11 +58,14 @@ _NO_LANDLOCK = (
     "system offers {abi}, so the query was not run. Run it without --allow-files (it can "
     "read every table of the store), or copy the file's rows into a DuckDB database of your "
     "own and query them there.")
+_NARROW = ("Narrow it with WHERE, LIMIT or an aggregate, or write whole tables to files with "
+           "`foldwise export`.")
+_TOO_LARGE = ("the query's answer holds more than {limit:g} MiB (already {rows:,} rows), more "
+              "than `foldwise sql` holds in memory to print. " + _NARROW)
 _TOO_LONG_TEXT = "maximum total string size"  # Arrow's, for one chunk (2,048 rows)
-_TOO_LARGE = (
-    "the query's answer holds more than {limit:g} MiB (already {rows:,} rows), more than "
-    "`foldwise sql` holds in memory to print. Narrow it with WHERE, LIMIT or an aggregate, "
-    "or write whole tables to files with `foldwise export`.")
+_TOO_LONG = (f"one chunk of the query's answer ({_BATCH_ROWS:,} rows) holds more than 2 GiB of "
+             "text, more than `foldwise sql` holds in memory to print. " + _NARROW)
+_MESSAGE_BYTES = 64 * 1024  # the most of the child's stderr read back
 
 
 def run_user_query(store, sql: str, *, allow_files: bool = False,
@@ -202,25 +205,30 @@ def _read(result, limit: int):
     import pyarrow as pa
 
     with result.to_arrow_reader(_BATCH_ROWS) as reader:
-        return pa.Table.from_batches(list(_bounded(reader, limit)), schema=reader.schema)
+        return pa.Table.from_batches(list(_bounded(_chunks(reader), limit)),
+                                     schema=reader.schema)
 
 
-def _bounded(reader, limit: int, *, files: bool = False):
-    """The reader's batches, refused in one paragraph as soon as they hold more than `limit`
-    bytes together. A query that fails part-way reaches the reader as an OSError: it is
-    refused like one that fails at once, and one chunk of text past Arrow's 2 GiB like an
-    answer too large."""
-    held = rows = 0
+def _chunks(reader, *, files: bool = False):
+    """A DuckDB reader's batches. A query that fails part-way reaches the reader as an
+    OSError: it is refused like one that fails at once, and one chunk of text past Arrow's
+    2 GiB like an answer too large."""
     batches = iter(reader)
     while True:
         try:
-            batch = next(batches)
+            yield next(batches)
         except StopIteration:
             return
         except OSError as exc:
-            if _TOO_LONG_TEXT in str(exc):
-                raise QueryError(_TOO_LARGE.format(limit=limit / 2**20, rows=rows)) from None
-            raise _failure(exc, files=files) from None
+            raise QueryError(_TOO_LONG) if _TOO_LONG_TEXT in str(exc) \
+                else _failure(exc, files=files) from None
+
+
+def _bounded(batches, limit: int):
+    """The batches, refused in one paragraph as soon as they hold more than `limit` bytes
+    together."""
+    held = rows = 0
+    for batch in batches:
         held += batch.nbytes
         rows += batch.num_rows
         if held > limit:
@@ -301,18 +309,16 @@ def _in_child(store, sql: str, inner: str, limit: int):
             target = Path(store.location.path).resolve()
         request = json.dumps({"store": str(target), "folder": str(folder), "query": sql,
                               "limit": limit})
-        out = store.patiently(lambda: _spawn(request.encode(), folder), writing=False)
+        code, answer, message = store.patiently(
+            lambda: _spawn(request.encode(), folder, limit), writing=False)
     finally:
         shutil.rmtree(folder, ignore_errors=True)
-    if out.returncode == 0:
-        import pyarrow as pa
-
-        return _frame(pa.ipc.open_stream(out.stdout).read_all())
-    message = out.stderr.decode(errors="replace").strip()
-    if out.returncode == 2 and message and "Traceback" not in message:
+    if code == 0 and answer is not None:
+        return _frame(answer)
+    if code == 2 and message and "Traceback" not in message:
         raise QueryError(message)
     last = message.splitlines()[-1] if message else "no message"
-    raise QueryError(f"the query's process ended with exit code {out.returncode} ({last}); "
+    raise QueryError(f"the query's process ended with exit code {code} ({last}); "
                      "nothing was changed. Please report this with the query you ran.")
 
 
@@ -323,12 +329,41 @@ def child_environment(folder: Path) -> dict[str, str]:
     return env
 
 
-def _spawn(request: bytes, folder: Path):
-    out = subprocess.run([sys.executable, "-m", "runner.store.sandbox"], input=request,
-                         capture_output=True, env=child_environment(folder))
-    if out.returncode == _BUSY:
-        raise duckdb.IOException(out.stderr.decode(errors="replace").strip())
-    return out
+def _spawn(request: bytes, folder: Path, limit: int):
+    """Run the child, reading its answer as it streams in, bounded as a direct query's is
+    (a whole captured copy would be joined into a second one): its exit code, the answer
+    (None when it wrote none whole) and what it said on stderr."""
+    with tempfile.TemporaryFile() as said, subprocess.Popen(
+            [sys.executable, "-m", "runner.store.sandbox"], stdin=subprocess.PIPE,
+            stdout=subprocess.PIPE, stderr=said, env=child_environment(folder)) as child:
+        try:
+            child.stdin.write(request)
+            child.stdin.close()
+        except BrokenPipeError:
+            pass
+        try:
+            answer = _received(child.stdout, limit)
+        except QueryError:
+            child.kill()
+            raise
+        code = child.wait()
+        said.seek(0)
+        message = said.read(_MESSAGE_BYTES).decode(errors="replace").strip()
+    if code == _BUSY:
+        raise duckdb.IOException(message)
+    return code, answer, message
+
+
+def _received(pipe, limit: int):
+    """The child's Arrow IPC stream as a table, or None when it is missing or cut short (the
+    child's exit code and message then say why)."""
+    import pyarrow as pa
+
+    try:
+        with pa.ipc.open_stream(pipe) as reader:
+            return pa.Table.from_batches(list(_bounded(reader, limit)), schema=reader.schema)
+    except (pa.ArrowInvalid, OSError):
+        return None
 
 
 def _frame(table):
@@ -389,7 +424,7 @@ def main() -> int:
 
         with (con.execute(request["query"]).to_arrow_reader(_BATCH_ROWS) as reader,
               pa.ipc.new_stream(sys.stdout.buffer, reader.schema) as stream):
-            for batch in _bounded(reader, int(request["limit"]), files=True):
+            for batch in _bounded(_chunks(reader, files=True), int(request["limit"])):
                 stream.write_batch(batch)
     except QueryError as exc:
         return _refuse(str(exc))
