@@ -8,6 +8,7 @@ from __future__ import annotations
 import atexit
 import gc
 import json
+import os
 
 import click
 
@@ -41,6 +42,15 @@ class _Group(click.Group):
                        "only what is missing.", err=True)
             ctx.exit(130)
 
+
+
+def _shown_store(path) -> str:
+    """A store file's path with '..' folded away (specs/../results/x reads results/x); a
+    server URL as given."""
+    from .store.locations import is_server_url
+
+    text = str(path)
+    return text if is_server_url(text) else os.path.normpath(text)
 
 @click.group(cls=_Group, context_settings={"help_option_names": ["-h", "--help"]})
 @click.version_option(package_name="foldwise", prog_name="foldwise")
@@ -167,7 +177,7 @@ def run(spec_file, store_path, jobs, force_jobs, quiet, paths, fresh, cluster, l
     click.echo(f"sweep {result.sweep_id} {result.status} in {time_text(result.seconds)}: "
                f"{reuse_text(result.n_cells, result.n_reused)}; "
                f"{result.n_fold_rows} fold-score rows, {result.n_test_rows} test-score rows "
-               f"-> {result.store_path}")
+               f"-> {_shown_store(result.store_path)}")
     if result.permutation_rows:
         click.echo(f"permutation importance shuffled each column over "
                    f"{result.permutation_rows:,} test rows (at most explain.permutation.rows)")

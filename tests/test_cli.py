@@ -156,3 +156,17 @@ def test_the_console_command_exits_with_its_objects_frozen_and_its_code():
                          capture_output=True, text=True)
     assert out.returncode == 2 and out.stderr.startswith("Error: ")
     assert out.stdout.splitlines() == ["frozen at exit: True"]
+
+
+def test_run_names_its_store_without_dot_dot(tmp_path, diabetes_csv):
+    specs = tmp_path / "specs"
+    specs.mkdir()
+    (tmp_path / "results").mkdir()
+    (specs / "diabetes.csv").write_bytes(diabetes_csv.read_bytes())
+    spec = write_spec(specs, MODELS)
+    spec.write_text(spec.read_text().replace("store: store.duckdb",
+                                             "store: ../results/store.duckdb"))
+    result = invoke("run", spec, "--jobs", "1", "--quiet")
+    assert result.exit_code == 0, result.output
+    assert f"-> {tmp_path / 'results' / 'store.duckdb'}\n" in result.output, result.output
+    assert (tmp_path / "results" / "store.duckdb").exists()
