@@ -437,6 +437,8 @@ def test_removal_asks_first_and_keeps_sweeps_that_reused_rows(store, base):
     shown = summary(store, second).table
     out = invoke("remove", first, "--dry-run", "--store", store.path)
     assert "would remove 1 sweep" in out.output and "dry run: nothing removed." in out.output
+    assert "rows per table: sweeps 1, sweep_labels 2, cells 6, fold_scores 108" in " ".join(
+        out.output.split())
     out = CliRunner().invoke(main, ["remove", first, "--store", str(store.path)], input="n\n")
     assert "nothing removed." in out.output
     assert len(_rows(store, "fold_scores", first)) == 108

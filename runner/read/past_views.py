@@ -75,7 +75,8 @@ def removal_view(result: SweepList, rows: dict[str, int], *, done: bool = False)
     """The sweeps a removal takes (or took), and the rows per table that go with them."""
     n = len(result.rows)
     verb = "removed" if done else "would remove"
-    held = ", ".join(f"{number(v)} {t}" for t, v in rows.items() if v) or "no rows"
+    held = ("rows per table: " + ", ".join(f"{t} {number(v)}" for t, v in rows.items() if v)
+            if any(rows.values()) else "no rows")
     view = sweeps_view(result, f"{verb} {count_text(n, 'sweep', 'sweeps')} "
                                f"({plain_text(result.selection)})")
     return View(view.title, view.table, view.numeric,
