@@ -212,7 +212,7 @@ def test_prediction_panels_give_the_test_rmse_to_four_digits(explained):
 def test_history_legend_fits_the_figure_and_counts_sweeps_in_words(explained):
     from matplotlib.backends.backend_agg import FigureCanvasAgg
 
-    from runner.read.plots import history_figure
+    from runner.read.history_figures import history_figure
 
     _, store, sid = explained
     fig = history_figure(store, sid)

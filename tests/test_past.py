@@ -406,7 +406,7 @@ def test_history_shows_every_parameter_of_the_pick_and_agrees_with_pick_changed(
 
 
 def test_history_figure_marks_where_the_data_and_the_spec_changed(varied, tmp_path):
-    from runner.read.plots import history_figure
+    from runner.read.history_figures import history_figure
 
     store = varied[0]
     result = model_history(store, "ridge")
@@ -601,7 +601,7 @@ def test_a_sweep_that_recorded_no_data_hash_claims_neither_same_nor_changed_data
 def test_history_figure_writes_each_new_pick_so_that_no_two_picks_read_alike(varied):
     from matplotlib.text import Annotation
 
-    from runner.read.plots import history_figure, pick_label
+    from runner.read.history_figures import history_figure, pick_label
 
     store = varied[0]
     table = model_history(store, "ridge").table

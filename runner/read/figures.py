@@ -9,7 +9,8 @@ from ..errors import QueryError
 from ..store import Store
 from .class_figures import calibration_figure, roc_figure
 from .filenames import safe_component, safe_names
-from .plots import (complexity_figure, figure_bytes, history_figure, image_paths,
+from .history_figures import history_figure
+from .plots import (complexity_figure, figure_bytes, image_paths,
                     importance_figure, models_figure, predictions_figure, tree_figure,
                     write_images)
 from .queries import model_order, sweep_facts
