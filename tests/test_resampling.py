@@ -166,3 +166,44 @@ def test_too_few_rows_of_a_class_for_stratified_folds_gets_advice_that_works(rar
     if rare >= 2:
         folds = StratifiedKFold(n_splits=rare).split(np.zeros(len(y)), y)
         assert all((y[fit] == 1).any() and (y[valid] == 1).any() for fit, valid in folds)
+
+
+def test_a_class_the_stratified_test_split_leaves_out_is_refused_with_a_fraction_that_works():
+    # reference: scikit-learn's train_test_split(stratify=y) on 400 small class mixes: where
+    # a class gets no test row (its share of the test rows rounds to none), the plan refuses
+    # it, and the fraction it advises (1/m, m the smallest class's rows) gives every class a
+    # test row under the same seed; where every class has one, nothing is refused.
+    from sklearn.model_selection import train_test_split
+
+    from runner.write.resampling import _check_classes_tested
+
+    class Frame:
+        source, target = "d.csv", "y"
+
+    rng = np.random.default_rng(11)
+    refused = 0
+    for _ in range(400):
+        counts = [int(rng.integers(2, 8))] + rng.integers(2, 60, size=rng.integers(1, 4)).tolist()
+        y = np.repeat(np.arange(len(counts)), counts)
+        fraction, seed = float(rng.choice([0.05, 0.1, 0.15, 0.2, 0.3])), int(rng.integers(99))
+        n_test = int(np.ceil(fraction * len(y)))
+        if n_test < len(counts) or len(y) - n_test < len(counts):
+            continue  # `_strata_problem` refuses these before any split
+        test = train_test_split(np.arange(len(y)), test_size=fraction, random_state=seed,
+                                stratify=y)[1]
+        left_out = set(range(len(counts))) - set(y[test].tolist())
+        if not left_out:
+            _check_classes_tested(Frame, y, test, fraction)
+            continue
+        refused += 1
+        with pytest.raises(DataError) as caught:
+            _check_classes_tested(Frame, y, test, fraction)
+        message = str(caught.value)
+        assert f"class{'es' if len(left_out) > 1 else ''} " in message
+        assert all(f"{c} ({counts[c]} rows)" in message for c in left_out)
+        advised = float(message.split("Set `test.fraction` to at least ")[1].split(" ")[0])
+        assert advised >= 1 / min(counts) and advised >= fraction
+        test = train_test_split(np.arange(len(y)), test_size=advised, random_state=seed,
+                                stratify=y)[1]
+        assert set(y[test].tolist()) == set(range(len(counts)))
+    assert refused > 50

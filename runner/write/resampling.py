@@ -421,8 +421,34 @@ def _split_test(spec, frame) -> tuple[np.ndarray, np.ndarray]:
     if problem:
         raise DataError(f"the test split cannot be made from {frame.source} (target "
                         f"'{frame.target}'): {problem}.")
-    return holdout.rows(n, spec.test.fraction, spec.test.seed, values, spec.folds.gap,
-                        strata=strata)
+    train, test = holdout.rows(n, spec.test.fraction, spec.test.seed, values, spec.folds.gap,
+                               strata=strata)
+    if strata is not None:
+        _check_classes_tested(frame, strata, test, spec.test.fraction)
+    return train, test
+
+
+def _check_classes_tested(frame, strata: np.ndarray, test: np.ndarray, fraction: float) -> None:
+    """A stratified test split promises every class on each side; train_test_split may still
+    leave a small class without a test row (its share rounds to none), and then the test
+    scores say nothing of that class. A fraction of at least 1/m, m the smallest class's
+    rows, gives each class a test row."""
+    labels, counts = np.unique(strata, return_counts=True)
+    tested = set(np.unique(strata[test]).tolist())
+    missing = [(c, m) for c, m in zip(labels.tolist(), counts.tolist()) if c not in tested]
+    if not missing:
+        return
+    names = [f"{c!r} ({m} rows)" for c, m in missing]
+    names = ("class " + names[0] if len(names) == 1 else
+             f"classes {', '.join(names[:-1])} and {names[-1]}")
+    smallest = int(counts.min())
+    bound = max(math.ceil(1e4 / smallest) / 1e4, fraction)
+    raise DataError(f"the test split cannot be made from {frame.source} (target "
+                    f"'{frame.target}'): test.fraction {fraction:g} leaves {names} "
+                    "without a test row, so the test scores would say nothing of it (and ROC "
+                    f"AUC would be undefined). Set `test.fraction` to at least {bound:g} "
+                    f"(1/{smallest}, the smallest class's rows, gives every class a test row), "
+                    "or merge that class into a similar one.")
 
 
 def make_plan(spec, frame) -> Plan:
