@@ -507,3 +507,106 @@ def test_a_fold_fitting_without_a_class_names_the_class_and_the_fold():
     assert failure["message"] == ("the fitting rows of fold 2 of repeat 1 hold no row of "
                                   "class 'c', so the model fitted there gives no probability "
                                   "for it")
+
+
+def _sites_spec(tmp_path, metrics: str, models: str):
+    """One class only in 4 of 40 sites, folds by site: ROC AUC is undefined on the
+    validation folds that hold a single class."""
+    rng = np.random.default_rng(5)
+    site = np.repeat(np.arange(40), 8)
+    y = np.where((site < 4) & (rng.random(len(site)) < 0.5), "pos", "neg")
+    df = pd.DataFrame({"site": site, "x": rng.normal(size=len(site)) + (y == "pos"),
+                       "w": rng.normal(size=len(site)), "y": y})
+    df.to_csv(tmp_path / "sites.csv", index=False)
+    path = tmp_path / "spec.yaml"
+    path.write_text(f"""
+name: sites
+data: {{path: sites.csv, target: y, drop: [site]}}
+test: {{fraction: 0.2, seed: 1}}
+folds: {{k: 5, repeats: 2, seed: 7, groups: site}}
+metrics: {metrics}
+store: store.duckdb
+explain: {{cells: none}}
+models:
+{models}
+""")
+    return parse_spec(path.read_text(), source=path)
+
+
+def test_a_pair_is_compared_on_the_folds_where_both_scores_are_defined(tmp_path):
+    # Nadeau & Bengio (2003) corrected resampled t-test (citation from memory), written out
+    # with numpy and scipy.stats.t over the paired folds where both ROC AUCs are defined:
+    # n = those folds, var (1/n + mean n_valid/n_train) · var(d, ddof=1), t on n − 1 df.
+    # Counting the undefined folds in n gave a smaller SE and more degrees of freedom.
+    from scipy import stats
+
+    from runner.read.views import compare_view, summary_view
+
+    spec = _sites_spec(tmp_path, "[log_loss, roc_auc]",
+                       "  logit: {family: linear, grid: {penalty: l2, alpha: [0.01]}}\n"
+                       "  tree: {family: pruned_tree, grid: {ccp_fraction: [0.01]}}")
+    store = Store(tmp_path / "store.duckdb")
+    result = run_sweep(spec, store=store, jobs=1)
+    rows = store.query("""
+        select c.model, f."repeat", f.fold, f.value, f.n_valid, f.n_train from fold_scores f
+        join cells c using (sweep_id, cell_id)
+        where f.sweep_id = ? and f.metric = 'roc_auc'""", [result.sweep_id])
+    wide = rows.pivot_table(index=["repeat", "fold"], columns="model", values="value",
+                            dropna=False)
+    sizes = rows[rows.model == "logit"].set_index(["repeat", "fold"])
+    both = wide.dropna()
+    assert 2 <= len(both) < len(wide) == 10
+    d = (both["logit"] - both["tree"]).to_numpy()
+    n = len(d)
+    ratio = (sizes.n_valid / sizes.n_train)[both.index].mean()
+    se = np.sqrt((1 / n + ratio) * np.var(d, ddof=1))
+    pair = compare(store, result.sweep_id, metric="roc_auc").table.iloc[0]
+    assert pair["folds"] == n
+    assert pair["mean_diff"] == pytest.approx(d.mean(), rel=1e-12)
+    assert pair["se"] == pytest.approx(se, rel=1e-12)
+    assert pair["df"] == n - 1
+    assert pair["p_value"] == pytest.approx(2 * stats.t.sf(abs(d.mean() / se), n - 1),
+                                            rel=1e-9)
+    shown = compare_view(compare(store, result.sweep_id, metric="roc_auc"))
+    assert any("ROC AUC is undefined on some folds" in c for c in shown.caveats)
+    # the summary keeps the metric and says over how many folds its mean is taken
+    table = summary(store, result.sweep_id).table.set_index("model")
+    assert table.loc["logit", "n_roc_auc"] == wide["logit"].notna().sum() < 10
+    assert table.loc["logit", "cv_roc_auc"] == pytest.approx(wide["logit"].mean(), rel=1e-12)
+    notes = summary_view(summary(store, result.sweep_id)).notes
+    assert (f"note: logit's CV ROC AUC is the mean of the {wide['logit'].notna().sum()} "
+            "folds of 10 where it is defined; on the others it is undefined (their "
+            "validation rows lack a class it needs).") in notes
+
+
+def test_a_score_undefined_everywhere_is_shown_and_not_called_a_tie(tmp_path):
+    # Time-ordered folds and test split: a class seen only in the first rows is in no
+    # validation fold and no test row, so ROC AUC is undefined on every fold and on the test
+    # split. The summary shows the metric (it dropped the column and then crashed on it),
+    # and compare says there is nothing to compare (it said the two models tie).
+    from runner.read.views import compare_view, summary_view
+
+    rng = np.random.default_rng(0)
+    n = 300
+    y = np.where(rng.random(n) < 0.5, "a", "b").astype(object)
+    y[:60:4] = "gone"
+    df = pd.DataFrame({"x": rng.normal(size=n), "w": rng.normal(size=n), "t": np.arange(n),
+                       "y": y})
+    df.to_csv(tmp_path / "d.csv", index=False)
+    path = tmp_path / "spec.yaml"
+    path.write_text("name: t\ndata: {path: d.csv, target: y}\ntest: {fraction: 0.2}\n"
+                    "folds: {k: 3, order: t}\nmetrics: [log_loss, roc_auc]\n"
+                    "store: store.duckdb\nexplain: {cells: none}\nmodels:\n"
+                    "  logit: {family: linear}\n  tree: {family: pruned_tree}\n")
+    store = Store(tmp_path / "store.duckdb")
+    result = run_sweep(parse_spec(path.read_text(), source=path), store=store, jobs=1)
+    table = summary(store, result.sweep_id).table
+    assert table["n_roc_auc"].tolist() == [0, 0]
+    assert table["test_roc_auc"].isna().all() and table["tested_roc_auc"].all()
+    view = summary_view(summary(store, result.sweep_id))
+    assert "test ROC AUC" in view.table.columns
+    assert ("note: logit's test ROC AUC is undefined: the test rows lack a class it needs."
+            in view.notes)
+    shown = compare_view(compare(store, result.sweep_id, metric="roc_auc"))
+    assert shown.sentences == ("ROC AUC is undefined on every fold of logit or tree: nothing "
+                               "to compare",)

@@ -17,7 +17,7 @@ import socket
 from dataclasses import replace
 from typing import TYPE_CHECKING
 
-from .compare import holm, t_from_moments
+from .compare import TTest, holm, t_from_moments
 from ..errors import QueryError, StoreError
 from ..families import get_family, nearest
 from .picks import RULES, TOLERANCE, check_rule, check_se, grid_edges
@@ -448,8 +448,9 @@ def summary(store: Store, sweep_id: str | None = None, *,
     """Per model: its picked cell (the sweep's pick rule unless `rule` is given), mean ± SE
     per metric, test scores.
 
-    One row per model in spec order; columns `cv_<metric>`, `se_<metric>`, `test_<metric>`,
-    plus `rule` and `failed_cells` (cells with a failed fit: never picked, see picks)."""
+    One row per model in spec order; columns `cv_<metric>`, `se_<metric>`, `n_<metric>`
+    (the folds where the metric is defined), `test_<metric>` (missing where undefined or
+    not yet scored), `tested_<metric>` (a test row is stored), plus `rule` and `failed_cells` (cells with a failed fit: never picked, see picks)."""
     import pandas as pd
 
     check_rule(rule)
@@ -467,7 +468,7 @@ def summary(store: Store, sweep_id: str | None = None, *,
                   from cells c where c.sweep_id = ? group by c.model, c.family)
         select c.model, z.family, z.cells, z.failed_cells, c.cell_id, c.params, s.metric,
                s.mean, s.se, s.n,
-               t.value as test, z.first_row
+               t.value as test, t.metric is not null as tested, z.first_row
         from picked p
         join cells c on c.sweep_id = ? and c.cell_id = p.cell_id
         join sizes z using (model)
@@ -479,20 +480,24 @@ def summary(store: Store, sweep_id: str | None = None, *,
     if long.empty:  # nothing picked (e.g. every fit failed): an empty table, facts intact
         table = pd.DataFrame(columns=["model", "family", "cells", "failed_cells", "cell_id",
                                       "params", "rule"] + [f"{part}_{m}" for m in facts.metrics
-                                                           for part in ("cv", "se", "test")])
+                                                           for part in ("cv", "se", "n", "test",
+                                                                        "tested")])
         return Summary(facts, rule, table, both.coverage, both.varying)
     wide = long.pivot_table(index=["first_row", "model", "family", "cells", "failed_cells",
                                    "cell_id", "params"],
-                            columns="metric", values=["mean", "se", "test"], aggfunc="first")
+                            columns="metric", values=["mean", "se", "n", "test", "tested"],
+                            aggfunc="first")
     out = wide.reset_index().sort_values("first_row")
-    prefix = {"mean": "cv_", "se": "se_", "test": "test_"}
+    prefix = {"mean": "cv_", "se": "se_", "n": "n_", "test": "test_", "tested": "tested_"}
     out.columns = [name if not metric else prefix[name] + metric
                    for name, metric in (c if isinstance(c, tuple) else (c, "")
                                         for c in out.columns)]
     ordered = ["model", "family", "cells", "failed_cells", "cell_id", "params"]
+    stored = set(long["metric"])  # a metric undefined everywhere still has its rows
     for m in facts.metrics:
-        ordered += [f"cv_{m}", f"se_{m}", f"test_{m}"]
-    out = out[[c for c in ordered if c in out.columns]].reset_index(drop=True)
+        if m in stored:
+            ordered += [f"cv_{m}", f"se_{m}", f"n_{m}", f"test_{m}", f"tested_{m}"]
+    out = out.reindex(columns=ordered).reset_index(drop=True)
     out.insert(6, "rule", rule)
     return Summary(facts, rule, out, both.coverage, both.varying, both.edges)
 
@@ -564,8 +569,9 @@ _PAIRS_SQL = """
                a.cell_id as cell_a, b.cell_id as cell_b, a.value - b.value as d, a.ratio
         from fold_rows a
         join fold_rows b on a."repeat" = b."repeat" and a.fold = b.fold and a.place < b.place)
-    select p.model_a, p.model_b, p.cell_a, p.cell_b, count(*) as folds,
-           avg(p.d) as mean_diff, var_samp(p.d) as var_diff, avg(p.ratio) as valid_ratio,
+    select p.model_a, p.model_b, p.cell_a, p.cell_b, count(p.d) as folds,
+           avg(p.d) as mean_diff, var_samp(p.d) as var_diff,
+           avg(p.ratio) filter (where p.d is not null) as valid_ratio,
            count(*) filter (where case when $6 = 'lower' then p.d < 0 else p.d > 0 end)
                as wins_a,
            count(*) filter (where case when $6 = 'lower' then p.d > 0 else p.d < 0 end)
@@ -609,9 +615,14 @@ def compare(store: Store, sweep_id: str | None = None, *, rule: str | None = Non
                                        list(range(len(chosen.table))), facts.sweep_id, metric,
                                        facts.better_of(metric)])
         for r in raw.itertuples(index=False):
-            n = int(r.folds)
-            test = t_from_moments(float(r.mean_diff), float(r.var_diff), n, float(r.valid_ratio))
-            if int(r.ties) == n:  # the same score on every fold: nothing to test
+            n = int(r.folds)  # where the metric is defined for both (ROC AUC may not be)
+            if n < 2:
+                mean = float(r.mean_diff) if n else math.nan
+                test = TTest(mean=mean, se=math.nan, t=math.nan, df=math.nan, p=math.nan)
+            else:
+                test = t_from_moments(float(r.mean_diff), float(r.var_diff), n,
+                                      float(r.valid_ratio))
+            if n and int(r.ties) == n:  # the same score on every fold: nothing to test
                 test = replace(test, t=math.nan, p=math.nan)
             rows.append({
                 "model_a": r.model_a, "model_b": r.model_b, "cell_a": r.cell_a,

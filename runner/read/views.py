@@ -203,7 +203,13 @@ def pair_sentence(model_a: str, model_b: str, *, metric: str, better: str, mean_
     places = 3 if places is None else places
     judged = p if p_holm is None else p_holm
     p_part = p_text(p) + ("" if p_holm is None else f"; Holm-adjusted {p_text(p_holm)}")
-    if n and wins_a == wins_b == 0 and mean_diff == 0:
+    if not n:
+        return (f"{label} is undefined on every fold of {model_a} or {model_b}: nothing to "
+                "compare")
+    if n == 1:
+        return (f"{model_a} and {model_b} both have a {label} on 1 fold only: too few to "
+                "test")
+    if wins_a == wins_b == 0 and mean_diff == 0:
         return (f"{model_a} and {model_b} score the same on every one of {n} folds: nothing "
                 "to test")
     if mean_diff == 0 or math.isnan(mean_diff):
@@ -345,7 +351,30 @@ def summary_view(result: Summary) -> View:
              f"rule) by CV {metric_label(facts.metric)}")
     return View(title, shown.reset_index(drop=True), tuple(numeric),
                 notes=coverage_notes(result.coverage, facts.sweep_id, facts.n_folds)
-                + edge_notes(result.edges))
+                + undefined_notes(df, facts) + edge_notes(result.edges))
+
+
+def undefined_notes(df: pd.DataFrame, facts) -> tuple[str, ...]:
+    """Where a picked cell's metric is undefined (e.g. ROC AUC on rows of a single class):
+    on some folds, so its CV mean is over fewer folds than the plan's, or on the test split."""
+    out = []
+    for m in facts.metrics:
+        if f"n_{m}" not in df:
+            continue
+        label = metric_label(m)
+        for model, n, test, tested in zip(df["model"], df[f"n_{m}"], df[f"test_{m}"],
+                                          df[f"tested_{m}"]):
+            if not is_missing(n) and 0 < n < facts.n_folds:
+                out.append(f"note: {model}'s CV {label} is the mean of the {int(n)} folds "
+                           f"of {facts.n_folds} where it is defined; on the others it is "
+                           "undefined (their validation rows lack a class it needs).")
+            elif not is_missing(n) and n == 0:
+                out.append(f"note: {model}'s CV {label} is undefined on every fold (their "
+                           "validation rows lack a class it needs).")
+            if not is_missing(tested) and bool(tested) and is_missing(test):
+                out.append(f"note: {model}'s test {label} is undefined: the test rows lack "
+                           "a class it needs.")
+    return tuple(out)
 
 
 def picks_view(result: Picks) -> View:
@@ -403,6 +432,10 @@ def compare_view(result: Comparison) -> View:
     caveats = (f"note: {APPROXIMATE_NOTE}",) if len(df) else ()
     if len(df) and result.facts.ordered:
         caveats += (f"note: {ORDERED_FOLDS_NOTE}",)
+    if len(df) and (df["folds"] < result.facts.n_folds).any():
+        caveats += (f"note: {metric_label(result.metric)} is undefined on some folds (their "
+                    "validation rows lack a class it needs); each pair is compared on the "
+                    "folds where both of its models have it, the 'folds' column.",)
     tested = int(df["p_value"].notna().sum())
     if len(df) > 1:
         untested = (f" ({count_text(len(df) - tested, 'pair', 'pairs')} with the same score "
