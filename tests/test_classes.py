@@ -596,7 +596,7 @@ def test_a_score_undefined_everywhere_is_shown_and_not_called_a_tie(tmp_path):
     path = tmp_path / "spec.yaml"
     path.write_text("name: t\ndata: {path: d.csv, target: y}\ntest: {fraction: 0.2}\n"
                     "folds: {k: 3, order: t}\nmetrics: [log_loss, roc_auc]\n"
-                    "store: store.duckdb\nexplain: {cells: none}\nmodels:\n"
+                    "store: store.duckdb\nmodels:\n"
                     "  logit: {family: linear}\n  tree: {family: pruned_tree}\n")
     store = Store(tmp_path / "store.duckdb")
     result = run_sweep(parse_spec(path.read_text(), source=path), store=store, jobs=1)
@@ -610,3 +610,12 @@ def test_a_score_undefined_everywhere_is_shown_and_not_called_a_tie(tmp_path):
     shown = compare_view(compare(store, result.sweep_id, metric="roc_auc"))
     assert shown.sentences == ("ROC AUC is undefined on every fold of logit or tree: nothing "
                                "to compare",)
+    # the ROC figure draws the classes the test rows hold and names the one they lack (it
+    # refused to draw at all)
+    from runner.read.class_figures import roc_figure
+
+    fig = roc_figure(store, result.sweep_id)
+    titles = [ax.get_title(loc="left") for ax in fig.axes if ax.get_visible()]
+    assert titles == ["class a against the rest", "class b against the rest"]
+    assert "no curve for gone: no test rows of it" in " ".join(
+        fig._suptitle.get_text().split())

@@ -120,7 +120,16 @@ def roc_figure(store: Store, sweep_id: str | None = None, *, rule: str | None = 
     result, preds, models = _class_predictions(store, sweep_id, rule)
     facts, colours = result.facts, model_colours(store, result.facts.sweep_id)
     classes = list(facts.classes)
-    shown = classes[1:] if len(classes) == 2 else classes
+    wanted = classes[1:] if len(classes) == 2 else classes
+    observed = set(preds["observed_class"].astype(str))
+    shown = [c for c in wanted if str(c) in observed and len(observed - {str(c)})]
+    absent = [str(c) for c in wanted if str(c) not in observed]
+    if not shown:
+        raise QueryError(f"sweep {facts.sweep_id}: the test rows of {facts.target} hold "
+                         f"{'only class ' + next(iter(observed)) if observed else 'no rows'}"
+                         ", and a ROC curve needs rows of a class and of the others. Make a "
+                         "test split that holds every class (see README, the stratified "
+                         "test split).")
     cols = min(len(shown), 3)
     rows = math.ceil(len(shown) / cols)
     with _style():
@@ -143,8 +152,10 @@ def roc_figure(store: Store, sweep_id: str | None = None, *, rule: str | None = 
             ax.set_visible(False)
         label_open_bottoms(axes, len(shown), cols)
         fig.supxlabel("share of other rows ranked above the threshold", fontsize=9)
-        fig.supylabel("share of the class's rows ranked above the threshold", fontsize=9)
+        fig.supylabel("share of the class's rows\nranked above the threshold", fontsize=9)
         _headline(fig, "How well does each model rank a class's rows above the others?",
                   f"{rule_label(result.rules[0])} cell of each model refit on all training "
-                  f"rows, test split of {facts.target}; dashed: no better than chance")
+                  f"rows, test split of {facts.target}; dashed: no better than chance"
+                  + (f"; no curve for {', '.join(absent)}: no test rows of "
+                     f"{'it' if len(absent) == 1 else 'them'}" if absent else ""))
     return fig
