@@ -208,6 +208,25 @@ def write_greenhouse(path, n_rows: int = 3000, *, seed: int = 7) -> Path:
     return write_demo_csv(make_greenhouse(n_rows, seed=seed), path)
 
 
+MAX_DEMO_ROWS = 10_000_000
+"""The most rows a demo generator makes: about 2 GB of CSV, past any demo's need."""
+
+
+def _whole_number(option: str, lo: int, hi: int):
+    """An argparse type: a whole number in lo ... hi, else a usage error (exit 2)."""
+    def parse(text: str) -> int:
+        try:
+            value = int(text)
+        except ValueError:
+            raise argparse.ArgumentTypeError(f"{text!r} is not a whole number") from None
+        if not lo <= value <= hi:
+            raise argparse.ArgumentTypeError(f"{value} is outside {lo:,} ... {hi:,}")
+        return value
+
+    parse.__name__ = option
+    return parse
+
+
 def demo_main(description: str, write, rows_help: str, argv=None) -> None:
     """The command line of a demo data generator: OUT, --rows, --seed; a refusal is one
     paragraph on stderr with exit status 2."""
@@ -219,9 +238,12 @@ def demo_main(description: str, write, rows_help: str, argv=None) -> None:
     defaults = inspect.signature(write).parameters
     parser = argparse.ArgumentParser(description=description)
     parser.add_argument("out", help="CSV file to write")
-    parser.add_argument("--rows", type=int, default=defaults["n_rows"].default, help=rows_help)
+    parser.add_argument("--rows", type=_whole_number("--rows", 1, MAX_DEMO_ROWS),
+                        default=defaults["n_rows"].default,
+                        help=f"{rows_help}; 1 ... {MAX_DEMO_ROWS:,}")
     seed = defaults["seed"].default
-    parser.add_argument("--seed", type=int, default=seed, help=f"random seed (default {seed})")
+    parser.add_argument("--seed", type=_whole_number("--seed", 0, 2**32 - 1), default=seed,
+                        help=f"random seed, 0 ... 2**32 - 1 (default {seed})")
     args = parser.parse_args(argv)
     try:
         print(write(args.out, args.rows, seed=args.seed))

@@ -7,6 +7,7 @@ from __future__ import annotations
 from pathlib import Path
 
 import pandas as pd
+import pytest
 
 from runner.demo import SEASONS, make_greenhouse, write_greenhouse
 from runner.write.spec import load_spec
@@ -56,8 +57,6 @@ def test_row_folds_twin_differs_only_in_its_folds():
 
 
 def test_the_generators_replace_only_an_earlier_demo_file(tmp_path, capsys):
-    import pytest
-
     from runner.demo import _main as greenhouse_main
     from runner.demo_grades import _main as grades_main
 
@@ -79,3 +78,22 @@ def test_the_generators_replace_only_an_earlier_demo_file(tmp_path, capsys):
         grades_main([str(out)])  # another generator's columns: kept
     assert len(pd.read_csv(out)) == 36 and sorted(p.name for p in tmp_path.iterdir()) == [
         "g.csv", "spec.yaml"]
+
+
+@pytest.mark.parametrize("args, words", [
+    (["--rows", "-5"], "argument --rows: -5 is outside 1 ... 10,000,000"),
+    (["--rows", "99999999999999"], "argument --rows: 99999999999999 is outside 1"),
+    (["--seed", "-1"], "argument --seed: -1 is outside 0 ... 4,294,967,295"),
+    (["--rows", "many"], "argument --rows: 'many' is not a whole number")])
+def test_rows_and_seed_out_of_range_are_usage_errors(tmp_path, capsys, args, words):
+    # they raised a traceback (numpy's seed), or tried to allocate 728 TiB
+    from runner.demo import _main as greenhouse_main
+    from runner.demo_grades import _main as grades_main
+
+    for run in (greenhouse_main, grades_main):
+        with pytest.raises(SystemExit) as stop:
+            run([str(tmp_path / "d.csv"), *args])
+        assert stop.value.code == 2
+        err = capsys.readouterr().err
+        assert words in err and "Traceback" not in err
+        assert not (tmp_path / "d.csv").exists()
