@@ -37,8 +37,10 @@ def test_product_of_lists_and_defaults_filled():
 
 
 def test_irrelevant_params_collapse():
-    # alpha cannot matter without a penalty: three grid values give one cell.
-    assert len(_cells("{penalty: none, alpha: [0.1, 1, 10]}")) == 1
+    # alpha cannot matter without a penalty: least squares is one cell beside three ridge
+    # cells (a grid where no cell has a penalty is refused: see test_spec).
+    cells = _cells("{penalty: [none, l2], alpha: [0.1, 1, 10]}")
+    assert sorted(c.params["penalty"] for c in cells) == ["l2", "l2", "l2", "none"]
     assert "l1_ratio" not in _cells("{penalty: l2, alpha: [1]}")[0].params
 
 

@@ -47,9 +47,10 @@ GRIDS = [  # (models block, cells, fits per fold, cells an upper bound?)
     # least squares has no alpha: one cell, one fit; the 11 ridge alphas share one SVD
     ("m: {family: linear, grid: {penalty: [none, l2], alpha: {log: [0.01, 100], n: 11}}}",
      12, 2, False),
-    # l1_ratio cannot matter to ridge: its two values make the same cells
-    ("m: {family: linear, grid: {penalty: l2, alpha: [0.1, 1.0], l1_ratio: [0.2, 0.8]}}",
-     2, 1, False),
+    # l1_ratio cannot matter to ridge: its two values make the same ridge cells, beside
+    # 2 x 2 elastic-net cells on one path per l1_ratio
+    ("m: {family: linear, grid: {penalty: [l2, elasticnet], alpha: [0.1, 1.0], "
+     "l1_ratio: [0.2, 0.8]}}", 6, 3, False),
     # one unpruned tree per leaf size scores all its pruning alphas
     ("t: {family: pruned_tree, grid: {ccp_alpha: {path: 30}, min_samples_leaf: [5, 10, 20]}}",
      90, 3, True),

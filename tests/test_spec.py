@@ -86,6 +86,15 @@ REFUSED = [
      ["line 6, folds.order: it names the target 'y'"]),
     ("checks: {allow: [id_colum]}\nmodels:\n  m: {family: linear}\n",
      ["checks.allow", "unknown check 'id_colum'", "Did you mean 'id_column'"]),
+    ("models:\n  m: {family: linear, grid: {alpha: [0.1, 1]}}\n",
+     ["line 5, models.m.grid.alpha: alpha counts only where penalty is l2, l1 or elasticnet",
+      "its 2 values would give one cell", "(e.g. `penalty: l2`), or drop alpha"]),
+    ("models:\n  m: {family: linear, grid: {penalty: [none], alpha: {log: [0.1, 10], n: 5}}}\n",
+     ["its 5 values would give one cell"]),
+    ("models:\n  m: {family: linear, grid: {penalty: [l1, l2], l1_ratio: [0.2, 0.8]}}\n",
+     ["models.m.grid.l1_ratio: l1_ratio counts only where penalty is elasticnet"]),
+    ("models:\n  m: {family: forest, grid: {bootstrap: [false], max_samples: [0.5, 0.8]}}\n",
+     ["models.m.grid.max_samples: max_samples counts only where bootstrap is true"]),
     ("models: {}\n", ["models"]),
     ("modles:\n  m: {family: linear}\n", ["unknown field 'modles'", "Did you mean 'models'"]),
     ("models:\n  m: {family: linear}\n  m: {family: forest}\n", ["duplicate key 'm'"]),
@@ -215,3 +224,14 @@ def test_spec_file_must_be_a_small_regular_file(tmp_path):
     big.write_text(BASE + "models: {m: {family: linear}}\n" + "#" * (200 * 1024))
     with pytest.raises(SpecError, match="larger than 128 KiB"):
         load_spec(big)
+
+
+@pytest.mark.parametrize("grid", [
+    "{penalty: [none, l2], alpha: [0.1, 1]}",  # ridge cells use alpha
+    "{penalty: elasticnet, l1_ratio: [0.2, 0.8]}",
+    "{alpha: [1.0]}",  # one value: nothing was meant to be tuned
+    "{penalty: [none]}",
+])
+def test_a_grid_parameter_some_cell_uses_is_accepted(grid):
+    spec = _spec(f"models:\n  m: {{family: linear, grid: {grid}}}\n")
+    assert spec.models["m"].family == "linear"

@@ -35,6 +35,8 @@ class Param:
     data_path: bool = False  # takes {path: N}: values read off the data's pruning path
     tasks: tuple = ("regression", "classification")  # the tasks it applies to
     task_defaults: tuple = ()  # (task, default) pairs where a task's default differs
+    counts_when: tuple = ()  # (where the family's other parameters let it matter, in words;
+    #                           a grid entry that makes it matter), e.g. alpha needs a penalty
 
     def default_for(self, task: str):
         return dict(self.task_defaults).get(task, self.default)
@@ -208,9 +210,11 @@ FAMILIES: dict[str, Family] = {
                   choice_rank=(("none", 1), ("l2", 0), ("l1", 0), ("elasticnet", 0)),
                   help="none = ordinary least squares; l2 = ridge; l1 = lasso; elasticnet = both"),
             Param("alpha", "float", 1.0, minimum=0.0, min_inclusive=False, simpler="higher",
-                  help="penalty strength (ignored when penalty is none)"),
+                  help="penalty strength (ignored when penalty is none)",
+                  counts_when=("penalty is l2, l1 or elasticnet", "penalty: l2")),
             Param("l1_ratio", "float", 0.5, minimum=0.0, maximum=1.0,
-                  help="share of the l1 penalty in the elastic net"),
+                  help="share of the l1 penalty in the elastic net",
+                  counts_when=("penalty is elasticnet", "penalty: elasticnet")),
             _CLASS_WEIGHT,
         ),
         complexity_order=("penalty", "alpha"),
@@ -266,7 +270,7 @@ FAMILIES: dict[str, Family] = {
             Param("max_depth", "int", None, minimum=1, allow_none=True, simpler="lower",
                   none_rank=math.inf),
             Param("max_samples", "float", None, minimum=0.0, maximum=1.0, min_inclusive=False,
-                  allow_none=True),
+                  allow_none=True, counts_when=("bootstrap is true", "bootstrap: true")),
             Param("bootstrap", "bool", True),
             _CRITERION, _CLASS_WEIGHT,
         ),

@@ -6,6 +6,7 @@ one. Paths inside the spec resolve relative to the spec file."""
 from __future__ import annotations
 
 import hashlib
+import itertools
 import math
 from pathlib import Path
 from typing import Any, Literal
@@ -284,6 +285,36 @@ class ModelSpec(_Strict):
         return self
 
 
+def _value_count(value) -> int:
+    if isinstance(value, (LogRange, LinearRange)):
+        return value.n
+    return 1 if isinstance(value, PathRange) else len(value)
+
+
+def _unused_params(family, grid: dict) -> list[str]:
+    """Grid parameters of several values that no combination of the grid's choices lets
+    matter (alpha with only penalty none; l1_ratio without elasticnet): the family drops
+    them, so the values a user meant to tune would silently give one cell."""
+    switches = [n for n, v in grid.items()
+                if isinstance(v, list) and family.params[n].kind in ("choice", "bool")]
+    sample = {}
+    for name, value in grid.items():
+        if isinstance(value, (LogRange, LinearRange)):
+            sample[name] = (value.log if isinstance(value, LogRange) else value.linear)[0]
+        elif isinstance(value, list):
+            sample[name] = next((v for v in value if v is not None), None)
+    unused = []
+    for name in grid:
+        if name in switches or name not in sample or _value_count(grid[name]) < 2 \
+                or not family.params[name].counts_when:
+            continue
+        if not any(family.canonical({**sample, **dict(zip(switches, combo))}).get(name)
+                   == sample[name]
+                   for combo in itertools.product(*(grid[s] for s in switches))):
+            unused.append(name)
+    return unused
+
+
 class PermutationPlan(_Strict):
     """How permutation importance shuffles each column on the test split."""
 
@@ -407,6 +438,19 @@ class Spec(_Strict):
             if not isinstance(label, str) or not label.strip():
                 raise ValueError("model labels must be non-empty text")
         return v
+
+    @model_validator(mode="after")
+    def _every_grid_parameter_counts(self):
+        for label, model in self.models.items():
+            family = FAMILIES[model.family]
+            for name in _unused_params(family, model.grid):
+                where, entry = family.params[name].counts_when
+                raise _FieldProblem(
+                    ("models", label, "grid", name),
+                    f"{name} counts only where {where}, and no cell of this grid has that, "
+                    f"so its {_value_count(model.grid[name])} values would give one cell. "
+                    f"Add one to the grid (e.g. `{entry}`), or drop {name}")
+        return self
 
     @model_validator(mode="after")
     def _fits_its_task(self):
