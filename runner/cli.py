@@ -220,7 +220,11 @@ def summary(store_path, sweep_id, fmt):
 @click.option("--answer-mb", type=click.FloatRange(0, min_open=True), default=None,
               help="The largest answer held to print, in MiB of column data; a larger one is "
                    "refused once that much is read [default: 256].")
-def sql(query, store_path, fmt, allow_files, answer_mb):
+@click.option("--work-mb", type=click.FloatRange(0, min_open=True), default=None,
+              help="The most working memory the query may take, in MiB (sorts, groups, joins; "
+                   "on a team store also the copy it answers from); nothing spills to disk, "
+                   "so a query needing more is refused [default: 1024].")
+def sql(query, store_path, fmt, allow_files, answer_mb, work_mb):
     """Run one read-only SQL query against the store; it cannot change anything.
 
     One SELECT (or WITH, DESCRIBE, SUMMARIZE, plain EXPLAIN). Tables: sweeps, sweep_labels,
@@ -233,8 +237,9 @@ def sql(query, store_path, fmt, allow_files, answer_mb):
       foldwise sql "select * from cell_summary join read_csv('notes.csv') using (model)" --allow-files
     """
     limit = None if answer_mb is None else max(1, int(answer_mb * 2**20))
+    work = None if work_mb is None else max(1, int(work_mb * 2**20))
     emit(_open_store(store_path).user_query(query, allow_files=allow_files,
-                                            answer_bytes=limit), fmt)
+                                            answer_bytes=limit, work_bytes=work), fmt)
 
 
 @main.command()

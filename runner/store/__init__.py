@@ -581,15 +581,18 @@ class Store:
                           "--store at a foldwise store.")
 
     def user_query(self, sql: str, *, allow_files: bool = False,
-                   answer_bytes: int | None = None) -> pd.DataFrame:
+                   answer_bytes: int | None = None,
+                   work_bytes: int | None = None) -> pd.DataFrame:
         """Answer one query of the user's, read-only by construction (runner/sandbox.py):
         anything that would change the store, or with `allow_files` any file, is refused or
-        cannot happen; so is an answer past `answer_bytes` (default `sandbox.ANSWER_BYTES`)."""
-        from .sandbox import ANSWER_BYTES, run_user_query
+        cannot happen; so is an answer past `answer_bytes` (default `sandbox.ANSWER_BYTES`)
+        and a query needing more working memory than `work_bytes` (`sandbox.WORK_BYTES`)."""
+        from .sandbox import ANSWER_BYTES, WORK_BYTES, run_user_query
 
         self._require()
         return run_user_query(self, sql, allow_files=allow_files,
-                              answer_bytes=ANSWER_BYTES if answer_bytes is None else answer_bytes)
+                              answer_bytes=ANSWER_BYTES if answer_bytes is None else answer_bytes,
+                              work_bytes=WORK_BYTES if work_bytes is None else work_bytes)
 
     def latest_sweep_id(self) -> str:
         """The most recently started sweep."""

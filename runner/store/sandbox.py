@@ -13,6 +13,10 @@
   store file or on a snapshot of the team store in the child's private folder; the result
   comes back as Arrow IPC on its stdout.
 
+Every instance a query meets may take at most `--work-mb` of working memory (sorts, hash
+tables, a team store's copy) and spills nothing to disk, so a colleague's query or store
+cannot make the reader's process grow without bound, nor write a temporary file.
+
 `check_statement` first refuses anything but one SELECT or a plain EXPLAIN, saying why;
 safety does not depend on it."""
 
@@ -25,7 +29,7 @@ import shutil
 import subprocess
 import sys
 import tempfile
-from contextlib import contextmanager
+from contextlib import closing, contextmanager
 from pathlib import Path
 
 import duckdb
@@ -34,7 +38,7 @@ from . import landlock
 from ..errors import QueryError
 
 __all__ = ["run_user_query", "check_statement", "tables_named", "locked", "confined_connection",
-           "child_environment", "LOCKED_SETTINGS"]
+           "child_environment", "working", "LOCKED_SETTINGS", "ANSWER_BYTES", "WORK_BYTES"]
 
 LOCKED_SETTINGS = {
     "autoinstall_known_extensions": False, "autoload_known_extensions": False,
@@ -46,6 +50,10 @@ LOCKED_SETTINGS = {
 ANSWER_BYTES = 256 * 2**20
 """The most a query's answer may hold (as Arrow data) before it is refused: it is held in
 memory to be printed."""
+WORK_BYTES = 1024 * 2**20
+"""The most working memory DuckDB may take for a query (a sort, a hash table, a team store's
+copy) before the query is refused: a blocking query is computed whole before its first
+row, so the answer's bound alone does not hold it."""
 _BATCH_ROWS = 2048  # DuckDB's vector: the answer is checked after every one
 _BUSY = 75  # the child's exit code when a writer holds the store file
 _ANALYZE = {"analyze", "analyse"}
@@ -66,21 +74,52 @@ _TOO_LONG_TEXT = "maximum total string size"  # Arrow's, for one chunk (2,048 ro
 _TOO_LONG = (f"one chunk of the query's answer ({_BATCH_ROWS:,} rows) holds more than 2 GiB of "
              "text, more than `foldwise sql` holds in memory to print. " + _NARROW)
 _MESSAGE_BYTES = 64 * 1024  # the most of the child's stderr read back
+_OUT_OF_MEMORY = "Out of Memory Error"  # DuckDB's, past its memory_limit
+_NO_ROOM = ("the query needs more than {limit:.4g} MiB of working memory, the most `foldwise "
+            "sql` lets DuckDB take (--work-mb); nothing was written. Raise --work-mb, or "
+            "narrow the query: fewer rows or columns (WHERE, a narrower SELECT), LIMIT before "
+            "ORDER BY (in a subquery), fewer distinct groups.")
+_NO_ROOM_TO_COPY = ("copying the tables the query reads from team store {store} takes more "
+                    "than {limit:.4g} MiB of memory (--work-mb): on a team store the query "
+                    "answers from a private copy of the tables it names; nothing was written. "
+                    "Raise --work-mb, or name fewer tables in the query.")
 
 
 def run_user_query(store, sql: str, *, allow_files: bool = False,
-                   answer_bytes: int = ANSWER_BYTES):
+                   answer_bytes: int = ANSWER_BYTES, work_bytes: int = WORK_BYTES):
     """Answer one query against `store` (a runner.store.Store) as a DataFrame, or raise a
     QueryError (or StoreError) saying why not; an answer of more than `answer_bytes` (as
-    Arrow data) is refused once that much has been read."""
+    Arrow data) is refused once that much has been read, and a query needing more than
+    `work_bytes` of working memory when DuckDB runs out of it."""
     inner = check_statement(sql)
     if allow_files:
-        return _in_child(store, sql, inner, answer_bytes)
+        return _in_child(store, sql, inner, answer_bytes, work_bytes)
     if store.location.shared:
-        with _snapshot(store, inner) as con:
-            return _answer(con, sql, answer_bytes)
-    with store._connect(read_only=True, config=LOCKED_SETTINGS) as con:
-        return _answer(con, sql, answer_bytes)
+        with _snapshot(store, inner, work_bytes=work_bytes) as con:
+            return _answer(con, sql, answer_bytes, work_bytes)
+    with closing(store.patiently(lambda: _opened(store, work_bytes), writing=False)) as con:
+        return _answer(con, sql, answer_bytes, work_bytes)
+
+
+def working(work_bytes: int) -> dict:
+    """DuckDB settings that hold a query's working memory to `work_bytes` and spill nothing
+    to disk (no temporary folder, none of its size), so a reader writes no file."""
+    return {"memory_limit": f"{max(1, int(work_bytes))}B", "temp_directory": "",
+            "max_temp_directory_size": "0B"}
+
+
+def _opened(store, work_bytes: int):
+    """The store file opened read-only, file access and extensions off; a limit too small
+    for DuckDB to open it at all is refused as a query past it is."""
+    try:
+        return store.location.connect(read_only=True,
+                                      config={**LOCKED_SETTINGS, **working(work_bytes)})
+    except duckdb.OutOfMemoryException:
+        raise _no_room(work_bytes) from None
+
+
+def _no_room(work_bytes: int) -> QueryError:
+    return QueryError(_NO_ROOM.format(limit=work_bytes / 2**20))
 
 
 # -- the friendly first check --------------------------------------------------------------
@@ -190,26 +229,26 @@ def locked(con):
     return con
 
 
-def _answer(con, sql: str, limit: int):
+def _answer(con, sql: str, limit: int, work_bytes: int):
     locked(con)
     try:
-        return _frame(_read(con.execute(sql), limit))
+        return _frame(_read(con.execute(sql), limit, work_bytes))
     except duckdb.Error as exc:
-        raise _failure(exc, files=False) from None
+        raise _failure(exc, files=False, work_bytes=work_bytes) from None
 
 
-def _read(result, limit: int):
+def _read(result, limit: int, work_bytes: int):
     """A query's answer as an Arrow table, read a batch at a time and refused once it holds
     more than `limit` bytes. The reader is closed even then: an open one keeps its query
     alive, and the next connection to the same file from this process waits forever."""
     import pyarrow as pa
 
     with result.to_arrow_reader(_BATCH_ROWS) as reader:
-        return pa.Table.from_batches(list(_bounded(_chunks(reader), limit)),
-                                     schema=reader.schema)
+        return pa.Table.from_batches(list(_bounded(_chunks(reader, work_bytes=work_bytes),
+                                                   limit)), schema=reader.schema)
 
 
-def _chunks(reader, *, files: bool = False):
+def _chunks(reader, *, files: bool = False, work_bytes: int = WORK_BYTES):
     """A DuckDB reader's batches. A query that fails part-way reaches the reader as an
     OSError: it is refused like one that fails at once, and one chunk of text past Arrow's
     2 GiB like an answer too large."""
@@ -221,7 +260,7 @@ def _chunks(reader, *, files: bool = False):
             return
         except OSError as exc:
             raise QueryError(_TOO_LONG) if _TOO_LONG_TEXT in str(exc) \
-                else _failure(exc, files=files) from None
+                else _failure(exc, files=files, work_bytes=work_bytes) from None
 
 
 def _bounded(batches, limit: int):
@@ -241,8 +280,10 @@ def _first_line(exc: Exception) -> str:
     return text.splitlines()[0].split(" Please try installing")[0] if text else type(exc).__name__
 
 
-def _failure(exc: Exception, *, files: bool) -> QueryError:
+def _failure(exc: Exception, *, files: bool, work_bytes: int) -> QueryError:
     first = _first_line(exc)
+    if isinstance(exc, duckdb.OutOfMemoryException) or first.startswith(_OUT_OF_MEMORY):
+        return _no_room(work_bytes)
     if not files and "disabled by configuration" in first and "access" in first:
         return QueryError(f"the query reaches outside the store ({first}). `foldwise sql` reads "
                           "files only when asked: add --allow-files to let the query read "
@@ -254,15 +295,18 @@ def _failure(exc: Exception, *, files: bool) -> QueryError:
 
 
 @contextmanager
-def _snapshot(store, sql: str, path: Path | None = None):
+def _snapshot(store, sql: str, path: Path | None = None, *,
+              work_bytes: int = WORK_BYTES):
     """A fresh DuckDB instance (in memory, or a file at `path`) holding a copy of the team
     store, made through a read-only attachment that is closed before the instance is
     handed out: the rows of the tables `sql` reads, the columns of every other table (so
-    DESCRIBE and the catalog answer as on a file), and the cell_summary view."""
+    DESCRIBE and the catalog answer as on a file), and the cell_summary view. The copy
+    counts against `work_bytes`, as the query does after it."""
     from .schema import VIEW_SQL
 
     wanted = tables_named(sql)
-    target = duckdb.connect(str(path) if path else ":memory:", config=LOCKED_SETTINGS)
+    target = duckdb.connect(str(path) if path else ":memory:",
+                            config={**LOCKED_SETTINGS, **working(work_bytes)})
     try:
         source = store.location.read_only_instance()
         try:
@@ -275,6 +319,9 @@ def _snapshot(store, sql: str, path: Path | None = None):
                                 .to_arrow_reader())
                 target.execute(f'create table "{table}" as select * from _rows')
                 target.unregister("_rows")
+        except duckdb.OutOfMemoryException:
+            raise QueryError(_NO_ROOM_TO_COPY.format(store=store.path,
+                                                     limit=work_bytes / 2**20)) from None
         except duckdb.Error as exc:
             raise QueryError(f"reading team store {store.path} failed: "
                              f"{_first_line(exc)}") from None
@@ -293,7 +340,7 @@ def _all_tables() -> set[str]:
     return {*TABLES, "foldwise_meta"}
 
 
-def _in_child(store, sql: str, inner: str, limit: int):
+def _in_child(store, sql: str, inner: str, limit: int, work_bytes: int):
     """Run the query in a Landlock-confined child process and read back its result."""
     abi = landlock.abi_version()
     if abi < landlock.MIN_ABI:
@@ -303,12 +350,12 @@ def _in_child(store, sql: str, inner: str, limit: int):
     try:
         if store.location.shared:
             target = folder / "snapshot.duckdb"
-            with _snapshot(store, inner, target):
+            with _snapshot(store, inner, target, work_bytes=work_bytes):
                 pass
         else:
             target = Path(store.location.path).resolve()
         request = json.dumps({"store": str(target), "folder": str(folder), "query": sql,
-                              "limit": limit})
+                              "limit": limit, "work": work_bytes})
         code, answer, message = store.patiently(
             lambda: _spawn(request.encode(), folder, limit), writing=False)
     finally:
@@ -380,14 +427,14 @@ def _frame(table):
         con.close()
 
 
-def confined_connection(store: str, folder: str):
+def confined_connection(store: str, folder: str, work_bytes: int = WORK_BYTES):
     """The child's connection: the store opened read-only, files readable (the process is
     confined to reading already), extensions, downloads and secrets only inside `folder`,
-    and every setting locked."""
+    working memory held to `work_bytes` with nothing spilled, and every setting locked."""
     private = Path(folder)
     con = duckdb.connect(store, read_only=True, config={
-        **LOCKED_SETTINGS, "enable_external_access": True,
-        "temp_directory": str(private / "spill"), "extension_directory": str(private / "ext"),
+        **LOCKED_SETTINGS, **working(work_bytes), "enable_external_access": True,
+        "extension_directory": str(private / "ext"),
         "secret_directory": str(private / "secrets"),
         "custom_extension_repository": str(private / "none"),
         "autoinstall_extension_repository": str(private / "none")})
@@ -409,11 +456,14 @@ def main() -> int:
     except landlock.LandlockUnavailable as exc:
         return _refuse(f"--allow-files could not confine the query's process ({exc}); the "
                        "query was not run.")
+    work_bytes = int(request["work"])
     try:
         check_statement(request["query"])
-        con = confined_connection(request["store"], request["folder"])
+        con = confined_connection(request["store"], request["folder"], work_bytes)
     except QueryError as exc:
         return _refuse(str(exc))
+    except duckdb.OutOfMemoryException:
+        return _refuse(str(_no_room(work_bytes)))
     except duckdb.Error as exc:
         if isinstance(exc, duckdb.IOException) and "lock" in str(exc):
             print(str(exc), file=sys.stderr)
@@ -424,12 +474,13 @@ def main() -> int:
 
         with (con.execute(request["query"]).to_arrow_reader(_BATCH_ROWS) as reader,
               pa.ipc.new_stream(sys.stdout.buffer, reader.schema) as stream):
-            for batch in _bounded(_chunks(reader, files=True), int(request["limit"])):
+            for batch in _bounded(_chunks(reader, files=True, work_bytes=work_bytes),
+                                  int(request["limit"])):
                 stream.write_batch(batch)
     except QueryError as exc:
         return _refuse(str(exc))
     except duckdb.Error as exc:
-        return _refuse(str(_failure(exc, files=True)))
+        return _refuse(str(_failure(exc, files=True, work_bytes=work_bytes)))
     finally:
         con.close()
     return 0
