@@ -223,8 +223,11 @@ def _names_in_tree(sql: str) -> set[str] | None:
 def locked(con):
     """Freeze a connection's settings: no statement can change them afterwards. Its result
     buffer is cut to about one chunk first: DuckDB sizes that buffer without the chunk's
-    strings, so by default a query of long strings ran gigabytes ahead of its reader."""
+    strings, so by default a query of long strings ran gigabytes ahead of its reader. Its
+    progress bar goes off too: DuckDB prints it to stdout after 2 s, and in the
+    --allow-files child that is where the answer's Arrow stream goes."""
     con.execute("set streaming_buffer_size = '1KB'")
+    con.execute("set enable_progress_bar = false")
     con.execute("set lock_configuration = true")
     return con
 

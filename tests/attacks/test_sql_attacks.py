@@ -445,6 +445,29 @@ def test_a_chunk_of_text_past_arrows_limit_is_refused_as_too_large():
     assert "Narrow it with WHERE, LIMIT or an aggregate" in str(err.value)
 
 
+@pytest.mark.parametrize("flag", [[], ["--allow-files"]], ids=["plain", "allow-files"])
+def test_no_progress_bar_reaches_stdout(file_case, flag):
+    out = _cli("sql", "select current_setting('enable_progress_bar') as bar", "--store",
+               file_case.store.path, *flag, "--format", "csv")
+    assert out.exit_code == 0 and out.output == "bar\nFalse\n", out.output
+
+
+def test_a_query_of_some_seconds_answers_whole_from_the_child(file_case):
+    """DuckDB printed its progress bar to stdout once a query ran 2 s; in the --allow-files
+    child that went into the Arrow stream, and the answer was lost ("ended with exit code
+    0"). A sum over 3·10⁸ hashes (about 3 s here) checked against the same query on a
+    plain DuckDB."""
+    query = "select sum(hash(range) % 7)::bigint as total from range(300000000)"
+    con = duckdb.connect()
+    try:
+        expected = con.execute("set enable_progress_bar = false; " + query).fetchone()[0]
+    finally:
+        con.close()
+    out = _cli("sql", query, "--store", file_case.store.path, "--allow-files",
+               "--format", "csv")
+    assert out.exit_code == 0 and out.output == f"total\n{expected}\n", out.output
+
+
 def test_the_answer_bound_named_in_help_is_the_one_applied():
     out = _cli("sql", "--help")
     assert f"[default: {sandbox.ANSWER_BYTES // 2**20}]" in " ".join(out.output.split())
