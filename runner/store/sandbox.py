@@ -74,6 +74,7 @@ _TOO_LONG_TEXT = "maximum total string size"  # Arrow's, for one chunk (2,048 ro
 _TOO_LONG = (f"one chunk of the query's answer ({_BATCH_ROWS:,} rows) holds more than 2 GiB of "
              "text, more than `foldwise sql` holds in memory to print. " + _NARROW)
 _MESSAGE_BYTES = 64 * 1024  # the most of the child's stderr read back
+_NO_SPILL = {"temp_directory": "", "max_temp_directory_size": "0B"}
 _OUT_OF_MEMORY = "Out of Memory Error"  # DuckDB's, past its memory_limit
 _NO_ROOM = ("the query needs more than {limit:.4g} MiB of working memory, the most `foldwise "
             "sql` lets DuckDB take (--work-mb); nothing was written. Raise --work-mb, or "
@@ -104,8 +105,7 @@ def run_user_query(store, sql: str, *, allow_files: bool = False,
 def working(work_bytes: int) -> dict:
     """DuckDB settings that hold a query's working memory to `work_bytes` and spill nothing
     to disk (no temporary folder, none of its size), so a reader writes no file."""
-    return {"memory_limit": f"{max(1, int(work_bytes))}B", "temp_directory": "",
-            "max_temp_directory_size": "0B"}
+    return {"memory_limit": f"{max(1, int(work_bytes))}B", **_NO_SPILL}
 
 
 def _opened(store, work_bytes: int):
@@ -129,7 +129,7 @@ _parsing = []  # one locked, empty in-memory instance per process, for parsing o
 @contextmanager
 def _parser():
     if not _parsing:
-        _parsing.append(locked(duckdb.connect(config=LOCKED_SETTINGS)))
+        _parsing.append(locked(duckdb.connect(config={**LOCKED_SETTINGS, **_NO_SPILL})))
     con = _parsing[0].cursor()
     try:
         yield con
@@ -418,11 +418,12 @@ def _received(pipe, limit: int):
 
 def _frame(table):
     """An answer as Arrow data turned into a DataFrame by DuckDB, as `.df()` would, so output
-    looks the same with or without --allow-files."""
+    looks the same with or without --allow-files. It spills nothing either; what it holds
+    is the answer, already bounded by `answer_bytes`."""
     names = table.column_names  # may repeat (select 1 as a, 2 as a); Arrow scans need unique
     aliases = ", ".join(f'c{i} as "{name.replace(chr(34), chr(34) * 2)}"'
                         for i, name in enumerate(names))
-    con = duckdb.connect(config=LOCKED_SETTINGS)
+    con = duckdb.connect(config={**LOCKED_SETTINGS, **_NO_SPILL})
     try:
         con.register("_result", table.rename_columns([f"c{i}" for i in range(len(names))]))
         return con.execute(f"select {aliases or '*'} from _result").df()
