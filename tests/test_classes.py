@@ -573,6 +573,14 @@ def test_a_pair_is_compared_on_the_folds_where_both_scores_are_defined(tmp_path)
     table = summary(store, result.sweep_id).table.set_index("model")
     assert table.loc["logit", "n_roc_auc"] == wide["logit"].notna().sum() < 10
     assert table.loc["logit", "cv_roc_auc"] == pytest.approx(wide["logit"].mean(), rel=1e-12)
+    from runner.read.queries import complexity_table
+    from runner.read.views import complexity_view
+
+    path = complexity_view(complexity_table(store, "logit", result.sweep_id, metric="roc_auc"))
+    assert path.sentences[-1] == (
+        "ROC AUC is undefined on some folds of 1 cell (validation rows lacking a class it "
+        f"needs): their CV mean is over the {wide['logit'].notna().sum()} folds of 10 where "
+        "it is defined.")
     notes = summary_view(summary(store, result.sweep_id)).notes
     assert (f"note: logit's CV ROC AUC is the mean of the {wide['logit'].notna().sum()} "
             "folds of 10 where it is defined; on the others it is undefined (their "

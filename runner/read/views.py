@@ -504,6 +504,17 @@ def complexity_view(result: ComplexityTable) -> View:
     if result.fixed_params:
         notes = ("other params at their defaults: " + ", ".join(
             f"{k}={value_text(v)}" for k, v in result.fixed_params.items()),)
+    short, none = df["n"][(df["n"] < facts.n_folds) & (df["n"] > 0)], (df["n"] == 0).sum()
+    why = "validation rows lacking a class it needs"
+    if len(short):
+        span = (f"{int(short.min())}" if short.min() == short.max()
+                else f"{int(short.min())} to {int(short.max())}")
+        notes += (f"{metric_label(m)} is undefined on some folds of "
+                  f"{count_text(len(short), 'cell', 'cells')} ({why}): their CV mean is over "
+                  f"the {span} folds of {facts.n_folds} where it is defined.",)
+    if none:
+        notes += (f"{metric_label(m)} is undefined on every fold of "
+                  f"{count_text(int(none), 'cell', 'cells')} ({why}).",)
     return View(title, shown, tuple(numeric), sentences=notes)
 
 
