@@ -421,6 +421,30 @@ def test_a_feature_that_gives_a_class_away_is_found(tmp_path):
     assert proxies["value"].iloc[0] == pytest.approx(1.0)
 
 
+def _sites_spec(tmp_path, metrics: str, models: str, *, repeats: int = 2):
+    """One class only in 4 of 40 sites, folds by site: ROC AUC is undefined on the
+    validation folds that hold a single class."""
+    rng = np.random.default_rng(5)
+    site = np.repeat(np.arange(40), 8)
+    y = np.where((site < 4) & (rng.random(len(site)) < 0.5), "pos", "neg")
+    df = pd.DataFrame({"site": site, "x": rng.normal(size=len(site)) + (y == "pos"),
+                       "w": rng.normal(size=len(site)), "y": y})
+    df.to_csv(tmp_path / "sites.csv", index=False)
+    path = tmp_path / "spec.yaml"
+    path.write_text(f"""
+name: sites
+data: {{path: sites.csv, target: y, drop: [site]}}
+test: {{fraction: 0.2, seed: 1}}
+folds: {{k: 5, repeats: {repeats}, seed: 7, groups: site}}
+metrics: {metrics}
+store: store.duckdb
+explain: {{cells: none}}
+models:
+{models}
+""")
+    return parse_spec(path.read_text(), source=path)
+
+
 def test_a_score_undefined_on_some_folds_is_named_and_its_se_counts_defined_folds(tmp_path):
     # One class only in 4 of 40 sites, folds by site: most validation folds hold a single
     # class, where scikit-learn's roc_auc_score is undefined (it raises); the store keeps
@@ -429,25 +453,9 @@ def test_a_score_undefined_on_some_folds_is_named_and_its_se_counts_defined_fold
     from runner.read.queries import coverage, sweep_facts
     from runner.read.views import coverage_notes
 
-    rng = np.random.default_rng(5)
-    site = np.repeat(np.arange(40), 8)
-    y = np.where((site < 4) & (rng.random(len(site)) < 0.5), "pos", "neg")
-    df = pd.DataFrame({"site": site, "x": rng.normal(size=len(site)) + (y == "pos"),
-                       "w": rng.normal(size=len(site)), "y": y})
-    df.to_csv(tmp_path / "sites.csv", index=False)
-    path = tmp_path / "spec.yaml"
-    path.write_text("""
-name: sites
-data: {path: sites.csv, target: y, drop: [site]}
-test: {fraction: 0.2, seed: 1}
-folds: {k: 5, repeats: 1, seed: 7, groups: site}
-metrics: [roc_auc, log_loss]
-store: store.duckdb
-explain: {cells: none}
-models:
-  logit: {family: linear, grid: {penalty: l2, alpha: [0.001, 0.1]}}
-""")
-    spec = parse_spec(path.read_text(), source=path)
+    spec = _sites_spec(tmp_path, "[roc_auc, log_loss]",
+                       "  logit: {family: linear, grid: {penalty: l2, alpha: [0.001, 0.1]}}",
+                       repeats=1)
     store = Store(tmp_path / "store.duckdb")
     import warnings
 
@@ -507,30 +515,6 @@ def test_a_fold_fitting_without_a_class_names_the_class_and_the_fold():
     assert failure["message"] == ("the fitting rows of fold 2 of repeat 1 hold no row of "
                                   "class 'c', so the model fitted there gives no probability "
                                   "for it")
-
-
-def _sites_spec(tmp_path, metrics: str, models: str):
-    """One class only in 4 of 40 sites, folds by site: ROC AUC is undefined on the
-    validation folds that hold a single class."""
-    rng = np.random.default_rng(5)
-    site = np.repeat(np.arange(40), 8)
-    y = np.where((site < 4) & (rng.random(len(site)) < 0.5), "pos", "neg")
-    df = pd.DataFrame({"site": site, "x": rng.normal(size=len(site)) + (y == "pos"),
-                       "w": rng.normal(size=len(site)), "y": y})
-    df.to_csv(tmp_path / "sites.csv", index=False)
-    path = tmp_path / "spec.yaml"
-    path.write_text(f"""
-name: sites
-data: {{path: sites.csv, target: y, drop: [site]}}
-test: {{fraction: 0.2, seed: 1}}
-folds: {{k: 5, repeats: 2, seed: 7, groups: site}}
-metrics: {metrics}
-store: store.duckdb
-explain: {{cells: none}}
-models:
-{models}
-""")
-    return parse_spec(path.read_text(), source=path)
 
 
 def test_a_pair_is_compared_on_the_folds_where_both_scores_are_defined(tmp_path):
