@@ -405,3 +405,69 @@ def test_an_out_that_is_a_folder_or_lies_under_a_file_is_refused_in_words(rows, 
     assert str(tmp_path / "plain.txt") in out.output and "does not exist" not in out.output
     assert (tmp_path / "plain.txt").read_text() == "x"
     assert sorted(p.name for p in tmp_path.iterdir()) == ["in.csv", "plain.txt", "preds.csv"]
+
+
+@pytest.mark.parametrize("task", ["regression", "classification"])
+def test_a_numeric_category_beside_a_text_one_predicts_as_scikit_learn_fitted_here(tmp_path,
+                                                                                 task):
+    # 'sex' (numbers 1 and 2, listed in data.categorical) shares the linear family's
+    # category block with the text column 'band', so the fitted one-hot encoder holds its
+    # levels as numbers in an object array; a new file must still reach them as numbers.
+    # Reference: a scikit-learn pipeline fitted here on the build's training rows with the
+    # README's features (median + standardise numbers, mode + one-hot categories in level
+    # order), Ridge(alpha, solver="cholesky") or LogisticRegression(C=1/(alpha*n_fit),
+    # newton-cholesky, tol=1e-8).
+    from sklearn.linear_model import LogisticRegression, Ridge
+    from sklearn.model_selection import train_test_split
+
+    from runner.model.build import build_model
+    from runner.store import Store
+    from runner.write.engine import run_sweep
+    from runner.write.spec import load_spec
+    from sklearn.compose import ColumnTransformer
+    from sklearn.impute import SimpleImputer
+    from sklearn.pipeline import make_pipeline
+    from sklearn.preprocessing import OneHotEncoder, StandardScaler
+
+    from .helpers import diabetes_frame, write_spec
+
+    df = diabetes_frame()
+    df["band"] = np.where(df["bmi"] > 26, "heavy", "light")
+    if task == "classification":
+        df["progression"] = np.where(df["progression"] > 140, "fast", "slow")
+    train, new = df.iloc[:400], df.iloc[400:].drop(columns="progression").copy()
+    train.to_csv(tmp_path / "diabetes.csv", index=False)
+    new.loc[new.index[:3], "sex"] = np.nan  # the file's sex column then reads as 1.0, 2.0
+    new.to_csv(tmp_path / "new.csv", index=False)
+    path = write_spec(tmp_path, "lin: {family: linear, grid: {penalty: l2, alpha: [0.5]}}")
+    path.write_text(path.read_text().replace("target: progression", "target: progression\n"
+                                             "  categorical: [sex]")
+                    .replace("metrics: [rmse, mae, r2]", "" if task == "regression" else
+                             "metrics: [log_loss]"))
+    store = Store(tmp_path / "store.duckdb")
+    run_sweep(load_spec(path), store=store, jobs=1)
+    built = build_model(store, model="lin", out=tmp_path / "m.skops")
+    predict_file(load_model(built.artefact), tmp_path / "new.csv", tmp_path / "p.csv")
+    got = pd.read_csv(tmp_path / "p.csv")
+
+    numeric = ["age", "bmi", "bp", "s1", "s2", "s3", "s4", "s5", "s6"]
+    test_rows = train_test_split(np.arange(400), test_size=0.25, random_state=3,
+                                 stratify=None if task == "regression" else
+                                 train["progression"])[1]
+    fit = train.drop(index=test_rows)
+    prep = ColumnTransformer([
+        ("num", make_pipeline(SimpleImputer(strategy="median"), StandardScaler()), numeric),
+        ("cat", make_pipeline(SimpleImputer(strategy="most_frequent"),
+                              OneHotEncoder(handle_unknown="ignore", sparse_output=False)),
+         ["sex", "band"])])
+    model = (Ridge(alpha=0.5, solver="cholesky") if task == "regression" else
+             LogisticRegression(C=1 / (0.5 * len(fit)), solver="newton-cholesky", tol=1e-8))
+    reference = make_pipeline(prep, model).fit(fit[numeric + ["sex", "band"]],
+                                               fit["progression"])
+    rows = new[numeric + ["sex", "band"]]
+    if task == "regression":
+        np.testing.assert_allclose(got["predicted"], reference.predict(rows), rtol=1e-12)
+    else:
+        np.testing.assert_allclose(got["probability_fast"], reference.predict_proba(rows)[:, 0],
+                                   rtol=1e-12)
+        assert got["predicted_class"].tolist() == reference.predict(rows).tolist()

@@ -20,6 +20,7 @@ replaces it only when every row is predicted."""
 
 from __future__ import annotations
 
+import numbers
 import os
 import stat
 import tempfile
@@ -270,7 +271,18 @@ def _numeric_level_columns(pipeline) -> set[str]:
     if hasattr(encoder, "steps"):
         encoder = encoder.steps[-1][1]
     return {str(col) for col, levels in zip(columns, getattr(encoder, "categories_", []))
-            if np.asarray(levels).dtype.kind in "fiub"}
+            if _holds_numbers(np.asarray(levels))}
+
+
+def _holds_numbers(levels: np.ndarray) -> bool:
+    """Whether an encoder's levels are numbers: a numeric array, or an object array of
+    numbers (the linear family's imputer hands the encoder one object array when number
+    and text columns share the category block)."""
+    if levels.dtype.kind in "fiub":
+        return True
+    return (levels.dtype.kind == "O" and len(levels) > 0
+            and all(isinstance(v, numbers.Real) and not isinstance(v, (bool, np.bool_))
+                    for v in levels))
 
 
 def _features(df: pd.DataFrame, card: dict, lookups: dict, kind: str, first: int,
