@@ -611,3 +611,46 @@ def test_a_score_undefined_everywhere_is_shown_and_not_called_a_tie(tmp_path):
     assert titles == ["class a against the rest", "class b against the rest"]
     assert "no curve for gone: no test rows of it" in " ".join(
         fig._suptitle.get_text().split())
+
+
+def test_l1_and_elastic_net_logistic_scores_equal_scikit_learns_saga_bit_for_bit(tmp_path):
+    """Reference: scikit-learn 1.9 LogisticRegression(solver="saga", C=1/(alpha*n_fit),
+    l1_ratio, tol=1e-4, max_iter=1000, random_state=the fold's seed) in cross_validate on
+    RepeatedStratifiedKFold, and sklearn.metrics on the test split: the README's recipe,
+    equal to the last bit (saga stops at max_iter here, so that number matters)."""
+    df = _data("multiclass")
+    df.to_csv(tmp_path / "d.csv", index=False)
+    (tmp_path / "spec.yaml").write_text(
+        "name: s\ndata: {path: d.csv, target: label}\n"
+        f"test: {{fraction: {FRACTION}, seed: {TEST_SEED}}}\n"
+        f"folds: {{k: {K}, repeats: 1, seed: {SEED}}}\nmetrics: [log_loss, accuracy]\n"
+        "store: store.duckdb\nexplain: {cells: none}\nmodels:\n"
+        "  l1: {family: linear, grid: {penalty: l1, alpha: [0.003]}}\n"
+        "  enet: {family: linear, grid: {penalty: elasticnet, alpha: [0.003], l1_ratio: [0.5]}}\n")
+    spec = parse_spec((tmp_path / "spec.yaml").read_text(), source=tmp_path / "spec.yaml")
+    store = Store(run_sweep(spec, jobs=1).store_path)
+    df = pd.read_csv(tmp_path / "d.csv")  # the numbers as read back, as the sweep read them
+    X, y = df.drop(columns="label"), df["label"].to_numpy(dtype=object)
+    test_rows = np.sort(train_test_split(np.arange(len(y)), test_size=FRACTION,
+                                         random_state=TEST_SEED, stratify=y)[1])
+    train_rows = np.setdiff1d(np.arange(len(y)), test_rows)
+    Xtr, ytr = X.iloc[train_rows], y[train_rows]
+    for model, l1_ratio in (("l1", 1.0), ("enet", 0.5)):
+        def make(seed, n_fit):
+            return Pipeline([("prep", _prep("linear")), ("model", LogisticRegression(
+                C=1 / (0.003 * n_fit), l1_ratio=l1_ratio, solver="saga", tol=1e-4,
+                max_iter=1000, random_state=seed))])
+        folds, tests = _stored(store, store.query("select sweep_id from sweeps")["sweep_id"][0],
+                               model, None, None)
+        splits = RepeatedStratifiedKFold(n_splits=K, n_repeats=1, random_state=SEED).split(
+            train_rows, ytr)
+        for f, (fit, valid) in enumerate(splits):
+            est = make(fold_seed(SEED, 0, f), len(fit)).fit(Xtr.iloc[fit], ytr[fit])
+            got = folds[folds.fold == f].set_index("metric")["value"]
+            assert got["log_loss"] == skm.log_loss(ytr[valid],
+                                                   est.predict_proba(Xtr.iloc[valid])), (model, f)
+            assert got["accuracy"] == skm.accuracy_score(ytr[valid],
+                                                         est.predict(Xtr.iloc[valid])), (model, f)
+        est = make(refit_seed(SEED), len(train_rows)).fit(Xtr, ytr)
+        got = tests.set_index("metric")["value"]
+        assert got["log_loss"] == skm.log_loss(y[test_rows], est.predict_proba(X.iloc[test_rows]))
