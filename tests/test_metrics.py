@@ -56,6 +56,21 @@ def test_class_records_agree_with_scikit_learns_functions(name):
     assert scorer._sign == (-1 if metric.better == "lower" else 1)
 
 
+def test_balanced_accuracy_of_rows_lacking_a_class_is_quiet_and_scikit_learns():
+    # A validation fold of time-ordered or grouped folds may hold no row of a class the
+    # model still predicts. Balanced accuracy is then the mean recall over the classes the
+    # rows hold (scikit-learn's balanced_accuracy_score; worked by hand here: recall of a
+    # 2/3, of b 1/2), and the fold's score is no cause for a warning on the terminal.
+    import warnings
+
+    y = np.array(["a", "a", "a", "b", "b"])
+    p = np.array([[.6, .2, .2], [.7, .2, .1], [.1, .1, .8], [.2, .7, .1], [.3, .3, .4]])
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        got = METRICS["balanced_accuracy"].score_classes(y, p, ["a", "b", "c"])
+    assert got == pytest.approx((2 / 3 + 1 / 2) / 2, abs=1e-15)
+
+
 def test_labels_are_unique():
     labels = [m.label for m in METRICS.values()]
     assert len(set(labels)) == len(labels)
