@@ -654,3 +654,40 @@ def test_l1_and_elastic_net_logistic_scores_equal_scikit_learns_saga_bit_for_bit
         est = make(refit_seed(SEED), len(train_rows)).fit(Xtr, ytr)
         got = tests.set_index("metric")["value"]
         assert got["log_loss"] == skm.log_loss(y[test_rows], est.predict_proba(X.iloc[test_rows]))
+
+
+def test_a_score_undefined_on_the_test_split_is_shown_as_such_not_a_crash(tmp_path):
+    # Time-ordered folds of three classes, the third only in the early days: the test
+    # split (the last days) holds two classes, so its one-vs-rest ROC AUC is undefined for
+    # every cell (scikit-learn's roc_auc_score gives NaN with a warning when a class of
+    # `labels` is absent from y_true), stored NULL. `run` must still print its summary.
+    from click.testing import CliRunner
+
+    from runner.cli import main
+
+    rng = np.random.default_rng(2)
+    n = 240
+    day = np.sort(rng.integers(0, 60, n))
+    x = rng.normal(size=n)
+    label = np.where(x > 0.4, "b", "a")
+    label[(day < 30) & (rng.random(n) < 0.3)] = "c"
+    pd.DataFrame({"day": day, "x": x, "w": rng.normal(size=n), "label": label}).to_csv(
+        tmp_path / "d.csv", index=False)
+    (tmp_path / "spec.yaml").write_text(
+        "name: t\ndata: {path: d.csv, target: label}\ntest: {fraction: 0.2}\n"
+        "folds: {k: 3, order: day}\nmetrics: [log_loss, roc_auc]\nstore: s.duckdb\n"
+        "explain: {cells: none}\nmodels:\n"
+        "  logit: {family: linear, grid: {penalty: l2, alpha: [0.01]}}\n"
+        "  tree: {family: pruned_tree, grid: {ccp_alpha: [0.01]}}\n")
+    out = CliRunner().invoke(main, ["run", str(tmp_path / "spec.yaml"), "--jobs", "1"])
+    assert out.exit_code == 0, out.output
+    tests = Store(tmp_path / "s.duckdb").query("select metric, value from test_scores")
+    assert tests[tests.metric == "roc_auc"].value.isna().all()
+    assert (tests[tests.metric == "log_loss"].value > 0).all()
+    assert "test ROC AUC" in out.stdout and "CV ROC AUC (mean ± SE)" in out.stdout
+    got = CliRunner().invoke(main, ["summary", "--store", str(tmp_path / "s.duckdb"),
+                                    "--format", "json"])
+    assert got.exit_code == 0, got.output
+    rows = json.loads(got.stdout)
+    assert [r["test_roc_auc"] for r in rows] == [None, None]
+    assert all(0.5 < r["cv_roc_auc"] <= 1 for r in rows)
