@@ -691,3 +691,16 @@ def test_a_score_undefined_on_the_test_split_is_shown_as_such_not_a_crash(tmp_pa
     rows = json.loads(got.stdout)
     assert [r["test_roc_auc"] for r in rows] == [None, None]
     assert all(0.5 < r["cv_roc_auc"] <= 1 for r in rows)
+    # the sweep is finished: its picks build, and the card says the undefined score is
+    # undefined (JSON null), beside the defined ones, stored and rebuilt
+    built = CliRunner().invoke(main, ["build", "--model", "logit", "--out",
+                                      str(tmp_path / "m.skops"), "--store",
+                                      str(tmp_path / "s.duckdb")])
+    assert built.exit_code == 0, built.output
+    scores = json.loads((tmp_path / "m.card.json").read_text())["scores"]
+    assert scores["test"]["roc_auc"] is None and scores["test_rebuilt"]["roc_auc"] is None
+    stored = tests.set_index("metric").value
+    assert scores["test"]["log_loss"] == scores["test_rebuilt"]["log_loss"] > 0
+    assert scores["test"]["log_loss"] in stored[stored.index == "log_loss"].tolist()
+    shown = CliRunner().invoke(main, ["card", str(tmp_path / "m.skops")])
+    assert shown.exit_code == 0, shown.output

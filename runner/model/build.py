@@ -107,7 +107,7 @@ def _check_finished(store: Store, sweep_id: str, row: dict) -> pd.DataFrame:
                          f"{detail}. Build a finished cell, e.g. the model's pick "
                          "(`foldwise pick`).")
     scores = cell_scores(store, sweep_id, row["cell_id"])
-    if scores["test"].isna().any():
+    if not scores["has_test"].all():
         raise ModelError(f"cell {row['cell_id']} of model '{row['model']}' cannot be built: "
                          "its refit on the training rows has no test score yet (the sweep is "
                          "running or was interrupted). Run the spec again to finish it.")
@@ -272,13 +272,19 @@ def _plain(value):
     return type(value).__name__
 
 
+def _score(value) -> float | None:
+    """A score for the card: None (JSON null) where it is undefined, e.g. a test split's
+    ROC AUC when its rows lack a class."""
+    return float(value) if value is not None and np.isfinite(value) else None
+
+
 def _scores(record_scores: pd.DataFrame, rebuilt: dict | None, all_rows: bool) -> dict:
-    cv = {str(r.metric): {"mean": float(r.mean), "se": float(r.se), "folds": int(r.n)}
+    cv = {str(r.metric): {"mean": _score(r.mean), "se": _score(r.se), "folds": int(r.n)}
           for r in record_scores.itertuples(index=False)}
-    test = {str(r.metric): float(r.test) for r in record_scores.itertuples(index=False)}
+    test = {str(r.metric): _score(r.test) for r in record_scores.itertuples(index=False)}
     out = {"cv": cv, "test": test, "test_describes_this_model": not all_rows}
     if rebuilt is not None:
-        out["test_rebuilt"] = rebuilt
+        out["test_rebuilt"] = {m: _score(v) for m, v in rebuilt.items()}
     if all_rows:
         out["note"] = ("cv and test are the sweep's scores of this cell; this model was "
                        "fitted on the test rows too, so no held-out score describes it.")

@@ -119,9 +119,10 @@ def cell_record(store: Store, sweep_id: str, cell: str) -> dict:
 
 
 def cell_scores(store: Store, sweep_id: str, cell_id: str) -> pd.DataFrame:
-    """A cell's CV mean, SE and folds per metric of the sweep, with its test score."""
+    """A cell's CV mean, SE and folds per metric of the sweep, with its test score
+    (`has_test`: whether the refit's row is there; its value is NULL where undefined)."""
     df = store.query("""
-        select s.metric, s.mean, s.se, s.n, t.value as test
+        select s.metric, s.mean, s.se, s.n, t.value as test, t.metric is not null as has_test
         from cell_summary s
         left join test_scores t
           on t.sweep_id = s.sweep_id and t.cell_id = s.cell_id and t.metric = s.metric
