@@ -117,6 +117,12 @@ def test_report_of_a_sweep_without_explain_rows(tmp_path):
     html = render_report(store)
     assert "Figure not available" in html and "No importances are stored" in html
     assert "a (a linear model) has the best cross-validated RMSE" in html
+    out = CliRunner().invoke(main, ["plot", "importance", "--store", str(store.path),
+                                    "--out-dir", str(tmp_path / "p")])
+    assert out.exit_code == 2
+    assert ("it ran with `explain: {cells: none}` or before foldwise stored them. Run the "
+            "spec again with `explain: {cells: picked}` (the default)") in " ".join(
+                out.output.split())
 
 
 def test_report_out_replaces_only_an_earlier_report(explained, report_file, tmp_path):

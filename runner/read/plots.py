@@ -78,7 +78,8 @@ def model_colours(store: Store, sweep_id: str) -> dict[str, str]:
 
 def _nothing_stored(what: str, sweep_id: str) -> QueryError:
     return QueryError(f"sweep {sweep_id} has no stored {what}: it ran with `explain: {{cells: "
-                      "none}}` or before foldwise stored them. Run the spec again to get them.")
+                      "none}` or before foldwise stored them. Run the spec again with "
+                      "`explain: {cells: picked}` (the default) to get them.")
 
 
 def _headline(fig, question: str, detail: str) -> None:
