@@ -656,6 +656,17 @@ def test_l1_and_elastic_net_logistic_scores_equal_scikit_learns_saga_bit_for_bit
         assert got["log_loss"] == skm.log_loss(y[test_rows], est.predict_proba(X.iloc[test_rows]))
 
 
+def _early_class_frame() -> pd.DataFrame:
+    """240 rows over days 0-59 of classes a and b, and c only before day 30."""
+    rng = np.random.default_rng(2)
+    n = 240
+    day = np.sort(rng.integers(0, 60, n))
+    x = rng.normal(size=n)
+    label = np.where(x > 0.4, "b", "a")
+    label[(day < 30) & (rng.random(n) < 0.3)] = "c"
+    return pd.DataFrame({"day": day, "x": x, "w": rng.normal(size=n), "label": label})
+
+
 def test_a_score_undefined_on_the_test_split_is_shown_as_such_not_a_crash(tmp_path):
     # Time-ordered folds of three classes, the third only in the early days: the test
     # split (the last days) holds two classes, so its one-vs-rest ROC AUC is undefined for
@@ -665,14 +676,7 @@ def test_a_score_undefined_on_the_test_split_is_shown_as_such_not_a_crash(tmp_pa
 
     from runner.cli import main
 
-    rng = np.random.default_rng(2)
-    n = 240
-    day = np.sort(rng.integers(0, 60, n))
-    x = rng.normal(size=n)
-    label = np.where(x > 0.4, "b", "a")
-    label[(day < 30) & (rng.random(n) < 0.3)] = "c"
-    pd.DataFrame({"day": day, "x": x, "w": rng.normal(size=n), "label": label}).to_csv(
-        tmp_path / "d.csv", index=False)
+    _early_class_frame().to_csv(tmp_path / "d.csv", index=False)
     (tmp_path / "spec.yaml").write_text(
         "name: t\ndata: {path: d.csv, target: label}\ntest: {fraction: 0.2}\n"
         "folds: {k: 3, order: day}\nmetrics: [log_loss, roc_auc]\nstore: s.duckdb\n"
@@ -704,3 +708,31 @@ def test_a_score_undefined_on_the_test_split_is_shown_as_such_not_a_crash(tmp_pa
     assert scores["test"]["log_loss"] in stored[stored.index == "log_loss"].tolist()
     shown = CliRunner().invoke(main, ["card", str(tmp_path / "m.skops")])
     assert shown.exit_code == 0, shown.output
+
+
+def test_roc_figure_draws_the_classes_the_test_split_holds(tmp_path):
+    # The same data with test predictions stored: class c has no test rows, so its panel is
+    # left out and said so; a and b each against the rest keep their curves, whose areas
+    # equal scikit-learn's roc_auc_score on the stored probabilities.
+    from runner.read.class_figures import roc_figure
+
+    _early_class_frame().to_csv(tmp_path / "d.csv", index=False)
+    (tmp_path / "spec.yaml").write_text(
+        "name: t\ndata: {path: d.csv, target: label}\ntest: {fraction: 0.2}\n"
+        "folds: {k: 3, order: day}\nmetrics: [log_loss]\nstore: s.duckdb\n"
+        "explain: {permutation: {repeats: 1}}\nmodels:\n"
+        "  logit: {family: linear, grid: {penalty: l2, alpha: [0.01]}}\n")
+    spec = parse_spec((tmp_path / "spec.yaml").read_text(), source=tmp_path / "spec.yaml")
+    store = Store(run_sweep(spec, jobs=1).store_path)
+    fig = roc_figure(store)
+    panels = [ax for ax in fig.axes if ax.get_visible()]
+    assert [ax.get_title(loc="left") for ax in panels] == ["class a against the rest",
+                                                          "class b against the rest"]
+    assert "no curve for c: no test rows of it" in fig._suptitle.get_text().replace(
+        "\n", " ")
+    stored = store.query("select observed_class, probabilities from test_predictions")
+    proba = np.vstack(stored["probabilities"].to_numpy())
+    for k, ax in enumerate(panels):
+        area = skm.roc_auc_score(stored["observed_class"] == "ab"[k], proba[:, k])
+        legend = ax.get_legend().get_texts()[0].get_text()
+        assert legend == f"logit (area {area:.3f})", (legend, area)
