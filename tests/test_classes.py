@@ -736,3 +736,45 @@ def test_roc_figure_draws_the_classes_the_test_split_holds(tmp_path):
         area = skm.roc_auc_score(stored["observed_class"] == "ab"[k], proba[:, k])
         legend = ax.get_legend().get_texts()[0].get_text()
         assert legend == f"logit (area {area:.3f})", (legend, area)
+
+
+def test_a_first_metric_undefined_on_the_test_split_leaves_a_report(tmp_path):
+    # Picks by ROC AUC (defined on every validation fold: class c runs to day 44), whose
+    # test split (the last days) lacks class c: scikit-learn's one-vs-rest ROC AUC is then
+    # undefined (NaN), so are the permutation importances measured in it (stored NULL).
+    # The report still builds, impurity importances still rank, and the permutation
+    # figure says why it has nothing to draw.
+    from click.testing import CliRunner
+
+    from runner.cli import main
+    from runner.read.explained import importance_table
+
+    rng = np.random.default_rng(2)
+    n = 300
+    day = np.sort(rng.integers(0, 60, n))
+    x = rng.normal(size=n)
+    label = np.where(x > 0.4, "b", "a")
+    label[(day < 45) & (rng.random(n) < 0.3)] = "c"
+    pd.DataFrame({"day": day, "x": x, "w": rng.normal(size=n), "label": label}).to_csv(
+        tmp_path / "d.csv", index=False)
+    (tmp_path / "spec.yaml").write_text(
+        "name: t\ndata: {path: d.csv, target: label}\ntest: {fraction: 0.2}\n"
+        "folds: {k: 3, order: day}\nmetrics: [roc_auc, log_loss]\nstore: s.duckdb\n"
+        "explain: {permutation: {repeats: 1}}\nmodels:\n"
+        "  tree: {family: pruned_tree, grid: {ccp_alpha: [0.0, 0.01]}}\n")
+    runner_ = CliRunner()
+    assert runner_.invoke(main, ["run", str(tmp_path / "spec.yaml"), "-q", "--jobs", "1"]
+                          ).exit_code == 0
+    store = Store(tmp_path / "s.duckdb")
+    assert store.query("select count(value) from importances where method = 'permutation'"
+                       ).iloc[0, 0] == 0
+    table = importance_table(store).table
+    assert set(table["method"]) == {"impurity"} and table["rank"].min() == 1
+    report = runner_.invoke(main, ["report", "--store", str(store.path), "--out",
+                                   str(tmp_path / "r.html")])
+    assert report.exit_code == 0, report.output
+    plot = runner_.invoke(main, ["plot", "importance", "--store", str(store.path),
+                                 "--out-dir", str(tmp_path / "p")])
+    assert plot.exit_code == 2
+    assert "permutation importances of sweep" in plot.output
+    assert "which is undefined there" in " ".join(plot.output.split())

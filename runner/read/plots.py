@@ -326,8 +326,14 @@ def importance_figure(store: Store, sweep_id: str | None = None, *,
     result = _picked(store, sweep_id, rule)
     chosen, facts, rule = result.table, result.facts, rule_label(result.rules[0])
     sid, metric, target = facts.sweep_id, facts.metric, facts.target
-    imp = importance_table(store, sid, method=method).table
-    imp = imp[imp["cell_id"].isin(chosen["cell_id"])]
+    stored = importance_table(store, sid, method=method)
+    imp = stored.table[stored.table["cell_id"].isin(chosen["cell_id"])]
+    if imp.empty and set(stored.undefined_cells) & set(chosen["cell_id"]):
+        raise QueryError(f"the {method} importances of sweep {sid}'s {rule} cells are "
+                         f"undefined: they are drops in {metric_label(metric)} on the test "
+                         "split, which is undefined there (for ROC AUC: the test rows lack a "
+                         "class). `foldwise plot importance --method impurity` (trees) or "
+                         "`--method coefficient` (linear models) shows the fitted models'.")
     if imp.empty:
         raise _nothing_stored(f"{method} importances for the {rule} cells", sid)
     models = [m for m in chosen["model"] if m in set(imp["model"])]

@@ -177,6 +177,7 @@ class Importances:
     facts: SweepFacts
     table: pd.DataFrame
     permutation_rows: int | None = None  # test rows each permutation drew, as stored
+    undefined_cells: tuple = ()  # cells whose permutation importances are NULL (undefined)
 
 
 @dataclass(frozen=True)
