@@ -773,6 +773,9 @@ def test_a_first_metric_undefined_on_the_test_split_leaves_a_report(tmp_path):
     report = runner_.invoke(main, ["report", "--store", str(store.path), "--out",
                                    str(tmp_path / "r.html")])
     assert report.exit_code == 0, report.output
+    html = " ".join((tmp_path / "r.html").read_text().split())
+    assert "its test-split ROC AUC is undefined (the test rows lack a class)" in html
+    assert "and on the test split" not in html
     plot = runner_.invoke(main, ["plot", "importance", "--store", str(store.path),
                                  "--out-dir", str(tmp_path / "p")])
     assert plot.exit_code == 2

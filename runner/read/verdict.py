@@ -136,9 +136,12 @@ def decision(chosen: Picks, pairs: Comparison, importances=None) -> Decision:
                      "gap": "" if gap is None else mean_se(gap, se),
                      "wins": "" if wins is None else f"{wins} of {gaps[r.model][4]}",
                      "p": p_text(pv), "first": r.model == lm})
+    test_text = number(top["test"])  # empty where undefined (ROC AUC, a class absent)
     said = [f"{lm} (a {top['family']} model) has the best cross-validated {name} of the "
             f"{rule} picks: {mean_se(top['mean'], top['se'])} over {facts.n_folds} folds "
-            f"({better} is better), and {number(top['test'])} on the test split."]
+            f"({better} is better)" + (f", and {test_text} on the test split." if test_text
+                                       else f"; its test-split {name} is undefined (the test "
+                                       "rows lack a class).")]
     if len(ranked) > 1:
         second = ranked.iloc[1]["model"]
         if second in gaps:
