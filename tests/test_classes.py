@@ -781,3 +781,57 @@ def test_a_first_metric_undefined_on_the_test_split_leaves_a_report(tmp_path):
     assert plot.exit_code == 2
     assert "permutation importances of sweep" in plot.output
     assert "which is undefined there" in " ".join(plot.output.split())
+
+
+def test_time_ordered_class_folds_are_time_series_splits_and_score_as_scikit_learn(tmp_path):
+    """A class target with folds.order: the folds are the README's time recipe
+    (scikit-learn's TimeSeriesSplit(k, gap) over the order column's distinct values), not
+    stratified, and every stored fold and test score of a forest and a logistic cell
+    equals scikit-learn's on those rows to the last bit (reference: scikit-learn 1.9
+    RandomForestClassifier / LogisticRegression and sklearn.metrics)."""
+    from .helpers import documented_time_plan
+
+    frame = _early_class_frame()
+    frame["label"] = np.where(frame["label"] == "c", "a", frame["label"])  # two classes
+    frame.to_csv(tmp_path / "d.csv", index=False)
+    (tmp_path / "spec.yaml").write_text(
+        "name: t\ndata: {path: d.csv, target: label}\ntest: {fraction: 0.2}\n"
+        "folds: {k: 4, order: day, gap: 2, seed: 5}\nmetrics: [log_loss, brier, accuracy]\n"
+        "store: s.duckdb\nexplain: {cells: none}\nmodels:\n"
+        "  logit: {family: linear, grid: {penalty: l2, alpha: [0.01]}}\n"
+        "  forest: {family: forest, grid: {n_estimators: [15], min_samples_leaf: [3]}}\n")
+    spec = parse_spec((tmp_path / "spec.yaml").read_text(), source=tmp_path / "spec.yaml")
+    store = Store(run_sweep(spec, jobs=1).store_path)
+    df = pd.read_csv(tmp_path / "d.csv")
+    X, y = df[["x", "w"]], df["label"].to_numpy(dtype=object)
+    train_rows, test_rows, folds = documented_time_plan(df["day"].to_numpy(), test_fraction=0.2,
+                                                        k=4, gap=2)
+    plan = json.loads(store.query("select plan from sweeps")["plan"][0])
+    assert plan["scheme"] == "time" and not plan.get("stratified")
+    stored = store.query("""select c.model, f.fold, f.metric, f.value, f.n_train, f.n_valid
+        from fold_scores f join cells c using (sweep_id, cell_id)""")
+    tests = store.query("""select c.model, t.metric, t.value from test_scores t
+        join cells c using (sweep_id, cell_id)""").set_index(["model", "metric"])["value"]
+    make = {"logit": lambda s, n: make_pipeline(StandardScaler(), LogisticRegression(
+                C=1 / (0.01 * n), solver="newton-cholesky", tol=1e-8)),
+            "forest": lambda s, n: RandomForestClassifier(n_estimators=15, min_samples_leaf=3,
+                                                          max_features="sqrt", random_state=s,
+                                                          n_jobs=1)}
+    Xtr, ytr = X.iloc[train_rows], y[train_rows]
+
+    def scores(est, rows_X, rows_y):
+        p = est.predict_proba(rows_X)
+        return {"log_loss": skm.log_loss(rows_y, p, labels=["a", "b"]),
+                "brier": skm.brier_score_loss(rows_y, p, labels=["a", "b"],
+                                              scale_by_half="auto"),
+                "accuracy": skm.accuracy_score(rows_y, np.array(["a", "b"])[p.argmax(1)])}
+    for model, build in make.items():
+        for _, f, fit, valid in folds:
+            est = build(fold_seed(5, 0, f), len(fit)).fit(Xtr.iloc[fit], ytr[fit])
+            got = stored[(stored.model == model) & (stored.fold == f)].set_index("metric")
+            assert (got.n_train == len(fit)).all() and (got.n_valid == len(valid)).all()
+            for metric, value in scores(est, Xtr.iloc[valid], ytr[valid]).items():
+                assert got.value[metric] == value, (model, f, metric)
+        est = build(refit_seed(5), len(train_rows)).fit(Xtr, ytr)
+        for metric, value in scores(est, X.iloc[test_rows], y[test_rows]).items():
+            assert tests[(model, metric)] == value, (model, metric)
