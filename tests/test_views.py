@@ -67,3 +67,15 @@ def test_labels_are_spelt_one_way(explained, report_text):
     view = compare_view(compare(store, sid, metric="r2"))
     assert "CV R² a − b (mean ± SE)" in view.table.columns
     assert "CV RMSE (mean ± SE)" in report_text and "CV rmse" not in report_text
+
+
+def test_a_cell_hundreds_of_ses_from_the_best_reads_as_a_whole_number(tmp_path):
+    # 1.0 above a best whose SE is 0.0041 is 245 SEs: two significant digits, '240 SE',
+    # where '%.2g' alone would print '2.4e+02 SE'.
+    from .store_builder import write_sweep
+
+    store = write_sweep(tmp_path / "s.duckdb", {"m": [[2.0, 2.0, 2.0, 2.0],
+                                                     [1.0, 1.01, 0.99, 1.0]]}, k=2, repeats=2)
+    view = complexity_view(complexity_table(store, "m"))
+    column = [c for c in view.table.columns if c.endswith("best")][0]
+    assert view.table[column].tolist() == ["1.0000 = 240 SE", "0.0000 = 0 SE"]

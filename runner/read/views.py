@@ -458,6 +458,13 @@ def _status(pick: str, within: bool, excluded: str) -> str:
     return "within one SE" if within else ""
 
 
+def _se_count(x: float) -> str:
+    """How many SEs, to two significant digits and never in exponent form ('240', not
+    '2.4e+02')."""
+    text = number(x, 2)
+    return _minus(f"{float(text.replace('−', '-')):.0f}") if "e" in text else text
+
+
 def complexity_view(result: ComplexityTable) -> View:
     """One model's cells simplest first: each cell's standing (picks, within one SE of the
     best, or why it cannot be picked), rank, the params shown, mean leaves, CV mean ± SE,
@@ -487,7 +494,7 @@ def complexity_view(result: ComplexityTable) -> View:
         shown[head] = ["" if v != v else
                        (fixed(sign * (v - best_mean), places) if places is not None
                         else number(sign * (v - best_mean)))
-                       + (f" = {number(sign * (v - best_mean) / se_best, 2)} SE"
+                       + (f" = {_se_count(sign * (v - best_mean) / se_best)} SE"
                           if se_best else "")
                        for v in df["mean"]]
         numeric.append(head)
