@@ -14,9 +14,10 @@ import pytest
 from runner.read.explained import tree_node_table
 from runner.read.plots import (NEUTRALS, PALETTE, complexity_figure, importance_figure,
                                models_figure,
-                               panel_grid, predictions_figure, tree_figure)
+                               panel_grid, predictions_figure)
 from runner.read.queries import complexity_table, picks
 from runner.read.report import render_report
+from runner.read.tree_figures import tree_figure
 from runner.read.views import complexity_view, decimals_for
 
 ROOT = Path(__file__).resolve().parents[1]

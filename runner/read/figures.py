@@ -11,9 +11,9 @@ from .class_figures import calibration_figure, roc_figure
 from .filenames import safe_component, safe_names
 from .history_figures import history_figure
 from .plots import (complexity_figure, figure_bytes, image_paths,
-                    importance_figure, models_figure, predictions_figure, tree_figure,
-                    write_images)
+                    importance_figure, models_figure, predictions_figure, write_images)
 from .queries import model_order, sweep_facts
+from .tree_figures import tree_figure
 
 __all__ = ["KINDS", "make_figure", "write_plots"]
 

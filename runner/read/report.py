@@ -17,11 +17,12 @@ from .filenames import (check_replaceable, inside, make_folder, safe_component,
 from ..metrics import get_metric, metric_label
 from .class_figures import calibration_figure, roc_figure
 from .plots import (NEUTRALS, complexity_figure, figure_svg, importance_figure,
-                    model_colours, models_figure, predictions_figure, tree_figure)
+                    model_colours, models_figure, predictions_figure)
 from .explained import importance_table, stability_table, tree_fold_table
 from .queries import (compare, complexity_table, findings, picks, summary, sweep_facts,
                       sweep_record)
 from ..store import Store
+from .tree_figures import tree_figure
 from .verdict import decision
 from .views import (METHODS, ORDERED_FOLDS_NOTE, STABILITY_COLUMNS, TREE_FOLD_COLUMNS, View,
                     columns_view, compare_view, complexity_view, edge_notes, findings_view,
