@@ -132,8 +132,10 @@ def _plain_log_ticks(axis, lo: float, hi: float) -> None:
 
 def _mark_picks(ax, x, table, better: str, *, beside: bool = False) -> list[int]:
     """The best cell (an ink star) and the one-SE cell (an ink ring), each named beside it
-    (lines gid 'pick_best' and 'pick_one_se'); the rows of the marked cells. `beside`
-    writes the names right of the mark, clear of a vertical SE bar through it."""
+    (lines gid 'pick_best' and 'pick_one_se'); the rows of the marked cells. A name goes
+    above or below its cell (the two picks on opposite sides), past the end of the cell's
+    SE bar and past its test cross when that lies on the same side, so it covers neither.
+    `beside` writes the names right of the mark, clear of a vertical SE bar through it."""
     marks = {"best": ("*", 13, INK, "best"), "one_se": ("o", 11, "none", "one-SE pick")}
     placed = {}
     for rule, (marker, size, face, text) in marks.items():
@@ -148,15 +150,23 @@ def _mark_picks(ax, x, table, better: str, *, beside: bool = False) -> list[int]
         placed.setdefault(i, []).append(text)
     for i, texts in placed.items():
         y = float(table["mean"].iloc[i])
+        name = " and ".join(texts) + f"\n{number(y)}"
+        if beside:
+            ax.annotate(name, (x[i], y), xytext=(12, 0), textcoords="offset points",
+                        ha="left", va="center", fontsize=8, color=INK, zorder=6,
+                        gid="pick_name")
+            continue
         down = (better == "lower") == (len(placed) == 1 or texts[0] == "best")
-        offset = (12, 0) if beside else (0, -26 if down else 20)
-        ax.annotate(" and ".join(texts) + f"\n{number(y)}", (x[i], y),
-                    xytext=offset, textcoords="offset points",
-                    ha="left" if beside else "center", va="center", fontsize=8, color=INK,
-                    zorder=6, gid="pick_name",
-                    arrowprops=None if beside else {
-                        "arrowstyle": "-", "color": MUTED, "linewidth": 0.7,
-                        "shrinkA": 0, "shrinkB": 7})
+        sign = -1 if down else 1
+        se, test = (float(table[c].iloc[i]) for c in ("se", "test"))
+        ends = [y + sign * (se if math.isfinite(se) else 0.0)]
+        if math.isfinite(test):
+            ends.append(test)
+        end = min(ends) if down else max(ends)
+        # 9 points past the farther end: clear of the ring's and the star's half size too
+        ax.annotate(name, (x[i], end), xytext=(0, 9 * sign), textcoords="offset points",
+                    ha="center", va="top" if down else "bottom", fontsize=8, color=INK,
+                    zorder=6, gid="pick_name")
     return list(placed)
 
 
