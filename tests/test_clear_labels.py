@@ -93,3 +93,91 @@ def test_the_one_se_name_clears_its_cells_test_cross_and_se_bar(linear, model):
     assert not text.overlaps(_mark_box(ax, crosses, x, test))
     assert not text.overlaps(_bar_box(ax, x, mean - se, mean + se))
     assert not text.overlaps(_mark_box(ax, ring, x, mean))
+
+
+def _everything_else(ax, label):
+    """Pixel boxes of every marker (lines' and scatters') and every other text in `ax`, and
+    the pixel paths of its drawn lines and SE bars, leaving out `label` and the threshold."""
+    from matplotlib.collections import LineCollection, PathCollection
+
+    boxes, paths = [], []
+    for line in ax.get_lines():
+        if line.get_gid() == "one_se_threshold":
+            continue
+        if line.get_marker() not in ("None", "", " ", None):
+            boxes += [_mark_box(ax, line, x, y) for x, y in line.get_xydata()
+                      if np.isfinite(y)]
+        if line.get_linestyle() not in ("None", "", " "):
+            paths.append(line.get_transform().transform_path(line.get_path()))
+    for c in ax.collections:
+        if isinstance(c, PathCollection):
+            half = (np.sqrt(c.get_sizes().max()) + c.get_linewidths().max()) / 2
+            half *= ax.figure.dpi / 72
+            for cx, cy in ax.transData.transform(c.get_offsets()):
+                boxes.append(_box(cx - half, cy - half, cx + half, cy + half))
+        elif isinstance(c, LineCollection):
+            paths += [c.get_transform().transform_path(p) for p in c.get_paths()]
+    boxes += [t.get_window_extent() for t in ax.texts if t is not label]
+    return boxes, paths
+
+
+def _box(x0, y0, x1, y1):
+    from matplotlib.transforms import Bbox
+
+    return Bbox.from_extents(x0, y0, x1, y1)
+
+
+def _threshold_name_is_clear(fig):
+    (ax,) = fig.axes
+    _drawn(fig)
+    (label,) = [t for t in ax.texts if t.get_gid() == "one_se_threshold_label"]
+    box = label.get_window_extent()
+    assert box.width > 0 and ax.bbox.x0 <= box.x0 and box.x1 <= ax.bbox.x1
+    boxes, paths = _everything_else(ax, label)
+    assert len(boxes) > 10 and paths
+    covered = [b for b in boxes if box.overlaps(b)]
+    crossed = [p for p in paths if p.intersects_bbox(box, filled=False)]
+    assert not covered and not crossed, (box, covered, len(crossed))
+
+
+@pytest.mark.parametrize("model", ["ridge", "lasso"])
+def test_the_threshold_name_clears_every_mark_line_and_name(linear, model):
+    # lasso: test crosses lie just above the threshold at the end away from the picks
+    store, sid = linear
+    _threshold_name_is_clear(complexity_figure(store, model, sid))
+
+
+def test_the_threshold_name_clears_an_unordered_grids_se_bars(monkeypatch):
+    # the demo forest's four cells (specs/greenhouse.yaml, CV RMSE over 5 x 2 grouped folds):
+    # the first cell's SE bar crosses the threshold at the end away from the picks
+    import json
+
+    import pandas as pd
+
+    import runner.read.plots as plots
+    from runner.read.results import ComplexityTable, SweepFacts
+
+    leaf, share = [5, 5, 1, 1], [0.33, 1.0, 0.33, 1.0]
+    table = pd.DataFrame({
+        "complexity_rank": [0, 1, 2, 3], "min_samples_leaf": pd.Series(leaf, dtype=object),
+        "max_features": pd.Series(share, dtype=object),
+        "cell_id": ["c0", "c1", "c2", "c3"],
+        "params": [json.dumps({"max_features": s, "min_samples_leaf": m,
+                               "n_estimators": 100}) for m, s in zip(leaf, share)],
+        "metric": "rmse", "mean": [5.785305, 5.589417, 5.721007, 5.579729],
+        "se": [0.141305, 0.110003, 0.156187, 0.112894], "n": 10,
+        "mean_leaves": np.nan, "test": [5.396898, 5.557469, 5.318886, 5.505793],
+        "within_one_se": [False, True, False, True], "pick": ["", "one_se", "", "best"],
+        "excluded": ""})
+    facts = SweepFacts("s", "greenhouse-yield", "yield_kg_m2", ("rmse",), {"rmse": "lower"},
+                       5, 2, "one_se", scheme="groups")
+    result = ComplexityTable(facts, "forest", "forest", "rmse", "plain", table,
+                             5.579729 + 0.112894, ("min_samples_leaf", "max_features"))
+    monkeypatch.setattr(plots, "complexity_table", lambda *a, **k: result)
+    monkeypatch.setattr(plots, "model_colours", lambda *a: {})
+    fig = complexity_figure(None, "forest", "s")
+    from matplotlib.collections import LineCollection
+
+    bars = [c for c in fig.axes[0].collections if isinstance(c, LineCollection)]
+    assert len(bars) == 1 and len(bars[0].get_segments()) == 4  # drawn as SE bars
+    _threshold_name_is_clear(fig)

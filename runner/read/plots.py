@@ -181,6 +181,67 @@ def _clear_side(ax, x, rows: list[int], y: float) -> float:
     return 0.0 if min(fractions) >= 1 - max(fractions) else 1.0
 
 
+def _name_threshold(ax, line, threshold: float, better: str, side: float) -> None:
+    """The one-SE threshold's value written along its line, at the first of these places
+    that covers no mark, line or name (else where it covers fewest): outside the band at
+    the end `side`, outside at the other end, inside the band at `side`, inside at the
+    other end."""
+    op = "+" if better == "lower" else "−"
+    up = 1 if better == "lower" else -1
+    label = ax.annotate(f"one-SE threshold: best {op} 1 SE = {number(threshold)}",
+                        (side, threshold), xycoords=("axes fraction", "data"),
+                        xytext=(0, 0), textcoords="offset points", fontsize=7.5, color=MUTED,
+                        gid="one_se_threshold_label")
+    label.set_in_layout(False)  # every place is inside the axes: the layout never moves
+    places = [(end, sign * up) for sign in (1, -1) for end in (side, 1.0 - side)]
+
+    def put(end: float, sign: int):
+        label.xy, label.xyann = (end, threshold), (4 - 8 * end, 3 * sign)
+        label.set_ha("right" if end else "left")
+        label.set_va("bottom" if sign > 0 else "top")
+        return label.get_window_extent()
+
+    def covered(place) -> int:
+        box = put(*place)
+        return (sum(box.overlaps(b) for b in boxes) +
+                sum(p.intersects_bbox(box, filled=False) for p in paths))
+
+    ax.figure.draw_without_rendering()  # lay out once: from here pixels are final
+    boxes, paths = _drawn_marks(ax, skip=(line, label))
+    put(*min(places, key=covered))
+
+
+def _drawn_marks(ax, skip=()) -> tuple[list, list]:
+    """What a label in a drawn `ax` must not cover, in pixels: a box per marker (of lines
+    and scatters) and per text, and the path of every line and line collection."""
+    from matplotlib.collections import LineCollection, PathCollection
+    from matplotlib.transforms import Bbox
+
+    boxes, paths, to_pixels = [], [], ax.figure.dpi / 72
+
+    def around(points, half):
+        return [Bbox.from_extents(px - half, py - half, px + half, py + half)
+                for px, py in points if math.isfinite(px) and math.isfinite(py)]
+
+    for ln in ax.get_lines():
+        if ln in skip or not ln.get_visible():
+            continue
+        if ln.get_marker() not in (None, "None", "", " "):
+            half = (ln.get_markersize() + ln.get_markeredgewidth()) / 2 * to_pixels
+            boxes += around(ln.get_transform().transform(ln.get_xydata()), half)
+        if ln.get_linestyle() not in ("None", "", " "):
+            paths.append(ln.get_transform().transform_path(ln.get_path()))
+    for c in ax.collections:
+        if isinstance(c, PathCollection) and len(c.get_offsets()):
+            half = (math.sqrt(float(np.max(c.get_sizes()))) +
+                    float(np.max(c.get_linewidths(), initial=0))) / 2 * to_pixels
+            boxes += around(c.get_offset_transform().transform(c.get_offsets()), half)
+        elif isinstance(c, LineCollection):
+            paths += [c.get_transform().transform_path(p) for p in c.get_paths()]
+    boxes += [t.get_window_extent() for t in ax.texts if t not in skip and t.get_text()]
+    return boxes, paths
+
+
 def complexity_figure(store: Store, model: str, sweep_id: str | None = None, *,
                       se: str = "plain"):
     """One model's CV error against complexity: the mean of every cell on a line with a
@@ -234,15 +295,6 @@ def complexity_figure(store: Store, model: str, sweep_id: str | None = None, *,
         if ticks is not None:
             ax.set_xticks(x, ticks, fontsize=8)
             ax.set_xlim(x.min() - 0.5, x.max() + 0.5)
-        if threshold is not None and len(best):
-            side = _clear_side(ax, x, marked, threshold)
-            op = "+" if better == "lower" else "−"
-            ax.annotate(f"one-SE threshold: best {op} 1 SE = {number(threshold)}",
-                        (side, threshold), xycoords=("axes fraction", "data"),
-                        xytext=(4 - 8 * side, 3 if better == "lower" else -3),
-                        textcoords="offset points", ha="right" if side else "left",
-                        va="bottom" if better == "lower" else "top", fontsize=7.5,
-                        color=MUTED, gid="one_se_threshold_label")
         ax.margins(y=0.2)  # room for the picks' names
         ax.set_xlabel(f"{xlabel}\n← simpler        more complex →", color=INK)
         ax.set_ylabel(get_metric(metric).axis_label(facts.target))
@@ -251,6 +303,8 @@ def complexity_figure(store: Store, model: str, sweep_id: str | None = None, *,
                   f"{family}, {facts.n_folds} folds per cell, {result.se} SE; filled "
                   "points: within one SE of the best")
         fig.legend(loc="outside lower center", ncols=3)
+        if threshold is not None and len(best):
+            _name_threshold(ax, line, threshold, better, _clear_side(ax, x, marked, threshold))
     return fig
 
 
