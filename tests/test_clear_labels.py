@@ -181,3 +181,42 @@ def test_the_threshold_name_clears_an_unordered_grids_se_bars(monkeypatch):
     bars = [c for c in fig.axes[0].collections if isinstance(c, LineCollection)]
     assert len(bars) == 1 and len(bars[0].get_segments()) == 4  # drawn as SE bars
     _threshold_name_is_clear(fig)
+
+
+@pytest.fixture(scope="module", params=["three", "two"])
+def graded(request, tmp_path_factory):
+    """(store, sweep id) of a small class sweep of the shipped grades demo data: all three
+    grades, or grades A and B only (one ROC panel, the narrowest figure)."""
+    import pandas as pd
+
+    from runner.store import Store
+    from runner.write.engine import run_sweep
+    from runner.write.spec import load_spec
+
+    folder = tmp_path_factory.mktemp(request.param)
+    data = pd.read_csv(Path(__file__).resolve().parents[1] / "specs" / "data" / "grades.csv")
+    if request.param == "two":
+        data = data[data["grade"] != "C"]
+    data.to_csv(folder / "grades.csv", index=False)
+    (folder / "spec.yaml").write_text(
+        "name: grades\ndata: {path: grades.csv, target: grade, drop: [scale_battery_pct]}\n"
+        "test: {fraction: 0.2, seed: 11}\nfolds: {k: 3, repeats: 1, seed: 2026}\n"
+        "metrics: [log_loss]\nstore: store.duckdb\nexplain: {cells: picked}\nmodels:\n"
+        "  logistic: {family: linear, grid: {penalty: l2, alpha: [0.001, 0.01]}}\n")
+    result = run_sweep(load_spec(folder / "spec.yaml"), jobs=1)
+    return Store(result.store_path), result.sweep_id
+
+
+@pytest.mark.parametrize("kind", ["roc", "calibration"])
+def test_the_class_figures_side_label_stays_below_the_headline_on_the_page(graded, kind):
+    from runner.read.figures import make_figure
+
+    store, sid = graded
+    fig = make_figure(kind, store, sid)
+    _drawn(fig)
+    side, headline = fig._supylabel, fig._suptitle
+    assert side.get_text() and headline.get_gid() == "headline"
+    box, top = side.get_window_extent(), headline.get_window_extent()
+    assert box.height > 0 and fig.bbox.y0 <= box.y0
+    assert box.y1 < top.y0, (side.get_text(), box, top)
+    assert fig.bbox.x0 <= top.x0 and top.x1 <= fig.bbox.x1, (headline.get_text(), top)

@@ -13,7 +13,7 @@ import pandas as pd
 
 from ..errors import QueryError
 from .plots import (INK, MUTED, PALETTE, _figure, _headline, _nothing_stored, _picked,
-                    _style, label_open_bottoms, model_colours)
+                    _side_label, _style, label_open_bottoms, model_colours)
 from .explained import prediction_table
 from ..store import Store
 from .views import fixed, rule_label
@@ -106,11 +106,12 @@ def calibration_figure(store: Store, sweep_id: str | None = None, *, rule: str |
             ax.set_visible(False)
         label_open_bottoms(axes, len(models), cols)
         fig.supxlabel("probability given to the predicted class (binned)", fontsize=9)
-        fig.supylabel("share of those rows predicted right", fontsize=9)
-        _headline(fig, "When a model is p sure, is it right that often?",
-                  f"{rule_label(result.rules[0])} cell of each model refit on all training "
-                  f"rows, {len(preds) // max(1, len(models))} test rows of {facts.target}; "
-                  "dashed: perfectly calibrated; dot area: rows in the bin")
+        headline = _headline(
+            fig, "When a model is p sure, is it right that often?",
+            f"{rule_label(result.rules[0])} cell of each model refit on all training "
+            f"rows, {len(preds) // max(1, len(models))} test rows of {facts.target}; "
+            "dashed: perfectly calibrated; dot area: rows in the bin")
+        _side_label(fig, headline, "share of those rows predicted right")
     return fig
 
 
@@ -152,10 +153,11 @@ def roc_figure(store: Store, sweep_id: str | None = None, *, rule: str | None = 
             ax.set_visible(False)
         label_open_bottoms(axes, len(shown), cols)
         fig.supxlabel("share of other rows ranked above the threshold", fontsize=9)
-        fig.supylabel("share of the class's rows\nranked above the threshold", fontsize=9)
-        _headline(fig, "How well does each model rank a class's rows above the others?",
-                  f"{rule_label(result.rules[0])} cell of each model refit on all training "
-                  f"rows, test split of {facts.target}; dashed: no better than chance"
-                  + (f"; no curve for {', '.join(absent)}: no test rows of "
-                     f"{'it' if len(absent) == 1 else 'them'}" if absent else ""))
+        headline = _headline(
+            fig, "How well does each model rank a class's rows above the others?",
+            f"{rule_label(result.rules[0])} cell of each model refit on all training "
+            f"rows, test split of {facts.target}; dashed: no better than chance"
+            + (f"; no curve for {', '.join(absent)}: no test rows of "
+               f"{'it' if len(absent) == 1 else 'them'}" if absent else ""))
+        _side_label(fig, headline, "share of the class's rows ranked above the threshold")
     return fig

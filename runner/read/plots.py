@@ -82,11 +82,28 @@ def _nothing_stored(what: str, sweep_id: str) -> QueryError:
                       "`explain: {cells: picked}` (the default) to get them.")
 
 
-def _headline(fig, question: str, detail: str) -> None:
+def _headline(fig, question: str, detail: str):
     """The figure's title: the question it answers, then what is shown."""
     width = int(fig.get_figwidth() * 12)  # characters that fit at this font size
-    fig.suptitle(f"{question}\n{textwrap.fill(detail, width)}", x=0.01, ha="left",
-                 fontsize=9.5, linespacing=1.5, gid="headline")
+    return fig.suptitle(f"{textwrap.fill(question, width)}\n{textwrap.fill(detail, width)}",
+                        x=0.01, ha="left", fontsize=9.5, linespacing=1.5, gid="headline")
+
+
+def _side_label(fig, headline, text: str) -> None:
+    """The figure's y label, centred on its height and wrapped into as few lines of even
+    length as keep it below the `headline`: one line of a long label on a short figure ran
+    into it."""
+    label = fig.supylabel(text, fontsize=9)
+    gap = 4 * fig.dpi / 72
+    for lines in range(2, 6):
+        fig.draw_without_rendering()
+        box, top = label.get_window_extent(), headline.get_window_extent()
+        if box.y1 + gap <= top.y0:
+            return
+        width = math.ceil(len(text) / lines)
+        while len(textwrap.wrap(text, width, break_long_words=False)) > lines:
+            width += 1
+        label.set_text(textwrap.fill(text, width, break_long_words=False))
 
 
 # -- (a) CV error against complexity -------------------------------------------------------
@@ -490,10 +507,10 @@ def predictions_figure(store: Store, sweep_id: str | None = None, *, rule: str |
             ax.set_visible(False)
         label_open_bottoms(axes, len(models), cols)
         fig.supxlabel(f"observed {target}", fontsize=9)
-        fig.supylabel(f"predicted {target}", fontsize=9)
-        _headline(fig, "How close are the test-split predictions?",
-                  f"{rule} cell of each model, refit on all training rows; "
-                  "dashed line: prediction = observation")
+        headline = _headline(fig, "How close are the test-split predictions?",
+                             f"{rule} cell of each model, refit on all training rows; "
+                             "dashed line: prediction = observation")
+        _side_label(fig, headline, f"predicted {target}")
     return fig
 
 
