@@ -220,3 +220,34 @@ def test_the_class_figures_side_label_stays_below_the_headline_on_the_page(grade
     assert box.height > 0 and fig.bbox.y0 <= box.y0
     assert box.y1 < top.y0, (side.get_text(), box, top)
     assert fig.bbox.x0 <= top.x0 and top.x1 <= fig.bbox.x1, (headline.get_text(), top)
+
+
+def test_the_test_mark_sits_beside_the_cv_mean_and_its_se_bar(tmp_path):
+    # a test score equal to the CV mean (the demo forest's differ by 0.03 RMSE) used to
+    # hide the mean's tick under the diamond
+    from runner.read.plots import models_figure
+
+    from .store_builder import write_sweep
+
+    scores = {"ridge": [[6.2, 6.5, 6.9, 6.4, 6.6, 6.3, 6.8, 6.5, 6.4, 6.7]],
+              "forest": [[5.4, 5.7, 5.5, 5.8, 5.6, 5.3, 5.9, 5.6, 5.5, 5.6]]}
+    store = write_sweep(tmp_path / "s.duckdb", scores, k=5, repeats=2)
+    fig = models_figure(store)
+    (ax,) = fig.axes
+    _drawn(fig)
+    tests = [ln for ln in ax.get_lines() if ln.get_marker() == "D"]
+    bars = ax.containers  # one per model: the mean's tick, the caps, the SE bar
+    assert len(tests) == 2 and len(bars) == 2
+    for test, (mean, caps, (bar,)) in zip(tests, bars):
+        ((cx, cy),) = test.get_transform().transform(test.get_xydata())
+        ((mx, my),) = mean.get_transform().transform(mean.get_xydata())
+        assert cy == pytest.approx(my)  # drawn at the CV mean's height, as stored
+        half = (test.get_markersize() + test.get_markeredgewidth()) / 2 * fig.dpi / 72
+        diamond = _box(cx - half, cy - half, cx + half, cy + half)
+        for tick in (mean, *caps):
+            ((tx, ty),) = tick.get_transform().transform(tick.get_xydata())
+            reach = (tick.get_markersize() + tick.get_markeredgewidth()) / 2 * fig.dpi / 72
+            assert not diamond.overlaps(_box(tx - reach, ty - reach, tx + reach, ty + reach))
+        for path in bar.get_paths():
+            assert not path.transformed(bar.get_transform()).intersects_bbox(diamond,
+                                                                              filled=False)

@@ -335,19 +335,22 @@ def _picked(store: Store, sweep_id: str | None, rule: str | None) -> Picks:
 
 def models_figure(store: Store, sweep_id: str | None = None, *, rule: str | None = None):
     """Each model's picked cell: fold scores as points (grey lines join the same fold),
-    mean ± SE, and the test score."""
+    mean ± SE, and the test score just right of the mean's tick, so neither hides the other."""
     result = _picked(store, sweep_id, rule)
     chosen, facts = result.table, result.facts
     sid, metric = facts.sweep_id, facts.metric
     folds = picked_fold_scores(store, sid, metric, chosen["cell_id"].tolist())
     colours = model_colours(store, sid)
     models = chosen["model"].tolist()
+    from matplotlib.transforms import offset_copy
+
     with _style():
         fig = _figure(max(5.0, 1.35 * len(models) + 2.2), 4.4)
         ax = fig.add_subplot()
         wide = folds.pivot_table(index=["repeat", "fold"], columns="model", values="value")
         n = len(wide)
         offsets = np.linspace(-0.18, 0.18, n) if n > 1 else np.zeros(1)
+        beside = offset_copy(ax.transData, fig, x=14, units="points")  # clear of the tick
         for j in range(n):  # paired: the same fold across models
             ax.plot(np.arange(len(models)) + offsets[j], wide.iloc[j].reindex(models).to_numpy(),
                     color=FAINT, linewidth=0.7, zorder=1)
@@ -363,7 +366,8 @@ def models_figure(store: Store, sweep_id: str | None = None, *, rule: str | None
             if r.test == r.test and r.test is not None:
                 ax.plot([i + 0.36], [r.test], linestyle="none", marker="D", markersize=6,
                         markerfacecolor="white", markeredgecolor=INK, markeredgewidth=1.3,
-                        zorder=4, label="test split score" if i == 0 else None)
+                        zorder=4, label="test split score" if i == 0 else None,
+                        transform=beside)
         ax.set_xticks(range(len(models)), [f"{m}\n{f}" for m, f in zip(models, chosen["family"])])
         ax.set_xlim(-0.6, len(models) - 0.4)
         ax.set_ylabel(get_metric(metric).axis_label(facts.target, prefix=""))
