@@ -100,7 +100,8 @@ def test_the_cycle_finder_finds_a_cycle():
 READ_SIDE = ["runner.store", "runner.read.queries", "runner.read.explained",
              "runner.read.past_queries", "runner.read.results", "runner.read.views",
              "runner.read.model_views", "runner.read.past_views",
-             "runner.read.plots", "runner.read.tree_figures", "runner.read.report"]
+             "runner.read.plots", "runner.read.tree_figures", "runner.read.placing",
+             "runner.read.report"]
 
 
 def test_store_and_read_side_do_not_import_scikit_learn():

@@ -12,8 +12,9 @@ import numpy as np
 import pandas as pd
 
 from ..errors import QueryError
+from .placing import side_label
 from .plots import (INK, MUTED, PALETTE, _figure, _headline, _nothing_stored, _picked,
-                    _side_label, _style, label_open_bottoms, model_colours)
+                    _style, label_open_bottoms, model_colours)
 from .explained import prediction_table
 from ..store import Store
 from .views import fixed, rule_label
@@ -111,7 +112,7 @@ def calibration_figure(store: Store, sweep_id: str | None = None, *, rule: str |
             f"{rule_label(result.rules[0])} cell of each model refit on all training "
             f"rows, {len(preds) // max(1, len(models))} test rows of {facts.target}; "
             "dashed: perfectly calibrated; dot area: rows in the bin")
-        _side_label(fig, headline, "share of those rows predicted right")
+        side_label(fig, headline, "share of those rows predicted right")
     return fig
 
 
@@ -159,5 +160,5 @@ def roc_figure(store: Store, sweep_id: str | None = None, *, rule: str | None = 
             f"rows, test split of {facts.target}; dashed: no better than chance"
             + (f"; no curve for {', '.join(absent)}: no test rows of "
                f"{'it' if len(absent) == 1 else 'them'}" if absent else ""))
-        _side_label(fig, headline, "share of the class's rows ranked above the threshold")
+        side_label(fig, headline, "share of the class's rows ranked above the threshold")
     return fig

@@ -25,6 +25,7 @@ from ..families import get_family
 from .filenames import check_folder, check_replaceable, inside, make_folder, write_whole
 from ..metrics import get_metric, metric_label
 from .picks import check_rule
+from .placing import covered, drawn_marks, side_label
 from .explained import importance_table, prediction_table
 from .queries import complexity_table, model_order, picked_fold_scores, picks, sweep_facts
 from .results import ComplexityTable, Picks
@@ -87,23 +88,6 @@ def _headline(fig, question: str, detail: str):
     width = int(fig.get_figwidth() * 12)  # characters that fit at this font size
     return fig.suptitle(f"{textwrap.fill(question, width)}\n{textwrap.fill(detail, width)}",
                         x=0.01, ha="left", fontsize=9.5, linespacing=1.5, gid="headline")
-
-
-def _side_label(fig, headline, text: str) -> None:
-    """The figure's y label, centred on its height and wrapped into as few lines of even
-    length as keep it below the `headline`: one line of a long label on a short figure ran
-    into it."""
-    label = fig.supylabel(text, fontsize=9)
-    gap = 4 * fig.dpi / 72
-    for lines in range(2, 6):
-        fig.draw_without_rendering()
-        box, top = label.get_window_extent(), headline.get_window_extent()
-        if box.y1 + gap <= top.y0:
-            return
-        width = math.ceil(len(text) / lines)
-        while len(textwrap.wrap(text, width, break_long_words=False)) > lines:
-            width += 1
-        label.set_text(textwrap.fill(text, width, break_long_words=False))
 
 
 # -- (a) CV error against complexity -------------------------------------------------------
@@ -218,45 +202,9 @@ def _name_threshold(ax, line, threshold: float, better: str, side: float) -> Non
         label.set_va("bottom" if sign > 0 else "top")
         return label.get_window_extent()
 
-    def covered(place) -> int:
-        box = put(*place)
-        return (sum(box.overlaps(b) for b in boxes) +
-                sum(p.intersects_bbox(box, filled=False) for p in paths))
-
     ax.figure.draw_without_rendering()  # lay out once: from here pixels are final
-    boxes, paths = _drawn_marks(ax, skip=(line, label))
-    put(*min(places, key=covered))
-
-
-def _drawn_marks(ax, skip=()) -> tuple[list, list]:
-    """What a label in a drawn `ax` must not cover, in pixels: a box per marker (of lines
-    and scatters) and per text, and the path of every line and line collection."""
-    from matplotlib.collections import LineCollection, PathCollection
-    from matplotlib.transforms import Bbox
-
-    boxes, paths, to_pixels = [], [], ax.figure.dpi / 72
-
-    def around(points, half):
-        return [Bbox.from_extents(px - half, py - half, px + half, py + half)
-                for px, py in points if math.isfinite(px) and math.isfinite(py)]
-
-    for ln in ax.get_lines():
-        if ln in skip or not ln.get_visible():
-            continue
-        if ln.get_marker() not in (None, "None", "", " "):
-            half = (ln.get_markersize() + ln.get_markeredgewidth()) / 2 * to_pixels
-            boxes += around(ln.get_transform().transform(ln.get_xydata()), half)
-        if ln.get_linestyle() not in ("None", "", " "):
-            paths.append(ln.get_transform().transform_path(ln.get_path()))
-    for c in ax.collections:
-        if isinstance(c, PathCollection) and len(c.get_offsets()):
-            half = (math.sqrt(float(np.max(c.get_sizes()))) +
-                    float(np.max(c.get_linewidths(), initial=0))) / 2 * to_pixels
-            boxes += around(c.get_offset_transform().transform(c.get_offsets()), half)
-        elif isinstance(c, LineCollection):
-            paths += [c.get_transform().transform_path(p) for p in c.get_paths()]
-    boxes += [t.get_window_extent() for t in ax.texts if t not in skip and t.get_text()]
-    return boxes, paths
+    marks = drawn_marks(ax, skip=(line, label))
+    put(*min(places, key=lambda place: covered(put(*place), *marks)))
 
 
 def complexity_figure(store: Store, model: str, sweep_id: str | None = None, *,
@@ -514,7 +462,7 @@ def predictions_figure(store: Store, sweep_id: str | None = None, *, rule: str |
         headline = _headline(fig, "How close are the test-split predictions?",
                              f"{rule} cell of each model, refit on all training rows; "
                              "dashed line: prediction = observation")
-        _side_label(fig, headline, f"predicted {target}")
+        side_label(fig, headline, f"predicted {target}")
     return fig
 
 

@@ -1,0 +1,66 @@
+"""Where words go on a drawn figure: measured in pixels after a layout pass, so a name or
+a label covers no mark, line or other text (a fixed offset in points could not know how
+close the data sit once the axes are laid out)."""
+
+from __future__ import annotations
+
+import math
+import textwrap
+
+import numpy as np
+
+__all__ = ["covered", "drawn_marks", "side_label"]
+
+
+def drawn_marks(ax, skip=()) -> tuple[list, list]:
+    """What a label in a drawn `ax` must not cover, in pixels: a box per marker (of lines
+    and scatters) and per text, and the path of every line and line collection."""
+    from matplotlib.collections import LineCollection, PathCollection
+    from matplotlib.transforms import Bbox
+
+    boxes, paths, to_pixels = [], [], ax.figure.dpi / 72
+
+    def around(points, half):
+        return [Bbox.from_extents(px - half, py - half, px + half, py + half)
+                for px, py in points if math.isfinite(px) and math.isfinite(py)]
+
+    for ln in ax.get_lines():
+        if ln in skip or not ln.get_visible():
+            continue
+        if ln.get_marker() not in (None, "None", "", " "):
+            half = (ln.get_markersize() + ln.get_markeredgewidth()) / 2 * to_pixels
+            boxes += around(ln.get_transform().transform(ln.get_xydata()), half)
+        if ln.get_linestyle() not in ("None", "", " "):
+            paths.append(ln.get_transform().transform_path(ln.get_path()))
+    for c in ax.collections:
+        if isinstance(c, PathCollection) and len(c.get_offsets()):
+            half = (math.sqrt(float(np.max(c.get_sizes()))) +
+                    float(np.max(c.get_linewidths(), initial=0))) / 2 * to_pixels
+            boxes += around(c.get_offset_transform().transform(c.get_offsets()), half)
+        elif isinstance(c, LineCollection):
+            paths += [c.get_transform().transform_path(p) for p in c.get_paths()]
+    boxes += [t.get_window_extent() for t in ax.texts if t not in skip and t.get_text()]
+    return boxes, paths
+
+
+def covered(box, boxes, paths) -> int:
+    """How many of the marks' `boxes` and `paths` (as drawn_marks gives them) `box` covers."""
+    return (sum(box.overlaps(b) for b in boxes) +
+            sum(p.intersects_bbox(box, filled=False) for p in paths))
+
+
+def side_label(fig, headline, text: str) -> None:
+    """The figure's y label, centred on its height and wrapped into as few lines of even
+    length as keep it below the `headline`: one line of a long label on a short figure ran
+    into it."""
+    label = fig.supylabel(text, fontsize=9)
+    gap = 4 * fig.dpi / 72
+    for lines in range(2, 6):
+        fig.draw_without_rendering()
+        box, top = label.get_window_extent(), headline.get_window_extent()
+        if box.y1 + gap <= top.y0:
+            return
+        width = math.ceil(len(text) / lines)
+        while len(textwrap.wrap(text, width, break_long_words=False)) > lines:
+            width += 1
+        label.set_text(textwrap.fill(text, width, break_long_words=False))
