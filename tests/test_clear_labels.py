@@ -95,14 +95,15 @@ def test_the_one_se_name_clears_its_cells_test_cross_and_se_bar(linear, model):
     assert not text.overlaps(_mark_box(ax, ring, x, mean))
 
 
-def _everything_else(ax, label):
+def _everything_else(ax, label, *, keep_threshold=False):
     """Pixel boxes of every marker (lines' and scatters') and every other text in `ax`, and
-    the pixel paths of its drawn lines and SE bars, leaving out `label` and the threshold."""
+    the pixel paths of its drawn lines and SE bars, leaving out `label` (and the threshold
+    line unless `keep_threshold`)."""
     from matplotlib.collections import LineCollection, PathCollection
 
     boxes, paths = [], []
     for line in ax.get_lines():
-        if line.get_gid() == "one_se_threshold":
+        if line.get_gid() == "one_se_threshold" and not keep_threshold:
             continue
         if line.get_marker() not in ("None", "", " ", None):
             boxes += [_mark_box(ax, line, x, y) for x, y in line.get_xydata()
@@ -147,9 +148,10 @@ def test_the_threshold_name_clears_every_mark_line_and_name(linear, model):
     _threshold_name_is_clear(complexity_figure(store, model, sid))
 
 
-def test_the_threshold_name_clears_an_unordered_grids_se_bars(monkeypatch):
-    # the demo forest's four cells (specs/greenhouse.yaml, CV RMSE over 5 x 2 grouped folds):
-    # the first cell's SE bar crosses the threshold at the end away from the picks
+def _forest_figure(monkeypatch, leaf, share, mean, se, test, pick, *, metric="rmse",
+                   target="yield_kg_m2"):
+    """The complexity figure of four forest cells given as numbers (an unordered grid, so
+    each cell's SE is a vertical bar), drawn by complexity_figure as from a store."""
     import json
 
     import pandas as pd
@@ -157,22 +159,20 @@ def test_the_threshold_name_clears_an_unordered_grids_se_bars(monkeypatch):
     import runner.read.plots as plots
     from runner.read.results import ComplexityTable, SweepFacts
 
-    leaf, share = [5, 5, 1, 1], [0.33, 1.0, 0.33, 1.0]
     table = pd.DataFrame({
         "complexity_rank": [0, 1, 2, 3], "min_samples_leaf": pd.Series(leaf, dtype=object),
         "max_features": pd.Series(share, dtype=object),
         "cell_id": ["c0", "c1", "c2", "c3"],
-        "params": [json.dumps({"max_features": s, "min_samples_leaf": m,
-                               "n_estimators": 100}) for m, s in zip(leaf, share)],
-        "metric": "rmse", "mean": [5.785305, 5.589417, 5.721007, 5.579729],
-        "se": [0.141305, 0.110003, 0.156187, 0.112894], "n": 10,
-        "mean_leaves": np.nan, "test": [5.396898, 5.557469, 5.318886, 5.505793],
-        "within_one_se": [False, True, False, True], "pick": ["", "one_se", "", "best"],
-        "excluded": ""})
-    facts = SweepFacts("s", "greenhouse-yield", "yield_kg_m2", ("rmse",), {"rmse": "lower"},
-                       5, 2, "one_se", scheme="groups")
-    result = ComplexityTable(facts, "forest", "forest", "rmse", "plain", table,
-                             5.579729 + 0.112894, ("min_samples_leaf", "max_features"))
+        "params": [json.dumps({"max_features": s, "min_samples_leaf": m})
+                   for m, s in zip(leaf, share)],
+        "metric": metric, "mean": mean, "se": se, "n": 10, "mean_leaves": np.nan,
+        "test": test, "pick": pick, "excluded": ""})
+    best = table["mean"][table["pick"].str.contains("best")].iloc[0]
+    threshold = best + table["se"][table["pick"].str.contains("best")].iloc[0]
+    table["within_one_se"] = table["mean"] <= threshold
+    facts = SweepFacts("s", "demo", target, (metric,), {metric: "lower"}, 5, 2, "one_se")
+    result = ComplexityTable(facts, "forest", "forest", metric, "plain", table, threshold,
+                             ("min_samples_leaf", "max_features"))
     monkeypatch.setattr(plots, "complexity_table", lambda *a, **k: result)
     monkeypatch.setattr(plots, "model_colours", lambda *a: {})
     fig = complexity_figure(None, "forest", "s")
@@ -180,7 +180,36 @@ def test_the_threshold_name_clears_an_unordered_grids_se_bars(monkeypatch):
 
     bars = [c for c in fig.axes[0].collections if isinstance(c, LineCollection)]
     assert len(bars) == 1 and len(bars[0].get_segments()) == 4  # drawn as SE bars
+    return fig
+
+
+def test_the_threshold_name_clears_an_unordered_grids_se_bars(monkeypatch):
+    # the demo forest's four cells (specs/greenhouse.yaml, CV RMSE over 5 x 2 grouped folds):
+    # the first cell's SE bar crosses the threshold at the end away from the picks
+    fig = _forest_figure(monkeypatch, [5, 5, 1, 1], [0.33, 1.0, 0.33, 1.0],
+                         [5.785305, 5.589417, 5.721007, 5.579729],
+                         [0.141305, 0.110003, 0.156187, 0.112894],
+                         [5.396898, 5.557469, 5.318886, 5.505793], ["", "one_se", "", "best"])
     _threshold_name_is_clear(fig)
+
+
+def test_a_picks_name_beside_its_mark_clears_the_threshold_line(monkeypatch):
+    # the demo's class forest (specs/grades.yaml, CV log loss over 5 x 2 folds): the one-SE
+    # cell's mean lies just under the threshold, whose line ran through its name
+    fig = _forest_figure(monkeypatch, [10, 10, 3, 3], ["sqrt", 0.5, "sqrt", 0.5],
+                         [0.678466, 0.660312, 0.651151, 0.641906],
+                         [0.008994, 0.009864, 0.009577, 0.010919],
+                         [0.620912, 0.610878, 0.596056, 0.587468], ["", "", "one_se", "best"],
+                         metric="log_loss", target="grade")
+    (ax,) = fig.axes
+    _drawn(fig)
+    names = [t for t in ax.texts if t.get_gid() == "pick_name"]
+    assert sorted(t.get_text().split("\n")[0] for t in names) == ["best", "one-SE pick"]
+    for name in names:
+        box = name.get_window_extent()
+        boxes, paths = _everything_else(ax, name, keep_threshold=True)
+        assert not [b for b in boxes if box.overlaps(b)], name.get_text()
+        assert not [p for p in paths if p.intersects_bbox(box, filled=False)], name.get_text()
 
 
 @pytest.fixture(scope="module", params=["three", "two"])

@@ -194,6 +194,7 @@ def _name_threshold(ax, line, threshold: float, better: str, side: float) -> Non
                         xytext=(0, 0), textcoords="offset points", fontsize=7.5, color=MUTED,
                         gid="one_se_threshold_label")
     label.set_in_layout(False)  # every place is inside the axes: the layout never moves
+    # `ax` is laid out already (complexity_figure), so pixels are final
     places = [(end, sign * up) for sign in (1, -1) for end in (side, 1.0 - side)]
 
     def put(end: float, sign: int):
@@ -202,9 +203,23 @@ def _name_threshold(ax, line, threshold: float, better: str, side: float) -> Non
         label.set_va("bottom" if sign > 0 else "top")
         return label.get_window_extent()
 
-    ax.figure.draw_without_rendering()  # lay out once: from here pixels are final
     marks = drawn_marks(ax, skip=(line, label))
     put(*min(places, key=lambda place: covered(put(*place), *marks)))
+
+
+def _clear_names_beside(ax) -> None:
+    """Each pick's name right of its mark: level with it, or if that covers a mark, a line
+    (the threshold's) or a name, just below it, or just above (else where it covers
+    fewest)."""
+    places = [(0, "center"), (-4, "top"), (4, "bottom")]
+    for name in [t for t in ax.texts if t.get_gid() == "pick_name"]:
+        def put(dy: int, va: str, name=name):
+            name.xyann = (12, dy)
+            name.set_va(va)
+            return name.get_window_extent()
+
+        marks = drawn_marks(ax, skip=(name,))
+        put(*min(places, key=lambda place: covered(put(*place), *marks)))
 
 
 def complexity_figure(store: Store, model: str, sweep_id: str | None = None, *,
@@ -268,6 +283,9 @@ def complexity_figure(store: Store, model: str, sweep_id: str | None = None, *,
                   f"{family}, {facts.n_folds} folds per cell, {result.se} SE; filled "
                   "points: within one SE of the best")
         fig.legend(loc="outside lower center", ncols=3)
+        fig.draw_without_rendering()  # lay out once: from here pixels are final
+        if ticks is not None:
+            _clear_names_beside(ax)
         if threshold is not None and len(best):
             _name_threshold(ax, line, threshold, better, _clear_side(ax, x, marked, threshold))
     return fig
