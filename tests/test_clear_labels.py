@@ -148,10 +148,10 @@ def test_the_threshold_name_clears_every_mark_line_and_name(linear, model):
     _threshold_name_is_clear(complexity_figure(store, model, sid))
 
 
-def _forest_figure(monkeypatch, leaf, share, mean, se, test, pick, *, metric="rmse",
-                   target="yield_kg_m2"):
-    """The complexity figure of four forest cells given as numbers (an unordered grid, so
-    each cell's SE is a vertical bar), drawn by complexity_figure as from a store."""
+def _figure_of(monkeypatch, family, grid, mean, se, test, pick, *, metric="rmse",
+               target="yield_kg_m2"):
+    """The complexity figure of cells given as numbers (`grid`: each shown parameter's
+    value per cell, simplest cell first), drawn by complexity_figure as from a store."""
     import json
 
     import pandas as pd
@@ -159,25 +159,32 @@ def _forest_figure(monkeypatch, leaf, share, mean, se, test, pick, *, metric="rm
     import runner.read.plots as plots
     from runner.read.results import ComplexityTable, SweepFacts
 
-    table = pd.DataFrame({
-        "complexity_rank": [0, 1, 2, 3], "min_samples_leaf": pd.Series(leaf, dtype=object),
-        "max_features": pd.Series(share, dtype=object),
-        "cell_id": ["c0", "c1", "c2", "c3"],
-        "params": [json.dumps({"max_features": s, "min_samples_leaf": m})
-                   for m, s in zip(leaf, share)],
-        "metric": metric, "mean": mean, "se": se, "n": 10, "mean_leaves": np.nan,
-        "test": test, "pick": pick, "excluded": ""})
-    best = table["mean"][table["pick"].str.contains("best")].iloc[0]
-    threshold = best + table["se"][table["pick"].str.contains("best")].iloc[0]
+    n = len(mean)
+    table = pd.DataFrame({"complexity_rank": range(n)})
+    for name, values in grid.items():
+        table[name] = pd.Series(values, dtype=object)
+    table = table.assign(
+        cell_id=[f"c{i}" for i in range(n)],
+        params=[json.dumps({k: v[i] for k, v in grid.items()}) for i in range(n)],
+        metric=metric, mean=mean, se=se, n=10, mean_leaves=np.nan, test=test, pick=pick,
+        excluded="")
+    best = table["pick"].str.contains("best")
+    threshold = float(table["mean"][best].iloc[0] + table["se"][best].iloc[0])
     table["within_one_se"] = table["mean"] <= threshold
     facts = SweepFacts("s", "demo", target, (metric,), {metric: "lower"}, 5, 2, "one_se")
-    result = ComplexityTable(facts, "forest", "forest", metric, "plain", table, threshold,
-                             ("min_samples_leaf", "max_features"))
+    result = ComplexityTable(facts, "m", family, metric, "plain", table, threshold,
+                             tuple(grid))
     monkeypatch.setattr(plots, "complexity_table", lambda *a, **k: result)
     monkeypatch.setattr(plots, "model_colours", lambda *a: {})
-    fig = complexity_figure(None, "forest", "s")
+    return complexity_figure(None, "m", "s")
+
+
+def _forest_figure(monkeypatch, leaf, share, mean, se, test, pick, **facts):
+    """Four forest cells (an unordered grid, so each cell's SE is a vertical bar)."""
     from matplotlib.collections import LineCollection
 
+    fig = _figure_of(monkeypatch, "forest", {"min_samples_leaf": leaf, "max_features": share},
+                     mean, se, test, pick, **facts)
     bars = [c for c in fig.axes[0].collections if isinstance(c, LineCollection)]
     assert len(bars) == 1 and len(bars[0].get_segments()) == 4  # drawn as SE bars
     return fig
@@ -280,3 +287,20 @@ def test_the_test_mark_sits_beside_the_cv_mean_and_its_se_bar(tmp_path):
         for path in bar.get_paths():
             assert not path.transformed(bar.get_transform()).intersects_bbox(diamond,
                                                                               filled=False)
+
+
+def test_a_picks_name_above_its_cell_goes_past_the_threshold_line(monkeypatch):
+    # a one-SE cell with a small SE under a best cell with a large one: the top of its SE
+    # bar ends 0.12 under the threshold, so a name just above the bar sat across the line
+    fig = _figure_of(monkeypatch, "linear", {"alpha": [1000.0, 100.0, 10.0, 1.0, 0.1]},
+                     [7.2, 6.45, 6.42, 6.40, 6.41], [0.15, 0.03, 0.1, 0.2, 0.2],
+                     [7.1, 6.40, 6.5, 6.45, 6.46], ["", "one_se", "", "best", ""])
+    (ax,) = fig.axes
+    _drawn(fig)
+    names = [t for t in ax.texts if t.get_gid() == "pick_name"]
+    assert sorted(t.get_text().split("\n")[0] for t in names) == ["best", "one-SE pick"]
+    for name in names:
+        box = name.get_window_extent()
+        boxes, paths = _everything_else(ax, name, keep_threshold=True)
+        assert not [b for b in boxes if box.overlaps(b)], name.get_text()
+        assert not [p for p in paths if p.intersects_bbox(box, filled=False)], name.get_text()

@@ -9,7 +9,7 @@ import textwrap
 
 import numpy as np
 
-__all__ = ["covered", "drawn_marks", "side_label"]
+__all__ = ["covered", "drawn_marks", "settle", "side_label"]
 
 
 def drawn_marks(ax, skip=()) -> tuple[list, list]:
@@ -47,6 +47,21 @@ def covered(box, boxes, paths) -> int:
     """How many of the marks' `boxes` and `paths` (as drawn_marks gives them) `box` covers."""
     return (sum(box.overlaps(b) for b in boxes) +
             sum(p.intersects_bbox(box, filled=False) for p in paths))
+
+
+def settle(ax, text, places, skip=()) -> None:
+    """Put the annotation `text` at the first of `places` ((xy, offset in points, ha, va))
+    where it covers nothing drawn in the laid-out `ax` but the `skip` artists, else where
+    it covers fewest."""
+    marks = drawn_marks(ax, skip=(text, *skip))
+
+    def put(place):
+        text.xy, text.xyann = place[0], place[1]
+        text.set_ha(place[2])
+        text.set_va(place[3])
+        return text.get_window_extent()
+
+    put(min(places, key=lambda place: covered(put(place), *marks)))
 
 
 def side_label(fig, headline, text: str) -> None:

@@ -25,7 +25,7 @@ from ..families import get_family
 from .filenames import check_folder, check_replaceable, inside, make_folder, write_whole
 from ..metrics import get_metric, metric_label
 from .picks import check_rule
-from .placing import covered, drawn_marks, side_label
+from .placing import settle, side_label
 from .explained import importance_table, prediction_table
 from .queries import complexity_table, model_order, picked_fold_scores, picks, sweep_facts
 from .results import ComplexityTable, Picks
@@ -131,12 +131,15 @@ def _plain_log_ticks(axis, lo: float, hi: float) -> None:
         axis.set_minor_formatter(NullFormatter())
 
 
-def _mark_picks(ax, x, table, better: str, *, beside: bool = False) -> list[int]:
-    """The best cell (an ink star) and the one-SE cell (an ink ring), each named beside it
-    (lines gid 'pick_best' and 'pick_one_se'); the rows of the marked cells. A name goes
-    above or below its cell (the two picks on opposite sides), past the end of the cell's
-    SE bar and past its test cross when that lies on the same side, so it covers neither.
-    `beside` writes the names right of the mark, clear of a vertical SE bar through it."""
+def _mark_picks(ax, x, table, better: str, threshold: float | None, *,
+                beside: bool = False) -> dict[int, tuple]:
+    """The best cell (an ink star) and the one-SE cell (an ink ring), each named (lines gid
+    'pick_best' and 'pick_one_se', names gid 'pick_name'); per marked row its name and the
+    places it may take, best first, for `settle` once the figure is laid out. A name goes
+    above or below its cell (the two picks on opposite sides, else the other side), past
+    the end of the cell's SE bar and past its test cross and the threshold line when they
+    lie on that side. `beside` writes it right of the mark, clear of a vertical SE bar
+    through it: level with the mark, else just below or just above."""
     marks = {"best": ("*", 13, INK, "best"), "one_se": ("o", 11, "none", "one-SE pick")}
     placed = {}
     for rule, (marker, size, face, text) in marks.items():
@@ -149,26 +152,31 @@ def _mark_picks(ax, x, table, better: str, *, beside: bool = False) -> list[int]
                 markerfacecolor=face, markeredgecolor=PICK_MARK,
                 markeredgewidth=1.8 if rule == "one_se" else 0.8, zorder=5, gid=f"pick_{rule}")
         placed.setdefault(i, []).append(text)
+    named = {}
     for i, texts in placed.items():
         y = float(table["mean"].iloc[i])
-        name = " and ".join(texts) + f"\n{number(y)}"
-        if beside:
-            ax.annotate(name, (x[i], y), xytext=(12, 0), textcoords="offset points",
-                        ha="left", va="center", fontsize=8, color=INK, zorder=6,
-                        gid="pick_name")
-            continue
-        down = (better == "lower") == (len(placed) == 1 or texts[0] == "best")
-        sign = -1 if down else 1
         se, test = (float(table[c].iloc[i]) for c in ("se", "test"))
-        ends = [y + sign * (se if math.isfinite(se) else 0.0)]
-        if math.isfinite(test):
-            ends.append(test)
-        end = min(ends) if down else max(ends)
-        # 9 points past the farther end: clear of the ring's and the star's half size too
-        ax.annotate(name, (x[i], end), xytext=(0, 9 * sign), textcoords="offset points",
-                    ha="center", va="top" if down else "bottom", fontsize=8, color=INK,
-                    zorder=6, gid="pick_name")
-    return list(placed)
+
+        def past(sign: int, y=y, se=se, test=test, i=i):
+            """9 points past the farthest of this cell's marks on one side: clear of the
+            ring's and the star's half size too."""
+            ends = [y + sign * (se if math.isfinite(se) else 0.0)] + [
+                v for v in (test, threshold) if v is not None and math.isfinite(v)
+                and (v - y) * sign > 0]
+            end = max(ends) if sign > 0 else min(ends)
+            return (x[i], end), (0, 9 * sign), "center", "bottom" if sign > 0 else "top"
+
+        if beside:
+            places = [((x[i], y), (12, dy), "left", va)
+                      for dy, va in ((0, "center"), (-4, "top"), (4, "bottom"))]
+        else:
+            down = (better == "lower") == (len(placed) == 1 or texts[0] == "best")
+            places = [past(-1 if down else 1), past(1 if down else -1)]
+        xy, offset, ha, va = places[0]
+        named[i] = (ax.annotate(" and ".join(texts) + f"\n{number(y)}", xy, xytext=offset,
+                                textcoords="offset points", ha=ha, va=va, fontsize=8,
+                                color=INK, zorder=6, gid="pick_name"), places)
+    return named
 
 
 def _clear_side(ax, x, rows: list[int], y: float) -> float:
@@ -186,40 +194,18 @@ def _name_threshold(ax, line, threshold: float, better: str, side: float) -> Non
     """The one-SE threshold's value written along its line, at the first of these places
     that covers no mark, line or name (else where it covers fewest): outside the band at
     the end `side`, outside at the other end, inside the band at `side`, inside at the
-    other end."""
+    other end. `ax` is laid out already, so its pixels are final."""
     op = "+" if better == "lower" else "−"
     up = 1 if better == "lower" else -1
+    places = [((end, threshold), (4 - 8 * end, 3 * sign * up), "right" if end else "left",
+               "bottom" if sign * up > 0 else "top")
+              for sign in (1, -1) for end in (side, 1.0 - side)]
     label = ax.annotate(f"one-SE threshold: best {op} 1 SE = {number(threshold)}",
                         (side, threshold), xycoords=("axes fraction", "data"),
                         xytext=(0, 0), textcoords="offset points", fontsize=7.5, color=MUTED,
                         gid="one_se_threshold_label")
     label.set_in_layout(False)  # every place is inside the axes: the layout never moves
-    # `ax` is laid out already (complexity_figure), so pixels are final
-    places = [(end, sign * up) for sign in (1, -1) for end in (side, 1.0 - side)]
-
-    def put(end: float, sign: int):
-        label.xy, label.xyann = (end, threshold), (4 - 8 * end, 3 * sign)
-        label.set_ha("right" if end else "left")
-        label.set_va("bottom" if sign > 0 else "top")
-        return label.get_window_extent()
-
-    marks = drawn_marks(ax, skip=(line, label))
-    put(*min(places, key=lambda place: covered(put(*place), *marks)))
-
-
-def _clear_names_beside(ax) -> None:
-    """Each pick's name right of its mark: level with it, or if that covers a mark, a line
-    (the threshold's) or a name, just below it, or just above (else where it covers
-    fewest)."""
-    places = [(0, "center"), (-4, "top"), (4, "bottom")]
-    for name in [t for t in ax.texts if t.get_gid() == "pick_name"]:
-        def put(dy: int, va: str, name=name):
-            name.xyann = (12, dy)
-            name.set_va(va)
-            return name.get_window_extent()
-
-        marks = drawn_marks(ax, skip=(name,))
-        put(*min(places, key=lambda place: covered(put(*place), *marks)))
+    settle(ax, label, places, skip=(line,))
 
 
 def complexity_figure(store: Store, model: str, sweep_id: str | None = None, *,
@@ -266,7 +252,8 @@ def complexity_figure(store: Store, model: str, sweep_id: str | None = None, *,
             ax.plot(x, table["test"].to_numpy(float), linestyle="none", marker="x",
                     markersize=4, markeredgewidth=1.0, color=MUTED, zorder=3,
                     label="test split (not used to pick)")
-        marked = _mark_picks(ax, x, table, better, beside=ticks is not None)
+        named = _mark_picks(ax, x, table, better, threshold if len(best) else None,
+                            beside=ticks is not None)
         if log:
             ax.set_xscale("log")
             _plain_log_ticks(ax.xaxis, float(x.min()), float(x.max()))
@@ -284,10 +271,11 @@ def complexity_figure(store: Store, model: str, sweep_id: str | None = None, *,
                   "points: within one SE of the best")
         fig.legend(loc="outside lower center", ncols=3)
         fig.draw_without_rendering()  # lay out once: from here pixels are final
-        if ticks is not None:
-            _clear_names_beside(ax)
+        for name, places in named.values():
+            settle(ax, name, places)
         if threshold is not None and len(best):
-            _name_threshold(ax, line, threshold, better, _clear_side(ax, x, marked, threshold))
+            _name_threshold(ax, line, threshold, better, _clear_side(ax, x, list(named),
+                                                                     threshold))
     return fig
 
 
