@@ -304,3 +304,23 @@ def test_a_picks_name_above_its_cell_goes_past_the_threshold_line(monkeypatch):
         boxes, paths = _everything_else(ax, name, keep_threshold=True)
         assert not [b for b in boxes if box.overlaps(b)], name.get_text()
         assert not [p for p in paths if p.intersects_bbox(box, filled=False)], name.get_text()
+
+
+def test_every_test_mark_beside_a_mean_lies_inside_the_axes(tmp_path):
+    # drawn in an offset transform, the diamonds must still widen the y range to reach them
+    from runner.read.plots import models_figure
+
+    from .store_builder import write_sweep
+
+    scores = {"ridge": [[6.2, 6.5, 6.9, 6.4, 6.6, 6.3, 6.8, 6.5, 6.4, 6.7]],
+              "forest": [[5.4, 5.7, 5.5, 5.8, 5.6, 5.3, 5.9, 5.6, 5.5, 5.6]]}
+    store = write_sweep(tmp_path / "s.duckdb", scores, k=5, repeats=2,
+                        tests={"ridge": [7.6], "forest": [4.6]})
+    fig = models_figure(store)
+    (ax,) = fig.axes
+    _drawn(fig)
+    tests = [ln for ln in ax.get_lines() if ln.get_marker() == "D"]
+    assert [float(ln.get_ydata()[0]) for ln in tests] == [7.6, 4.6]
+    for line in tests:
+        ((cx, cy),) = line.get_transform().transform(line.get_xydata())
+        assert ax.bbox.x0 < cx < ax.bbox.x1 and ax.bbox.y0 < cy < ax.bbox.y1

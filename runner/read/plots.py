@@ -322,6 +322,8 @@ def models_figure(store: Store, sweep_id: str | None = None, *, rule: str | None
                         markerfacecolor="white", markeredgecolor=INK, markeredgewidth=1.3,
                         zorder=4, label="test split score" if i == 0 else None,
                         transform=beside)
+                ax.update_datalim([(i + 0.36, r.test)])  # autoscaling skips offset marks
+        ax.autoscale_view()
         ax.set_xticks(range(len(models)), [f"{m}\n{f}" for m, f in zip(models, chosen["family"])])
         ax.set_xlim(-0.6, len(models) - 0.4)
         ax.set_ylabel(get_metric(metric).axis_label(facts.target, prefix=""))
