@@ -324,3 +324,22 @@ def test_every_test_mark_beside_a_mean_lies_inside_the_axes(tmp_path):
     for line in tests:
         ((cx, cy),) = line.get_transform().transform(line.get_xydata())
         assert ax.bbox.x0 < cx < ax.bbox.x1 and ax.bbox.y0 < cy < ax.bbox.y1
+
+
+@pytest.mark.parametrize("first", [True, False])
+def test_a_picks_name_at_an_end_cell_stays_inside_the_axes(monkeypatch, first):
+    # the simplest (or the most complex) cell is best and the one-SE pick: its name,
+    # centred on it, ran out of the axes over the tick numbers
+    means = [6.4, 6.6, 6.9, 7.3] if first else [7.3, 6.9, 6.6, 6.4]
+    fig = _figure_of(monkeypatch, "linear", {"alpha": [1000.0, 100.0, 10.0, 1.0]},
+                     means, [0.1, 0.1, 0.1, 0.1], [m + 0.3 for m in means],
+                     ["best one_se", "", "", ""] if first else ["", "", "", "best one_se"])
+    (ax,) = fig.axes
+    _drawn(fig)
+    (name,) = [t for t in ax.texts if t.get_gid() == "pick_name"]
+    assert name.get_text() == "best and one-SE pick\n6.4"
+    box = name.get_window_extent()
+    assert ax.bbox.x0 <= box.x0 and box.x1 <= ax.bbox.x1, (box, ax.bbox)
+    boxes, paths = _everything_else(ax, name, keep_threshold=True)
+    assert not [b for b in boxes if box.overlaps(b)]
+    assert not [p for p in paths if p.intersects_bbox(box, filled=False)]

@@ -51,9 +51,10 @@ def covered(box, boxes, paths) -> int:
 
 def settle(ax, text, places, skip=()) -> None:
     """Put the annotation `text` at the first of `places` ((xy, offset in points, ha, va))
-    where it covers nothing drawn in the laid-out `ax` but the `skip` artists, else where
-    it covers fewest."""
+    where it stays inside the laid-out `ax` and covers nothing drawn there but the `skip`
+    artists, else where it covers fewest (running out of the axes counts as one)."""
     marks = drawn_marks(ax, skip=(text, *skip))
+    frame = ax.bbox
 
     def put(place):
         text.xy, text.xyann = place[0], place[1]
@@ -61,7 +62,13 @@ def settle(ax, text, places, skip=()) -> None:
         text.set_va(place[3])
         return text.get_window_extent()
 
-    put(min(places, key=lambda place: covered(put(place), *marks)))
+    def cost(place) -> int:
+        box = put(place)
+        out = not (frame.x0 <= box.x0 and box.x1 <= frame.x1 and frame.y0 <= box.y0
+                   and box.y1 <= frame.y1)
+        return covered(box, *marks) + out
+
+    put(min(places, key=cost))
 
 
 def side_label(fig, headline, text: str) -> None:

@@ -138,7 +138,8 @@ def _mark_picks(ax, x, table, better: str, threshold: float | None, *,
     places it may take, best first, for `settle` once the figure is laid out. A name goes
     above or below its cell (the two picks on opposite sides, else the other side), past
     the end of the cell's SE bar and past its test cross and the threshold line when they
-    lie on that side. `beside` writes it right of the mark, clear of a vertical SE bar
+    lie on that side, centred on it or running right or left from beside it, inside the
+    axes. `beside` writes it right of the mark, clear of a vertical SE bar
     through it: level with the mark, else just below or just above."""
     marks = {"best": ("*", 13, INK, "best"), "one_se": ("o", 11, "none", "one-SE pick")}
     placed = {}
@@ -158,24 +159,29 @@ def _mark_picks(ax, x, table, better: str, threshold: float | None, *,
         se, test = (float(table[c].iloc[i]) for c in ("se", "test"))
 
         def past(sign: int, y=y, se=se, test=test, i=i):
-            """9 points past the farthest of this cell's marks on one side: clear of the
-            ring's and the star's half size too."""
+            """9 points past the farthest of this cell's marks on one side (clear of the
+            ring's and the star's half size too), centred on the cell or running right or
+            left from just beside it."""
             ends = [y + sign * (se if math.isfinite(se) else 0.0)] + [
                 v for v in (test, threshold) if v is not None and math.isfinite(v)
                 and (v - y) * sign > 0]
             end = max(ends) if sign > 0 else min(ends)
-            return (x[i], end), (0, 9 * sign), "center", "bottom" if sign > 0 else "top"
+            va = "bottom" if sign > 0 else "top"
+            return [((x[i], end), (dx, 9 * sign), ha, va)
+                    for dx, ha in ((0, "center"), (-6, "left"), (6, "right"))]
 
         if beside:
             places = [((x[i], y), (12, dy), "left", va)
                       for dy, va in ((0, "center"), (-4, "top"), (4, "bottom"))]
         else:
             down = (better == "lower") == (len(placed) == 1 or texts[0] == "best")
-            places = [past(-1 if down else 1), past(1 if down else -1)]
+            places = past(-1 if down else 1) + past(1 if down else -1)
         xy, offset, ha, va = places[0]
-        named[i] = (ax.annotate(" and ".join(texts) + f"\n{number(y)}", xy, xytext=offset,
-                                textcoords="offset points", ha=ha, va=va, fontsize=8,
-                                color=INK, zorder=6, gid="pick_name"), places)
+        name = ax.annotate(" and ".join(texts) + f"\n{number(y)}", xy, xytext=offset,
+                           textcoords="offset points", ha=ha, va=va, fontsize=8, color=INK,
+                           zorder=6, gid="pick_name")
+        name.set_in_layout(False)  # it settles inside the axes: the layout never moves
+        named[i] = (name, places)
     return named
 
 
