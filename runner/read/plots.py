@@ -139,8 +139,8 @@ def _mark_picks(ax, x, table, better: str, threshold: float | None, *,
     above or below its cell (the two picks on opposite sides, else the other side), past
     the end of the cell's SE bar and past its test cross and the threshold line when they
     lie on that side, centred on it or running right or left from beside it, inside the
-    axes. `beside` writes it right of the mark, clear of a vertical SE bar
-    through it: level with the mark, else just below or just above."""
+    axes. `beside` writes it right of the mark, clear of a vertical SE bar through it:
+    level with the mark, else just below or just above."""
     marks = {"best": ("*", 13, INK, "best"), "one_se": ("o", 11, "none", "one-SE pick")}
     placed = {}
     for rule, (marker, size, face, text) in marks.items():
