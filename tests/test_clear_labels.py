@@ -1,5 +1,6 @@
-"""Words on the figures stay clear of the marks they explain: measured as drawn, in display
-pixels (fig.canvas.draw(), then each artist's window extent), on the demo's greenhouse data."""
+"""Words and marks on the figures stay clear of each other: measured as drawn, in display
+pixels (fig.canvas.draw(), then each artist's window extent), on the demos' greenhouse and
+grades data and on hand-made cells taken from the demo sweeps or built to corner a case."""
 
 from __future__ import annotations
 
