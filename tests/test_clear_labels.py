@@ -344,3 +344,22 @@ def test_a_picks_name_at_an_end_cell_stays_inside_the_axes(monkeypatch, first):
     boxes, paths = _everything_else(ax, name, keep_threshold=True)
     assert not [b for b in boxes if box.overlaps(b)]
     assert not [p for p in paths if p.intersects_bbox(box, filled=False)]
+
+
+def test_placing_words_draws_no_missing_glyph_for_a_hostile_label(tmp_path):
+    # the layout pass that places the words comes before the file is drawn: a control
+    # character in a stored label must be gone by then too, or matplotlib warns of a glyph
+    import warnings
+
+    from .store_builder import write_sweep
+
+    label = "bell\x07"
+    cells = [[6.2, 6.5, 6.9, 6.4, 6.6], [6.0, 6.2, 6.3, 6.1, 6.4], [6.1, 6.3, 6.2, 6.0, 6.5]]
+    store = write_sweep(tmp_path / "s.duckdb", {label: cells}, k=5, repeats=1)
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        fig = complexity_figure(store, label)
+        _drawn(fig)
+    (ax,) = fig.axes
+    assert [t for t in ax.texts if t.get_gid() == "pick_name"]
+    assert fig._suptitle.get_text().startswith("bell : where does CV RMSE")

@@ -9,7 +9,28 @@ import textwrap
 
 import numpy as np
 
-__all__ = ["covered", "drawn_marks", "settle", "side_label"]
+__all__ = ["covered", "drawn_marks", "lay_out", "printable", "settle", "side_label"]
+
+
+_UNDRAWN = {i: " " for i in [*range(0, 32), *range(127, 160)] if chr(i) != "\n"}
+
+
+def printable(fig) -> None:
+    """Every text of `fig` without control characters (line breaks kept): a stored label
+    holding one drew a missing glyph and made an SVG that is not well-formed XML."""
+    from matplotlib.text import Text
+
+    for text in fig.findobj(Text):
+        shown = text.get_text()
+        if shown.translate(_UNDRAWN) != shown:
+            text.set_text(shown.translate(_UNDRAWN))
+
+
+def lay_out(fig) -> None:
+    """Lay `fig` out as it will be drawn, its texts made printable first (as drawing to a
+    file makes them), so pixel positions read after it are those of the file."""
+    printable(fig)
+    fig.draw_without_rendering()
 
 
 def drawn_marks(ax, skip=()) -> tuple[list, list]:
@@ -78,7 +99,7 @@ def side_label(fig, headline, text: str) -> None:
     label = fig.supylabel(text, fontsize=9)
     gap = 4 * fig.dpi / 72
     for lines in range(2, 6):
-        fig.draw_without_rendering()
+        lay_out(fig)
         box, top = label.get_window_extent(), headline.get_window_extent()
         if box.y1 + gap <= top.y0:
             return

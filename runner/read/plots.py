@@ -25,7 +25,7 @@ from ..families import get_family
 from .filenames import check_folder, check_replaceable, inside, make_folder, write_whole
 from ..metrics import get_metric, metric_label
 from .picks import check_rule
-from .placing import settle, side_label
+from .placing import lay_out, printable, settle, side_label
 from .explained import importance_table, prediction_table
 from .queries import complexity_table, model_order, picked_fold_scores, picks, sweep_facts
 from .results import ComplexityTable, Picks
@@ -276,7 +276,7 @@ def complexity_figure(store: Store, model: str, sweep_id: str | None = None, *,
                   f"{family}, {facts.n_folds} folds per cell, {result.se} SE; filled "
                   "points: within one SE of the best")
         fig.legend(loc="outside lower center", ncols=3)
-        fig.draw_without_rendering()  # lay out once: from here pixels are final
+        lay_out(fig)  # once: from here pixels are final
         for name, places in named.values():
             settle(ax, name, places)
         if threshold is not None and len(best):
@@ -508,7 +508,7 @@ def image_paths(stem: Path, formats=("png", "svg")) -> list[Path]:
 def figure_bytes(fig, paths: list[Path], *, dpi: int = 150) -> list[tuple[Path, bytes]]:
     """(path, the figure drawn in the path's format) for each path; nothing is written."""
     files = []
-    _printable(fig)
+    printable(fig)
     with _style():
         for path in paths:
             fmt = path.suffix[1:]
@@ -531,20 +531,6 @@ def save_figure(fig, stem: Path, formats=("png", "svg"), *, dpi: int = 150) -> l
     return write_images(figure_bytes(fig, image_paths(stem, formats), dpi=dpi))
 
 
-_UNDRAWN = {i: " " for i in [*range(0, 32), *range(127, 160)] if chr(i) != "\n"}
-
-
-def _printable(fig) -> None:
-    """Every text of `fig` without control characters (line breaks kept): a stored label
-    holding one drew a missing glyph and made an SVG that is not well-formed XML."""
-    from matplotlib.text import Text
-
-    for text in fig.findobj(Text):
-        shown = text.get_text()
-        if shown.translate(_UNDRAWN) != shown:
-            text.set_text(shown.translate(_UNDRAWN))
-
-
 def _metadata(fmt: str) -> dict:
     """No creation dates in files, so the same store gives the same bytes; the mark that
     says foldwise wrote them."""
@@ -557,7 +543,7 @@ def figure_svg(fig, *, salt: str = "fig") -> str:
     import matplotlib
 
     buffer = io.StringIO()
-    _printable(fig)
+    printable(fig)
     with _style(), matplotlib.rc_context({"svg.hashsalt": salt}):
         fig.savefig(buffer, format="svg", metadata={"Date": None})
     text = buffer.getvalue()
