@@ -667,6 +667,17 @@ def _early_class_frame() -> pd.DataFrame:
     return pd.DataFrame({"day": day, "x": x, "w": rng.normal(size=n), "label": label})
 
 
+def _write_early_class_spec(tmp_path, metrics: str, explain: str, more_models: str = ""):
+    """d.csv of `_early_class_frame` and spec.yaml over it: time-ordered folds by day, the
+    last fifth of the days as the test split, a ridge-penalised logistic model."""
+    _early_class_frame().to_csv(tmp_path / "d.csv", index=False)
+    (tmp_path / "spec.yaml").write_text(
+        "name: t\ndata: {path: d.csv, target: label}\ntest: {fraction: 0.2}\n"
+        f"folds: {{k: 3, order: day}}\nmetrics: {metrics}\nstore: s.duckdb\n"
+        f"explain: {explain}\nmodels:\n"
+        "  logit: {family: linear, grid: {penalty: l2, alpha: [0.01]}}\n" + more_models)
+
+
 def test_a_score_undefined_on_the_test_split_is_shown_as_such_not_a_crash(tmp_path):
     # Time-ordered folds of three classes, the third only in the early days: the test
     # split (the last days) holds two classes, so its one-vs-rest ROC AUC is undefined for
@@ -676,13 +687,8 @@ def test_a_score_undefined_on_the_test_split_is_shown_as_such_not_a_crash(tmp_pa
 
     from runner.cli import main
 
-    _early_class_frame().to_csv(tmp_path / "d.csv", index=False)
-    (tmp_path / "spec.yaml").write_text(
-        "name: t\ndata: {path: d.csv, target: label}\ntest: {fraction: 0.2}\n"
-        "folds: {k: 3, order: day}\nmetrics: [log_loss, roc_auc]\nstore: s.duckdb\n"
-        "explain: {cells: none}\nmodels:\n"
-        "  logit: {family: linear, grid: {penalty: l2, alpha: [0.01]}}\n"
-        "  tree: {family: pruned_tree, grid: {ccp_alpha: [0.01]}}\n")
+    _write_early_class_spec(tmp_path, "[log_loss, roc_auc]", "{cells: none}",
+                            "  tree: {family: pruned_tree, grid: {ccp_alpha: [0.01]}}\n")
     out = CliRunner().invoke(main, ["run", str(tmp_path / "spec.yaml"), "--jobs", "1"])
     assert out.exit_code == 0, out.output
     tests = Store(tmp_path / "s.duckdb").query("select metric, value from test_scores")
@@ -716,12 +722,7 @@ def test_roc_figure_draws_the_classes_the_test_split_holds(tmp_path):
     # equal scikit-learn's roc_auc_score on the stored probabilities.
     from runner.read.class_figures import roc_figure
 
-    _early_class_frame().to_csv(tmp_path / "d.csv", index=False)
-    (tmp_path / "spec.yaml").write_text(
-        "name: t\ndata: {path: d.csv, target: label}\ntest: {fraction: 0.2}\n"
-        "folds: {k: 3, order: day}\nmetrics: [log_loss]\nstore: s.duckdb\n"
-        "explain: {permutation: {repeats: 1}}\nmodels:\n"
-        "  logit: {family: linear, grid: {penalty: l2, alpha: [0.01]}}\n")
+    _write_early_class_spec(tmp_path, "[log_loss]", "{permutation: {repeats: 1}}")
     spec = parse_spec((tmp_path / "spec.yaml").read_text(), source=tmp_path / "spec.yaml")
     store = Store(run_sweep(spec, jobs=1).store_path)
     fig = roc_figure(store)

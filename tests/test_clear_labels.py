@@ -123,6 +123,19 @@ def _everything_else(ax, label, *, keep_threshold=False):
     return boxes, paths
 
 
+def _assert_pick_names_clear(fig) -> None:
+    """Both pick names are drawn, and neither covers a box or is crossed by a line."""
+    (ax,) = fig.axes
+    _drawn(fig)
+    names = [t for t in ax.texts if t.get_gid() == "pick_name"]
+    assert sorted(t.get_text().split("\n")[0] for t in names) == ["best", "one-SE pick"]
+    for name in names:
+        box = name.get_window_extent()
+        boxes, paths = _everything_else(ax, name, keep_threshold=True)
+        assert not [b for b in boxes if box.overlaps(b)], name.get_text()
+        assert not [p for p in paths if p.intersects_bbox(box, filled=False)], name.get_text()
+
+
 def _box(x0, y0, x1, y1):
     from matplotlib.transforms import Bbox
 
@@ -209,15 +222,7 @@ def test_a_picks_name_beside_its_mark_clears_the_threshold_line(monkeypatch):
                          [0.008994, 0.009864, 0.009577, 0.010919],
                          [0.620912, 0.610878, 0.596056, 0.587468], ["", "", "one_se", "best"],
                          metric="log_loss", target="grade")
-    (ax,) = fig.axes
-    _drawn(fig)
-    names = [t for t in ax.texts if t.get_gid() == "pick_name"]
-    assert sorted(t.get_text().split("\n")[0] for t in names) == ["best", "one-SE pick"]
-    for name in names:
-        box = name.get_window_extent()
-        boxes, paths = _everything_else(ax, name, keep_threshold=True)
-        assert not [b for b in boxes if box.overlaps(b)], name.get_text()
-        assert not [p for p in paths if p.intersects_bbox(box, filled=False)], name.get_text()
+    _assert_pick_names_clear(fig)
 
 
 @pytest.fixture(scope="module", params=["three", "two"])
@@ -296,15 +301,7 @@ def test_a_picks_name_above_its_cell_goes_past_the_threshold_line(monkeypatch):
     fig = _figure_of(monkeypatch, "linear", {"alpha": [1000.0, 100.0, 10.0, 1.0, 0.1]},
                      [7.2, 6.45, 6.42, 6.40, 6.41], [0.15, 0.03, 0.1, 0.2, 0.2],
                      [7.1, 6.40, 6.5, 6.45, 6.46], ["", "one_se", "", "best", ""])
-    (ax,) = fig.axes
-    _drawn(fig)
-    names = [t for t in ax.texts if t.get_gid() == "pick_name"]
-    assert sorted(t.get_text().split("\n")[0] for t in names) == ["best", "one-SE pick"]
-    for name in names:
-        box = name.get_window_extent()
-        boxes, paths = _everything_else(ax, name, keep_threshold=True)
-        assert not [b for b in boxes if box.overlaps(b)], name.get_text()
-        assert not [p for p in paths if p.intersects_bbox(box, filled=False)], name.get_text()
+    _assert_pick_names_clear(fig)
 
 
 def test_every_test_mark_beside_a_mean_lies_inside_the_axes(tmp_path):
