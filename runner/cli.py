@@ -26,12 +26,13 @@ class _Group(click.Group):
         try:
             return super().invoke(ctx)
         except FoldwiseError as exc:
-            click.echo(f"Error: {exc}", err=True)
+            click.echo(f"Error: {_error_text(exc)}", err=True)
             ctx.exit(exc.exit_code)
         except Exception as exc:
             if not type(exc).__module__.startswith(("duckdb", "_duckdb")):
                 raise
-            first = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
+            text = _error_text(exc).strip()
+            first = text.splitlines()[0] if text else type(exc).__name__
             click.echo(f"Error: the store answered with an error foldwise did not expect: "
                        f"{first}. Rows already written are kept. Please report this with "
                        "the command you ran.", err=True)
@@ -42,6 +43,14 @@ class _Group(click.Group):
                        "only what is missing.", err=True)
             ctx.exit(130)
 
+
+
+def _error_text(exc: Exception) -> str:
+    """An error's message safe to print: it may quote a store's words, so every control
+    character but the line break becomes a space."""
+    from .read.past_views import plain_text
+
+    return "\n".join(plain_text(line) for line in str(exc).split("\n"))
 
 
 def _shown_store(path) -> str:

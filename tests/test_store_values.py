@@ -1,0 +1,58 @@
+"""A colleague's store, value by value: every read command on a store whose column holds a
+value its type allows but no sweep writes (NULL, NaN, a huge number, control characters,
+broken JSON, a row gone or repeated) answers or refuses in one paragraph, never with a
+traceback, exit 1, a hang or terminal control characters (tests/store_mutations.py)."""
+
+from __future__ import annotations
+
+import random
+import shutil
+import unicodedata
+
+import pytest
+from click.testing import CliRunner
+
+from runner.cli import main
+
+from .store_mutations import Case, build_base, cases, commands, judge, mutate, reads, touches
+
+TASKS = ("regression", "classification")
+
+
+@pytest.fixture(scope="module")
+def bases(tmp_path_factory):
+    """Per task: (folder, store file, {command name: argv}, {command name: what it reads})."""
+    found = {}
+    for task in TASKS:
+        folder = tmp_path_factory.mktemp(task)
+        store = build_base(folder, task)
+        argvs = commands(folder, store, folder / "out")
+        found[task] = folder, store, argvs, {name: reads(argv) for name, argv in argvs.items()}
+    return found
+
+
+def _copy(bases, task: str, case: Case, tmp_path):
+    """The mutated copy's store and its commands (out files under tmp_path)."""
+    folder, store, argvs, _ = bases[task]
+    into = tmp_path / "s.duckdb"
+    assert mutate(store, into, case), case.name
+    return into, {name: [a.replace(str(folder / "out"), str(tmp_path / "out"))
+                         .replace(str(store), str(into)) for a in argv]
+                  for name, argv in argvs.items()}
+
+
+def _run(argv):
+    return CliRunner().invoke(main, argv)
+
+
+def _plain(text: str) -> bool:
+    return not any(unicodedata.category(c) == "Cc" and c != "\n" for c in text)
+
+
+def test_an_error_quoting_stored_labels_prints_them_without_control_characters(bases, tmp_path):
+    _, argvs = _copy(bases, "regression", Case("cells", "model", "control"), tmp_path)
+    out = _run(argvs["path tree"])
+    assert out.exit_code == 2 and out.output.count("\n") == 1, out.output
+    assert out.output.startswith("Error: no model 'tree'") and _plain(out.output), out.output
+    assert "[2J" in out.output  # the label's words stay, its control characters gone
+
