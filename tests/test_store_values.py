@@ -56,3 +56,12 @@ def test_an_error_quoting_stored_labels_prints_them_without_control_characters(b
     assert out.output.startswith("Error: no model 'tree'") and _plain(out.output), out.output
     assert "[2J" in out.output  # the label's words stay, its control characters gone
 
+
+def test_tick_labels_from_stored_words_are_drawn_without_control_characters(bases, tmp_path):
+    _, argvs = _copy(bases, "regression", Case("cells", "family", "control"), tmp_path)
+    out = _run([("svg" if a == "png" else a) for a in argvs["plot models"]])
+    assert out.exit_code == 0 and _plain(out.output), out.output
+    assert "Glyph" not in out.output and out.output.count("\n") == 1, out.output
+    svg = next((tmp_path / "out" / "plots").glob("*.svg")).read_text()
+    assert "\x1b" not in svg and "[2J" in svg
+

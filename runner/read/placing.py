@@ -24,6 +24,12 @@ def printable(fig) -> None:
         shown = text.get_text()
         if shown.translate(_UNDRAWN) != shown:
             text.set_text(shown.translate(_UNDRAWN))
+    for ax in fig.axes:  # tick labels given as words are drawn afresh from their formatter
+        for axis in (ax.xaxis, ax.yaxis):
+            labels = [t.get_text() for t in axis.get_ticklabels()]
+            if any(label.translate(_UNDRAWN) != label for label in labels):
+                axis.set_ticks(axis.get_ticklocs(), [label.translate(_UNDRAWN)
+                                                     for label in labels])
 
 
 def lay_out(fig) -> None:
