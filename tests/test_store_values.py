@@ -21,14 +21,18 @@ TASKS = ("regression", "classification")
 
 @pytest.fixture(scope="module")
 def bases(tmp_path_factory):
-    """Per task: (folder, store file, {command name: argv}, {command name: what it reads})."""
-    found = {}
-    for task in TASKS:
-        folder = tmp_path_factory.mktemp(task)
-        store = build_base(folder, task)
-        argvs = commands(folder, store, folder / "out")
-        found[task] = folder, store, argvs, {name: reads(argv) for name, argv in argvs.items()}
-    return found
+    """Per task, built when first asked: (folder, store file, {command name: argv},
+    {command name: what it reads})."""
+    class Bases(dict):
+        def __missing__(self, task):
+            folder = tmp_path_factory.mktemp(task)
+            store = build_base(folder, task)
+            argvs = commands(folder, store, folder / "out")
+            self[task] = folder, store, argvs, {name: reads(argv)
+                                                for name, argv in argvs.items()}
+            return self[task]
+
+    return Bases()
 
 
 def _copy(bases, task: str, case: Case, tmp_path):
@@ -65,3 +69,16 @@ def test_tick_labels_from_stored_words_are_drawn_without_control_characters(base
     svg = next((tmp_path / "out" / "plots").glob("*.svg")).read_text()
     assert "\x1b" not in svg and "[2J" in svg
 
+
+@pytest.mark.parametrize("column, mutation", [("model", "null"), ("model", "empty"),
+                                              ("complexity_rank", "null"), ("params", "null"),
+                                              ("params", "broken"), ("params", "list"),
+                                              ("params", "text")])
+@pytest.mark.parametrize("command", ["summary", "path tree", "history", "plot complexity"])
+def test_a_cell_without_model_rank_or_params_object_is_refused_naming_the_column(
+        bases, tmp_path, column, mutation, command):
+    into, argvs = _copy(bases, "regression", Case("cells", column, mutation), tmp_path)
+    out = _run(argvs[command])
+    assert out.exit_code == 2 and out.output.count("\n") == 1, out.output
+    assert out.output.startswith(f"Error: store {into}: table cells, column {column} ")
+    assert "foldwise remove" in out.output

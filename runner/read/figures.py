@@ -48,7 +48,7 @@ def write_plots(kind: str, store: Store, out_dir: str | Path, sweep_id: str | No
     earlier image is replaced only with the whole new set."""
     if kind not in KINDS:
         raise QueryError(f"unknown plot kind {kind!r}; kinds: {', '.join(KINDS)}.")
-    sid = store.resolve_sweep(sweep_id)
+    sid = sweep_facts(store, sweep_id).sweep_id  # its cells checked
     if kind == "complexity":
         every = model_order(store, sid)
         models = [model] if model is not None else every

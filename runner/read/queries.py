@@ -137,6 +137,7 @@ def sweep_facts(store: Store, sweep_id: str | None = None) -> SweepFacts:
                                 coalesce(scheme, 'rows') as scheme
                          from sweeps where sweep_id = ?""", [sweep_id]).iloc[0]
     _check_recorded(store, sweep_id, row)
+    _check_cells(store, sweep_id)
     metrics = tuple(str(row["metrics"]).split(","))
     better = store.query("select metric, better from metrics where list_contains(?, metric)",
                          [list(metrics)])
@@ -168,6 +169,32 @@ def _check_recorded(store: Store, sweep_id: str, row) -> None:
                          f"metrics recorded ({shown}), so its scores cannot be read; the "
                          "store was damaged or written by another program: remove the sweep "
                          "(`foldwise remove`) or rerun its spec.")
+
+
+_CELL_FAULTS = """
+    select cell_id, case
+        when cell_id is null or cell_id = '' then 'cell_id'
+        when model is null or model = '' then 'model'
+        when complexity_rank is null then 'complexity_rank'
+        when params is null or not json_valid(params::varchar)
+             or json_type(params::varchar) <> 'OBJECT' then 'params' end as fault
+    from cells where sweep_id = ? and fault is not null order by position limit 1"""
+"""The first cell of a sweep that lacks what every read of its cells needs."""
+
+
+def _check_cells(store: Store, sweep_id: str) -> None:
+    """Refuse a sweep with a cell no read can place (no id, model or complexity rank) or
+    whose params are not a JSON object: a store from another hand may hold them."""
+    bad = store.query(_CELL_FAULTS, [sweep_id])
+    if bad.empty:
+        return
+    cell, column = bad.iloc[0]["cell_id"], bad.iloc[0]["fault"]
+    which = f" of cell '{cell}'" if column != "cell_id" else ""
+    what = "is not a JSON object" if column == "params" else "is empty"
+    raise StoreError(f"store {store.path}: table cells, column {column}{which} {what} in "
+                     f"sweep {sweep_id}, so its cells cannot be read; the store was damaged "
+                     "or written by another program: remove the sweep (`foldwise remove "
+                     f"{sweep_id}`) or rerun its spec.")
 
 
 def json_object(text) -> dict:
