@@ -82,3 +82,26 @@ def test_a_cell_without_model_rank_or_params_object_is_refused_naming_the_column
     assert out.exit_code == 2 and out.output.count("\n") == 1, out.output
     assert out.output.startswith(f"Error: store {into}: table cells, column {column} ")
     assert "foldwise remove" in out.output
+
+
+
+@pytest.mark.parametrize("value", [float("nan"), float("inf"), float("-inf")])
+@pytest.mark.parametrize("command", ["summary", "pick", "compare", "path tree", "diff",
+                                     "history", "plot models"])
+def test_a_fold_score_that_is_not_finite_is_read_as_undefined(bases, tmp_path, value,
+                                                               command):
+    """NaN or an infinity in one fold score: that cell's score is undefined on a fold (as a
+    NULL is), and the rest of the sweep reads as before."""
+    import duckdb
+
+    folder, store, argvs, _ = bases["regression"]
+    into = tmp_path / "s.duckdb"
+    shutil.copyfile(store, into)
+    with duckdb.connect(str(into)) as con:
+        con.execute("update fold_scores set value = ? where fold = 0 and metric = 'rmse' and "
+                    "cell_id = (select max(cell_id) from cells where model = 'tree')", [value])
+    out = _run([a.replace(str(store), str(into)).replace(str(folder / "out"),
+                                                          str(tmp_path / "out"))
+                for a in argvs[command]])
+    assert out.exit_code == 0 and _plain(out.output), out.output
+    assert "RMSE" in out.output or command == "plot models", out.output

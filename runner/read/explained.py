@@ -7,7 +7,7 @@ from __future__ import annotations
 import pandas as pd
 
 from ..errors import ModelError
-from .queries import json_object, picks, sweep_facts
+from .queries import CELL_SUMMARY, json_object, picks, sweep_facts
 from .results import Coefficients, Importances, Stability
 from ..store import Store
 
@@ -127,9 +127,9 @@ def cell_record(store: Store, sweep_id: str, cell: str) -> dict:
 def cell_scores(store: Store, sweep_id: str, cell_id: str) -> pd.DataFrame:
     """A cell's CV mean, SE and folds per metric of the sweep, with its test score
     (`has_test`: whether the refit's row is there; its value is NULL where undefined)."""
-    df = store.query("""
+    df = store.query(f"""
         select s.metric, s.mean, s.se, s.n, t.value as test, t.metric is not null as has_test
-        from cell_summary s
+        from {CELL_SUMMARY} s
         left join test_scores t
           on t.sweep_id = s.sweep_id and t.cell_id = s.cell_id and t.metric = s.metric
         where s.sweep_id = ? and s.cell_id = ?""", [sweep_id, cell_id])

@@ -5,7 +5,7 @@ from __future__ import annotations
 
 import pandas as pd
 
-from .queries import _alive_here, sweep_labels
+from .queries import FOLD_SCORES, _alive_here, sweep_labels
 from ..store import Store
 
 __all__ = ["sweep_records", "sweep_status_of", "previous_sweep", "shared_cells",
@@ -58,14 +58,15 @@ def paired_changes(store: Store, sweep_a: str, sweep_b: str, models: list[str],
     """Per model, its cell in sweep A against its cell in sweep B on the same repeat and
     fold: differences b − a on `metric` (count, mean, sample variance, folds each side
     won, ties). Only meaningful when the two sweeps' folds are the same rows."""
-    return store.query("""
+    return store.query(f"""
         with picked as (select unnest($1::varchar[]) as model, unnest($2::varchar[]) as cell_a,
                                unnest($3::varchar[]) as cell_b),
         pairs as (
-            select p.model, fb.value - fa.value as d, fa.n_valid::double / fa.n_train as ratio
+            select p.model, fb.value - fa.value as d, fa.valid_ratio as ratio
             from picked p
-            join fold_scores fa on fa.sweep_id = $4 and fa.cell_id = p.cell_a and fa.metric = $6
-            join fold_scores fb on fb.sweep_id = $5 and fb.cell_id = p.cell_b and fb.metric = $6
+            join {FOLD_SCORES} fa on fa.sweep_id = $4 and fa.cell_id = p.cell_a
+                                  and fa.metric = $6
+            join {FOLD_SCORES} fb on fb.sweep_id = $5 and fb.cell_id = p.cell_b and fb.metric = $6
                                and fb."repeat" = fa."repeat" and fb.fold = fa.fold)
         select model, count(*) as folds, avg(d) as mean_diff, var_samp(d) as var_diff,
                avg(ratio) as valid_ratio,
@@ -81,18 +82,18 @@ def history_cells(store: Store, name: str, metric: str, *, models: list[str] | N
     """Every cell of the chosen models (by label, or every model of a family) in every
     sweep of spec `name`, oldest sweep first: its fold-score count, mean, sample SD, mean
     n_valid/n_train on `metric`, test score, whether a fit failed, and the sweep's facts."""
-    return store.query("""
+    return store.query(f"""
         select s.sweep_id, s.started_at, s.status, s.host, s.pid, s.data_sha256,
                s.spec_sha256, s.k * s.repeats as n_folds, s.pick_rule, c.model, c.family,
                c.cell_id, c.params, c.complexity_rank, c.position, count(f.value) as n,
                avg(f.value) as mean, stddev_samp(f.value) as sd,
-               avg(f.n_valid::double / f.n_train) as valid_ratio,
+               avg(f.valid_ratio) as valid_ratio,
                any_value(t.value) as test,
                exists (select 1 from failures x where x.sweep_id = c.sweep_id
                        and x.cell_id = c.cell_id) as failed
         from sweeps s
         join cells c on c.sweep_id = s.sweep_id
-        left join fold_scores f on f.sweep_id = c.sweep_id and f.cell_id = c.cell_id
+        left join {FOLD_SCORES} f on f.sweep_id = c.sweep_id and f.cell_id = c.cell_id
                                 and f.metric = $2
         left join test_scores t on t.sweep_id = c.sweep_id and t.cell_id = c.cell_id
                                 and t.metric = $2

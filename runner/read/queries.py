@@ -32,7 +32,7 @@ if TYPE_CHECKING:  # imported where a frame is built: `foldwise sweeps` starts w
 __all__ = ["sweeps", "sweep_facts", "summary", "cell_stats", "picks", "complexity_table",
            "compare", "model_order", "picked_fold_scores", "varying_params", "sweep_record",
            "sweep_status", "coverage", "process_alive", "sweep_labels", "unchanged_sweep",
-           "findings", "json_object"]
+           "findings", "json_object", "FOLD_SCORES", "CELL_SUMMARY"]
 
 
 def _one_connection(read):
@@ -301,21 +301,42 @@ def sweep_status(store: Store, sweep_id: str) -> str:
         str(row["status"])
 
 
+# -- fold scores as read ------------------------------------------------------------------
+FOLD_SCORES = """(
+    select sweep_id, cell_id, "repeat", fold, metric,
+           case when isfinite(value) then value end as value,
+           case when n_train > 0 and n_valid > 0 then n_valid::double / n_train end
+               as valid_ratio,
+           case when isfinite(n_leaves) then n_leaves end as n_leaves
+    from fold_scores)"""
+"""The fold scores every read takes, in place of the table: a score that is not a finite
+number is undefined (like a NULL one), and the validation share n_valid/n_train is NULL
+unless both counts are positive (a store from another hand may hold NaN, infinities or
+negative counts, on which DuckDB's standard deviation and the corrected SE fail)."""
+
+CELL_SUMMARY = f"""(
+    select sweep_id, cell_id, metric, avg(value) as mean,
+           stddev_samp(value) / sqrt(count(value)) as se, count(value) as n
+    from {FOLD_SCORES} group by sweep_id, cell_id, metric)"""
+"""Per cell and metric: the CV mean, its plain SE and the count of defined fold scores
+(the store's own cell_summary view, over the checked fold scores)."""
+
+
 # -- picks ---------------------------------------------------------------------------------
 # Common table expressions shared by every pick query. Parameters: $1 sweep id, $2 metric,
 # $3 se kind ('plain' or 'corrected'), $4 model or null (all), $5 relative tolerance.
 # judged = every cell with mean/SE and why it is excluded; bars = the best cell and the
 # one-SE threshold per model; within = eligible cells inside it; chosen = the simplest of those.
-_CELLS_SQL = """
+_CELLS_SQL = f"""
     plan as (select k * repeats as n_folds from sweeps where sweep_id = $1),
     stats as (
         select c.model, c.family, c.cell_id, c.params, c.complexity_rank,
                min(c.position) as cell_row, count(f.value) as n, count(f.fold) as n_rows,
                avg(f.value) as mean,
-               stddev_samp(f.value) as sd, avg(f.n_valid::double / f.n_train) as valid_ratio,
+               stddev_samp(f.value) as sd, avg(f.valid_ratio) as valid_ratio,
                avg(f.n_leaves) as mean_leaves
         from cells c
-        left join fold_scores f
+        left join {FOLD_SCORES} f
           on f.sweep_id = c.sweep_id and f.cell_id = c.cell_id and f.metric = $2
         where c.sweep_id = $1 and ($4::varchar is null or c.model = $4)
         group by c.model, c.family, c.cell_id, c.params, c.complexity_rank),
@@ -485,7 +506,7 @@ def summary(store: Store, sweep_id: str | None = None, *,
     rule = rule or facts.rule
     both = picks(store, facts.sweep_id)  # both rules: a best on the edge matters too
     chosen = both.table[both.table["rule"] == rule]
-    long = store.query("""
+    long = store.query(f"""
         with picked as (select unnest(?::varchar[]) as cell_id),
         sizes as (select c.model, c.family, count(*) as cells, min(c.position) as first_row,
                          count(*) filter (where exists (
@@ -499,7 +520,7 @@ def summary(store: Store, sweep_id: str | None = None, *,
         from picked p
         join cells c on c.sweep_id = ? and c.cell_id = p.cell_id
         join sizes z using (model)
-        join cell_summary s on s.sweep_id = c.sweep_id and s.cell_id = c.cell_id
+        join {CELL_SUMMARY} s on s.sweep_id = c.sweep_id and s.cell_id = c.cell_id
         left join test_scores t
           on t.sweep_id = c.sweep_id and t.cell_id = c.cell_id and t.metric = s.metric
         order by z.first_row, s.metric""",
@@ -582,14 +603,14 @@ def complexity_table(store: Store, model: str, sweep_id: str | None = None, *,
 
 
 # -- paired comparisons --------------------------------------------------------------------
-_PAIRS_SQL = """
+_PAIRS_SQL = f"""
     with picked as (
         select unnest($1::varchar[]) as model, unnest($2::varchar[]) as cell_id,
                unnest($3::integer[]) as place),
     fold_rows as (
         select p.model, p.place, p.cell_id, f."repeat", f.fold, f.value,
-               f.n_valid::double / f.n_train as ratio
-        from fold_scores f join picked p using (cell_id)
+               f.valid_ratio as ratio
+        from {FOLD_SCORES} f join picked p using (cell_id)
         where f.sweep_id = $4 and f.metric = $5),
     pairs as (
         select a.model as model_a, b.model as model_b, a.place as place_a, b.place as place_b,
@@ -666,8 +687,8 @@ def compare(store: Store, sweep_id: str | None = None, *, rule: str | None = Non
 def picked_fold_scores(store: Store, sweep_id: str, metric: str,
                        cell_ids: list[str]) -> pd.DataFrame:
     """Every fold score of these cells on one metric, with the model."""
-    return store.query("""
-        select c.model, f."repeat", f.fold, f.value from fold_scores f
+    return store.query(f"""
+        select c.model, f."repeat", f.fold, f.value from {FOLD_SCORES} f
         join cells c on c.sweep_id = f.sweep_id and c.cell_id = f.cell_id
         where f.sweep_id = ? and f.metric = ? and list_contains(?::varchar[], f.cell_id)""",
                        [sweep_id, metric, cell_ids])
