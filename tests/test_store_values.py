@@ -105,3 +105,22 @@ def test_a_fold_score_that_is_not_finite_is_read_as_undefined(bases, tmp_path, v
                 for a in argvs[command]])
     assert out.exit_code == 0 and _plain(out.output), out.output
     assert "RMSE" in out.output or command == "plot models", out.output
+
+
+@pytest.mark.parametrize("column, mutation", [("n_train", "null"), ("n_train", "zero"),
+                                              ("n_train", "negative"), ("n_valid", "zero")])
+@pytest.mark.parametrize("command, extra", [("compare", []), ("diff", []),
+                                            ("pick", ["--se", "corrected"]),
+                                            ("history", ["--se", "corrected"]),
+                                            ("pick", [])])
+def test_fold_counts_that_are_not_positive_refuse_only_the_corrected_variance(
+        bases, tmp_path, column, mutation, command, extra):
+    """The corrected SE and t-test need n_valid/n_train per fold; the plain SE does not."""
+    _, argvs = _copy(bases, "regression", Case("fold_scores", column, mutation), tmp_path)
+    out = _run(argvs[command] + extra)
+    if command == "pick" and not extra:
+        assert out.exit_code == 0 and "plain SE" in out.output, out.output
+        return
+    assert out.exit_code == 2 and out.output.count("\n") == 1, out.output
+    assert "table fold_scores, columns n_train and n_valid hold a count that is missing or " \
+           "not positive" in out.output

@@ -32,7 +32,7 @@ if TYPE_CHECKING:  # imported where a frame is built: `foldwise sweeps` starts w
 __all__ = ["sweeps", "sweep_facts", "summary", "cell_stats", "picks", "complexity_table",
            "compare", "model_order", "picked_fold_scores", "varying_params", "sweep_record",
            "sweep_status", "coverage", "process_alive", "sweep_labels", "unchanged_sweep",
-           "findings", "json_object", "FOLD_SCORES", "CELL_SUMMARY"]
+           "findings", "json_object", "require_fold_sizes", "FOLD_SCORES", "CELL_SUMMARY"]
 
 
 def _one_connection(read):
@@ -322,6 +322,24 @@ CELL_SUMMARY = f"""(
 (the store's own cell_summary view, over the checked fold scores)."""
 
 
+def require_fold_sizes(store: Store, sweep_ids: list[str]) -> None:
+    """Refuse sweeps whose fold rows lack the positive n_train and n_valid that the
+    corrected variance (1/n + n_valid/n_train)·var needs: a store from another hand may
+    hold NULL, zero or negative counts, and a test on them would print nothing sensible."""
+    bad = store.query("""select sweep_id from fold_scores
+                         where list_contains(?::varchar[], sweep_id)
+                           and not coalesce(n_train > 0 and n_valid > 0, false)
+                         order by sweep_id limit 1""", [list(sweep_ids)])
+    if not bad.empty:
+        raise StoreError(f"store {store.path}: table fold_scores, columns n_train and "
+                         f"n_valid hold a count that is missing or not positive in sweep "
+                         f"{bad.iloc[0]['sweep_id']}, so the corrected SE and the paired "
+                         "t-test, which need the share of rows each fold scored, cannot be "
+                         "computed; the store was damaged or written by another program: "
+                         "use --se plain where the command has it, remove the sweep "
+                         "(`foldwise remove`) or rerun its spec.")
+
+
 # -- picks ---------------------------------------------------------------------------------
 # Common table expressions shared by every pick query. Parameters: $1 sweep id, $2 metric,
 # $3 se kind ('plain' or 'corrected'), $4 model or null (all), $5 relative tolerance.
@@ -390,6 +408,8 @@ def cell_stats(store: Store, sweep_id: str | None = None, *, se: str = "plain",
     facts = sweep_facts(store, sweep_id)
     _check_model(store, facts.sweep_id, model)
     metric = _check_metric(facts, metric)
+    if se == "corrected":
+        require_fold_sizes(store, [facts.sweep_id])
     args = [facts.sweep_id, facts.metric, se, model, TOLERANCE]
     df = store.query(f"""with {_CELLS_SQL}
         select j.model, j.family, j.complexity_rank, j.cell_id, j.params, j.n, j.mean, j.sd,
@@ -430,6 +450,8 @@ def picks(store: Store, sweep_id: str | None = None, *, rule: str | None = None,
     check_se(se)
     facts = sweep_facts(store, sweep_id)
     _check_model(store, facts.sweep_id, model)
+    if se == "corrected":
+        require_fold_sizes(store, [facts.sweep_id])
     rules = list(RULES) if rule is None else [rule]
     args = [facts.sweep_id, facts.metric, se, model, TOLERANCE]
     df = store.query(f"""with {_CELLS_SQL},
@@ -655,6 +677,7 @@ def compare(store: Store, sweep_id: str | None = None, *, rule: str | None = Non
     facts = sweep_facts(store, sweep_id)
     rule = rule or facts.rule
     metric = _check_metric(facts, metric)
+    require_fold_sizes(store, [facts.sweep_id])  # the t-test's corrected variance
     chosen = picks(store, facts.sweep_id, rule=rule, se=se)
     rows = []
     if len(chosen.table) >= 2:
