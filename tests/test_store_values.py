@@ -124,3 +124,13 @@ def test_fold_counts_that_are_not_positive_refuse_only_the_corrected_variance(
     assert out.exit_code == 2 and out.output.count("\n") == 1, out.output
     assert "table fold_scores, columns n_train and n_valid hold a count that is missing or " \
            "not positive" in out.output
+
+
+@pytest.mark.parametrize("mutation", ["null", "empty", "long", "control"])
+@pytest.mark.parametrize("command", ["history", "plot history", "summary", "pick"])
+def test_a_metric_whose_direction_is_not_lower_or_higher_is_refused(bases, tmp_path,
+                                                                    mutation, command):
+    _, argvs = _copy(bases, "regression", Case("metrics", "better", mutation), tmp_path)
+    out = _run(argvs[command])
+    assert out.exit_code == 2 and out.output.count("\n") == 1 and _plain(out.output), out.output
+    assert "table metrics, column better of metric 'rmse' is " in out.output

@@ -141,6 +141,14 @@ def sweep_facts(store: Store, sweep_id: str | None = None) -> SweepFacts:
     metrics = tuple(str(row["metrics"]).split(","))
     better = store.query("select metric, better from metrics where list_contains(?, metric)",
                          [list(metrics)])
+    ways = dict(zip(better["metric"], better["better"]))
+    for metric, way in ((m, ways[m]) for m in metrics if m in ways):
+        if way not in ("lower", "higher"):
+            raise StoreError(f"store {store.path}: table metrics, column better of metric "
+                             f"'{metric}' is {repr(way[:40]) if isinstance(way, str) and way else 'empty'}, "
+                             "not 'lower' or 'higher', so no pick can be made by it; the "
+                             "store was damaged or written by another program: rerun the "
+                             "spec into a fresh store.")
     return SweepFacts(sweep_id=sweep_id, name=str(row["name"]), target=str(row["target"]),
                       metrics=metrics, better=dict(zip(better["metric"], better["better"])),
                       k=int(row["k"]), repeats=int(row["repeats"]),
