@@ -134,3 +134,12 @@ def test_a_metric_whose_direction_is_not_lower_or_higher_is_refused(bases, tmp_p
     out = _run(argvs[command])
     assert out.exit_code == 2 and out.output.count("\n") == 1 and _plain(out.output), out.output
     assert "table metrics, column better of metric 'rmse' is " in out.output
+
+
+@pytest.mark.parametrize("command", ["summary", "pick", "compare", "history", "diff"])
+def test_more_folds_than_a_store_counts_is_refused_naming_k_and_repeats(bases, tmp_path,
+                                                                       command):
+    _, argvs = _copy(bases, "regression", Case("sweeps", "repeats", "huge"), tmp_path)
+    out = _run(argvs[command])
+    assert out.exit_code == 2 and out.output.count("\n") == 1, out.output
+    assert "table sweeps, columns k and repeats record 2 x 2,147,483,647 folds" in out.output

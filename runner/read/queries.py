@@ -157,6 +157,10 @@ def sweep_facts(store: Store, sweep_id: str | None = None) -> SweepFacts:
                       classes=_classes(row["classes"]), scheme=str(row["scheme"]))
 
 
+_MOST_FOLDS = 2**31 - 1
+"""The most folds a sweep can record: fold scores count them in 32-bit integers."""
+
+
 def _count(value) -> int | None:
     """A stored whole number of at least 1, or None (NULL, NaN, text, zero, a fraction)."""
     try:
@@ -170,7 +174,14 @@ def _check_recorded(store: Store, sweep_id: str, row) -> None:
     """Refuse a sweep row that lacks what every read needs (folds and metrics): a store
     from another hand may hold NULL or nonsense there."""
     metrics = row["metrics"] if isinstance(row["metrics"], str) and row["metrics"] else None
-    if _count(row["k"]) is None or _count(row["repeats"]) is None or metrics is None:
+    k, repeats = _count(row["k"]), _count(row["repeats"])
+    if k is not None and repeats is not None and k * repeats > _MOST_FOLDS:
+        raise StoreError(f"sweep {sweep_id} in store {store.path}: table sweeps, columns k "
+                         f"and repeats record {k:,} x {repeats:,} folds, more than a store "
+                         f"counts ({_MOST_FOLDS:,}), so its scores cannot be read; the store "
+                         "was damaged or written by another program: remove the sweep "
+                         "(`foldwise remove`) or rerun its spec.")
+    if k is None or repeats is None or metrics is None:
         shown = ", ".join(f"{name}={'missing' if value is None else value}" for name, value in (
             ("k", _count(row["k"])), ("repeats", _count(row["repeats"])), ("metrics", metrics)))
         raise StoreError(f"sweep {sweep_id} in store {store.path} has no usable fold count or "
@@ -354,7 +365,7 @@ def require_fold_sizes(store: Store, sweep_ids: list[str]) -> None:
 # judged = every cell with mean/SE and why it is excluded; bars = the best cell and the
 # one-SE threshold per model; within = eligible cells inside it; chosen = the simplest of those.
 _CELLS_SQL = f"""
-    plan as (select k * repeats as n_folds from sweeps where sweep_id = $1),
+    plan as (select k::bigint * repeats as n_folds from sweeps where sweep_id = $1),
     stats as (
         select c.model, c.family, c.cell_id, c.params, c.complexity_rank,
                min(c.position) as cell_row, count(f.value) as n, count(f.fold) as n_rows,
