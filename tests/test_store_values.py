@@ -143,3 +143,14 @@ def test_more_folds_than_a_store_counts_is_refused_naming_k_and_repeats(bases, t
     out = _run(argvs[command])
     assert out.exit_code == 2 and out.output.count("\n") == 1, out.output
     assert "table sweeps, columns k and repeats record 2 x 2,147,483,647 folds" in out.output
+
+
+@pytest.mark.parametrize("column, mutation", [("rule", "null"), ("artefact_bytes", "null"),
+                                              ("artefact_bytes", "negative")])
+def test_a_built_models_missing_rule_or_size_is_listed_as_unknown(bases, tmp_path, column,
+                                                                   mutation):
+    _, argvs = _copy(bases, "regression", Case("models", column, mutation), tmp_path)
+    out = _run(argvs["models"])
+    assert out.exit_code == 0 and "built models" in out.output, out.output
+    assert out.output.count("unknown") == 2, out.output  # both built models
+

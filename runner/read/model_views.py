@@ -4,6 +4,8 @@ are those of `views.py`."""
 
 from __future__ import annotations
 
+import math
+
 import pandas as pd
 
 from ..metrics import metric_label
@@ -16,7 +18,12 @@ __all__ = ["models_view", "card_view", "coefficients_view", "built_sentences",
 
 # -- built models ----------------------------------------------------------------------------
 def _size(n) -> str:
-    n = float(n)
+    try:
+        n = float(n)
+    except (TypeError, ValueError):  # a store may hold NULL
+        return "unknown"
+    if not 0 <= n < math.inf:
+        return "unknown"
     for unit in ("bytes", "KiB", "MiB", "GiB"):
         if n < 1024 or unit == "GiB":
             return f"{n:.0f} {unit}" if unit == "bytes" else f"{n:.1f} {unit}"
@@ -28,7 +35,8 @@ def models_view(df: pd.DataFrame) -> View:
     """The store's built models, newest first."""
     table = pd.DataFrame({
         "model id": df["model_id"], "sweep": df["sweep_id"], "model": df["model"],
-        "family": df["family"], "rule": [rule_label(r) if r != "cell" else "named cell"
+        "family": df["family"], "rule": [("named cell" if r == "cell" else rule_label(r))
+                                         if isinstance(r, str) else "unknown"
                                          for r in df["rule"]],
         "cell": [str(c)[:12] for c in df["cell_id"]],
         "rows": [f"{n:,} ({u})" for n, u in zip(df["n_rows"], df["rows_used"])],
