@@ -154,3 +154,10 @@ def test_a_built_models_missing_rule_or_size_is_listed_as_unknown(bases, tmp_pat
     assert out.exit_code == 0 and "built models" in out.output, out.output
     assert out.output.count("unknown") == 2, out.output  # both built models
 
+
+def test_a_finding_whose_allowed_is_missing_is_reported_as_not_allowed(bases, tmp_path):
+    _, argvs = _copy(bases, "regression", Case("findings", "allowed", "null"), tmp_path)
+    out = _run(argvs["report"])
+    assert out.exit_code == 0, out.output
+    html = (tmp_path / "out" / "r.html").read_text()
+    assert "id_column" in html and "(allowed)" not in html

@@ -537,8 +537,13 @@ ORDERED_FOLDS_NOTE = (
 def finding_lines(findings: pd.DataFrame | Findings) -> tuple[str, ...]:
     """One line per finding of the leakage checks: 'warning (group_key): ...'."""
     findings = findings.table if isinstance(findings, Findings) else findings
-    return tuple(f"{r.severity}{' (allowed)' if r.allowed else ''} ({r.kind}): {r.message}"
-                 for r in findings.itertuples(index=False))
+    return tuple(f"{r.severity}{' (allowed)' if _allowed(r.allowed) else ''} ({r.kind}): "
+                 f"{r.message}" for r in findings.itertuples(index=False))
+
+
+def _allowed(value) -> bool:
+    """A finding's stored `allowed`: only a true value counts (a store may hold NULL)."""
+    return value is not None and not is_missing(value) and str(value) == "True"
 
 
 def findings_view(findings: pd.DataFrame | Findings) -> View:
@@ -550,7 +555,7 @@ def findings_view(findings: pd.DataFrame | Findings) -> View:
     title = (f"leakage checks: {count_text(n, 'finding', 'findings')}" if n else
              "leakage checks: nothing found")
     shown = pd.DataFrame({
-        "severity": [f"{s} (allowed)" if a else s
+        "severity": [f"{s} (allowed)" if _allowed(a) else s
                      for s, a in zip(findings["severity"], findings["allowed"])],
         "check": findings["kind"], "column": findings["column_name"].fillna(""),
         "finding": findings["message"]})
