@@ -28,23 +28,29 @@ def _pick_marks(store: Store, sweep_id: str) -> pd.DataFrame:
 def importance_table(store: Store, sweep_id: str | None = None, *,
                      method: str | None = None) -> Importances:
     """Every stored importance of a sweep, with model, picks and rank (1 = most important).
-    A permutation importance on a metric undefined on the test split (ROC AUC when its rows
-    lack a class) is stored NULL and left out here: it ranks nothing."""
+    One row per cell, method and feature (a store from another hand may repeat one: their
+    mean is taken). A permutation importance on a metric undefined on the test split (ROC
+    AUC when its rows lack a class) is stored NULL, and a value that is not a finite number
+    is read as such: both are left out here, since they rank nothing."""
     facts = sweep_facts(store, sweep_id)
     df = store.query("""
         select c.model, c.family, i.cell_id, c.params, c.complexity_rank, i.method, i.feature,
-               i.value, i.spread, min(c.position) over (partition by c.model) as model_row
+               avg(case when isfinite(i.value) then i.value end) as value,
+               avg(case when isfinite(i.spread) then i.spread end) as spread,
+               min(min(c.position)) over (partition by c.model) as model_row
         from importances i join cells c on c.sweep_id = i.sweep_id and c.cell_id = i.cell_id
         where i.sweep_id = ? and (?::varchar is null or i.method = ?)
-          and i.value is not null""",
+          and isfinite(i.value)
+        group by c.model, c.family, i.cell_id, c.params, c.complexity_rank, i.method,
+                 i.feature""",
                      [facts.sweep_id, method, method])
     df = df.merge(_pick_marks(store, facts.sweep_id), on="cell_id", how="left")
     df["picked"] = df["picked"].fillna("")
-    df["rank"] = (df.groupby(["cell_id", "method"])["value"]
-                  .rank(ascending=False, method="min").astype(int))
+    df["rank"] = (df.groupby(["cell_id", "method"], dropna=False)["value"]
+                  .rank(ascending=False, method="min", na_option="bottom").astype(int))
     df = df.sort_values(["model_row", "complexity_rank", "method", "rank", "feature"])
     undefined = store.query("""select distinct cell_id from importances where sweep_id = ?
-        and (?::varchar is null or method = ?) and value is null""",
+        and (?::varchar is null or method = ?) and not coalesce(isfinite(value), false)""",
                             [facts.sweep_id, method, method])["cell_id"]
     return Importances(facts, df.drop(columns="model_row").reset_index(drop=True),
                        _permutation_rows(store, facts.sweep_id), tuple(sorted(undefined)))
