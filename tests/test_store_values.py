@@ -169,11 +169,16 @@ def test_a_finding_whose_allowed_is_missing_is_reported_as_not_allowed(bases, tm
 def test_repeated_or_missing_importances_are_drawn_once_each(bases, tmp_path, column,
                                                              mutation, command):
     """Every feature of a cell made the same (so repeated), no method, or NaN values: the
-    importance figure and the report still draw, one bar per cell and feature."""
+    importance figure and the report still draw, one bar per cell and feature, or the
+    figure refuses in words where nothing is left to rank."""
     _, argvs = _copy(bases, "regression", Case("importances", column, mutation), tmp_path)
     out = _run(argvs[command])
     if command == "plot importance" and column == "method":  # none of the method asked for
         assert out.exit_code == 2 and "no stored permutation importances" in out.output
+        return
+    if command == "plot importance" and column == "value":  # every value NaN: nothing ranks
+        assert out.exit_code == 2 and "permutation importances of sweep" in out.output
+        assert "are undefined" in out.output and _plain(out.output), out.output
         return
     assert out.exit_code == 0 and _plain(out.output), out.output
     assert len(list((tmp_path / "out").rglob("*.*"))) == 1  # the report or the PNG
