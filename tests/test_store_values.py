@@ -182,3 +182,19 @@ def test_repeated_or_missing_importances_are_drawn_once_each(bases, tmp_path, co
         return
     assert out.exit_code == 0 and _plain(out.output), out.output
     assert len(list((tmp_path / "out").rglob("*.*"))) == 1  # the report or the PNG
+
+
+@pytest.mark.parametrize("mutation", ["empty", "control", "null"])
+@pytest.mark.parametrize("command", ["plot predictions", "plot roc", "report"])
+def test_a_sweep_task_no_foldwise_writes_is_refused_and_a_missing_one_inferred(
+        bases, tmp_path, mutation, command):
+    """An older store records no task: its listed classes make it a class sweep."""
+    _, argvs = _copy(bases, "classification", Case("sweeps", "task", mutation), tmp_path)
+    out = _run(argvs[command])
+    if mutation == "null":
+        refused = command == "plot predictions"  # a class sweep draws calibration and roc
+        assert out.exit_code == (2 if refused else 0), out.output
+        assert not refused or "foldwise plot calibration" in out.output
+        return
+    assert out.exit_code == 2 and out.output.count("\n") == 1 and _plain(out.output), out.output
+    assert "table sweeps, column task is " in out.output

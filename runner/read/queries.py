@@ -153,8 +153,23 @@ def sweep_facts(store: Store, sweep_id: str | None = None) -> SweepFacts:
                       metrics=metrics, better=dict(zip(better["metric"], better["better"])),
                       k=int(row["k"]), repeats=int(row["repeats"]),
                       rule=str(row["pick_rule"] or "best"),
-                      task=str(row["task"]) if isinstance(row["task"], str) else "regression",
-                      classes=_classes(row["classes"]), scheme=str(row["scheme"]))
+                      task=_task(store, sweep_id, row), classes=_classes(row["classes"]),
+                      scheme=str(row["scheme"]))
+
+
+def _task(store: Store, sweep_id: str, row) -> str:
+    """The sweep's task: an older store records none (regression, unless it lists classes);
+    a value no foldwise writes is refused."""
+    task = row["task"]
+    if not isinstance(task, str):
+        return "classification" if _classes(row["classes"]) else "regression"
+    if task not in ("regression", "classification"):
+        raise StoreError(f"sweep {sweep_id} in store {store.path}: table sweeps, column task "
+                         f"is {repr(task[:40]) if task else 'empty'}, not 'regression' or "
+                         "'classification', so its scores cannot be read; the store was "
+                         "damaged or written by another program: remove the sweep "
+                         "(`foldwise remove`) or rerun its spec.")
+    return task
 
 
 _MOST_FOLDS = 2**31 - 1
