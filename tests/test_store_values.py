@@ -198,3 +198,22 @@ def test_a_sweep_task_no_foldwise_writes_is_refused_and_a_missing_one_inferred(
         return
     assert out.exit_code == 2 and out.output.count("\n") == 1 and _plain(out.output), out.output
     assert "table sweeps, column task is " in out.output
+
+
+@pytest.mark.parametrize("column, mutation, fault", [
+    ("node", "zero", "column node does not number the nodes 0 to n - 1"),
+    ("left_child", "huge", "columns left_child and right_child name a node that is not a child"),
+    ("left_child", "zero", "columns left_child and right_child name a node that is not a child"),
+    ("right_child", "null", "column right_child is empty for a node"),
+    ("parent", "negative", "column parent does not name the node whose child it is"),
+    ("n_samples", "zero", "column n_samples holds a count below one"),
+    ("value", "-inf", "column value is not a finite number for a node")])
+def test_stored_nodes_that_are_not_one_tree_are_refused_and_the_report_goes_on(
+        bases, tmp_path, column, mutation, fault):
+    _, argvs = _copy(bases, "regression", Case("tree_nodes", column, mutation), tmp_path)
+    out = _run(argvs["plot tree"])
+    assert out.exit_code == 2 and out.output.count("\n") == 1, out.output
+    assert f"table tree_nodes, {fault} in the tree of cell " in out.output
+    report = _run(argvs["report"])
+    assert report.exit_code == 0, report.output
+    assert fault in (tmp_path / "out" / "r.html").read_text()

@@ -6,7 +6,7 @@ from __future__ import annotations
 
 import pandas as pd
 
-from ..errors import ModelError
+from ..errors import ModelError, StoreError
 from .queries import CELL_SUMMARY, json_object, picks, sweep_facts
 from .results import Coefficients, Importances, Stability
 from ..store import Store
@@ -83,9 +83,48 @@ def prediction_table(store: Store, sweep_id: str | None = None) -> pd.DataFrame:
 
 
 def tree_node_table(store: Store, sweep_id: str, cell_id: str) -> pd.DataFrame:
-    """The stored nodes of one cell's refit tree, in node order."""
-    return store.query("select * exclude (sweep_id) from tree_nodes where sweep_id = ? and "
-                       "cell_id = ? order by node", [sweep_id, cell_id])
+    """The stored nodes of one cell's refit tree, in node order, checked to be one tree
+    (`_tree_fault`): a store from another hand may hold any numbers there."""
+    nodes = store.query("select * exclude (sweep_id) from tree_nodes where sweep_id = ? and "
+                        "cell_id = ? order by node", [sweep_id, cell_id])
+    fault = _tree_fault(nodes)
+    if fault:
+        raise StoreError(f"store {store.path}: table tree_nodes, {fault} in the tree of cell "
+                         f"'{cell_id}' of sweep {sweep_id}, so it is not one tree and cannot "
+                         "be drawn; the store was damaged or written by another program: "
+                         "rerun the spec to store the tree again.")
+    return nodes
+
+
+def _tree_fault(nodes: pd.DataFrame) -> str | None:
+    """What keeps stored nodes from being one tree as scikit-learn numbers it, or None:
+    nodes 0..n-1, each split's two children after it and naming it their parent, leaves
+    with no children, finite values and row counts of at least one."""
+    import numpy as np
+
+    n = len(nodes)
+    whole = {c: pd.to_numeric(nodes[c], errors="coerce") for c in
+             ("node", "parent", "left_child", "right_child", "n_samples", "value")}
+    for column in ("node", "parent", "left_child", "right_child", "n_samples"):
+        if whole[column].isna().any():
+            return f"column {column} is empty for a node"
+    if not np.array_equal(whole["node"].to_numpy(), np.arange(n)):
+        return "column node does not number the nodes 0 to n - 1"
+    left, right = whole["left_child"].to_numpy(), whole["right_child"].to_numpy()
+    parent, ids = whole["parent"].to_numpy(), np.arange(n)
+    leaf = (left == -1) & (right == -1)
+    split = (left > ids) & (left < n) & (right > ids) & (right < n) & (left != right)
+    if not (leaf | split).all():
+        return "columns left_child and right_child name a node that is not a child"
+    if n and parent[0] != -1 or split.any() and not (
+            (parent[left[split].astype(int)] == ids[split]).all()
+            and (parent[right[split].astype(int)] == ids[split]).all()):
+        return "column parent does not name the node whose child it is"
+    if (whole["n_samples"] < 1).any():
+        return "column n_samples holds a count below one"
+    if not np.isfinite(whole["value"].to_numpy(dtype=float)).all():
+        return "column value is not a finite number for a node"
+    return None
 
 
 def tree_fold_table(store: Store, sweep_id: str | None = None) -> pd.DataFrame:
