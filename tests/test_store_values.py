@@ -5,7 +5,6 @@ traceback, exit 1, a hang or terminal control characters (tests/store_mutations.
 
 from __future__ import annotations
 
-import random
 import shutil
 import unicodedata
 
@@ -14,7 +13,7 @@ from click.testing import CliRunner
 
 from runner.cli import main
 
-from .store_mutations import Case, build_base, cases, commands, judge, mutate, reads, touches
+from .store_mutations import Case, build_base, commands, judge, mutate, reads
 
 TASKS = ("regression", "classification")
 
@@ -217,3 +216,22 @@ def test_stored_nodes_that_are_not_one_tree_are_refused_and_the_report_goes_on(
     report = _run(argvs["report"])
     assert report.exit_code == 0, report.output
     assert fault in (tmp_path / "out" / "r.html").read_text()
+
+
+@pytest.mark.parametrize("task, column, mutation, command", [
+    ("regression", "observed", "null", "plot predictions"),
+    ("regression", "observed", "inf", "plot predictions"),
+    ("regression", "predicted", "nan", "plot predictions"),
+    ("classification", "probabilities", "nan", "plot roc"),
+    ("classification", "probabilities", "empty", "plot calibration"),
+    ("classification", "probabilities", "null", "plot roc"),
+    ("classification", "observed_class", "null", "plot roc")])
+def test_test_predictions_that_cannot_be_drawn_are_refused_naming_the_column(
+        bases, tmp_path, task, column, mutation, command):
+    _, argvs = _copy(bases, task, Case("test_predictions", column, mutation), tmp_path)
+    out = _run(argvs[command])
+    assert out.exit_code == 2 and out.output.count("\n") == 1, out.output
+    assert f"table test_predictions, column {column} " in out.output
+    report = _run(argvs["report"])
+    assert report.exit_code == 0, report.output
+

@@ -68,8 +68,10 @@ def _permutation_rows(store: Store, sweep_id: str) -> int | None:
 
 
 def prediction_table(store: Store, sweep_id: str | None = None) -> pd.DataFrame:
-    """The stored test-split predictions of a sweep's explained cells, with model and picks."""
-    sweep_id = store.resolve_sweep(sweep_id)
+    """The stored test-split predictions of a sweep's explained cells, with model and picks,
+    checked to be drawable (`_prediction_fault`)."""
+    facts = sweep_facts(store, sweep_id)
+    sweep_id = facts.sweep_id
     df = store.query("""
         select c.model, c.family, p.cell_id, p."row", p.observed, p.predicted,
                p.observed_class, p.predicted_class, p.probabilities,
@@ -77,9 +79,43 @@ def prediction_table(store: Store, sweep_id: str | None = None) -> pd.DataFrame:
         from test_predictions p
         join cells c on c.sweep_id = p.sweep_id and c.cell_id = p.cell_id
         where p.sweep_id = ? order by model_row, p.cell_id, p."row" """, [sweep_id])
+    fault = _prediction_fault(df, facts.task, len(facts.classes))
+    if fault:
+        raise StoreError(f"store {store.path}: table test_predictions, {fault} in sweep "
+                         f"{sweep_id}, so its test predictions cannot be drawn; the store "
+                         "was damaged or written by another program: rerun the spec to "
+                         "store them again.")
     df = df.merge(_pick_marks(store, sweep_id), on="cell_id", how="left")
     df["picked"] = df["picked"].fillna("")
     return df.drop(columns="model_row")
+
+
+def _prediction_fault(df: pd.DataFrame, task: str, n_classes: int) -> str | None:
+    """What keeps stored test predictions from being drawn, or None: a numeric target's
+    observed and predicted values finite; a class target's observed class named and its
+    probabilities one finite share in [0, 1] per class of the sweep."""
+    import numpy as np
+
+    if task != "classification":
+        for column in ("observed", "predicted"):
+            values = pd.to_numeric(df[column], errors="coerce").to_numpy(dtype=float)
+            if not np.isfinite(values).all():
+                return f"column {column} is not a finite number on a row"
+        return None
+    if not df["observed_class"].map(lambda c: isinstance(c, str)).all():
+        return "column observed_class is empty on a row"
+
+    def usable(shares) -> bool:
+        try:
+            shares = np.asarray(shares, dtype=float)
+        except (TypeError, ValueError):
+            return False
+        return shares.shape == (n_classes,) and bool(((shares >= 0) & (shares <= 1)).all())
+
+    if not df["probabilities"].map(usable).all():
+        return (f"column probabilities is not {n_classes} shares between 0 and 1 (one per "
+                "class of the sweep) on a row")
+    return None
 
 
 def tree_node_table(store: Store, sweep_id: str, cell_id: str) -> pd.DataFrame:
