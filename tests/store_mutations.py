@@ -111,9 +111,10 @@ def cases(store: Path) -> list[Case]:
     return found + [Case(t, None, m) for t in ("foldwise_meta", *TABLES) for m in ROW_MUTATIONS]
 
 
-def mutate(base: Path, into: Path, case: Case) -> bool:
+def mutate(base: Path, into: Path, case: Case, kinds: dict | None = None) -> bool:
     """Copy `base` to `into` with `case` applied through DuckDB directly; False where the
-    table's keys forbid it (a duplicate row of a keyed table, a key made equal)."""
+    table's keys forbid it (a duplicate row of a keyed table, a key made equal). `kinds`
+    maps (table, column) to its type (`columns`), read from `base` when not given."""
     shutil.copyfile(base, into)
     table, column = f'"{case.table}"', f'"{case.column}"'
     with duckdb.connect(str(into)) as con:
@@ -126,7 +127,8 @@ def mutate(base: Path, into: Path, case: Case) -> bool:
             except duckdb.ConstraintException:
                 return False
             return True
-        kind = dict(((t, c), k) for t, c, k in columns(base))[(case.table, case.column)]
+        kinds = kinds or {(t, c): k for t, c, k in columns(base)}
+        kind = kinds[(case.table, case.column)]
         value = MUTATIONS[kind][case.mutation]
         if kind == "JSON" and case.mutation == "broken":  # JSON checks what it is given:
             con.execute(f"alter table {table} alter {column} type varchar")  # a plain column
@@ -243,3 +245,37 @@ def touches(case: Case, read: dict[str, set[str] | None]) -> bool:
         return False
     columns = read[case.table]
     return case.column is None or columns is None or case.column.lower() in columns
+
+
+HEAVY = ("report", "plot ")
+"""Commands that draw figures: each takes a second or more, so the matrix samples them."""
+
+
+def matrix(bases: dict) -> list[tuple[str, Case, str]]:
+    """The sampled runs of the store matrix, (task, case, command name): every table's
+    every column and row mutation once, on the base stores in turn, with one hostile value
+    of its type (in turn) and one of the quick commands that read it (in turn). Figures
+    (a second or more each) are drawn once per table that only figures read, and each
+    figure command once on another table. `bases` maps a task to (store, {command name:
+    what it reads})."""
+    keys = sorted({(c.table, c.column) for store, _ in bases.values() for c in cases(store)},
+                  key=lambda k: (k[0], k[1] or ""))
+    tasks = sorted(bases)
+    runs, drawn = [], set()
+    for i, (table, column) in enumerate(keys):
+        task = tasks[i % len(tasks)]
+        store, read = bases[task]
+        found = [c for c in cases(store) if (c.table, c.column) == (table, column)]
+        case = found[(i // len(tasks)) % len(found)]
+        quick = [k for k in read if not k.startswith(HEAVY) and touches(case, read[k])]
+        runs.append((task, case, quick[i % len(quick)] if quick else "export"))
+        if table == "foldwise_meta":
+            continue
+        figures_only = not any(touches(Case(table, None, "delete"), read[k])
+                               for k in read if not k.startswith(HEAVY))
+        for name in (k for k in read if k.startswith(HEAVY) and touches(case, read[k])):
+            seen = (name, table) if figures_only else name
+            if seen not in drawn and (name != "report" or figures_only):
+                drawn.add(seen)
+                runs.append((task, case, name))
+    return runs

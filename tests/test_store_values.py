@@ -218,6 +218,34 @@ def test_stored_nodes_that_are_not_one_tree_are_refused_and_the_report_goes_on(
     assert fault in (tmp_path / "out" / "r.html").read_text()
 
 
+def test_every_read_command_answers_or_refuses_on_every_hostile_column(bases, tmp_path):
+    """The sweeping guard: each table's columns and rows changed in turn (store_mutations.
+    matrix) and a command that reads it run on the copy; every run must answer or refuse
+    in one paragraph."""
+    from .store_mutations import columns, matrix
+
+    plan = {task: (bases[task][1], bases[task][3]) for task in TASKS}
+    kinds = {task: {(t, c): k for t, c, k in columns(bases[task][1])} for task in TASKS}
+    runs = matrix(plan)
+    failed = []
+    for n, (task, case, name) in enumerate(runs):
+        folder = tmp_path / str(n)
+        folder.mkdir()
+        _, store, argvs, _ = bases[task]
+        into = folder / "s.duckdb"
+        if not mutate(store, into, case, kinds[task]):  # a keyed table repeats no row
+            case = Case(case.table, None, "delete")
+            mutate(store, into, case, kinds[task])
+        argv = [a.replace(str(bases[task][0] / "out"), str(folder / "out"))
+                .replace(str(store), str(into)) for a in argvs[name]]
+        fault = judge(argv)
+        if fault:
+            failed.append(f"{task} {case.name} `{name}`: {fault}")
+    tables = {case.table for _, case, _ in runs}
+    assert len(tables) == 18 and len(runs) > 190, (len(tables), len(runs))
+    assert not failed, "\n".join(failed)
+
+
 @pytest.mark.parametrize("task, column, mutation, command", [
     ("regression", "observed", "null", "plot predictions"),
     ("regression", "observed", "inf", "plot predictions"),
