@@ -263,3 +263,12 @@ def test_test_predictions_that_cannot_be_drawn_are_refused_naming_the_column(
     report = _run(argvs["report"])
     assert report.exit_code == 0, report.output
 
+
+@pytest.mark.parametrize("column", ["n_leaves", "depth", "features_used"])
+def test_a_fold_tree_without_size_or_used_columns_is_reported(bases, tmp_path, column):
+    _, argvs = _copy(bases, "regression", Case("tree_folds", column, "null"), tmp_path)
+    out = _run(argvs["report"])
+    assert out.exit_code == 0, out.output
+    html = (tmp_path / "out" / "r.html").read_text()
+    assert "fold trees split first on" in html
+    assert column != "n_leaves" or "leaves range unknown–unknown" in html

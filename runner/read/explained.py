@@ -164,11 +164,15 @@ def _tree_fault(nodes: pd.DataFrame) -> str | None:
 
 
 def tree_fold_table(store: Store, sweep_id: str | None = None) -> pd.DataFrame:
-    """Each explained tree's shape per fold: leaves, depth, root split, used columns."""
+    """Each explained tree's shape per fold: leaves, depth, root split, used columns. A
+    missing size reads as NaN and missing used columns as none (a store from another hand
+    may hold NULL there)."""
     sweep_id = store.resolve_sweep(sweep_id)
     return store.query("""
-        select c.model, t.cell_id, t."repeat", t.fold, t.n_leaves, t.depth, t.root_feature,
-               t.root_threshold, t.root_rule, t.features_used
+        select c.model, t.cell_id, t."repeat", t.fold, t.n_leaves::double as n_leaves,
+               t.depth::double as depth, t.root_feature, t.root_threshold, t.root_rule,
+               list_filter(coalesce(t.features_used, []::varchar[]), x -> x is not null)
+                   as features_used
         from tree_folds t join cells c on c.sweep_id = t.sweep_id and c.cell_id = t.cell_id
         where t.sweep_id = ? order by c.position, t."repeat", t.fold""", [sweep_id])
 

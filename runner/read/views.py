@@ -602,6 +602,11 @@ METHODS = {
 """What each importance method's value means, for tables and reports."""
 
 
+def _whole(value) -> str:
+    """A whole number as text; 'unknown' where a store held none."""
+    return "unknown" if is_missing(value) else str(int(value))
+
+
 def stability_sentences(stab: pd.DataFrame) -> list[str]:
     """One sentence per explained cell on how its fitted model changes across folds."""
     out = []
@@ -610,7 +615,7 @@ def stability_sentences(stab: pd.DataFrame) -> list[str]:
             out.append(f"{r.model} ({rule_label(r.picked)} cell): {r.root_share:.0%} of "
                        f"{r.folds} fold trees split first on {r.root_feature}; two fold trees "
                        f"share on average {r.jaccard:.2f} of their columns (Jaccard); leaves "
-                       f"range {int(r.leaves_min)}–{int(r.leaves_max)}; importance ranks "
+                       f"range {_whole(r.leaves_min)}–{_whole(r.leaves_max)}; importance ranks "
                        f"agree at mean Spearman ρ = {number(r.rank_agreement, 2)}.")
         else:
             out.append(f"{r.model} ({rule_label(r.picked)} cell): importance ranks across "
