@@ -144,8 +144,9 @@ def sweep_facts(store: Store, sweep_id: str | None = None) -> SweepFacts:
     ways = dict(zip(better["metric"], better["better"]))
     for metric, way in ((m, ways[m]) for m in metrics if m in ways):
         if way not in ("lower", "higher"):
+            shown = repr(way[:40]) if isinstance(way, str) and way else "empty"
             raise StoreError(f"store {store.path}: table metrics, column better of metric "
-                             f"'{metric}' is {repr(way[:40]) if isinstance(way, str) and way else 'empty'}, "
+                             f"'{metric}' is {shown}, "
                              "not 'lower' or 'higher', so no pick can be made by it; the "
                              "store was damaged or written by another program: rerun the "
                              "spec into a fresh store.")
