@@ -272,3 +272,25 @@ def test_a_fold_tree_without_size_or_used_columns_is_reported(bases, tmp_path, c
     html = (tmp_path / "out" / "r.html").read_text()
     assert "fold trees split first on" in html
     assert column != "n_leaves" or "leaves range unknown–unknown" in html
+
+
+@pytest.mark.parametrize("change", [
+    "alter table cells alter params type varchar; update cells set params = '{x'",
+    "update cells set complexity_rank = null"])
+@pytest.mark.parametrize("command", ["history", "plot history"])
+def test_history_refuses_an_earlier_sweeps_unusable_cells_naming_that_sweep(
+        bases, tmp_path, change, command):
+    """Only the earlier sweep of the spec is changed: history reads its cells too."""
+    import duckdb
+
+    folder, store, argvs, _ = bases["regression"]
+    into = tmp_path / "s.duckdb"
+    shutil.copyfile(store, into)
+    with duckdb.connect(str(into)) as con:
+        first = con.execute("select min(sweep_id) from sweeps").fetchone()[0]
+        con.execute(f"{change} where sweep_id = ?", [first])
+    out = _run([a.replace(str(store), str(into)).replace(str(folder / "out"),
+                                                          str(tmp_path / "out"))
+                for a in argvs[command]])
+    assert out.exit_code == 2 and out.output.count("\n") == 1, out.output
+    assert "table cells, column " in out.output and f"in sweep {first}," in out.output

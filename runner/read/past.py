@@ -23,8 +23,8 @@ from .compare import holm, t_from_moments
 from .picks import RULES, best_index, check_rule, check_se, one_se_index
 from .past_queries import (history_cells, paired_changes, previous_sweep, shared_cells,
                            sweep_records, sweep_status_of)
-from .queries import (json_object, picks, require_fold_sizes, sweep_facts, sweep_labels,
-                      varying_params)
+from .queries import (check_cells, json_object, picks, require_fold_sizes, sweep_facts,
+                      sweep_labels, varying_params)
 from .results import ModelHistory, SweepDiff
 from .views import is_missing
 from ..store import Store
@@ -243,6 +243,7 @@ def _history(store: Store, model, name, family, rule, se, metric) -> ModelHistor
     order = list(dict.fromkeys(cells.sort_values("position", kind="stable")["model"]))
     rows, before = [], {}
     sweeps = list(dict.fromkeys(cells["sweep_id"]))
+    check_cells(store, sweeps)  # the earlier sweeps' cells too
     if se == "corrected":
         require_fold_sizes(store, sweeps)
     first_rows = cells.drop_duplicates("sweep_id").set_index("sweep_id")

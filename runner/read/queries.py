@@ -32,7 +32,8 @@ if TYPE_CHECKING:  # imported where a frame is built: `foldwise sweeps` starts w
 __all__ = ["sweeps", "sweep_facts", "summary", "cell_stats", "picks", "complexity_table",
            "compare", "model_order", "picked_fold_scores", "varying_params", "sweep_record",
            "sweep_status", "coverage", "process_alive", "sweep_labels", "unchanged_sweep",
-           "findings", "json_object", "require_fold_sizes", "FOLD_SCORES", "CELL_SUMMARY"]
+           "findings", "json_object", "check_cells", "require_fold_sizes", "FOLD_SCORES",
+           "CELL_SUMMARY"]
 
 
 def _one_connection(read):
@@ -137,7 +138,7 @@ def sweep_facts(store: Store, sweep_id: str | None = None) -> SweepFacts:
                                 coalesce(scheme, 'rows') as scheme
                          from sweeps where sweep_id = ?""", [sweep_id]).iloc[0]
     _check_recorded(store, sweep_id, row)
-    _check_cells(store, sweep_id)
+    check_cells(store, [sweep_id])
     metrics = tuple(str(row["metrics"]).split(","))
     better = store.query("select metric, better from metrics where list_contains(?, metric)",
                          [list(metrics)])
@@ -207,23 +208,24 @@ def _check_recorded(store: Store, sweep_id: str, row) -> None:
 
 
 _CELL_FAULTS = """
-    select cell_id, case
+    select sweep_id, cell_id, case
         when cell_id is null or cell_id = '' then 'cell_id'
         when model is null or model = '' then 'model'
         when complexity_rank is null then 'complexity_rank'
         when params is null or not json_valid(params::varchar)
              or json_type(params::varchar) <> 'OBJECT' then 'params' end as fault
-    from cells where sweep_id = ? and fault is not null order by position limit 1"""
-"""The first cell of a sweep that lacks what every read of its cells needs."""
+    from cells where list_contains(?::varchar[], sweep_id) and fault is not null
+    order by sweep_id, position limit 1"""
+"""The first cell of these sweeps that lacks what every read of its cells needs."""
 
 
-def _check_cells(store: Store, sweep_id: str) -> None:
-    """Refuse a sweep with a cell no read can place (no id, model or complexity rank) or
+def check_cells(store: Store, sweep_ids: list[str]) -> None:
+    """Refuse sweeps with a cell no read can place (no id, model or complexity rank) or
     whose params are not a JSON object: a store from another hand may hold them."""
-    bad = store.query(_CELL_FAULTS, [sweep_id])
+    bad = store.query(_CELL_FAULTS, [list(sweep_ids)])
     if bad.empty:
         return
-    cell, column = bad.iloc[0]["cell_id"], bad.iloc[0]["fault"]
+    sweep_id, cell, column = bad.iloc[0][["sweep_id", "cell_id", "fault"]]
     which = f" of cell '{cell}'" if column != "cell_id" else ""
     what = "is not a JSON object" if column == "params" else "is empty"
     raise StoreError(f"store {store.path}: table cells, column {column}{which} {what} in "
