@@ -163,7 +163,8 @@ def test_a_finding_whose_allowed_is_missing_is_reported_as_not_allowed(bases, tm
 
 
 @pytest.mark.parametrize("column, mutation", [("feature", "long"), ("method", "null"),
-                                              ("value", "nan")])
+                                              ("value", "nan"), ("feature", "null"),
+                                              ("spread", "negative")])
 @pytest.mark.parametrize("command", ["plot importance", "report"])
 def test_repeated_or_missing_importances_are_drawn_once_each(bases, tmp_path, column,
                                                              mutation, command):

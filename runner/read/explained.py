@@ -31,18 +31,20 @@ def importance_table(store: Store, sweep_id: str | None = None, *,
     One row per cell, method and feature (a store from another hand may repeat one: their
     mean is taken). A permutation importance on a metric undefined on the test split (ROC
     AUC when its rows lack a class) is stored NULL, and a value that is not a finite number
-    is read as such: both are left out here, since they rank nothing."""
+    is read as such: both are left out here, since they rank nothing. A spread that is not
+    finite (or negative) is missing, and a feature without a name is 'unknown'."""
     facts = sweep_facts(store, sweep_id)
     df = store.query("""
-        select c.model, c.family, i.cell_id, c.params, c.complexity_rank, i.method, i.feature,
+        select c.model, c.family, i.cell_id, c.params, c.complexity_rank, i.method,
+               coalesce(i.feature, 'unknown') as feature,
                avg(case when isfinite(i.value) then i.value end) as value,
-               avg(case when isfinite(i.spread) then i.spread end) as spread,
+               avg(case when isfinite(i.spread) and i.spread >= 0 then i.spread end) as spread,
                min(min(c.position)) over (partition by c.model) as model_row
         from importances i join cells c on c.sweep_id = i.sweep_id and c.cell_id = i.cell_id
         where i.sweep_id = ? and (?::varchar is null or i.method = ?)
           and isfinite(i.value)
         group by c.model, c.family, i.cell_id, c.params, c.complexity_rank, i.method,
-                 i.feature""",
+                 coalesce(i.feature, 'unknown')""",
                      [facts.sweep_id, method, method])
     df = df.merge(_pick_marks(store, facts.sweep_id), on="cell_id", how="left")
     df["picked"] = df["picked"].fillna("")
