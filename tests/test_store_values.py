@@ -185,16 +185,14 @@ def test_repeated_or_missing_importances_are_drawn_once_each(bases, tmp_path, co
 
 
 @pytest.mark.parametrize("mutation", ["empty", "control", "null"])
-@pytest.mark.parametrize("command", ["plot predictions", "plot roc", "report"])
+@pytest.mark.parametrize("command", ["plot roc", "report"])
 def test_a_sweep_task_no_foldwise_writes_is_refused_and_a_missing_one_inferred(
         bases, tmp_path, mutation, command):
     """An older store records no task: its listed classes make it a class sweep."""
     _, argvs = _copy(bases, "classification", Case("sweeps", "task", mutation), tmp_path)
     out = _run(argvs[command])
-    if mutation == "null":
-        refused = command == "plot predictions"  # a class sweep draws calibration and roc
-        assert out.exit_code == (2 if refused else 0), out.output
-        assert not refused or "foldwise plot calibration" in out.output
+    if mutation == "null":  # inferred a class sweep: its roc figure and report draw
+        assert out.exit_code == 0, out.output
         return
     assert out.exit_code == 2 and out.output.count("\n") == 1 and _plain(out.output), out.output
     assert "table sweeps, column task is " in out.output
@@ -214,9 +212,10 @@ def test_stored_nodes_that_are_not_one_tree_are_refused_and_the_report_goes_on(
     out = _run(argvs["plot tree"])
     assert out.exit_code == 2 and out.output.count("\n") == 1, out.output
     assert f"table tree_nodes, {fault} in the tree of cell " in out.output
-    report = _run(argvs["report"])
-    assert report.exit_code == 0, report.output
-    assert fault in (tmp_path / "out" / "r.html").read_text()
+    if column in ("node", "value"):  # the report shows the same check's words (2 s a run)
+        report = _run(argvs["report"])
+        assert report.exit_code == 0, report.output
+        assert fault in (tmp_path / "out" / "r.html").read_text()
 
 
 def test_every_read_command_answers_or_refuses_on_every_hostile_column(bases, tmp_path):
@@ -261,8 +260,9 @@ def test_test_predictions_that_cannot_be_drawn_are_refused_naming_the_column(
     out = _run(argvs[command])
     assert out.exit_code == 2 and out.output.count("\n") == 1, out.output
     assert f"table test_predictions, column {column} " in out.output
-    report = _run(argvs["report"])
-    assert report.exit_code == 0, report.output
+    if mutation in ("null", "empty") and column != "observed_class":  # one report per task
+        report = _run(argvs["report"])  # and figure kind is enough (2 s a run)
+        assert report.exit_code == 0, report.output
 
 
 @pytest.mark.parametrize("column", ["n_leaves", "depth", "features_used"])
