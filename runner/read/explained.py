@@ -37,7 +37,7 @@ def importance_table(store: Store, sweep_id: str | None = None, *,
     df = store.query("""
         select c.model, c.family, i.cell_id, c.params, c.complexity_rank, i.method,
                coalesce(i.feature, 'unknown') as feature,
-               avg(case when isfinite(i.value) then i.value end) as value,
+               avg(i.value) as value,
                avg(case when isfinite(i.spread) and i.spread >= 0 then i.spread end) as spread,
                min(min(c.position)) over (partition by c.model) as model_row
         from importances i join cells c on c.sweep_id = i.sweep_id and c.cell_id = i.cell_id
@@ -49,7 +49,7 @@ def importance_table(store: Store, sweep_id: str | None = None, *,
     df = df.merge(_pick_marks(store, facts.sweep_id), on="cell_id", how="left")
     df["picked"] = df["picked"].fillna("")
     df["rank"] = (df.groupby(["cell_id", "method"], dropna=False)["value"]
-                  .rank(ascending=False, method="min", na_option="bottom").astype(int))
+                  .rank(ascending=False, method="min").astype(int))
     df = df.sort_values(["model_row", "complexity_rank", "method", "rank", "feature"])
     undefined = store.query("""select distinct cell_id from importances where sweep_id = ?
         and (?::varchar is null or method = ?) and not coalesce(isfinite(value), false)""",

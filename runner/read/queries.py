@@ -152,7 +152,7 @@ def sweep_facts(store: Store, sweep_id: str | None = None) -> SweepFacts:
                              "store was damaged or written by another program: rerun the "
                              "spec into a fresh store.")
     return SweepFacts(sweep_id=sweep_id, name=str(row["name"]), target=str(row["target"]),
-                      metrics=metrics, better=dict(zip(better["metric"], better["better"])),
+                      metrics=metrics, better=ways,
                       k=int(row["k"]), repeats=int(row["repeats"]),
                       rule=str(row["pick_rule"] or "best"),
                       task=_task(store, sweep_id, row), classes=_classes(row["classes"]),
@@ -557,7 +557,8 @@ def summary(store: Store, sweep_id: str | None = None, *,
 
     One row per model in spec order; columns `cv_<metric>`, `se_<metric>`, `n_<metric>`
     (the folds where the metric is defined), `test_<metric>` (missing where undefined or
-    not yet scored), `tested_<metric>` (a test row is stored), plus `rule` and `failed_cells` (cells with a failed fit: never picked, see picks)."""
+    not yet scored), `tested_<metric>` (a test row is stored), plus `rule` and
+    `failed_cells` (cells with a failed fit: never picked, see picks)."""
     import pandas as pd
 
     check_rule(rule)

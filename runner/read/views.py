@@ -354,6 +354,10 @@ def summary_view(result: Summary) -> View:
                 + undefined_notes(df, facts) + edge_notes(result.edges))
 
 
+LACKING = "their validation rows lack a class it needs"
+"""Why a fold's score is undefined, in every view that says so (ROC AUC needs every class)."""
+
+
 def undefined_notes(df: pd.DataFrame, facts) -> tuple[str, ...]:
     """Where a picked cell's metric is undefined (e.g. ROC AUC on rows of a single class):
     on some folds, so its CV mean is over fewer folds than the plan's, or on the test split."""
@@ -367,10 +371,10 @@ def undefined_notes(df: pd.DataFrame, facts) -> tuple[str, ...]:
             if not is_missing(n) and 0 < n < facts.n_folds:
                 out.append(f"note: {model}'s CV {label} is the mean of the {int(n)} folds "
                            f"of {facts.n_folds} where it is defined; on the others it is "
-                           "undefined (their validation rows lack a class it needs).")
+                           f"undefined ({LACKING}).")
             elif not is_missing(n) and n == 0:
-                out.append(f"note: {model}'s CV {label} is undefined on every fold (their "
-                           "validation rows lack a class it needs).")
+                out.append(f"note: {model}'s CV {label} is undefined on every fold "
+                           f"({LACKING}).")
             if not is_missing(tested) and bool(tested) and is_missing(test):
                 out.append(f"note: {model}'s test {label} is undefined: the test rows lack "
                            "a class it needs.")
@@ -433,9 +437,9 @@ def compare_view(result: Comparison) -> View:
     if len(df) and result.facts.ordered:
         caveats += (f"note: {ORDERED_FOLDS_NOTE}",)
     if len(df) and (df["folds"] < result.facts.n_folds).any():
-        caveats += (f"note: {metric_label(result.metric)} is undefined on some folds (their "
-                    "validation rows lack a class it needs); each pair is compared on the "
-                    "folds where both of its models have it, the 'folds' column.",)
+        caveats += (f"note: {metric_label(result.metric)} is undefined on some folds "
+                    f"({LACKING}); each pair is compared on the folds where both of its "
+                    "models have it, the 'folds' column.",)
     tested = int(df["p_value"].notna().sum())
     if len(df) > 1:
         untested = (f" ({count_text(len(df) - tested, 'pair', 'pairs')} with the same score "
@@ -543,7 +547,7 @@ def finding_lines(findings: pd.DataFrame | Findings) -> tuple[str, ...]:
 
 def _allowed(value) -> bool:
     """A finding's stored `allowed`: only a true value counts (a store may hold NULL)."""
-    return value is not None and not is_missing(value) and str(value) == "True"
+    return not is_missing(value) and str(value) == "True"
 
 
 def findings_view(findings: pd.DataFrame | Findings) -> View:
