@@ -295,3 +295,76 @@ def test_history_refuses_an_earlier_sweeps_unusable_cells_naming_that_sweep(
                 for a in argvs[command]])
     assert out.exit_code == 2 and out.output.count("\n") == 1, out.output
     assert "table cells, column " in out.output and f"in sweep {first}," in out.output
+
+
+def _null_scores(bases, task: str, tmp_path, metric: str, model: str, folds: tuple[int, ...]):
+    """A copy whose `metric` is NULL (undefined, as ROC AUC is on a fold lacking a class) on
+    `folds` of every cell of `model`; the copy's store and its commands."""
+    import duckdb
+
+    folder, store, argvs, _ = bases[task]
+    into = tmp_path / "s.duckdb"
+    shutil.copyfile(store, into)
+    with duckdb.connect(str(into)) as con:
+        con.execute("update fold_scores set value = null where metric = ? and list_contains("
+                    "?::integer[], fold) and cell_id in (select cell_id from cells where "
+                    "model = ?)", [metric, list(folds), model])
+    return into, {name: [a.replace(str(store), str(into))
+                         .replace(str(folder / "out"), str(tmp_path / "out")) for a in argv]
+                  for name, argv in argvs.items()}
+
+
+@pytest.mark.parametrize("folds, n, sentence", [
+    ((0,), 1, "logit and tree both have a ROC AUC on 1 fold only: too few to test"),
+    ((0, 1), 0, "ROC AUC is undefined on every fold of logit or tree: nothing to compare")])
+def test_a_pair_with_roc_auc_on_fewer_than_two_common_folds_is_shown_not_tested(
+        bases, tmp_path, folds, n, sentence):
+    """The sweep has 2 folds; the tree's ROC AUC is made undefined on one or both. The pair
+    is listed over the folds where both have it, with its difference on that one fold (the
+    two stored scores' difference, read here straight from the copy), and no test."""
+    import json
+
+    import duckdb
+
+    into, argvs = _null_scores(bases, "classification", tmp_path, "roc_auc", "tree", folds)
+    argv = argvs["compare"] + ["--metric", "roc_auc"]
+    out = _run(argv)
+    assert out.exit_code == 0 and out.output.count("Error") == 0, out.output
+    assert sentence in out.output and "p ≈" not in out.output, out.output
+    (row,) = [line for line in out.output.splitlines() if "logit − tree" in line]
+    assert "±" not in row  # one fold gives no SE: the mean alone, no dangling '±'
+    assert row.split("│")[2].strip() == str(n)
+    shown = _run(argv + ["--format", "json"])
+    assert shown.exit_code == 0, shown.output
+    (pair,) = json.loads(shown.stdout)
+    assert (pair["model_a"], pair["model_b"], pair["folds"]) == ("logit", "tree", n)
+    assert pair["se"] is pair["t"] is pair["p_value"] is pair["p_holm"] is None
+    with duckdb.connect(str(into), read_only=True) as con:
+        d = con.execute(
+            "select a.value - b.value from fold_scores a join fold_scores b using "
+            "(sweep_id, \"repeat\", fold, metric) where a.cell_id = ? and b.cell_id = ? and "
+            "metric = 'roc_auc' and a.value is not null and b.value is not null and "
+            "sweep_id = (select max(sweep_id) from sweeps)",  # the latest, which compare reads
+            [pair["cell_a"], pair["cell_b"]]).fetchall()
+    assert len(d) == n
+    if n:
+        assert pair["mean_diff"] == pytest.approx(d[0][0], rel=1e-12)
+        assert (pair["wins_a"], pair["wins_b"]) == ((1, 0) if d[0][0] > 0 else (0, 1))
+    else:
+        assert pair["mean_diff"] is None and pair["wins_a"] == pair["wins_b"] == 0
+
+
+def test_holm_counts_the_pairs_with_too_few_folds_as_untested_not_as_ties(bases, tmp_path):
+    """Three models, the tree's MAE made undefined on one of 2 folds: of the 3 pairs only
+    ridge–forest has 2 common folds, so 1 test is made, and the note says why the other two
+    were not (it called them pairs with the same score on every fold)."""
+    _, argvs = _null_scores(bases, "regression", tmp_path, "mae", "tree", (0,))
+    out = _run(argvs["compare"] + ["--metric", "mae"])
+    assert out.exit_code == 0, out.output
+    text = " ".join(out.output.split())
+    assert "ridge and tree both have a MAE on 1 fold only: too few to test" in text
+    assert "tree and forest both have a MAE on 1 fold only: too few to test" in text
+    assert ("note: 1 pairwise test was made (2 pairs with a score on fewer than 2 common "
+            "folds had too few to test);") in text
+    assert "same score on every fold" not in text
+    assert "MAE is undefined on some folds (the store holds no finite value there)" in text

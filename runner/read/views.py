@@ -11,7 +11,7 @@ from typing import TYPE_CHECKING
 
 from .compare import APPROXIMATE_NOTE
 from ..families import get_family
-from ..metrics import metric_label
+from ..metrics import get_metric, metric_label
 from .results import Comparison, ComplexityTable, Coverage, Findings, Picks, Summary
 
 if TYPE_CHECKING:  # imported where a frame is built: `foldwise sweeps` starts without it
@@ -100,6 +100,8 @@ def mean_se(mean, se, digits: int = 4) -> str:
     place (common practice), or `digits` significant digits when there is no usable SE."""
     if is_missing(mean):
         return ""
+    if is_missing(se):  # one fold has no SE: the mean alone, not a dangling '±'
+        return number(mean, digits)
     places = decimals_for(se)
     if places is None or not math.isfinite(float(mean)):
         return f"{number(mean, digits)} ± {number(se, 2)}"
@@ -358,6 +360,14 @@ LACKING = "their validation rows lack a class it needs"
 """Why a fold's score is undefined, in every view that says so (ROC AUC needs every class)."""
 
 
+def undefined_why(metric: str) -> str:
+    """Why a metric is undefined on a fold: a class score lacks a class; a score of numbers
+    is always defined, so only a store edited by another hand holds one that is not."""
+    if get_metric(metric).task == "classification":
+        return LACKING
+    return "the store holds no finite value there"
+
+
 def undefined_notes(df: pd.DataFrame, facts) -> tuple[str, ...]:
     """Where a picked cell's metric is undefined (e.g. ROC AUC on rows of a single class):
     on some folds, so its CV mean is over fewer folds than the plan's, or on the test split."""
@@ -371,10 +381,10 @@ def undefined_notes(df: pd.DataFrame, facts) -> tuple[str, ...]:
             if not is_missing(n) and 0 < n < facts.n_folds:
                 out.append(f"note: {model}'s CV {label} is the mean of the {int(n)} folds "
                            f"of {facts.n_folds} where it is defined; on the others it is "
-                           f"undefined ({LACKING}).")
+                           f"undefined ({undefined_why(m)}).")
             elif not is_missing(n) and n == 0:
                 out.append(f"note: {model}'s CV {label} is undefined on every fold "
-                           f"({LACKING}).")
+                           f"({undefined_why(m)}).")
             if not is_missing(tested) and bool(tested) and is_missing(test):
                 out.append(f"note: {model}'s test {label} is undefined: the test rows lack "
                            "a class it needs.")
@@ -438,12 +448,17 @@ def compare_view(result: Comparison) -> View:
         caveats += (f"note: {ORDERED_FOLDS_NOTE}",)
     if len(df) and (df["folds"] < result.facts.n_folds).any():
         caveats += (f"note: {metric_label(result.metric)} is undefined on some folds "
-                    f"({LACKING}); each pair is compared on the folds where both of its "
+                    f"({undefined_why(result.metric)}); each pair is compared on the folds where both of its "
                     "models have it, the 'folds' column.",)
     tested = int(df["p_value"].notna().sum())
     if len(df) > 1:
-        untested = (f" ({count_text(len(df) - tested, 'pair', 'pairs')} with the same score "
-                    "on every fold had nothing to test)" if tested < len(df) else "")
+        few = int((df["folds"] < 2).sum())
+        why = [f"{count_text(few, 'pair', 'pairs')} with a score on fewer than 2 common "
+               "folds had too few to test"] if few else []
+        if tested + few < len(df):
+            why.append(f"{count_text(len(df) - tested - few, 'pair', 'pairs')} with the same "
+                       "score on every fold had nothing to test")
+        untested = f" ({'; '.join(why)})" if why else ""
         caveats += (f"note: {count_text(tested, 'pairwise test was', 'pairwise tests were')} "
                     f"made{untested}; 'Holm p' adjusts each p for all of them (Holm 1979), and "
                     f"a difference is called clear only when that is below {CLEAR_P:g}.",)
