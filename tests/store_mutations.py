@@ -95,6 +95,57 @@ def build_base(folder: Path, task: str) -> Path:
     return store
 
 
+def _residuals(record: dict, *values) -> dict:
+    """The record with its first residuals replaced by `values`."""
+    return {**record, "scores": [*values, *record["scores"][len(values):]]}
+
+
+INTERVALS = {
+    "a NULL residual": (lambda r: _residuals(r, None), None),
+    "NaN and infinite residuals": (lambda r: _residuals(r, float("nan"), float("inf"),
+                                                        float("-inf")), None),
+    "a residual beyond float range": (lambda r: _residuals(r, 10**400), None),
+    "not an object": (lambda r: r["scores"], "interval record that is a list, not an object"),
+    "no residuals": (lambda r: {**r, "scores": None}, "lists no residuals"),
+    "no residual at all": (lambda r: {**r, "n": 0, "scores": []},
+                           "holds no held-out residual that is a finite number (0 listed)"),
+    "every residual NULL": (lambda r: {**r, "scores": [None] * r["n"]},
+                            "holds no held-out residual that is a finite number (30 listed)"),
+    "a residual as text": (lambda r: _residuals(r, "0.5"), "holds '0.5' where an absolute"),
+    "a negative residual": (lambda r: _residuals(r, -1.0), "holds '-1.0' where an absolute"),
+    "a count not a number": (lambda r: {**r, "n": "30"}, "counts n = 30 residuals but"),
+    "a count that disagrees": (lambda r: {**r, "n": 10**12}, "counts n = 1000000000000"),
+    "a count true": (lambda r: {**r, "n": True}, "counts n = True residuals"),
+    "more residuals than a card keeps": (lambda r: {**r, "n": 100_001,
+                                                    "scores": [1.0] * 100_001},
+                                         "lists 100,001 residuals, more than the 100,000"),
+    "ranks not one per residual": (lambda r: {**r, "ranks": [1, 2]},
+                                   "has 'ranks' that are not one per residual"),
+    "ranks beyond the count": (lambda r: {**r, "ranks": list(range(1, r["n"])) + [10**6]},
+                               "ranks are not increasing whole numbers"),
+    "a huge count of thinned residuals": (lambda r: {**r, "n": 10**400,
+                                                     "ranks": list(range(1, r["n"] + 1))},
+                                          "not a whole number from 30"),
+}
+"""Per name, a change to a built model's held-out residuals (its card's interval record,
+as the store's models row keeps it) and what `predict --interval` must do: None, answer
+with a note that it skipped the residuals that are not finite; else the refusal's words."""
+
+
+def mutate_interval(base: Path, into: Path, change) -> None:
+    """Copy `base` to `into` with `change` applied to every built model's interval record."""
+    import json
+
+    shutil.copyfile(base, into)
+    with duckdb.connect(str(into)) as con:
+        for model_id, text in con.execute("select model_id, card from models").fetchall():
+            card = json.loads(text)
+            if card.get("interval"):
+                card["interval"] = change(card["interval"])
+                con.execute("update models set card = ? where model_id = ?",
+                            [json.dumps(card), model_id])
+
+
 def columns(store: Path) -> list[tuple[str, str, str]]:
     """(table, column, type) of every stored table's columns, the meta table included."""
     with duckdb.connect(str(store), read_only=True) as con:

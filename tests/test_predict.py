@@ -471,3 +471,29 @@ def test_a_numeric_category_beside_a_text_one_predicts_as_scikit_learn_fitted_he
         np.testing.assert_allclose(got["probability_fast"], reference.predict_proba(rows)[:, 0],
                                    rtol=1e-12)
         assert got["predicted_class"].tolist() == reference.predict(rows).tolist()
+
+
+def test_a_thinned_card_gives_the_conformal_residual_at_or_just_above_its_rank():
+    # A card keeps at most 100 000 of the test residuals (every ~2.5th rank of 250 001
+    # here) with their ranks. Split conformal (Lei, G'Sell, Rinaldo, Tibshirani &
+    # Wasserman 2018) wants the ceil((n + 1)·level)-th smallest of all n: numpy's
+    # inverted-CDF quantile at that rank over n. The kept residual at the first kept rank
+    # at or above it is never below that (the interval is no narrower) and at most 3 ranks
+    # above it; a NaN among the kept is skipped and said.
+    from runner.model.card import conformal_scores, read_residuals
+
+    rng = np.random.default_rng(7)
+    y, predicted = rng.normal(size=250_001), np.zeros(250_001)
+    every = np.sort(np.abs(y))
+    record = conformal_scores(y, predicted)
+    assert len(record["scores"]) == 100_000 and record["n"] == 250_001
+    for level in (0.5, 0.9, 0.99):
+        k = int(np.ceil(250_002 * level))
+        exact = np.quantile(every, k / 250_001, method="inverted_cdf")
+        got = read_residuals(record, "m").halfwidth(level, "m")
+        assert exact <= got <= every[k - 1 + 3], level
+    record["scores"][1] = float("nan")
+    residuals = read_residuals(record, "m")
+    assert residuals.skipped == 1 and residuals.n == 250_001
+    assert "1 of the 100,000 held-out residuals on the card of m is not a finite number" \
+        in residuals.note("m")

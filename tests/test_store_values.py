@@ -13,7 +13,7 @@ from click.testing import CliRunner
 
 from runner.cli import main
 
-from .store_mutations import Case, build_base, commands, judge, mutate, reads
+from .store_mutations import INTERVALS, Case, build_base, commands, judge, mutate, reads
 
 TASKS = ("regression", "classification")
 
@@ -368,3 +368,56 @@ def test_holm_counts_the_pairs_with_too_few_folds_as_untested_not_as_ties(bases,
             "folds had too few to test);") in text
     assert "same score on every fold" not in text
     assert "MAE is undefined on some folds (the store holds no finite value there)" in text
+
+
+@pytest.mark.parametrize("name", list(INTERVALS))
+def test_prediction_intervals_skip_residuals_that_are_not_finite_or_refuse_in_a_paragraph(
+        bases, tmp_path, name):
+    """A built model's held-out residuals (its card in the store) changed as no build writes
+    them: `predict --interval` answers, skipping those that are not finite numbers with a
+    note, or refuses in one paragraph and writes nothing; `card` always answers."""
+    import json
+    import math
+
+    import duckdb
+    import numpy as np
+    import pandas as pd
+
+    from .store_mutations import mutate_interval
+
+    change, refusal = INTERVALS[name]
+    folder, store, argvs, _ = bases["regression"]
+    into = tmp_path / "s.duckdb"
+    mutate_interval(store, into, change)
+    argv = [a.replace(str(store), str(into)).replace(str(folder / "out"), str(tmp_path))
+            for a in argvs["predict 0"]] + ["--interval", "0.8"]
+    out = _run(argv)
+    written = tmp_path / "p0.csv"
+    card = _run([a.replace(str(store), str(into)) for a in argvs["card 0"]])
+    assert card.exit_code == 0 and "intervals" in card.output, card.output
+    if refusal:
+        assert out.exit_code == 2 and out.output.count("\n") == 1, out.output
+        assert out.output.startswith("Error: ") and refusal in out.output, out.output
+        assert not written.exists()
+        return
+    assert out.exit_code == 0 and " skipped; " in out.output, out.output
+    with duckdb.connect(str(into), read_only=True) as con:
+        (text,) = con.execute("select card from models where model_id = ?",
+                              [argv[1]]).fetchone()
+    listed = json.loads(text)["interval"]["scores"]
+    def finite(x) -> bool:
+        try:
+            return x is not None and math.isfinite(float(x))
+        except OverflowError:  # an integer beyond float range
+            return False
+
+    kept = np.array([x for x in listed if finite(x)])
+    assert f"split conformal on the other {len(kept)}." in " ".join(out.output.split())
+    # split conformal (Lei, G'Sell, Rinaldo, Tibshirani & Wasserman 2018, JASA): the
+    # ceil((m + 1)·0.8)-th smallest of the m residuals, numpy's inverted-CDF quantile at
+    # that rank over m
+    m = len(kept)
+    q = np.quantile(kept, math.ceil((m + 1) * 0.8) / m, method="inverted_cdf")
+    got = pd.read_csv(written)
+    np.testing.assert_allclose(got["upper"] - got["predicted"], q, rtol=1e-12)
+    np.testing.assert_allclose(got["predicted"] - got["lower"], q, rtol=1e-12)

@@ -8,9 +8,11 @@ with this machine's. The card is plain data: nothing here fits or loads a model.
 
 from __future__ import annotations
 
+import bisect
 import json
 import math
 import platform
+from dataclasses import dataclass
 from importlib.metadata import PackageNotFoundError, version
 from pathlib import Path
 
@@ -18,7 +20,7 @@ from ..errors import ModelError
 
 __all__ = ["CARD_FORMAT", "CARD_VERSION", "versions_here", "version_notes", "feature_schema",
            "card_path_for", "read_card_file", "card_json", "check_card", "VERSIONED",
-           "conformal_scores", "interval_halfwidth"]
+           "conformal_scores", "Residuals", "read_residuals"]
 
 CARD_FORMAT = "foldwise model card"
 CARD_VERSION = 1
@@ -98,31 +100,129 @@ def conformal_scores(y_test, predicted) -> dict:
     return {"method": CONFORMAL, "n": int(len(scores)), "scores": scores.tolist()}
 
 
-def interval_halfwidth(record: dict | str | None, level: float, where: str) -> float:
-    """q such that [prediction - q, prediction + q] covers a new row's target with
-    probability at least `level` when rows are exchangeable: the ceil((n + 1) level)-th
-    smallest of the n test residuals (split conformal)."""
-    import math
+_MAX_COUNT = 2**53
+"""The most held-out rows a card may count: ranks up to it are exact in float arithmetic,
+and no sweep has so many test rows."""
 
+
+@dataclass(frozen=True)
+class Residuals:
+    """A card's held-out absolute residuals, checked: the finite ones in increasing order,
+    the count n they were taken from, their ranks among those n when the card keeps a
+    thinned selection (None when it keeps them all), and how many were not finite."""
+
+    scores: tuple[float, ...]
+    n: int
+    ranks: tuple[int, ...] | None
+    skipped: int
+
+    def halfwidth(self, level: float, where: str) -> float:
+        """q such that [prediction - q, prediction + q] covers a new row's target with
+        probability at least `level` when rows are exchangeable: the ceil((n + 1) level)-th
+        smallest of the n residuals (split conformal)."""
+        k = math.ceil((self.n + 1) * level)
+        if k > self.n:
+            raise ModelError(f"a {level:g} interval needs at least "
+                             f"{math.ceil(level / (1 - level))} held-out rows; {where} was "
+                             f"calibrated on {self.n:,}. Ask for a lower level.")
+        if self.ranks is None:
+            return self.scores[k - 1]
+        i = bisect.bisect_left(self.ranks, k)
+        if i == len(self.ranks):
+            raise ModelError(f"{where}: the held-out residual of rank {k:,} of {self.n:,}, "
+                             f"which a {level:g} interval needs, is not a finite number on "
+                             "its card. Ask for a lower level, or build the model again.")
+        return self.scores[i]
+
+    def note(self, where: str) -> str | None:
+        """What skipping non-finite residuals did, or None when none was skipped."""
+        if not self.skipped:
+            return None
+        are = "is not a finite number" if self.skipped == 1 else "are not finite numbers"
+        return (f"note: {self.skipped:,} of the {self.skipped + len(self.scores):,} held-out "
+                f"residuals on the card of {where} {are} (NULL, NaN or infinite) and "
+                f"{'was' if self.skipped == 1 else 'were'} skipped; the interval is split "
+                "conformal on the other "
+                f"{len(self.scores):,}. Build the model again for a card without them.")
+
+
+def _residual(value) -> float | None:
+    """A stored residual as a float (NaN for NULL, inf beyond float range), or None when it
+    is not a number at all."""
+    if value is None:
+        return math.nan
+    if isinstance(value, bool) or not isinstance(value, (int, float)):
+        return None
+    try:
+        return float(value)
+    except OverflowError:
+        return math.inf
+
+
+def _is_count(value, least: int = 0) -> bool:
+    return isinstance(value, int) and not isinstance(value, bool) and \
+        least <= value <= _MAX_COUNT
+
+
+def read_residuals(record, where: str) -> Residuals:
+    """The card's interval record checked (a card comes from a file or a store another hand
+    may have edited): NULL, NaN and infinite residuals are skipped and counted; anything
+    else that no build writes is a ModelError naming what is wrong."""
     if record == "absent":
         raise ModelError(f"{where} was built by a foldwise that kept no residuals for "
                          "prediction intervals; build it again to get intervals.")
-    if not record:
+    if record is None:
         raise ModelError(f"{where} has no held-out residuals for a prediction interval: it "
                          "was built on every row (--all-rows). Build it on the training "
                          "rows to get intervals.")
-    n = int(record["n"])
-    k = math.ceil((n + 1) * level)
-    if k > n:
-        raise ModelError(f"a {level:g} interval needs at least {math.ceil(level / (1 - level))}"
-                         f" held-out rows; {where} was calibrated on {n}. Ask for a lower "
-                         "level.")
-    ranks = record.get("ranks")
-    if ranks is None:
-        return float(record["scores"][k - 1])
-    import bisect
 
-    return float(record["scores"][min(bisect.bisect_left(ranks, k), len(ranks) - 1)])
+    def damaged(why: str) -> ModelError:
+        return ModelError(f"the card of {where} has an interval record that {why}, which no "
+                          "build writes: the card was changed after the model was built. "
+                          "Predict without --interval, or build the model again to get "
+                          "intervals.")
+
+    if not isinstance(record, dict):
+        kind = {list: "a list", str: "a string", bool: "true or false"}.get(type(record),
+                                                                         "a number")
+        raise damaged(f"is {kind}, not an object")
+    listed, ranks, n = record.get("scores"), record.get("ranks"), record.get("n")
+    if not isinstance(listed, list):
+        raise damaged("lists no residuals (its 'scores' is not a list)")
+    if len(listed) > _MAX_SCORES:
+        raise damaged(f"lists {len(listed):,} residuals, more than the {_MAX_SCORES:,} a "
+                      "card keeps")
+    if ranks is not None and (not isinstance(ranks, list) or len(ranks) != len(listed)):
+        raise damaged("has 'ranks' that are not one per residual")
+    if ranks is None and not (_is_count(n) and n == len(listed)):
+        raise damaged(f"counts n = {str(n)[:20]} residuals but lists {len(listed):,}")
+    if ranks is not None and not _is_count(n, least=len(listed)):
+        raise damaged(f"counts n = {str(n)[:20]}, not a whole number from {len(listed):,} "
+                      f"(the residuals it keeps) to {_MAX_COUNT:,}")
+    scores, kept_ranks = [], []
+    for i, value in enumerate(listed):
+        x = _residual(value)
+        if x is not None and not math.isfinite(x):
+            continue
+        if x is None or x < 0:
+            raise damaged(f"holds {str(value)[:20]!r} where an absolute residual (a number, "
+                          "at least 0) belongs")
+        scores.append(x)
+        if ranks is not None:
+            kept_ranks.append(ranks[i])
+    if ranks is None:
+        scores.sort()
+    elif not (all(_is_count(r, least=1) and r <= n for r in kept_ranks)
+              and all(a < b for a, b in zip(kept_ranks, kept_ranks[1:]))
+              and all(a <= b for a, b in zip(scores, scores[1:]))):
+        raise damaged("keeps residuals whose ranks are not increasing whole numbers from 1 "
+                      "to n or are out of order")
+    if not scores:
+        raise ModelError(f"the card of {where} holds no held-out residual that is a finite "
+                         f"number ({len(listed):,} listed), so no interval can be made. "
+                         "Predict without --interval, or build the model again.")
+    return Residuals(tuple(scores), len(scores) if ranks is None else n,
+                     None if ranks is None else tuple(kept_ranks), len(listed) - len(scores))
 
 
 def card_path_for(artefact: Path) -> Path:

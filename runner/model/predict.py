@@ -35,7 +35,7 @@ import pandas as pd
 
 from ..errors import DataError, ModelError, OutputError
 from ..read.filenames import check_folder, new_file_mode
-from .card import interval_halfwidth
+from .card import read_residuals
 from .keep import LoadedModel
 
 __all__ = ["predict_file", "PredictionResult", "CHUNK_ROWS", "UNSEEN"]
@@ -413,7 +413,7 @@ def predict_file(model: LoadedModel, data: str | Path, out: str | Path, *,
     Reads `chunk_rows` rows at a time; `progress(done, total)` counts bytes of a CSV or
     rows of a Parquet file. Categories the model never saw are refused unless `unseen` is
     "allow". With `interval` (a level such as 0.9), `lower` and `upper` columns bound each
-    prediction by split conformal on the sweep's test rows (`card.interval_halfwidth`).
+    prediction by split conformal on the sweep's test rows (`card.read_residuals`).
     On any error no output file is left behind."""
     start = time.perf_counter()
     data, out = Path(data), Path(out)
@@ -425,15 +425,16 @@ def predict_file(model: LoadedModel, data: str | Path, out: str | Path, *,
     card, family = model.card, model.family
     features = card["features"]
     prediction = list(card.get("prediction_columns") or ["predicted"])
-    halfwidth = None
+    halfwidth = interval_note = None
     if interval is not None and card.get("task") == "classification":
         raise ModelError(f"{model.source} predicts classes; prediction intervals are for "
                          "numbers. Its per-class probability columns say how sure it is.")
     if interval is not None:
         if not 0 < interval < 1:
             raise ModelError(f"the interval level must be between 0 and 1, got {interval}.")
-        halfwidth = interval_halfwidth(card.get("interval", "absent"), interval,
-                                       model.source)
+        residuals = read_residuals(card.get("interval", "absent"), model.source)
+        halfwidth = residuals.halfwidth(interval, model.source)
+        interval_note = residuals.note(model.source)
         prediction += ["lower", "upper"]
     fh, kind = _open_input(data)
     with fh:
@@ -494,5 +495,6 @@ def predict_file(model: LoadedModel, data: str | Path, out: str | Path, *,
     return PredictionResult(out, tally.rows, n_chunks, time.perf_counter() - start,
                             [*keep, *prediction], keep, ignored, tally.unseen,
                             {k: v for k, v in tally.missing.items() if v},
-                            model.model_id, family.unseen_category, list(model.notes),
+                            model.model_id, family.unseen_category,
+                            list(model.notes) + ([interval_note] if interval_note else []),
                             interval, halfwidth)

@@ -47,6 +47,25 @@ def models_view(df: pd.DataFrame) -> View:
     return View("built models", table, notes=notes)
 
 
+def _intervals_text(card: dict) -> str:
+    """What the card's residuals allow: intervals on how many, or why none."""
+    from ..errors import ModelError
+    from ..model.card import read_residuals
+
+    try:
+        residuals = read_residuals(card.get("interval", "absent"), "this model")
+    except ModelError as exc:
+        if card.get("interval", "absent") is None:
+            return "none: no held-out rows (built on every row)"
+        if card.get("interval", "absent") == "absent":
+            return "none: built by a foldwise that kept no residuals"
+        return "none: " + str(exc).split(", which no build writes")[0].replace(
+            "the card of this model has an", "the card has an")
+    skipped = f", {residuals.skipped:,} not finite and skipped" if residuals.skipped else ""
+    return (f"split conformal on {residuals.n:,} held-out residuals{skipped} "
+            "(predict --interval LEVEL)")
+
+
 def card_view(card: dict) -> View:
     """A model card as a two-column table, one fact a row."""
     cell, rows, data, scores = card["cell"], card["rows"], card["data"], card["scores"]
@@ -82,10 +101,7 @@ def card_view(card: dict) -> View:
                           + ("" if scores["test_describes_this_model"] else
                              " (of the refit on training rows; not of this model)")))
     facts.append(("predicts", ", ".join(card["prediction_columns"])))
-    interval = card.get("interval")
-    facts.append(("intervals", f"split conformal on {interval['n']:,} held-out residuals "
-                  "(predict --interval LEVEL)" if interval else
-                  "none: no held-out rows (built on every row)"))
+    facts.append(("intervals", _intervals_text(card)))
     facts.append(("artefact", f"{card['artefact']['format']}, "
                               f"{_size(card['artefact']['bytes'])}, SHA-256 "
                               f"{card['artefact']['sha256']}"))
