@@ -108,7 +108,7 @@ def test_a_fold_score_that_is_not_finite_is_read_as_undefined(bases, tmp_path, v
 
 @pytest.mark.parametrize("column, mutation", [("n_train", "null"), ("n_train", "zero"),
                                               ("n_train", "negative"), ("n_valid", "zero")])
-@pytest.mark.parametrize("command, extra", [("compare", []), ("diff", []),
+@pytest.mark.parametrize("command, extra", [("compare", []),
                                             ("pick", ["--se", "corrected"]),
                                             ("history", ["--se", "corrected"]),
                                             ("pick", [])])
@@ -123,6 +123,54 @@ def test_fold_counts_that_are_not_positive_refuse_only_the_corrected_variance(
     assert out.exit_code == 2 and out.output.count("\n") == 1, out.output
     assert "table fold_scores, columns n_train and n_valid hold a count that is missing or " \
            "not positive" in out.output
+
+
+@pytest.mark.parametrize("column, mutation", [("n_train", "null"), ("n_valid", "zero"),
+                                              ("n_train", "negative")])
+def test_diff_with_fold_counts_that_are_not_positive_shows_all_but_the_paired_test(
+        bases, tmp_path, column, mutation):
+    """The paired test needs n_valid/n_train per fold; the spec, data, plan, labels and each
+    sweep's picks with their plain CV means do not, so diff shows them (exit 0) and says in
+    one line why the folds are not paired and what to do. With --se corrected the picks
+    need the counts too: what changed is still shown and the scores' absence said."""
+    import json
+
+    import duckdb
+
+    folder, store, argvs, _ = bases["regression"]
+    whole = _run(argvs["diff"] + ["--format", "json"])  # the unchanged store's picks
+    assert whole.exit_code == 0 and json.loads(whole.stdout)[0]["p_value"] is not None
+    into, argvs = _copy(bases, "regression", Case("fold_scores", column, mutation), tmp_path)
+    with duckdb.connect(str(into), read_only=True) as con:
+        first = con.execute("select min(sweep_id) from sweeps").fetchone()[0]
+    out = _run(argvs["diff"])
+    assert out.exit_code == 0 and _plain(out.output), out.output
+    for line in ("spec: same text", "data: same (SHA-256 ", "plan: same",
+                 "labels: team (none) → north"):
+        assert line in out.output, out.output
+    (why,) = [x for x in out.output.splitlines() if x.startswith("folds: ")]
+    assert why == (f"folds: not paired: the folds are the same rows, but sweep {first}'s "
+                   "fold rows (table fold_scores) hold an n_train or n_valid that is missing "
+                   "or not positive, which the paired test needs; the CV means are compared "
+                   "unpaired. Rerun its spec to pair them.")
+    assert "ridge: CV RMSE " in out.output and "(not paired)." in out.output
+    shown = _run(argvs["diff"] + ["--format", "json"])
+    assert shown.exit_code == 0, shown.output
+    got, before = json.loads(shown.stdout), json.loads(whole.stdout)
+    assert [r["model"] for r in got] == [r["model"] for r in before] == ["ridge", "tree",
+                                                                         "forest"]
+    for r, b in zip(got, before):  # the plain picks and means, unchanged; no test
+        assert (r["cell_a"], r["cell_b"]) == (b["cell_a"], b["cell_b"])
+        assert (r["mean_a"], r["mean_b"]) == (b["mean_a"], b["mean_b"])
+        assert r["p_value"] is r["folds"] is r["se"] is None
+    corrected = _run(argvs["diff"] + ["--se", "corrected"])
+    assert corrected.exit_code == 0 and "spec: same text" in corrected.output
+    assert (f"scores: not compared: sweep {first}'s fold rows (table fold_scores) hold an "
+            "n_train or n_valid that is missing or not positive, which the corrected SE of "
+            "--se corrected needs to pick; use --se plain, or rerun its spec (or `foldwise "
+            "remove` it).") in corrected.output.splitlines()
+    as_json = _run(argvs["diff"] + ["--se", "corrected", "--format", "json"])
+    assert as_json.exit_code == 0 and json.loads(as_json.stdout) == []
 
 
 @pytest.mark.parametrize("mutation", ["null", "empty", "long", "control"])

@@ -23,8 +23,8 @@ from .compare import holm, t_from_moments
 from .picks import RULES, best_index, check_rule, check_se, one_se_index
 from .past_queries import (history_cells, paired_changes, previous_sweep, shared_cells,
                            sweep_records, sweep_status_of)
-from .queries import (check_cells, json_object, picks, require_fold_sizes, sweep_facts,
-                      sweep_labels, varying_params)
+from .queries import (check_cells, fold_size_fault, json_object, picks, require_fold_sizes,
+                      sweep_facts, sweep_labels, varying_params)
 from .results import ModelHistory, SweepDiff
 from .views import is_missing
 from ..store import Store
@@ -63,12 +63,28 @@ def _diff(store: Store, sweep_a: str | None, sweep_b: str | None, se: str) -> Sw
     paired, why = _pairing(ra, rb, data_same, plan_same)
     fa, fb = sweep_facts(store, a), sweep_facts(store, b)
     metric = fb.metric if fa.metric == fb.metric else None
-    pa = picks(store, a, rule=fa.rule, se=se).table.set_index("model")
-    pb = picks(store, b, rule=fb.rule, se=se).table.set_index("model")
-    in_a, in_b = _models(store, a), _models(store, b)
-    table = pd.DataFrame([_model_row(m, pa, pb, _in_sweeps(m, in_a, in_b))
-                          for m in dict.fromkeys([*in_b, *in_a])], columns=_DIFF_COLUMNS)
-    if paired and metric is not None:
+    needs_sizes = se == "corrected" or (paired and metric is not None)
+    bad = fold_size_fault(store, [a, b]) if needs_sizes else None
+    refused = ""
+    if bad is not None and se == "corrected":  # no pick without the corrected SE
+        refused = (f"not compared: sweep {bad}'s fold rows (table fold_scores) hold an "
+                   f"n_train or n_valid that is missing or not positive, which the corrected "
+                   f"SE of --se corrected needs to pick; use --se plain, or rerun its spec "
+                   f"(or `foldwise remove` it).")
+        table = pd.DataFrame(columns=_DIFF_COLUMNS)
+    else:
+        pa = picks(store, a, rule=fa.rule, se=se).table.set_index("model")
+        pb = picks(store, b, rule=fb.rule, se=se).table.set_index("model")
+        in_a, in_b = _models(store, a), _models(store, b)
+        table = pd.DataFrame([_model_row(m, pa, pb, _in_sweeps(m, in_a, in_b))
+                              for m in dict.fromkeys([*in_b, *in_a])], columns=_DIFF_COLUMNS)
+    if paired and bad is not None and not refused:
+        paired, why = False, (
+            f"not paired: the folds are the same rows, but sweep {bad}'s fold rows (table "
+            "fold_scores) hold an n_train or n_valid that is missing or not positive, which "
+            "the paired test needs; the CV means are compared unpaired. Rerun its spec to "
+            "pair them.")
+    if paired and metric is not None and not refused:
         table = _with_pairs(store, table, a, b, metric, fb.better_of(metric))
     varying = {}
     for sid in (a, b):
@@ -77,7 +93,7 @@ def _diff(store: Store, sweep_a: str | None, sweep_b: str | None, se: str) -> Sw
     return SweepDiff(ra, rb, _spec_diff(ra, rb), data_same, plan_same,
                      _changed(json_object(ra["versions"]), json_object(rb["versions"])),
                      _changed(ra["labels"], rb["labels"]), metric, fb.better_of(), se,
-                     paired, why, shared, table, varying)
+                     paired, why, shared, table, varying, refused)
 
 
 def _the_two(store: Store, sweep_a: str | None, sweep_b: str | None) -> tuple[str, str]:

@@ -152,7 +152,9 @@ def diff_view(result: SweepDiff) -> View:
     lines.append(f"folds: paired on identical folds ({result.shared_cells} shared cells)"
                  if result.paired else f"folds: {result.not_paired}")
     lines += _one_sided_lines(df, a["sweep_id"], b["sweep_id"])
-    if m is None:
+    if result.not_compared:
+        lines.append(f"scores: {result.not_compared}")
+    elif m is None:
         lines.append("the sweeps pick by different metrics, so their scores are not "
                      "compared; each sweep's picks are shown.")
     label = metric_label(m or "rmse") if m else "score"

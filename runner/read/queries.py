@@ -32,7 +32,8 @@ if TYPE_CHECKING:  # imported where a frame is built: `foldwise sweeps` starts w
 __all__ = ["sweeps", "sweep_facts", "summary", "cell_stats", "picks", "complexity_table",
            "compare", "model_order", "picked_fold_scores", "varying_params", "sweep_record",
            "sweep_status", "coverage", "process_alive", "sweep_labels", "unchanged_sweep",
-           "findings", "json_object", "check_cells", "require_fold_sizes", "FOLD_SCORES",
+           "findings", "json_object", "check_cells", "require_fold_sizes",
+           "fold_size_fault", "FOLD_SCORES",
            "CELL_SUMMARY"]
 
 
@@ -359,18 +360,25 @@ CELL_SUMMARY = f"""(
 (the store's own cell_summary view, over the checked fold scores)."""
 
 
-def require_fold_sizes(store: Store, sweep_ids: list[str]) -> None:
-    """Refuse sweeps whose fold rows lack the positive n_train and n_valid that the
-    corrected variance (1/n + n_valid/n_train)·var needs: a store from another hand may
-    hold NULL, zero or negative counts, and a test on them would print nothing sensible."""
+def fold_size_fault(store: Store, sweep_ids: list[str]) -> str | None:
+    """The first of these sweeps whose fold rows lack the positive n_train and n_valid that
+    the corrected variance (1/n + n_valid/n_train)·var needs, or None: a store from another
+    hand may hold NULL, zero or negative counts."""
     bad = store.query("""select sweep_id from fold_scores
                          where list_contains(?::varchar[], sweep_id)
                            and not coalesce(n_train > 0 and n_valid > 0, false)
                          order by sweep_id limit 1""", [list(sweep_ids)])
-    if not bad.empty:
+    return None if bad.empty else str(bad.iloc[0]["sweep_id"])
+
+
+def require_fold_sizes(store: Store, sweep_ids: list[str]) -> None:
+    """Refuse sweeps whose fold rows lack the positive counts the corrected variance needs
+    (`fold_size_fault`): a test on them would print nothing sensible."""
+    bad = fold_size_fault(store, sweep_ids)
+    if bad is not None:
         raise StoreError(f"store {store.path}: table fold_scores, columns n_train and "
                          f"n_valid hold a count that is missing or not positive in sweep "
-                         f"{bad.iloc[0]['sweep_id']}, so the corrected SE and the paired "
+                         f"{bad}, so the corrected SE and the paired "
                          "t-test, which need the share of rows each fold scored, cannot be "
                          "computed; the store was damaged or written by another program: "
                          "use --se plain where the command has it, remove the sweep "

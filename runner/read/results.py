@@ -251,6 +251,7 @@ class SweepDiff:
     shared_cells: int
     table: pd.DataFrame
     varying: dict = field(default_factory=dict)  # model -> params its grid varies (either)
+    not_compared: str = ""  # why no picks are compared at all ('' when they are)
 
 
 @dataclass(frozen=True)
