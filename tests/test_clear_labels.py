@@ -189,7 +189,7 @@ def _figure_of(monkeypatch, family, grid, mean, se, test, pick, *, metric="rmse"
     result = ComplexityTable(facts, "m", family, metric, "plain", table, threshold,
                              tuple(grid))
     monkeypatch.setattr(plots, "complexity_table", lambda *a, **k: result)
-    monkeypatch.setattr(plots, "model_colours", lambda *a: {})
+    monkeypatch.setattr(plots, "model_looks", lambda *a: {})
     return complexity_figure(None, "m", "s")
 
 

@@ -54,8 +54,8 @@ def test_one_se_threshold_line_is_the_picks_threshold(explained, model):
 def test_models_figure_draws_every_fold_score(explained):
     _, store, sid = explained
     fig = models_figure(store, sid, rule="best")
-    points = np.concatenate([c.get_offsets()[:, 1] for c in fig.axes[0].collections
-                             if c.get_offsets().shape[0] == 6])
+    points = np.concatenate([ln.get_ydata() for ln in fig.axes[0].get_lines()
+                             if str(ln.get_gid()).startswith("folds ")])
     chosen = picks(store, sid, rule="best").table
     stored = store.query("select value from fold_scores where sweep_id = ? and metric = 'rmse' "
                          "and list_contains(?::varchar[], cell_id)",
@@ -139,3 +139,62 @@ def test_plot_replaces_only_its_own_images_and_all_or_none(explained, tmp_path, 
     assert out.exit_code == 2 and "a part of its folder is a file" in out.output
     assert (tmp_path / "plain.txt").read_text() == "x"
     assert not [p for p in tmp_path.iterdir() if p.name.startswith(".figure-")]
+
+
+def _marker_of(collection) -> str:
+    """The marker a scatter drew, read back from its path (matplotlib keeps the shape's
+    path, transformed, not its name)."""
+    from matplotlib.markers import MarkerStyle
+
+    drawn = collection.get_paths()[0].vertices
+    for name in ("o", "s", "^", "v", "p", "h", "D", "*", "x"):
+        style = MarkerStyle(name)
+        shape = style.get_path().transformed(style.get_transform()).vertices
+        if shape.shape == drawn.shape and np.allclose(shape, drawn):
+            return name
+    raise AssertionError("a scatter of no known marker")
+
+
+def test_ten_models_each_wear_a_look_of_their_own_in_the_models_and_complexity_figures(
+        tmp_path):
+    """The palette holds 8 colours: models 9 and 10 share the colours of models 1 and 2,
+    and differ from them by point shape and line pattern; the first 8 keep round points
+    and solid lines. Read back from the artists matplotlib drew."""
+    import matplotlib.colors as mc
+    from matplotlib.collections import PathCollection
+
+    from runner.read.plots import PALETTE
+
+    from .store_builder import write_sweep
+
+    rng = np.random.default_rng(0)
+    names = [f"model{i}" for i in range(10)]
+    store = write_sweep(tmp_path / "s.duckdb",
+                        {m: [list(5 + 0.1 * i + rng.normal(0, 0.2, 4)),
+                             list(5.3 + 0.1 * i + rng.normal(0, 0.2, 4))]
+                         for i, m in enumerate(names)}, k=2, repeats=2)
+    fig = models_figure(store)
+    folds = {ln.get_gid()[len("folds "):]: ln for ln in fig.axes[0].get_lines()
+             if str(ln.get_gid()).startswith("folds ")}
+    seen = [(mc.to_hex(folds[m].get_markerfacecolor()), folds[m].get_marker())
+            for m in names]
+    assert len(set(seen)) == 10, seen
+    assert [c for c, _ in seen] == [mc.to_hex(c) for c in PALETTE + PALETTE[:2]]
+    assert [k for _, k in seen] == ["o"] * 8 + ["s"] * 2
+    (png,) = save_figure(fig, tmp_path / "models", ("png",), dpi=80)
+    with Image.open(png) as im:
+        assert np.asarray(im.convert("L"), dtype=float).std() > 5
+    looks = []
+    for m in names:
+        ax = complexity_figure(store, m).axes[0]
+        (mean,) = [ln for ln in ax.get_lines() if ln.get_label().startswith("CV mean")]
+        marks = {_marker_of(c) for c in ax.collections
+                 if type(c) is PathCollection and len(c.get_offsets())}
+        marks.discard("*")  # the best pick's star, drawn in ink
+        (mark,) = marks
+        looks.append((mc.to_hex(mean.get_color()), mark, mean.get_linestyle()))
+    assert len({(c, k) for c, k, _ in looks}) == 10, looks
+    assert [d for _, _, d in looks] == ["-"] * 8 + ["--"] * 2  # solid, then a dash pattern
+    (png,) = save_figure(ax.figure, tmp_path / "complexity", ("png",), dpi=80)
+    with Image.open(png) as im:
+        assert im.size == tuple(round(v * 80) for v in ax.figure.get_size_inches())

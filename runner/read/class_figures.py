@@ -14,7 +14,7 @@ import pandas as pd
 from ..errors import QueryError
 from .placing import side_label
 from .plots import (INK, MUTED, PALETTE, _figure, _headline, _nothing_stored, _picked,
-                    _style, label_open_bottoms, model_colours)
+                    _style, label_open_bottoms, look_of, model_colours, model_looks)
 from .explained import prediction_table
 from ..store import Store
 from .views import fixed, rule_label
@@ -120,7 +120,7 @@ def roc_figure(store: Store, sweep_id: str | None = None, *, rule: str | None = 
     """ROC curves of each model's picked cell on the test split: for two classes that of
     the second class; for more, one panel per class against the rest."""
     result, preds, models = _class_predictions(store, sweep_id, rule)
-    facts, colours = result.facts, model_colours(store, result.facts.sweep_id)
+    facts, looks = result.facts, model_looks(store, result.facts.sweep_id)
     classes = list(facts.classes)
     wanted = classes[1:] if len(classes) == 2 else classes
     observed = set(preds["observed_class"].astype(str))
@@ -144,7 +144,8 @@ def roc_figure(store: Store, sweep_id: str | None = None, *, rule: str | None = 
                 g = preds[preds["model"] == model]
                 scores = np.vstack(g["probabilities"].to_numpy())[:, k]
                 fpr, tpr, area = roc_points(scores, g["observed_class"] == str(label))
-                ax.plot(fpr, tpr, color=colours.get(model, PALETTE[0]),
+                look = looks.get(model, look_of(0))
+                ax.plot(fpr, tpr, color=look.colour, linestyle=look.dash,
                         linewidth=1.3, label=f"{model} (area {fixed(area, 3)})")
             ax.set_title(f"class {label} against the rest" if len(classes) > 2
                          else f"class {label}", loc="left", fontsize=9)

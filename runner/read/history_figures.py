@@ -12,7 +12,7 @@ import pandas as pd
 
 from ..metrics import get_metric, metric_label
 from .filenames import safe_component
-from .plots import FAINT, INK, MUTED, PALETTE, _figure, _headline, _style
+from .plots import FAINT, INK, MUTED, _figure, _headline, _style, look_of
 from .queries import model_order, sweep_facts
 from ..store import Store
 from .views import params_text, rule_label
@@ -60,8 +60,8 @@ def history_figure(store: Store, sweep_id: str | None = None, *, model: str | No
     sweeps = list(dict.fromkeys(table["sweep_id"]))
     where = {sid: i for i, sid in enumerate(sweeps)}
     order = model_order(store, facts.sweep_id)
-    colours = {m: PALETTE[(order.index(m) if m in order else len(order) + i) % len(PALETTE)]
-               for i, m in enumerate(result.models)}
+    looks = {m: look_of(order.index(m) if m in order else len(order) + i)
+             for i, m in enumerate(result.models)}
     firsts = table.drop_duplicates("sweep_id")
     with _style():
         fig = _figure(min(16.0, max(6.5, 0.5 * len(sweeps) + 2.8)), 4.6)
@@ -79,9 +79,10 @@ def history_figure(store: Store, sweep_id: str | None = None, *, model: str | No
             rows = table[(table["model"] == m) & table["mean"].notna()]
             x = rows["sweep_id"].map(where).to_numpy(float) + (i - (len(result.models) - 1)
                                                                 / 2) * 0.08
-            col = colours[m]
-            ax.errorbar(x, rows["mean"], yerr=rows["se"], color=col, marker="o", markersize=4.5,
-                        linewidth=1.4, capsize=2.5, zorder=3)
+            col = looks[m].colour
+            ax.errorbar(x, rows["mean"], yerr=rows["se"], color=col, marker=looks[m].marker,
+                        markersize=4.5, linewidth=1.4, linestyle=looks[m].dash, capsize=2.5,
+                        zorder=3)
             if rows["test"].notna().any():
                 ax.plot(x, rows["test"], linestyle="none", marker="D", markersize=5,
                         markerfacecolor="white", markeredgecolor=col, markeredgewidth=1.2,
@@ -112,19 +113,19 @@ def history_figure(store: Store, sweep_id: str | None = None, *, model: str | No
                   f"cell picked under {rule_text} in "
                   f"{'the one sweep' if len(sweeps) == 1 else f'each of {len(sweeps)} sweeps'}; "
                   f"{metric_label(result.metric)} ({result.better} is better), {result.se} SE")
-        handles = _history_legend(colours, result.models, table["test"].notna().any())
+        handles = _history_legend(looks, result.models, table["test"].notna().any())
         fig.legend(handles=handles, loc="outside lower center",
                    ncols=max(1, min(len(handles), int(fig.get_figwidth() / 1.3))))
     return fig
 
 
-def _history_legend(colours: dict, models: list[str], tests: bool) -> list:
-    """One entry per model in its colour, then the two kinds of mark in ink: short enough
+def _history_legend(looks: dict, models: list[str], tests: bool) -> list:
+    """One entry per model in its look, then the two kinds of mark in ink: short enough
     to fit under the narrowest history figure."""
     from matplotlib.lines import Line2D
 
-    handles = [Line2D([], [], color=colours[m], marker="o", markersize=4.5, linewidth=1.4,
-                      label=m) for m in models]
+    handles = [Line2D([], [], color=looks[m].colour, marker=looks[m].marker, markersize=4.5,
+                      linewidth=1.4, linestyle=looks[m].dash, label=m) for m in models]
     handles.append(Line2D([], [], color=MUTED, marker="o", markersize=4.5, linestyle="none",
                           label="CV mean, bar ± 1 SE"))
     if tests:

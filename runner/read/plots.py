@@ -16,6 +16,7 @@ import io
 import math
 import textwrap
 from contextlib import contextmanager
+from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
@@ -34,7 +35,8 @@ from .views import number, params_text, rule_label
 
 __all__ = ["PALETTE", "NEUTRALS", "complexity_figure", "models_figure", "importance_figure",
            "predictions_figure", "save_figure", "figure_svg",
-           "model_colours", "IMAGE_MARKS", "image_paths", "figure_bytes", "write_images"]
+           "model_colours", "model_looks", "look_of", "Look", "MARKERS", "DASHES",
+           "IMAGE_MARKS", "image_paths", "figure_bytes", "write_images"]
 
 PALETTE = ["#0072B2", "#E69F00", "#009E73", "#CC79A7", "#56B4E9", "#D55E00", "#F0E442",
            "#000000"]
@@ -72,9 +74,42 @@ def _figure(width: float, height: float):
     return Figure(figsize=(width, height), layout="constrained")
 
 
+MARKERS = ("o", "s", "^", "v", "p", "h")
+"""A model's point shape, one per round of the palette: the first 8 models are round, the
+next 8 square, and so on (never the star, ring, diamond or cross that mark picks and test
+scores)."""
+
+DASHES = ("solid", (0, (5, 2)), (0, (1.5, 1.5)), (0, (6, 2, 1.5, 2)), (0, (3, 3)),
+          (0, (8, 2, 1.5, 2, 1.5, 2)))
+"""A model's line pattern, one per round of the palette with its shape: where a figure draws
+a model as a line only, the pattern tells apart two models of one colour."""
+
+
+@dataclass(frozen=True)
+class Look:
+    """How one model is drawn in every figure: its colour, point shape and line pattern."""
+
+    colour: str
+    marker: str
+    dash: object
+
+
+def look_of(position: int) -> Look:
+    """The look of the model at this place in spec order: the palette's colour, with the
+    shape and line pattern of the round of the palette it falls in (48 models differ)."""
+    turn = position // len(PALETTE)
+    return Look(PALETTE[position % len(PALETTE)], MARKERS[turn % len(MARKERS)],
+                DASHES[turn % len(DASHES)])
+
+
+def model_looks(store: Store, sweep_id: str) -> dict[str, Look]:
+    """One look per model, in spec order (the same in every figure)."""
+    return {m: look_of(i) for i, m in enumerate(model_order(store, sweep_id))}
+
+
 def model_colours(store: Store, sweep_id: str) -> dict[str, str]:
     """One palette colour per model, in spec order (the same in every figure)."""
-    return {m: PALETTE[i % len(PALETTE)] for i, m in enumerate(model_order(store, sweep_id))}
+    return {m: look.colour for m, look in model_looks(store, sweep_id).items()}
 
 
 def _nothing_stored(what: str, sweep_id: str) -> QueryError:
@@ -223,7 +258,8 @@ def complexity_figure(store: Store, model: str, sweep_id: str | None = None, *,
     result = complexity_table(store, model, sweep_id, se=se)
     table, facts = result.table, result.facts
     sid, metric, family = facts.sweep_id, result.metric, result.family
-    colour = model_colours(store, sid).get(model, PALETTE[0])
+    look = model_looks(store, sid).get(model, look_of(0))
+    colour = look.colour
     x, xlabel, log, reverse, ticks = _x_axis(result)
     order = np.argsort(x)
     mean, err = table["mean"].to_numpy(float), table["se"].to_numpy(float)
@@ -246,14 +282,16 @@ def complexity_figure(store: Store, model: str, sweep_id: str | None = None, *,
             ax.fill_between(x[order], (mean - err)[order], (mean + err)[order], color=colour,
                             alpha=0.22, linewidth=0, zorder=2)
             ax.plot(x[order], mean[order], color=colour, linewidth=1.6, zorder=3,
-                    label=f"CV mean, ±1 SE shaded ({facts.n_folds} folds)")
+                    linestyle=look.dash, label=f"CV mean, ±1 SE shaded ({facts.n_folds} folds)")
         else:  # no line through an unordered grid: a mean and its SE per cell
-            ax.errorbar(x, mean, yerr=err, color=colour, linestyle="none", elinewidth=1.2,
-                        capsize=0, zorder=3, label=f"CV mean ± 1 SE ({facts.n_folds} folds)")
+            bars = ax.errorbar(x, mean, yerr=err, color=colour, linestyle="none",
+                               elinewidth=1.2, capsize=0, zorder=3,
+                               label=f"CV mean ± 1 SE ({facts.n_folds} folds)")
+            bars.lines[2][0].set_linestyle(look.dash)
         ax.scatter(x[inside], mean[inside], s=22, color=colour, edgecolor="white",
-                   linewidth=0.6, zorder=4)
+                   linewidth=0.6, zorder=4, marker=look.marker)
         ax.scatter(x[~inside], mean[~inside], s=20, facecolor="white", edgecolor=colour,
-                   linewidth=1.1, zorder=4)
+                   linewidth=1.1, zorder=4, marker=look.marker)
         if table["test"].notna().any():
             ax.plot(x, table["test"].to_numpy(float), linestyle="none", marker="x",
                     markersize=4, markeredgewidth=1.0, color=MUTED, zorder=3,
@@ -300,7 +338,7 @@ def models_figure(store: Store, sweep_id: str | None = None, *, rule: str | None
     chosen, facts = result.table, result.facts
     sid, metric = facts.sweep_id, facts.metric
     folds = picked_fold_scores(store, sid, metric, chosen["cell_id"].tolist())
-    colours = model_colours(store, sid)
+    looks = model_looks(store, sid)
     models = chosen["model"].tolist()
     from matplotlib.transforms import offset_copy
 
@@ -315,14 +353,17 @@ def models_figure(store: Store, sweep_id: str | None = None, *, rule: str | None
             ax.plot(np.arange(len(models)) + offsets[j], wide.iloc[j].reindex(models).to_numpy(),
                     color=FAINT, linewidth=0.7, zorder=1)
         for i, r in enumerate(chosen.itertuples(index=False)):
-            col = colours.get(r.model, PALETTE[0])
+            look = looks.get(r.model, look_of(i))
+            col = look.colour
             vals = wide[r.model].to_numpy() if r.model in wide else np.array([])
-            ax.scatter(i + offsets[:len(vals)], vals, s=14, color=col, alpha=0.75,
-                       edgecolor="white", linewidth=0.4, zorder=2,
-                       label="fold scores" if i == 0 else None)
-            ax.errorbar([i + 0.36], [r.mean], yerr=[r.se], color=col, marker="_",
-                        markersize=16, markeredgewidth=2.2, elinewidth=2.2, capsize=4,
-                        zorder=3, label="CV mean ± 1 SE" if i == 0 else None)
+            ax.plot(i + offsets[:len(vals)], vals, linestyle="none", marker=look.marker,
+                    markersize=math.sqrt(14), markerfacecolor=col, markeredgecolor="white",
+                    markeredgewidth=0.4, alpha=0.75, zorder=2, gid=f"folds {r.model}",
+                    label="fold scores" if i == 0 else None)
+            bars = ax.errorbar([i + 0.36], [r.mean], yerr=[r.se], color=col, marker="_",
+                               markersize=16, markeredgewidth=2.2, elinewidth=2.2, capsize=4,
+                               zorder=3, label="CV mean ± 1 SE" if i == 0 else None)
+            bars.lines[2][0].set_linestyle(look.dash)
             if r.test == r.test and r.test is not None:
                 ax.plot([i + 0.36], [r.test], linestyle="none", marker="D", markersize=6,
                         markerfacecolor="white", markeredgecolor=INK, markeredgewidth=1.3,
@@ -354,8 +395,7 @@ def _in_ink(legend) -> None:
         else:
             mark.set_color(MUTED)
             mark.set_markeredgecolor(INK if mark.get_marker() == "D" else MUTED)
-            if mark.get_marker() == "D":
-                mark.set_markerfacecolor("white")
+            mark.set_markerfacecolor("white" if mark.get_marker() == "D" else MUTED)
 
 
 # -- (c) importance ------------------------------------------------------------------------
