@@ -11,6 +11,13 @@ import pytest
 from .helpers import diabetes_frame
 
 
+@pytest.fixture(autouse=True)
+def _tables_unwrapped(monkeypatch):
+    """Tables print as they do into a file, whatever $COLUMNS the caller exported (parallel
+    test workers export 80): the tests read whole lines back."""
+    monkeypatch.delenv("COLUMNS", raising=False)
+
+
 @pytest.fixture
 def diabetes_csv(tmp_path) -> Path:
     path = tmp_path / "diabetes.csv"
