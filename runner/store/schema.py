@@ -9,7 +9,7 @@ from pathlib import Path
 __all__ = ["SCHEMA_VERSION", "DEFAULT_STORE", "TABLE_SQL", "VIEW_SQL", "TABLES", "MODEL_TABLES",
            "SINCE", "UPGRADE_COLUMNS"]
 
-SCHEMA_VERSION = 3
+SCHEMA_VERSION = 4
 """2: cells.position keeps spec order explicit (a server table has no insertion order).
 3: classes (sweeps.task and .classes, tree_nodes.label, test_predictions of classes), built
 models (`models`, `model_coefficients`), the signed coefficients of explained linear cells
@@ -17,7 +17,9 @@ models (`models`, `model_coefficients`), the signed coefficients of explained li
 sweeps.plan, so two sweeps' folds can be told equal or not), the size of an explained
 cell's refit (explained.n_terms), the fold scheme (sweeps.scheme, .plan_column,
 .checks_key) and the leakage checks' `findings`; new tables by `create table if not
-exists`, new columns by UPGRADE_COLUMNS."""
+exists`, new columns by UPGRADE_COLUMNS.
+4: cells.complexity_tier, shared by equally simple cells (NULL in cells an older foldwise
+wrote: their picks order by complexity_rank alone, as before)."""
 DEFAULT_STORE = Path("results") / "foldwise.duckdb"
 
 TABLE_SQL = """
@@ -35,7 +37,7 @@ create table if not exists sweep_labels (
 create table if not exists metrics (metric varchar primary key, better varchar);
 create table if not exists cells (
     sweep_id varchar, cell_id varchar, model varchar, family varchar, params json,
-    complexity_rank integer, reused_from varchar, position integer,
+    complexity_rank integer, reused_from varchar, position integer, complexity_tier integer,
     primary key (sweep_id, cell_id));
 create table if not exists fold_scores (
     sweep_id varchar, cell_id varchar, "repeat" integer, fold integer, metric varchar,
@@ -129,7 +131,7 @@ UPGRADE_COLUMNS = (
     ("test_predictions", "predicted_class varchar"),
     ("test_predictions", "probabilities double[]"), ("explained", "n_terms integer"),
     ("sweeps", "scheme varchar"), ("sweeps", "plan_column varchar"),
-    ("sweeps", "checks_key varchar"),
+    ("sweeps", "checks_key varchar"), ("cells", "complexity_tier integer"),
 )
 """(table, column definition) added since a table was first created: an older store gains
 them on upgrade (idempotent: `add column if not exists`)."""

@@ -369,7 +369,8 @@ def run_sweep(spec: Spec, *, store: Store | None = None, jobs: int | None = None
         n_train, n_test = plan_counts(spec, prep.frame)
         cells_df = pd.DataFrame([{"sweep_id": sweep_id, "cell_id": c.cell_id, "model": c.model,
                                   "family": c.family, "params": c.params_json,
-                                  "complexity_rank": c.complexity_rank, "position": i}
+                                  "complexity_rank": c.complexity_rank,
+                                  "complexity_tier": c.complexity_tier, "position": i}
                                  for i, c in enumerate(prep.cells)])
         record = {
             "sweep_id": sweep_id, "name": spec.name,

@@ -1,5 +1,6 @@
-"""Grid expansion: each model's grid becomes concrete cells with stable ids and a
-complexity rank (0 = simplest) that the one-standard-error rule follows."""
+"""Grid expansion: each model's grid becomes concrete cells with stable ids, a complexity
+rank (0 = simplest, one per cell) and a complexity tier (cells equal in every ordered
+parameter share one), which the one-standard-error rule follows."""
 
 from __future__ import annotations
 
@@ -59,6 +60,9 @@ class Cell:
     params: dict
     cell_id: str
     complexity_rank: int = 0
+    complexity_tier: int = 0
+    """Equally simple cells (equal in every parameter of the complexity order and the
+    spec's `simpler:` directions) share a tier; tiers count up from 0 like ranks."""
 
     @property
     def params_json(self) -> str:
@@ -189,13 +193,14 @@ def expand_model(label: str, model: ModelSpec, *, data_sha256: str, plan_identit
     for params in params_list:
         canon = fam.canonical(params, task)
         unique.setdefault(json.dumps(canon, sort_keys=True), canon)
-    ordered = sorted(unique.values(),
-                     key=lambda p: (fam.complexity_key(p, model.simpler, n_features),
-                                    json.dumps(p, sort_keys=True)))
+    keyed = sorted(((fam.complexity_key(p, model.simpler, n_features),
+                     json.dumps(p, sort_keys=True), p) for p in unique.values()),
+                   key=lambda t: t[:2])
+    tiers = {key: tier for tier, key in enumerate(dict.fromkeys(k for k, _, _ in keyed))}
     return [Cell(label, model.family, p,
                  cell_id(model.family, p, data_sha256, plan_identity, model=label,
-                         versions=versions, problem=problem), i)
-            for i, p in enumerate(ordered)]
+                         versions=versions, problem=problem), i, tiers[key])
+            for i, (key, _, p) in enumerate(keyed)]
 
 
 def range_size(value, kind: str) -> int:
