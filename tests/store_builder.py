@@ -18,11 +18,12 @@ def write_sweep(path: Path, models: dict[str, list[list[float]]], *, k: int, rep
                 tests: dict[str, list[float]] | None = None, failures=(), drop=(),
                 family: str = "linear", started_at: datetime | None = None,
                 status: str = "finished", host: str | None = None,
-                pid: int | None = None) -> Store:
+                pid: int | None = None, tiers: dict[str, list[int]] | None = None) -> Store:
     """Write one sweep: `models` maps a label to its cells in complexity order (rank 0 first),
     each cell a list of k·repeats fold scores (position i = repeat i // k, fold i % k).
 
-    Cell ids are '<label>-<rank>'. `failures` lists cell ids with a failed fit; `drop` lists
+    Cell ids are '<label>-<rank>'; `tiers` gives a model's complexity tier per cell (none:
+    NULL, as in a store an older foldwise wrote). `failures` lists cell ids with a failed fit; `drop` lists
     (cell_id, position) fold rows left out; n_train / n_valid are a number or one per fold.
     `status`, `host` and `pid` are recorded as a sweep's own would be."""
     store = Store(path)
@@ -30,12 +31,14 @@ def write_sweep(path: Path, models: dict[str, list[list[float]]], *, k: int, rep
     n_folds = k * repeats
     cells, folds, test_rows = [], [], []
     for label, model_cells in models.items():
+        model_tiers = (tiers or {}).get(label, [None] * len(model_cells))
         for rank, scores in enumerate(model_cells):
             assert len(scores) == n_folds, (label, rank, len(scores))
             cid = f"{label}-{rank}"
             cells.append({"sweep_id": sweep_id, "cell_id": cid, "model": label,
                           "family": family, "params": json.dumps({"rank": rank}),
-                          "complexity_rank": rank, "position": len(cells)})
+                          "complexity_rank": rank, "position": len(cells),
+                          "complexity_tier": model_tiers[rank]})
             for i, value in enumerate(scores):
                 if (cid, i) in set(drop):
                     continue

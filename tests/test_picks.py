@@ -7,6 +7,7 @@ from __future__ import annotations
 import json
 import math
 
+import duckdb
 import numpy as np
 import pandas as pd
 import pytest
@@ -67,6 +68,23 @@ def test_one_se_rule_hand_worked_table():
 def test_one_se_rule_edge_cases(means, se, better, best, one_se):
     assert best_index(means, better) == best
     assert one_se_index(means, se, better) == one_se
+
+
+@pytest.mark.parametrize("means, tiers, se, better, one_se", [
+    ([2.3, 2.1, 2.0], [0, 0, 1], 0.4, "lower", 1),     # tier 0: the better of its two
+    ([2.3, 2.1, 2.0], None, 0.4, "lower", 0),          # no tiers: the rank order, as before
+    ([2.3, 2.1, 2.0], [0, 1, 2], 0.4, "lower", 0),     # a tier per cell: the rank order
+    ([2.5, 2.1, 2.0], [0, 0, 1], 0.4, "lower", 1),     # the better of tier 0 is within
+    ([2.5, 2.45, 2.0], [0, 0, 1], 0.4, "lower", 2),    # tier 0 is not within: tier 1
+    ([2.2, 2.2, 2.0], [0, 0, 1], 0.4, "lower", 0),     # equal means in a tier: the first
+    ([0.55, 0.58, 0.60], [0, 0, 1], 0.05, "higher", 1),  # r2: the higher of tier 0
+    ([0.58, 0.50, 0.60], [0, 0, 1], 0.05, "higher", 0),  # 0.50 is not within, 0.58 is
+])
+def test_one_se_rule_among_equally_simple_cells_takes_the_better_mean(means, tiers, se,
+                                                                      better, one_se):
+    # Among cells of one complexity tier the one-SE rule cannot say which is simpler; the
+    # better mean goes first, so the pick never trades score for text order.
+    assert one_se_index(means, se, better, tiers) == one_se
 
 
 @pytest.mark.parametrize("call, message", [
@@ -184,7 +202,14 @@ def _random_models(seed: int, k: int, r: int, better: str) -> dict[str, list[lis
     return models
 
 
-def _expected(models, rule, se_kind, better, ratio):
+def _random_tiers(seed: int, models: dict) -> dict[str, list[int]]:
+    """Non-decreasing tiers per model, runs of one to three cells sharing one."""
+    rng = np.random.default_rng(seed + 100)
+    return {label: np.cumsum([0] + [int(rng.integers(0, 3) == 0) for _ in cells[1:]]).tolist()
+            for label, cells in models.items()}
+
+
+def _expected(models, rule, se_kind, better, ratio, tiers=None):
     out = {}
     for label, cells in models.items():
         means = [float(np.mean(c)) for c in cells]
@@ -193,23 +218,26 @@ def _expected(models, rule, se_kind, better, ratio):
             out[label] = b
             continue
         se = standard_error(cells[b], kind=se_kind, valid_ratio=ratio)
-        out[label] = one_se_index(means, se, better)
+        out[label] = one_se_index(means, se, better, None if tiers is None else tiers[label])
     return out
 
 
 @pytest.mark.parametrize("seed", range(3))
 @pytest.mark.parametrize("better", ["lower", "higher"])
-def test_stored_pick_equals_the_pure_rule(tmp_path, seed, better):
+@pytest.mark.parametrize("tiered", [False, True])
+def test_stored_pick_equals_the_pure_rule(tmp_path, seed, better, tiered):
     k, r = 5, 2
     models = _random_models(seed, k, r, better)
+    tiers = _random_tiers(seed, models) if tiered else None
     metric = "rmse" if better == "lower" else "r2"
     store = write_sweep(tmp_path / "s.duckdb", models, k=k, repeats=r, metric=metric,
-                        better=better, n_train=80, n_valid=20)
+                        better=better, n_train=80, n_valid=20, tiers=tiers)
     for se_kind in ("plain", "corrected"):
         df = picks(store, se=se_kind)
         for rule in ("best", "one_se"):
             got = df[df["rule"] == rule].set_index("model")["complexity_rank"].to_dict()
-            assert got == _expected(models, rule, se_kind, better, 20 / 80), (rule, se_kind)
+            assert got == _expected(models, rule, se_kind, better, 20 / 80, tiers), (
+                rule, se_kind)
 
 
 def test_stored_pick_se_and_threshold(tmp_path):
@@ -379,6 +407,99 @@ def test_diabetes_pick_matches_sklearn_cross_validate(diabetes_sweep, se_kind):
         assert rows.loc["best", "se"] == pytest.approx(se, rel=1e-9)
         if model == "ridge":  # here the rule matters: a stronger penalty is within one SE
             assert expected["one_se"] > expected["best"]
+
+
+# -- equally simple cells: elastic net with two l1_ratio values per alpha ------------------
+
+NET_MODELS = """
+net:
+  family: linear
+  grid: {penalty: elasticnet, alpha: [0.1, 0.5, 0.7], l1_ratio: [0.2, 0.8]}
+"""
+
+
+@pytest.fixture(scope="module")
+def net_sweep(tmp_path_factory):
+    """Elastic net on the diabetes data (Efron et al. 2004): l1_ratio does not order
+    complexity, so each alpha's two cells are equally simple; at alpha 0.7 both are within
+    one SE and l1_ratio 0.8, second in the parameters' text order, scores better."""
+    from runner.write.engine import run_sweep
+    from runner.write.spec import load_spec
+    from runner.store import Store
+
+    from .helpers import diabetes_frame, write_spec
+
+    folder = tmp_path_factory.mktemp("net")
+    diabetes_frame().to_csv(folder / "diabetes.csv", index=False)
+    result = run_sweep(load_spec(write_spec(folder, NET_MODELS)), jobs=1)
+    return Store(result.store_path), result.sweep_id
+
+
+def _one_se_from_fold_rows(store, sweep_id) -> tuple[str, str]:
+    """The one-SE cell recomputed from the stored fold rows with pandas alone, and the cell
+    the parameters' text order would take (the lowest rank within one SE).
+
+    The one-SE rule (Breiman et al. 1984, §3.4.3; Hastie, Tibshirani & Friedman, ESL §7.10):
+    the simplest cell whose mean is within one SE (sd / sqrt(n)) of the best. Larger alpha is
+    simpler; l1_ratio does not order complexity, so among the cells of the largest alpha
+    within one SE the better mean goes first."""
+    rows = store.query("""select c.cell_id, c.params, c.complexity_rank, f.value
+                          from fold_scores f join cells c using (sweep_id, cell_id)
+                          where f.sweep_id = ? and f.metric = 'rmse'""", [sweep_id])
+    cells = rows.groupby(["cell_id", "params", "complexity_rank"])["value"].agg(
+        ["mean", "std", "count"]).reset_index()
+    cells["alpha"] = [json.loads(p)["alpha"] for p in cells["params"]]
+    best = cells.loc[cells["mean"].idxmin()]
+    within = cells[cells["mean"] <= best["mean"] + best["std"] / math.sqrt(best["count"])]
+    simplest = within[within["alpha"] == within["alpha"].max()]
+    return (simplest.loc[simplest["mean"].idxmin(), "cell_id"],
+            within.loc[within["complexity_rank"].idxmin(), "cell_id"])
+
+
+def test_one_se_pick_among_equally_simple_cells_is_the_better_scorer(net_sweep):
+    from runner.read.past import model_history
+
+    store, sweep_id = net_sweep
+    expected, by_text = _one_se_from_fold_rows(store, sweep_id)
+    assert expected != by_text  # the case at issue: text order alone would pick the other
+    tiers = store.query("select complexity_rank, complexity_tier from cells "
+                        "order by complexity_rank")
+    assert tiers["complexity_tier"].tolist() == [0, 0, 1, 1, 2, 2]
+    got = picks(store, rule="one_se")
+    assert got["cell_id"].tolist() == [expected]
+    assert json.loads(got["params"].iloc[0]) == {"alpha": 0.7, "l1_ratio": 0.8,
+                                                 "penalty": "elasticnet"}
+    marked = complexity_table(store, "net")
+    assert marked.loc[marked["pick"].str.contains("one_se"), "cell_id"].tolist() == [expected]
+    history = model_history(store, "net", rule="one_se").table
+    assert history["cell_id"].tolist() == [expected]
+
+
+def test_a_store_without_tiers_keeps_its_pick_by_rank(net_sweep, tmp_path):
+    from runner.read.past import model_history
+    from runner.store import Store
+    from runner.store.transfer import merge_store
+
+    store, sweep_id = net_sweep
+    _, by_text = _one_se_from_fold_rows(store, sweep_id)
+    for how in ("null", "schema 3"):
+        old = Store(tmp_path / f"{how}.duckdb")
+        merge_store(old, store.path)
+        with duckdb.connect(str(old.path)) as con:  # cells as an older foldwise wrote them
+            if how == "null":
+                con.execute("update cells set complexity_tier = null")
+            else:
+                con.execute("drop view cell_summary")
+                con.execute("alter table cells drop column complexity_tier")
+                con.execute("update foldwise_meta set value = '3' "
+                            "where key = 'schema_version'")
+        old = Store(old.path)
+        assert picks(old, rule="one_se")["cell_id"].tolist() == [by_text], how
+        assert model_history(old, "net", rule="one_se").table["cell_id"].tolist() == [by_text]
+        out = CliRunner().invoke(main, ["pick", "--rule", "one_se", "--store", str(old.path)])
+        assert out.exit_code == 0, out.output
+        assert "Error" not in out.output and "Traceback" not in out.output
+        assert old.query("select count(complexity_tier) as n from cells")["n"].tolist() == [0]
 
 
 # -- the commands -------------------------------------------------------------------------

@@ -85,7 +85,8 @@ def history_cells(store: Store, name: str, metric: str, *, models: list[str] | N
     return store.query(f"""
         select s.sweep_id, s.started_at, s.status, s.host, s.pid, s.data_sha256,
                s.spec_sha256, s.k::bigint * s.repeats as n_folds, s.pick_rule, c.model, c.family,
-               c.cell_id, c.params, c.complexity_rank, c.position, count(f.value) as n,
+               c.cell_id, c.params, c.complexity_rank, c.complexity_tier, c.position,
+               count(f.value) as n,
                avg(f.value) as mean, stddev_samp(f.value) as sd,
                avg(f.valid_ratio) as valid_ratio,
                any_value(t.value) as test,

@@ -1,7 +1,8 @@
 """Pick rules on plain numbers: which cell of each model to keep.
 
 `best` takes the best mean CV score; `one_se` takes the simplest cell (lowest complexity
-rank) whose mean is within one standard error of the best. The functions here state each
+tier; among equally simple cells the best mean, then the lowest rank) whose mean is within
+one standard error of the best. The functions here state each
 rule; the SQL in `queries.picks` applies the same rule to a stored sweep (tests check that
 the two agree)."""
 
@@ -47,18 +48,20 @@ def _slack(best_mean: float) -> float:
     return TOLERANCE * max(1.0, abs(best_mean))
 
 
-def one_se_index(means: Sequence[float], se_best: float, better: str) -> int:
-    """The simplest cell within one SE of the best; `means` run simplest first.
+def one_se_index(means: Sequence[float], se_best: float, better: str,
+                 tiers: Sequence[int] | None = None) -> int:
+    """The simplest cell within one SE of the best; `means` run simplest first (by rank).
 
-    Lower is better: the first i with means[i] <= best + se_best; higher is better: the
-    first i with means[i] >= best − se_best."""
+    Lower is better: the cells with means[i] <= best + se_best; higher is better: those with
+    means[i] >= best − se_best. Of these the lowest of `tiers` (equally simple cells share
+    one; None: every cell its own, the rank order), then the best mean, then the first."""
     best = float(means[best_index(means, better)])
     bar = one_se_threshold(best, float(se_best), better)
     slack = _slack(best)
-    for i, m in enumerate(means):
-        if (m <= bar + slack) if better == "lower" else (m >= bar - slack):
-            return i
-    raise AssertionError("unreachable: the best cell is always within its own bar")
+    sign = 1.0 if better == "lower" else -1.0
+    within = [i for i, m in enumerate(means)
+              if ((m <= bar + slack) if better == "lower" else (m >= bar - slack))]
+    return min(within, key=lambda i: (i if tiers is None else tiers[i], sign * float(means[i]), i))
 
 
 def corrected_variance(var: float, n: int, valid_ratio: float) -> float:

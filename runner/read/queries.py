@@ -3,9 +3,10 @@ results of `results.py`. The SQL of reading lives here; the rules it applies on 
 numbers live in `picks.py` (best, one-SE) and `compare.py` (the corrected t-test).
 
 Picks are SQL over the fold scores: `best` takes the best mean CV score, `one_se` the
-simplest cell (lowest complexity rank) whose mean is within one standard error of the best
-(Breiman et al. 1984; Hastie, Tibshirani & Friedman, ESL §7.10). A cell with a failed fit or
-fewer fold scores than k·r is never picked."""
+simplest cell (lowest complexity tier; among equally simple cells the best mean) whose mean
+is within one standard error of the best (Breiman et al. 1984; Hastie, Tibshirani &
+Friedman, ESL §7.10). A cell with a failed fit or fewer fold scores than k·r is never
+picked."""
 
 from __future__ import annotations
 
@@ -389,11 +390,13 @@ def require_fold_sizes(store: Store, sweep_ids: list[str]) -> None:
 # Common table expressions shared by every pick query. Parameters: $1 sweep id, $2 metric,
 # $3 se kind ('plain' or 'corrected'), $4 model or null (all), $5 relative tolerance.
 # judged = every cell with mean/SE and why it is excluded; bars = the best cell and the
-# one-SE threshold per model; within = eligible cells inside it; chosen = the simplest of those.
+# one-SE threshold per model; within = eligible cells inside it, with their tier (the rank
+# where a cell of the model has none: an older store); chosen = the lowest tier, then the
+# best mean, then the lowest rank.
 _CELLS_SQL = f"""
     plan as (select k::bigint * repeats as n_folds from sweeps where sweep_id = $1),
     stats as (
-        select c.model, c.family, c.cell_id, c.params, c.complexity_rank,
+        select c.model, c.family, c.cell_id, c.params, c.complexity_rank, c.complexity_tier,
                min(c.position) as cell_row, count(f.value) as n, count(f.fold) as n_rows,
                avg(f.value) as mean,
                stddev_samp(f.value) as sd, avg(f.valid_ratio) as valid_ratio,
@@ -402,7 +405,8 @@ _CELLS_SQL = f"""
         left join {FOLD_SCORES} f
           on f.sweep_id = c.sweep_id and f.cell_id = c.cell_id and f.metric = $2
         where c.sweep_id = $1 and ($4::varchar is null or c.model = $4)
-        group by c.model, c.family, c.cell_id, c.params, c.complexity_rank),
+        group by c.model, c.family, c.cell_id, c.params, c.complexity_rank,
+                 c.complexity_tier),
     judged as (
         select s.*, p.n_folds,
                case when s.n = 0 then null
@@ -431,13 +435,21 @@ _CELLS_SQL = f"""
                $5 * greatest(1.0, abs(mean)) as slack
         from ranked where place = 1),
     within as (
-        select r.model, r.cell_id, r.complexity_rank
+        select r.model, r.cell_id, r.complexity_rank,
+               case when count(r.complexity_tier) over w = count(*) over w
+                    then r.complexity_tier else r.complexity_rank end as tier,
+               case when b.better = 'lower' then r.mean else -r.mean end as loss
         from ranked r join bars b using (model)
         where case when b.better = 'lower' then r.mean <= b.threshold + b.slack
-                   else r.mean >= b.threshold - b.slack end),
+                   else r.mean >= b.threshold - b.slack end
+        window w as (partition by r.model)),
     chosen as (
-        select model, arg_min(cell_id, complexity_rank) as one_se_cell, count(*) as n_within
-        from within group by model),
+        select model, cell_id as one_se_cell, n_within
+        from (select model, cell_id, count(*) over (partition by model) as n_within,
+                     row_number() over (partition by model
+                                        order by tier, loss, complexity_rank) as place
+              from within)
+        where place = 1),
     eligible as (
         select model, count(*) filter (where excluded is null) as eligible, count(*) as cells
         from judged group by model)
