@@ -22,6 +22,7 @@ from runner.read.picks import best_index, one_se_index, one_se_threshold, standa
 from runner.read.queries import complexity_table as read_complexity
 from runner.read.queries import picks as read_picks
 from runner.read.queries import summary as read_summary
+from runner.read.views import complexity_view
 from runner.write.spec import ModelSpec
 
 from .store_builder import write_sweep
@@ -473,6 +474,10 @@ def test_one_se_pick_among_equally_simple_cells_is_the_better_scorer(net_sweep):
     assert marked.loc[marked["pick"].str.contains("one_se"), "cell_id"].tolist() == [expected]
     history = model_history(store, "net", rule="one_se").table
     assert history["cell_id"].tolist() == [expected]
+    view = complexity_view(read_complexity(store, "net"))
+    assert view.table["tier"].tolist() == ["0", "0", "1", "1", "2", "2"]
+    assert any("simplest tier within one SE" in n for n in view.sentences)
+    assert marked["complexity_tier"].tolist() == [0, 0, 1, 1, 2, 2]
 
 
 def test_a_store_without_tiers_keeps_its_pick_by_rank(net_sweep, tmp_path):
@@ -500,6 +505,8 @@ def test_a_store_without_tiers_keeps_its_pick_by_rank(net_sweep, tmp_path):
         assert out.exit_code == 0, out.output
         assert "Error" not in out.output and "Traceback" not in out.output
         assert old.query("select count(complexity_tier) as n from cells")["n"].tolist() == [0]
+        view = complexity_view(read_complexity(old, "net"))
+        assert "tier" not in view.table.columns and not any("tier" in n for n in view.sentences)
 
 
 # -- the commands -------------------------------------------------------------------------

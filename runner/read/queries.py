@@ -469,7 +469,8 @@ def cell_stats(store: Store, sweep_id: str | None = None, *, se: str = "plain",
         require_fold_sizes(store, [facts.sweep_id])
     args = [facts.sweep_id, facts.metric, se, model, TOLERANCE]
     df = store.query(f"""with {_CELLS_SQL}
-        select j.model, j.family, j.complexity_rank, j.cell_id, j.params, j.n, j.mean, j.sd,
+        select j.model, j.family, j.complexity_rank, j.complexity_tier, j.cell_id, j.params,
+               j.n, j.mean, j.sd,
                j.se, j.valid_ratio, j.mean_leaves, t.value as test, j.excluded,
                w.cell_id is not null as within_one_se,
                coalesce(j.cell_id = b.best_cell, false) as best,
@@ -652,7 +653,8 @@ def complexity_table(store: Store, model: str, sweep_id: str | None = None, *,
                      se: str = "plain", metric: str | None = None) -> ComplexityTable:
     """Every cell of `model` in complexity order (rank 0 = simplest).
 
-    Columns: complexity_rank, one column per shown param, cell_id, params, metric, mean, se,
+    Columns: complexity_rank, complexity_tier (equally simple cells share one; missing in
+    an older store), one column per shown param, cell_id, params, metric, mean, se,
     n, mean_leaves, test, within_one_se, pick ('best', 'one_se', 'best one_se' or ''),
     excluded (why a cell cannot be picked). Marks follow the sweep's first metric;
     `metric` chooses which metric's scores are shown."""
@@ -663,7 +665,8 @@ def complexity_table(store: Store, model: str, sweep_id: str | None = None, *,
     params = [json.loads(p) for p in table["params"]]
     family = str(table["family"].iloc[0]) if len(table) else ""
     names = _shown_params(family, params)
-    out = pd.DataFrame({"complexity_rank": table["complexity_rank"].astype(int)})
+    out = pd.DataFrame({"complexity_rank": table["complexity_rank"].astype(int),
+                        "complexity_tier": table["complexity_tier"].astype("Int64")})
     for name in names:
         out[name] = pd.Series([p.get(name) for p in params], dtype=object)
     out["cell_id"] = table["cell_id"]

@@ -499,9 +499,13 @@ def complexity_view(result: ComplexityTable) -> View:
     shown = pd.DataFrame({"standing": [_status(p, w, e) for p, w, e in
                                        zip(df["pick"], df["within_one_se"], df["excluded"])],
                           "rank": df["complexity_rank"].map(number)})
+    numeric = ["rank"]
+    tiers = df["complexity_tier"]
+    if tiers.notna().all() and tiers.nunique() < len(tiers):  # equally simple cells
+        shown["tier"] = tiers.map(lambda t: number(int(t)))
+        numeric.append("tier")
     for name in result.shown_params:
         shown[name] = df[name].map(value_text)
-    numeric = ["rank"]
     if df["mean_leaves"].notna().any():
         shown["leaves"] = [value_text(round(v, 1)) if v == v else "" for v in df["mean_leaves"]]
         numeric.append("leaves")
@@ -530,6 +534,9 @@ def complexity_view(result: ComplexityTable) -> View:
     if result.fixed_params:
         notes = ("other params at their defaults: " + ", ".join(
             f"{k}={value_text(v)}" for k, v in result.fixed_params.items()),)
+    if "tier" in shown:
+        notes += ("cells of one tier are equally simple: the one-SE pick is the best scoring "
+                  "cell of the simplest tier within one SE.",)
     short, none = df["n"][(df["n"] < facts.n_folds) & (df["n"] > 0)], (df["n"] == 0).sum()
     why = "validation rows lacking a class it needs"
     if len(short):
