@@ -74,6 +74,8 @@ def test_three_concurrent_sweeps_land_every_row_exactly_once(team):
     # and PostgreSQL itself agrees, read with its own client
     assert int(pg.psql("select count(*) from fold_scores", "team_concurrent")) == \
         sum(expected.values())
+    assert int(pg.psql("select count(complexity_tier) from cells", "team_concurrent")) == \
+        sum(CELLS.values())  # every cell's tier written
 
 
 def test_password_never_reaches_store_or_output(team):
@@ -159,8 +161,10 @@ def test_merge_from_file_into_server_skips_what_is_there(team, file_copy):
     first = merge_store(target, file_store.path)
     again = merge_store(target, file_store.path)
     assert len(first.new_sweeps) == 3 and again.new_sweeps == [] and len(again.present) == 3
-    q = "select * from fold_scores order by all"
-    pd.testing.assert_frame_equal(target.query(q), file_store.query(q))
+    for q in ("select * from fold_scores order by all", "select * from cells order by all"):
+        pd.testing.assert_frame_equal(target.query(q), file_store.query(q))
+    tiers = target.query("select model, complexity_tier from cells order by all")
+    assert tiers["complexity_tier"].notna().all()  # from the server, through a file, back
 
 
 def test_explain_step_plots_and_report_work_on_a_server(pg, explained, tmp_path):
@@ -451,12 +455,16 @@ def test_a_server_store_of_schema_version_2_is_upgraded(pg, tmp_path, diabetes_c
     spec = load_spec(write_spec(tmp_path, MODELS))
     run_sweep(spec, store=Store(url), jobs=1)
     pg.psql("drop table findings; alter table sweeps drop column scheme, drop column "
-            "plan_column, drop column plan, drop column checks_key; update foldwise_meta "
-            "set value = '2' where key = 'schema_version'", name)
+            "plan_column, drop column plan, drop column checks_key; alter table cells drop "
+            "column complexity_tier; update foldwise_meta set value = '2' where key = "
+            "'schema_version'", name)
     upgraded = Store(url)
     assert upgraded.query("select count(*) as n from sweeps where scheme is null")["n"][0] == 1
+    assert upgraded.query("select count(complexity_tier) as n from cells")["n"][0] == 0
     again = run_sweep(spec, store=upgraded, jobs=1)
     assert again.n_reused == again.n_cells
+    assert upgraded.query("select count(complexity_tier) as n from cells where sweep_id = ?",
+                          [again.sweep_id])["n"][0] == again.n_cells
     assert pg.psql("select value from foldwise_meta where key = 'schema_version'",
                    name).strip() == str(SCHEMA_VERSION)
     assert pg.psql(f"select scheme from sweeps where sweep_id = '{again.sweep_id}'",

@@ -28,6 +28,8 @@ def test_export_then_merge_into_an_empty_store_gives_every_table_equal(explained
     _, store, _ = explained
     counts = export_store(store, tmp_path / "out", fmt)
     assert counts["fold_scores"] > 0 and counts["tree_folds"] > 0 and counts["importances"] > 0
+    tiers = _table(store, "cells")["complexity_tier"]
+    assert tiers.notna().all() and (tiers >= 0).all()  # carried below with every column
     target = Store(tmp_path / "back.duckdb")
     result = merge_store(target, tmp_path / "out")
     assert result.rows == counts
