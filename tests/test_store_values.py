@@ -84,6 +84,25 @@ def test_a_cell_without_model_rank_or_params_object_is_refused_naming_the_column
 
 
 
+@pytest.mark.parametrize("mutation", ["null", "negative", "huge"])
+@pytest.mark.parametrize("command", ["pick", "path tree", "history", "plot complexity"])
+def test_any_complexity_tier_a_store_holds_is_read(bases, tmp_path, mutation, command):
+    """A tier is only an order among a model's cells: NULL (an older store) orders them by
+    rank, one value in every cell makes them equally simple; either way the commands answer,
+    and the one-SE pick is one of the cells within one SE."""
+    into, argvs = _copy(bases, "regression", Case("cells", "complexity_tier", mutation),
+                        tmp_path)
+    out = _run(argvs[command])
+    assert out.exit_code == 0 and "Error" not in out.output, out.output
+    if command == "pick":
+        from runner.read.queries import cell_stats
+        from runner.store import Store
+
+        table = cell_stats(Store(into)).table
+        assert table["one_se"].sum() == table["model"].nunique()
+        assert table.loc[table["one_se"], "within_one_se"].all()
+
+
 @pytest.mark.parametrize("value", [float("nan"), float("inf"), float("-inf")])
 @pytest.mark.parametrize("command", ["summary", "pick", "compare", "path tree", "diff",
                                      "history", "plot models"])
