@@ -166,6 +166,27 @@ def test_spec_can_reverse_a_direction():
     assert got == [(0.0,), (0.5,), (1.0,)]
 
 
+@pytest.mark.parametrize("family, grid, simpler, tiers", [
+    # l1_ratio orders nothing: each alpha's two cells are equally simple
+    ("linear", {"penalty": ["elasticnet"], "alpha": [0.1, 1.0], "l1_ratio": [0.2, 0.8]}, {},
+     [0, 0, 1, 1]),
+    # given a direction it orders cells within an alpha: every cell its own tier
+    ("linear", {"penalty": ["elasticnet"], "alpha": [0.1, 1.0], "l1_ratio": [0.2, 0.8]},
+     {"l1_ratio": "higher"}, [0, 1, 2, 3]),
+    # the classification tree's criterion orders nothing
+    ("pruned_tree", {"ccp_alpha": [0.0, 0.5], "criterion": ["gini", "entropy"]}, {},
+     [0, 0, 1, 1]),
+    # bootstrap orders nothing; fewer trees comes first, so it is a tier of its own
+    ("forest", {"n_estimators": [10, 20], "bootstrap": [True, False]}, {}, [0, 0, 1, 1]),
+])
+def test_equally_simple_cells_share_a_complexity_tier(family, grid, simpler, tiers):
+    model = ModelSpec.model_validate({"family": family, "grid": grid, "simpler": simpler})
+    cells = expand_model("m", model, data_sha256="x", plan_identity={}, n_features=10,
+                         task="classification" if "criterion" in grid else "regression")
+    assert [c.complexity_rank for c in cells] == list(range(len(cells)))
+    assert [c.complexity_tier for c in cells] == tiers
+
+
 def test_ccp_fraction_is_a_share_of_the_target_variance():
     # ccp_alpha = ccp_fraction × var(y) (population variance, the root node's MSE); on the
     # diabetes data (Efron et al. 2004), all 442 rows, defaults otherwise, scikit-learn 1.9:
