@@ -23,8 +23,9 @@ def write_sweep(path: Path, models: dict[str, list[list[float]]], *, k: int, rep
     each cell a list of k·repeats fold scores (position i = repeat i // k, fold i % k).
 
     Cell ids are '<label>-<rank>'; `tiers` gives a model's complexity tier per cell (none:
-    NULL, as in a store an older foldwise wrote). `failures` lists cell ids with a failed fit; `drop` lists
-    (cell_id, position) fold rows left out; n_train / n_valid are a number or one per fold.
+    NULL, as in a store an older foldwise wrote). `failures` lists cell ids with a failed
+    fit; `drop` lists (cell_id, position) fold rows left out; n_train / n_valid are a number
+    or one per fold.
     `status`, `host` and `pid` are recorded as a sweep's own would be."""
     store = Store(path)
     store.ensure_schema()

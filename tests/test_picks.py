@@ -508,12 +508,13 @@ def test_a_store_without_tiers_keeps_its_pick_by_rank(net_sweep, tmp_path):
 
     store, sweep_id = net_sweep
     _, by_text = _one_se_from_fold_rows(store, sweep_id)
-    for how in ("null", "schema 3"):
+    for how in ("null", "one null", "schema 3"):
         old = Store(tmp_path / f"{how}.duckdb")
         merge_store(old, store.path)
         with duckdb.connect(str(old.path)) as con:  # cells as an older foldwise wrote them
-            if how == "null":
-                con.execute("update cells set complexity_tier = null")
+            if how != "schema 3":  # one cell without a tier: the model's cells go by rank
+                con.execute("update cells set complexity_tier = null"
+                            + (" where complexity_rank = 5" if how == "one null" else ""))
             else:
                 con.execute("drop view cell_summary")
                 con.execute("alter table cells drop column complexity_tier")
@@ -525,7 +526,8 @@ def test_a_store_without_tiers_keeps_its_pick_by_rank(net_sweep, tmp_path):
         out = CliRunner().invoke(main, ["pick", "--rule", "one_se", "--store", str(old.path)])
         assert out.exit_code == 0, out.output
         assert "Error" not in out.output and "Traceback" not in out.output
-        assert old.query("select count(complexity_tier) as n from cells")["n"].tolist() == [0]
+        assert old.query("select count(complexity_tier) as n from cells")["n"].tolist() == [
+            5 if how == "one null" else 0]
         view = complexity_view(read_complexity(old, "net"))
         assert "tier" not in view.table.columns and not any("tier" in n for n in view.sentences)
 

@@ -321,9 +321,8 @@ def _history_row(group: pd.DataFrame, rule: str, se: str, better: str) -> dict:
     ses = [_se(r, se) for r in ok.itertuples(index=False)]
     means = ok["mean"].astype(float).tolist()
     best = best_index(means, better)
-    tiers = None if ok["complexity_tier"].isna().any() else ok["complexity_tier"].astype(int)
-    pick = best if rule == "best" else one_se_index(means, ses[best], better,
-                                                    None if tiers is None else tiers.tolist())
+    tiers = None if ok["complexity_tier"].isna().any() else ok["complexity_tier"].tolist()
+    pick = best if rule == "best" else one_se_index(means, ses[best], better, tiers)
     chosen = ok.iloc[pick]
     row.update(cell_id=chosen["cell_id"], params=chosen["params"],
                complexity_rank=int(chosen["complexity_rank"]), n=int(chosen["n"]),

@@ -2,9 +2,8 @@
 
 `best` takes the best mean CV score; `one_se` takes the simplest cell (lowest complexity
 tier; among equally simple cells the best mean, then the lowest rank) whose mean is within
-one standard error of the best. The functions here state each
-rule; the SQL in `queries.picks` applies the same rule to a stored sweep (tests check that
-the two agree)."""
+one standard error of the best. The functions here state each rule; the SQL in
+`queries.picks` applies the same rule to a stored sweep (tests check that the two agree)."""
 
 from __future__ import annotations
 
@@ -61,7 +60,8 @@ def one_se_index(means: Sequence[float], se_best: float, better: str,
     sign = 1.0 if better == "lower" else -1.0
     within = [i for i, m in enumerate(means)
               if ((m <= bar + slack) if better == "lower" else (m >= bar - slack))]
-    return min(within, key=lambda i: (i if tiers is None else tiers[i], sign * float(means[i]), i))
+    return min(within, key=lambda i: (i if tiers is None else tiers[i],
+                                      sign * float(means[i]), i))
 
 
 def corrected_variance(var: float, n: int, valid_ratio: float) -> float:

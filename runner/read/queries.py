@@ -390,9 +390,9 @@ def require_fold_sizes(store: Store, sweep_ids: list[str]) -> None:
 # Common table expressions shared by every pick query. Parameters: $1 sweep id, $2 metric,
 # $3 se kind ('plain' or 'corrected'), $4 model or null (all), $5 relative tolerance.
 # judged = every cell with mean/SE and why it is excluded; bars = the best cell and the
-# one-SE threshold per model; within = eligible cells inside it, with their tier (the rank
-# where a cell of the model has none: an older store); chosen = the lowest tier, then the
-# best mean, then the lowest rank.
+# one-SE threshold per model; within = eligible cells inside it; chosen = the lowest tier
+# (the rank where an eligible cell of the model has none: an older store), then the best
+# mean, then the lowest rank.
 _CELLS_SQL = f"""
     plan as (select k::bigint * repeats as n_folds from sweeps where sweep_id = $1),
     stats as (
@@ -426,23 +426,23 @@ _CELLS_SQL = f"""
         select j.*, m.better, row_number() over (
                    partition by j.model
                    order by case when m.better = 'lower' then j.mean else -j.mean end,
-                            j.complexity_rank) as place
+                            j.complexity_rank) as place,
+               case when count(j.complexity_tier) over w = count(*) over w
+                    then j.complexity_tier else j.complexity_rank end as tier
         from judged j join metrics m on m.metric = $2
-        where j.excluded is null),
+        where j.excluded is null
+        window w as (partition by j.model)),
     bars as (
         select model, better, cell_id as best_cell, mean as best_mean, se as best_se,
                case when better = 'lower' then mean + se else mean - se end as threshold,
                $5 * greatest(1.0, abs(mean)) as slack
         from ranked where place = 1),
     within as (
-        select r.model, r.cell_id, r.complexity_rank,
-               case when count(r.complexity_tier) over w = count(*) over w
-                    then r.complexity_tier else r.complexity_rank end as tier,
+        select r.model, r.cell_id, r.complexity_rank, r.tier,
                case when b.better = 'lower' then r.mean else -r.mean end as loss
         from ranked r join bars b using (model)
         where case when b.better = 'lower' then r.mean <= b.threshold + b.slack
-                   else r.mean >= b.threshold - b.slack end
-        window w as (partition by r.model)),
+                   else r.mean >= b.threshold - b.slack end),
     chosen as (
         select model, cell_id as one_se_cell, n_within
         from (select model, cell_id, count(*) over (partition by model) as n_within,
