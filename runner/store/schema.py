@@ -96,15 +96,6 @@ create table if not exists findings (
     message varchar, allowed boolean);
 """
 
-UPGRADE_SQL = [
-    "alter table sweeps add column if not exists scheme varchar",
-    "alter table sweeps add column if not exists plan_column varchar",
-    "alter table sweeps add column if not exists plan json",
-    "alter table sweeps add column if not exists checks_key varchar",
-]
-"""Columns added to existing tables since schema 2, each safe to run again (new tables come
-from TABLE_SQL's `create table if not exists`)."""
-
 VIEW_SQL = """
 create or replace view cell_summary as
 select f.sweep_id, f.cell_id, c.model, c.family, c.params, c.complexity_rank, f.metric,
