@@ -280,7 +280,7 @@ def test_an_artefact_holding_a_bound_method_is_refused_before_anything_is_built(
 
 
 def test_loading_says_when_versions_differ(demo_built, tmp_path):
-    _, _, _, built = demo_built
+    folder, _, _, built = demo_built
     shutil.copy(built["tree"].artefact, tmp_path / "v.skops")
     card = json.loads(built["tree"].card_file.read_text())
     card["versions"]["scikit-learn"] = "0.0.1"
@@ -288,6 +288,12 @@ def test_loading_says_when_versions_differ(demo_built, tmp_path):
     loaded = load_model(tmp_path / "v.skops")
     assert len(loaded.notes) == 1
     assert "built with scikit-learn 0.0.1" in loaded.notes[0]
+    rows = tmp_path / "rows.csv"
+    pd.read_csv(folder / "greenhouse.csv").head(5).to_csv(rows, index=False)
+    out = CliRunner().invoke(main, ["predict", str(tmp_path / "v.skops"), str(rows), "--out",
+                                    str(tmp_path / "p.csv")])
+    assert out.exit_code == 0, out.output
+    assert out.output.count("built with scikit-learn 0.0.1") == 1, out.output  # said once
 
 
 def test_models_card_fetch_and_coefficients_commands(demo_built, tmp_path):

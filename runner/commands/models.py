@@ -98,7 +98,8 @@ def predict(model_ref, data_file, out, keep, overwrite, unseen, interval, chunk_
         if bar is not None:
             bar.close()
     for line in prediction_sentences(result):
-        click.echo(line, err=line.startswith("note:"))
+        if line not in model.notes:  # said above, before predicting
+            click.echo(line, err=line.startswith("note:"))
 
 
 @click.command()
