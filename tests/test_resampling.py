@@ -168,6 +168,27 @@ def test_too_few_rows_of_a_class_for_stratified_folds_gets_advice_that_works(rar
         assert all((y[fit] == 1).any() and (y[valid] == 1).any() for fit, valid in folds)
 
 
+@pytest.mark.parametrize("k", [2, 3, 5])
+def test_a_class_held_by_one_group_is_refused_for_every_k_with_advice_that_works(k):
+    # reference: scikit-learn's StratifiedGroupKFold: whatever k, the fold validating the
+    # class's only group fits without it; spread over two groups, every fold fits on it
+    from sklearn.model_selection import StratifiedGroupKFold
+
+    from runner.write.resampling import SCHEMES, Cut
+
+    y = np.array(["a", "b"] * 30 + ["rare"] * 6, dtype=object)
+    groups = np.r_[np.arange(60) % 12, [99] * 6]
+    folds = StratifiedGroupKFold(n_splits=k, shuffle=True, random_state=0).split(
+        np.zeros(len(y)), y, groups)
+    assert any(not (y[fit] == "rare").any() for fit, _ in folds)
+    problem = SCHEMES["groups"].problem(Cut(y, groups, k, 1, 0, stratify=True), "visit")
+    assert problem.startswith("class 'rare' lies in a single group of column 'visit'")
+    assert "whatever `folds.k`" in problem and "Lower `folds.k`" not in problem
+    spread = np.r_[groups[:60], [98] * 3 + [99] * 3]
+    assert SCHEMES["groups"].problem(Cut(y, spread, k, 1, 0, stratify=True), "visit") is None
+    assert SCHEMES["groups"].problem(Cut(y, groups, k, 1, 0, stratify=False), "visit") is None
+
+
 def test_a_class_the_stratified_test_split_leaves_out_is_refused_with_a_fraction_that_works():
     # reference: scikit-learn's train_test_split(stratify=y) on 400 small class mixes: where
     # a class gets no test row (its share of the test rows rounds to none), the plan refuses

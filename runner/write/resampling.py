@@ -135,7 +135,23 @@ def _enough_groups(cut: Cut, column: str | None) -> str | None:
                 f"(folds.groups) for {cut.k} folds; grouped folds need at least one group per "
                 f"fold. Lower `folds.k` to at most {n_groups}, or group by a column with more "
                 "groups")
-    return _enough_rows(cut, column)
+    return _class_in_one_group(cut, column) or _enough_rows(cut, column)
+
+
+def _class_in_one_group(cut: Cut, column: str | None) -> str | None:
+    """A class all of whose training rows share one group is missing from the fitting rows of
+    whichever fold validates that group, for every k: fewer folds cannot help."""
+    if not cut.stratify:
+        return None
+    for c in np.unique(cut.y).tolist():
+        if len(np.unique(cut.values[cut.y == c])) > 1:
+            continue
+        return (f"class {c!r} lies in a single group of column '{column}' (folds.groups) "
+                "among the training rows: grouped folds keep a group's rows on one side of "
+                "every fold, so the fold that validates on that group fits without the "
+                "class, whatever `folds.k`. Drop or merge that class, or group by a column "
+                "the class spreads over")
+    return None
 
 
 def _times_that_always_cut(k: int, gap: int) -> int:
