@@ -224,6 +224,28 @@ def test_unseen_categories_allowed_are_predicted_as_the_pipeline_does(rows, demo
         assert res.unseen_handling == model.family.unseen_category
 
 
+def test_a_csv_with_a_byte_order_mark_predicts_as_the_same_file_without_it(rows, demo_built,
+                                                                          tmp_path):
+    # Spreadsheet programs save "CSV UTF-8" with a byte-order mark; the sweep reads such a
+    # file (pandas drops the mark), so predict must too, whichever column comes first.
+    df, _ = rows
+    model = load_model(demo_built[3]["tree"].artefact)
+    for first in ("day_temp_c", "bay_row"):
+        df2 = df[[first] + [c for c in df.columns if c != first]]
+        (tmp_path / "plain.csv").write_text(_csv(df2), encoding="utf-8")
+        (tmp_path / "bom.csv").write_text(_csv(df2), encoding="utf-8-sig")
+        plain = predict_file(model, tmp_path / "plain.csv", tmp_path / "plain_out.csv",
+                             keep=["bay_row"])
+        marked = predict_file(model, tmp_path / "bom.csv", tmp_path / "bom_out.csv",
+                              keep=["bay_row"])
+        assert marked.ignored == plain.ignored == ["bay_id", "yield_kg_m2"]
+        out = pd.read_csv(tmp_path / "bom_out.csv")
+        assert out.equals(pd.read_csv(tmp_path / "plain_out.csv"))
+        assert out["bay_row"].tolist() == df["bay_row"].tolist()
+        (tmp_path / "plain_out.csv").unlink()
+        (tmp_path / "bom_out.csv").unlink()
+
+
 def test_the_cli_reports_counts_and_refuses_to_overwrite(rows, demo_built, tmp_path):
     df, _ = rows
     (tmp_path / "in.csv").write_text(_csv(df.assign(note="extra")))

@@ -96,7 +96,9 @@ def _sha256_at(fd: int) -> str:
 
 
 def _csv_header(fh) -> list[str]:
-    text = io.TextIOWrapper(fh, encoding="utf-8", newline="")
+    """The header's names as pandas reads them: a UTF-8 byte-order mark is not part of the
+    first name."""
+    text = io.TextIOWrapper(fh, encoding="utf-8-sig", newline="")
     try:
         return next(csv.reader(text), [])
     finally:
