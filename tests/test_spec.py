@@ -116,6 +116,12 @@ def test_refused_specs_name_the_field(extra, words):
     ("name: t\ntest: {fraction: 1.5}\n", ["test.fraction", "less than 1", "data"]),
     ("name: t\ndata: {path: d.csv, target: y}\ntest: {fraction: 0.2, column: c}\n"
      "models: {m: {family: linear}}\n", ["exactly one of fraction, file or column"]),
+    ("name: t\ndata: {path: d.csv, target: y, task: classification}\nmodels: {m: {family: "
+     "linear}}\n", ["line 2, data.task: unknown field 'task'",
+                    "'task' is a field of the spec's top level: move it there"]),
+    ("name: t\ndata: {path: d.csv, target: y}\ngroups: site\nmodels: {m: {family: linear}}\n",
+     ["line 3, groups: unknown field 'groups'",
+      "'groups' is a field of section 'test' or section 'folds': move it there"]),
     ("name: t\ndata: {path: d.csv, target: y}\ntest: {fraction: 0.2, groups: site}\n"
      "folds: {order: day}\nmodels: {m: {family: linear}}\n",
      ["line 3, test.groups: it does not go with time-ordered folds"]),

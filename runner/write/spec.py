@@ -548,7 +548,8 @@ def _describe(exc: ValidationError, lines: dict[tuple, int], where: str) -> str:
             valid = _valid_keys(parent)
             msg = f"unknown field '{loc[-1]}'"
             if valid:
-                msg += f"; valid fields here: {', '.join(valid)}.{nearest(str(loc[-1]), valid)}"
+                hint = _home_of(str(loc[-1]), parent) or nearest(str(loc[-1]), valid)
+                msg += f"; valid fields here: {', '.join(valid)}.{hint}"
         elif err["type"] == "missing":
             msg = "this required field is missing"
         at = f"line {line}, " if line else ""
@@ -557,6 +558,17 @@ def _describe(exc: ValidationError, lines: dict[tuple, int], where: str) -> str:
     return (f"{where} does not validate: {body}{' ' if body.endswith('?') else '. '}Fix the "
             "field(s) named and run `foldwise check` again (`foldwise schema` prints every "
             "field).")
+
+
+def _home_of(name: str, parent: tuple) -> str:
+    """Where a field written in the wrong section belongs (`task` under `data`, `groups` at
+    the top): the spec's top level or the sections that hold it; '' when none does."""
+    homes = [home for home in [()] + [(k,) for k in _valid_keys(())]
+             if home != parent and name in _valid_keys(home)]
+    if not homes:
+        return ""
+    where = " or ".join(f"section '{h[0]}'" if h else "the spec's top level" for h in homes)
+    return f" '{name}' is a field of {where}: move it there."
 
 
 def _valid_keys(parent: tuple) -> list[str]:
