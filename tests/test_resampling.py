@@ -189,6 +189,61 @@ def test_a_class_held_by_one_group_is_refused_for_every_k_with_advice_that_works
     assert SCHEMES["groups"].problem(Cut(y, groups, k, 1, 0, stratify=False), "visit") is None
 
 
+@pytest.mark.parametrize("first_alarm, k, gap, advice", [
+    (15, 5, 0, "lower `folds.k` to at most 4, or start"),
+    (15, 4, 3, "lower `folds.k` to at most 3, or start the data"),
+    (33, 5, 0, "and no fewer folds reach it: start the data where every class has occurred"),
+    (33, 3, 2, "and no fewer folds reach it with gap 2: lower `folds.gap`, start the data"),
+])
+def test_a_class_the_first_time_fold_lacks_gets_advice_that_works(tmp_path, first_alarm, k,
+                                                                  gap, advice):
+    # reference: scikit-learn's TimeSeriesSplit over the 80 training weeks: the advised k
+    # (or gap) puts the class in the first fold's fitting weeks; one fold more does not
+    from click.testing import CliRunner
+    from sklearn.model_selection import TimeSeriesSplit
+
+    from runner.cli import main
+
+    week = np.repeat(np.arange(100), 3)
+    state = np.where(np.arange(300) % 3 == 0, "warm", "ok").astype(object)
+    state[(week >= first_alarm) & (np.arange(300) % 3 == 1)] = "alarm"
+    rng = np.random.default_rng(0)
+    pd.DataFrame({"week": week, "x": rng.normal(size=300), "state": state}).to_csv(
+        tmp_path / "s.csv", index=False)
+    (tmp_path / "spec.yaml").write_text(f"""
+name: weeks
+data: {{path: s.csv, target: state}}
+test: {{fraction: 0.2}}
+folds: {{k: {k}, order: week, gap: {gap}}}
+metrics: [log_loss]
+store: store.duckdb
+models:
+  logit: {{family: linear, grid: {{penalty: l2, alpha: [1.0]}}}}
+""")
+    out = CliRunner().invoke(main, ["check", str(tmp_path / "spec.yaml")])
+    message = " ".join(out.output.split())
+    assert out.exit_code == 2 and "Traceback" not in out.output, out.output
+    assert f"Class 'alarm' first occurs at week = {first_alarm} (value {first_alarm + 1} of" \
+           in message
+    assert advice in message
+    train_weeks = np.arange(80 - gap)
+    first_fit = next(iter(TimeSeriesSplit(n_splits=k, gap=gap).split(train_weeks)))[0]
+    assert first_fit.max() < first_alarm
+    if "to at most" in message:
+        better = int(message.split("lower `folds.k` to at most ")[1].split(",")[0])
+        for n_splits in range(2, better + 1):
+            splits = TimeSeriesSplit(n_splits=n_splits, gap=gap).split(train_weeks)
+            assert next(iter(splits))[0].max() >= first_alarm
+        for n_splits in range(better + 1, k + 1):
+            splits = TimeSeriesSplit(n_splits=n_splits, gap=gap).split(train_weeks)
+            assert next(iter(splits))[0].max() < first_alarm
+    else:
+        for n_splits in range(2, k + 1):
+            splits = TimeSeriesSplit(n_splits=n_splits, gap=gap).split(train_weeks)
+            assert next(iter(splits))[0].max() < first_alarm
+    assert not (tmp_path / "store.duckdb").exists()
+
+
 def test_a_class_the_stratified_test_split_leaves_out_is_refused_with_a_fraction_that_works():
     # reference: scikit-learn's train_test_split(stratify=y) on 400 small class mixes: where
     # a class gets no test row (its share of the test rows rounds to none), the plan refuses

@@ -491,34 +491,62 @@ def make_plan(spec, frame) -> Plan:
         rep, f = divmod(i, k)
         folds.append(Fold(rep, f, fit, valid, fold_seed(seed, rep, f)))
     if frame.task == "classification":
-        _check_classes_fitted(frame, train_rows, folds, scheme.name, column)
+        _check_classes_fitted(frame, cut, folds, scheme.name, column)
     return Plan(train_rows, test_rows, tuple(folds), k, r, seed, _test_form(spec), scheme.name,
                 plan_identity(spec, frame.task), stratified)
 
 
 _LACKING_ADVICE = {
-    "time": "The first folds fit on the earliest rows only: lower folds.k (or folds.gap) so "
-            "that they reach the first rows of every class, or start the data where every "
-            "class has occurred.",
     "groups": "The class lies in too few groups to be on both sides of every fold: lower "
               "folds.k, or choose groups that each class spreads over.",
 }
 
 
-def _check_classes_fitted(frame, train_rows, folds, scheme: str, column) -> None:
+def _time_text(value) -> str:
+    if isinstance(value, np.datetime64):
+        return np.datetime_as_string(value, unit="s").removesuffix("T00:00:00")
+    return f"{value:g}"
+
+
+def _time_advice(cut: Cut, column) -> str:
+    """What lets the first time-ordered fold, which fits on the fewest values (T - k x
+    (T // (k + 1)) - gap of the T training values, as TimeSeriesSplit cuts them), reach the
+    class that occurs last; when no fewer folds can, say so."""
+    times, codes = np.unique(cut.values, return_inverse=True)
+    firsts = {c: int(codes[cut.y == c].min()) for c in np.unique(cut.y).tolist()}
+    late = max(firsts, key=firsts.get)
+    need, n = firsts[late] + 1, len(times)
+
+    def fitted(k: int, gap: int) -> int:
+        return n - k * (n // (k + 1)) - gap
+
+    said = (f"Class {late!r} first occurs at {column} = {_time_text(times[need - 1])} (value "
+            f"{need} of the training rows' {n} distinct values), but the first fold fits on "
+            f"the first {fitted(cut.k, cut.gap)} of them only")
+    ks = [k for k in range(cut.k - 1, 1, -1) if fitted(k, cut.gap) >= need]
+    if ks:
+        return (f"{said}: lower `folds.k` to at most {ks[0]}, or start the data where every "
+                "class has occurred.")
+    gap = f" with gap {cut.gap}: lower `folds.gap`," if cut.gap else ":"
+    return (f"{said}, and no fewer folds reach it{gap} start the data where every class has "
+            "occurred, or merge that class into a similar one.")
+
+
+def _check_classes_fitted(frame, cut: Cut, folds, scheme: str, column) -> None:
     """Every fold's fitting rows must hold every class: a model fitted without one gives it
     no probability, so every fit of that fold would fail. Known from the plan alone."""
-    y = frame.y[train_rows]
     for fold in folds:
-        present = set(np.unique(y[fold.fit]).tolist())
+        present = set(np.unique(cut.y[fold.fit]).tolist())
         missing = [c for c in frame.classes if c not in present]
         if missing:
             where = f" (by '{column}')" if column else ""
+            advice = (_time_advice(cut, column) if scheme == "time" else
+                      _LACKING_ADVICE.get(scheme, "Lower folds.k."))
             raise DataError(
                 f"fold {fold.fold} of repeat {fold.repeat} of the {scheme} folds{where} fits "
                 f"on rows of {frame.source} that hold no row of class {missing[0]!r} of "
                 f"target '{frame.target}', so no model fitted there can give it a "
-                f"probability. {_LACKING_ADVICE.get(scheme, 'Lower folds.k.')}")
+                f"probability. {advice}")
 
 
 def _check_classes_trained(frame, train_rows) -> None:
