@@ -170,3 +170,18 @@ def test_run_names_its_store_without_dot_dot(tmp_path, diabetes_csv):
     assert result.exit_code == 0, result.output
     assert f"-> {tmp_path / 'results' / 'store.duckdb'}\n" in result.output, result.output
     assert (tmp_path / "results" / "store.duckdb").exists()
+
+
+def test_a_query_after_a_run_into_the_specs_store_says_where_queries_look(swept, monkeypatch):
+    # The spec's `store:` sent the sweep to store.duckdb; a query without --store looks in
+    # results/, and must not tell the user who just ran a sweep only to run one.
+    folder, store, _ = swept
+    monkeypatch.chdir(folder)
+    monkeypatch.delenv("FOLDWISE_STORE", raising=False)
+    out = invoke("summary")
+    message = " ".join(out.output.split())
+    assert out.exit_code == 2 and "Traceback" not in out.output, out.output
+    assert "no store at results/foldwise.duckdb" in message
+    assert "point --store (or $FOLDWISE_STORE) at an existing store: a spec's `store:` is " \
+           "read by `run` and `check` only" in message
+    assert invoke("summary", "--store", store).exit_code == 0

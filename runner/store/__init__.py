@@ -523,7 +523,8 @@ class Store:
     def _require(self) -> None:
         if not self.location.exists():
             raise StoreError(f"no store at {self.path}. Run a sweep first (`foldwise run "
-                             "SPEC`), or point --store at an existing store.")
+                             "SPEC`), or point --store (or $FOLDWISE_STORE) at an existing "
+                             "store: a spec's `store:` is read by `run` and `check` only.")
 
     def query(self, sql: str, params: list | None = None) -> pd.DataFrame:
         """Run a read-only query of foldwise's own and return a DataFrame."""
