@@ -244,6 +244,47 @@ models:
     assert not (tmp_path / "store.duckdb").exists()
 
 
+@pytest.mark.parametrize("side", ["test", "training"])
+def test_a_class_in_one_group_is_refused_wherever_the_grouped_test_split_puts_it(tmp_path,
+                                                                               side):
+    # reference: scikit-learn's GroupShuffleSplit, the README's grouped test split, says
+    # which group lands on which side; either way no split or k can fit on the class
+    from click.testing import CliRunner
+    from sklearn.model_selection import GroupShuffleSplit
+
+    from runner.cli import main
+
+    rng = np.random.default_rng(1)
+    site = np.repeat([f"s{i:02d}" for i in range(20)], 6)
+    y = np.where(rng.random(120) < 0.5, "a", "b").astype(object)
+    test = next(GroupShuffleSplit(n_splits=1, test_size=0.2, random_state=4).split(
+        np.arange(120), groups=site))[1]
+    chosen = site[test[0]] if side == "test" else \
+        next(g for g in site if g not in set(site[test]))
+    y[site == chosen] = "rare"
+    pd.DataFrame({"site": site, "x": rng.normal(size=120), "y": y}).to_csv(
+        tmp_path / "g.csv", index=False)
+    (tmp_path / "spec.yaml").write_text("""
+name: sites
+data: {path: g.csv, target: y}
+test: {fraction: 0.2, seed: 4}
+folds: {k: 3, groups: site}
+metrics: [log_loss]
+store: store.duckdb
+models:
+  logit: {family: linear, grid: {penalty: l2, alpha: [1.0]}}
+""")
+    out = CliRunner().invoke(main, ["check", str(tmp_path / "spec.yaml")])
+    message = " ".join(out.output.split())
+    assert out.exit_code == 2 and "Traceback" not in out.output, out.output
+    assert "lies in a single group of column 'site'" in message
+    assert "Drop or merge that class, or group by a column the class spreads over" in message
+    if side == "test":
+        assert f"(folds.groups), '{chosen}', which the test split holds out whole" in message
+    assert "Move some of its rows into training" not in message
+    assert not (tmp_path / "store.duckdb").exists()
+
+
 def test_a_class_the_stratified_test_split_leaves_out_is_refused_with_a_fraction_that_works():
     # reference: scikit-learn's train_test_split(stratify=y) on 400 small class mixes: where
     # a class gets no test row (its share of the test rows rounds to none), the plan refuses

@@ -481,7 +481,8 @@ def make_plan(spec, frame) -> Plan:
     values = frame.plan_values[column][train_rows] if column else None
     stratified = stratifies(spec, frame.task)
     if frame.task == "classification":
-        _check_classes_trained(frame, train_rows)
+        grouped = scheme.name == "groups" and spec.test.fraction is not None
+        _check_classes_trained(frame, train_rows, column if grouped else None)
     cut = Cut(frame.y[train_rows], values, k, r, seed, spec.folds.gap, stratified)
     problem = scheme.problem(cut, column)
     if problem:
@@ -549,10 +550,20 @@ def _check_classes_fitted(frame, cut: Cut, folds, scheme: str, column) -> None:
                 f"probability. {advice}")
 
 
-def _check_classes_trained(frame, train_rows) -> None:
-    """Every class must have training rows, or no model can learn it."""
+def _check_classes_trained(frame, train_rows, grouped_by: str | None = None) -> None:
+    """Every class must have training rows, or no model can learn it. Under grouped folds
+    with a grouped test split, a class held by one group cannot be helped by another split."""
     present = set(np.unique(frame.y[train_rows]).tolist())
     missing = [c for c in frame.classes if c not in present]
+    if missing and grouped_by is not None:
+        held = np.unique(frame.plan_values[grouped_by][frame.y == missing[0]]).tolist()
+        if len(held) == 1:
+            raise DataError(f"class {missing[0]!r} of target '{frame.target}' lies in a single "
+                            f"group of column '{grouped_by}' (folds.groups), {held[0]!r}, "
+                            "which the test split holds out whole, so no model can learn the "
+                            "class; with that group in training instead, the fold that "
+                            "validates on it would fit without the class. Drop or merge that "
+                            "class, or group by a column the class spreads over.")
     if missing:
         raise DataError(f"class {missing[0]!r} of target '{frame.target}' has no training rows "
                         "(its rows are all test rows, or in the gap before them); no model "
