@@ -97,6 +97,11 @@ REFUSED = [
      ["models.m.grid.max_samples: max_samples counts only where bootstrap is true"]),
     ("models: {}\n", ["models"]),
     ("modles:\n  m: {family: linear}\n", ["unknown field 'modles'", "Did you mean 'models'"]),
+    ("metrics: rmse, mae\nmodels:\n  m: {family: linear}\n",
+     ["metrics: expects a list, got the text 'rmse, mae'; write it in brackets: [rmse, mae]"]),
+    ("checks: {allow: group_key}\nmodels:\n  m: {family: linear}\n",
+     ["checks.allow: expects a list, got the text 'group_key'; write it in brackets: "
+      "[group_key]"]),
     ("models:\n  m: {family: linear}\n  m: {family: forest}\n", ["duplicate key 'm'"]),
 ]
 

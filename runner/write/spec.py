@@ -552,6 +552,9 @@ def _describe(exc: ValidationError, lines: dict[tuple, int], where: str) -> str:
                 msg += f"; valid fields here: {', '.join(valid)}.{hint}"
         elif err["type"] == "missing":
             msg = "this required field is missing"
+        elif err["type"] == "list_type" and isinstance(err.get("input"), str):
+            msg = (f"expects a list, got the text {err['input']!r}; write it in brackets: "
+                   f"[{err['input']}]")
         at = f"line {line}, " if line else ""
         parts.append(f"{at}{field}: {msg}")
     body = "; ".join(p.rstrip(".") for p in dict.fromkeys(parts))
