@@ -99,6 +99,8 @@ REFUSED = [
     ("modles:\n  m: {family: linear}\n", ["unknown field 'modles'", "Did you mean 'models'"]),
     ("metrics: rmse, mae\nmodels:\n  m: {family: linear}\n",
      ["metrics: expects a list, got the text 'rmse, mae'; write it in brackets: [rmse, mae]"]),
+    ("pick: one-se\nmodels:\n  m: {family: linear}\n",
+     ["pick: Input should be 'best' or 'one_se', got 'one-se'"]),
     ("checks: {allow: group_key}\nmodels:\n  m: {family: linear}\n",
      ["checks.allow: expects a list, got the text 'group_key'; write it in brackets: "
       "[group_key]"]),

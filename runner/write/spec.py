@@ -555,6 +555,9 @@ def _describe(exc: ValidationError, lines: dict[tuple, int], where: str) -> str:
         elif err["type"] == "list_type" and isinstance(err.get("input"), str):
             msg = (f"expects a list, got the text {err['input']!r}; write it in brackets: "
                    f"[{err['input']}]")
+        elif msg.startswith("Input should") and isinstance(err.get("input"),
+                                                           (str, int, float, bool)):
+            msg += f", got {err['input']!r}"
         at = f"line {line}, " if line else ""
         parts.append(f"{at}{field}: {msg}")
     body = "; ".join(p.rstrip(".") for p in dict.fromkeys(parts))
