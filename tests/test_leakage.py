@@ -99,6 +99,30 @@ def test_levels_mostly_unseen_across_folds(tmp_path):
     assert ("id_column", "visit") in _kinds(found)
 
 
+@pytest.mark.parametrize("role, folds", [
+    ("groups", "  seed: 17\n  groups: clinic\n"),
+    ("order", "  k: 3\n  order: clinic\n"),
+])
+def test_a_plan_column_listed_as_categorical_is_named_as_the_plan_column(tmp_path, role, folds):
+    # Its levels are unseen by every fold's fitting rows by the plan's own design; the
+    # finding says so and what to do, not "dates or identifiers written as text?"
+    df = diabetes_frame()
+    df["clinic"] = np.arange(len(df)) // 10  # 45 clinics of 10 visits, numbered in time order
+    edits = [("  target: progression\n", "  target: progression\n  categorical: [clinic]\n")]
+    if role == "groups":
+        edits.append(("  seed: 17\n", folds))
+    else:
+        edits.append(("  k: 3\n  repeats: 2\n", folds))
+    path, _ = _edited_spec(tmp_path, df, "clinics.csv", *edits)
+    spec, frame, plan = _planned(path)
+    (hit,) = [f for f in run_checks(spec, frame, plan) if f.kind == "unseen_levels"]
+    assert hit.column == "clinic" and hit.value == 1.0
+    assert f"it is the folds.{role} column, so every fold validates on " \
+           f"{'groups' if role == 'groups' else 'times'} its fitting rows never saw" in hit.message
+    assert "Remove it from data.categorical: it still cuts the folds." in hit.message
+    assert "dates or identifiers" not in hit.message
+
+
 def test_levels_only_in_the_test_rows_warn_and_the_sweep_runs(tmp_path):
     """What was refused before (a level only in the test rows) is now a finding: the models
     treat the level as missing, and the sweep goes on."""

@@ -66,7 +66,7 @@ def run_checks(spec, frame, plan: Plan, *, threads: int = 1) -> list[Finding]:
     """Every finding of every check on this data and plan, marked allowed where the spec's
     `checks.allow` names its kind. `threads` columns are weighed against the target at once
     (numpy sorts without holding the GIL); the findings do not depend on it."""
-    found = [*_id_columns(frame), *_unseen_levels(frame, plan), *_duplicates(frame, plan),
+    found = [*_id_columns(frame), *_unseen_levels(spec, frame, plan), *_duplicates(frame, plan),
              *_target_proxies(frame, plan, threads), *_group_keys(spec, frame, plan),
              *_split_overlap(spec, frame, plan)]
     allow = set(spec.checks.allow)
@@ -145,7 +145,19 @@ def _unseen_share(codes: np.ndarray, fit: np.ndarray, valid: np.ndarray) -> floa
     return float(np.mean(~seen[v])) if len(v) else 0.0
 
 
-def _unseen_levels(frame, plan: Plan) -> list[Finding]:
+def _plan_column_advice(spec, col: str) -> str | None:
+    """Why a plan column that is also a categorical feature is never seen by its fits: the
+    scheme keeps each fold's groups (or later times) out of its fitting rows by design."""
+    role = next((r for r in ("groups", "order") if getattr(spec.folds, r) == col), None)
+    if role is None:
+        return None
+    what = "groups" if role == "groups" else "times"
+    return (f"it is the folds.{role} column, so every fold validates on {what} its fitting "
+            "rows never saw, by design, and as a feature it adds noise, not signal. Remove "
+            "it from data.categorical: it still cuts the folds.")
+
+
+def _unseen_levels(spec, frame, plan: Plan) -> list[Finding]:
     out = []
     first = [f for f in plan.folds if f.repeat == 0]
     for col in frame.categorical:
@@ -157,9 +169,10 @@ def _unseen_levels(frame, plan: Plan) -> list[Finding]:
             out.append(Finding("unseen_levels", col, folds, (
                 f"categorical feature '{col}': on average {folds:.0%} of a fold's validation "
                 f"rows carry a level its fitting rows never saw ({test:.0%} of the test rows): "
-                "dates or identifiers written as text? Models treat unseen levels as "
-                "missing, so the column adds noise, not signal. Drop it, or turn it into "
-                "numbers (a date into a day count).")))
+                + (_plan_column_advice(spec, col) or
+                   "dates or identifiers written as text? Models treat unseen levels as "
+                   "missing, so the column adds noise, not signal. Drop it, or turn it into "
+                   "numbers (a date into a day count)."))))
         elif test > 0:
             train_levels = set(train[train >= 0])
             only = sorted({str(levels[c]) for c in codes[plan.test_rows]
