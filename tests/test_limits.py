@@ -226,6 +226,27 @@ def test_text_with_commas_is_not_mistaken_for_grouped_numbers(tmp_path):
     assert "count" in frame.categorical
 
 
+@pytest.mark.parametrize("values, word, example, fixed", [
+    (["0,94", "12,5", "3"], "a decimal comma", "'0,94'", "'0.94'"),
+    (["1234,5", "7"], "a decimal comma", "'1234,5'", "'1234.5'"),
+    (["1,234", "0,5"], "a decimal comma", "'0,5'", "'0.5'"),   # 0,5 cannot be thousands
+    (["1,234", "56"], "thousands separators", "'1,234'", "'1234'"),
+])
+def test_numbers_written_with_commas_are_refused_with_the_fix(tmp_path, values, word,
+                                                              example, fixed):
+    # Spreadsheets in many locales write "0,94" for 0.94; read as text it would silently
+    # become a category of hundreds of levels
+    df = _data()
+    df["dose"] = (values * 20)[:len(df)]
+    with pytest.raises(DataError) as info:
+        _frame(tmp_path, df)
+    message = str(info.value)
+    assert f"feature column 'dose' of {tmp_path / 'd.csv'} holds numbers written with " \
+           f"{word} (such as {example})" in message and f"({fixed})" in message
+    frame = _frame(tmp_path, df, ", categorical: [dose]")  # the user says so
+    assert "dose" in frame.categorical
+
+
 def test_two_test_rows_are_enough(tmp_path, diabetes_csv):
     from runner.write.resampling import make_plan
 

@@ -36,6 +36,7 @@ MAX_CLASSES = 100
 _SEPARATORS = {";": "semicolons", "\t": "tabs", "|": "vertical bars"}
 _GROUPED = re.compile(r"\s*[+-]?\d{1,3}(,\d{3})+(\.\d*)?\s*")
 _PLAIN = re.compile(r"\s*[+-]?(\d+(\.\d*)?|\.\d+)\s*")
+_DECIMAL_COMMA = re.compile(r"\s*[+-]?\d+,\d+\s*")
 
 
 def _open_regular(path: Path, role: str, max_bytes: int | None):
@@ -237,25 +238,36 @@ def _is_categorical(s: pd.Series) -> bool:
     return not pd.api.types.is_numeric_dtype(s) or pd.api.types.is_bool_dtype(s)
 
 
-def _grouped_numbers(s: pd.Series) -> str | None:
-    """An example value if a text column holds only numbers, some written with thousands
-    separators ('1,234'); None otherwise."""
+def _comma_numbers(s: pd.Series) -> tuple[str, str] | None:
+    """('thousands' or 'decimal', an example) if a text column holds only numbers, some
+    written with commas: as thousands separators ('1,234') or as the decimal mark ('0,94',
+    '1234,5'); None otherwise."""
     values = s.dropna()
     if values.empty or not all(isinstance(v, str) for v in values):
         return None
-    grouped = values[values.str.fullmatch(_GROUPED)]
-    if grouped.empty or not values.str.fullmatch(_PLAIN).sum() + len(grouped) == len(values):
+    grouped = values.str.fullmatch(_GROUPED)
+    decimal = values.str.fullmatch(_DECIMAL_COMMA) & ~grouped
+    if not (values.str.fullmatch(_PLAIN) | grouped | decimal).all():
         return None
-    return grouped.iloc[0].strip()
+    if decimal.any():
+        return "decimal", values[decimal].iloc[0].strip()
+    return ("thousands", values[grouped].iloc[0].strip()) if grouped.any() else None
 
 
 def _separator_problem(what: str, s: pd.Series, path: Path) -> None:
-    example = _grouped_numbers(s)
-    if example is not None:
+    found = _comma_numbers(s)
+    if found is None:
+        return
+    kind, example = found
+    if kind == "thousands":
         raise DataError(f"{what} of {path} holds numbers written with thousands separators "
                         f"(such as '{example}'), which would be read as text. Write them without "
                         f"separators ('{example.replace(',', '')}'); list the column in "
                         "`data.categorical` only if it really is a category.")
+    raise DataError(f"{what} of {path} holds numbers written with a decimal comma (such as "
+                    f"'{example}'), which would be read as text. Write them with '.' as the "
+                    f"decimal mark ('{example.replace(',', '.')}'); list the column in "
+                    "`data.categorical` only if it really is a category.")
 
 
 def _check_magnitude(what: str, values: np.ndarray, rows: _Rows, *, inf_ok: bool) -> None:
