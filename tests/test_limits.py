@@ -247,6 +247,37 @@ def test_numbers_written_with_commas_are_refused_with_the_fix(tmp_path, values, 
     assert "dose" in frame.categorical
 
 
+@pytest.mark.parametrize("column, what, advice", [
+    ("a", "feature column 'a'", "leave those fields empty; if they are mistakes, fix them; "
+     "list the column in `data.categorical` only if it really is a category."),
+    ("progression", "target column 'progression'", "drop those rows (a target must be "
+     "filled); if they are mistakes, fix them; set `task: classification` only if it really "
+     "holds classes."),
+])
+def test_numbers_with_a_few_placeholders_are_refused_naming_them(tmp_path, column, what,
+                                                                 advice):
+    # a '?' or 'n.a.' for missing turns a measured column into text: before, a feature
+    # silently became a category of every value, and a target hundreds of classes
+    df = _data(60)
+    df[column] = df[column].round(3).astype(object)
+    df.loc[[4, 9], column] = "?"
+    df.loc[30, column] = "n.a."
+    with pytest.raises(DataError) as info:
+        _frame(tmp_path, df)
+    assert str(info.value) == (
+        f"{what} of {tmp_path / 'd.csv'} holds numbers but for 3 value(s) that are not, such "
+        f"as '?', 'n.a.' (the first at line 6 of {tmp_path / 'd.csv'}), so the whole column "
+        f"would be read as text, a category. If they stand for missing values, {advice}")
+
+
+def test_codes_with_a_text_code_and_mostly_text_columns_stay_categories(tmp_path):
+    df = _data(60)
+    df["grade"] = (["1", "2", "3", "U"] * 15)  # few distinct numbers: codes, not measurements
+    df["note"] = [str(v) if i % 3 else "see file" for i, v in enumerate(df["a"].round(3))]
+    frame = _frame(tmp_path, df)  # a third of 'note' is text: a text column, as it was
+    assert {"grade", "note"} <= set(frame.categorical)
+
+
 def test_two_test_rows_are_enough(tmp_path, diabetes_csv):
     from runner.write.resampling import make_plan
 

@@ -254,20 +254,54 @@ def _comma_numbers(s: pd.Series) -> tuple[str, str] | None:
     return ("thousands", values[grouped].iloc[0].strip()) if grouped.any() else None
 
 
-def _separator_problem(what: str, s: pd.Series, path: Path) -> None:
+def _stray_text(s: pd.Series) -> tuple[list[str], int, int] | None:
+    """(up to 3 of the values, how many rows, the first row's position) if a text column
+    holds measured numbers (20 or more distinct) in at least 90 % of its filled rows and
+    something else in the rest, such as a placeholder '?' for missing; None otherwise."""
+    texts = s.dropna()
+    if texts.empty or not all(isinstance(v, str) for v in texts):
+        return None
+    numbers = pd.to_numeric(s, errors="coerce")
+    other = s.notna() & numbers.isna()
+    filled = int(s.notna().sum())
+    if not other.any() or other.sum() > 0.1 * filled or numbers.nunique() < 20:
+        return None
+    shown = sorted({str(v) for v in s[other]})[:3]
+    return shown, int(other.sum()), int(np.flatnonzero(other.to_numpy())[0])
+
+
+def _as_category(what: str) -> str:
+    """How to say the column is a category after all: a target by its task (it may not be
+    listed in data.categorical), a feature by data.categorical."""
+    if what.startswith("target"):
+        return "set `task: classification` only if it really holds classes"
+    return "list the column in `data.categorical` only if it really is a category"
+
+
+def _separator_problem(what: str, s: pd.Series, path: Path, rows: _Rows | None = None
+                       ) -> None:
     found = _comma_numbers(s)
+    stray = _stray_text(s) if found is None else None
+    if stray is not None:
+        shown, n, first = stray
+        at = (rows or _Rows(path, len(s)))(first)
+        empty = ("drop those rows (a target must be filled)" if what.startswith("target")
+                 else "leave those fields empty")
+        raise DataError(f"{what} of {path} holds numbers but for {n} value(s) that are not, "
+                        f"such as {', '.join(repr(v) for v in shown)} (the first at {at}), so "
+                        "the whole column would be read as text, a category. If they stand "
+                        f"for missing values, {empty}; if they are mistakes, fix them; "
+                        f"{_as_category(what)}.")
     if found is None:
         return
     kind, example = found
     if kind == "thousands":
         raise DataError(f"{what} of {path} holds numbers written with thousands separators "
                         f"(such as '{example}'), which would be read as text. Write them without "
-                        f"separators ('{example.replace(',', '')}'); list the column in "
-                        "`data.categorical` only if it really is a category.")
+                        f"separators ('{example.replace(',', '')}'); {_as_category(what)}.")
     raise DataError(f"{what} of {path} holds numbers written with a decimal comma (such as "
                     f"'{example}'), which would be read as text. Write them with '.' as the "
-                    f"decimal mark ('{example.replace(',', '.')}'); list the column in "
-                    "`data.categorical` only if it really is a category.")
+                    f"decimal mark ('{example.replace(',', '.')}'); {_as_category(what)}.")
 
 
 def _check_magnitude(what: str, values: np.ndarray, rows: _Rows, *, inf_ok: bool) -> None:
@@ -315,7 +349,7 @@ def type_features(df: pd.DataFrame, categorical: list[str], path: Path, *,
             cats.append(name)
         elif name in categorical or _is_categorical(s):
             if name not in categorical:
-                _separator_problem(f"feature column '{name}'", s, path)
+                _separator_problem(f"feature column '{name}'", s, path, rows)
             out[name] = s.astype(object).map(str).where(s.notna(), np.nan).astype(object)
             cats.append(name)
         else:
@@ -332,18 +366,19 @@ def type_features(df: pd.DataFrame, categorical: list[str], path: Path, *,
     return pd.DataFrame(out, index=df.index), numeric, cats
 
 
-def infer_task(y: pd.Series, stated: str | None, target: str, path: Path) -> str:
+def infer_task(y: pd.Series, stated: str | None, target: str, path: Path,
+               rows: _Rows | None = None) -> str:
     """The sweep's task: as the spec states it, else classification for a text, boolean or
     categorical target and regression for a numeric one."""
     numeric = pd.api.types.is_numeric_dtype(y) and not pd.api.types.is_bool_dtype(y)
     if stated == "regression" and not numeric:
-        _separator_problem(f"target column '{target}'", y, path)
+        _separator_problem(f"target column '{target}'", y, path, rows)
         sample = ", ".join(repr(v) for v in y.dropna().astype(str).unique()[:3])
         raise DataError(f"target column '{target}' of {path} is not numeric (values such as "
                         f"{sample}), but the spec says `task: regression`. Choose a numeric "
                         "target, or set `task: classification` to predict its classes.")
     if stated is None and not numeric:
-        _separator_problem(f"target column '{target}'", y, path)
+        _separator_problem(f"target column '{target}'", y, path, rows)
     return stated or ("regression" if numeric else "classification")
 
 
@@ -452,7 +487,7 @@ def load_frame(spec, *, max_bytes: int | None = None) -> Frame:
     for role, column in spec.plan_columns.items():
         _need_columns(df, [column], f"column in `{role}`", path)
         plan_values[column] = _plan_values(df[column], role, column, path, rows)
-    task = infer_task(df[target], spec.task, target, path)
+    task = infer_task(df[target], spec.task, target, path, rows)
     if task == "classification":
         y, classes = _check_classes(df[target], target, path, rows)
     else:
