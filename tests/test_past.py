@@ -330,6 +330,23 @@ def test_diff_is_honest_when_the_folds_differ(base, varied):
     assert "training / test rows 331 / 111 → 300 / 100" in out.output
 
 
+def test_diff_says_when_the_same_file_is_split_otherwise(base, tmp_path):
+    # Same data file, another test fraction: 'data: same' beside only B's row counts read
+    # as if the training and test rows were unchanged
+    folder, base_store, first, _ = base
+    shutil.copy(base_store.path, tmp_path / "s.duckdb")
+    store = Store(tmp_path / "s.duckdb")
+    path = write_spec(folder, MODELS, name="split.yaml")
+    path.write_text(path.read_text().replace("fraction: 0.25", "fraction: 0.3"))
+    other = run_sweep(load_spec(path), store=store, jobs=1).sweep_id
+    out = invoke("diff", first, other, "--store", store.path)
+    assert "data: same file (SHA-256 " in out.output
+    assert "split otherwise: training / test rows 331 / 111 → 309 / 133" in out.output
+    assert "not paired: the folds differ (the plan changed)" in out.output
+    plain = invoke("diff", first, base[3], "--store", store.path)
+    assert "; 331 / 111 training / test rows)" in plain.output  # same file, same split
+
+
 # -- a model's history ---------------------------------------------------------------------
 def test_history_picks_what_pick_picks_in_every_sweep(store, base):
     _, _, first, second = base

@@ -131,9 +131,12 @@ def diff_view(result: SweepDiff) -> View:
                      f"{a['sweep_id'] if is_missing(a['data_sha256']) else b['sweep_id']} "
                      f"(no SHA-256 stored), so it cannot be told whether it changed; training "
                      f"/ test rows {rows_a} → {rows_b}")
-    elif result.data_same:
+    elif result.data_same and rows_a == rows_b:
         lines.append(f"data: same (SHA-256 {str(b['data_sha256'])[:12]}; {rows_b} training / "
                      "test rows)")
+    elif result.data_same:
+        lines.append(f"data: same file (SHA-256 {str(b['data_sha256'])[:12]}), split otherwise: "
+                     f"training / test rows {rows_a} → {rows_b}")
     else:
         lines.append(f"data: changed (SHA-256 {str(a['data_sha256'])[:12]} → "
                      f"{str(b['data_sha256'])[:12]}; training / test rows {rows_a} → {rows_b})")
