@@ -359,6 +359,17 @@ def test_a_built_class_model_predicts_the_stored_probabilities_bit_for_bit(tmp_p
     assert got["predicted_class"].tolist() == stored["predicted_class"].tolist()
     for k, label in enumerate(["A", "B", "C"]):
         assert got[f"probability_{label}"].tolist() == [p[k] for p in stored["probabilities"]]
+    # its card says why it offers no interval: not that it was built on every row
+    (model_id,) = Store(store).query("select model_id from models")["model_id"]
+    import json
+
+    from runner.read.model_views import card_view
+
+    card = runner_.invoke(main, ["card", model_id, "--store", store, "--format", "json"])
+    assert card.exit_code == 0, card.output
+    table = card_view(json.loads(card.output)).table
+    assert table.set_index("")["value"]["intervals"] == (
+        "none: intervals are for numeric targets; the class probabilities say how sure")
 
 
 def test_grouped_class_folds_are_scikit_learns_stratified_group_folds(tmp_path):

@@ -306,6 +306,15 @@ def test_intervals_need_held_out_rows(demo_built, tmp_path):
     folder, store, _, _ = demo_built
     everything = build_model(store, model="ridge", all_rows=True, out=tmp_path / "a.skops")
     assert everything.card["interval"] is None
+    from runner.read.model_views import card_view
+
+    def shown(card):
+        return dict(zip(*card_view(card).table.to_dict("list").values()))["intervals"]
+    assert shown(everything.card) == "none: no held-out rows (built on every row)"
+    assert shown(demo_built[3]["ridge"].card).startswith("split conformal on 600 held-out")
+    older = {k: v for k, v in demo_built[3]["ridge"].card.items() if k != "interval"}
+    assert shown(older) == ("none: this card keeps no held-out residuals (build the model "
+                            "again to get them)")
     (tmp_path / "in.csv").write_text(_csv(pd.read_csv(folder / "greenhouse.csv").head(5)))
     with pytest.raises(ModelError, match="built on every row"):
         predict_file(load_model(everything.artefact), tmp_path / "in.csv",

@@ -48,17 +48,22 @@ def models_view(df: pd.DataFrame) -> View:
 
 
 def _intervals_text(card: dict) -> str:
-    """What the card's residuals allow: intervals on how many, or why none."""
+    """What the card's residuals allow `predict --interval`: intervals on how many, or why
+    none."""
     from ..errors import ModelError
     from ..model.card import read_residuals
 
+    if card.get("task") == "classification":
+        return "none: intervals are for numeric targets; the class probabilities say how sure"
     try:
         residuals = read_residuals(card.get("interval", "absent"), "this model")
     except ModelError as exc:
-        if card.get("interval", "absent") is None:
+        rows = card.get("rows")
+        if isinstance(rows, dict) and rows.get("used") == "all":
             return "none: no held-out rows (built on every row)"
-        if card.get("interval", "absent") == "absent":
-            return "none: built by a foldwise that kept no residuals"
+        if card.get("interval", "absent") in (None, "absent"):
+            return ("none: this card keeps no held-out residuals (build the model again to get "
+                    "them)")
         return "none: " + str(exc).split(", which no build writes")[0].replace(
             "the card of this model has an", "the card has an")
     skipped = f", {residuals.skipped:,} not finite and skipped" if residuals.skipped else ""
