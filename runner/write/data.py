@@ -413,7 +413,28 @@ def _check_classes(y: pd.Series, target: str, path: Path, rows: _Rows
                         f"(more than {MAX_CLASSES}); a target with that many distinct values is "
                         "likely a number or an identifier. Set `task: regression` if it is a "
                         "number, or choose another target.")
+    _check_spaced_classes(values, classes, target, path, rows)
     return values, classes
+
+
+def _check_spaced_classes(values: np.ndarray, classes: list, target: str, path: Path,
+                          rows: _Rows) -> None:
+    """Two text classes that differ only in spaces around them ('stable' and 'stable ') are
+    one class typed twice: as two, each would be learnt and scored apart."""
+    texts = [c for c in classes if isinstance(c, str)]
+    by_stripped: dict[str, list[str]] = {}
+    for c in texts:
+        by_stripped.setdefault(c.strip(), []).append(c)
+    for group in by_stripped.values():
+        if len(group) > 1:
+            spaced = next(c for c in group if c != c.strip())  # at most one is bare
+            i = int(np.flatnonzero(values == spaced)[0])
+            n = int(np.count_nonzero(values == spaced))
+            shown = " and ".join(repr(c) for c in group)
+            raise DataError(f"target column '{target}' of {path} holds classes {shown}, which "
+                            f"differ only in spaces around them ({n} row(s) of {spaced!r}, the "
+                            f"first at {rows(i)}); they would be learnt and scored as "
+                            "different classes. Remove the spaces in the data file.")
 
 
 def _check_target(y: pd.Series, target: str, path: Path, rows: _Rows | None = None
