@@ -259,7 +259,10 @@ def _stray_text(s: pd.Series) -> tuple[list[str], int, int] | None:
     holds measured numbers (20 or more distinct) in at least 90 % of its filled rows and
     something else in the rest, such as a placeholder '?' for missing; None otherwise."""
     texts = s.dropna()
-    if texts.empty or not all(isinstance(v, str) for v in texts):
+    head = texts.iloc[:1000]
+    if head.empty or pd.to_numeric(head, errors="coerce").isna().mean() > 0.5:
+        return None  # a column of words: not worth reading whole as numbers
+    if not all(isinstance(v, str) for v in texts):
         return None
     numbers = pd.to_numeric(s, errors="coerce")
     other = s.notna() & numbers.isna()
