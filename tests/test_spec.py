@@ -101,6 +101,8 @@ REFUSED = [
      ["metrics: expects a list, got the text 'rmse, mae'; write it in brackets: [rmse, mae]"]),
     ("pick: one-se\nmodels:\n  m: {family: linear}\n",
      ["pick: Input should be 'best' or 'one_se', got 'one-se'"]),
+    ("folds: {groups: [site]}\nmodels:\n  m: {family: linear}\n",
+     ["folds.groups: Input should be a valid string, got ['site']"]),
     ("checks: {allow: group_key}\nmodels:\n  m: {family: linear}\n",
      ["checks.allow: expects a list, got the text 'group_key'; write it in brackets: "
       "[group_key]"]),

@@ -555,8 +555,7 @@ def _describe(exc: ValidationError, lines: dict[tuple, int], where: str) -> str:
         elif err["type"] == "list_type" and isinstance(err.get("input"), str):
             msg = (f"expects a list, got the text {err['input']!r}; write it in brackets: "
                    f"[{err['input']}]")
-        elif msg.startswith("Input should") and isinstance(err.get("input"),
-                                                           (str, int, float, bool)):
+        elif msg.startswith("Input should") and _short(err.get("input")):
             msg += f", got {err['input']!r}"
         at = f"line {line}, " if line else ""
         parts.append(f"{at}{field}: {msg}")
@@ -564,6 +563,14 @@ def _describe(exc: ValidationError, lines: dict[tuple, int], where: str) -> str:
     return (f"{where} does not validate: {body}{' ' if body.endswith('?') else '. '}Fix the "
             "field(s) named and run `foldwise check` again (`foldwise schema` prints every "
             "field).")
+
+
+def _short(value) -> bool:
+    """Whether a value is worth quoting in a message: a scalar, or a short list of them."""
+    if isinstance(value, (str, int, float, bool)):
+        return True
+    return isinstance(value, list) and len(repr(value)) <= 60 and all(
+        isinstance(v, (str, int, float, bool)) for v in value)
 
 
 def _home_of(name: str, parent: tuple) -> str:
