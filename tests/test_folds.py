@@ -358,6 +358,8 @@ def test_picks_and_compare_work_on_every_plan_and_time_folds_carry_their_caveat(
     html = render_report(store, done["time"][1])
     assert "Time-ordered folds: these folds follow time order" in html
     assert "4 time-ordered folds by day (expanding window, gap 2)" in html
+    # time order draws these folds; the plan's seed reaches only the fits
+    assert "gap 2), fits seeded " in html and "gap 2), seed " not in html
 
 
 def _readme_recipes() -> list[str]:

@@ -612,7 +612,10 @@ def plan_sentence(record: dict) -> str:
         held = f"{test['fraction']:g} of the rows (seed {test['seed']})" if test else \
             "held-out rows"
     strata = ", stratified by class" if plan.get("stratified") else ""
-    return f"{folds}{strata}, seed {record.get('plan_seed')}; test split: {held}"
+    seed = f"seed {record.get('plan_seed')}"
+    if scheme == "time":  # the order draws the folds; the seed only reaches the fits
+        seed = f"fits seeded {record.get('plan_seed')}"
+    return f"{folds}{strata}, {seed}; test split: {held}"
 
 
 # -- the report's own tables -----------------------------------------------------------------
