@@ -243,7 +243,13 @@ def _comma_numbers(s: pd.Series) -> tuple[str, str] | None:
     written with commas: as thousands separators ('1,234') or as the decimal mark ('0,94',
     '1234,5'); None otherwise."""
     values = s.dropna()
-    if values.empty or not all(isinstance(v, str) for v in values):
+    head = values.iloc[:1000]
+    if head.empty or not all(isinstance(v, str) for v in head):
+        return None
+    if not (head.str.fullmatch(_PLAIN) | head.str.fullmatch(_GROUPED)
+            | head.str.fullmatch(_DECIMAL_COMMA)).all():
+        return None  # words among the first values: not worth reading whole
+    if not all(isinstance(v, str) for v in values):
         return None
     grouped = values.str.fullmatch(_GROUPED)
     decimal = values.str.fullmatch(_DECIMAL_COMMA) & ~grouped
