@@ -9,7 +9,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from runner.read.plots import complexity_figure
+from runner.read.plots import complexity_figure, fill_by_clause
 from runner.read.queries import complexity_table
 
 LINEAR_SPEC = """
@@ -360,3 +360,16 @@ def test_placing_words_draws_no_missing_glyph_for_a_hostile_label(tmp_path):
     (ax,) = fig.axes
     assert [t for t in ax.texts if t.get_gid() == "pick_name"]
     assert fig._suptitle.get_text().startswith("bell : where does CV RMSE")
+
+
+@pytest.mark.parametrize("width", [60, 90, 100, 105, 110])
+def test_a_headline_breaks_between_its_clauses_where_they_fit(width):
+    # the calibration figure's detail line over three panels: it used to break inside
+    # 'dashed: perfectly calibrated' or 'dot area: rows in the bin'
+    detail = ("one-SE cell of each model refit on all training rows, 300 test rows of grade; "
+              "dashed: perfectly calibrated; dot area: rows in the bin")
+    lines = fill_by_clause(detail, width).splitlines()
+    for phrase in ("dashed: perfectly calibrated", "dot area: rows in the bin"):
+        assert any(phrase in line for line in lines), lines
+    assert all(len(line) <= width + 1 for line in lines), lines  # + its ';'
+    assert " ".join(lines) == detail  # nothing lost or added but the breaks

@@ -118,10 +118,24 @@ def _nothing_stored(what: str, sweep_id: str) -> QueryError:
                       "`explain: {cells: picked}` (the default) to get them.")
 
 
+def fill_by_clause(text: str, width: int) -> str:
+    """`text` in lines of about `width` characters, broken between its '; '-separated
+    clauses where they fit, so that a short phrase is not split over two lines."""
+    lines: list[str] = []
+    for clause in text.split("; "):
+        if lines and len(lines[-1]) + 2 + len(clause) <= width:
+            lines[-1] += "; " + clause
+            continue
+        if lines:
+            lines[-1] += ";"
+        lines.extend(textwrap.wrap(clause, width) or [""])
+    return "\n".join(lines)
+
+
 def _headline(fig, question: str, detail: str):
     """The figure's title: the question it answers, then what is shown."""
     width = int(fig.get_figwidth() * 12)  # characters that fit at this font size
-    return fig.suptitle(f"{textwrap.fill(question, width)}\n{textwrap.fill(detail, width)}",
+    return fig.suptitle(f"{textwrap.fill(question, width)}\n{fill_by_clause(detail, width)}",
                         x=0.01, ha="left", fontsize=9.5, linespacing=1.5, gid="headline")
 
 
