@@ -144,6 +144,43 @@ def test_levels_only_in_the_test_rows_warn_and_the_sweep_runs(tmp_path):
                                           "value": pytest.approx(2 / 30)}]
 
 
+def test_words_read_as_missing_in_a_text_feature_are_a_finding(tmp_path):
+    """'None' as a level ('no treatment') is one of the words pandas' CSV reader takes for a
+    missing value by default (pandas.read_csv, na_values): the models would never see it."""
+    df = diabetes_frame().iloc[:150].copy()
+    df["treatment"] = np.where(np.arange(150) % 3 == 0, "None", np.where(
+        np.arange(150) % 3 == 1, "diet", "drug"))
+    df.loc[[1, 2], "treatment"] = np.nan  # empty fields: missing values, not counted
+    df["dose"] = np.where(np.arange(150) % 5 == 0, np.nan, 1.0)  # 'NA' in a number column
+    df.to_csv(tmp_path / "treated.csv", index=False, na_rep="")
+    lines = (tmp_path / "treated.csv").read_text().splitlines()
+    head = lines[0].split(",")
+    dose = head.index("dose")
+    for i in range(1, len(lines), 5):  # the number column's missing values written NA
+        cells = lines[i].split(",")
+        cells[dose] = "NA"
+        lines[i] = ",".join(cells)
+    (tmp_path / "treated.csv").write_text("\n".join(lines) + "\n")
+    path = write_spec(tmp_path, RIDGE, data="treated.csv")
+    spec = load_spec(path)
+    frame = load_frame(spec)
+    found = [f for f in run_checks(spec, frame, make_plan(spec, frame))
+             if f.kind == "missing_words"]
+    # the reference count: the file read by pandas with no missing-value words at all
+    raw = pd.read_csv(tmp_path / "treated.csv", dtype=str, keep_default_na=False)
+    assert [(f.column, f.value) for f in found] == [
+        ("treatment", float((raw["treatment"] == "None").sum()))] == [("treatment", 50.0)]
+    assert "'None' (50 rows) that were read as missing values, beside its 2 other words" \
+        in found[0].message
+    assert frame.X["dose"].isna().sum() == 30  # NA in numbers: missing, as it should be
+
+    allowed = tmp_path / "allowed.yaml"
+    allowed.write_text(path.read_text() + "checks: {allow: [missing_words]}\n")
+    result = CliRunner().invoke(main, ["check", str(allowed)])
+    assert result.exit_code == 0, result.output
+    assert "warning (allowed) (missing_words): text feature 'treatment'" in result.output
+
+
 def test_duplicate_rows_across_the_test_split(tmp_path):
     df = diabetes_frame()
     twice = pd.concat([df, df.iloc[:40]], ignore_index=True)  # 40 rows twice

@@ -194,6 +194,7 @@ class Frame:
     classes: list = field(default_factory=list)  # the class labels, sorted (classification)
     plan_values: dict = field(default_factory=dict)  # plan column -> its values, every row
     others: pd.DataFrame | None = None  # the file's other columns (drop, plan, test), as read
+    missing_words: dict = field(default_factory=dict)  # text feature -> {word read as missing: rows}
 
     @property
     def features(self) -> list[str]:
@@ -533,7 +534,34 @@ def load_frame(spec, *, max_bytes: int | None = None) -> Frame:
     return Frame(X=X, y=y, numeric=numeric, categorical=cats, target=target, sha256=sha,
                  source=path, test_mask=test_mask, task=task, classes=classes,
                  plan_values=plan_values,
-                 others=df[[c for c in dict.fromkeys(dropped) if c in df.columns]])
+                 others=df[[c for c in dict.fromkeys(dropped) if c in df.columns]],
+                 missing_words=_missing_words(path, max_bytes, df.iloc[:n_main], cats))
+
+
+def _missing_words(path: Path, max_bytes: int | None, df: pd.DataFrame,
+                   columns: list[str]) -> dict[str, dict[str, int]]:
+    """Per text column of a CSV file: the words pandas' reader took for missing values
+    ('None', 'NA', 'null', ...) and on how many rows, read again with no such words. Among
+    a column's other words they may be levels ('None' for no irrigation) the models never
+    see. Empty fields are missing values and not counted."""
+    if data_kind(path) != "csv":
+        return {}
+    text = [c for c in columns if pd.api.types.is_string_dtype(df[c]) and df[c].isna().any()]
+    if not text:
+        return {}
+    at = [list(df.columns).index(c) for c in text]
+    with _open_regular(path, "data file", max_bytes) as fh:
+        raw = pd.read_csv(fh, encoding="utf-8", usecols=at, dtype=str, keep_default_na=False,
+                          na_values=[])
+    if len(raw) != len(df):  # not the rows the first reading gave: say nothing rather than guess
+        return {}
+    found = {}
+    for col in text:
+        words = raw[col].to_numpy()[df[col].isna().to_numpy()]
+        counts = pd.Series(words[words != ""]).value_counts()
+        if len(counts):
+            found[col] = {str(w): int(n) for w, n in counts.items()}
+    return found
 
 
 def _plan_values(s: pd.Series, role: str, column: str, path: Path, rows: _Rows) -> np.ndarray:

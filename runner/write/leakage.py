@@ -32,7 +32,7 @@ __all__ = ["run_checks", "checks_key", "best_split_r2", "id_like", "findings_fra
            "refuse", "ordered", "FINDING_COLUMNS", "CHECKS_VERSION",
            "ID_SHARE", "MOSTLY", "PROXY", "GROUP_LEVELS", "MIN_GROUPS", "DISTINCT_ROWS"]
 
-CHECKS_VERSION = "1"
+CHECKS_VERSION = "2"
 """Bumped whenever a check changes what it finds; enters `checks_key`."""
 ID_SHARE = 0.9
 """Distinct values per row at or above which a feature looks like an identifier."""
@@ -68,7 +68,7 @@ def run_checks(spec, frame, plan: Plan, *, threads: int = 1) -> list[Finding]:
     (numpy sorts without holding the GIL); the findings do not depend on it."""
     found = [*_id_columns(frame), *_unseen_levels(spec, frame, plan), *_duplicates(frame, plan),
              *_target_proxies(frame, plan, threads), *_group_keys(spec, frame, plan),
-             *_split_overlap(spec, frame, plan)]
+             *_split_overlap(spec, frame, plan), *_missing_words(frame)]
     allow = set(spec.checks.allow)
     return [replace(f, allowed=f.kind in allow) for f in found]
 
@@ -109,6 +109,23 @@ def refuse(findings: pd.DataFrame, where: str) -> None:
         said = " ".join(m if m.endswith(".") else m + "." for m in bad["message"])
         raise DataError(f"the leakage checks of {where} found what the plan cannot allow: "
                         f"{said} Nothing was fitted or written.")
+
+
+# -- words read as missing ---------------------------------------------------------------------
+def _missing_words(frame) -> list[Finding]:
+    out = []
+    for col, words in frame.missing_words.items():
+        if col not in frame.features:
+            continue
+        rows = sum(words.values())
+        shown = ", ".join(f"'{w}' ({n:,} rows)" for w, n in list(words.items())[:4])
+        out.append(Finding("missing_words", col, float(rows), (
+            f"text feature '{col}' holds {shown} that were read as missing values, beside "
+            f"its {frame.X[col].nunique():,} other words. If they mean 'none' or 'not "
+            "applicable' as a level, write that level as another word in the file (such "
+            "as 'none_given'), or the models never see them; if they are missing values, "
+            "leave those fields empty, or allow the kind in checks.allow.")))
+    return out
 
 
 # -- identifiers -------------------------------------------------------------------------------
