@@ -119,3 +119,22 @@ def test_no_family_branches_outside_the_families():
                  if "family ==" in line or "family !=" in line]
     assert offenders == []
     assert all(".attrs" not in p.read_text() for p in PACKAGE.rglob("*.py"))
+
+
+SQL_MODULES = {"queries.py", "explained.py", "past_queries.py"}
+"""The read side's SQL lives in these modules (DEVELOPERS.md, Conventions)."""
+
+
+def test_read_side_sql_lives_in_its_query_modules():
+    def sql_text(node) -> bool:
+        return isinstance(node, ast.JoinedStr) or (
+            isinstance(node, ast.Constant) and isinstance(node.value, str)) or (
+            isinstance(node, ast.BinOp) and (sql_text(node.left) or sql_text(node.right)))
+
+    offenders = [f"{p.name}:{node.lineno}" for p in (PACKAGE / "read").glob("*.py")
+                 if p.name not in SQL_MODULES
+                 for node in ast.walk(ast.parse(p.read_text()))
+                 if isinstance(node, ast.Call) and isinstance(node.func, ast.Attribute)
+                 and node.func.attr in ("query", "rows") and node.args
+                 and sql_text(node.args[0])]
+    assert offenders == []

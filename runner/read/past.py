@@ -21,8 +21,8 @@ import pandas as pd
 from ..errors import QueryError
 from .compare import holm, t_from_moments
 from .picks import RULES, best_index, check_rule, check_se, one_se_index
-from .past_queries import (history_cells, paired_changes, previous_sweep, shared_cells,
-                           sweep_records, sweep_status_of)
+from .past_queries import (history_cells, latest_of_name, paired_changes, previous_sweep,
+                           shared_cells, spec_names, sweep_records, sweep_status_of)
 from .queries import (check_cells, fold_size_fault, json_object, picks, require_fold_sizes,
                       sweep_facts, sweep_labels, varying_params)
 from .results import ModelHistory, SweepDiff
@@ -294,13 +294,11 @@ def _history(store: Store, model, name, family, rule, se, metric) -> ModelHistor
 def _latest_of(store: Store, name: str | None) -> str:
     if name is None:
         return store.latest_sweep_id()
-    df = store.query("select sweep_id from sweeps where name = ? order by started_at desc, "
-                     "sweep_id desc limit 1", [name])
-    if df.empty:
-        names = store.query("select distinct name from sweeps order by name")["name"].tolist()
+    latest = latest_of_name(store, name)
+    if latest is None:
         raise QueryError(f"no sweep of spec '{name}' in store {store.path}; its spec names: "
-                         f"{', '.join(map(str, names[:20])) or 'none'}.")
-    return str(df.iloc[0, 0])
+                         f"{', '.join(map(str, spec_names(store)[:20])) or 'none'}.")
+    return latest
 
 
 def _history_row(group: pd.DataFrame, rule: str, se: str, better: str) -> dict:

@@ -8,8 +8,8 @@ import pandas as pd
 from .queries import FOLD_SCORES, _alive_here, sweep_labels
 from ..store import Store
 
-__all__ = ["sweep_records", "sweep_status_of", "previous_sweep", "shared_cells",
-           "paired_changes", "history_cells", "sweep_rows"]
+__all__ = ["sweep_records", "sweep_status_of", "previous_sweep", "latest_of_name",
+           "spec_names", "shared_cells", "paired_changes", "history_cells", "sweep_rows"]
 
 
 def sweep_records(store: Store, sweep_ids: list[str]) -> dict[str, dict]:
@@ -43,6 +43,18 @@ def previous_sweep(store: Store, sweep_id: str) -> str | None:
                or (p.started_at = s.started_at and p.sweep_id < s.sweep_id))
         order by p.started_at desc, p.sweep_id desc limit 1""", [sweep_id])
     return None if df.empty else str(df.iloc[0, 0])
+
+
+def latest_of_name(store: Store, name: str) -> str | None:
+    """The latest sweep of this spec name, or None."""
+    df = store.query("select sweep_id from sweeps where name = ? order by started_at desc, "
+                     "sweep_id desc limit 1", [name])
+    return None if df.empty else str(df.iloc[0, 0])
+
+
+def spec_names(store: Store) -> list[str]:
+    """Every spec name the store's sweeps carry, sorted."""
+    return store.query("select distinct name from sweeps order by name")["name"].tolist()
 
 
 def shared_cells(store: Store, sweep_a: str, sweep_b: str) -> int:
