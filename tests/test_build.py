@@ -296,6 +296,13 @@ def test_loading_says_when_versions_differ(demo_built, tmp_path):
     assert out.output.count("built with scikit-learn 0.0.1") == 1, out.output  # said once
 
 
+def test_models_help_says_it_lists_every_sweep():
+    # `models` without --sweep lists the models of every sweep (built_models), so its
+    # help must not promise the latest sweep's alone
+    shown = " ".join(CliRunner().invoke(main, ["models", "--help"]).output.split())
+    assert "[default: every sweep]" in shown and "latest" not in shown
+
+
 def test_models_card_fetch_and_coefficients_commands(demo_built, tmp_path):
     _, store, sweep_id, built = demo_built
     run = lambda *a: CliRunner().invoke(main, [*a, "--store", str(store.path)])

@@ -104,7 +104,9 @@ def predict(model_ref, data_file, out, keep, overwrite, unseen, interval, chunk_
 
 @click.command()
 @_store_option
-@_sweep_option
+@click.option("--sweep", "sweep_id", default=None,
+              help="Only the models built on this sweep (id or unique prefix) "
+              "[default: every sweep].")
 @_format_option
 def models(store_path, sweep_id, fmt):
     """List the built models the store keeps, newest first.
