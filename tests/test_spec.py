@@ -167,6 +167,13 @@ def test_json_schema_lists_fields_and_families():
     json.dumps(schema)
 
 
+def test_json_schema_counts_fits_as_the_fits_limit_does():
+    # budget.check_limits holds path groups' shared fits to limits.fits (--no-paths: every
+    # cell's own), so the schema an editor shows must not say cells x (folds + 1) alone
+    text = spec_json_schema()["$defs"]["Limits"]["properties"]["fits"]["description"]
+    assert "one per path group and one per other cell" in text and "--no-paths" in text
+
+
 def test_anchors_and_aliases_within_bounds_still_work():
     spec = parse_spec(BASE + "models:\n  a: {family: linear, grid: &g "
                       "{penalty: l2, alpha: [0.1, 1.0]}}\n  b: {family: linear, grid: *g}\n")

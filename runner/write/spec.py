@@ -340,7 +340,9 @@ class Limits(_Strict):
 
     cells: int = Field(10_000, ge=1, description="grid cells over all models")
     folds: int = Field(500, ge=1, description="validation folds, k x repeats")
-    fits: int = Field(250_000, ge=1, description="fits: cells x (folds + 1 refit)")
+    fits: int = Field(250_000, ge=1, description="fits per fold and refit (folds + 1): one "
+                      "per path group and one per other cell; with --no-paths, cells x "
+                      "(folds + 1)")
     data_mb: float = Field(1024.0, gt=0, description="size of the data file (and of the "
                            "test file) in MiB")
     plan_mb: float = Field(2048.0, gt=0, description="memory for the folds' row positions "
