@@ -38,7 +38,7 @@ def write_plots(kind: str, store: Store, out_dir: str | Path, sweep_id: str | No
                 formats=("png", "svg")) -> list[Path]:
     """Draw one kind of figure of a sweep into `out_dir` and return the files written:
     `<sweep id>-<kind>[-<model or method>].<format>`, one figure per model for
-    `complexity` unless `model` is given.
+    `complexity` unless `model` is given; `history` adds the spec name (then the model).
 
     The sweep id and model labels come from the store, which others may have written, so
     each becomes a safe file-name component (runner/filenames.py) and every file must
