@@ -78,9 +78,11 @@ def main():
 
 @main.command()
 @click.argument("spec_file", type=click.Path(dir_okay=False))
+@_store_option
 @_lift_option
-def check(spec_file, lift_limits):
+def check(spec_file, store_path, lift_limits):
     """Validate a spec and print its plan and cost estimate; fits nothing, writes nothing.
+    --store (or $FOLDWISE_STORE) names the store `run` would write to, as it does for run.
 
     \b
       foldwise check specs/greenhouse.yaml
@@ -92,7 +94,7 @@ def check(spec_file, lift_limits):
 
     from .read.views import finding_lines, findings_view
 
-    plan, facts, findings = check_spec(spec, lift_limits=lift_limits)
+    plan, facts, findings = check_spec(spec, lift_limits=lift_limits, store=store_path)
     click.echo(f"spec {spec_file} is valid: sweep '{spec.name}'")
     for key, value in facts.items():
         click.echo(f"  {key:<12} {value}")

@@ -54,6 +54,19 @@ def test_check_prints_plan_and_writes_nothing(tmp_path, diabetes_csv):
     assert not (tmp_path / "store.duckdb").exists()
 
 
+def test_check_names_the_store_run_would_write_to(tmp_path, diabetes_csv):
+    # run writes to --store, else $FOLDWISE_STORE, before the spec's `store` (store.duckdb
+    # here); check must name (and vet) that store, not the spec's
+    spec = write_spec(tmp_path, MODELS)
+    env_store, given = tmp_path / "env.duckdb", tmp_path / "given.duckdb"
+    env = {"FOLDWISE_STORE": str(env_store)}
+    for args, shown in (((), env_store), (("--store", str(given)), given)):
+        result = CliRunner().invoke(main, ["check", str(spec), *args], env=env)
+        assert result.exit_code == 0, result.output
+        assert f"store        {shown}\n" in result.output
+    assert not any(p.suffix == ".duckdb" for p in tmp_path.iterdir())
+
+
 def test_summary_json_equals_fold_rows(swept):
     _, store, _ = swept
     out = invoke("summary", "--store", store, "--format", "json")

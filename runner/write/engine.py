@@ -122,12 +122,13 @@ class SweepResult:
     permutation_rows: int | None = None  # test rows each column's shuffles drew
 
 
-def check_spec(spec: Spec, *, lift_limits: bool = False
+def check_spec(spec: Spec, *, lift_limits: bool = False, store: str | None = None
                ) -> tuple[pd.DataFrame, dict, pd.DataFrame]:
     """The plan of a sweep without fitting anything: cells and fits per model, facts
-    (among them the plan and the cost estimate) and the leakage checks' findings. The size
-    is checked against the limits first, by arithmetic, so a plan too large is refused
-    before the data are read; a finding that is an error (and not allowed) is refused."""
+    (among them the plan, the store it would write to, as `store_path` with `store` as
+    --store, and the cost estimate) and the leakage checks' findings. The size is checked
+    against the limits first, by arithmetic, so a plan too large is refused before the
+    data are read; a finding that is an error (and not allowed) is refused."""
     size = check_limits(spec, lifted=lift_limits)
     frame = load_checked(spec, max_bytes=data_limit_bytes(spec, lifted=lift_limits))
     check_plan_memory(spec, plan_counts(spec, frame)[0], lifted=lift_limits)
@@ -137,7 +138,7 @@ def check_spec(spec: Spec, *, lift_limits: bool = False
     plan = prep.plan
     findings = prep.findings()
     refuse(findings, f"spec {spec.source or spec.name}")
-    Store(store_path(spec)).check_writable()
+    Store(store_path(spec, store)).check_writable()
     rows = []
     for m in size.models:
         rows.append({"model": m.label, "family": m.family,
@@ -153,7 +154,7 @@ def check_spec(spec: Spec, *, lift_limits: bool = False
                                    f"{', ...' if len(frame.classes) > 8 else ''})"
                                    if frame.classes else ""),
              "plan": plan_sentence(plan_record(spec, prep.identity)),
-             "metrics": ", ".join(spec.metrics), "store": str(store_path(spec)),
+             "metrics": ", ".join(spec.metrics), "store": str(store_path(spec, store)),
              "estimate": size.estimate(),
              "limits": "lifted (--lift-limits)" if lift_limits else
              (f"cells {limits.cells:,}, folds {limits.folds:,}, fits {limits.fits:,}, data "
