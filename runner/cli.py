@@ -14,7 +14,8 @@ import click
 
 from .commands import models as _models, record as _record
 from .commands.options import (_RULES, _ProgressBar, _format_option, _lift_option, _open_store,
-                               _se_option, _show, _store_option, _sweep_option)
+                               _se_option, _show, _spec_store_option, _store_option,
+                               _sweep_option)
 from .errors import FoldwiseError
 from .output import emit
 
@@ -78,7 +79,7 @@ def main():
 
 @main.command()
 @click.argument("spec_file", type=click.Path(dir_okay=False))
-@_store_option
+@_spec_store_option
 @_lift_option
 def check(spec_file, store_path, lift_limits):
     """Validate a spec and print its plan and cost estimate; fits nothing, writes nothing.
@@ -111,7 +112,7 @@ def check(spec_file, store_path, lift_limits):
 
 @main.command()
 @click.argument("spec_file", type=click.Path(dir_okay=False))
-@_store_option
+@_spec_store_option
 @click.option("--jobs", "-j", type=click.IntRange(min=-1), default=None,
               help="Parallel worker processes [default: the spec's `jobs`, else all cores; "
                    "more than the cores available is capped to them].")

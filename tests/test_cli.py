@@ -65,6 +65,9 @@ def test_check_names_the_store_run_would_write_to(tmp_path, diabetes_csv):
         assert result.exit_code == 0, result.output
         assert f"store        {shown}\n" in result.output
     assert not any(p.suffix == ".duckdb" for p in tmp_path.iterdir())
+    for command in ("check", "run"):
+        shown = " ".join(CliRunner().invoke(main, [command, "--help"]).output.split())
+        assert "[default: $FOLDWISE_STORE, else the spec's `store`, else " in shown
 
 
 def test_summary_json_equals_fold_rows(swept):

@@ -20,6 +20,15 @@ def _store_option(f):
                              f"[default: results/foldwise.duckdb, or ${STORE_ENV}].")(f)
 
 
+def _spec_store_option(f):
+    """--store of the commands that read a spec (check, run): the spec's `store` comes
+    before the default (engine.store_path)."""
+    return click.option("--store", "store_path", type=str, envvar=STORE_ENV, default=None,
+                        help="DuckDB store file, or a team store's postgresql://USER@HOST/DB "
+                             f"[default: ${STORE_ENV}, else the spec's `store`, else "
+                             "results/foldwise.duckdb].")(f)
+
+
 def _format_option(f):
     return click.option("--format", "fmt", type=click.Choice(FORMATS), default="table",
                         show_default=True, help="Output as a table, CSV or JSON.")(f)
