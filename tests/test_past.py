@@ -367,6 +367,17 @@ def test_history_picks_what_pick_picks_in_every_sweep(store, base):
         model_history(store, "lasso")
 
 
+def test_history_of_a_model_under_another_family_names_its_family(base):
+    store = base[1]
+    out = invoke("history", "--model", "tree", "--family", "linear", "--store", store.path)
+    assert out.exit_code == 2 and "Traceback" not in out.output, out.output
+    assert out.output == ("Error: model 'tree' of spec 'small' is of family 'pruned_tree', "
+                          "not 'linear'; ask for the model or for a family, not both.\n")
+    with pytest.raises(QueryError, match="^no family 'forst' in any sweep of spec 'small'; "
+                                         "its families: linear, pruned_tree.$"):
+        model_history(store, family="forst")
+
+
 @pytest.fixture(scope="module")
 def defaults_picked(base, tmp_path_factory):
     """Two sweeps of spec 'small' in a store of their own: the first scores rmse alone and

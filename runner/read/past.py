@@ -251,10 +251,7 @@ def _history(store: Store, model, name, family, rule, se, metric) -> ModelHistor
     cells = history_cells(store, name, metric, models=[model] if model else None,
                           family=family)
     if cells.empty:
-        seen = sorted(set(history_cells(store, name, metric)["model"]))
-        what = f"model '{model}'" if model else f"family '{family}'"
-        raise QueryError(f"no {what} in any sweep of spec '{name}'; its models: "
-                         f"{', '.join(seen) or 'none'}.")
+        raise QueryError(_no_history(history_cells(store, name, metric), name, model, family))
     better = facts.better_of(metric)
     order = list(dict.fromkeys(cells.sort_values("position", kind="stable")["model"]))
     rows, before = [], {}
@@ -289,6 +286,20 @@ def _history(store: Store, model, name, family, rule, se, metric) -> ModelHistor
                "spec_changed", "pick_changed", "labels"]
     return ModelHistory(name, tuple(order), metric, better, se, rule,
                         pd.DataFrame(rows, columns=columns))
+
+
+def _no_history(every: pd.DataFrame, name: str, model, family) -> str:
+    """Why no cell matched: a model of another family, or an unknown model or family,
+    with what the spec's sweeps do hold."""
+    families = dict(zip(every["model"], every["family"]))
+    if model in families:
+        return (f"model '{model}' of spec '{name}' is of family '{families[model]}', not "
+                f"'{family}'; ask for the model or for a family, not both.")
+    if model:
+        return (f"no model '{model}' in any sweep of spec '{name}'; its models: "
+                f"{', '.join(sorted(families)) or 'none'}.")
+    return (f"no family '{family}' in any sweep of spec '{name}'; its families: "
+            f"{', '.join(sorted(set(families.values()))) or 'none'}.")
 
 
 def _latest_of(store: Store, name: str | None) -> str:
