@@ -291,6 +291,20 @@ def test_labels_need_a_writer_and_removal_a_keeper(roles):
                    "team_roles") == "0"
 
 
+def test_a_reader_role_cannot_build_and_is_told_before_any_fit(roles, team, tmp_path):
+    pg, _, urls, env = roles
+    out_file = tmp_path / "models" / "ridge.skops"
+    out = _cli("build", "--model", "ridge", "--data", str(team[2] / "diabetes.csv"), "--out",
+               str(out_file), "--store", urls["ben"], env=env, check=False)
+    assert out.returncode == 2 and "Traceback" not in out.stderr, out.stderr
+    assert out.stderr.startswith("Error: role ben may read") and out.stderr.count("\n") == 1
+    assert "but not keep a built model in it" in out.stderr
+    assert "`build` keeps the model in the store's tables" in out.stderr
+    assert "`run` and `merge` need" not in out.stderr and "Nothing was built." in out.stderr
+    assert not (tmp_path / "models").exists()
+    assert pg.psql("select count(*) from models", "team_roles") == "0"
+
+
 # -- a store being created ------------------------------------------------------------------
 def test_reading_a_team_store_being_created_says_so(pg, file_copy):
     """A reader that meets an empty database (a first sweep still creating the tables) is

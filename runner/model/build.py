@@ -317,6 +317,10 @@ def build_model(store: Store, *, sweep_id: str | None = None, model: str | None 
                                       default_rule=facts.rule)
         scores = _check_finished(store, sid, row)
         record = sweep_record(store, sid)
+    store.require_writer(doing="keep a built model in it", changed="built",
+                         needs="`build` keeps the model in the store's tables and needs what "
+                               "`run` needs: INSERT on every foldwise table and UPDATE on "
+                               "sweeps and cells")
     family = FAMILIES.get(str(row["family"]))
     if family is None:
         raise ModelError(f"cell {row['cell_id']} is of family '{row['family']}', which this "

@@ -292,10 +292,15 @@ class Store:
         (INSERT on every table, UPDATE on sweeps and cells); checked once per store."""
         if not self.location.shared or self._privileges_checked:
             return
-        self.require_privileges(self._WRITES, doing="write sweeps into it", con=con,
-                                needs="`run` and `merge` need INSERT on every foldwise table "
-                                      "and UPDATE on sweeps and cells",
-                                grant="foldwise_writer", changed="written")
+        self.require_writer(doing="write sweeps into it", con=con,
+                            needs="`run` and `merge` need INSERT on every foldwise table and "
+                                  "UPDATE on sweeps and cells", changed="written")
+
+    def require_writer(self, *, doing: str, needs: str, changed: str, con=None) -> None:
+        """On a server, refuse before anything changes if this role may not write rows
+        (INSERT on every table, UPDATE on sweeps and cells), saying what the command does."""
+        self.require_privileges(self._WRITES, doing=doing, needs=needs, con=con,
+                                grant="foldwise_writer", changed=changed)
         self._privileges_checked = True
 
     def require_privileges(self, wanted: list[tuple[str, str]], *, doing: str, needs: str,
