@@ -95,6 +95,28 @@ def test_merge_of_a_file_that_is_no_store_changes_nothing(explained, tmp_path):
     assert len(_table(target, "fold_scores")) == len(_table(store, "fold_scores"))
 
 
+def test_a_refused_merge_into_a_new_store_file_leaves_no_file(explained, tmp_path):
+    from runner.store.labels import Selection
+
+    _, store, _ = explained
+    junk = tmp_path / "junk.duckdb"
+    with duckdb.connect(str(junk)) as con:
+        con.execute("create table t as select 1 as x")
+    (tmp_path / "not_an_export").mkdir()
+    export_store(store, tmp_path / "export")
+    nothing = Selection(labels=(("purpose", "no-such-value"),))
+    for other, selection, words in (
+            (tmp_path / "nowhere.duckdb", None, "no store or export folder at"),
+            (tmp_path / "not_an_export", None, "is not a foldwise export"),
+            (junk, None, "is not a foldwise store"),
+            (store.path, nothing, "matches label purpose=no-such-value; nothing was merged"),
+            (tmp_path / "export", nothing, "matches label purpose=no-such-value")):
+        target = tmp_path / "new.duckdb"
+        with pytest.raises(StoreError, match=words):
+            merge_store(Store(target), other, nothing if selection else None)
+        assert not target.exists() and not (tmp_path / "new.duckdb.wal").exists(), other
+
+
 def test_a_store_of_schema_version_1_is_upgraded_keeping_spec_order(explained, tmp_path):
     _, store, sweep_id = explained
     old = Store(tmp_path / "old.duckdb")

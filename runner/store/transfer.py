@@ -147,7 +147,6 @@ def merge_store(store: Store, other: str | Path,
     so a model built later on a sweep merged before still arrives."""
     from .locations import locate
 
-    store.ensure_schema()
     if isinstance(other, (str, Path)) and Path(str(other)).is_dir():
         sources, attach = _export_sources(Path(str(other))), None
         reach = [Path(str(other))]
@@ -164,15 +163,12 @@ def merge_store(store: Store, other: str | Path,
         attach = where
         sources = {t: f"_other.{t}" for t in TABLES}
         reach = where.reach() if where.kind == "file" else None
+    if not store.location.exists():
+        _check_source(other, attach, sources, selection)
+    store.ensure_schema()
     with store._connect(read_only=False, reach=reach) as con, _attached(con, attach, other), \
             refusing_outside(other):
-        if attach is not None:  # an older store lacks the tables added since
-            theirs_tables = {t for (t,) in con.execute(
-                "select table_name from information_schema.tables "
-                "where table_catalog = '_other'").fetchall()}
-            sources = {t: s if t in theirs_tables else None for t, s in sources.items()}
-        if sources["sweep_labels"] is None:  # an older store: no labels, but readable
-            sources["sweep_labels"] = EMPTY_LABELS
+        sources = _readable(con, sources, attach)
         theirs = con.execute(f"select sweep_id, status, started_at from {sources['sweeps']} s"
                              + _chosen(con, sources, selection, other)).df()
         mine = set(con.execute("select sweep_id from sweeps").df()["sweep_id"])
@@ -207,6 +203,29 @@ def merge_store(store: Store, other: str | Path,
             raise StoreError(f"merging {other} into {store.path} failed, nothing was "
                              f"copied: {str(exc).splitlines()[0]}") from None
     return MergeResult({t: int(n) for t, n in rows.items()}, new, present, running, models)
+
+
+def _readable(con, sources: dict, attach) -> dict:
+    """`sources` without the tables an older store lacks (None), sweep_labels as none."""
+    if attach is not None:  # an older store lacks the tables added since
+        theirs_tables = {t for (t,) in con.execute(
+            "select table_name from information_schema.tables "
+            "where table_catalog = '_other'").fetchall()}
+        sources = {t: s if t in theirs_tables else None for t, s in sources.items()}
+    if sources["sweep_labels"] is None:  # an older store: no labels, but readable
+        sources = {**sources, "sweep_labels": EMPTY_LABELS}
+    return sources
+
+
+def _check_source(other, attach, sources: dict, selection: Selection | None) -> None:
+    """Raise what `other` would refuse the merge for (not a foldwise store, too new, no
+    sweep chosen) on a connection of its own, before a new store file is made for it."""
+    con = duckdb.connect()
+    try:
+        with _attached(con, attach, other), refusing_outside(other):
+            _chosen(con, _readable(con, sources, attach), selection, other)
+    finally:
+        con.close()
 
 
 def _merge_models(con, sources: dict, rows: dict) -> list[str]:
