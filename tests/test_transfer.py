@@ -117,6 +117,20 @@ def test_a_refused_merge_into_a_new_store_file_leaves_no_file(explained, tmp_pat
         assert not target.exists() and not (tmp_path / "new.duckdb.wal").exists(), other
 
 
+def test_merge_of_an_unknown_sweep_names_the_other_store_and_how_to_list_it(explained,
+                                                                          tmp_path):
+    _, store, _ = explained
+    target = tmp_path / "target.duckdb"
+    export_store(store, tmp_path / "export")
+    for other, listed in ((store.path, f"`foldwise sweeps --store {store.path}` lists them."),
+                          (tmp_path / "export", "its foldwise-export.json lists them.")):
+        kind = "store" if other == store.path else "export"
+        out = CliRunner().invoke(main, ["merge", str(other), "--sweep", "zzz", "--store",
+                                        str(target)])
+        assert out.exit_code == 2 and out.output == (
+            f"Error: no sweep 'zzz' in {other}, the {kind} merged from; {listed}\n")
+
+
 def test_a_store_of_schema_version_1_is_upgraded_keeping_spec_order(explained, tmp_path):
     _, store, sweep_id = explained
     old = Store(tmp_path / "old.duckdb")

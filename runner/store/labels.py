@@ -97,14 +97,16 @@ def parse_age(text: str) -> timedelta:
     return int(found[1]) * _AGE_UNITS[found[2]]
 
 
-def resolve_ids(known, given) -> list[str]:
-    """Each given id (or unique prefix of one) as the full id among `known`."""
+def resolve_ids(known, given, *, where: str = "here",
+                listed: str = "`foldwise sweeps` lists them") -> list[str]:
+    """Each given id (or unique prefix of one) as the full id among `known`, the sweeps of
+    `where` (said in a refusal, with where they are `listed`)."""
     known = list(known)
     out = []
     for prefix in given:
         hits = [s for s in known if s.startswith(str(prefix))] if prefix else []
         if len(hits) != 1:
-            raise StoreError(f"no sweep '{prefix}' here; `foldwise sweeps` lists them." if not hits
+            raise StoreError(f"no sweep '{prefix}' {where}; {listed}." if not hits
                              else f"sweep id prefix '{prefix}' matches {len(hits)} sweeps; "
                                   "give more characters.")
         out.append(hits[0])

@@ -292,7 +292,12 @@ def _chosen(con, sources: dict, selection: Selection | None, other) -> str:
         return ""
     if selection.ids:
         known = [r[0] for r in con.execute(f"select sweep_id from {sources['sweeps']}").fetchall()]
-        selection = replace(selection, ids=tuple(resolve_ids(known, selection.ids)))
+        folder = Path(str(other)).is_dir()
+        listed = (f"its {EXPORT_MANIFEST} lists them" if folder
+                  else f"`foldwise sweeps --store {other}` lists them")
+        where = f"in {other}, the {'export' if folder else 'store'} merged from"
+        selection = replace(selection, ids=tuple(resolve_ids(known, selection.ids,
+                                                             where=where, listed=listed)))
     where, params = selection.where("s", sources["sweep_labels"])
     found = [r[0] for r in con.execute(f"select s.sweep_id from {sources['sweeps']} s "
                                        f"where {where}", params).fetchall()]
