@@ -367,6 +367,25 @@ def test_history_picks_what_pick_picks_in_every_sweep(store, base):
         model_history(store, "lasso")
 
 
+def test_history_of_a_model_only_some_sweeps_hold_says_how_many_lack_it(base, tmp_path):
+    folder = base[0]
+    store = Store(tmp_path / "s.duckdb")
+    shutil.copy(base[1].path, store.path)
+    lasso = "lasso: {family: linear, grid: {penalty: l1, alpha: [0.1, 1.0]}}\n"
+    last = run_sweep(spec_from(folder, MODELS + lasso, name="e.yaml"), store=store, jobs=1)
+    result = model_history(store, "lasso")
+    assert result.table["sweep_id"].tolist() == [last.sweep_id] and result.n_sweeps == 3
+    out = invoke("history", "--model", "lasso", "--store", store.path)
+    assert out.exit_code == 0, out.output
+    said = ("lasso is in 1 of the 3 sweeps of spec 'small'; the 2 without it are not "
+            "listed.")
+    assert said in " ".join(out.output.split())
+    out = invoke("history", "--family", "linear", "--store", store.path)
+    assert said in " ".join(out.output.split()) and "ridge is in" not in out.output
+    out = invoke("history", "--model", "ridge", "--store", store.path)
+    assert " is in " not in out.output
+
+
 def test_history_of_a_model_under_another_family_names_its_family(base):
     store = base[1]
     out = invoke("history", "--model", "tree", "--family", "linear", "--store", store.path)

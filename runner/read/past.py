@@ -284,8 +284,10 @@ def _history(store: Store, model, name, family, rule, se, metric) -> ModelHistor
     columns = ["sweep_id", "started_at", "status", "model", "family", "rule", "cell_id",
                "params", "complexity_rank", "n", "mean", "se", "test", "data", "data_changed",
                "spec_changed", "pick_changed", "labels"]
+    n_sweeps = int(store.query("select count(*) as n from sweeps where name = ?",
+                               [name])["n"].iloc[0])
     return ModelHistory(name, tuple(order), metric, better, se, rule,
-                        pd.DataFrame(rows, columns=columns))
+                        pd.DataFrame(rows, columns=columns), n_sweeps)
 
 
 def _no_history(every: pd.DataFrame, name: str, model, family) -> str:

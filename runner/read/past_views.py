@@ -271,6 +271,12 @@ def history_view(result: ModelHistory) -> View:
              f"oldest first: picked cell ({rule}) by CV {metric_label(m)} "
              f"({result.better} is better, {result.se} SE)")
     said = []
+    for model in result.models:
+        held = df.loc[df["model"] == model, "sweep_id"].nunique()
+        if result.n_sweeps and held < result.n_sweeps:
+            said.append(f"{model} is in {held} of the {result.n_sweeps} sweeps of spec "
+                        f"'{plain_text(result.name)}'; the {result.n_sweeps - held} without "
+                        "it are not listed.")
     changed = df.loc[df["data_changed"].eq(True), "sweep_id"].drop_duplicates().tolist()
     if changed:
         said.append(f"the data changed before sweep{'s' if len(changed) > 1 else ''} "

@@ -267,6 +267,7 @@ class ModelHistory:
     se: str
     rule: str | None  # None: each sweep's own rule
     table: pd.DataFrame
+    n_sweeps: int | None = None  # sweeps of the spec, holding these models or not
 
 
 @dataclass(frozen=True)
