@@ -113,7 +113,8 @@ def test_label_command_adds_changes_drops_and_renotes(store, base):
 
 
 @pytest.mark.parametrize("bad, words", [
-    ("purpose", "has no '='"), ("bad key=x", "not a plain name"), ("k=", "empty value"),
+    ("purpose", "has no '='; write a label as KEY=VALUE, e.g. purpose=baseline.\n"),
+    ("bad key=x", "not a plain name"), ("k=", "empty value"),
     ("k=a\x1b[31mb", "control character")])
 def test_bad_labels_are_refused_and_nothing_changes(base, tmp_path, bad, words):
     shutil.copy(base[1].path, tmp_path / "s.duckdb")

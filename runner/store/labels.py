@@ -46,8 +46,8 @@ def parse_label(text: str) -> tuple[str, str]:
     """'key=value' -> (key, value); the key as `check_labels` wants it."""
     key, sep, value = str(text).partition("=")
     if not sep:
-        raise StoreError(f"label {text!r} has no '='; write labels as KEY=VALUE, e.g. "
-                         "--label purpose=baseline.")
+        raise StoreError(f"label {text!r} has no '='; write a label as KEY=VALUE, e.g. "
+                         "purpose=baseline.")
     key, value = key.strip(), value.strip()
     check_labels({key: value})
     return key, value
