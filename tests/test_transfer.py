@@ -95,6 +95,23 @@ def test_merge_of_a_file_that_is_no_store_changes_nothing(explained, tmp_path):
     assert len(_table(target, "fold_scores")) == len(_table(store, "fold_scores"))
 
 
+@pytest.mark.parametrize("name", ["waste.csv", "waste.duckdb"])
+def test_merge_of_a_data_file_says_it_is_no_duckdb_file(explained, tmp_path, name):
+    _, store, _ = explained
+    target = Store(tmp_path / "target.duckdb")
+    merge_store(target, store.path)
+    before = target.path.read_bytes()
+    data = tmp_path / name
+    data.write_text("branch,waste_kg\nb01,12.5\nb02,9.0\n")
+    out = subprocess.run([sys.executable, "-m", "runner", "merge", str(data), "--store",
+                          str(target.path)], capture_output=True, text=True)
+    assert out.returncode == 2 and out.stderr == (
+        f"Error: cannot open store {data}: it is not a DuckDB database file (a foldwise "
+        "store file is one), so it was not opened. Choose a store file, a postgresql:// URL "
+        "or, to merge, a folder written by `foldwise export`.\n")
+    assert target.path.read_bytes() == before
+
+
 def test_a_refused_merge_into_a_new_store_file_leaves_no_file(explained, tmp_path):
     from runner.store.labels import Selection
 

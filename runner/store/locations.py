@@ -101,9 +101,23 @@ class FileLocation:
         return isinstance(exc, duckdb.IOException) and any(w in str(exc) for w in _LOCK_WORDS)
 
     def open_error(self, exc: Exception) -> StoreError:
+        if self._not_duckdb():
+            return StoreError(f"cannot open store {self.path}: it is not a DuckDB database "
+                              "file (a foldwise store file is one), so it was not opened. "
+                              "Choose a store file, a postgresql:// URL or, to merge, a "
+                              "folder written by `foldwise export`.")
         return StoreError(f"cannot open store {self.path}: {exc}".rstrip(".") + ". If another "
                           "program holds the file open, close it; if the file is not a "
                           "foldwise store, choose another path.")
+
+    def _not_duckdb(self) -> bool:
+        """A regular file whose header lacks DuckDB's magic bytes (b'DUCK' at offset 8)."""
+        try:
+            with open(self.path, "rb") as f:
+                head = f.read(12)
+        except OSError:
+            return False
+        return len(head) == 12 and head[8:12] != b"DUCK"
 
     def busy_message(self, exc: Exception, *, writing: bool, limit: float,
                      gave_up: bool = False) -> str:
