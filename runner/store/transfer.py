@@ -147,6 +147,9 @@ def merge_store(store: Store, other: str | Path,
     so a model built later on a sweep merged before still arrives."""
     from .locations import locate
 
+    new_file = not store.location.exists()  # made only once `other` is found fit to merge
+    if not new_file:
+        store.ensure_schema()
     if isinstance(other, (str, Path)) and Path(str(other)).is_dir():
         sources, attach = _export_sources(Path(str(other))), None
         reach = [Path(str(other))]
@@ -163,9 +166,9 @@ def merge_store(store: Store, other: str | Path,
         attach = where
         sources = {t: f"_other.{t}" for t in TABLES}
         reach = where.reach() if where.kind == "file" else None
-    if not store.location.exists():
+    if new_file:
         _check_source(other, attach, sources, selection)
-    store.ensure_schema()
+        store.ensure_schema()
     with store._connect(read_only=False, reach=reach) as con, _attached(con, attach, other), \
             refusing_outside(other):
         sources = _readable(con, sources, attach)
