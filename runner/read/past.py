@@ -22,7 +22,8 @@ from ..errors import QueryError
 from .compare import holm, t_from_moments
 from .picks import RULES, best_index, check_rule, check_se, one_se_index
 from .past_queries import (history_cells, latest_of_name, paired_changes, previous_sweep,
-                           shared_cells, spec_names, sweep_records, sweep_status_of)
+                           shared_cells, spec_names, sweep_records, sweep_status_of,
+                           sweeps_of_name)
 from .queries import (check_cells, fold_size_fault, json_object, picks, require_fold_sizes,
                       sweep_facts, sweep_labels, varying_params)
 from .results import ModelHistory, SweepDiff
@@ -284,8 +285,7 @@ def _history(store: Store, model, name, family, rule, se, metric) -> ModelHistor
     columns = ["sweep_id", "started_at", "status", "model", "family", "rule", "cell_id",
                "params", "complexity_rank", "n", "mean", "se", "test", "data", "data_changed",
                "spec_changed", "pick_changed", "labels"]
-    n_sweeps = int(store.query("select count(*) as n from sweeps where name = ?",
-                               [name])["n"].iloc[0])
+    n_sweeps = sweeps_of_name(store, name)
     return ModelHistory(name, tuple(order), metric, better, se, rule,
                         pd.DataFrame(rows, columns=columns), n_sweeps)
 

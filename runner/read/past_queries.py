@@ -52,6 +52,12 @@ def latest_of_name(store: Store, name: str) -> str | None:
     return None if df.empty else str(df.iloc[0, 0])
 
 
+def sweeps_of_name(store: Store, name: str) -> int:
+    """How many sweeps of this spec name the store holds."""
+    return int(store.query("select count(*) as n from sweeps where name = ?",
+                           [name])["n"].iloc[0])
+
+
 def spec_names(store: Store) -> list[str]:
     """Every spec name the store's sweeps carry, sorted."""
     return store.query("select distinct name from sweeps order by name")["name"].tolist()
