@@ -181,6 +181,21 @@ def test_words_read_as_missing_in_a_text_feature_are_a_finding(tmp_path):
     assert "warning (allowed) (missing_words): text feature 'treatment'" in result.output
 
 
+def test_a_class_written_as_a_missing_word_is_named_in_the_refusal(tmp_path):
+    # a class target whose class 'None' pandas reads as missing (pandas.read_csv, na_values)
+    df = diabetes_frame().iloc[:90].copy()
+    df["outcome"] = np.where(np.arange(90) % 3 == 0, "None", "better")
+    df.loc[[1], "outcome"] = ""  # an empty field: missing, and not a word
+    df.to_csv(tmp_path / "outcomes.csv", index=False)
+    path = write_spec(tmp_path, RIDGE, data="outcomes.csv")
+    path.write_text(path.read_text().replace("target: progression", "target: outcome"))
+    result = CliRunner().invoke(main, ["check", str(path)])
+    assert result.exit_code == 2 and result.output.count("\n") == 1, result.output
+    assert "has 31 missing values (first at file lines 2, 3, 5, 8, 11)" in result.output
+    assert "The file writes 'None' (30 rows) there, which pandas reads as a missing value; " \
+        "if that is a class, write it as another word" in result.output
+
+
 def test_duplicate_rows_across_the_test_split(tmp_path):
     df = diabetes_frame()
     twice = pd.concat([df, df.iloc[:40]], ignore_index=True)  # 40 rows twice

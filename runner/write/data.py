@@ -392,19 +392,25 @@ def infer_task(y: pd.Series, stated: str | None, target: str, path: Path,
     return stated or ("regression" if numeric else "classification")
 
 
-def _check_classes(y: pd.Series, target: str, path: Path, rows: _Rows
-                   ) -> tuple[np.ndarray, list]:
+def _check_classes(y: pd.Series, target: str, path: Path, rows: _Rows,
+                   words: dict[str, int] | None = None) -> tuple[np.ndarray, list]:
     """The class labels of every row (numbers stay numbers, so they sort as numbers) and
-    the classes in scikit-learn's order (sorted)."""
+    the classes in scikit-learn's order (sorted). `words`: the words of the file that were
+    read as missing values in the target, with their rows."""
     missing = y.isna().to_numpy()
     if missing.all():
         raise DataError(f"target column '{target}' of {path} is entirely missing.")
     if missing.any():
         first = [rows.number(i) for i in np.flatnonzero(missing)[:5]]
+        said = ""
+        if words:
+            shown = ", ".join(f"'{w}' ({n:,} rows)" for w, n in list(words.items())[:4])
+            said = (f" The file writes {shown} there, which pandas reads as a missing value; "
+                    "if that is a class, write it as another word (such as 'none_given').")
         raise DataError(f"target column '{target}' of {path} has {int(missing.sum())} missing "
                         f"values (first at file lines {', '.join(first)}). Drop those rows "
                         "before the sweep: a row without a class can be neither fitted nor "
-                        "scored.")
+                        f"scored.{said}")
     if pd.api.types.is_bool_dtype(y):
         values = y.to_numpy(dtype=bool)
     elif pd.api.types.is_numeric_dtype(y):
@@ -520,7 +526,9 @@ def load_frame(spec, *, max_bytes: int | None = None) -> Frame:
         plan_values[column] = _plan_values(df[column], role, column, path, rows)
     task = infer_task(df[target], spec.task, target, path, rows)
     if task == "classification":
-        y, classes = _check_classes(df[target], target, path, rows)
+        words = _missing_words(path, max_bytes, df.iloc[:n_main], [target]) \
+            if df[target].isna().any() else {}
+        y, classes = _check_classes(df[target], target, path, rows, words.get(target))
     else:
         y, classes = _check_target(df[target], target, path, rows), []
     dropped += [c for c in plan_values if c not in spec.data.categorical and c not in dropped]
