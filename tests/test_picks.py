@@ -532,6 +532,30 @@ def test_a_store_without_tiers_keeps_its_pick_by_rank(net_sweep, tmp_path):
         assert "tier" not in view.table.columns and not any("tier" in n for n in view.sentences)
 
 
+def test_the_summary_view_carries_the_tier_and_an_older_view_is_made_again(net_sweep,
+                                                                          tmp_path):
+    import shutil
+
+    store, _ = net_sweep
+    copy = tmp_path / "copy.duckdb"
+    shutil.copy(store.path, copy)
+    with duckdb.connect(str(copy)) as con:  # the view as made before it carried the tier
+        con.execute("""create or replace view cell_summary as
+            select f.sweep_id, f.cell_id, c.model, c.complexity_rank, f.metric,
+                   avg(f.value) as mean, count(f.value) as n
+            from fold_scores f join cells c using (sweep_id, cell_id) group by all""")
+    from runner.store import Store
+
+    Store(copy).ensure_schema()  # what every write (a sweep, a merge, a build) does first
+    for path in (store.path, copy):
+        view = duckdb.connect(str(path), read_only=True).execute(
+            """select distinct v.cell_id, v.complexity_tier, c.complexity_tier as stored
+               from cell_summary v join cells c using (sweep_id, cell_id)
+               order by v.cell_id""").df()
+        assert len(view) == 6 and (view["complexity_tier"] == view["stored"]).all(), path
+        assert sorted(view["complexity_tier"]) == [0, 0, 1, 1, 2, 2]
+
+
 # -- the commands -------------------------------------------------------------------------
 
 

@@ -651,10 +651,12 @@ def refusing_outside(path) -> Iterator[None]:
 
 def _renew_summary_view(con) -> None:
     """A file store's summary view made before its SE and n counted only defined scores
-    (they counted every fold row, NULL for a metric undefined on a fold) is made again."""
+    (they counted every fold row, NULL for a metric undefined on a fold), or before it
+    carried the cells' complexity tier, is made again."""
     stored = con.execute("select sql from duckdb_views() where view_name = 'cell_summary' "
                          "and not temporary").fetchone()
-    if stored is None or 'count(f."value") AS n' not in stored[0]:
+    if stored is None or 'count(f."value") AS n' not in stored[0] \
+            or "complexity_tier" not in stored[0]:
         con.execute(VIEW_SQL)
 
 
@@ -662,5 +664,5 @@ def _summary_view(con) -> None:
     """The summary view, made for this connection only (a server keeps no DuckDB views)."""
     try:
         con.execute(VIEW_SQL.replace("create or replace view", "create or replace temp view"))
-    except duckdb.CatalogException:
-        pass  # no tables yet
+    except (duckdb.CatalogException, duckdb.BinderException):
+        pass  # no tables yet, or tables an upgrade has yet to give their newer columns

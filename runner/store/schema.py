@@ -98,7 +98,8 @@ create table if not exists findings (
 
 VIEW_SQL = """
 create or replace view cell_summary as
-select f.sweep_id, f.cell_id, c.model, c.family, c.params, c.complexity_rank, f.metric,
+select f.sweep_id, f.cell_id, c.model, c.family, c.params, c.complexity_rank,
+       c.complexity_tier, f.metric,
        avg(f.value) as mean, stddev_samp(f.value) as sd,
        stddev_samp(f.value) / sqrt(count(f.value)) as se, count(f.value) as n,
        avg(f.n_leaves) as mean_leaves, sum(f.fit_seconds) as fit_seconds
