@@ -387,6 +387,24 @@ def test_history_of_a_model_only_some_sweeps_hold_says_how_many_lack_it(base, tm
     assert " is in " not in out.output
 
 
+def test_history_of_a_model_only_another_spec_holds_names_that_spec(base, tmp_path):
+    folder = base[0]
+    store = Store(tmp_path / "s.duckdb")
+    shutil.copy(base[1].path, store.path)
+    path = write_spec(folder, "tree: {family: pruned_tree, grid: {ccp_alpha: [0.0]}}",
+                      name="other.yaml")
+    path.write_text(path.read_text().replace("name: small", "name: other spec"))
+    run_sweep(load_spec(path), store=store, jobs=1)
+    out = invoke("history", "--model", "ridge", "--store", store.path)
+    assert out.exit_code == 2 and out.output == (
+        "Error: no model 'ridge' in any sweep of spec 'other spec'; its models: tree. "
+        "Spec 'small' holds it: give --name small.\n")
+    with pytest.raises(QueryError, match="its families: pruned_tree. Spec 'small' holds it"):
+        model_history(store, family="linear")
+    out = invoke("history", "--model", "ridge", "--name", "small", "--store", store.path)
+    assert out.exit_code == 0, out.output
+
+
 def test_history_of_a_model_under_another_family_names_its_family(base):
     store = base[1]
     out = invoke("history", "--model", "tree", "--family", "linear", "--store", store.path)

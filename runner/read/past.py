@@ -15,6 +15,7 @@ from __future__ import annotations
 import difflib
 import json
 import math
+import shlex
 
 import pandas as pd
 
@@ -22,8 +23,8 @@ from ..errors import QueryError
 from .compare import holm, t_from_moments
 from .picks import RULES, best_index, check_rule, check_se, one_se_index
 from .past_queries import (history_cells, latest_of_name, paired_changes, previous_sweep,
-                           shared_cells, spec_names, sweep_records, sweep_status_of,
-                           sweeps_of_name)
+                           shared_cells, spec_names, specs_holding, sweep_records,
+                           sweep_status_of, sweeps_of_name)
 from .queries import (check_cells, fold_size_fault, json_object, picks, require_fold_sizes,
                       sweep_facts, sweep_labels, varying_params)
 from .results import ModelHistory, SweepDiff
@@ -252,7 +253,9 @@ def _history(store: Store, model, name, family, rule, se, metric) -> ModelHistor
     cells = history_cells(store, name, metric, models=[model] if model else None,
                           family=family)
     if cells.empty:
-        raise QueryError(_no_history(history_cells(store, name, metric), name, model, family))
+        others = [n for n in specs_holding(store, model, family) if n != name]
+        raise QueryError(_no_history(history_cells(store, name, metric), name, model, family)
+                         + _elsewhere(others))
     better = facts.better_of(metric)
     order = list(dict.fromkeys(cells.sort_values("position", kind="stable")["model"]))
     rows, before = [], {}
@@ -302,6 +305,15 @@ def _no_history(every: pd.DataFrame, name: str, model, family) -> str:
                 f"{', '.join(sorted(families)) or 'none'}.")
     return (f"no family '{family}' in any sweep of spec '{name}'; its families: "
             f"{', '.join(sorted(set(families.values()))) or 'none'}.")
+
+
+def _elsewhere(names: list[str]) -> str:
+    """Where else the model (or family) is: the other specs holding it, for --name."""
+    if not names:
+        return ""
+    if len(names) == 1:
+        return f" Spec '{names[0]}' holds it: give --name {shlex.quote(names[0])}."
+    return f" Specs {', '.join(repr(n) for n in names)} hold it: give --name with one of them."
 
 
 def _latest_of(store: Store, name: str | None) -> str:

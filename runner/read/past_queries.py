@@ -122,6 +122,13 @@ def history_cells(store: Store, name: str, metric: str, *, models: list[str] | N
         order by s.started_at, s.sweep_id, c.position""", [name, metric, models, family])
 
 
+def specs_holding(store: Store, model: str | None, family: str | None) -> list[str]:
+    """The spec names whose sweeps hold a cell of this model label (or family)."""
+    return store.query("""select distinct s.name from sweeps s join cells c using (sweep_id)
+        where ($1::varchar is null or c.model = $1) and ($2::varchar is null or c.family = $2)
+        order by 1""", [model, family])["name"].tolist()
+
+
 def sweep_rows(store: Store, sweep_ids: list[str]) -> dict[str, int]:
     """Rows each table holds for these sweeps (what removing them takes away)."""
     from ..store import TABLES
