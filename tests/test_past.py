@@ -507,6 +507,12 @@ def test_removal_asks_first_and_keeps_sweeps_that_reused_rows(store, base):
         out.output.split())
     out = CliRunner().invoke(main, ["remove", first, "--store", str(store.path)], input="n\n")
     assert "nothing removed." in out.output
+    out = CliRunner().invoke(main, ["remove", first, "--store", str(store.path)], input="")
+    assert out.exit_code == 2 and "Traceback" not in out.output and "Aborted" not in out.output
+    assert out.stderr.endswith(
+        "Error: the input ended before 'Remove 1 sweep(s)?' was answered, so nothing was "
+        "removed; pass --yes to remove without asking (for scripts), or --dry-run to only "
+        "list them.\n")
     assert len(_rows(store, "fold_scores", first)) == 108
     out = invoke("remove", first, "--yes", "--store", store.path)
     assert out.exit_code == 0 and "removed 1 sweep(s) and " in out.output

@@ -218,12 +218,27 @@ def remove(sweep_ids, store_path, labels, name, status, older_than, dry_run, yes
     if dry_run:
         click.echo("dry run: nothing removed.")
         return
-    if not yes and not click.confirm(f"Remove {len(ids)} sweep(s)?", default=False, err=True):
+    if not yes and not _confirmed(f"Remove {len(ids)} sweep(s)?"):
         click.echo("nothing removed.")
         return
     removed = remove_sweeps(store, ids, alive=process_alive)
     click.echo(f"removed {len(ids)} sweep(s) and {sum(removed.values())} rows from "
                f"{store.path}.")
+
+
+def _confirmed(question: str) -> bool:
+    """The user's answer; input that ends unanswered (a script without --yes) is refused
+    in words, and Ctrl-C at the question stops as an interrupt does (exit 130)."""
+    try:
+        return click.confirm(question, default=False, err=True)
+    except click.Abort as exc:
+        if isinstance(exc.__context__, EOFError):
+            raise click.UsageError(f"the input ended before '{question}' was answered, so "
+                                   "nothing was removed; pass --yes to remove without "
+                                   "asking (for scripts), or --dry-run to only list them."
+                                   ) from None
+        click.echo("\nnothing removed.", err=True)
+        click.get_current_context().exit(130)
 
 
 COMMANDS = (sweeps, label, merge, export, diff, history, remove)
