@@ -138,6 +138,21 @@ def test_sweeps_filters_by_label_name_status_and_age(store, base):
     assert row["sweep_id"] == second and row["labels"] == {"purpose": "tuned"}
 
 
+@pytest.mark.parametrize("command", [["sweeps"], ["remove", "--yes"], ["export", "OUT"]])
+def test_a_label_filter_with_an_empty_value_says_how_to_match_any_value(base, tmp_path,
+                                                                       command):
+    shutil.copy(base[1].path, tmp_path / "s.duckdb")
+    before = (tmp_path / "s.duckdb").read_bytes()
+    command = [str(tmp_path / "out") if c == "OUT" else c for c in command]
+    out = CliRunner().invoke(main, [*command, "--label", "purpose=", "--store",
+                                    str(tmp_path / "s.duckdb")])
+    assert out.exit_code == 2 and "--drop" not in out.output, out.output
+    assert out.output == ("Error: label filter 'purpose=' has an empty value; give --label "
+                          "purpose to match any value of it, or --label purpose=VALUE to "
+                          "match one.\n")
+    assert (tmp_path / "s.duckdb").read_bytes() == before and not (tmp_path / "out").exists()
+
+
 def test_listing_sweeps_leaves_pandas_unloaded_and_shows_every_sweep(base, tmp_path):
     """`foldwise sweeps` answers from plain rows: a fresh process lists both sweeps with their
     labels and note, and never imports pandas (a third of its start-up otherwise)."""

@@ -138,7 +138,12 @@ class Selection:
         pairs = []
         for text in labels:
             key, sep, value = str(text).partition("=")
-            pairs.append(parse_label(text) if sep else (check_key(key.strip()), None))
+            key = check_key(key.strip())
+            if sep and not value.strip():
+                raise StoreError(f"label filter {text!r} has an empty value; give --label "
+                                 f"{key} to match any value of it, or --label {key}=VALUE "
+                                 "to match one.")
+            pairs.append(parse_label(text) if sep else (key, None))
         before = datetime.now() - parse_age(older_than) if older_than else None
         return cls(tuple(ids), tuple(pairs), name, status, before)
 
