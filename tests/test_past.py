@@ -124,6 +124,18 @@ def test_bad_labels_are_refused_and_nothing_changes(base, tmp_path, bad, words):
     assert (tmp_path / "s.duckdb").read_bytes() == before
 
 
+def test_a_run_label_with_an_empty_value_points_to_label_drop_and_records_nothing(base,
+                                                                                   tmp_path):
+    folder = base[0]
+    spec = write_spec(folder, MODELS, name="empty_label.yaml")
+    out = CliRunner().invoke(main, ["run", str(spec), "--label", "purpose=", "--store",
+                                    str(tmp_path / "s.duckdb")])
+    assert out.exit_code == 2 and out.output == (
+        "Error: label purpose has an empty value; give one (purpose=VALUE). To take a label "
+        "off a sweep: foldwise label --drop purpose.\n")
+    assert not (tmp_path / "s.duckdb").exists()
+
+
 def test_sweeps_filters_by_label_name_status_and_age(store, base):
     _, _, first, second = base
     pick = lambda **kw: sweeps(store, Selection.of(**kw)).table["sweep_id"].tolist()

@@ -70,8 +70,8 @@ def check_labels(labels: dict) -> dict[str, str]:
                              "digit (e.g. data=2026-11, purpose=baseline).")
         _check_text(value, f"the value of label {key}", MAX_VALUE)
         if not value:
-            raise StoreError(f"label {key} has an empty value; give one (KEY=VALUE), or "
-                             f"remove the label with --drop {key}.")
+            raise StoreError(f"label {key} has an empty value; give one ({key}=VALUE). "
+                             f"To take a label off a sweep: foldwise label --drop {key}.")
     return dict(labels)
 
 
