@@ -120,12 +120,16 @@ def test_sql_and_sweeps(swept):
 def test_sql_refuses_writes(swept):
     _, store, _ = swept
     before = store.read_bytes()
-    for query in ("delete from fold_scores", "drop table cells", "attach 'x.duckdb'",
-                  "copy fold_scores to 'out.csv'", "create table t as select 1",
-                  "update sweeps set status = 'x'", "set threads = 1"):
+    for query, kind in (("delete from fold_scores", "a DELETE"), ("drop table cells", "a DROP"),
+                        ("attach 'x.duckdb'", "an ATTACH"),
+                        ("copy fold_scores to 'out.csv'", "a COPY"),
+                        ("create table t as select 1", "a CREATE"),
+                        ("update sweeps set status = 'x'", "an UPDATE"),
+                        ("set threads = 1", "a SET"), ("select 1; select 2", None)):
         out = invoke("sql", "--store", store, query)
         assert out.exit_code == 2, (query, out.output)
-        assert "only read queries" in out.output
+        assert kind is None or f"only read queries (SELECT, WITH, DESCRIBE, SUMMARIZE, " \
+            f"EXPLAIN) are allowed; refused {kind} statement." in " ".join(out.output.split())
     out = invoke("sql", "--store", store, "select * from read_csv('/etc/passwd')")
     assert out.exit_code == 2
     assert store.read_bytes() == before

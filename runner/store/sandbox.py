@@ -157,9 +157,10 @@ def check_statement(sql: str) -> str:
             kinds = [s.type.name for s in _statements(con, inner)]
             kind = kinds[0] if len(kinds) == 1 else f"{len(kinds)}-statement"
     if kind != "SELECT":
+        article = "an" if kind[0] in "AEIOU8" or kind.startswith(("11-", "18-")) else "a"
         raise QueryError(f"only read queries (SELECT, WITH, DESCRIBE, SUMMARIZE, EXPLAIN) are "
-                         f"allowed; refused a {kind} statement. The store is changed only by "
-                         "foldwise's own commands.")
+                         f"allowed; refused {article} {kind} statement. The store is changed "
+                         "only by foldwise's own commands.")
     return inner
 
 
