@@ -110,6 +110,13 @@ def test_label_command_adds_changes_drops_and_renotes(store, base):
     assert store.query("select note is null as gone from sweeps where sweep_id = ?",
                        [first]).gone[0]
     assert len(_rows(store, "sweep_labels", second)) == 1  # the other sweep untouched
+    again = invoke("label", "--drop", "data", "--drop", "owner", "--sweep", first,
+                   "--store", store.path)  # 'data' went above: said, not silently done
+    assert again.exit_code == 0, again.output
+    assert f"note: sweep {first} had no label 'data'; nothing to drop." in again.output
+    assert "no label 'owner'" not in again.output
+    assert store.query("select key from sweep_labels where sweep_id = ?",
+                       [first])["key"].tolist() == ["purpose"]
 
 
 @pytest.mark.parametrize("bad, words", [

@@ -50,10 +50,17 @@ def label(labels, store_path, sweep_id, drop, note, fmt):
     from ..read.past_views import sweeps_view
     from ..store.labels import Selection, parse_labels, set_labels
 
+    from ..read.past_views import plain_text
+    from ..read.queries import sweep_labels
+
     store = _open_store(store_path)
     sid = store.resolve_sweep(sweep_id)
+    absent = [k for k in drop if k not in sweep_labels(store, [sid]).get(sid, {})]
     if labels or drop or note is not None:
         set_labels(store, sid, parse_labels(labels), drop=drop, note=note)
+    for key in absent:
+        click.echo(f"note: sweep {sid} had no label '{plain_text(key)}'; nothing to drop.",
+                   err=True)
     result = read_sweeps(store, Selection(ids=(sid,)))
     _show(result, sweeps_view(result, f"sweep {sid}"), fmt)
 
