@@ -435,6 +435,12 @@ def test_holm_counts_the_pairs_with_too_few_folds_as_untested_not_as_ties(bases,
             "folds had too few to test);") in text
     assert "same score on every fold" not in text
     assert "MAE is undefined on some folds (the store holds no finite value there)" in text
+    import json
+
+    shown = _run(argvs["compare"] + ["--metric", "mae", "--format", "json"])
+    assert {(p["model_a"], p["model_b"]): p["df"] for p in json.loads(shown.stdout)} == {
+        ("ridge", "tree"): None, ("ridge", "forest"): 1, ("tree", "forest"): None}
+    assert '"df": 1,' in shown.stdout  # a whole number, not 1.0
 
 
 @pytest.mark.parametrize("name", list(INTERVALS))

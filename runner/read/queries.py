@@ -764,8 +764,10 @@ def compare(store: Store, sweep_id: str | None = None, *, rule: str | None = Non
                 "test_a": r.test_a, "test_b": r.test_b, "test_diff": r.test_a - r.test_b})
     for row, adjusted in zip(rows, holm([r["p_value"] for r in rows])):
         row["p_holm"] = adjusted
-    return Comparison(facts, rule, se, metric, pd.DataFrame(rows, columns=_PAIR_COLUMNS),
-                      chosen.coverage)
+    table = pd.DataFrame(rows, columns=_PAIR_COLUMNS)
+    # degrees of freedom are whole numbers, or None for a pair not tested (csv/json say so)
+    table["df"] = pd.Series([None if v != v else int(v) for v in table["df"]], dtype=object)
+    return Comparison(facts, rule, se, metric, table, chosen.coverage)
 
 
 def picked_fold_scores(store: Store, sweep_id: str, metric: str,
