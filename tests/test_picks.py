@@ -556,6 +556,26 @@ def test_the_summary_view_carries_the_tier_and_an_older_view_is_made_again(net_s
         assert sorted(view["complexity_tier"]) == [0, 0, 1, 1, 2, 2]
 
 
+def test_the_same_fold_scores_in_another_row_order_tie_and_the_simpler_cell_wins(tmp_path):
+    """Two cells hold the same six fold scores on different folds (as a merge or export may
+    reorder rows): their means are equal in exact arithmetic (math.fsum), but DuckDB's avg
+    sums them in row order and the simpler cell's comes out one unit in the last place
+    worse. The best and the one-SE pick must both go to the simpler cell."""
+    scores = [58.954122, 59.203875, 62.704228, 61.073296, 61.776864, 56.730857]
+    moved = [scores[i] for i in (1, 5, 4, 2, 3, 0)]
+    assert math.fsum(scores) == math.fsum(moved)
+    for rule in ("best", "one_se"):
+        store = write_sweep(tmp_path / f"{rule}.duckdb", {"m": [scores, moved]}, k=3,
+                            repeats=2, pick_rule=rule, tiers={"m": [0, 0]})
+        means = store.query("select avg(value) as mean from fold_scores group by cell_id "
+                            "order by cell_id")["mean"].tolist()
+        assert means[0] > means[1]  # the case at issue: the simpler cell's sum came out larger
+        assert read_picks(store, rule=rule).table["cell_id"].tolist() == ["m-0"], rule
+    assert best_index(means, "lower") == 0 and best_index([-m for m in means], "higher") == 0
+    assert one_se_index(means, 1.0, "lower", [0, 0]) == 0
+    assert best_index([1.0, 0.999], "lower") == 1  # a real difference still counts
+
+
 # -- the commands -------------------------------------------------------------------------
 
 

@@ -19,7 +19,8 @@ __all__ = ["RULES", "SE_KINDS", "TOLERANCE", "best_index", "one_se_index", "one_
 RULES = ("best", "one_se")
 SE_KINDS = ("plain", "corrected")
 TOLERANCE = 1e-12
-"""Relative slack at the one-SE threshold, so a mean equal to it in exact arithmetic counts."""
+"""Relative slack at the one-SE threshold, so a mean equal to it in exact arithmetic counts,
+and between means, so equal ones tie however their rows were ordered when summed."""
 
 
 # -- the rules on plain numbers ------------------------------------------------------------
@@ -29,12 +30,19 @@ def _check_better(better: str) -> None:
 
 
 def best_index(means: Sequence[float], better: str) -> int:
-    """Position of the best mean; among equal means the first (the simplest)."""
+    """Position of the best mean; among means equal to it within TOLERANCE (the same fold
+    scores summed in another row order differ in the last bits) the first, the simplest."""
     _check_better(better)
     if not len(means):
         raise ValueError("means is empty; a pick needs at least one cell")
-    sign = 1.0 if better == "lower" else -1.0
-    return min(range(len(means)), key=lambda i: (sign * float(means[i]), i))
+    return _first_of_best(range(len(means)), means, 1.0 if better == "lower" else -1.0)
+
+
+def _first_of_best(positions, means: Sequence[float], sign: float) -> int:
+    """The first of `positions` whose signed mean is within TOLERANCE of their best."""
+    positions = list(positions)
+    top = min(sign * float(means[i]) for i in positions)
+    return next(i for i in positions if sign * float(means[i]) <= top + _slack(top))
 
 
 def one_se_threshold(best_mean: float, se_best: float, better: str) -> float:
@@ -53,15 +61,17 @@ def one_se_index(means: Sequence[float], se_best: float, better: str,
 
     Lower is better: the cells with means[i] <= best + se_best; higher is better: those with
     means[i] >= best − se_best. Of these the lowest of `tiers` (equally simple cells share
-    one; None: every cell its own, the rank order), then the best mean, then the first."""
+    one; None: every cell its own, the rank order), then the best mean (equal within
+    TOLERANCE), then the first."""
     best = float(means[best_index(means, better)])
     bar = one_se_threshold(best, float(se_best), better)
     slack = _slack(best)
     sign = 1.0 if better == "lower" else -1.0
     within = [i for i, m in enumerate(means)
               if ((m <= bar + slack) if better == "lower" else (m >= bar - slack))]
-    return min(within, key=lambda i: (i if tiers is None else tiers[i],
-                                      sign * float(means[i]), i))
+    tier_of = (lambda i: i) if tiers is None else (lambda i: tiers[i])
+    simplest = min(tier_of(i) for i in within)
+    return _first_of_best([i for i in within if tier_of(i) == simplest], means, sign)
 
 
 def corrected_variance(var: float, n: int, valid_ratio: float) -> float:

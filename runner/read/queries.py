@@ -392,7 +392,9 @@ def require_fold_sizes(store: Store, sweep_ids: list[str]) -> None:
 # judged = every cell with mean/SE and why it is excluded; bars = the best cell and the
 # one-SE threshold per model; within = eligible cells inside it; chosen = the lowest tier
 # (the rank where an eligible cell of the model has none: an older store), then the best
-# mean, then the lowest rank.
+# mean, then the lowest rank. Means within the relative tolerance $5 of the best (or of the
+# tier's best) are equal: the same fold scores summed in another row order (a merged or
+# exported store) differ in the last bits, and the simpler cell must win either way.
 _CELLS_SQL = f"""
     plan as (select k::bigint * repeats as n_folds from sweeps where sweep_id = $1),
     stats as (
@@ -422,33 +424,39 @@ _CELLS_SQL = f"""
                end as excluded,
                min(s.cell_row) over (partition by s.model) as model_row
         from stats s, plan p),
-    ranked as (
-        select j.*, m.better, row_number() over (
-                   partition by j.model
-                   order by case when m.better = 'lower' then j.mean else -j.mean end,
-                            j.complexity_rank) as place,
+    signed as (
+        select j.*, m.better,
+               case when m.better = 'lower' then j.mean else -j.mean end as loss,
                case when count(j.complexity_tier) over w = count(*) over w
                     then j.complexity_tier else j.complexity_rank end as tier
         from judged j join metrics m on m.metric = $2
         where j.excluded is null
         window w as (partition by j.model)),
+    ranked as (
+        select s.*, row_number() over (
+                   partition by s.model
+                   order by s.loss > s.top + $5 * greatest(1.0, abs(s.top)),
+                            s.complexity_rank) as place
+        from (select *, min(loss) over (partition by model) as top from signed) s),
     bars as (
         select model, better, cell_id as best_cell, mean as best_mean, se as best_se,
                case when better = 'lower' then mean + se else mean - se end as threshold,
                $5 * greatest(1.0, abs(mean)) as slack
         from ranked where place = 1),
     within as (
-        select r.model, r.cell_id, r.complexity_rank, r.tier,
-               case when b.better = 'lower' then r.mean else -r.mean end as loss
+        select r.model, r.cell_id, r.complexity_rank, r.tier, r.loss
         from ranked r join bars b using (model)
         where case when b.better = 'lower' then r.mean <= b.threshold + b.slack
                    else r.mean >= b.threshold - b.slack end),
     chosen as (
         select model, cell_id as one_se_cell, n_within
         from (select model, cell_id, count(*) over (partition by model) as n_within,
-                     row_number() over (partition by model
-                                        order by tier, loss, complexity_rank) as place
-              from within)
+                     row_number() over (
+                         partition by model
+                         order by tier, loss > tier_top + $5 * greatest(1.0, abs(tier_top)),
+                                  complexity_rank) as place
+              from (select *, min(loss) over (partition by model, tier) as tier_top
+                    from within))
         where place = 1),
     eligible as (
         select model, count(*) filter (where excluded is null) as eligible, count(*) as cells
