@@ -98,8 +98,7 @@ def predict(model_ref, data_file, out, keep, overwrite, unseen, interval, chunk_
         if bar is not None:
             bar.close()
     for line in prediction_sentences(result):
-        if line not in model.notes:  # said above, before predicting
-            click.echo(line, err=line.startswith("note:"))
+        click.echo(line, err=line.startswith("note:"))
 
 
 @click.command()

@@ -177,10 +177,12 @@ def read_residuals(record, where: str) -> Residuals:
                          "rows to get intervals.")
 
     def damaged(why: str) -> ModelError:
-        return ModelError(f"the card of {where} has an interval record that {why}, which no "
-                          "build writes: the card was changed after the model was built. "
-                          "Predict without --interval, or build the model again to get "
-                          "intervals.")
+        error = ModelError(f"the card of {where} has an interval record that {why}, which no "
+                           "build writes: the card was changed after the model was built. "
+                           "Predict without --interval, or build the model again to get "
+                           "intervals.")
+        error.why = why  # what is wrong with the record, for a card's own view
+        return error
 
     if not isinstance(record, dict):
         kind = {list: "a list", str: "a string", bool: "true or false"}.get(type(record),

@@ -65,7 +65,7 @@ class PredictionResult:
     missing: dict[str, int] = field(default_factory=dict)  # column -> missing cells
     model_id: str = ""
     unseen_handling: str = ""
-    notes: list[str] = field(default_factory=list)
+    notes: list[str] = field(default_factory=list)  # this run's; the model's own are model.notes
     interval: float | None = None
     halfwidth: float | None = None
 
@@ -496,5 +496,5 @@ def predict_file(model: LoadedModel, data: str | Path, out: str | Path, *,
                             [*keep, *prediction], keep, ignored, tally.unseen,
                             {k: v for k, v in tally.missing.items() if v},
                             model.model_id, family.unseen_category,
-                            list(model.notes) + ([interval_note] if interval_note else []),
+                            [interval_note] if interval_note else [],
                             interval, halfwidth)

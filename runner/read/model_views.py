@@ -64,8 +64,8 @@ def _intervals_text(card: dict) -> str:
         if card.get("interval", "absent") in (None, "absent"):
             return ("none: this card keeps no held-out residuals (build the model again to get "
                     "them)")
-        return "none: " + str(exc).split(", which no build writes")[0].replace(
-            "the card of this model has an", "the card has an")
+        why = getattr(exc, "why", None)  # a record no build writes, or none finite
+        return f"none: the card has an interval record that {why}" if why else f"none: {exc}"
     skipped = f", {residuals.skipped:,} not finite and skipped" if residuals.skipped else ""
     return (f"split conformal on {residuals.n:,} held-out residuals{skipped} "
             "(predict --interval LEVEL)")
