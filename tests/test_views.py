@@ -79,3 +79,19 @@ def test_a_cell_hundreds_of_ses_from_the_best_reads_as_a_whole_number(tmp_path):
     view = complexity_view(complexity_table(store, "m"))
     column = [c for c in view.table.columns if c.endswith("best")][0]
     assert view.table[column].tolist() == ["1.0000 = 240 SE", "0.0000 = 0 SE"]
+
+
+def test_a_test_score_keeps_the_decimals_of_the_cv_mean_beside_it(tmp_path):
+    # CV 0.8207 ± 0.0025 shows four places, so a test score of 0.80498 reads 0.8050, not
+    # '0.805' (four significant digits with the trailing zero dropped), in every table.
+    from .store_builder import write_sweep
+
+    folds = [0.8207 + d for d in (-0.0044, 0.0044, -0.0044, 0.0044)]
+    store = write_sweep(tmp_path / "s.duckdb", {"m": [folds]}, k=2, repeats=2,
+                        metric="r2", better="higher", tests={"m": [0.80498]})
+    shown = summary_view(summary(store)).table
+    assert shown["CV R² (mean ± SE)"].tolist() == ["0.8207 ± 0.0025"]
+    assert shown["test R²"].tolist() == ["0.8050"]
+    assert picks_view(picks(store)).table.filter(like="test R²").iloc[0].tolist() \
+        == ["0.8050", "0.8050"]
+    assert complexity_view(complexity_table(store, "m")).table["test R²"].tolist() == ["0.8050"]

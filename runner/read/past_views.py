@@ -10,7 +10,7 @@ from datetime import datetime
 from .compare import APPROXIMATE_NOTE
 from ..metrics import metric_label
 from .results import ModelHistory, SweepDiff, SweepList
-from .views import (CLEAR_P, TIME_MEANING, TextTable, View, count_text, cv_head, decimals_for,
+from .views import (CLEAR_P, TIME_MEANING, TextTable, View, beside, count_text, cv_head, decimals_for,
                     fixed, is_missing, mean_se, number, p_text, params_text, rule_label,
                     test_head)
 
@@ -258,7 +258,7 @@ def history_view(result: ModelHistory) -> View:
     shown["picked cell"] = ["(no complete cell)" if is_missing(p) else params_text(p, exact=True)
                             for p in df["params"]]
     shown[cv_head(m)] = [mean_se(x, e) for x, e in zip(df["mean"], df["se"])]
-    shown[test_head(m)] = df["test"].map(number)
+    shown[test_head(m)] = [beside(t, e) for t, e in zip(df["test"], df["se"])]
     shown["data"] = ["unknown" if is_missing(d) else f"{d} (changed)" if c is True else d
                      for d, c in zip(df["data"], df["data_changed"])]
     shown["changed"] = [", ".join(w for w, flag in (("spec", s), ("pick", p)) if flag is True)

@@ -13,7 +13,7 @@ import pandas as pd
 from ..families import get_family
 from ..metrics import metric_label
 from .results import Comparison, Picks
-from .views import CLEAR_P, cell_text, mean_se, number, p_text, rule_label
+from .views import CLEAR_P, beside, cell_text, mean_se, p_text, rule_label
 
 __all__ = ["Decision", "decision"]
 
@@ -132,11 +132,11 @@ def decision(chosen: Picks, pairs: Comparison, importances=None) -> Decision:
         rows.append({"place": place, "model": r.model, "family": r.family,
                      "cell": cell_text(r.params, chosen.varying.get(r.model, [])),
                      "size": _size_text(r.family, _size(r)),
-                     "cv": mean_se(r.mean, r.se), "test": number(r.test),
+                     "cv": mean_se(r.mean, r.se), "test": beside(r.test, r.se),
                      "gap": "" if gap is None else mean_se(gap, se),
                      "wins": "" if wins is None else f"{wins} of {gaps[r.model][4]}",
                      "p": p_text(pv), "first": r.model == lm})
-    test_text = number(top["test"])  # empty where undefined (ROC AUC, a class absent)
+    test_text = beside(top["test"], top["se"])  # empty where undefined (ROC AUC, a class absent)
     said = [f"{lm} (a {top['family']} model) has the best cross-validated {name} of the "
             f"{rule} picks: {mean_se(top['mean'], top['se'])} over {facts.n_folds} folds "
             f"({better} is better)" + (f", and {test_text} on the test split." if test_text

@@ -108,6 +108,18 @@ def mean_se(mean, se, digits: int = 4) -> str:
     return f"{fixed(mean, places)} ± {fixed(se, places)}"
 
 
+def beside(value, se, digits: int = 4) -> str:
+    """A score shown beside a CV 'mean ± SE' (such as the test score): to the same decimal
+    places as that mean, so a column's decimals line up and trailing zeros stay; `digits`
+    significant digits where the row has no usable SE."""
+    if is_missing(value):
+        return ""
+    places = decimals_for(se)
+    if places is None or not math.isfinite(float(value)):
+        return number(value, digits)
+    return fixed(value, places)
+
+
 def p_text(p) -> str:
     """A p-value as it is shown everywhere: 'p < 0.001' or 'p ≈ 0.012'."""
     if p is None or (isinstance(p, float) and math.isnan(p)):
@@ -347,7 +359,7 @@ def summary_view(result: Summary) -> View:
         if f"cv_{m}" not in df:
             continue
         shown[cv_head(m)] = [mean_se(a, b) for a, b in zip(df[f"cv_{m}"], df[f"se_{m}"])]
-        shown[test_head(m)] = df[f"test_{m}"].map(number)
+        shown[test_head(m)] = [beside(t, e) for t, e in zip(df[f"test_{m}"], df[f"se_{m}"])]
         numeric += [cv_head(m), test_head(m)]
     title = (f"sweep {facts.sweep_id}: picked cell per model ({rule_label(result.rule)} "
              f"rule) by CV {metric_label(facts.metric)}")
@@ -409,7 +421,7 @@ def picks_view(result: Picks) -> View:
                                                r.mean_leaves),
                     f"{prefix}rank": number(int(r.complexity_rank)),
                     f"{prefix}{cv_head(m)}": mean_se(r.mean, r.se),
-                    f"{prefix}{test_head(m)}": number(r.test)}
+                    f"{prefix}{test_head(m)}": beside(r.test, r.se)}
             row.update(cols)
             numeric += list(cols)[1:]
         if result.rules == ("one_se",):
@@ -521,7 +533,7 @@ def complexity_view(result: ComplexityTable) -> View:
                           if se_best else "")
                        for v in df["mean"]]
         numeric.append(head)
-    shown[test_head(m)] = df["test"].map(number)
+    shown[test_head(m)] = [beside(t, e) for t, e in zip(df["test"], df["se"])]
     numeric.append(test_head(m))
     bar = result.threshold
     op = "≤" if facts.better_of() == "lower" else "≥"
