@@ -95,3 +95,16 @@ def test_a_test_score_keeps_the_decimals_of_the_cv_mean_beside_it(tmp_path):
     assert picks_view(picks(store)).table.filter(like="test R²").iloc[0].tolist() \
         == ["0.8050", "0.8050"]
     assert complexity_view(complexity_table(store, "m")).table["test R²"].tolist() == ["0.8050"]
+
+
+def test_a_test_difference_keeps_the_decimals_of_the_cv_difference_beside_it(tmp_path):
+    # −1.2 beside −1.000 ± 0.058 reads −1.200, not "−1.2".
+    from .store_builder import write_sweep
+
+    store = write_sweep(tmp_path / "s.duckdb", {"a": [[1.0, 1.2, 0.9, 1.1]],
+                                                "b": [[2.0, 2.1, 1.9, 2.2]]}, k=2, repeats=2,
+                        tests={"a": [1.0], "b": [2.2]})
+    shown = compare_view(compare(store)).table
+    cv = shown["CV RMSE a − b (mean ± SE)"].iloc[0]
+    places = len(cv.split(" ± ")[1].split(".")[1])
+    assert shown["test RMSE a − b"].iloc[0] == f"{1.0 - 2.2:.{places}f}".replace("-", "−")

@@ -449,7 +449,8 @@ def compare_view(result: Comparison) -> View:
         "t": df["t"].map(number), "p": df["p_value"].map(p_text),
         "Holm p": df["p_holm"].map(p_text),
         "folds won a : b": [f"{a} : {b}" for a, b in zip(df["wins_a"], df["wins_b"])],
-        f"test {metric_label(m)} a − b": df["test_diff"].map(number)})
+        f"test {metric_label(m)} a − b": [beside(d, e) for d, e in
+                                          zip(df["test_diff"], df["se"])]})
     n = result.facts.n_folds
     title = (f"sweep {result.facts.sweep_id}: {rule_label(result.rule)} cells paired on {n} "
              f"folds, CV {metric_label(m)} ({result.better} is better); corrected resampled "
