@@ -469,7 +469,8 @@ def test_a_server_store_of_schema_version_2_is_upgraded(pg, tmp_path, diabetes_c
     spec = load_spec(write_spec(tmp_path, MODELS))
     run_sweep(spec, store=Store(url), jobs=1)
     pg.psql("drop table findings; alter table sweeps drop column scheme, drop column "
-            "plan_column, drop column plan, drop column checks_key; alter table cells drop "
+            "plan_column, drop column plan, drop column checks_key, drop column n_features; "
+            "alter table cells drop "
             "column complexity_tier; update foldwise_meta set value = '2' where key = "
             "'schema_version'", name)
     upgraded = Store(url)
@@ -483,6 +484,7 @@ def test_a_server_store_of_schema_version_2_is_upgraded(pg, tmp_path, diabetes_c
                    name).strip() == str(SCHEMA_VERSION)
     assert pg.psql(f"select scheme from sweeps where sweep_id = '{again.sweep_id}'",
                    name).strip() == "rows"
+    assert upgraded.query("select count(n_features) as n from sweeps")["n"][0] == 1  # new only
 
 
 def test_a_metric_added_by_two_sweeps_at_once_is_run_again_other_duplicates_are_not():

@@ -30,6 +30,7 @@ def test_export_then_merge_into_an_empty_store_gives_every_table_equal(explained
     assert counts["fold_scores"] > 0 and counts["tree_folds"] > 0 and counts["importances"] > 0
     tiers = _table(store, "cells")["complexity_tier"]
     assert tiers.notna().all() and (tiers >= 0).all()  # carried below with every column
+    assert (_table(store, "sweeps")["n_features"] > 0).all()
     target = Store(tmp_path / "back.duckdb")
     result = merge_store(target, tmp_path / "out")
     assert result.rows == counts
@@ -198,7 +199,7 @@ def _as_version_2(path):
     with duckdb.connect(str(path)) as con:
         con.execute("drop view cell_summary")
         con.execute("drop table findings")
-        for column in ("scheme", "plan_column", "plan", "checks_key"):
+        for column in ("scheme", "plan_column", "plan", "checks_key", "n_features"):
             con.execute(f"alter table sweeps drop column {column}")
         con.execute("update foldwise_meta set value = '2' where key = 'schema_version'")
 
@@ -213,8 +214,8 @@ def test_a_store_of_schema_version_2_is_upgraded_and_merges(explained, tmp_path)
     assert result.new_sweeps == [sweep_id] and result.rows["findings"] == 0
     assert len(_table(fresh, "fold_scores")) == len(_table(store, "fold_scores"))
     upgraded = Store(old.path)
-    assert upgraded.query("select scheme, plan_column, checks_key from sweeps").isna().all(
-        axis=None)
+    assert upgraded.query("select scheme, plan_column, checks_key, n_features from sweeps"
+                          ).isna().all(axis=None)
     assert upgraded.query("select count(*) as n from findings")["n"].tolist() == [0]
     assert upgraded.query("select value from foldwise_meta")["value"].tolist() == \
         [str(SCHEMA_VERSION)]

@@ -9,7 +9,7 @@ from pathlib import Path
 __all__ = ["SCHEMA_VERSION", "DEFAULT_STORE", "TABLE_SQL", "VIEW_SQL", "TABLES", "MODEL_TABLES",
            "SINCE", "UPGRADE_COLUMNS"]
 
-SCHEMA_VERSION = 4
+SCHEMA_VERSION = 5
 """2: cells.position keeps spec order explicit (a server table has no insertion order).
 3: classes (sweeps.task and .classes, tree_nodes.label, test_predictions of classes), built
 models (`models`, `model_coefficients`), the signed coefficients of explained linear cells
@@ -19,7 +19,10 @@ cell's refit (explained.n_terms), the fold scheme (sweeps.scheme, .plan_column,
 .checks_key) and the leakage checks' `findings`; new tables by `create table if not
 exists`, new columns by UPGRADE_COLUMNS.
 4: cells.complexity_tier, shared by equally simple cells (NULL in cells an older foldwise
-wrote: their picks order by complexity_rank alone, as before)."""
+wrote: their picks order by complexity_rank alone, as before).
+5: sweeps.n_features, the feature columns the models were given (NULL in sweeps an older
+foldwise wrote: a forest's fractional max_features on its grid's edge is then noted
+whatever number of columns it means, as before)."""
 DEFAULT_STORE = Path("results") / "foldwise.duckdb"
 
 TABLE_SQL = """
@@ -31,7 +34,7 @@ create table if not exists sweeps (
     metrics varchar, pick_rule varchar, started_at timestamp, finished_at timestamp,
     status varchar, versions json, host varchar, user_name varchar, pid integer,
     n_reused integer, task varchar, classes json, note varchar, plan json, scheme varchar,
-    plan_column varchar, checks_key varchar);
+    plan_column varchar, checks_key varchar, n_features integer);
 create table if not exists sweep_labels (
     sweep_id varchar, key varchar, value varchar, primary key (sweep_id, key));
 create table if not exists metrics (metric varchar primary key, better varchar);
@@ -124,6 +127,7 @@ UPGRADE_COLUMNS = (
     ("test_predictions", "probabilities double[]"), ("explained", "n_terms integer"),
     ("sweeps", "scheme varchar"), ("sweeps", "plan_column varchar"),
     ("sweeps", "checks_key varchar"), ("cells", "complexity_tier integer"),
+    ("sweeps", "n_features integer"),
 )
 """(table, column definition) added since a table was first created: an older store gains
 them on upgrade (idempotent: `add column if not exists`)."""
