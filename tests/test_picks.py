@@ -638,6 +638,26 @@ def _cells(name, values, **fixed):
     return [{name: v, **fixed} for v in values]
 
 
+FRACTIONS = [  # (n_features, max_features tried, picked, expected edges); scikit-learn draws
+    # max(1, int(max_features * n_features)) columns per split (its documented rule)
+    (5, [0.1, 0.5], 0.1, []),  # one column: nothing lower draws fewer
+    (20, [0.1, 0.5], 0.1, [("max_features", "low", 0.1)]),  # two columns
+    (None, [0.1, 0.5], 0.1, [("max_features", "low", 0.1)]),  # count unknown: as before
+    (1, [0.5, 0.99], 0.99, []),  # the one column there is: all of them
+    (100, [0.5, 0.99], 0.99, [("max_features", "high", 0.99)]),  # 99 of 100
+]
+
+
+@pytest.mark.parametrize("n_features,tried,picked,expected", FRACTIONS)
+def test_grid_edges_of_a_fraction_count_the_columns_it_draws(n_features, tried, picked,
+                                                             expected):
+    from runner.read.picks import grid_edges
+
+    cells = _cells("max_features", tried)
+    assert grid_edges("forest", cells, {"max_features": picked},
+                      n_features=n_features) == expected
+
+
 EDGES = [  # (family, cells, picked, mean leaves, expected edges)
     ("linear", _cells("alpha", [0.001, 0.01, 3.0], penalty="l1"),
      {"alpha": 0.001, "penalty": "l1"}, None, [("alpha", "low", 0.001)]),
@@ -700,3 +720,68 @@ def test_edge_picks_are_said_in_run_pick_and_the_report(tmp_path, diabetes_csv):
     assert best in out.stderr and one_se in out.stderr
     page = html.unescape(render_report(Store(store)))
     assert best.removeprefix("note: ") in page and "Picks on the edge of their grid" in page
+
+
+def _forest_sweep(folder, fractions):
+    """A finished sweep of a forest over `fractions` of max_features, on a generated frame of
+    four numeric columns and one text column (60 rows); returns the store file."""
+    rng = np.random.default_rng(5)
+    df = pd.DataFrame(rng.normal(size=(60, 4)), columns=["a", "b", "c", "d"])
+    df["site"] = rng.choice(["north", "south", "west"], size=60)
+    df["y"] = 2 * df["a"] - df["b"] + (df["site"] == "west") + rng.normal(scale=0.3, size=60)
+    df.to_csv(folder / "d.csv", index=False)
+    (folder / "spec.yaml").write_text(
+        "name: fractions\ndata: {path: d.csv, target: y, categorical: [site]}\n"
+        "test: {fraction: 0.25, seed: 1}\nfolds: {k: 3, repeats: 1, seed: 2}\n"
+        "store: s.duckdb\nexplain: {cells: none}\nmodels:\n"
+        f"  forest: {{family: forest, grid: {{n_estimators: [5], max_features: {fractions}}}}}\n")
+    out = CliRunner().invoke(main, ["run", str(folder / "spec.yaml"), "--jobs", "1", "-q"])
+    assert out.exit_code == 0, out.output
+    return folder / "s.duckdb"
+
+
+def _max_features_edges(store):
+    from runner.store import Store
+
+    edges = read_picks(Store(store)).edges
+    return edges[edges["param"] == "max_features"][["rule", "side", "value"]].values.tolist()
+
+
+def test_a_fraction_of_max_features_that_draws_one_column_is_not_said_to_be_on_an_edge(
+        tmp_path):
+    from runner.families.forest import make_estimator
+    from runner.read.picks import columns_drawn
+    from runner.store import Store
+    from runner.write.data import load_frame
+    from runner.write.spec import parse_spec
+
+    # 0.1 and 0.15 of 5 columns both draw max(1, int(0.5)) = max(1, int(0.75)) = 1 column
+    # (scikit-learn's rule for a fractional max_features), so the two forests are the same,
+    # the tie goes to the simpler 0.1, and nothing lower could draw fewer columns.
+    one = _forest_sweep(tmp_path, [0.1, 0.15])
+    assert _max_features_edges(one) == []
+    # 0.4 and 0.45 both draw int(2.0) = int(2.25) = 2 columns: going lower would draw 1.
+    (tmp_path / "two").mkdir()
+    two = _forest_sweep(tmp_path / "two", [0.4, 0.45])
+    assert _max_features_edges(two) == [["best", "low", 0.4], ["one_se", "low", 0.4]]
+    out = CliRunner().invoke(main, ["pick", "--store", str(two)])
+    assert "extend the grid of max_features below 0.4" in out.stderr
+    assert "max_features" not in CliRunner().invoke(main, ["pick", "--store", str(one)]).stderr
+
+    # The stored count is the forest's own n_features_in_: the text column is one ordinal
+    # column (one-hot it would be three), checked against scikit-learn's fitted forest.
+    spec = parse_spec((tmp_path / "spec.yaml").read_text(), source=tmp_path / "spec.yaml")
+    frame = load_frame(spec)
+    forest = make_estimator({"n_estimators": 5, "max_features": 0.1}, seed=0,
+                            numeric=frame.numeric, categorical=frame.categorical)
+    forest.fit(frame.X, frame.y)
+    facts = read_picks(Store(one)).facts
+    assert facts.n_features == forest.steps[-1][1].n_features_in_ == 5
+    assert forest.steps[-1][1].estimators_[0].max_features_ == columns_drawn(0.1, 5) == 1
+
+    # A store of schema 4 records no count: read, it gains the column empty, and the note is
+    # given as before.
+    with duckdb.connect(str(one)) as con:
+        con.execute("alter table sweeps drop column n_features")
+        con.execute("update foldwise_meta set value = '4' where key = 'schema_version'")
+    assert _max_features_edges(one) == [["best", "low", 0.1], ["one_se", "low", 0.1]]

@@ -103,6 +103,16 @@ def test_any_complexity_tier_a_store_holds_is_read(bases, tmp_path, mutation, co
         assert table.loc[table["one_se"], "within_one_se"].all()
 
 
+@pytest.mark.parametrize("mutation", ["null", "negative", "zero", "huge"])
+def test_any_feature_count_a_store_holds_is_read(bases, tmp_path, mutation):
+    """A count that is not a whole number of at least 1 is unknown: the picks' edge notes
+    are then those of an older store; a huge one is only a number to compare with."""
+    _, argvs = _copy(bases, "regression", Case("sweeps", "n_features", mutation), tmp_path)
+    for command in ("pick", "summary", "report"):
+        out = _run(argvs[command])
+        assert out.exit_code == 0 and "Error" not in out.output, (command, out.output)
+
+
 @pytest.mark.parametrize("value", [float("nan"), float("inf"), float("-inf")])
 @pytest.mark.parametrize("command", ["summary", "pick", "compare", "path tree", "diff",
                                      "history", "plot models"])

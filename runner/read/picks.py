@@ -14,7 +14,7 @@ from ..errors import QueryError
 from ..families import get_family
 
 __all__ = ["RULES", "SE_KINDS", "TOLERANCE", "best_index", "one_se_index", "one_se_threshold",
-           "corrected_variance", "standard_error", "check_rule", "check_se", "grid_edges"]
+           "corrected_variance", "standard_error", "check_rule", "check_se", "grid_edges", "columns_drawn"]
 
 RULES = ("best", "one_se")
 SE_KINDS = ("plain", "corrected")
@@ -124,15 +124,33 @@ def _beyond(param, value, side: str) -> bool:
     return top is None or value < top
 
 
+def columns_drawn(fraction: float, n_features: int) -> int:
+    """The columns a forest draws at each split for a fractional max_features, by
+    scikit-learn's rule max(1, int(max_features * n_features_in_))."""
+    return max(1, int(fraction * n_features))
+
+
+def _drawn_at_end(value: float, side: str, n_features: int | None) -> bool:
+    """Whether a fraction of `n_features` columns already draws one column (low side) or
+    every column (high side), so that going further on `side` draws the same columns."""
+    if n_features is None:
+        return False
+    drawn = columns_drawn(value, n_features)
+    return drawn <= 1 if side == "low" else drawn >= n_features
+
+
 def grid_edges(family: str, cells: Sequence[dict], picked: dict,
-               leaves: float | None = None) -> list[tuple[str, str, float]]:
+               leaves: float | None = None, *,
+               n_features: int | None = None) -> list[tuple[str, str, float]]:
     """The parameters whose picked value is the lowest or highest of the model's grid where
     the grid could go further: [(name, 'low' or 'high', value)].
 
     Only numbers that vary among the model's cells count. An edge that is also the
     parameter's bound (alpha or ccp_alpha 0, min_samples_leaf 1, a fraction of 1) cannot be
     extended; nor can the high side of a grid holding null where null means unlimited or
-    all (max_depth, max_features); nor the simpler side of a one-leaf tree."""
+    all (max_depth, max_features); nor the simpler side of a one-leaf tree; nor a fraction
+    of max_features that already draws one column of `n_features` (low side) or all of them
+    (high side), where the sweep recorded how many feature columns the models were given."""
     fam = get_family(family)
     out = []
     for name, value in sorted(picked.items()):
@@ -148,6 +166,8 @@ def grid_edges(family: str, cells: Sequence[dict], picked: dict,
         if side is None or not _beyond(param, value, side):
             continue
         if side == "high" and any(v is None for v in seen):
+            continue
+        if param.kind == "max_features" and _drawn_at_end(value, side, n_features):
             continue
         simpler_side = {"higher": "high", "lower": "low"}.get(param.simpler or "")
         if fam.one_tree and leaves is not None and leaves <= 1 and side == simpler_side:

@@ -137,7 +137,7 @@ def sweep_facts(store: Store, sweep_id: str | None = None) -> SweepFacts:
     sweep_id = store.resolve_sweep(sweep_id)
     row = store.query("""select name, target, metrics, k, repeats, pick_rule, task,
                                 classes::varchar as classes,
-                                coalesce(scheme, 'rows') as scheme
+                                coalesce(scheme, 'rows') as scheme, n_features
                          from sweeps where sweep_id = ?""", [sweep_id]).iloc[0]
     _check_recorded(store, sweep_id, row)
     check_cells(store, [sweep_id])
@@ -158,7 +158,7 @@ def sweep_facts(store: Store, sweep_id: str | None = None) -> SweepFacts:
                       k=int(row["k"]), repeats=int(row["repeats"]),
                       rule=str(row["pick_rule"] or "best"),
                       task=_task(store, sweep_id, row), classes=_classes(row["classes"]),
-                      scheme=str(row["scheme"]))
+                      scheme=str(row["scheme"]), n_features=_count(row["n_features"]))
 
 
 def _task(store: Store, sweep_id: str, row) -> str:
@@ -540,14 +540,15 @@ def picks(store: Store, sweep_id: str | None = None, *, rule: str | None = None,
         order by j.model_row, p.rule""", [*args, rules])
     df = df.drop(columns=["model_row"]).reset_index(drop=True)
     return Picks(facts, tuple(rules), se, df, coverage(store, facts, model=model),
-                 varying_params(store, facts.sweep_id), _edges(store, facts.sweep_id, df))
+                 varying_params(store, facts.sweep_id), _edges(store, facts, df))
 
 
-def _edges(store: Store, sweep_id: str, picked: pd.DataFrame) -> pd.DataFrame:
+def _edges(store: Store, facts: SweepFacts, picked: pd.DataFrame) -> pd.DataFrame:
     """Each picked cell's parameters on the edge of its model's grid (`picks.grid_edges`)."""
     import pandas as pd
 
-    cells = store.query("select model, params from cells where sweep_id = ?", [sweep_id])
+    cells = store.query("select model, params from cells where sweep_id = ?",
+                        [facts.sweep_id])
     grids: dict[str, list[dict]] = {}
     for model, params in zip(cells["model"], cells["params"]):
         grids.setdefault(model, []).append(json.loads(params))
@@ -555,7 +556,8 @@ def _edges(store: Store, sweep_id: str, picked: pd.DataFrame) -> pd.DataFrame:
     for r in picked.itertuples(index=False):
         leaves = None if pd.isna(r.mean_leaves) else float(r.mean_leaves)
         for name, side, value in grid_edges(r.family, grids.get(r.model, []),
-                                            json.loads(r.params), leaves):
+                                            json.loads(r.params), leaves,
+                                            n_features=facts.n_features):
             rows.append({"model": r.model, "family": r.family, "rule": r.rule, "param": name,
                          "side": side, "value": value})
     return pd.DataFrame(rows, columns=["model", "family", "rule", "param", "side", "value"])

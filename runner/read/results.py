@@ -38,6 +38,7 @@ class SweepFacts:
     task: str = "regression"
     classes: tuple = ()  # class labels in the models' probability order (classification)
     scheme: str = "rows"  # how the folds cut the rows: rows, groups or time
+    n_features: int | None = None  # the feature columns the models were given (None: unknown)
 
     @property
     def ordered(self) -> bool:
