@@ -9,6 +9,7 @@ import re
 from pathlib import Path
 
 import matplotlib.colors as mcolors
+import numpy as np
 import pytest
 
 from runner.read.explained import tree_node_table
@@ -239,3 +240,38 @@ def test_the_threshold_label_goes_to_the_end_farther_from_the_picks(marked_x, si
     assert _clear_side(ax, marked_x, [0, 1], 0.0) == side
     ax.invert_xaxis()  # a reversed axis (larger alpha simpler, drawn left) swaps the ends
     assert _clear_side(ax, marked_x, [0, 1], 0.0) == 1.0 - side
+
+
+def _svg_points(d: str) -> np.ndarray:
+    """The points of an SVG path's data (every coordinate pair, in order)."""
+    numbers = [float(v) for v in re.findall(r"-?[0-9.]+", d)]
+    return np.array(numbers).reshape(-1, 2)
+
+
+def test_neighbouring_models_differ_by_shape_and_pattern_not_by_colour_alone():
+    from matplotlib.markers import MarkerStyle
+
+    from runner.read.looks import PALETTE, look_of, look_svg
+
+    looks = [look_of(i) for i in range(72)]
+    assert len({lk.marker for lk in looks[:6]}) == 6 and len({lk.dash for lk in looks[:6]}) == 6
+    assert len({(lk.marker, lk.dash) for lk in looks[:36]}) == 36  # in greyscale too
+    assert len(set(looks)) == 72 and [lk.colour for lk in looks[:8]] == PALETTE
+    for look in looks[:6]:
+        svg = look_svg(look)
+        assert f'data-marker="{look.marker}"' in svg and f'stroke="{look.colour}"' in svg
+        # the point is matplotlib's own outline of the marker (MarkerStyle's path), 8 px
+        # across, centred on the swatch (20, 7), y pointing down
+        style = MarkerStyle(look.marker)
+        outline = style.get_path().transformed(style.get_transform()).vertices
+        d = re.search(r'<path d="([^"]+)"', svg).group(1)
+        drawn = _svg_points(d)
+        expected = np.column_stack([20 + 8 * outline[:, 0], 7 - 8 * outline[:, 1]])
+        expected = expected[:len(drawn)]  # a closing vertex is Z, not a point
+        assert np.allclose(drawn, expected, atol=0.006)
+        # the pattern is matplotlib's, scaled by the line's width of 1.6 as matplotlib does
+        dash = re.search(r'data-dash="([^"]+)"', svg).group(1)
+        assert dash == ("solid" if look.dash == "solid" else
+                        " ".join(f"{v * 1.6:g}" for v in look.dash[1]))
+        assert ("stroke-dasharray" in svg) == (look.dash != "solid")
+

@@ -157,9 +157,10 @@ def _marker_of(collection) -> str:
 
 def test_ten_models_each_wear_a_look_of_their_own_in_the_models_and_complexity_figures(
         tmp_path):
-    """The palette holds 8 colours: models 9 and 10 share the colours of models 1 and 2,
-    and differ from them by point shape and line pattern; the first 8 keep round points
-    and solid lines. Read back from the artists matplotlib drew."""
+    """The palette holds 8 colours and 6 point shapes: every model's shape steps on with its
+    colour, so no two neighbours share one, and models 9 and 10 (the colours of models 1
+    and 2) differ from those by shape; only the first model's line is solid. Read back from
+    the artists matplotlib drew."""
     import matplotlib.colors as mc
     from matplotlib.collections import PathCollection
 
@@ -180,7 +181,7 @@ def test_ten_models_each_wear_a_look_of_their_own_in_the_models_and_complexity_f
             for m in names]
     assert len(set(seen)) == 10, seen
     assert [c for c, _ in seen] == [mc.to_hex(c) for c in PALETTE + PALETTE[:2]]
-    assert [k for _, k in seen] == ["o"] * 8 + ["s"] * 2
+    assert [k for _, k in seen] == ["o", "s", "^", "v", "p", "h", "o", "s", "^", "v"]
     (png,) = save_figure(fig, tmp_path / "models", ("png",), dpi=80)
     with Image.open(png) as im:
         assert np.asarray(im.convert("L"), dtype=float).std() > 5
@@ -194,7 +195,7 @@ def test_ten_models_each_wear_a_look_of_their_own_in_the_models_and_complexity_f
         (mark,) = marks
         looks.append((mc.to_hex(mean.get_color()), mark, mean.get_linestyle()))
     assert len({(c, k) for c, k, _ in looks}) == 10, looks
-    assert [d for _, _, d in looks] == ["-"] * 8 + ["--"] * 2  # solid, then a dash pattern
+    assert [d for _, _, d in looks] == ["-"] + ["--"] * 9  # solid, then dash patterns
     (png,) = save_figure(ax.figure, tmp_path / "complexity", ("png",), dpi=80)
     with Image.open(png) as im:
         assert im.size == tuple(round(v * 80) for v in ax.figure.get_size_inches())

@@ -6,9 +6,8 @@ compare fold by fold?), `importance` (which columns does each model rely on?),
 `predictions` (how close are the test predictions?), `tree` (how does the picked
 pruned tree split the rows?; drawn in tree_figures.py) and `history` (how has each pick
 moved across sweeps?; drawn in history_figures.py). Figures are made without pyplot, so no
-GUI backend is touched; files are written with Agg (PNG) and the SVG backend. Colours
-follow the Okabe–Ito palette, which stays distinct under the common colour-vision
-deficiencies."""
+GUI backend is touched; files are written with Agg (PNG) and the SVG backend. Each model
+wears one look (looks.py: colour, point shape and line pattern) in every figure."""
 
 from __future__ import annotations
 
@@ -16,13 +15,13 @@ import io
 import math
 import textwrap
 from contextlib import contextmanager
-from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
 
 from ..errors import QueryError
 from ..families import get_family
+from .looks import DASHES, MARKERS, PALETTE, Look, look_of, look_svg
 from .filenames import check_folder, check_replaceable, inside, make_folder, write_whole
 from ..metrics import get_metric, metric_label
 from .picks import check_rule
@@ -35,12 +34,8 @@ from .views import number, params_text, rule_label
 
 __all__ = ["PALETTE", "NEUTRALS", "complexity_figure", "models_figure", "importance_figure",
            "predictions_figure", "save_figure", "figure_svg",
-           "model_colours", "model_looks", "look_of", "Look", "MARKERS", "DASHES",
+           "model_colours", "model_looks", "look_of", "look_svg", "Look", "MARKERS", "DASHES",
            "IMAGE_MARKS", "image_paths", "figure_bytes", "write_images"]
-
-PALETTE = ["#0072B2", "#E69F00", "#009E73", "#CC79A7", "#56B4E9", "#D55E00", "#F0E442",
-           "#000000"]
-"""Okabe–Ito colours, ordered so the first few differ most on a white page."""
 
 NEUTRALS = {"ink": "#272b28", "muted": "#646b65", "rule": "#cdd3cd", "grid": "#e4e8e3",
             "wash": "#f2f4f1", "paper": "#fbfcfa"}
@@ -72,34 +67,6 @@ def _figure(width: float, height: float):
     from matplotlib.figure import Figure
 
     return Figure(figsize=(width, height), layout="constrained")
-
-
-MARKERS = ("o", "s", "^", "v", "p", "h")
-"""A model's point shape, one per round of the palette: the first 8 models are round, the
-next 8 square, and so on (never the star, ring, diamond or cross that mark picks and test
-scores)."""
-
-DASHES = ("solid", (0, (5, 2)), (0, (1.5, 1.5)), (0, (6, 2, 1.5, 2)), (0, (3, 3)),
-          (0, (8, 2, 1.5, 2, 1.5, 2)))
-"""A model's line pattern, one per round of the palette with its shape: where a figure draws
-a model as a line only, the pattern tells apart two models of one colour."""
-
-
-@dataclass(frozen=True)
-class Look:
-    """How one model is drawn in every figure: its colour, point shape and line pattern."""
-
-    colour: str
-    marker: str
-    dash: object
-
-
-def look_of(position: int) -> Look:
-    """The look of the model at this place in spec order: the palette's colour, with the
-    shape and line pattern of the round of the palette it falls in (48 models differ)."""
-    turn = position // len(PALETTE)
-    return Look(PALETTE[position % len(PALETTE)], MARKERS[turn % len(MARKERS)],
-                DASHES[turn % len(DASHES)])
 
 
 def model_looks(store: Store, sweep_id: str) -> dict[str, Look]:
