@@ -275,3 +275,22 @@ def test_neighbouring_models_differ_by_shape_and_pattern_not_by_colour_alone():
                         " ".join(f"{v * 1.6:g}" for v in look.dash[1]))
         assert ("stroke-dasharray" in svg) == (look.dash != "solid")
 
+
+def test_the_report_shows_each_models_shape_and_pattern_beside_its_name(explained):
+    from runner.read.looks import look_of
+
+    _, store, sid = explained
+    page = render_report(store, sid)
+    assert "Colours of the models" not in page and "chips" not in page
+    assert "Each model wears one colour, point shape and line pattern in every figure" in page
+    legend = page[page.index('<span class="looks">'):]
+    legend = legend[:legend.index("</p>")]
+    shown = re.findall(r'<span><svg class="look"[^>]* data-marker="([^"]+)" '
+                       r'data-dash="([^"]+)"><title>([^<]+)</title>.*?</svg> (\w+)</span>',
+                       legend)
+    assert [name for *_, name in shown] == ["ridge", "tree", "forest"]
+    assert [m for m, *_ in shown] == ["o", "s", "^"]
+    assert len({dash for _, dash, *_ in shown}) == 3
+    assert [words for _, _, words, _ in shown] == [look_of(i).words for i in range(3)]
+    assert shown[0][2] == "round points, solid line"
+

@@ -16,8 +16,8 @@ from .filenames import (check_replaceable, inside, make_folder, safe_component,
                         write_whole)
 from ..metrics import get_metric, metric_label
 from .class_figures import calibration_figure, roc_figure
-from .plots import (NEUTRALS, complexity_figure, figure_svg, importance_figure,
-                    model_colours, models_figure, predictions_figure)
+from .plots import (NEUTRALS, complexity_figure, figure_svg, importance_figure, look_svg,
+                    model_looks, models_figure, predictions_figure)
 from .explained import importance_table, stability_table, tree_fold_table
 from .queries import (compare, complexity_table, findings, picks, summary, sweep_facts,
                       sweep_record)
@@ -96,12 +96,12 @@ def report_context(store: Store, sweep_id: str | None = None, *, se: str = "plai
     sweep = sweep_record(store, sid)
     counts = sweep.pop("counts")
     versions = __import__("json").loads(sweep["versions"]) if sweep.get("versions") else {}
-    colours = model_colours(store, sid)
+    looks = model_looks(store, sid)
     rule_picks = picks(store, sid, rule=facts.rule, se=se)
     pairs = compare(store, sid, se=se)
     imp = importance_table(store, sid)
     complexity = []
-    for i, model in enumerate(colours):
+    for i, model in enumerate(looks):
         table = complexity_table(store, model, sid, se=se)
         svg, why = (_svg(complexity_figure, f"cx{i}", store, model, sid, se=se)
                     if len(table.table) > 1 else (None, "a single cell: no curve to draw"))
@@ -139,7 +139,7 @@ def report_context(store: Store, sweep_id: str | None = None, *, se: str = "plai
         "time": time_text(seconds, counts["fit_seconds"]),
         "reuse": reuse_text(counts["cells"], counts["reused"], counts["reused_from"]),
         "metric_label": get_metric(metric).axis_label(facts.target),
-        "models": [{"name": m, "colour": c} for m, c in colours.items()],
+        "models": [{"name": m, "look": look_svg(look)} for m, look in looks.items()],
         "decision": decision(rule_picks, pairs, imp),
         "stability_sentences": stability_sentences(stab),
         "summary": _html(summary_shown), "summary_title": summary_shown.title,
