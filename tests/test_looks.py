@@ -10,6 +10,7 @@ from pathlib import Path
 
 import matplotlib.colors as mcolors
 import numpy as np
+import pandas as pd
 import pytest
 
 from runner.read.explained import tree_node_table
@@ -294,3 +295,41 @@ def test_the_report_shows_each_models_shape_and_pattern_beside_its_name(explaine
     assert [words for _, _, words, _ in shown] == [look_of(i).words for i in range(3)]
     assert shown[0][2] == "round points, solid line"
 
+
+def test_roc_curves_of_several_models_differ_by_shape_and_pattern(tmp_path):
+    """Every model's curve is drawn in one panel: each wears its own point shape and line
+    pattern as well as its colour, and so does its legend entry."""
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+
+    from runner.read.class_figures import roc_figure
+    from runner.read.looks import look_of
+    from runner.store import Store
+    from runner.write.engine import run_sweep
+    from runner.write.spec import parse_spec
+
+    rng = np.random.default_rng(4)
+    x = rng.normal(size=(150, 2))
+    df = pd.DataFrame({"a": x[:, 0], "b": x[:, 1],
+                       "y": np.where(x[:, 0] + 0.5 * rng.normal(size=150) > 0, "up", "down")})
+    df.to_csv(tmp_path / "d.csv", index=False)
+    path = tmp_path / "spec.yaml"
+    path.write_text("name: r\ndata: {path: d.csv, target: y}\ntest: {fraction: 0.3, seed: 1}\n"
+                    "folds: {k: 3, seed: 2}\nmetrics: [log_loss]\nstore: s.duckdb\n"
+                    "models:\n  logit: {family: linear}\n  tree: {family: pruned_tree}\n"
+                    "  forest: {family: forest, grid: {n_estimators: [10]}}\n")
+    store = Store(run_sweep(parse_spec(path.read_text(), source=path), jobs=1).store_path)
+    fig = roc_figure(store)
+    FigureCanvasAgg(fig).draw()
+    (ax,) = [a for a in fig.axes if a.get_visible()]
+    curves = {ln.get_gid()[len("roc "):]: ln for ln in ax.get_lines()
+              if str(ln.get_gid()).startswith("roc ")}
+    assert list(curves) == ["logit", "tree", "forest"]
+    drawn = [(ln.get_marker(), ln.get_linestyle(), mcolors.to_hex(ln.get_color()))
+             for ln in curves.values()]
+    assert [m for m, *_ in drawn] == [look_of(i).marker for i in range(3)] == ["o", "s", "^"]
+    assert [s for _, s, _ in drawn] == ["-", "--", "--"]  # solid, then two patterns
+    assert [curves[m]._unscaled_dash_pattern for m in ("tree", "forest")] == [
+        look_of(1).dash, look_of(2).dash]
+    legend = {t.get_text().split(" (")[0]: h for t, h in
+              zip(ax.get_legend().get_texts(), ax.get_legend().legend_handles)}
+    assert [legend[m].get_marker() for m in curves] == ["o", "s", "^"]

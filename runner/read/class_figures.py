@@ -146,7 +146,9 @@ def roc_figure(store: Store, sweep_id: str | None = None, *, rule: str | None = 
                 fpr, tpr, area = roc_points(scores, g["observed_class"] == str(label))
                 look = looks.get(model, look_of(0))
                 ax.plot(fpr, tpr, color=look.colour, linestyle=look.dash,
-                        linewidth=1.3, label=f"{model} (area {fixed(area, 3)})")
+                        marker=look.marker, markevery=0.12, markersize=4,
+                        markeredgecolor="white", markeredgewidth=0.4, linewidth=1.3,
+                        label=f"{model} (area {fixed(area, 3)})", gid=f"roc {model}")
             ax.set_title(f"class {label} against the rest" if len(classes) > 2
                          else f"class {label}", loc="left", fontsize=9)
             ax.set_aspect("equal")
