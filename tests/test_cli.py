@@ -205,3 +205,59 @@ def test_a_query_after_a_run_into_the_specs_store_says_where_queries_look(swept,
     assert "point --store (or $FOLDWISE_STORE) at an existing store: a spec's `store:` is " \
            "read by `run` and `check` only" in message
     assert invoke("summary", "--store", store).exit_code == 0
+
+
+def _colours(text: str) -> list[str]:
+    """The colour codes among a text's terminal style sequences (SGR 30-38, 40-48, 90-97,
+    100-107: foreground and background; bold and the like are not colours)."""
+    import re
+
+    found = []
+    for params in re.findall(r"\x1b\[([0-9;]*)m", text):
+        codes = [int(c) for c in params.split(";") if c]
+        found += [str(c) for c in codes if 30 <= c <= 48 or 90 <= c <= 107]
+    return found
+
+
+@pytest.mark.parametrize("no_colour", [True, False])
+def test_statuses_are_words_and_read_the_same_with_colour_off(tmp_path, monkeypatch,
+                                                              no_colour):
+    """On a terminal (forced, as FORCE_COLOR does) a sweep's status is its word: the tables
+    wear no colour, so NO_COLOR takes nothing away; the progress bar says done/total in
+    figures and, with NO_COLOR, draws only the part done."""
+    import io
+
+    from runner.commands.options import _ProgressBar
+
+    from .store_builder import write_sweep
+
+    env = {"FORCE_COLOR": "1", "NO_COLOR": "1" if no_colour else None}
+    store = tmp_path / "s.duckdb"
+    write_sweep(store, {"m": [[1.0, 2.0, 3.0, 4.0]]}, k=2, repeats=2)
+    write_sweep(store, {"m": [[1.0, 2.0, 3.0, 4.0]]}, k=2, repeats=2, status="failed",
+                sweep_id="20260101-000000-bbbb")
+    out = CliRunner(env=env).invoke(main, ["sweeps", "--store", str(store)])
+    assert out.exit_code == 0, out.output
+    assert "\x1b[1m" in out.output  # a terminal's styles were written (bold headings)
+    assert _colours(out.output) == []
+    rows = {line.split()[1]: line.split()[5] for line in out.output.splitlines()
+            if "20260101-000000-" in line}
+    assert rows == {"20260101-000000-aaaa": "finished", "20260101-000000-bbbb": "failed"}
+
+    for name, value in env.items():
+        if value is None:
+            monkeypatch.delenv(name, raising=False)
+        else:
+            monkeypatch.setenv(name, value)
+    monkeypatch.setattr(sys, "stderr", io.StringIO())
+    bar = _ProgressBar("run")
+    bar(3, 10)
+    bar.close()
+    drawn = sys.stderr.getvalue()
+    last = drawn.split("\r\x1b[2K")[-1]
+    assert "3/10" in last and "tasks" in last
+    if no_colour:
+        assert _colours(drawn) == []
+        assert last.count("━") == 12  # 3/10 of the 40-character bar; the rest left blank
+    else:
+        assert _colours(drawn)  # colour only adds to the words
