@@ -192,8 +192,24 @@ def test_a_class_written_as_a_missing_word_is_named_in_the_refusal(tmp_path):
     result = CliRunner().invoke(main, ["check", str(path)])
     assert result.exit_code == 2 and result.output.count("\n") == 1, result.output
     assert "has 31 missing values (first at file lines 2, 3, 5, 8, 11)" in result.output
-    assert "The file writes 'None' (30 rows) there, which pandas reads as a missing value; " \
-        "if that is a class, write it as another word" in result.output
+    assert "The file writes 'None' (30 rows) there, which pandas reads as a missing value " \
+        "by default; if that is a class, list in `data.missing_words` only the words that " \
+        "do mean missing" in result.output
+    # listed by the spec: the refusal says so; an empty list keeps the class 'None', and
+    # only the empty field is missing
+    for words, said in [("['None']", "has 31 missing values (first at file lines 2, 3, 5, 8, "
+                         "11). Drop those rows before the sweep: a row without a class can be "
+                         "neither fitted nor scored. The file writes 'None' (30 rows) there, "
+                         "which `data.missing_words` lists as missing; if that is a class, "
+                         "remove it from that list.\n"),
+                        ("[]", "has 1 missing values (first at file lines 3). Drop those rows "
+                         "before the sweep: a row without a class can be neither fitted nor "
+                         "scored.\n")]:
+        path.write_text(path.read_text().replace("target: outcome", "target: outcome\n"
+                                                 f"  missing_words: {words}", 1))
+        result = CliRunner().invoke(main, ["check", str(path)])
+        assert result.exit_code == 2 and result.output.endswith(said), result.output
+        path.write_text(path.read_text().replace(f"\n  missing_words: {words}", "", 1))
 
 
 def test_duplicate_rows_across_the_test_split(tmp_path):

@@ -22,7 +22,7 @@ from ..errors import DataError
 from ..families import nearest
 
 __all__ = ["Frame", "read_table", "load_frame", "file_sha256", "infer_task", "MAX_MAGNITUDE",
-           "MAX_CLASSES"]
+           "MAX_CLASSES", "missing_value_options"]
 
 _READERS = {".csv": "csv", ".parquet": "parquet", ".pq": "parquet"}
 
@@ -131,16 +131,32 @@ def data_kind(path: Path, role: str = "data file", hint: str = "Convert it or re
     return kind
 
 
-def read_table(path: Path, *, role: str = "data file", max_bytes: int | None = None
-               ) -> pd.DataFrame:
-    """Read a CSV or Parquet file into a DataFrame, or raise a DataError saying what is wrong."""
-    return _read(Path(path), role, max_bytes)[0]
+def missing_value_options(words: list[str] | None) -> dict:
+    """pandas.read_csv's options for the words read as missing values: its default list
+    (`words` None, as `data.missing_words` left out), else exactly `words` and the empty
+    field."""
+    if words is None:
+        return {}
+    return {"keep_default_na": False, "na_values": sorted({"", *words})}
 
 
-def _read(path: Path, role: str, max_bytes: int | None) -> tuple[pd.DataFrame, str]:
+def read_table(path: Path, *, role: str = "data file", max_bytes: int | None = None,
+               words: list[str] | None = None) -> pd.DataFrame:
+    """Read a CSV or Parquet file into a DataFrame, or raise a DataError saying what is wrong.
+    `words`: the words a CSV file's fields read as missing (None: pandas' default list)."""
+    return _read(Path(path), role, max_bytes, words)[0]
+
+
+def _read(path: Path, role: str, max_bytes: int | None, words: list[str] | None = None
+          ) -> tuple[pd.DataFrame, str]:
     """The table and the SHA-256 of the bytes it was read from (one open file for both)."""
     with _open_regular(path, role, max_bytes) as fh:
         kind = data_kind(path, role)
+        if kind == "parquet" and words is not None:
+            raise DataError(f"`data.missing_words` lists the words read as missing values in "
+                            f"CSV files, but {role} {path} is Parquet, which stores missing "
+                            "values as nulls and has no such words to read. Remove "
+                            "`data.missing_words` from the spec, or give the data as CSV.")
         # hashed on a second core while the table is parsed, where reads by offset exist
         hashing = ThreadPoolExecutor(1, thread_name_prefix="foldwise-sha256") \
             if hasattr(os, "pread") else None
@@ -148,7 +164,7 @@ def _read(path: Path, role: str, max_bytes: int | None) -> tuple[pd.DataFrame, s
         try:
             if kind == "csv":
                 _check_header(_csv_header(fh), role, path)
-                df = pd.read_csv(fh, encoding="utf-8")
+                df = pd.read_csv(fh, encoding="utf-8", **missing_value_options(words))
             else:
                 df = pd.read_parquet(fh)
         except DataError:
@@ -201,13 +217,18 @@ class Frame:
         return list(self.X.columns)
 
 
-def problem_identity(frame: Frame, infinite: str) -> dict:
+def problem_identity(frame: Frame, infinite: str, words: list[str] | None = None) -> dict:
     """What the models learn from the file: the target, the task, the feature columns in
-    order with their roles, and how infinite values were read. Part of every cell id, so
-    that another target or other features on the same file are other cells."""
-    return {"target": frame.target, "task": frame.task, "numeric": list(frame.numeric),
-            "categorical": list(frame.categorical), "features": frame.features,
-            "infinite": infinite}
+    order with their roles, and how infinite values and missing words were read. Part of
+    every cell id, so that another target or other features on the same file are other
+    cells. The words only when the spec lists them: pandas' default keeps the ids of
+    sweeps from before `data.missing_words`."""
+    problem = {"target": frame.target, "task": frame.task, "numeric": list(frame.numeric),
+               "categorical": list(frame.categorical), "features": frame.features,
+               "infinite": infinite}
+    if words is not None:
+        problem["missing_words"] = sorted(set(words))
+    return problem
 
 
 def _need_columns(df: pd.DataFrame, names, what: str, path: Path) -> None:
@@ -393,10 +414,12 @@ def infer_task(y: pd.Series, stated: str | None, target: str, path: Path,
 
 
 def _check_classes(y: pd.Series, target: str, path: Path, rows: _Rows,
-                   words: dict[str, int] | None = None) -> tuple[np.ndarray, list]:
+                   words: dict[str, int] | None = None, listed: bool = False
+                   ) -> tuple[np.ndarray, list]:
     """The class labels of every row (numbers stay numbers, so they sort as numbers) and
     the classes in scikit-learn's order (sorted). `words`: the words of the file that were
-    read as missing values in the target, with their rows."""
+    read as missing values in the target, with their rows; `listed`: whether the spec's
+    `data.missing_words` named them (else pandas' default list did)."""
     missing = y.isna().to_numpy()
     if missing.all():
         raise DataError(f"target column '{target}' of {path} is entirely missing.")
@@ -405,8 +428,12 @@ def _check_classes(y: pd.Series, target: str, path: Path, rows: _Rows,
         said = ""
         if words:
             shown = ", ".join(f"'{w}' ({n:,} rows)" for w, n in list(words.items())[:4])
-            said = (f" The file writes {shown} there, which pandas reads as a missing value; "
-                    "if that is a class, write it as another word (such as 'none_given').")
+            said = (f" The file writes {shown} there, which `data.missing_words` lists as "
+                    "missing; if that is a class, remove it from that list." if listed else
+                    f" The file writes {shown} there, which pandas reads as a missing value "
+                    "by default; if that is a class, list in `data.missing_words` only the "
+                    "words that do mean missing (the list replaces pandas' own), or write "
+                    "the class as another word (such as 'none_given').")
         raise DataError(f"target column '{target}' of {path} has {int(missing.sum())} missing "
                         f"values (first at file lines {', '.join(first)}). Drop those rows "
                         "before the sweep: a row without a class can be neither fitted nor "
@@ -484,7 +511,8 @@ def load_frame(spec, *, max_bytes: int | None = None) -> Frame:
     `test_mask` marks them, so the plan sees one table. Each file must be a regular file
     of at most `max_bytes` (None: any size)."""
     path = spec.resolve(spec.data.path)
-    df, sha = _read(path, "data file", max_bytes)
+    listed = spec.data.missing_words
+    df, sha = _read(path, "data file", max_bytes, listed)
     n_main = len(df)
     rows = _Rows(path, n_main)
     test_mask = None
@@ -498,7 +526,7 @@ def load_frame(spec, *, max_bytes: int | None = None) -> Frame:
         raise DataError(f"target '{target}' is also listed in `data.drop`; remove it there.")
     if spec.test.file is not None:
         test_path = spec.resolve(spec.test.file)
-        tdf, test_sha = _read(test_path, "test file", max_bytes)
+        tdf, test_sha = _read(test_path, "test file", max_bytes, listed)
         missing = [c for c in df.columns if c not in tdf.columns]
         if missing:
             raise DataError(f"test file {test_path} lacks columns of the data file: "
@@ -528,7 +556,8 @@ def load_frame(spec, *, max_bytes: int | None = None) -> Frame:
     if task == "classification":
         words = _missing_words(path, max_bytes, df.iloc[:n_main], [target]) \
             if df[target].isna().any() else {}
-        y, classes = _check_classes(df[target], target, path, rows, words.get(target))
+        y, classes = _check_classes(df[target], target, path, rows, words.get(target),
+                                    listed is not None)
     else:
         y, classes = _check_target(df[target], target, path, rows), []
     dropped += [c for c in plan_values if c not in spec.data.categorical and c not in dropped]
@@ -543,7 +572,8 @@ def load_frame(spec, *, max_bytes: int | None = None) -> Frame:
                  source=path, test_mask=test_mask, task=task, classes=classes,
                  plan_values=plan_values,
                  others=df[[c for c in dict.fromkeys(dropped) if c in df.columns]],
-                 missing_words=_missing_words(path, max_bytes, df.iloc[:n_main], cats))
+                 missing_words={} if listed is not None else
+                 _missing_words(path, max_bytes, df.iloc[:n_main], cats))
 
 
 def _missing_words(path: Path, max_bytes: int | None, df: pd.DataFrame,
@@ -551,7 +581,9 @@ def _missing_words(path: Path, max_bytes: int | None, df: pd.DataFrame,
     """Per text column of a CSV file: the words pandas' reader took for missing values
     ('None', 'NA', 'null', ...) and on how many rows, read again with no such words. Among
     a column's other words they may be levels ('None' for no irrigation) the models never
-    see. Empty fields are missing values and not counted."""
+    see. Empty fields are missing values and not counted. Of the features it is asked
+    only under pandas' default list: the words a spec's `data.missing_words` lists are
+    missing because the spec says so."""
     if data_kind(path) != "csv":
         return {}
     text = [c for c in columns if pd.api.types.is_string_dtype(df[c]) and df[c].isna().any()]

@@ -35,8 +35,9 @@ KINDS = {k.name: k for k in (
          "(an id-like name, or text with hundreds of levels; ten values or more, several "
          "rows each) has rows on both sides of a fold: set folds.groups to it"),
     Kind("missing_words", WARNING, "a text feature in which words such as 'None' or 'NA' "
-         "were read as missing values beside its other words: if they are levels, the models "
-         "never see them"),
+         "were read as missing values (pandas' default list) beside its other words: if they "
+         "are levels, the models never see them; data.missing_words says which words mean "
+         "missing"),
     Kind("split_overlap", ERROR, "a test file, column or test.groups that breaks the plan's "
          "promise: groups shared with the training rows (grouped plans), or test rows not after "
          "every training row (time-ordered plans)"),

@@ -77,11 +77,13 @@ def checks_key(spec, frame, identity: dict) -> str:
     """What the findings depend on, hashed: the data, the plan, the columns' roles and the
     accepted kinds. Two sweeps with one key have the same findings, so a rerun with nothing
     to fit reuses them instead of building the plan."""
-    payload = json.dumps({"data": frame.sha256, "plan": identity, "target": spec.data.target,
-                          "drop": sorted(spec.data.drop),
-                          "categorical": sorted(spec.data.categorical),
-                          "infinite": spec.data.infinite, "allow": sorted(spec.checks.allow),
-                          "version": CHECKS_VERSION}, sort_keys=True)
+    read = {"data": frame.sha256, "plan": identity, "target": spec.data.target,
+            "drop": sorted(spec.data.drop), "categorical": sorted(spec.data.categorical),
+            "infinite": spec.data.infinite, "allow": sorted(spec.checks.allow),
+            "version": CHECKS_VERSION}
+    if spec.data.missing_words is not None:  # left out, the key of earlier sweeps stands
+        read["missing_words"] = sorted(set(spec.data.missing_words))
+    payload = json.dumps(read, sort_keys=True)
     return hashlib.sha256(payload.encode()).hexdigest()
 
 
@@ -121,10 +123,11 @@ def _missing_words(frame) -> list[Finding]:
         shown = ", ".join(f"'{w}' ({n:,} rows)" for w, n in list(words.items())[:4])
         out.append(Finding("missing_words", col, float(rows), (
             f"text feature '{col}' holds {shown} that were read as missing values, beside "
-            f"its {frame.X[col].nunique():,} other words. If they mean 'none' or 'not "
-            "applicable' as a level, write that level as another word in the file (such "
-            "as 'none_given'), or the models never see them; if they are missing values, "
-            "leave those fields empty, or allow the kind in checks.allow.")))
+            f"its {frame.X[col].nunique():,} other words (pandas' default list). If they "
+            "mean 'none' or 'not applicable' as a level, set `data.missing_words` to the "
+            "words that do mean missing in this file ([] for none but empty fields), or "
+            "the models never see that level; if they are missing values, list them there "
+            "too, leave those fields empty, or allow the kind in checks.allow.")))
     return out
 
 

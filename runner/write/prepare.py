@@ -26,7 +26,7 @@ class Prepared:
     def __init__(self, spec: Spec, frame: Frame, cells: list[Cell] | None = None):
         self.spec, self.frame, self.cells = spec, frame, cells or []
         self.identity = plan_identity(spec, frame.task)
-        self.problem = problem_identity(frame, spec.data.infinite)
+        self.problem = problem_identity(frame, spec.data.infinite, spec.data.missing_words)
         self._plan: Plan | None = None
         self._split: dict | None = None
         self._split_only = False

@@ -59,6 +59,23 @@ class DataSpec(_Strict):
     infinite: Literal["refuse", "missing"] = Field(
         "refuse", description="infinite feature values: refuse the data (default) or treat "
         "them as missing values")
+    missing_words: list[str] | None = Field(
+        None, description="the words read as missing values in the CSV files the sweep "
+        "reads (the data, a test file, and the new rows given to a model it builds), in "
+        "place of pandas' default list ('NA', 'None', 'null', 'NaN', 'N/A', ...); an empty "
+        "field is always missing, so [] keeps every word as written. Left out: pandas' "
+        "list. Not for Parquet, whose missing values are nulls")
+
+    @field_validator("missing_words", mode="before")
+    @classmethod
+    def _words_are_text(cls, v):
+        for word in v if isinstance(v, list) else []:
+            if not isinstance(word, str):
+                raise ValueError(
+                    f"missing_words lists words as text, got {word!r}: YAML reads null, ~, "
+                    "true, false, yes, no and numbers as other values, so quote each word "
+                    "as written in the file (e.g. ['null', '-999'])")
+        return v
 
     @model_validator(mode="after")
     def _roles_do_not_clash(self):
