@@ -360,7 +360,9 @@ def build_model(store: Store, *, sweep_id: str | None = None, model: str | None 
     model_id = _new_model_id()
     estimator = pipeline.named_steps["model"]
     card = {
-        "format": CARD_FORMAT, "card_version": CARD_VERSION, "model_id": model_id,
+        "format": CARD_FORMAT,
+        "card_version": CARD_VERSION if spec.data.missing_words is not None else 1,
+        "model_id": model_id,
         "created_at": created.isoformat(timespec="seconds"), "user": _user(),
         "host": socket.gethostname(), "task": frame.task,
         "classes": [_plain(c) for c in frame.classes] or None,
@@ -382,7 +384,8 @@ def build_model(store: Store, *, sweep_id: str | None = None, model: str | None 
         "data": {"path": str(spec.resolve(spec.data.path)), "sha256": sha,
                  "sweep_sha256": record["data_sha256"],
                  "accepted_other_data": sha != record["data_sha256"],
-                 "infinite": spec.data.infinite},
+                 "infinite": spec.data.infinite,
+                 "missing_words": spec.data.missing_words},
         "target": _target_facts(frame.target, y, frame.task),
         "features": feature_schema(X, frame.numeric, frame.categorical),
         "metrics": list(facts.metrics),

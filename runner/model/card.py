@@ -23,7 +23,10 @@ __all__ = ["CARD_FORMAT", "CARD_VERSION", "versions_here", "version_notes", "fea
            "conformal_scores", "Residuals", "read_residuals"]
 
 CARD_FORMAT = "foldwise model card"
-CARD_VERSION = 1
+CARD_VERSION = 2
+"""2: `data.missing_words` lists the words the sweep read as missing, and predict reads new
+rows with them; a foldwise of version 1 would read them with pandas' default words, so it
+must refuse such a card. A card without a list (pandas' default) is still version 1."""
 VERSIONED = ("foldwise", "scikit-learn", "numpy", "scipy", "pandas", "skops", "python")
 """The versions a card records; those that decide a model's arithmetic are compared on load."""
 _DECIDING = ("scikit-learn", "numpy", "scipy", "skops")
@@ -258,6 +261,12 @@ def check_card(card, where: str) -> dict:
                          "column type; it is damaged. Nothing was loaded.")
     if len(sha) != 64 or not family:
         raise ModelError(f"{where} gives no valid SHA-256 or family; it is damaged.")
+    words = card.get("data", {}).get("missing_words") if isinstance(card.get("data"), dict) \
+        else None
+    if words is not None and not (isinstance(words, list)
+                                  and all(isinstance(w, str) for w in words)):
+        raise ModelError(f"{where} gives data.missing_words as {str(words)[:60]!r}, not a "
+                         "list of words; it is damaged. Nothing was loaded.")
     return card
 
 

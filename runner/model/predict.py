@@ -110,13 +110,17 @@ def _csv_columns(fh, path: Path) -> list[str]:
     return header
 
 
-def _csv_chunks(fh, path: Path, usecols: list[str], text: list[str], chunk_rows: int):
-    """(first line number, DataFrame) per chunk; text columns read as written."""
+def _csv_chunks(fh, path: Path, usecols: list[str], text: list[str], chunk_rows: int,
+                words: list[str] | None = None):
+    """(first line number, DataFrame) per chunk; text columns read as written, and the
+    fields the sweep read as missing (`words`, as `data.missing_words`) missing."""
+    from ..write.data import missing_value_options
+
     try:
         # every column is parsed (not only `usecols`), so a line with more fields than the
         # header - an unquoted comma shifting values - is refused as the sweep refuses it
         reader = pd.read_csv(fh, dtype={c: str for c in text}, chunksize=chunk_rows,
-                             encoding="utf-8")
+                             encoding="utf-8", **missing_value_options(words))
         line = 2
         for chunk in reader:
             yield line, chunk[usecols]
@@ -425,7 +429,8 @@ def predict_file(model: LoadedModel, data: str | Path, out: str | Path, *,
     card, family = model.card, model.family
     features = card["features"]
     prediction = list(card.get("prediction_columns") or ["predicted"])
-    halfwidth = interval_note = None
+    halfwidth = None
+    notes: list[str] = []
     if interval is not None and card.get("task") == "classification":
         raise ModelError(f"{model.source} predicts classes; prediction intervals are for "
                          "numbers. Its per-class probability columns say how sure it is.")
@@ -434,7 +439,7 @@ def predict_file(model: LoadedModel, data: str | Path, out: str | Path, *,
             raise ModelError(f"the interval level must be between 0 and 1, got {interval}.")
         residuals = read_residuals(card.get("interval", "absent"), model.source)
         halfwidth = residuals.halfwidth(interval, model.source)
-        interval_note = residuals.note(model.source)
+        notes.append(residuals.note(model.source))
         prediction += ["lower", "upper"]
     fh, kind = _open_input(data)
     with fh:
@@ -447,8 +452,15 @@ def predict_file(model: LoadedModel, data: str | Path, out: str | Path, *,
         usecols, ignored = _columns_plan(card, columns, keep, data, prediction)
         _check_out(out, data, overwrite)
         text = [f["name"] for f in features if f["type"] == "categorical"] + keep
-        chunks = (_csv_chunks(fh, data, usecols, text, chunk_rows) if kind == "csv" else
+        read = card.get("data", {})
+        chunks = (_csv_chunks(fh, data, usecols, text, chunk_rows,
+                              read.get("missing_words")) if kind == "csv" else
                   _parquet_chunks(pf, data, usecols, chunk_rows))
+        if kind == "csv" and "missing_words" not in read:
+            notes.append(f"note: the card of {model.source} is from a foldwise before "
+                         "`data.missing_words`, so the new rows are read with pandas' default "
+                         "missing words ('NA', 'None', 'null', 'NaN', ...), as its sweep "
+                         "read its data.")
         lookups = {f["name"]: _level_lookup(f["categories"]) for f in features
                    if f["type"] == "categorical"}
         numeric_levels = _numeric_level_columns(model.pipeline)
@@ -496,5 +508,5 @@ def predict_file(model: LoadedModel, data: str | Path, out: str | Path, *,
                             [*keep, *prediction], keep, ignored, tally.unseen,
                             {k: v for k, v in tally.missing.items() if v},
                             model.model_id, family.unseen_category,
-                            [interval_note] if interval_note else [],
+                            [n for n in notes if n],
                             interval, halfwidth)

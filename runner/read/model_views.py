@@ -87,6 +87,8 @@ def card_view(card: dict) -> View:
          f"{rule_label(card['rule'])} rule"),
         ("rows", f"{rows['n']:,}: {rows['which']}"),
         ("data", f"{data['path']}"),
+        ("missing words", "pandas' default list" if data.get("missing_words") is None else
+         ", ".join(repr(str(w)) for w in data["missing_words"]) + " and empty fields"),
         ("data SHA-256", data["sha256"] + ("" if not data["accepted_other_data"] else
                                            f" (the sweep's: {data['sweep_sha256']})")),
         ("spec SHA-256", card["sweep"]["spec_sha256"]),
