@@ -133,7 +133,8 @@ def test_a_new_evaluation_version_stops_reuse_and_run_says_so(folder, monkeypatc
     ("target", "target: bp\n  drop: [progression]"),
     ("drop", "target: progression\n  drop: [s5, s6]"),
     ("categorical", "target: progression\n  categorical: [s1_band]"),
-    ("infinite", "target: progression\n  infinite: missing")])
+    ("infinite", "target: progression\n  infinite: missing"),
+    ("missing_words", "target: progression\n  missing_words: ['NA']")])
 def test_another_target_or_other_features_on_the_same_file_are_other_cells(folder, change,
                                                                          lines):
     # The same file, plan and grid, but another problem: nothing is copied, and the scores
@@ -153,8 +154,9 @@ def test_another_target_or_other_features_on_the_same_file_are_other_cells(folde
     ours = _scores(store, again.sweep_id)
     pd.testing.assert_frame_equal(ours, _scores(Store(folder / "fresh.duckdb"), fresh.sweep_id))
     before = _scores(store, first.sweep_id)
-    # no infinite value in the file: reading them otherwise changes no score
-    assert before.value.equals(ours.value) == (change == "infinite")
+    # no infinite value and no missing word in the file: reading them otherwise changes no
+    # score
+    assert before.value.equals(ours.value) == (change in ("infinite", "missing_words"))
 
 
 def test_an_upgrade_of_a_scoring_package_stops_reuse_and_run_says_so(folder, monkeypatch):
