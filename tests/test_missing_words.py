@@ -180,7 +180,15 @@ def test_a_test_file_is_read_with_the_listed_words_and_the_finding_points_to_the
     assert frame.X["treatment"][frame.test_mask].fillna("(missing)").tolist() == \
         held["treatment"].fillna("(missing)").tolist()
     assert (held["treatment"] == "None").sum() == 10
-    # the spec said which words are missing: nothing was read as missing behind its back
+    # the spec says which words are missing, 'None' among them here: no finding, since
+    # nothing was read as missing behind the user's back
+    path.write_text(default.replace("target: yield_kg", "target: yield_kg\n  missing_words: "
+                                                         "['n/a', 'None']"))
+    spec = load_spec(path)
+    frame = load_frame(spec)
+    both = [_reference(tmp_path / name, ["n/a", "None"]) for name in ("trial.csv", "held.csv")]
+    assert frame.X["treatment"].isna().sum() == sum(b["treatment"].isna().sum() for b in both) \
+        == 29 + 5 + 10 + 2  # 'None' and the empty fields of either file
     assert not [f for f in run_checks(spec, frame, make_plan(spec, frame))
                 if f.kind == "missing_words"]
 
