@@ -257,3 +257,26 @@ def test_spec_file_must_be_a_small_regular_file(tmp_path):
 def test_a_grid_parameter_some_cell_uses_is_accepted(grid):
     spec = _spec(f"models:\n  m: {{family: linear, grid: {grid}}}\n")
     assert spec.models["m"].family == "linear"
+
+
+@pytest.mark.parametrize("words,expected", [
+    (None, None), ("[]", []), ("['NA', 'None', '']", ["NA", "None", ""]),
+    ("[n/a, '-999', 'null']", ["n/a", "-999", "null"])])
+def test_missing_words_are_read_as_written(words, expected):
+    data = "{path: d.csv, target: y}" if words is None else \
+        "{path: d.csv, target: y, missing_words: %s}" % words
+    spec = parse_spec(BASE.replace("{path: d.csv, target: y}", data)
+                      + "models:\n  m: {family: linear}\n")
+    assert spec.data.missing_words == expected
+
+
+@pytest.mark.parametrize("words,got", [("[NA, null]", "got None"), ("[-999]", "got -999"),
+                                       ("[yes]", "got True")])
+def test_missing_words_yaml_reads_as_other_values_are_refused(words, got):
+    with pytest.raises(SpecError) as info:
+        parse_spec(BASE.replace("{path: d.csv, target: y}",
+                                "{path: d.csv, target: y, missing_words: %s}" % words)
+                   + "models:\n  m: {family: linear}\n")
+    assert f"line 2, data.missing_words: missing_words lists words as text, {got}: YAML " \
+        "reads null, ~, true, false, yes, no and numbers as other values, so quote each " \
+        "word as written in the file (e.g. ['null', '-999'])" in str(info.value)
