@@ -221,3 +221,39 @@ def test_a_card_whose_missing_words_are_not_a_list_of_words_is_refused(trial, tm
     assert str(caught.value) == (f"model card {tmp_path / 'm.card.json'} gives "
                                  "data.missing_words as 'NA', not a list of words; it is "
                                  "damaged. Nothing was loaded.")
+
+
+def test_diff_says_the_same_file_was_read_with_other_words(tmp_path):
+    _trial(90, 6).to_csv(tmp_path / "trial.csv", index=False)
+    store = tmp_path / "store.duckdb"
+    for name, words in (("a", None), ("b", WORDS)):
+        path = write_spec(tmp_path, RIDGE, data="trial.csv", name=f"{name}.yaml")
+        path.write_text(path.read_text().replace("target: progression", "target: yield_kg" + (
+            f"\n  missing_words: {words}" if words else "")).replace(
+            "store: store.duckdb", f"store: {store}"))
+        assert CliRunner().invoke(main, ["run", "-q", str(path)]).exit_code == 0
+    result = CliRunner().invoke(main, ["diff", "--store", str(store)])
+    assert result.exit_code == 0, result.output
+    lines = result.output.splitlines()
+    at = next(i for i, line in enumerate(lines) if line.startswith("data: same"))
+    assert lines[at + 1] == ("data read: missing words pandas' default list → ['n/a'] and "
+                             "empty fields (data.missing_words), so the cells differ")
+    assert "folds: paired on identical folds (0 shared cells)" in lines
+
+
+@pytest.mark.parametrize("text, words", [
+    ("data: {path: d.csv, target: y}\n", None),
+    ("data: {path: d.csv, target: y, missing_words: [NA, '', NA]}\n", ["", "NA"]),
+    ("data: {path: d.csv, target: y, missing_words: [null]}\n", ValueError),
+    ("data: [unclosed\n", ValueError),
+    ("a: &a [1, 1, 1, 1, 1, 1, 1, 1, 1, 1]\n" + "".join(
+        f"{k}: &{k} [*{p}, *{p}, *{p}, *{p}, *{p}, *{p}, *{p}, *{p}, *{p}, *{p}]\n"
+        for p, k in zip("abcde", "bcdef")) + "data: {path: d.csv, target: y}\n", ValueError)])
+def test_a_stored_spec_texts_words_are_read_within_the_specs_limits(text, words):
+    from runner.write.spec_yaml import stated_missing_words
+
+    if words is ValueError:
+        with pytest.raises(ValueError):
+            stated_missing_words(text)
+    else:
+        assert stated_missing_words(text) == words

@@ -20,6 +20,7 @@ import shlex
 import pandas as pd
 
 from ..errors import QueryError
+from ..write.spec_yaml import stated_missing_words
 from .compare import holm, t_from_moments
 from .picks import RULES, best_index, check_rule, check_se, one_se_index
 from .past_queries import (history_cells, latest_of_name, paired_changes, previous_sweep,
@@ -95,7 +96,18 @@ def _diff(store: Store, sweep_a: str | None, sweep_b: str | None, se: str) -> Sw
     return SweepDiff(ra, rb, _spec_diff(ra, rb), data_same, plan_same,
                      _changed(json_object(ra["versions"]), json_object(rb["versions"])),
                      _changed(ra["labels"], rb["labels"]), metric, fb.better_of(), se,
-                     paired, why, shared, table, varying, refused)
+                     paired, why, shared, table, varying, refused, _read_words(ra, rb))
+
+
+def _read_words(ra: dict, rb: dict) -> tuple | None:
+    """(a, b) the words each sweep's spec read as missing (`data.missing_words`; None: pandas'
+    default list) when they differ: the same file read otherwise. None when they agree or a
+    stored spec text cannot say."""
+    try:
+        a, b = (stated_missing_words(str(r["spec_text"] or "")) for r in (ra, rb))
+    except ValueError:
+        return None
+    return None if a == b else (a, b)
 
 
 def _the_two(store: Store, sweep_a: str | None, sweep_b: str | None) -> tuple[str, str]:

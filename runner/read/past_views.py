@@ -110,6 +110,13 @@ def _cell_words(cell: dict, keep: set, exact: set) -> str:
         "(single cell)"
 
 
+def _words_text(words: list | None) -> str:
+    """A sweep's missing words as the diff shows them."""
+    if words is None:
+        return "pandas' default list"
+    return "[" + ", ".join(plain_text(repr(w)) for w in words) + "] and empty fields"
+
+
 def diff_view(result: SweepDiff) -> View:
     """What changed from sweep A to sweep B: the spec diff, data, plan, versions and labels
     above; per model each sweep's picked cell, CV mean ± SE, paired change and test score."""
@@ -140,6 +147,10 @@ def diff_view(result: SweepDiff) -> View:
     else:
         lines.append(f"data: changed (SHA-256 {str(a['data_sha256'])[:12]} → "
                      f"{str(b['data_sha256'])[:12]}; training / test rows {rows_a} → {rows_b})")
+    if result.read_words is not None:
+        lines.append("data read: missing words " + " → ".join(
+            _words_text(w) for w in result.read_words)
+            + " (data.missing_words), so the cells differ")
     lines.append({True: "plan: same", False: "plan: changed",
                   None: "plan: not recorded for the older sweep"}[result.plan_same])
     lines.append("versions: same" if not result.versions else "versions: changed: " + ", ".join(

@@ -253,6 +253,8 @@ class SweepDiff:
     table: pd.DataFrame
     varying: dict = field(default_factory=dict)  # model -> params its grid varies (either)
     not_compared: str = ""  # why no picks are compared at all ('' when they are)
+    read_words: tuple | None = None  # (a, b) data.missing_words, when the two differ (None
+    # inside: pandas' default list); None when the same or a spec text cannot say
 
 
 @dataclass(frozen=True)

@@ -8,12 +8,14 @@ import yaml
 
 from ..errors import SpecError
 
-__all__ = ["MAX_DEPTH", "MAX_NODES", "UniqueKeyLoader", "line_map", "shape_problem"]
+__all__ = ["MAX_DEPTH", "MAX_NODES", "UniqueKeyLoader", "line_map", "shape_problem",
+           "stated_missing_words"]
 
 MAX_DEPTH = 32
 """Deepest nesting of mappings and lists a spec may have (real specs use 4 or 5)."""
 MAX_NODES = 100_000
 """Most values a spec may hold once every alias (*name) is expanded."""
+_MAX_STORED_TEXT = 128 * 1024  # as spec.MAX_SPEC_BYTES: no spec that ran is longer
 
 
 class UniqueKeyLoader(yaml.SafeLoader):
@@ -103,3 +105,25 @@ def _scan_events(events) -> str | None:
                     f"{MAX_NODES:,} values once its aliases (*name) are expanded; a spec needs "
                     "far fewer. Write the values out, or reuse an anchor fewer times")
     return None
+
+
+def stated_missing_words(text: str) -> list[str] | None:
+    """The words a stored spec text lists in `data.missing_words`, sorted and once each;
+    None where it lists none (pandas' default list). A ValueError where the text cannot say
+    (too long or costly, not YAML, no data mapping, not a list of words): a store's spec
+    text is another's, read with the same limits as a spec file."""
+    if len(text.encode("utf-8", "replace")) > _MAX_STORED_TEXT or shape_problem(text):
+        raise ValueError("not a spec foldwise runs")
+    try:
+        doc = yaml.load(text, Loader=UniqueKeyLoader)
+    except (yaml.YAMLError, SpecError, RecursionError):
+        raise ValueError("not YAML") from None
+    data = doc.get("data") if isinstance(doc, dict) else None
+    if not isinstance(data, dict):
+        raise ValueError("no data mapping")
+    words = data.get("missing_words")
+    if words is None:
+        return None
+    if not isinstance(words, list) or not all(isinstance(w, str) for w in words):
+        raise ValueError("not a list of words")
+    return sorted(set(words))
