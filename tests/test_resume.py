@@ -106,7 +106,7 @@ def test_a_new_evaluation_version_stops_reuse_and_run_says_so(folder, monkeypatc
     spec = spec_from(folder, MODELS)
     store = Store(folder / "store.duckdb")
     monkeypatch.setattr(grid, "EVAL_VERSION", "2")
-    monkeypatch.setattr(prepare, "problem_identity", lambda frame, infinite: None)
+    monkeypatch.setattr(prepare, "problem_identity", lambda frame, infinite, words=None: None)
     first = run_sweep(spec, store=store, jobs=1)
     monkeypatch.undo()
     with duckdb.connect(str(folder / "store.duckdb")) as con:  # as an older foldwise wrote it
