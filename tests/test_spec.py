@@ -260,9 +260,9 @@ def test_a_grid_parameter_some_cell_uses_is_accepted(grid):
 
 
 @pytest.mark.parametrize("words,expected", [
-    (None, None), ("[]", []), ("['NA', 'None', '']", ["NA", "None", ""]),
-    ("[n/a, '-999', 'null']", ["n/a", "-999", "null"])])
-def test_missing_words_are_read_as_written(words, expected):
+    (None, None), ("[]", []), ("['NA', 'None', '', NA]", ["", "NA", "None"]),
+    ("[n/a, '-999', 'null']", ["-999", "n/a", "null"])])
+def test_missing_words_are_text_as_written_once_each_in_one_order(words, expected):
     data = "{path: d.csv, target: y}" if words is None else \
         "{path: d.csv, target: y, missing_words: %s}" % words
     spec = parse_spec(BASE.replace("{path: d.csv, target: y}", data)

@@ -227,7 +227,7 @@ def problem_identity(frame: Frame, infinite: str, words: list[str] | None = None
                "categorical": list(frame.categorical), "features": frame.features,
                "infinite": infinite}
     if words is not None:
-        problem["missing_words"] = sorted(set(words))
+        problem["missing_words"] = list(words)
     return problem
 
 

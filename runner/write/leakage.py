@@ -82,7 +82,7 @@ def checks_key(spec, frame, identity: dict) -> str:
             "infinite": spec.data.infinite, "allow": sorted(spec.checks.allow),
             "version": CHECKS_VERSION}
     if spec.data.missing_words is not None:  # left out, the key of earlier sweeps stands
-        read["missing_words"] = sorted(set(spec.data.missing_words))
+        read["missing_words"] = spec.data.missing_words
     payload = json.dumps(read, sort_keys=True)
     return hashlib.sha256(payload.encode()).hexdigest()
 

@@ -75,7 +75,7 @@ class DataSpec(_Strict):
                     f"missing_words lists words as text, got {word!r}: YAML reads null, ~, "
                     "true, false, yes, no and numbers as other values, so quote each word "
                     "as written in the file (e.g. ['null', '-999'])")
-        return v
+        return sorted(set(v)) if isinstance(v, list) else v  # one form, whatever the order
 
     @model_validator(mode="after")
     def _roles_do_not_clash(self):
