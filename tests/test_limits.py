@@ -248,8 +248,10 @@ def test_numbers_written_with_commas_are_refused_with_the_fix(tmp_path, values, 
 
 
 @pytest.mark.parametrize("column, what, advice", [
-    ("a", "feature column 'a'", "leave those fields empty; if they are mistakes, fix them; "
-     "list the column in `data.categorical` only if it really is a category."),
+    ("a", "feature column 'a'", "leave those fields empty or list them in "
+     "`data.missing_words` (with any other word the file writes for missing, such as 'NA': "
+     "the list replaces pandas' own); if they are mistakes, fix them; list the column in "
+     "`data.categorical` only if it really is a category."),
     ("progression", "target column 'progression'", "drop those rows (a target must be "
      "filled); if they are mistakes, fix them; set `task: classification` only if it really "
      "holds classes."),
@@ -268,6 +270,9 @@ def test_numbers_with_a_few_placeholders_are_refused_naming_them(tmp_path, colum
         f"{what} of {tmp_path / 'd.csv'} holds numbers but for 3 value(s) that are not, such "
         f"as '?', 'n.a.' (the first at line 6 of {tmp_path / 'd.csv'}), so the whole column "
         f"would be read as text, a category. If they stand for missing values, {advice}")
+    if column == "a":  # as the advice says: the column is numbers, those 3 rows missing
+        frame = _frame(tmp_path, df, ", missing_words: ['?', 'n.a.']")
+        assert "a" in frame.numeric and frame.X["a"].isna().sum() == 3
 
 
 def test_codes_with_a_text_code_and_mostly_text_columns_stay_categories(tmp_path):

@@ -317,7 +317,9 @@ def _separator_problem(what: str, s: pd.Series, path: Path, rows: _Rows | None =
         shown, n, first = stray
         at = (rows or _Rows(path, len(s)))(first)
         empty = ("drop those rows (a target must be filled)" if what.startswith("target")
-                 else "leave those fields empty")
+                 else "leave those fields empty or list them in `data.missing_words` (with "
+                 "any other word the file writes for missing, such as 'NA': the list "
+                 "replaces pandas' own)")
         raise DataError(f"{what} of {path} holds numbers but for {n} value(s) that are not, "
                         f"such as {', '.join(repr(v) for v in shown)} (the first at {at}), so "
                         "the whole column would be read as text, a category. If they stand "
