@@ -362,6 +362,41 @@ def test_picks_and_compare_work_on_every_plan_and_time_folds_carry_their_caveat(
     assert "gap 2), fits seeded " in html and "gap 2), seed " not in html
 
 
+@pytest.mark.parametrize("scheme", ["time", "groups"])
+def test_compare_on_unequal_folds_equals_the_corrected_t_test_worked_by_hand(sweeps, scheme):
+    # Nadeau & Bengio (2003), Machine Learning 52:239-281, in the repeated k-fold form of
+    # Bouckaert & Frank (2004) (citations from memory): var = (1/n + n_valid/n_train)·s²,
+    # s² the sample variance (ddof 1) of the n paired differences, t = mean/sqrt(var) on
+    # n - 1 df, p two-sided from Student's t (scipy.stats.t). Time folds fit on 1/5 to 4/5
+    # of the values and grouped folds on unequal clinics, so n_valid/n_train differs by
+    # fold: it enters as its mean over the folds, taken here from scikit-learn's splitters
+    # (the README recipe), not from the store. Holm (1979) with one pair leaves p as it is.
+    from scipy import stats
+
+    from runner import compare_table
+
+    done, store = sweeps
+    _, sid = done[scheme]
+    pair = compare_table(store, sid).table.iloc[0]
+    raw = store.query("""select cell_id, "repeat", fold, value from fold_scores
+                         where sweep_id = ? and metric = 'rmse'""", [sid])
+    wide = raw.pivot_table(index=["repeat", "fold"], columns="cell_id", values="value")
+    d = (wide[pair["cell_a"]] - wide[pair["cell_b"]]).to_numpy()
+    _, _, folds = _recipe(scheme, _frame())
+    sizes = [(len(fit), len(valid)) for _, _, fit, valid in folds]
+    ratio = float(np.mean([v / f for f, v in sizes]))
+    assert len({f for f, _ in sizes}) > 1  # the folds do differ in size
+    n = len(d)
+    se = np.sqrt((1 / n + ratio) * np.var(d, ddof=1))
+    t = d.mean() / se
+    assert (pair["folds"], pair["df"]) == (n, n - 1) == ((4, 3) if scheme == "time" else (6, 5))
+    assert pair["mean_diff"] == pytest.approx(d.mean(), rel=1e-12)
+    assert pair["se"] == pytest.approx(se, rel=1e-12)
+    assert pair["t"] == pytest.approx(t, rel=1e-12)
+    assert pair["p_value"] == pytest.approx(2 * stats.t.sf(abs(t), n - 1), rel=1e-9)
+    assert pair["p_holm"] == pair["p_value"]
+
+
 def _readme_recipes() -> list[str]:
     """The python blocks of README's "Rebuilding the folds yourself": the start, rows,
     groups, time, and the loop every scheme ends with."""
