@@ -276,6 +276,32 @@ def test_stored_pick_se_and_threshold(tmp_path):
     assert corrected["threshold"] == pytest.approx(corrected["mean"] + corrected["se"])
 
 
+def test_one_se_for_a_score_where_higher_is_better_worked_by_hand(tmp_path):
+    # The one-SE rule (Breiman et al. 1984; Hastie, Tibshirani & Friedman, ESL 2nd ed.
+    # §7.10, from memory) mirrored for a score where higher is better: the simplest cell
+    # whose mean is at least best − SE, SE that of the best cell's k·r fold scores, sd
+    # (ddof 1) / sqrt(k·r); --se corrected: sqrt((1/(k·r) + n_valid/n_train)·sd²) (Nadeau &
+    # Bengio 2003). Worked with numpy: best 0.61 (rank 2), plain SE 0.00966, bar 0.6003:
+    # rank 1 (0.605) is within, rank 0 (0.597) is not; the corrected SE 0.01528 lowers the
+    # bar to 0.5947 and takes rank 0. (best + SE, the bar of a loss, would take rank 0.)
+    cells = [[0.58, 0.61, 0.60, 0.59, 0.605, 0.597], [0.60, 0.61, 0.595, 0.615, 0.60, 0.61],
+             [0.58, 0.64, 0.60, 0.62, 0.59, 0.63], [0.59, 0.61, 0.60, 0.60, 0.61, 0.59]]
+    store = write_sweep(tmp_path / "s.duckdb", {"m": cells}, k=3, repeats=2, metric="r2",
+                        better="higher", n_train=80, n_valid=20)
+    means = np.mean(cells, axis=1)
+    best = int(np.argmax(means))
+    sd = np.std(cells[best], ddof=1)
+    for kind, se, expected in (("plain", sd / math.sqrt(6), 1),
+                               ("corrected", math.sqrt((1 / 6 + 20 / 80) * sd**2), 0)):
+        bar = means[best] - se
+        assert int(np.flatnonzero(means >= bar)[0]) == expected
+        got = picks(store, se=kind).set_index("rule")
+        assert got.loc["best", "complexity_rank"] == best == 2
+        assert got.loc["one_se", "complexity_rank"] == expected, kind
+        assert got.loc["one_se", "best_se"] == pytest.approx(se, rel=1e-12)
+        assert got.loc["one_se", "threshold"] == pytest.approx(bar, rel=1e-12)
+
+
 def test_failed_and_incomplete_cells_are_never_picked(tmp_path):
     cells = [[3.0] * 4, [2.0, 2.1, 1.9, 2.0], [1.0, 1.1, 0.9, 1.0], [1.5, 1.4, 1.6, 1.5]]
     store = write_sweep(tmp_path / "s.duckdb", {"m": cells, "solo": [[1.0, 1.0, 1.0, 1.0]]},
