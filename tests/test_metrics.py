@@ -71,6 +71,48 @@ def test_balanced_accuracy_of_rows_lacking_a_class_is_quiet_and_scikit_learns():
     assert got == pytest.approx((2 / 3 + 1 / 2) / 2, abs=1e-15)
 
 
+LACKING = {  # rows of a validation fold that lack a class the model was fitted on
+    "three classes, no 'c'": (["a", "b", "c"], ["a", "b", "a", "b", "a", "a"],
+                              [[.6, .2, .2], [.1, .8, .1], [.2, .2, .6], [.4, .4, .2],
+                               [.3, .3, .4], [.5, .1, .4]]),
+    "two classes, 'x' only": (["x", "y"], ["x", "x", "x", "x"],
+                              [[.7, .3], [.4, .6], [.9, .1], [.5, .5]]),
+}
+
+
+@pytest.mark.parametrize("case", LACKING)
+@pytest.mark.parametrize("name", sorted(n for n, m in METRICS.items()
+                                         if m.task == "classification"))
+def test_class_records_on_rows_lacking_a_class_agree_with_scikit_learn(name, case):
+    # Reference: sklearn.metrics on the same rows and probabilities, told every class the
+    # model knows (labels=): log loss and the Brier score are defined and score all columns;
+    # ROC AUC is undefined (NaN: a one-vs-rest area needs rows of its class, and the binary
+    # area rows of both); balanced accuracy is the mean recall over the classes the rows
+    # hold; accuracy counts rows. foldwise stores NaN as NULL and says so when it reads.
+    import warnings
+
+    classes, y, p = LACKING[case]
+    y, p = np.array(y, dtype=object), np.array(p)
+    predicted = np.array(classes, dtype=object)[p.argmax(axis=1)]
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")  # scikit-learn warns of the missing class
+        expected = {
+            "log_loss": lambda: skm.log_loss(y, p, labels=classes),
+            "brier": lambda: skm.brier_score_loss(y, p, labels=classes, scale_by_half="auto"),
+            "roc_auc": lambda: (skm.roc_auc_score(y, p[:, 1]) if len(classes) == 2 else
+                                skm.roc_auc_score(y, p, multi_class="ovr", labels=classes)),
+            "accuracy": lambda: skm.accuracy_score(y, predicted),
+            "balanced_accuracy": lambda: skm.balanced_accuracy_score(y, predicted),
+        }[name]()
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")  # and foldwise scores such a fold quietly
+        got = METRICS[name].score_classes(y, p, classes)
+    if name == "roc_auc":
+        assert np.isnan(expected) and np.isnan(got)
+    else:
+        assert np.isfinite(expected) and got == pytest.approx(expected, abs=1e-15)
+
+
 def test_labels_are_unique():
     labels = [m.label for m in METRICS.values()]
     assert len(set(labels)) == len(labels)
