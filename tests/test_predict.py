@@ -299,6 +299,36 @@ def test_a_split_conformal_interval_covers_new_rows_at_its_level(demo_built, tmp
         assert abs(covered.mean() - 0.9) < 0.03, (label, covered.mean())
 
 
+def test_the_interval_halfwidth_is_the_conformal_quantile_of_the_test_residuals(demo_built,
+                                                                             tmp_path):
+    # Split conformal (Lei, G'Sell, Rinaldo, Tibshirani & Wasserman 2018, JASA 113): q is
+    # the ceil((n + 1)·level)-th smallest of the n absolute residuals on rows the model never
+    # fitted. Recomputed here without the card: the test rows are scikit-learn's
+    # GroupShuffleSplit of whole bays (test: fraction 0.2, seed 11; README "Rebuilding the
+    # folds yourself"), the residuals those rows' targets minus the model's predictions.
+    from sklearn.model_selection import GroupShuffleSplit
+
+    folder = demo_built[0]
+    data = pd.read_csv(folder / "greenhouse.csv")
+    split = GroupShuffleSplit(n_splits=1, test_size=0.2, random_state=11)
+    test_rows = np.sort(next(split.split(np.arange(len(data)),
+                                         groups=data["bay_id"].to_numpy()))[1])
+    held = data.iloc[test_rows]
+    (tmp_path / "held.csv").write_text(_csv(held))
+    n = len(held)
+    for label in ("tree", "ridge"):
+        model = load_model(demo_built[3][label].artefact)
+        for level in (0.5, 0.9, 0.95):
+            written = tmp_path / f"{label}-{level}.csv"
+            res = predict_file(model, tmp_path / "held.csv", written, interval=level)
+            out = pd.read_csv(written)
+            residuals = np.sort(np.abs(held["yield_kg_m2"].to_numpy() - out["predicted"]))
+            q = residuals[int(np.ceil((n + 1) * level)) - 1]
+            assert res.halfwidth == pytest.approx(q, rel=1e-12, abs=1e-12), (label, level)
+            inside = np.mean(np.abs(held["yield_kg_m2"].to_numpy() - out["predicted"]) <= q)
+            assert level <= inside < level + 2 / n  # at least the level on its own rows
+
+
 def test_intervals_need_held_out_rows(demo_built, tmp_path):
     from runner.errors import ModelError
     from runner.model.build import build_model
