@@ -302,6 +302,23 @@ def test_one_se_for_a_score_where_higher_is_better_worked_by_hand(tmp_path):
         assert got.loc["one_se", "threshold"] == pytest.approx(bar, rel=1e-12)
 
 
+def test_corrected_se_of_a_cell_with_an_undefined_fold_takes_the_defined_folds_ratio(tmp_path):
+    # A score undefined on one fold (ROC AUC where a validation fold holds one class): the
+    # corrected SE of the mean of the n defined scores is sqrt((1/n + r)·sd²) with r the
+    # mean n_valid/n_train over those n folds (Nadeau & Bengio 2003; as compare pairs only
+    # the folds where both scores are defined). Worked with numpy: n = 5 folds of sizes
+    # 8/4, 8/4, 8/4, 8/4, 9/3; the undefined fold (9/3) must not enter r.
+    scores = [[5.0, 5.2, math.nan, 5.1, 5.3, 4.9], [4.0, 4.1, 4.2, 4.0, 4.1, 4.3]]
+    store = write_sweep(tmp_path / "s.duckdb", {"m": scores}, k=3, repeats=2,
+                        n_train=[8, 8, 9, 8, 8, 9], n_valid=[4, 4, 3, 4, 4, 3])
+    defined = [v for v in scores[0] if not math.isnan(v)]
+    ratio = np.mean([4 / 8, 4 / 8, 4 / 8, 4 / 8, 3 / 9])
+    row = complexity_table(store, "m", se="corrected").iloc[0]
+    assert (row["n"], row["excluded"]) == (5, "undefined score")
+    assert row["se"] == pytest.approx(math.sqrt((1 / 5 + ratio) * np.var(defined, ddof=1)),
+                                      rel=1e-12)
+
+
 def test_failed_and_incomplete_cells_are_never_picked(tmp_path):
     cells = [[3.0] * 4, [2.0, 2.1, 1.9, 2.0], [1.0, 1.1, 0.9, 1.0], [1.5, 1.4, 1.6, 1.5]]
     store = write_sweep(tmp_path / "s.duckdb", {"m": cells, "solo": [[1.0, 1.0, 1.0, 1.0]]},

@@ -389,7 +389,8 @@ def require_fold_sizes(store: Store, sweep_ids: list[str]) -> None:
 # -- picks ---------------------------------------------------------------------------------
 # Common table expressions shared by every pick query. Parameters: $1 sweep id, $2 metric,
 # $3 se kind ('plain' or 'corrected'), $4 model or null (all), $5 relative tolerance.
-# judged = every cell with mean/SE and why it is excluded; bars = the best cell and the
+# judged = every cell with mean/SE (the corrected SE over the folds where the score is
+# defined, as compare pairs them) and why it is excluded; bars = the best cell and the
 # one-SE threshold per model; within = eligible cells inside it; chosen = the lowest tier
 # (the rank where an eligible cell of the model has none: an older store), then the best
 # mean, then the lowest rank. Means within the relative tolerance $5 of the best (or of the
@@ -401,7 +402,8 @@ _CELLS_SQL = f"""
         select c.model, c.family, c.cell_id, c.params, c.complexity_rank, c.complexity_tier,
                min(c.position) as cell_row, count(f.value) as n, count(f.fold) as n_rows,
                avg(f.value) as mean,
-               stddev_samp(f.value) as sd, avg(f.valid_ratio) as valid_ratio,
+               stddev_samp(f.value) as sd,
+               avg(f.valid_ratio) filter (where f.value is not null) as valid_ratio,
                avg(f.n_leaves) as mean_leaves
         from cells c
         left join {FOLD_SCORES} f
