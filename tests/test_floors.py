@@ -22,6 +22,13 @@ FEATURES = [  # (distribution, the version that brought it, file, text that uses
     ("scikit-learn", "1.6", "runner/families/paths.py", "ensure_all_finite="),
     # sklearn.metrics.root_mean_squared_error: new in scikit-learn 1.4
     ("scikit-learn", "1.4", "runner/metrics.py", '"root_mean_squared_error"'),
+    # LogisticRegression's l1_ratio alone sets the penalty ('penalty' deprecated): 1.8; on
+    # 1.7 l1_ratio=1 beside the default penalty='l2' is ignored with a warning and an l2
+    # model is fitted (measured on 1.7.2: no zero coefficient where 1.9 gives 25 of 30)
+    ("scikit-learn", "1.8", "runner/families/linear.py",
+     "LogisticRegression(C=C, l1_ratio=l1_ratio"),
+    # brier_score_loss(labels=..., scale_by_half=...) for a matrix of class probabilities: 1.7
+    ("scikit-learn", "1.7", "runner/metrics.py", 'labels=list(classes), scale_by_half="auto"'),
     # Parallel(return_as="generator_unordered"): new in joblib 1.4
     ("joblib", "1.4", "runner/write/executors.py", 'return_as="generator_unordered"'),
     # CliRunner results with .stderr apart from .stdout by default: click 8.2
@@ -79,6 +86,14 @@ def test_floor_covers_what_the_code_uses(package, version, path, text):
     floor = _floor(_declared()[package])
     assert floor >= Version(version), (f"{path} uses {text} (new in {package} {version}) but "
                                        f"pyproject.toml allows {package} {floor}")
+
+
+def test_the_python_floor_is_one_the_scikit_learn_floor_is_built_for():
+    # scikit-learn 1.8 publishes no wheel for Python 3.10 (pip lists 1.7.2 as the newest
+    # there), so a 3.10 install would get a scikit-learn below the floor
+    project = tomllib.loads((ROOT / "pyproject.toml").read_text())["project"]
+    python = Requirement(f"python{project['requires-python']}")
+    assert _floor(python) >= Version("3.11") or _floor(_declared()["scikit-learn"]) < Version("1.8")
 
 
 def test_the_extension_pin_and_the_duckdb_floor_agree():
