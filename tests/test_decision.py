@@ -146,3 +146,48 @@ def test_a_second_place_with_the_same_score_on_every_fold_is_said_so(tmp_path):
     said = " ".join(decision(picks(store, rule="one_se"), compare(store)).sentences)
     assert "(the same score on every fold, nothing to test)" in said, said
     assert "not clearly separated" in said and "()" not in said and "( ," not in said
+
+
+def test_the_ranking_gaps_and_paired_tests_for_a_score_where_higher_is_better(tmp_path):
+    # R² (higher is better), three models in spec order c, b, a: the ranking is by CV mean,
+    # highest first; each gap is first − other (how much lower), with the corrected SE of
+    # the paired differences (Nadeau & Bengio 2003: (1/(k·r) + n_valid/n_train)·var(d,
+    # ddof 1)), the folds where the first scores higher, and the two-sided p (scipy.stats.t,
+    # k·r − 1 df) adjusted by Holm (1979) over the three pairs, worked by hand below.
+    # Numbers are worded by views.py's rules (mean_se, p_text).
+    from scipy import stats
+
+    from runner.read.queries import compare, picks
+    from runner.read.views import mean_se, p_text
+
+    from .store_builder import write_sweep
+
+    scores = {"c": [0.56, 0.58, 0.56, 0.59, 0.55, 0.59],
+              "b": [0.55, 0.60, 0.57, 0.58, 0.56, 0.60],
+              "a": [0.60, 0.62, 0.58, 0.61, 0.63, 0.59]}
+    store = write_sweep(tmp_path / "s.duckdb", {m: [s] for m, s in scores.items()}, k=3,
+                        repeats=2, metric="r2", better="higher", pick_rule="best",
+                        n_train=80, n_valid=20)
+    tests = {}
+    for x, y in (("c", "b"), ("c", "a"), ("b", "a")):
+        d = np.subtract(scores[x], scores[y])
+        se = np.sqrt((1 / 6 + 20 / 80) * np.var(d, ddof=1))
+        tests[frozenset((x, y))] = (d.mean(), se, 2 * stats.t.sf(abs(d.mean() / se), 5))
+    raw = sorted((p, pair) for pair, (_, _, p) in tests.items())
+    holm, running = {}, 0.0
+    for i, (p, pair) in enumerate(raw):
+        running = max(running, min(1.0, (3 - i) * p))
+        holm[pair] = running
+    got = decision(picks(store, rule="best"), compare(store))
+    assert [r["model"] for r in got.rows] == ["a", "b", "c"] and got.first == "a"
+    for r in got.rows[1:]:
+        pair = frozenset(("a", r["model"]))
+        mean_diff, se, _ = tests[pair]
+        gap = np.mean(np.subtract(scores["a"], scores[r["model"]]))
+        assert gap > 0 and abs(mean_diff) == pytest.approx(gap, rel=1e-12)
+        wins = int(np.sum(np.array(scores["a"]) > np.array(scores[r["model"]])))
+        assert (r["gap"], r["wins"], r["p"]) == (mean_se(gap, se), f"{wins} of 6",
+                                                 p_text(holm[pair]))
+    assert got.rows[1]["wins"] == "5 of 6" and holm[frozenset("ab")] > 0.05
+    assert p_text(holm[frozenset("ab")]) != p_text(tests[frozenset("ab")][2])  # Holm shows
+    assert "The margin is within the noise" in " ".join(got.sentences)
