@@ -9,6 +9,8 @@ import math
 import numpy as np
 import pytest
 from click.testing import CliRunner
+from hypothesis import example, given, settings
+from hypothesis import strategies as st
 from scipy import stats
 
 from runner.cli import main
@@ -71,6 +73,29 @@ def test_holm_worked_example():
     assert holm([0.5, 0.9]) == [1.0, 1.0]
     got = holm([0.2, float("nan")])
     assert got[0] == 0.2 and math.isnan(got[1])
+
+
+def _holm_rejects(p_values, alpha):
+    """Holm's (1979) sequentially rejective procedure as he states it: order the p-values,
+    reject while p_(j) <= alpha / (m - j + 1) (j from 1), and stop at the first that is not."""
+    m, rejected = len(p_values), set()
+    for j, (p, i) in enumerate(sorted((p, i) for i, p in enumerate(p_values))):
+        if (m - j) * p > alpha:  # p_(j) > alpha / (m - j + 1), j counted from 1
+            break
+        rejected.add(i)
+    return rejected
+
+
+@settings(max_examples=300, deadline=None)
+@given(st.lists(st.one_of(st.floats(1e-6, 0.12), st.floats(0.12, 1.0)), min_size=1,
+                max_size=6), st.sampled_from([0.01, 0.05, 0.1]))
+@example([0.04, 0.045], 0.05)  # 2 × 0.04 > 0.05: the procedure stops, rejecting neither
+def test_holm_adjusted_p_rejects_what_the_step_down_procedure_rejects(p_values, alpha):
+    # Holm (1979), Scand. J. Statist. 6:65-70 (from memory): an adjusted p at most alpha
+    # rejects exactly the hypotheses the step-down procedure rejects at level alpha.
+    adjusted = holm(p_values)
+    assert {i for i, q in enumerate(adjusted) if q <= alpha} == _holm_rejects(p_values, alpha)
+    assert all(p <= q <= 1.0 for p, q in zip(p_values, adjusted))
 
 
 def test_needs_two_folds():
