@@ -83,7 +83,9 @@ def main():
 @_lift_option
 def check(spec_file, store_path, lift_limits):
     """Validate a spec and print its plan and cost estimate; fits nothing, writes nothing.
-    --store (or $FOLDWISE_STORE) names the store `run` would write to, as it does for run.
+    --store (or $FOLDWISE_STORE) names the store `run` would write to, as it does for run;
+    a file `run` would refuse (not DuckDB, or a database that is no foldwise store) is
+    refused here too, unchanged.
 
     \b
       foldwise check specs/greenhouse.yaml

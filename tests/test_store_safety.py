@@ -69,6 +69,34 @@ def test_a_database_that_is_not_a_store_is_never_written(tmp_path, diabetes_csv,
     assert len(names) == 1
 
 
+@pytest.mark.parametrize("kind", ["foreign database", "text file"])
+def test_check_refuses_the_store_run_would_refuse_and_leaves_it_as_it_was(tmp_path,
+                                                                           diabetes_csv, kind):
+    """`check --store` gives run's own refusal (same paragraph, exit 2) for a DuckDB file
+    that is not a foldwise store and for a file that is not DuckDB, and leaves the file's
+    bytes and modification time as they were."""
+    spec = write_spec(tmp_path, MODELS)
+    if kind == "text file":
+        target = tmp_path / "notes.duckdb"
+        target.write_text("bay 4: glazing replaced on the north side\n" * 20)
+        words = "it is not a DuckDB database file"
+    else:
+        target = _foreign(tmp_path / "theirs.duckdb", "create table invoices (id integer)")
+        words = "is a database but not a foldwise store: it holds 1 table(s) (invoices)"
+    before = (target.read_bytes(), target.stat().st_mtime_ns)
+    answers = {}
+    for command in ("check", "run"):
+        out = _cli(command, spec, "--store", target, *(("--quiet",) if command == "run" else ()))
+        assert out.exit_code == 2, out.output
+        assert out.output.startswith("Error: ") and out.output.count("\n") == 1, out.output
+        assert words in out.output and str(target) in out.output
+        assert (target.read_bytes(), target.stat().st_mtime_ns) == before
+        answers[command] = out.output
+    assert answers["check"] == answers["run"]
+    assert sorted(p.name for p in tmp_path.iterdir()) == sorted(
+        ["diabetes.csv", "spec.yaml", target.name])
+
+
 def test_an_empty_database_becomes_a_store(tmp_path):
     empty = tmp_path / "empty.duckdb"
     duckdb.connect(str(empty)).close()

@@ -211,14 +211,22 @@ class Store:
                         raise self._creation_error(exc) from None
             time.sleep(0.1 + 0.1 * attempt)
 
-    def _refuse_foreign_unchanged(self) -> None:
+    def check_can_record(self) -> None:
+        """Raise the StoreError `run` would raise before its first write here: a place that
+        cannot be written, a file that is not DuckDB, a database that is not a foldwise
+        store. Looks as a reader does, through a connection that cannot write (`check`)."""
+        self.check_writable()
+        self._refuse_foreign_unchanged(writing=False)
+
+    def _refuse_foreign_unchanged(self, *, writing: bool = True) -> None:
         """On a file that exists, look through a read-only connection first, so that a file
         that is no foldwise store is refused unchanged (once per Store). Inside a session
-        the file is open for writing already, and the schema check refuses it instead."""
+        the file is open for writing already, and the schema check refuses it instead.
+        `writing`: wait for a busy file as a writer does (however long) or a reader."""
         if self._looked or self._held is not None or self.location.shared \
                 or not self.location.exists():
             return
-        with self._connect(read_only=True, writing=True, small=True) as con:
+        with self._connect(read_only=True, writing=writing, small=True) as con:
             if self._schema_version(con) is None:
                 self._refuse_foreign(con)
         self._looked = True

@@ -138,7 +138,7 @@ def check_spec(spec: Spec, *, lift_limits: bool = False, store: str | None = Non
     plan = prep.plan
     findings = prep.findings()
     refuse(findings, f"spec {spec.source or spec.name}")
-    Store(store_path(spec, store)).check_writable()
+    Store(store_path(spec, store)).check_can_record()
     rows = []
     for m in size.models:
         rows.append({"model": m.label, "family": m.family,
