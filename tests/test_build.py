@@ -324,6 +324,28 @@ def test_models_card_fetch_and_coefficients_commands(demo_built, tmp_path):
     assert table["term"].iloc[0] == "(intercept)" and "cultivar=aurelia" in set(table["term"])
 
 
+def test_after_remove_takes_the_built_models_the_listing_does_not_say_none_yet(demo_built,
+                                                                               tmp_path):
+    _, store, sweep_id, _ = demo_built
+    copy = tmp_path / "copy.duckdb"
+    shutil.copy(store.path, copy)
+    n_built = int(Store(copy).query("select count(*) as n from models").n.iloc[0])
+    assert n_built >= 3
+    run = lambda *a: CliRunner().invoke(main, [*a, "--store", str(copy)])
+    before = run("models", "--sweep", sweep_id)
+    assert before.exit_code == 0 and "no built model" not in before.output
+    removed = run("remove", sweep_id, "--yes")
+    assert removed.exit_code == 0, removed.output
+    assert f"among them {n_built} built model(s) (the files `build` wrote stay" \
+        in removed.output, removed.output
+    listed = run("models")
+    assert listed.exit_code == 0, listed.output
+    words = " ".join(listed.output.split())
+    assert "yet" not in words
+    assert ("note: the store holds no built models: none was built, or `foldwise remove` "
+            "took them with their sweeps") in words, words
+
+
 def test_signed_coefficients_reproduce_the_stored_test_predictions(demo_built):
     # Identity check (arithmetic of the pipeline, no outside source): intercept plus each
     # coefficient times its column's value (median-imputed as the pipeline does; one-hot

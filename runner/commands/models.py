@@ -117,8 +117,10 @@ def models(store_path, sweep_id, fmt):
     from ..read.explained import built_models
     from ..read.model_views import models_view
 
-    df = built_models(_open_store(store_path), sweep_id)
-    _show(_Plain(df), models_view(df), fmt)
+    store = _open_store(store_path)
+    sid = None if sweep_id is None else store.resolve_sweep(sweep_id)
+    df = built_models(store, sid)
+    _show(_Plain(df), models_view(df, sid), fmt)
 
 
 class _Plain:

@@ -229,8 +229,10 @@ def remove(sweep_ids, store_path, labels, name, status, older_than, dry_run, yes
         click.echo("nothing removed.")
         return
     removed = remove_sweeps(store, ids, alive=process_alive)
+    built = removed.get("models", 0)
     click.echo(f"removed {len(ids)} sweep(s) and {sum(removed.values())} rows from "
-               f"{store.path}.")
+               f"{store.path}" + (f", among them {built} built model(s) (the files `build` "
+                                  "wrote stay where they are)" if built else "") + ".")
 
 
 def _confirmed(question: str) -> bool:

@@ -31,8 +31,10 @@ def _size(n) -> str:
     return ""
 
 
-def models_view(df: pd.DataFrame) -> View:
-    """The store's built models, newest first."""
+def models_view(df: pd.DataFrame, sweep_id: str | None = None) -> View:
+    """The store's built models, newest first (those of `sweep_id` if given). None found
+    is not "none yet": `remove` takes a sweep's built models with it, and the store keeps
+    no trace of them, so the note says both ways it can come about."""
     table = pd.DataFrame({
         "model id": df["model_id"], "sweep": df["sweep_id"], "model": df["model"],
         "family": df["family"], "rule": [("named cell" if r == "cell" else rule_label(r))
@@ -42,8 +44,16 @@ def models_view(df: pd.DataFrame) -> View:
         "rows": [f"{n:,} ({u})" for n, u in zip(df["n_rows"], df["rows_used"])],
         "built": [str(t)[:19] for t in df["created_at"]], "by": df["user_name"],
         "size": [_size(b) for b in df["artefact_bytes"]]})
-    notes = () if len(df) else ("note: no built models yet; `foldwise build --model LABEL` "
-                                "builds one from a sweep's pick.",)
+    if len(df):
+        notes = ()
+    elif sweep_id is not None:
+        notes = (f"note: the store holds no built model of sweep {sweep_id}: none was built "
+                 "from it, or they were removed; `foldwise build --sweep "
+                 f"{sweep_id} --model LABEL` builds one from its pick.",)
+    else:
+        notes = ("note: the store holds no built models: none was built, or `foldwise "
+                 "remove` took them with their sweeps (the files `build` wrote stay where "
+                 "they are); `foldwise build --model LABEL` builds one from a sweep's pick.",)
     return View("built models", table, notes=notes)
 
 
