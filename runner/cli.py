@@ -13,9 +13,9 @@ import os
 import click
 
 from .commands import models as _models, record as _record
-from .commands.options import (_RULES, _ProgressBar, _format_option, _lift_option, _open_store,
-                               _se_option, _show, _spec_store_option, _store_option,
-                               _sweep_option)
+from .commands.options import (_RULES, Choice, _ProgressBar, _format_option, _lift_option,
+                               _open_store, _se_option, _show, _spec_store_option,
+                               _store_option, _sweep_option)
 from .errors import FoldwiseError
 from .output import emit
 
@@ -259,7 +259,7 @@ def sql(query, store_path, fmt, allow_files, answer_mb, work_mb):
 @main.command()
 @_store_option
 @_sweep_option
-@click.option("--rule", type=click.Choice(_RULES), default=None,
+@click.option("--rule", type=Choice(_RULES), default=None,
               help="Show one rule only [default: best and one_se side by side].")
 @click.option("--model", default=None, help="Only this model.")
 @_se_option
@@ -282,7 +282,7 @@ def pick(store_path, sweep_id, rule, model, se, fmt):
 @main.command()
 @_store_option
 @_sweep_option
-@click.option("--rule", type=click.Choice(_RULES), default=None,
+@click.option("--rule", type=Choice(_RULES), default=None,
               help="Which cell of each model to compare [default: the sweep's rule].")
 @click.option("--metric", default=None,
               help="Compare on this metric [default: the sweep's first metric].")
@@ -334,7 +334,7 @@ _IMPORTANCE_METHODS = ("permutation", "impurity", "coefficient")
 
 
 @main.command()
-@click.argument("kind", type=click.Choice(_PLOT_KINDS))
+@click.argument("kind", type=Choice(_PLOT_KINDS), metavar="KIND")
 @_store_option
 @_sweep_option
 @click.option("--model", default=None,
@@ -344,16 +344,16 @@ _IMPORTANCE_METHODS = ("permutation", "impurity", "coefficient")
 @click.option("--name", default=None,
               help="history: the spec name whose sweeps to draw [default: the latest "
                    "sweep's].")
-@click.option("--rule", type=click.Choice(_RULES), default=None,
+@click.option("--rule", type=Choice(_RULES), default=None,
               help="Which picked cell stands for each model [default: the sweep's rule].")
-@click.option("--method", type=click.Choice(_IMPORTANCE_METHODS), default="permutation",
+@click.option("--method", type=Choice(_IMPORTANCE_METHODS), default="permutation",
               show_default=True, help="importance: which importance to draw.")
 @click.option("--depth", type=click.IntRange(1, 12), default=3, show_default=True,
               help="tree: levels drawn before deeper branches are summarised.")
 @_se_option
 @click.option("--out-dir", type=click.Path(file_okay=False), default="results/plots",
               show_default=True, help="Folder for the image files (created if missing).")
-@click.option("--image", "images", type=click.Choice(("png", "svg")), multiple=True,
+@click.option("--image", "images", type=Choice(("png", "svg")), multiple=True,
               help="Image format; repeat for both [default: png and svg].")
 def plot(kind, store_path, sweep_id, model, name, rule, method, depth, se, out_dir, images):
     """Draw one kind of figure of a sweep to PNG and SVG files and print their paths.

@@ -203,7 +203,7 @@ def test_compare_higher_is_better(tmp_path):
 def test_compare_errors_and_single_model(tmp_path):
     store = write_sweep(tmp_path / "s.duckdb", {"only": [[1.0, 1.1, 0.9, 1.0]]}, k=2, repeats=2)
     assert compare(store).empty
-    with pytest.raises(QueryError, match=r"metric must be one of this sweep's metrics \(rmse\)"):
+    with pytest.raises(QueryError, match=r"--metric 'mae' is no metric of sweep .*; its metrics: rmse\."):
         compare(store, metric="mae")
     with pytest.raises(QueryError, match="rule must be one of best, one_se"):
         compare(store, rule="median")
@@ -226,7 +226,7 @@ def test_compare_command(three_models):
         assert line in table.stdout
     assert "note: p-values from resampled folds are approximate" in table.stdout
     bad = runner.invoke(main, ["compare", "--store", path, "--metric", "mae"])
-    assert bad.exit_code == 2 and "metric must be one of" in bad.stderr
+    assert bad.exit_code == 2 and "--metric 'mae' is no metric of sweep" in bad.stderr
 
 
 def test_holm_in_compare_counts_only_the_pairs_it_can_test(tmp_path):

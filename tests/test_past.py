@@ -398,7 +398,8 @@ def test_history_picks_what_pick_picks_in_every_sweep(store, base):
     assert family.models == ("tree",) and family.table["spec_changed"].tolist() == [False, True]
     out = invoke("history", "--model", "ridge", "--format", "csv", "--store", store.path)
     assert out.exit_code == 0 and out.output.count("\n") == 3
-    with pytest.raises(QueryError, match="no model 'lasso' in any sweep of spec 'small'"):
+    with pytest.raises(QueryError,
+                       match="--model 'lasso' is no model of any sweep of spec 'small'"):
         model_history(store, "lasso")
 
 
@@ -431,7 +432,8 @@ def test_history_of_a_model_only_another_spec_holds_names_that_spec(base, tmp_pa
     run_sweep(load_spec(path), store=store, jobs=1)
     out = invoke("history", "--model", "ridge", "--store", store.path)
     assert out.exit_code == 2 and out.output == (
-        "Error: no model 'ridge' in any sweep of spec 'other spec'; its models: tree. "
+        "Error: --model 'ridge' is no model of any sweep of spec 'other spec'; its models: "
+        "tree. "
         "Spec 'small' holds it: give --name small.\n")
     with pytest.raises(QueryError, match="its families: pruned_tree. Spec 'small' holds it"):
         model_history(store, family="linear")
@@ -445,8 +447,8 @@ def test_history_of_a_model_under_another_family_names_its_family(base):
     assert out.exit_code == 2 and "Traceback" not in out.output, out.output
     assert out.output == ("Error: model 'tree' of spec 'small' is of family 'pruned_tree', "
                           "not 'linear'; ask for the model or for a family, not both.\n")
-    with pytest.raises(QueryError, match="^no family 'forst' in any sweep of spec 'small'; "
-                                         "its families: linear, pruned_tree.$"):
+    with pytest.raises(QueryError, match="^--family 'forst' is no family of any sweep of spec "
+                                         "'small'; its families: linear, pruned_tree.$"):
         model_history(store, family="forst")
 
 

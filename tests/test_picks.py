@@ -337,7 +337,7 @@ def test_pick_options_and_errors(tmp_path):
                                                 "tree": [[3.0, 3.1, 2.9, 3.0]]}, k=2, repeats=2)
     only = picks(store, rule="one_se", model="tree")
     assert only[["model", "rule"]].values.tolist() == [["tree", "one_se"]]
-    with pytest.raises(QueryError, match=r"no model 'tre' .* Did you mean 'tree'\?"):
+    with pytest.raises(QueryError, match=r"--model 'tre' is no model .* Did you mean 'tree'\?"):
         picks(store, model="tre")
     with pytest.raises(QueryError, match=r"rule must be one of best, one_se, got rule='worst'"):
         picks(store, rule="worst")
@@ -652,7 +652,7 @@ def test_pick_command_table_and_errors(diabetes_sweep):
     assert "the sweep's rule is one-SE" in result.stdout
     bad = runner.invoke(main, ["pick", "--store", str(store.path), "--model", "tre"])
     assert bad.exit_code == 2
-    assert "no model 'tre'" in bad.stderr and "Did you mean 'tree'?" in bad.stderr
+    assert "--model 'tre' is no model" in bad.stderr and "Did you mean 'tree'?" in bad.stderr
 
 
 def test_path_command_json_matches_the_api(diabetes_sweep):

@@ -334,5 +334,5 @@ def test_an_exact_sweep_id_wins_over_longer_ids_it_begins_and_an_empty_one_names
     assert store.resolve_sweep("run_") == "run_12"
     with pytest.raises(StoreError, match="sweep id prefix 'run' matches 3 sweeps"):
         store.resolve_sweep("run")
-    with pytest.raises(StoreError, match="no sweep '' in store"):
+    with pytest.raises(StoreError, match="--sweep '' is no sweep id \\(nor the start of one\\) in store"):
         store.resolve_sweep("")

@@ -56,7 +56,8 @@ def test_an_error_quoting_stored_labels_prints_them_without_control_characters(b
     _, argvs = _copy(bases, "regression", Case("cells", "model", "control"), tmp_path)
     out = _run(argvs["path tree"])
     assert out.exit_code == 2 and out.output.count("\n") == 1, out.output
-    assert out.output.startswith("Error: no model 'tree'") and _plain(out.output), out.output
+    assert out.output.startswith("Error: --model 'tree' is no model") and _plain(out.output), \
+        out.output
     assert "[2J" in out.output  # the label's words stay, its control characters gone
 
 

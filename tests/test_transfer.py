@@ -140,13 +140,16 @@ def test_merge_of_an_unknown_sweep_names_the_other_store_and_how_to_list_it(expl
     _, store, _ = explained
     target = tmp_path / "target.duckdb"
     export_store(store, tmp_path / "export")
+    held = sorted(store.query("select sweep_id from sweeps").sweep_id, reverse=True)
+    assert len(held) <= 8  # all listed
     for other, listed in ((store.path, f"`foldwise sweeps --store {store.path}` lists them."),
                           (tmp_path / "export", "its foldwise-export.json lists them.")):
         kind = "store" if other == store.path else "export"
         out = CliRunner().invoke(main, ["merge", str(other), "--sweep", "zzz", "--store",
                                         str(target)])
         assert out.exit_code == 2 and out.output == (
-            f"Error: no sweep 'zzz' in {other}, the {kind} merged from; {listed}\n")
+            f"Error: --sweep 'zzz' is no sweep id (nor the start of one) in {other}, the "
+            f"{kind} merged from; its sweeps, newest first: {', '.join(held)}. {listed}\n")
 
 
 def test_a_store_of_schema_version_1_is_upgraded_keeping_spec_order(explained, tmp_path):

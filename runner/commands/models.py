@@ -9,8 +9,8 @@ import sys
 import click
 
 from ..output import emit
-from .options import (_RULES, _ProgressBar, _format_option, _lift_option, _open_store, _show,
-                      _store_option, _sweep_option)
+from .options import (_RULES, Choice, _ProgressBar, _format_option, _lift_option, _open_store,
+                      _show, _store_option, _sweep_option)
 
 
 @click.command()
@@ -18,7 +18,7 @@ from .options import (_RULES, _ProgressBar, _format_option, _lift_option, _open_
 @_sweep_option
 @click.option("--model", default=None, help="The model label whose pick to build [default: "
               "the sweep's only model].")
-@click.option("--rule", type=click.Choice(_RULES), default=None,
+@click.option("--rule", type=Choice(_RULES), default=None,
               help="Which of the model's picks [default: the spec's `pick`].")
 @click.option("--cell", default=None, help="Build this cell (id or unique prefix) instead "
               "of a pick.")
@@ -60,7 +60,7 @@ def build(store_path, sweep_id, model, rule, cell, all_rows, data_path, accept_d
 @click.option("--keep", multiple=True, metavar="COLUMN",
               help="An input column to copy to the output (e.g. an id); repeat for more.")
 @click.option("--overwrite", is_flag=True, help="Replace --out if it exists.")
-@click.option("--unseen", type=click.Choice(["refuse", "allow"]), default="refuse",
+@click.option("--unseen", type=Choice(["refuse", "allow"]), default="refuse",
               show_default=True, help="Categories the model never saw: refuse the file, or "
               "predict them as the model's pipeline does (counted and reported).")
 @click.option("--interval", type=click.FloatRange(0, 1, min_open=True, max_open=True),
@@ -133,7 +133,7 @@ class _Plain:
 @click.command()
 @click.argument("model_ref", metavar="MODEL")
 @_store_option
-@click.option("--format", "fmt", type=click.Choice(["table", "json"]), default="table",
+@click.option("--format", "fmt", type=Choice(["table", "json"]), default="table",
               show_default=True, help="Readable, or the card's JSON as stored.")
 def card(model_ref, store_path, fmt):
     """Show a built model's card: where it came from, its inputs, scores and versions.

@@ -14,6 +14,17 @@ from ..output import FORMATS, emit
 STORE_ENV = "FOLDWISE_STORE"
 
 
+class Choice(click.Choice):
+    """click's choice whose refusal also names the closest choice, as every refusal of a
+    name foldwise does (runner/names.py)."""
+
+    def get_invalid_choice_message(self, value, ctx) -> str:
+        from ..names import nearest
+
+        return super().get_invalid_choice_message(value, ctx) + nearest(str(value),
+                                                                         self.choices)
+
+
 def _store_option(f):
     return click.option("--store", "store_path", type=str, envvar=STORE_ENV, default=None,
                         help="DuckDB store file, or a team store's postgresql://USER@HOST/DB "
@@ -30,7 +41,7 @@ def _spec_store_option(f):
 
 
 def _format_option(f):
-    return click.option("--format", "fmt", type=click.Choice(FORMATS), default="table",
+    return click.option("--format", "fmt", type=Choice(FORMATS), default="table",
                         show_default=True, help="Output as a table, CSV or JSON.")(f)
 
 
@@ -95,7 +106,7 @@ def _selection_options(f):
                          help="Only sweeps with this label (any value if no =VALUE); "
                               "repeat: all must hold."),
             click.option("--name", default=None, help="Only sweeps of this spec name."),
-            click.option("--status", type=click.Choice(_STATUSES), default=None,
+            click.option("--status", type=Choice(_STATUSES), default=None,
                          help="Only sweeps that ended so (a dead running sweep is "
                               "interrupted)."),
             click.option("--older-than", metavar="AGE", default=None,
@@ -128,6 +139,6 @@ def _sweep_option(f):
 
 
 def _se_option(f):
-    return click.option("--se", type=click.Choice(_SE_KINDS), default="plain", show_default=True,
+    return click.option("--se", type=Choice(_SE_KINDS), default="plain", show_default=True,
                         help="SE for the one-SE rule: plain = sd/sqrt(k·r); corrected = "
                              "sqrt((1/(k·r) + n_valid/n_train)·sd²).")(f)

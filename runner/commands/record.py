@@ -6,7 +6,7 @@ from __future__ import annotations
 import click
 
 from ..output import emit
-from .options import (_RULES, _format_option, _open_store, _se_option, _selection,
+from .options import (_RULES, Choice, _format_option, _open_store, _se_option, _selection,
                       _selection_options, _show, _store_option, _sweeps_option)
 
 
@@ -101,7 +101,7 @@ def merge(other, store_path, sweep_ids, labels, name, status, older_than):
 
 @click.command()
 @click.argument("folder", type=click.Path(file_okay=False))
-@click.option("--format", "fmt", type=click.Choice(["parquet", "csv"]), default="parquet",
+@click.option("--format", "fmt", type=Choice(["parquet", "csv"]), default="parquet",
               show_default=True, help="One file per table in this format.")
 @_store_option
 @_sweeps_option
@@ -158,7 +158,7 @@ def diff(sweep_a, sweep_b, store_path, se, fmt):
               help="Follow every model of this family instead (linear, pruned_tree, forest).")
 @click.option("--name", default=None,
               help="The spec name whose sweeps to read [default: the latest sweep's].")
-@click.option("--rule", type=click.Choice(_RULES), default=None,
+@click.option("--rule", type=Choice(_RULES), default=None,
               help="Pick rule in every sweep [default: each sweep's own].")
 @click.option("--metric", default=None,
               help="Pick and show by this metric [default: the latest sweep's first].")
@@ -214,8 +214,8 @@ def remove(sweep_ids, store_path, labels, name, status, older_than, dry_run, yes
     store = _open_store(store_path)
     check_rights(store)
     if sweep_ids:
-        chosen = _selection([store.resolve_sweep(x) for x in sweep_ids], labels, name,
-                            status, older_than)
+        chosen = _selection([store.resolve_sweep(x, option="SWEEP") for x in sweep_ids],
+                            labels, name, status, older_than)
     found = read_sweeps(store, chosen)
     if found.table.empty:
         click.echo(f"no sweep matches {chosen.describe()}; nothing removed.")

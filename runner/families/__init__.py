@@ -6,13 +6,12 @@ estimator module (`Family.estimators`) is imported only when something is fitted
 
 from __future__ import annotations
 
-import difflib
 import importlib
 import math
 from dataclasses import dataclass, field
 from typing import Any, Callable
 
-__all__ = ["FAMILIES", "Family", "Param", "get_family", "load_family", "nearest",
+__all__ = ["FAMILIES", "Family", "Param", "get_family", "load_family",
            "check_param_value", "READABLE_LEAVES", "READABLE_COEFFICIENTS"]
 
 
@@ -293,12 +292,6 @@ def get_family(name: str) -> Family:
     if name in FAMILIES:
         return FAMILIES[name]
     return Family(name=name, module="", params={}, complexity_order=())
-
-
-def nearest(name: str, candidates) -> str:
-    """A ' Did you mean ...?' hint naming the closest candidate, or ''."""
-    close = difflib.get_close_matches(name, list(candidates), n=1, cutoff=0.5)
-    return f" Did you mean '{close[0]}'?" if close else ""
 
 
 def check_param_value(param: Param, value: Any) -> Any:

@@ -56,10 +56,12 @@ def _read_artefact(path: Path) -> bytes:
         return fh.read()
 
 
-def read_model(source: str | Path, store=None) -> tuple[bytes, dict, str]:
+def read_model(source: str | Path, store=None, *, option: str = "MODEL"
+               ) -> tuple[bytes, dict, str]:
     """(artefact bytes, card, where) of a model file or a store's model id — nothing loaded
-    yet. A path that exists is a file; anything else is looked up in `store`. The bytes
-    must match the SHA-256 the store row (for an id) records as well as the card's."""
+    yet. A path that exists is a file; anything else is looked up in `store` (an unknown
+    id refused naming `option`). The bytes must match the SHA-256 the store row (for an
+    id) records as well as the card's."""
     path = Path(str(source))
     if path.suffix == ".skops" or path.exists():
         if not path.exists():
@@ -75,7 +77,7 @@ def read_model(source: str | Path, store=None) -> tuple[bytes, dict, str]:
                          "id.")
     from ..read.explained import model_record
 
-    row = model_record(store, str(source))
+    row = model_record(store, str(source), option=option)
     where = f"model {row['model_id']} of store {store.path}"
     import json
 
@@ -111,7 +113,7 @@ def fetch_model(store, model_id: str, out: str | Path | None = None) -> tuple[Pa
     from ..read.filenames import safe_component
     from .build import MODELS_FOLDER, write_model_files
 
-    blob, card, _ = read_model(model_id, store)
+    blob, card, _ = read_model(model_id, store, option="MODEL_ID")
     target = Path(out) if out is not None else \
         MODELS_FOLDER / f"{safe_component(str(card.get('model_id', model_id)))}.skops"
     return write_model_files(target, blob, card)

@@ -384,7 +384,7 @@ def _check_out(out: Path, data: Path, overwrite: bool) -> None:
 def _columns_plan(card: dict, columns: list[str], keep: list[str], path: Path,
                   prediction: list[str]) -> tuple[list[str], list[str]]:
     """(columns to read, columns ignored), after checking the card's columns are there."""
-    from ..families import nearest
+    from ..names import nearest
 
     names = [f["name"] for f in card["features"]]
     for name in names:

@@ -7,6 +7,7 @@ from __future__ import annotations
 import pandas as pd
 
 from ..errors import ModelError, StoreError
+from ..names import not_found
 from .queries import CELL_SUMMARY, json_object, picks, sweep_facts
 from .results import Coefficients, Importances, Stability
 from ..store import Store
@@ -205,8 +206,12 @@ def cell_record(store: Store, sweep_id: str, cell: str) -> dict:
     if len(df) == 1:
         return df.iloc[0].to_dict()
     if df.empty:
-        raise ModelError(f"no cell '{cell}' in sweep {sweep_id}; `foldwise path --model "
-                         "LABEL --format csv` lists a model's cell ids.")
+        known = store.query("select cell_id from cells where sweep_id = ? order by position",
+                            [sweep_id])["cell_id"]
+        raise ModelError(not_found("--cell", cell, "no cell id (nor the start of one) of "
+                                   f"sweep {sweep_id}", known, known_as="its cells",
+                                   then="`foldwise path --model LABEL --format csv` lists a "
+                                        "model's cell ids."))
     raise ModelError(f"cell id prefix '{cell}' matches {len(df)} cells of sweep {sweep_id}; "
                      "give more characters.")
 
@@ -235,23 +240,33 @@ def built_models(store: Store, sweep_id: str | None = None) -> pd.DataFrame:
         order by created_at desc, model_id desc""", [sweep_id, sweep_id])
 
 
-def _model_id(store: Store, model_id: str) -> tuple[str, str, str]:
-    """(model id, sweep id, rule) of the one built model whose id starts with `model_id`."""
+def _model_id(store: Store, model_id: str, option: str) -> tuple[str, str, str]:
+    """(model id, sweep id, rule) of the one built model whose id starts with `model_id`
+    (given as `option`, which a refusal names)."""
     ids = store.query("select model_id, sweep_id, rule from models "
                       "where starts_with(model_id, ?)", [model_id])
     if ids.empty:
-        raise ModelError(f"no built model '{model_id}' in store {store.path}; "
-                         "`foldwise models` lists them.")
+        newest = store.query("select model_id, count(*) over () as n from models order by "
+                             f"created_at desc, model_id desc limit {_MODELS_NAMED}")
+        raise ModelError(not_found(option, model_id, "no built model id (nor the start of "
+                                   f"one) in store {store.path}", newest["model_id"],
+                                   total=int(newest["n"].iloc[0]) if len(newest) else 0,
+                                   known_as="its built models, newest first",
+                                   then="`foldwise models` lists them."))
     if len(ids) > 1:
         raise ModelError(f"model id prefix '{model_id}' matches {len(ids)} models; give "
                          "more characters.")
     return tuple(str(v) for v in ids.iloc[0])
 
 
-def model_record(store: Store, model_id: str) -> dict:
+_MODELS_NAMED = 10_000
+"""The newest built models a refusal of an unknown id looks through for the closest one."""
+
+
+def model_record(store: Store, model_id: str, *, option: str = "MODEL") -> dict:
     """One built model's row, artefact bytes included, by its id or a unique prefix."""
     row = store.query("select * from models where model_id = ?",
-                      [_model_id(store, model_id)[0]]).iloc[0].to_dict()
+                      [_model_id(store, model_id, option)[0]]).iloc[0].to_dict()
     row["artefact"] = bytes(row["artefact"]) if row["artefact"] is not None else b""
     return row
 
@@ -261,7 +276,7 @@ def coefficient_table(store: Store, sweep_id: str | None = None, *,
     """Signed coefficients: of one built model (`model_id`), or of a sweep's explained
     linear cells, with model, picks and whether each term is the intercept."""
     if model_id is not None:
-        model_id, sweep_id, rule = _model_id(store, model_id)
+        model_id, sweep_id, rule = _model_id(store, model_id, "--model-id")
         df = store.query("""
             select m.model, m.cell_id, c.class_label, c.term, c.feature, c.level,
                    c.coefficient, c.standardised, c.mean, c.scale

@@ -20,6 +20,7 @@ import shlex
 import pandas as pd
 
 from ..errors import QueryError
+from ..names import not_found
 from ..write.spec_yaml import stated_missing_words
 from .compare import holm, t_from_moments
 from .picks import RULES, best_index, check_rule, check_se, one_se_index
@@ -112,9 +113,10 @@ def _read_words(ra: dict, rb: dict) -> tuple | None:
 
 def _the_two(store: Store, sweep_a: str | None, sweep_b: str | None) -> tuple[str, str]:
     if sweep_a is not None and sweep_b is not None:
-        a, b = store.resolve_sweep(sweep_a), store.resolve_sweep(sweep_b)
+        a = store.resolve_sweep(sweep_a, option="SWEEP_A")
+        b = store.resolve_sweep(sweep_b, option="SWEEP_B")
     else:
-        b = store.resolve_sweep(sweep_a)
+        b = store.resolve_sweep(sweep_a, option="SWEEP_A")
         a = previous_sweep(store, b)
         if a is None:
             name = sweep_facts(store, b).name
@@ -260,8 +262,9 @@ def _history(store: Store, model, name, family, rule, se, metric) -> ModelHistor
     name = facts.name
     metric = metric or facts.metric
     if metric not in facts.metrics:
-        raise QueryError(f"metric must be one of the latest '{name}' sweep's metrics "
-                         f"({', '.join(facts.metrics)}), got metric={metric!r}.")
+        raise QueryError(not_found("--metric", metric, f"no metric of the latest '{name}' "
+                                   f"sweep ({facts.sweep_id})", facts.metrics,
+                                   known_as="its metrics"))
     cells = history_cells(store, name, metric, models=[model] if model else None,
                           family=family)
     if cells.empty:
@@ -313,10 +316,10 @@ def _no_history(every: pd.DataFrame, name: str, model, family) -> str:
         return (f"model '{model}' of spec '{name}' is of family '{families[model]}', not "
                 f"'{family}'; ask for the model or for a family, not both.")
     if model:
-        return (f"no model '{model}' in any sweep of spec '{name}'; its models: "
-                f"{', '.join(sorted(families)) or 'none'}.")
-    return (f"no family '{family}' in any sweep of spec '{name}'; its families: "
-            f"{', '.join(sorted(set(families.values()))) or 'none'}.")
+        return not_found("--model", model, f"no model of any sweep of spec '{name}'",
+                         sorted(families), known_as="its models")
+    return not_found("--family", family, f"no family of any sweep of spec '{name}'",
+                     sorted(set(families.values())), known_as="its families")
 
 
 def _elsewhere(names: list[str]) -> str:
@@ -333,8 +336,9 @@ def _latest_of(store: Store, name: str | None) -> str:
         return store.latest_sweep_id()
     latest = latest_of_name(store, name)
     if latest is None:
-        raise QueryError(f"no sweep of spec '{name}' in store {store.path}; its spec names: "
-                         f"{', '.join(map(str, spec_names(store)[:20])) or 'none'}.")
+        raise QueryError(not_found("--name", name, "the spec name of no sweep in store "
+                                   f"{store.path}", spec_names(store),
+                                   known_as="its spec names"))
     return latest
 
 

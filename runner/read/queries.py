@@ -20,7 +20,8 @@ from typing import TYPE_CHECKING
 
 from .compare import TTest, holm, t_from_moments
 from ..errors import QueryError, StoreError
-from ..families import get_family, nearest
+from ..families import get_family
+from ..names import not_found
 from .picks import RULES, TOLERANCE, check_rule, check_se, grid_edges
 from .results import (CellStats, Comparison, ComplexityTable, Findings, Picks, Summary,
                       SweepFacts, SweepList)
@@ -70,6 +71,9 @@ def sweeps(store: Store, selection: Selection | None = None) -> SweepList:
                 from sweep_labels l where l.sweep_id = s.sweep_id) as label_pairs
         from sweeps s where {where} order by s.started_at desc, s.sweep_id desc""", params)
     listed = [dict(zip(columns, row)) for row in rows]
+    if not listed and selection.name is not None:
+        selection.check_name([n for (n,) in store.rows("select distinct name from sweeps")[1]],
+                             f"in store {store.path}")
     for row in listed:
         if row["status"] == "running" and not _alive_here(row):
             row["status"] = "interrupted"
@@ -317,17 +321,17 @@ def varying_params(store: Store, sweep_id: str) -> dict[str, list[str]]:
 def _check_model(store: Store, sweep_id: str, model: str | None) -> None:
     if model is None:
         return
-    known = sorted(model_order(store, sweep_id))
+    known = model_order(store, sweep_id)
     if model not in known:
-        raise QueryError(f"no model '{model}' in sweep {sweep_id}; its models: "
-                         f"{', '.join(known)}.{nearest(model, known)}")
+        raise QueryError(not_found("--model", model, f"no model of sweep {sweep_id}", known,
+                                   known_as="its models"))
 
 
 def _check_metric(facts: SweepFacts, metric: str | None) -> str:
     metric = metric or facts.metric
     if metric not in facts.metrics:
-        raise QueryError(f"metric must be one of this sweep's metrics "
-                         f"({', '.join(facts.metrics)}), got metric={metric!r}.")
+        raise QueryError(not_found("--metric", metric, f"no metric of sweep {facts.sweep_id}",
+                                   facts.metrics, known_as="its metrics"))
     return metric
 
 

@@ -10,6 +10,7 @@ import pandas as pd
 
 from ..errors import QueryError
 from ..families import get_family
+from ..names import not_found
 from .explained import tree_node_table
 from .plots import (FAINT, GRID, INK, MUTED, PALETTE, _figure, _headline, _nothing_stored,
                     _picked, _style)
@@ -83,6 +84,10 @@ def tree_figure(store: Store, sweep_id: str | None = None, *, rule: str | None =
     result = _picked(store, sweep_id, rule)
     chosen, sid, target = result.table, result.facts.sweep_id, result.facts.target
     trees = chosen[chosen["family"].map(lambda f: get_family(f).one_tree)]
+    if model is not None and model not in set(trees["model"]):
+        raise QueryError(not_found("--model", model, f"no single-tree model of sweep {sid}",
+                                   list(dict.fromkeys(trees["model"])),
+                                   known_as="its single-tree models"))
     if model is not None:
         trees = trees[trees["model"] == model]
     if trees.empty:

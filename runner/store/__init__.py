@@ -24,6 +24,7 @@ if TYPE_CHECKING:  # pandas is imported where rows become frames: a listing star
     import pandas as pd
 
 from ..errors import StoreError
+from ..names import not_found
 from .locations import FileLocation, ServerLocation, locate
 from .schema import (DEFAULT_STORE, SCHEMA_VERSION, TABLE_SQL, TABLES, UPGRADE_COLUMNS,
                      VIEW_SQL)
@@ -616,8 +617,9 @@ class Store:
             raise StoreError(f"store {self.path} holds no sweeps yet. Run `foldwise run SPEC`.")
         return str(df.iloc[0, 0])
 
-    def resolve_sweep(self, sweep_id: str | None) -> str:
-        """The given sweep id (a unique prefix is enough), or the latest one."""
+    def resolve_sweep(self, sweep_id: str | None, *, option: str = "--sweep") -> str:
+        """The given sweep id (a unique prefix is enough), or the latest one; a refusal
+        names the `option` it came from, the store's newest sweeps and the closest id."""
         if sweep_id is None:
             return self.latest_sweep_id()
         found = [] if not sweep_id else [str(x) for x in self.query(
@@ -627,10 +629,19 @@ class Store:
         if len(found) == 1:
             return found[0]
         if not found:
-            raise StoreError(f"no sweep '{sweep_id}' in store {self.path}; "
-                             "`foldwise sweeps` lists them.")
+            newest = self.query("select sweep_id, count(*) over () as n from sweeps order by "
+                                f"started_at desc, sweep_id desc limit {_SWEEPS_NAMED}")
+            raise StoreError(not_found(option, sweep_id, f"no sweep id (nor the start of one) "
+                                       f"in store {self.path}", newest["sweep_id"],
+                                       total=int(newest["n"].iloc[0]) if len(newest) else 0,
+                                       known_as="its sweeps, newest first",
+                                       then="`foldwise sweeps` lists them."))
         raise StoreError(f"sweep id prefix '{sweep_id}' matches {len(found)} sweeps; give more "
                          "characters.")
+
+
+_SWEEPS_NAMED = 10_000
+"""The newest sweeps a refusal of an unknown id looks through for the closest one."""
 
 
 def reaches_outside(exc: Exception) -> bool:

@@ -14,6 +14,7 @@ from dataclasses import dataclass
 from datetime import datetime, timedelta
 
 from ..errors import StoreError
+from ..names import not_found
 
 __all__ = ["Selection", "parse_label", "parse_labels", "check_labels", "check_key", "check_note",
            "parse_age", "resolve_ids", "set_labels", "STATUSES", "MAX_NOTE", "MAX_VALUE"]
@@ -106,9 +107,12 @@ def resolve_ids(known, given, *, where: str = "here",
     for prefix in given:
         hits = [s for s in known if s.startswith(str(prefix))] if prefix else []
         if len(hits) != 1:
-            raise StoreError(f"no sweep '{prefix}' {where}; {listed}." if not hits
-                             else f"sweep id prefix '{prefix}' matches {len(hits)} sweeps; "
-                                  "give more characters.")
+            raise StoreError(not_found("--sweep", prefix, f"no sweep id (nor the start of "
+                                       f"one) {where}", sorted(known, reverse=True),
+                                       known_as="its sweeps, newest first",
+                                       then=f"{listed}.")
+                             if not hits else f"sweep id prefix '{prefix}' matches "
+                             f"{len(hits)} sweeps; give more characters.")
         out.append(hits[0])
     return list(dict.fromkeys(out))
 
@@ -162,6 +166,14 @@ class Selection:
         if self.before:
             parts.append(f"started before {self.before:%Y-%m-%d %H:%M}")
         return ", ".join(parts) or "every sweep"
+
+    def check_name(self, names, where: str) -> None:
+        """Refuse a spec name that no sweep of `where` carries (`names`: those they do), so
+        a mistyped --name is told apart from a filter that matched nothing this time."""
+        names = sorted({str(n) for n in names if n is not None})
+        if self.name is not None and self.name not in names:
+            raise StoreError(not_found("--name", self.name, f"the spec name of no sweep "
+                                       f"{where}", names, known_as="its spec names"))
 
     def where(self, sweeps: str = "s", labels_table: str = "sweep_labels", *,
               running_as_interrupted: bool = False) -> tuple[str, list]:

@@ -19,7 +19,7 @@ import numpy as np
 import pandas as pd
 
 from ..errors import DataError
-from ..families import nearest
+from ..names import nearest
 
 __all__ = ["Frame", "read_table", "load_frame", "file_sha256", "infer_task", "MAX_MAGNITUDE",
            "MAX_CLASSES", "missing_value_options"]

@@ -16,7 +16,8 @@ from pydantic import (BaseModel, ConfigDict, Field, ValidationError, field_valid
                       model_validator)
 
 from ..errors import SpecError
-from ..families import FAMILIES, check_param_value, nearest
+from ..families import FAMILIES, check_param_value
+from ..names import nearest
 from ..metrics import METRICS, TASK_DEFAULTS
 from .findings import KINDS
 from .spec_yaml import MAX_DEPTH, MAX_NODES, UniqueKeyLoader, line_map, shape_problem
