@@ -149,7 +149,13 @@ def test_sweeps_filters_by_label_name_status_and_age(store, base):
     assert pick(labels=["purpose=baseline"]) == [first]
     assert pick(labels=["purpose"]) == [second, first]
     assert pick(labels=["purpose", "data=2026-11"]) == [first]
-    assert pick(labels=["purpose=nothing"]) == []
+    with pytest.raises(StoreError, match="^--label 'purpose=nothing' is a label of no sweep in "
+                       r"store .*; its labels of key purpose: purpose=baseline, purpose=tuned\."):
+        pick(labels=["purpose=nothing"])
+    with pytest.raises(StoreError, match="^--label 'purpse' is a label key of no sweep in store "
+                       r".*; its label keys: data, purpose\. Did you mean 'purpose'\?$"):
+        pick(labels=["purpse"])
+    assert pick(labels=["purpose=baseline"], status="interrupted") == []  # both exist
     assert pick(name="small", status="finished") == [second, first]
     assert pick(status="interrupted") == [] and pick(older_than="1d") == []
     out = invoke("sweeps", "--label", "purpose=tuned", "--format", "json", "--store", store.path)
@@ -629,7 +635,7 @@ def test_export_and_merge_take_only_the_chosen_sweeps(store, base, tmp_path):
                  picked.path)
     assert out.exit_code == 0 and "merged 1 sweep(s)" in out.output
     assert sweeps(picked).table["sweep_id"].tolist() == [first]
-    with pytest.raises(StoreError, match="no sweep of .* matches label purpose=nothing"):
+    with pytest.raises(StoreError, match="--label 'purpose=nothing' is a label of no sweep of "):
         merge_store(picked, store.path, Selection.of(labels=["purpose=nothing"]))
 
 

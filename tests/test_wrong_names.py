@@ -61,7 +61,6 @@ CASES = [
     (["label", "--sweep", "~SWEEP", "purpose=x"], "--sweep", "~SWEEP", "SWEEP", False),
     (["diff", "~SWEEP"], "SWEEP_A", "~SWEEP", "SWEEP", False),
     (["remove", "~SWEEP", "--yes"], "SWEEP", "~SWEEP", "SWEEP", False),
-    (["remove", "--name", "demo-bilt", "--yes"], "--name", "demo-bilt", "demo-built", False),
     (["sweeps", "--name", "demo-bilt"], "--name", "demo-bilt", "demo-built", False),
     (["sweeps", "--status", "finshed"], "--status", "finshed", "finished", True),
     (["export", "OUT", "--sweep", "~SWEEP"], "--sweep", "~SWEEP", "SWEEP", False),
@@ -123,3 +122,41 @@ def test_many_names_are_shown_as_the_first_few_and_a_count(demo_built):
         f"its cells: {', '.join(cells[:8])}, ... (22 in all). Did you mean "
         f"'{built['tree'].card['cell']['cell_id']}'? `foldwise path --model LABEL --format "
         "csv` lists a model's cell ids.\n")
+
+
+def test_a_mistyped_label_is_refused_by_the_filters_and_named_by_a_drop(demo_built, tmp_path):
+    """A label key or key=value no sweep carries is a mistyped filter (refused as above);
+    remove says so in a note and removes nothing (exit 0), and a key `label --drop` does not
+    find is a note beside the changes made (exit 0)."""
+    import shutil
+
+    _, store, sweep_id, _ = demo_built
+    copy = tmp_path / "labelled.duckdb"
+    shutil.copy(store.path, copy)
+    run = lambda *a: CliRunner().invoke(main, [*a, "--store", str(copy)])
+    assert run("label", "--sweep", sweep_id, "purpose=baseline").exit_code == 0
+    before = (copy.read_bytes(), copy.stat().st_mtime_ns)
+    for args, paragraph in (
+            (["sweeps", "--label", "purpse"],
+             f"Error: --label 'purpse' is a label key of no sweep in store {copy}; its label "
+             "keys: purpose. Did you mean 'purpose'?\n"),
+            (["export", str(tmp_path / "out"), "--label", "purpose=baselin"],
+             f"Error: --label 'purpose=baselin' is a label of no sweep in store {copy}; its "
+             "labels of key purpose: purpose=baseline. Did you mean 'purpose=baseline'?\n")):
+        out = run(*args)
+        assert out.exit_code == 2 and out.output == paragraph, out.output
+        assert (copy.read_bytes(), copy.stat().st_mtime_ns) == before
+    # remove's filters are a script's (README: `remove --label purpose=scratch --older-than
+    # 30d --yes`), which may name what an earlier run took away: said, but no error
+    out = run("remove", "--label", "purpose=baselin", "--yes")
+    assert out.exit_code == 0, out.output
+    assert out.stderr == (f"note: --label 'purpose=baselin' is a label of no sweep in store "
+                          f"{copy}; its labels of key purpose: purpose=baseline. Did you mean "
+                          "'purpose=baseline'?\n")
+    assert out.stdout == "no sweep matches label purpose=baselin; nothing removed.\n"
+    assert (copy.read_bytes(), copy.stat().st_mtime_ns) == before
+    dropped = run("label", "--sweep", sweep_id, "--drop", "purpse", "owner=ana")
+    assert dropped.exit_code == 0, dropped.output
+    assert (f"note: sweep {sweep_id} had no label 'purpse'; nothing to drop. Did you mean "
+            "'purpose'?") in dropped.stderr
+    assert "purpose" in run("sweeps", "--label", "owner=ana").output

@@ -50,17 +50,19 @@ def label(labels, store_path, sweep_id, drop, note, fmt):
     from ..read.past_views import sweeps_view
     from ..store.labels import Selection, parse_labels, set_labels
 
+    from ..names import nearest
     from ..read.past_views import plain_text
     from ..read.queries import sweep_labels
 
     store = _open_store(store_path)
     sid = store.resolve_sweep(sweep_id)
-    absent = [k for k in drop if k not in sweep_labels(store, [sid]).get(sid, {})]
+    held = sweep_labels(store, [sid]).get(sid, {})
+    absent = [k for k in drop if k not in held]
     if labels or drop or note is not None:
         set_labels(store, sid, parse_labels(labels), drop=drop, note=note)
     for key in absent:
-        click.echo(f"note: sweep {sid} had no label '{plain_text(key)}'; nothing to drop.",
-                   err=True)
+        click.echo(f"note: sweep {sid} had no label '{plain_text(key)}'; nothing to drop."
+                   + plain_text(nearest(key, held)), err=True)
     result = read_sweeps(store, Selection(ids=(sid,)))
     _show(result, sweeps_view(result, f"sweep {sid}"), fmt)
 
@@ -203,8 +205,9 @@ def remove(sweep_ids, store_path, labels, name, status, older_than, dry_run, yes
     them leaves every other sweep whole. A sweep still running is never removed.
     """
     from ..read.past_queries import sweep_rows
-    from ..read.queries import process_alive, sweeps as read_sweeps
-    from ..read.past_views import removal_view
+    from ..errors import StoreError
+    from ..read.queries import check_selection, process_alive, sweeps as read_sweeps
+    from ..read.past_views import plain_text, removal_view
     from ..store.tidy import check_rights, remove_sweeps
 
     chosen = _selection(sweep_ids, labels, name, status, older_than)
@@ -216,8 +219,12 @@ def remove(sweep_ids, store_path, labels, name, status, older_than, dry_run, yes
     if sweep_ids:
         chosen = _selection([store.resolve_sweep(x, option="SWEEP") for x in sweep_ids],
                             labels, name, status, older_than)
-    found = read_sweeps(store, chosen)
-    if found.table.empty:
+    found = read_sweeps(store, chosen, strict=False)
+    if found.table.empty:  # a script's filters may name what is all gone: no error, a note
+        try:
+            check_selection(store, chosen)
+        except StoreError as exc:
+            click.echo(f"note: {plain_text(str(exc))}", err=True)
         click.echo(f"no sweep matches {chosen.describe()}; nothing removed.")
         return
     ids = found.table["sweep_id"].tolist()

@@ -52,9 +52,11 @@ def _one_connection(read):
 
 # -- sweeps ------------------------------------------------------------------------------
 @_one_connection
-def sweeps(store: Store, selection: Selection | None = None) -> SweepList:
+def sweeps(store: Store, selection: Selection | None = None, *,
+           strict: bool = True) -> SweepList:
     """One row per sweep, newest first, with its size, how it ended, labels and note;
-    only the sweeps `selection` names when it is given.
+    only the sweeps `selection` names when it is given. With `strict`, none found for a
+    spec name or label that no sweep carries is refused (`check_selection`).
 
     A sweep still marked 'running' whose process on this host is gone shows as
     'interrupted' (the next `foldwise run` also records it so)."""
@@ -71,9 +73,8 @@ def sweeps(store: Store, selection: Selection | None = None) -> SweepList:
                 from sweep_labels l where l.sweep_id = s.sweep_id) as label_pairs
         from sweeps s where {where} order by s.started_at desc, s.sweep_id desc""", params)
     listed = [dict(zip(columns, row)) for row in rows]
-    if not listed and selection.name is not None:
-        selection.check_name([n for (n,) in store.rows("select distinct name from sweeps")[1]],
-                             f"in store {store.path}")
+    if not listed and strict:
+        check_selection(store, selection)
     for row in listed:
         if row["status"] == "running" and not _alive_here(row):
             row["status"] = "interrupted"
@@ -85,6 +86,16 @@ def sweeps(store: Store, selection: Selection | None = None) -> SweepList:
     shown.insert(shown.index("note"), "labels")
     return SweepList(selection.describe(), tuple(shown),
                      tuple(tuple(row[c] for c in shown) for row in listed))
+
+
+def check_selection(store: Store, selection: Selection) -> None:
+    """Refuse a selection's spec name or label that no sweep of the store carries (a
+    mistyped filter, not one that matched nothing), naming the closest."""
+    if selection.name is None and not selection.labels:
+        return
+    selection.check_names([n for (n,) in store.rows("select distinct name from sweeps")[1]],
+                          store.rows("select distinct key, value from sweep_labels")[1],
+                          f"in store {store.path}")
 
 
 def sweep_labels(store: Store, sweep_ids: list[str]) -> dict[str, dict[str, str]]:

@@ -167,13 +167,25 @@ class Selection:
             parts.append(f"started before {self.before:%Y-%m-%d %H:%M}")
         return ", ".join(parts) or "every sweep"
 
-    def check_name(self, names, where: str) -> None:
-        """Refuse a spec name that no sweep of `where` carries (`names`: those they do), so
-        a mistyped --name is told apart from a filter that matched nothing this time."""
+    def check_names(self, names, pairs, where: str) -> None:
+        """Refuse a spec name, label key or key=value that no sweep of `where` carries
+        (`names`: the spec names they do; `pairs`: their (key, value) labels), so a
+        mistyped --name or --label is told apart from filters that matched nothing."""
         names = sorted({str(n) for n in names if n is not None})
         if self.name is not None and self.name not in names:
             raise StoreError(not_found("--name", self.name, f"the spec name of no sweep "
                                        f"{where}", names, known_as="its spec names"))
+        pairs = {(str(k), str(v)) for k, v in pairs if k is not None and v is not None}
+        keys = sorted({k for k, _ in pairs})
+        for key, value in self.labels:
+            if key not in keys:
+                raise StoreError(not_found("--label", key, f"a label key of no sweep {where}",
+                                           keys, known_as="its label keys"))
+            if value is not None and (key, value) not in pairs:
+                raise StoreError(not_found(
+                    "--label", f"{key}={value}", f"a label of no sweep {where}",
+                    sorted(f"{k}={v}" for k, v in pairs if k == key),
+                    known_as=f"its labels of key {key}"))
 
     def where(self, sweeps: str = "s", labels_table: str = "sweep_labels", *,
               running_as_interrupted: bool = False) -> tuple[str, list]:

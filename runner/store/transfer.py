@@ -79,8 +79,10 @@ def export_store(store: Store, folder: str | Path, fmt: str = "parquet",
                     f"select s.sweep_id from sweeps s where {where} order by s.sweep_id",
                     params).fetchall()]
                 if not chosen:
-                    selection.check_name([n for (n,) in con.execute(
-                        "select distinct name from sweeps").fetchall()],
+                    selection.check_names(
+                        [n for (n,) in con.execute("select distinct name from sweeps")
+                         .fetchall()],
+                        con.execute("select distinct key, value from sweep_labels").fetchall(),
                         f"in store {store.path}")
                     raise StoreError(f"no sweep in store {store.path} matches "
                                      f"{selection.describe()}; nothing was exported. "
@@ -308,8 +310,11 @@ def _chosen(con, sources: dict, selection: Selection | None, other) -> str:
     found = [r[0] for r in con.execute(f"select s.sweep_id from {sources['sweeps']} s "
                                        f"where {where}", params).fetchall()]
     if not found:
-        selection.check_name([n for (n,) in con.execute(
-            f"select distinct name from {sources['sweeps']}").fetchall()], f"of {other}")
+        selection.check_names(
+            [n for (n,) in con.execute(f"select distinct name from {sources['sweeps']}")
+             .fetchall()],
+            con.execute(f"select distinct key, value from {sources['sweep_labels']}")
+            .fetchall(), f"of {other}")
         raise StoreError(f"no sweep of {other} matches {selection.describe()}; nothing was "
                          "merged.")
     con.register("_chosen_sweeps", pd.DataFrame({"sweep_id": found}))
