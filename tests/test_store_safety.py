@@ -259,7 +259,7 @@ def test_a_store_whose_views_read_other_files_is_refused_unread(tmp_path, args):
     assert "hunter2" not in out.output
     assert out.exit_code == 2, out.output
     assert out.output.startswith("Error: ") and out.output.count("\n") == 1, out.output
-    assert "reaches outside the store" in out.output and str(tampered) in out.output
+    assert "its sweeps is a view, not a table" in out.output and str(tampered) in out.output
     assert {p: _digest(p) for p in (tampered, own)} == befores
     assert not (tmp_path / "out").exists() or not any((tmp_path / "out").iterdir())
 
@@ -281,7 +281,7 @@ def test_a_team_store_merges_no_file_a_tampered_store_reads(pg, tmp_path):
     url = pg.create_database("tampered_merge")
     out = _cli("merge", tampered, "--store", url)
     assert out.exit_code == 2, out.output
-    assert "hunter2" not in out.output and "reaches outside the store" in out.output
+    assert "hunter2" not in out.output and "its sweeps is a view, not a table" in out.output
     assert str(tampered) in out.output and out.output.count("\n") == 1, out.output
     assert Store(url).query("select count(*) as n from sweeps").n.tolist() == [0]
 

@@ -269,12 +269,18 @@ class Store:
         if row is None:
             return None
         try:
-            return int(row[0])
+            version = int(row[0])
         except (TypeError, ValueError):
             raise StoreError(f"store {self.path} is damaged: its foldwise_meta table gives "
                              f"schema_version {str(row[0])[:40]!r}, not a number. Restore "
                              "the store from a copy, or point --store at another store."
                              ) from None
+        if version < 1:
+            raise StoreError(f"store {self.path} is damaged: its foldwise_meta table gives "
+                             f"schema_version {version}, and foldwise numbers its schemas "
+                             "from 1; nothing was read and nothing was written. Restore the "
+                             "store from a copy, or point --store at another store.")
+        return version
 
     def _tables_here(self, con) -> list[str]:
         """Tables and views of this database (on a server: of its current schema)."""
@@ -564,6 +570,8 @@ class Store:
             return
         with self._connect(read_only=True) as con:
             found = self._schema_version(con)
+            if found is not None and found <= SCHEMA_VERSION and not self.location.shared:
+                self._refuse_misshapen(con, found)
         if found is None and self.location.shared:  # tables made since this process looked
             self.location.forget_catalog()
             with self._connect(read_only=True) as con:
@@ -584,6 +592,19 @@ class Store:
                 raise StoreError(f"store {self.path} was written by an older foldwise (schema "
                                  f"version {found}) and could not be upgraded: {exc}") from None
         self._schema_checked = True
+
+    def _refuse_misshapen(self, con, version: int) -> None:
+        """Refuse a store file whose catalog is not one foldwise made (`shape.py`), before
+        any of its rows is read or an upgrade writes."""
+        from .shape import shape_problem
+
+        catalog = con.execute("select current_database()").fetchone()[0]
+        problem = shape_problem(con, catalog, version)
+        if problem:
+            raise StoreError(f"store {self.path} cannot be read: {problem}. foldwise reads only "
+                             "the tables its sweeps write, so nothing was read and nothing was "
+                             "written. The store may have been altered: ask whoever passed it "
+                             "on for a sound copy, or point --store at another store.")
 
     def no_schema_error(self, con) -> StoreError:
         """Why a database without foldwise_meta cannot be read, in one paragraph."""

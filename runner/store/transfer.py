@@ -22,6 +22,7 @@ from ..read.filenames import make_folder, remove_made_folders
 from . import Store, reaches_outside, refusing_outside
 from .labels import Selection, resolve_ids
 from .schema import MODEL_TABLES, SCHEMA_VERSION, SINCE, TABLES
+from .shape import shape_problem
 
 EMPTY_LABELS = ("(select null::varchar as sweep_id, null::varchar as key, "
                 "null::varchar as value where false)")
@@ -283,6 +284,14 @@ def _attached(con, where, other) -> Iterator[None]:
         if version > SCHEMA_VERSION:
             raise StoreError(f"store {other} was written by a newer foldwise (schema version "
                              f"{version}); upgrade foldwise to merge it.")
+        problem = None if where.shared else (
+            f"its schema_version is {version}, and foldwise numbers its schemas from 1"
+            if version < 1
+            else shape_problem(con, "_other", version))
+        if problem:
+            raise StoreError(f"store {other} cannot be merged: {problem}. foldwise copies only "
+                             "the tables its sweeps write, so nothing was copied. The store "
+                             "may have been altered: ask whoever passed it on for a sound copy.")
         yield
     finally:
         con.execute("detach _other")
