@@ -573,7 +573,7 @@ def test_a_pair_is_compared_on_the_folds_where_both_scores_are_defined(tmp_path)
 
     path = complexity_view(complexity_table(store, "logit", result.sweep_id, metric="roc_auc"))
     assert path.sentences[-1] == (
-        "ROC AUC is undefined on some folds of 1 cell (validation rows lacking a class it "
+        "ROC AUC is undefined on some folds of 1 cell (their validation rows lack a class it "
         f"needs): their CV mean is over the {wide['logit'].notna().sum()} folds of 10 where "
         "it is defined.")
     notes = summary_view(summary(store, result.sweep_id)).notes

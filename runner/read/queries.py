@@ -358,13 +358,14 @@ def sweep_status(store: Store, sweep_id: str) -> str:
 # -- fold scores as read ------------------------------------------------------------------
 FOLD_SCORES = """(
     select sweep_id, cell_id, "repeat", fold, metric,
-           case when isfinite(value) then value end as value,
+           case when isfinite(value) and abs(value) <= 1e100 then value end as value,
            case when n_train > 0 and n_valid > 0 then n_valid::double / n_train end
                as valid_ratio,
            case when isfinite(n_leaves) then n_leaves end as n_leaves
     from fold_scores)"""
 """The fold scores every read takes, in place of the table: a score that is not a finite
-number is undefined (like a NULL one), and the validation share n_valid/n_train is NULL
+number, or beyond ±1e100 (no fitted model's score comes near; DuckDB's standard deviation
+fails where squares pass float range), is undefined (like a NULL one), and the validation share n_valid/n_train is NULL
 unless both counts are positive (a store from another hand may hold NaN, infinities or
 negative counts, on which DuckDB's standard deviation and the corrected SE fail)."""
 

@@ -377,7 +377,7 @@ def undefined_why(metric: str) -> str:
     is always defined, so only a store edited by another hand holds one that is not."""
     if get_metric(metric).task == "classification":
         return LACKING
-    return "the store holds no finite value there"
+    return "the store holds no finite value within ±1e100 there"
 
 
 def undefined_notes(df: pd.DataFrame, facts) -> tuple[str, ...]:
@@ -551,7 +551,7 @@ def complexity_view(result: ComplexityTable) -> View:
         notes += ("cells of one tier are equally simple: the one-SE pick is the best scoring "
                   "cell of the simplest tier within one SE.",)
     short, none = df["n"][(df["n"] < facts.n_folds) & (df["n"] > 0)], (df["n"] == 0).sum()
-    why = "validation rows lacking a class it needs"
+    why = undefined_why(m)
     if len(short):
         span = (f"{int(short.min())}" if short.min() == short.max()
                 else f"{int(short.min())} to {int(short.max())}")
