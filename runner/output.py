@@ -56,23 +56,36 @@ def _jsonable(df: pd.DataFrame) -> list[dict]:
             for row in df.to_dict("records")]
 
 
+_ON_SCREEN = {i: " " for i in [*range(0, 32), *range(127, 160)] if i != ord("\n")}
+"""Control characters but the line break, made spaces in CSV shown on a terminal (JSON
+escapes them itself)."""
+
+
+def _on_terminal(out) -> bool:
+    return hasattr(out, "isatty") and out.isatty()
+
+
 def _width(out) -> int:
     """The terminal's width on a terminal (cells wrap inside their column when narrow);
     else $COLUMNS if set, else room for the whole table (a file gets unwrapped lines)."""
     import os
     import shutil
 
-    if hasattr(out, "isatty") and out.isatty():
+    if _on_terminal(out):
         return shutil.get_terminal_size().columns
     return int(os.environ.get("COLUMNS", "0") or 0) or 10_000
 
 
 def emit(df: pd.DataFrame, fmt: str, *, view: View | None = None, title: str | None = None,
          file=None) -> None:
-    """Print `df` as csv/json exactly, or `view` (default: df itself) as a table; with a
-    view, the table format never reads `df` (it may be None)."""
+    """Print `df` as csv/json exactly (csv on a terminal with its control characters made
+    spaces), or `view` (default: df itself) as a table; with a view, the table format never
+    reads `df` (it may be None)."""
     out = file or sys.stdout
-    if fmt == "csv":
+    if fmt == "csv" and _on_terminal(out):  # a store's words must not drive the terminal
+        out.write(df.to_csv(index=False).translate(_ON_SCREEN))
+        return
+    if fmt == "csv":  # a file or a pipe gets the exact text
         df.to_csv(out, index=False)
         return
     if fmt == "json":

@@ -7,11 +7,13 @@ through its views or macros."""
 from __future__ import annotations
 
 import hashlib
+import io
 import json
 import subprocess
 import sys
 import textwrap
 import time
+import unicodedata
 from pathlib import Path
 
 import duckdb
@@ -336,3 +338,27 @@ def test_an_exact_sweep_id_wins_over_longer_ids_it_begins_and_an_empty_one_names
         store.resolve_sweep("run")
     with pytest.raises(StoreError, match="--sweep '' is no sweep id \\(nor the start of one\\) in store"):
         store.resolve_sweep("")
+
+
+class _Terminal(io.StringIO):
+    def isatty(self) -> bool:
+        return True
+
+
+def test_csv_on_a_terminal_carries_no_control_characters_and_a_file_the_exact_text():
+    """Stored words in a CSV answer (`--format csv`, any command, `sql` too): a terminal
+    gets their control characters as spaces, a file or pipe the exact text."""
+    import pandas as pd
+
+    from runner.output import emit
+
+    df = pd.DataFrame({f"ev{CONTROL}il": [f"ri{CONTROL}dge", "tree"], "n": [1, 2]})
+    screen, file = _Terminal(), io.StringIO()
+    emit(df, "csv", file=screen)
+    emit(df, "csv", file=file)
+    assert file.getvalue() == f"ev{CONTROL}il,n\nri{CONTROL}dge,1\ntree,2\n"  # exact
+    shown = screen.getvalue()
+    assert shown == "".join(" " if unicodedata.category(c) == "Cc" and c != "\n" else c
+                            for c in file.getvalue())
+    assert shown.startswith("ev [2J ]0;taken   il,n\n") and "tree,2\n" in shown, shown
+    assert not {c for c in shown if unicodedata.category(c) == "Cc"} - {"\n"}
