@@ -362,3 +362,17 @@ def test_csv_on_a_terminal_carries_no_control_characters_and_a_file_the_exact_te
                             for c in file.getvalue())
     assert shown.startswith("ev [2J ]0;taken   il,n\n") and "tree,2\n" in shown, shown
     assert not {c for c in shown if unicodedata.category(c) == "Cc"} - {"\n"}
+
+
+def test_a_summary_view_redefined_to_look_renewed_is_made_again_on_write(tmp_path):
+    """A cell_summary that holds the words an older check looked for, but answers
+    something else, is replaced by foldwise's own when a writer opens the store."""
+    path = tmp_path / "store.duckdb"
+    write_sweep(path, {"ridge": [[1.0, 2.0]]}, k=2, repeats=1)
+    with duckdb.connect(str(path)) as con:
+        con.execute("""create or replace view cell_summary as select 42.0 as mean,
+                       'count(f."value") AS n' as complexity_tier""")
+    Store(path).ensure_schema()
+    got = Store(path).user_query("select cell_id, metric, mean, n from cell_summary")
+    assert got.to_dict("records") == [{"cell_id": "ridge-0", "metric": "rmse",
+                                       "mean": 1.5, "n": 2}]  # the mean of 1.0 and 2.0

@@ -690,13 +690,14 @@ def refusing_outside(path) -> Iterator[None]:
 
 
 def _renew_summary_view(con) -> None:
-    """A file store's summary view made before its SE and n counted only defined scores
-    (they counted every fold row, NULL for a metric undefined on a fold), or before it
-    carried the cells' complexity tier, is made again."""
+    """A file store's summary view that is not the one this foldwise makes is made again:
+    an older one (before its SE and n counted only defined scores, or before it carried
+    the cells' complexity tier), or one redefined by another hand."""
+    from .shape import summary_view_sql
+
     stored = con.execute("select sql from duckdb_views() where view_name = 'cell_summary' "
                          "and not temporary").fetchone()
-    if stored is None or 'count(f."value") AS n' not in stored[0] \
-            or "complexity_tier" not in stored[0]:
+    if stored is None or stored[0] != summary_view_sql():
         con.execute(VIEW_SQL)
 
 

@@ -8,9 +8,9 @@ from __future__ import annotations
 
 from functools import cache
 
-from .schema import SCHEMA_VERSION, SINCE, TABLE_SQL, TABLES, UPGRADE_COLUMNS
+from .schema import SCHEMA_VERSION, SINCE, TABLE_SQL, TABLES, UPGRADE_COLUMNS, VIEW_SQL
 
-__all__ = ["shape_problem"]
+__all__ = ["shape_problem", "summary_view_sql"]
 
 _SAME = {"JSON": {"JSON", "VARCHAR"}}
 """A JSON column may be plain text (another program's copy): its reader checks each value."""
@@ -35,6 +35,17 @@ def _expected() -> tuple[dict, dict]:
     with duckdb.connect() as con:
         con.execute(TABLE_SQL)
         return _catalog(con, "memory")
+
+
+@cache
+def summary_view_sql() -> str:
+    """The cell_summary view's SQL as DuckDB keeps it, made from this foldwise's DDL."""
+    import duckdb
+
+    with duckdb.connect() as con:
+        con.execute(TABLE_SQL + VIEW_SQL)
+        return con.execute("select sql from duckdb_views() where view_name = "
+                           "'cell_summary'").fetchone()[0]
 
 
 def _catalog(con, catalog: str) -> tuple[dict, dict]:
