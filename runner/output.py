@@ -61,6 +61,17 @@ _ON_SCREEN = {i: " " for i in [*range(0, 32), *range(127, 160)] if i != ord("\n"
 escapes them itself)."""
 
 
+def _quoting(df: pd.DataFrame) -> int:
+    """The csv module's quoting for `df`: minimal, unless a word holds a carriage return,
+    which minimal quoting leaves bare (a reader then ends the row there): every word is
+    quoted then."""
+    import csv
+
+    words = [*map(str, df.columns), *(v for c in df.columns if df[c].dtype == object
+                                      for v in df[c] if isinstance(v, str))]
+    return csv.QUOTE_NONNUMERIC if any("\r" in w for w in words) else csv.QUOTE_MINIMAL
+
+
 def _on_terminal(out) -> bool:
     return hasattr(out, "isatty") and out.isatty()
 
@@ -83,10 +94,10 @@ def emit(df: pd.DataFrame, fmt: str, *, view: View | None = None, title: str | N
     reads `df` (it may be None)."""
     out = file or sys.stdout
     if fmt == "csv" and _on_terminal(out):  # a store's words must not drive the terminal
-        out.write(df.to_csv(index=False).translate(_ON_SCREEN))
+        out.write(df.to_csv(index=False, quoting=_quoting(df)).translate(_ON_SCREEN))
         return
     if fmt == "csv":  # a file or a pipe gets the exact text
-        df.to_csv(out, index=False)
+        df.to_csv(out, index=False, quoting=_quoting(df))
         return
     if fmt == "json":
         out.write(json.dumps(_jsonable(df), indent=2) + "\n")

@@ -356,11 +356,14 @@ def test_csv_on_a_terminal_carries_no_control_characters_and_a_file_the_exact_te
     screen, file = _Terminal(), io.StringIO()
     emit(df, "csv", file=screen)
     emit(df, "csv", file=file)
-    assert file.getvalue() == f"ev{CONTROL}il,n\nri{CONTROL}dge,1\ntree,2\n"  # exact
+    assert pd.read_csv(io.StringIO(file.getvalue())).equals(df)  # exact, CR and all
+    plain = io.StringIO()
+    emit(pd.DataFrame({"model": ["ridge", "tree"], "n": [1, 2]}), "csv", file=plain)
+    assert plain.getvalue() == "model,n\nridge,1\ntree,2\n"  # no CR: quoted as before
     shown = screen.getvalue()
     assert shown == "".join(" " if unicodedata.category(c) == "Cc" and c != "\n" else c
                             for c in file.getvalue())
-    assert shown.startswith("ev [2J ]0;taken   il,n\n") and "tree,2\n" in shown, shown
+    assert shown.startswith('"ev [2J ]0;taken   il","n"\n') and '"tree",2\n' in shown, shown
     assert not {c for c in shown if unicodedata.category(c) == "Cc"} - {"\n"}
 
 
