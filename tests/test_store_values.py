@@ -510,3 +510,35 @@ def test_prediction_intervals_skip_residuals_that_are_not_finite_or_refuse_in_a_
     got = pd.read_csv(written)
     np.testing.assert_allclose(got["upper"] - got["predicted"], q, rtol=1e-12)
     np.testing.assert_allclose(got["predicted"] - got["lower"], q, rtol=1e-12)
+
+
+def test_a_card_holding_nan_is_fetched_and_shown_as_standard_json(bases, tmp_path):
+    """NaN and infinities in a stored card (its residuals here): `fetch` wrote no card (a
+    traceback) and `card --format json` printed NaN, which no standard JSON reader takes;
+    both now give them as null, a missing number, and keep every other value."""
+    import json
+
+    import duckdb
+
+    from .store_mutations import mutate_interval
+
+    change, _ = INTERVALS["NaN and infinite residuals"]
+    folder, store, argvs, _ = bases["regression"]
+    into = tmp_path / "s.duckdb"
+    mutate_interval(store, into, change)
+    with duckdb.connect(str(into), read_only=True) as con:
+        (stored,) = con.execute("select card from models where model_id = ?",
+                                [argvs["card 0"][1]]).fetchone()
+    stored = json.loads(stored)["interval"]["scores"]
+
+    def strict(text: str) -> dict:
+        return json.loads(text, parse_constant=lambda word: pytest.fail(f"{word} in JSON"))
+
+    fetched = _run([a.replace(str(store), str(into)).replace(str(folder / "out"), str(tmp_path))
+                    for a in argvs["fetch 0"]])
+    assert fetched.exit_code == 0, fetched.output
+    shown = _run([a.replace(str(store), str(into)) for a in argvs["card 0"]]
+                 + ["--format", "json"])
+    assert shown.exit_code == 0, shown.output
+    for card in (strict((tmp_path / "m0.card.json").read_text()), strict(shown.stdout)):
+        assert card["interval"]["scores"] == [None, None, None, *stored[3:]]

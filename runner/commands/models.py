@@ -3,7 +3,6 @@ Registered on `runner.cli.main`; kept apart so that `cli.py` stays thin."""
 
 from __future__ import annotations
 
-import json
 import sys
 
 import click
@@ -144,12 +143,13 @@ def card(model_ref, store_path, fmt):
       foldwise card model-20261202-101010-ab12
       foldwise card results/models/tree.skops --format json
     """
+    from ..model.card import card_json
     from ..model.keep import read_model
     from ..read.model_views import card_view
 
     _, the_card, _ = read_model(model_ref, _open_store(store_path))
     if fmt == "json":
-        click.echo(json.dumps(the_card, indent=2))
+        click.echo(card_json(the_card), nl=False)
     else:
         view = card_view(the_card)
         emit(view.table, "table", view=view)

@@ -237,7 +237,19 @@ def card_path_for(artefact: Path) -> Path:
 
 
 def card_json(card: dict) -> str:
-    return json.dumps(card, indent=2, sort_keys=False, allow_nan=False) + "\n"
+    """The card as standard JSON text: a stored card (another's text) may hold NaN or an
+    infinity, for which JSON has no word; they are written null, as a missing number."""
+    return json.dumps(_nulled(card), indent=2, sort_keys=False, allow_nan=False) + "\n"
+
+
+def _nulled(value):
+    if isinstance(value, float) and not math.isfinite(value):
+        return None
+    if isinstance(value, dict):
+        return {k: _nulled(v) for k, v in value.items()}
+    if isinstance(value, list):
+        return [_nulled(v) for v in value]
+    return value
 
 
 def check_card(card, where: str) -> dict:
