@@ -163,6 +163,7 @@ def test_a_store_of_schema_version_1_is_upgraded_keeping_spec_order(explained, t
         con.execute("drop view cell_summary")
         con.execute("drop table cells")
         con.execute("alter table cells_v1 rename to cells")
+        con.execute("alter table cells add primary key (sweep_id, cell_id)")  # as v1 had
         con.execute("update foldwise_meta set value = '1' where key = 'schema_version'")
     upgraded = Store(old.path)
     assert upgraded.query("select cell_id from cells order by position")["cell_id"].tolist() \
