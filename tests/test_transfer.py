@@ -257,3 +257,21 @@ def test_export_under_a_file_or_from_no_store_is_refused_leaving_no_folder(tmp_p
     assert sorted(p.name for p in tmp_path.iterdir()) == ["foreign.duckdb", "notes.txt",
                                                           "store.duckdb"]
     assert (tmp_path / "notes.txt").read_text() == "kept\n"
+
+
+def test_an_export_whose_table_file_links_outside_is_refused_unread(explained, tmp_path):
+    """A table file of an export folder made a link to a file elsewhere (here a CSV that
+    looks like a sweeps table): merge reads nothing through it and writes nothing."""
+    _, store, _ = explained
+    folder = tmp_path / "export"
+    export_store(store, folder, fmt="csv")
+    outside = tmp_path / "outside.csv"
+    outside.write_text("sweep_id,name\nsecret-line,zzz\n")
+    (folder / "sweeps.csv").unlink()
+    (folder / "sweeps.csv").symlink_to(outside)
+    mine = tmp_path / "mine.duckdb"
+    out = CliRunner().invoke(main, ["merge", str(folder), "--store", str(mine)])
+    assert out.exit_code == 2 and out.output.count("\n") == 1, out.output
+    assert out.output.startswith(f"Error: export {folder} holds a table file that is a link "
+                                 "to a file outside the folder"), out.output
+    assert "secret-line" not in out.output and not mine.exists()

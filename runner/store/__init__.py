@@ -681,6 +681,12 @@ def refusing_outside(path) -> Iterator[None]:
         if not reaches_outside(exc):
             raise
         first = str(exc).strip().splitlines()[0]
+        if Path(str(path)).is_dir():  # an export folder: one of its files is a link
+            raise StoreError(f"export {path} holds a table file that is a link to a file "
+                             f"outside the folder ({first}); foldwise reads only the export's "
+                             "own files, so nothing was read from there and nothing was "
+                             "written. Export the store again, or ask whoever passed it on "
+                             "for a sound copy.") from None
         raise StoreError(f"store {path} holds a view or macro that reaches outside the "
                          f"store ({first}); foldwise reads only a store's own tables, so "
                          "nothing was read from there and nothing was written. The store may "

@@ -173,7 +173,7 @@ def merge_store(store: Store, other: str | Path,
         sources = {t: f"_other.{t}" for t in TABLES}
         reach = where.reach() if where.kind == "file" else None
     if new_file:
-        _check_source(other, attach, sources, selection)
+        _check_source(other, attach, sources, selection, reach)
         store.ensure_schema()
     with store._connect(read_only=False, reach=reach) as con, _attached(con, attach, other), \
             refusing_outside(other):
@@ -226,13 +226,21 @@ def _readable(con, sources: dict, attach) -> dict:
     return sources
 
 
-def _check_source(other, attach, sources: dict, selection: Selection | None) -> None:
-    """Raise what `other` would refuse the merge for (not a foldwise store, too new, no
-    sweep chosen) on a connection of its own, before a new store file is made for it."""
+def _check_source(other, attach, sources: dict, selection: Selection | None, reach) -> None:
+    """Raise what `other` would refuse the merge for (not a foldwise store, too new, a
+    table it cannot give, no sweep chosen) on a connection of its own that reaches only
+    `reach` (None: anywhere), before a new store file is made for it."""
+    from .locations import confine
+
     con = duckdb.connect()
     try:
+        if reach is not None:
+            confine(con, reach)
         with _attached(con, attach, other), refusing_outside(other):
-            _chosen(con, _readable(con, sources, attach), selection, other)
+            sources = _readable(con, sources, attach)
+            for source in filter(None, sources.values()):
+                con.execute(f"select * from {source} s limit 0")
+            _chosen(con, sources, selection, other)
     finally:
         con.close()
 
