@@ -71,17 +71,26 @@ def test_a_database_that_is_not_a_store_is_never_written(tmp_path, diabetes_csv,
     assert len(names) == 1
 
 
-@pytest.mark.parametrize("kind", ["foreign database", "text file"])
+@pytest.mark.parametrize("kind", ["foreign database", "text file", "newer store"])
 def test_check_refuses_the_store_run_would_refuse_and_leaves_it_as_it_was(tmp_path,
                                                                            diabetes_csv, kind):
     """`check --store` gives run's own refusal (same paragraph, exit 2) for a DuckDB file
-    that is not a foldwise store and for a file that is not DuckDB, and leaves the file's
-    bytes and modification time as they were."""
+    that is not a foldwise store, for a file that is not DuckDB and for a store a newer
+    foldwise wrote, and leaves the file's bytes and modification time as they were."""
     spec = write_spec(tmp_path, MODELS)
     if kind == "text file":
         target = tmp_path / "notes.duckdb"
         target.write_text("bay 4: glazing replaced on the north side\n" * 20)
         words = "it is not a DuckDB database file"
+    elif kind == "newer store":
+        target = write_sweep(tmp_path / "later.duckdb", {"ridge": [[1.0, 2.0]]}, k=2,
+                             repeats=1).path
+        con = duckdb.connect(str(target))
+        con.execute("update foldwise_meta set value = ? where key = 'schema_version'",
+                    [str(SCHEMA_VERSION + 1)])
+        con.close()
+        words = (f"was written by a newer foldwise (schema version {SCHEMA_VERSION + 1}; "
+                 f"this foldwise knows {SCHEMA_VERSION})")
     else:
         target = _foreign(tmp_path / "theirs.duckdb", "create table invoices (id integer)")
         words = "is a database but not a foldwise store: it holds 1 table(s) (invoices)"

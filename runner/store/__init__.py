@@ -192,10 +192,7 @@ class Store:
                 if found is None:
                     self._refuse_foreign(con)
                 if found is not None and found > SCHEMA_VERSION:
-                    raise StoreError(f"store {self.path} was written by a newer foldwise "
-                                     f"(schema version {found}; this foldwise knows "
-                                     f"{SCHEMA_VERSION}). Upgrade foldwise or use another "
-                                     "store.")
+                    raise self._newer_error(found)
                 if found == SCHEMA_VERSION:
                     self._check_privileges(con)
                     if not self.location.shared:
@@ -228,9 +225,17 @@ class Store:
                 or not self.location.exists():
             return
         with self._connect(read_only=True, writing=writing, small=True) as con:
-            if self._schema_version(con) is None:
+            found = self._schema_version(con)
+            if found is None:
                 self._refuse_foreign(con)
+            elif found > SCHEMA_VERSION:
+                raise self._newer_error(found)
         self._looked = True
+
+    def _newer_error(self, found: int) -> StoreError:
+        return StoreError(f"store {self.path} was written by a newer foldwise (schema version "
+                          f"{found}; this foldwise knows {SCHEMA_VERSION}). Upgrade foldwise "
+                          "or use another store.")
 
     def _create_schema(self, con, found: int | None) -> None:
         con.execute("begin")
@@ -583,8 +588,7 @@ class Store:
                              "Run a sweep into it first (`foldwise run SPEC --store ...`), or "
                              "point --store at a foldwise store.")
         if found > SCHEMA_VERSION:
-            raise StoreError(f"store {self.path} was written by a newer foldwise (schema "
-                             f"version {found}); upgrade foldwise to read it.")
+            raise self._newer_error(found)
         if found < SCHEMA_VERSION:
             try:
                 self.ensure_schema()
