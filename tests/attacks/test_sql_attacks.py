@@ -366,7 +366,10 @@ def test_a_query_failing_part_way_is_refused_in_one_paragraph(request, where, fl
                       "else range end as v from range(200000)", "--store", case.store.path,
                       *flag)
     assert out.exit_code == 2, out.output
-    assert out.output == "Error: the query failed: Invalid Input Error: stop here\n", out.output
+    # DuckDB's other threads stop when one fails; on a busy machine their stop can be the
+    # error the reader reports first, in place of the query's own
+    assert out.output in ("Error: the query failed: Invalid Input Error: stop here\n",
+                          "Error: the query failed: INTERRUPT Error: Interrupted!\n"), out.output
     assert case.state() == case.baseline
 
 
