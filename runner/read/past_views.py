@@ -10,8 +10,8 @@ from datetime import datetime
 from .compare import APPROXIMATE_NOTE
 from ..metrics import metric_label
 from .results import ModelHistory, SweepDiff, SweepList
-from .views import (CLEAR_P, TIME_MEANING, TextTable, View, beside, count_text, cv_head, decimals_for,
-                    fixed, is_missing, mean_se, number, p_text, params_text, rule_label,
+from .views import (CLEAR_P, TIME_MEANING, TextTable, View, beside, count_text, cv_head,
+                    decimals_for, fixed, is_missing, mean_se, number, p_text, params_text, rule_label,
                     test_head)
 
 __all__ = ["plain_text", "labels_text", "sweeps_view", "removal_view", "diff_view",

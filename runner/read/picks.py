@@ -14,7 +14,8 @@ from ..errors import QueryError
 from ..families import get_family
 
 __all__ = ["RULES", "SE_KINDS", "TOLERANCE", "best_index", "one_se_index", "one_se_threshold",
-           "corrected_variance", "standard_error", "check_rule", "check_se", "grid_edges", "columns_drawn"]
+           "corrected_variance", "standard_error", "check_rule", "check_se", "grid_edges",
+           "columns_drawn"]
 
 RULES = ("best", "one_se")
 SE_KINDS = ("plain", "corrected")

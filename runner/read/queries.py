@@ -365,8 +365,8 @@ FOLD_SCORES = """(
     from fold_scores)"""
 """The fold scores every read takes, in place of the table: a score that is not a finite
 number, or beyond ±1e100 (no fitted model's score comes near; DuckDB's standard deviation
-fails where squares pass float range), is undefined (like a NULL one), and the validation share n_valid/n_train is NULL
-unless both counts are positive (a store from another hand may hold NaN, infinities or
+fails where squares pass float range), is undefined (like a NULL one), and the validation
+share n_valid/n_train is NULL unless both counts are positive (a store from another hand may hold NaN, infinities or
 negative counts, on which DuckDB's standard deviation and the corrected SE fail)."""
 
 CELL_SUMMARY = f"""(

@@ -20,15 +20,14 @@ from ..families import FAMILIES, check_param_value
 from ..names import nearest
 from ..metrics import METRICS, TASK_DEFAULTS
 from .findings import KINDS
-from .spec_yaml import MAX_DEPTH, MAX_NODES, UniqueKeyLoader, line_map, shape_problem
+from .spec_yaml import (MAX_DEPTH, MAX_NODES, MAX_SPEC_BYTES, UniqueKeyLoader, line_map,
+                        shape_problem)
 
 __all__ = ["Spec", "ModelSpec", "Limits", "load_spec", "parse_spec", "spec_json_schema",
            "LogRange", "LinearRange", "PathRange", "MAX_SPEC_BYTES", "MAX_DEPTH", "MAX_NODES",
            "MAX_SEED", "MAX_RANGE_N", "FoldPlan", "TestSplit", "Checks", "SCHEMES",
            "implied_scheme"]
 
-MAX_SPEC_BYTES = 128 * 1024
-"""A spec file larger than this is refused unread (real specs are a few KiB)."""
 MAX_SEED = 2**32 - 1
 """numpy's and scikit-learn's random_state take 0 ... 2**32 - 1."""
 MAX_RANGE_N = 1_000_000

@@ -8,14 +8,16 @@ import yaml
 
 from ..errors import SpecError
 
-__all__ = ["MAX_DEPTH", "MAX_NODES", "UniqueKeyLoader", "line_map", "shape_problem",
-           "stated_missing_words"]
+__all__ = ["MAX_DEPTH", "MAX_NODES", "MAX_SPEC_BYTES", "UniqueKeyLoader", "line_map",
+           "shape_problem", "stated_missing_words"]
 
 MAX_DEPTH = 32
 """Deepest nesting of mappings and lists a spec may have (real specs use 4 or 5)."""
 MAX_NODES = 100_000
 """Most values a spec may hold once every alias (*name) is expanded."""
-_MAX_STORED_TEXT = 128 * 1024  # as spec.MAX_SPEC_BYTES: no spec that ran is longer
+MAX_SPEC_BYTES = 128 * 1024
+"""Longest spec foldwise reads: a larger file is refused unread, a larger stored text is not
+read (real specs are a few KiB, and no spec that ran is longer)."""
 
 
 class UniqueKeyLoader(yaml.SafeLoader):
@@ -112,7 +114,7 @@ def stated_missing_words(text: str) -> list[str] | None:
     None where it lists none (pandas' default list). A ValueError where the text cannot say
     (too long or costly, not YAML, no data mapping, not a list of words): a store's spec
     text is another's, read with the same limits as a spec file."""
-    if len(text.encode("utf-8", "replace")) > _MAX_STORED_TEXT or shape_problem(text):
+    if len(text.encode("utf-8", "replace")) > MAX_SPEC_BYTES or shape_problem(text):
         raise ValueError("not a spec foldwise runs")
     try:
         doc = yaml.load(text, Loader=UniqueKeyLoader)
